@@ -1,0 +1,160 @@
+"""Reading sound files into :class:`Signal` objects.
+
+Sound files are read through python-soundfile (libsndfile), which covers WAV,
+FLAC, OGG/Vorbis and AIFF, in any sample format and channel count.  Samples
+come back as float64 with nominal full scale +/-1.0.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass
+
+import numpy as np
+import soundfile
+
+from ladderpack.errors import AudioFileError, OptionError, SignalError
+
+__all__ = ["Signal", "check_signal", "load_clip", "sha256_file"]
+
+
+@dataclass(frozen=True)
+class Signal:
+    """Floating-point samples at a known rate.
+
+    Attributes
+    ----------
+    samples : numpy.ndarray
+        float64 samples, nominal full scale +/-1.0.  Shape ``(n,)`` for mono
+        or ``(n, channels)`` for several channels.
+    rate_hz : float
+        Sample rate in hertz.
+    """
+
+    samples: np.ndarray
+    rate_hz: float
+
+    @property
+    def channels(self) -> int:
+        """Number of channels (1 for a 1-D array)."""
+        return 1 if self.samples.ndim == 1 else int(self.samples.shape[1])
+
+    @property
+    def frames(self) -> int:
+        """Number of sample frames."""
+        return int(self.samples.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        """Length in seconds."""
+        return self.frames / float(self.rate_hz)
+
+
+def check_signal(signal: Signal, *, source: str | None = None, min_frames: int = 1) -> Signal:
+    """Validate a signal and return it unchanged.
+
+    This is the one place where sample data is checked: every entry point
+    calls it before doing any DSP.
+
+    Parameters
+    ----------
+    signal : Signal
+        The signal to check.
+    source : str, optional
+        File name used in error messages.
+    min_frames : int
+        Fewest frames accepted.
+
+    Raises
+    ------
+    SignalError
+        If the samples are not a 1-D or 2-D real float array, are fewer than
+        `min_frames`, contain NaN or infinity, or the rate is not positive.
+    """
+    x = signal.samples
+    if not isinstance(x, np.ndarray) or x.dtype.kind not in "fiu" or x.ndim not in (1, 2):
+        raise SignalError("expected a 1-D or 2-D real numeric array", file=source, field="samples")
+    if x.shape[0] < min_frames:
+        raise SignalError(
+            f"expected at least {min_frames} sample frame(s), got {x.shape[0]}",
+            file=source,
+            field="samples",
+        )
+    if x.ndim == 2 and x.shape[1] < 1:
+        raise SignalError("expected at least one channel", file=source, field="samples")
+    if not np.all(np.isfinite(x)):
+        bad = int(np.flatnonzero(~np.isfinite(x.reshape(x.shape[0], -1)).any(axis=1))[0])
+        raise SignalError(
+            f"samples must be finite; frame {bad} holds NaN or infinity",
+            file=source,
+            field="samples",
+        )
+    if not (np.isfinite(signal.rate_hz) and signal.rate_hz > 0):
+        raise SignalError(f"must be a positive rate, got {signal.rate_hz!r}", file=source,
+                          field="rate_hz")
+    return signal
+
+
+def load_clip(path: str | os.PathLike[str], *, channel: int | None = None) -> Signal:
+    """Read a sound file and reduce it to one channel.
+
+    Parameters
+    ----------
+    path : str or path-like
+        WAV, FLAC, OGG or AIFF file (anything libsndfile reads).
+    channel : int, optional
+        0-based channel to keep.  ``None`` (default) averages all channels
+        into a mono mix.
+
+    Returns
+    -------
+    Signal
+        Mono float64 signal at the file's own sample rate.
+
+    Raises
+    ------
+    AudioFileError
+        If the file is missing or not a readable sound file.
+    OptionError
+        If `channel` does not exist in the file.
+    SignalError
+        If the file holds no samples or non-finite samples.
+
+    Examples
+    --------
+    >>> sig = load_clip("demo_audio/door_chime.flac")  # doctest: +SKIP
+    >>> sig.rate_hz, sig.channels  # doctest: +SKIP
+    (44100, 1)
+    """
+    name = os.fspath(path)
+    if not os.path.exists(name):
+        raise AudioFileError("no such file", file=name)
+    if os.path.isdir(name):
+        raise AudioFileError("is a folder, expected a sound file", file=name)
+    try:
+        data, rate = soundfile.read(name, dtype="float64", always_2d=True)
+    except (soundfile.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+        detail = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise AudioFileError(f"not a readable sound file ({detail})", file=name) from None
+    n_ch = data.shape[1]
+    if channel is None:
+        mono = data.mean(axis=1)
+    else:
+        if not 0 <= channel < n_ch:
+            raise OptionError(
+                f"file has {n_ch} channel(s), numbered 0..{n_ch - 1}; got {channel}",
+                file=name,
+                field="channel",
+            )
+        mono = data[:, channel].copy()
+    return check_signal(Signal(np.ascontiguousarray(mono), float(rate)), source=name)
+
+
+def sha256_file(path: str | os.PathLike[str]) -> str:
+    """Return the hex SHA-256 digest of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()

@@ -1,0 +1,136 @@
+"""A stream asset: every stage's product, ready for the emitters."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Any
+
+from ladderpack.clock import ClockPlan
+from ladderpack.pack import Packed
+from ladderpack.pio import Program, StateMachineConfig
+from ladderpack.quantize import Codes
+
+__all__ = ["StreamAsset", "bundle_files", "write_bundle"]
+
+
+@dataclass(frozen=True)
+class StreamAsset:
+    """A finished stream and everything needed to play or reproduce it.
+
+    Attributes
+    ----------
+    name : str
+        Safe identifier (from :func:`ladderpack.emit.names.asset_identifier`);
+        the stem of every output file and the prefix of every C symbol.
+    codes : Codes
+        The stream's codes, ramps included.
+    packed : Packed
+        FIFO words.
+    plan : ClockPlan
+        Clock divider and cycles per sample.
+    program : Program
+        State-machine program.
+    sm : StateMachineConfig
+        State-machine register values.
+    idle_code : int
+        Code the pins hold before and after the stream.
+    source : dict
+        Where the samples came from (file name without folders, SHA-256,
+        original rate, channels, frames).
+    options : dict
+        Every option that shaped the result.
+    stats : dict
+        Measured facts (gain applied, overloads, ramp and audio samples).
+    """
+
+    name: str
+    codes: Codes
+    packed: Packed
+    plan: ClockPlan
+    program: Program
+    sm: StateMachineConfig
+    idle_code: int
+    source: dict[str, Any] = field(default_factory=dict)
+    options: dict[str, Any] = field(default_factory=dict)
+    stats: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def sample_count(self) -> int:
+        """Samples in the stream, ramps included."""
+        return self.packed.sample_count
+
+    @property
+    def word_count(self) -> int:
+        """32-bit words in the stream."""
+        return int(self.packed.words.shape[0])
+
+    @property
+    def byte_count(self) -> int:
+        """Bytes of packed stream data."""
+        return 4 * self.word_count
+
+    @property
+    def duration_s(self) -> float:
+        """Playing time at the achieved rate, in seconds."""
+        return self.sample_count / float(self.plan.achieved_rate_hz)
+
+    def summary(self) -> dict[str, Any]:
+        """The short human summary as plain data (also the ``--json`` output)."""
+        return {
+            "asset": self.name,
+            "duration_s": round(self.duration_s, 6),
+            "bits": self.codes.bits,
+            "requested_rate_hz": float(self.plan.requested_rate_hz),
+            "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
+            "rate_error_ppm": round(self.plan.error_ppm, 3),
+            "divider": f"{self.plan.div_int}+{self.plan.div_frac}/256",
+            "fractional_divider": self.plan.fractional,
+            "cycles_per_sample": self.plan.cycles_per_sample,
+            "samples": self.sample_count,
+            "words": self.word_count,
+            "bytes": self.byte_count,
+            "overloads": int(self.stats.get("overloads", 0)),
+        }
+
+
+def bundle_files(asset: StreamAsset, *, embed_words_max: int = 256) -> dict[str, bytes]:
+    """Render every output file of a bundle, sidecar last.
+
+    Parameters
+    ----------
+    asset : StreamAsset
+        The stream.
+    embed_words_max : int
+        Streams of at most this many words are also embedded in the
+        MicroPython module as a literal; longer ones are read from the
+        ``.bin`` file on the board's filesystem.
+
+    Returns
+    -------
+    dict of str to bytes
+        File name to content, in writing order (the sidecar is last).
+    """
+    from ladderpack.emit import binary, c, micropython, pioasm, sidecar
+
+    n = asset.name
+    files: dict[str, bytes] = {
+        f"{n}.bin": binary.render(asset.packed),
+        f"{n}.h": c.render_header(asset).encode(),
+        f"{n}.c": c.render_source(asset).encode(),
+        f"{n}.py": micropython.render(asset, embed=asset.word_count <= embed_words_max).encode(),
+        f"{n}.pio": pioasm.render(asset).encode(),
+    }
+    files[f"{n}.json"] = sidecar.render(asset, files).encode()
+    return files
+
+
+def write_bundle(asset: StreamAsset, out_dir: str | os.PathLike[str], *,
+                 embed_words_max: int = 256) -> list[str]:
+    """Render a bundle and write it atomically into `out_dir`.
+
+    Returns the paths written.  See :func:`ladderpack.emit.write_files`.
+    """
+    from ladderpack.emit import write_files
+
+    return write_files(bundle_files(asset, embed_words_max=embed_words_max), out_dir)

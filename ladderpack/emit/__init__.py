@@ -1,0 +1,69 @@
+"""Output generators and the atomic bundle writer.
+
+Every generator is pure: it takes data and returns ``bytes`` or ``str``.
+Only :func:`write_files` touches the file system, and it does so atomically:
+each file goes to a temporary name in the target folder and is renamed into
+place once all of them are written, so an interrupted run leaves the earlier
+outputs intact and no partial files behind.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Mapping
+
+from ladderpack.errors import OutputError
+
+__all__ = ["write_files"]
+
+
+def write_files(files: Mapping[str, bytes], out_dir: str | os.PathLike[str]) -> list[str]:
+    """Write a set of files into `out_dir`, all or nothing.
+
+    Parameters
+    ----------
+    files : mapping of str to bytes
+        File name (no folders) to content.  Written in the mapping's order,
+        so put the file that marks the set complete (the sidecar) last.
+    out_dir : str or path-like
+        Target folder; created if missing.
+
+    Returns
+    -------
+    list of str
+        Paths written.
+
+    Raises
+    ------
+    OutputError
+        If the folder cannot be created or written.  Nothing is left behind.
+    """
+    folder = os.fspath(out_dir)
+    for name in files:
+        if not name or os.sep in name or (os.altsep and os.altsep in name) or name in (".", ".."):
+            raise OutputError(f"unsafe output file name {name!r}", file=folder)
+    try:
+        os.makedirs(folder, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot create output folder ({exc.strerror})", file=folder) from None
+    umask = os.umask(0)
+    os.umask(umask)
+    temps: list[tuple[str, str]] = []
+    try:
+        for name, data in files.items():
+            fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=folder)
+            temps.append((tmp, os.path.join(folder, name)))
+            os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual mode
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+        for tmp, final in temps:
+            os.replace(tmp, final)
+    except OSError as exc:
+        for tmp, _ in temps:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        raise OutputError(f"cannot write output ({exc.strerror or exc})", file=folder) from None
+    return [final for _, final in temps]

@@ -1,0 +1,62 @@
+"""Safe identifiers and file names derived from user-supplied asset names."""
+
+from __future__ import annotations
+
+import keyword
+import re
+import unicodedata
+
+from ladderpack.errors import OptionError
+
+__all__ = ["C_KEYWORDS", "asset_identifier", "comment_safe"]
+
+#: C99 keywords plus names the generated code must not shadow.
+C_KEYWORDS = frozenset(
+    [
+    "auto", "break", "case", "char", "const", "continue", "default", "do", "double", "else",
+    "enum", "extern", "float", "for", "goto", "if", "inline", "int", "long", "register",
+    "restrict", "return", "short", "signed", "sizeof", "static", "struct", "switch", "typedef",
+    "union", "unsigned", "void", "volatile", "while", "_Bool", "_Complex", "_Imaginary", "bool",
+    "true", "false", "NULL", "main", "uint8_t", "uint16_t", "uint32_t", "int8_t", "int16_t",
+    "int32_t", "size_t",
+    ]
+)
+
+
+def asset_identifier(name: str) -> str:
+    """Turn an asset name into an identifier valid in C and Python.
+
+    Letters are folded to ASCII lower case, every other run of characters
+    becomes one underscore, a leading digit gets an ``a_`` prefix, and C or
+    Python keywords get a trailing underscore.  The result is also used as
+    the stem of every output file name, so it never holds a path separator.
+
+    Examples
+    --------
+    >>> asset_identifier("Frost warning (v2).wav")
+    'frost_warning_v2_wav'
+    >>> asset_identifier("2nd chime")
+    'a_2nd_chime'
+    >>> asset_identifier("int")
+    'int_'
+    """
+    folded = unicodedata.normalize("NFKD", str(name)).encode("ascii", "ignore").decode()
+    ident = re.sub(r"[^A-Za-z0-9]+", "_", folded).strip("_").lower()
+    if not ident:
+        raise OptionError(f"{name!r} has no letters or digits to make an identifier from",
+                          field="name")
+    if ident[0].isdigit():
+        ident = "a_" + ident
+    if ident in C_KEYWORDS or keyword.iskeyword(ident) or keyword.issoftkeyword(ident):
+        ident += "_"
+    return ident
+
+
+def comment_safe(text: str) -> str:
+    """Make text safe inside a C block comment or a Python comment line.
+
+    Non-printable characters (newlines included) become ``?``, and ``*/`` is
+    broken up so it cannot end the comment.
+    """
+    clean = "".join(ch if ch.isprintable() and ch.isascii() else "?" for ch in str(text))
+    return clean.replace("*/", "* /").replace("/*", "/ *")

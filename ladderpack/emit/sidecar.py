@@ -1,0 +1,58 @@
+"""The JSON sidecar: every parameter needed to reproduce or play a stream."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Mapping
+
+from ladderpack._version import __version__
+from ladderpack.bundle import StreamAsset
+
+__all__ = ["FORMAT", "FORMAT_VERSION", "render"]
+
+FORMAT = "ladderpack-stream"
+FORMAT_VERSION = 1
+
+
+def render(asset: StreamAsset, files: Mapping[str, bytes]) -> str:
+    """Return the sidecar JSON text.
+
+    Parameters
+    ----------
+    asset : StreamAsset
+        The stream.
+    files : mapping of str to bytes
+        The bundle's other files; their SHA-256 digests are recorded so a
+        build can tell a hand-edited or incomplete bundle.
+    """
+    doc = {
+        "format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "tool": {"name": "ladderpack", "version": __version__},
+        "asset": asset.name,
+        "source": asset.source,
+        "options": asset.options,
+        "clock": asset.plan.to_dict(),
+        "layout": asset.packed.layout.to_dict(),
+        "program": {
+            "name": asset.program.name,
+            "source": asset.program.source(),
+            "words": list(asset.program.words),
+            "wrap_target": asset.program.wrap_target,
+            "wrap": asset.program.wrap,
+        },
+        "state_machine": asset.sm.to_dict(),
+        "stream": {
+            "bits": asset.codes.bits,
+            "idle_code": asset.idle_code,
+            "pad_code": asset.packed.pad_code,
+            "sample_count": asset.sample_count,
+            "word_count": asset.word_count,
+            "bytes": asset.byte_count,
+            "duration_s": round(asset.duration_s, 9),
+        },
+        "stats": asset.stats,
+        "files": {name: hashlib.sha256(data).hexdigest() for name, data in sorted(files.items())},
+    }
+    return json.dumps(doc, indent=2, sort_keys=True) + "\n"

@@ -1,0 +1,71 @@
+"""User-facing error types.
+
+Every mistake a user can make (a bad file, a bad option value, a rate the
+clock cannot reach) is reported through :class:`LadderpackError` or one of
+its subclasses.  The message names the file and the field involved and says
+what was expected, so the command line can print it as a single line and exit
+with status 2, without a stack trace.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "AudioFileError",
+    "ClockError",
+    "LadderpackError",
+    "OptionError",
+    "OutputError",
+    "SignalError",
+]
+
+
+class LadderpackError(Exception):
+    """A problem with the user's input, reported without a traceback.
+
+    Parameters
+    ----------
+    message : str
+        What is wrong and what was expected, e.g. ``"must be 1..16, got 20"``.
+    file : str, optional
+        The file the problem is in (input clip, output folder, manifest).
+    field : str, optional
+        The option, key or quantity that is wrong (``"bits"``, ``"rate_hz"``).
+
+    Examples
+    --------
+    >>> str(LadderpackError("must be 1..16, got 20", field="bits"))
+    'bits: must be 1..16, got 20'
+    """
+
+    exit_code = 2
+
+    def __init__(self, message: str, *, file: str | None = None, field: str | None = None):
+        self.message = message
+        self.file = file
+        self.field = field
+        super().__init__(self.__str__())
+
+    def __str__(self) -> str:
+        parts = [p for p in (self.file, self.field) if p]
+        parts.append(self.message)
+        return ": ".join(parts)
+
+
+class OptionError(LadderpackError, ValueError):
+    """An option or parameter has a value outside what is allowed."""
+
+
+class AudioFileError(LadderpackError):
+    """An input sound file is missing, unreadable or not audio."""
+
+
+class SignalError(LadderpackError, ValueError):
+    """Sample data is unusable (empty, not finite, wrong shape)."""
+
+
+class ClockError(LadderpackError, ValueError):
+    """The requested sample rate cannot be produced by the state-machine clock."""
+
+
+class OutputError(LadderpackError):
+    """An output folder or file cannot be written."""

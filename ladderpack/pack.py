@@ -1,0 +1,157 @@
+"""Packing codes into 32-bit TX FIFO words.
+
+The state machine's ``out pins, N`` takes N bits from the output shift
+register (OSR) per sample.  With ``OUT_SHIFTDIR`` = right it takes the OSR's
+least significant bits first, with left its most significant bits first
+(RP2040 datasheet, "OUT" instruction and "Autopull" sections).  Autopull
+refills the OSR once ``PULL_THRESH`` bits have been shifted out, so a word
+carries ``floor(32 / N)`` whole samples and any bits left over are padding
+that the refill discards.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ladderpack.errors import OptionError
+from ladderpack.quantize import Codes, check_bits
+
+__all__ = ["Packed", "WordLayout", "pack", "unpack"]
+
+
+@dataclass(frozen=True)
+class WordLayout:
+    """How codes sit in a 32-bit FIFO word.
+
+    Attributes
+    ----------
+    bits : int
+        Code width N.
+    shift_right : bool
+        True (default) for ``OUT_SHIFTDIR`` = right: the first sample of a
+        word is in its least significant bits.  False: in its most
+        significant bits.
+    """
+
+    bits: int
+    shift_right: bool = True
+
+    def __post_init__(self) -> None:
+        check_bits(self.bits)
+
+    @property
+    def samples_per_word(self) -> int:
+        """Whole samples per word, ``floor(32 / bits)``."""
+        return 32 // self.bits
+
+    @property
+    def pull_threshold(self) -> int:
+        """Autopull threshold in bits, ``samples_per_word * bits`` (1..32)."""
+        return self.samples_per_word * self.bits
+
+    @property
+    def pad_bits(self) -> int:
+        """Unused bits per word."""
+        return 32 - self.pull_threshold
+
+    def words_for(self, samples: int) -> int:
+        """Words needed for `samples` samples."""
+        return -(-samples // self.samples_per_word)
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description."""
+        return {
+            "bits": self.bits,
+            "samples_per_word": self.samples_per_word,
+            "shift": "right" if self.shift_right else "left",
+            "pull_threshold": self.pull_threshold,
+            "pad_bits": self.pad_bits,
+        }
+
+
+@dataclass(frozen=True)
+class Packed:
+    """Packed FIFO words.
+
+    Attributes
+    ----------
+    words : numpy.ndarray
+        uint32 words in FIFO order.
+    layout : WordLayout
+        The layout used.
+    sample_count : int
+        Samples carried (the rest of the last word is padding).
+    pad_code : int
+        Code used to fill the last word.
+    """
+
+    words: np.ndarray
+    layout: WordLayout
+    sample_count: int
+    pad_code: int
+
+
+def _slot_shifts(layout: WordLayout) -> np.ndarray:
+    j = np.arange(layout.samples_per_word, dtype=np.uint64)
+    if layout.shift_right:
+        return j * np.uint64(layout.bits)
+    return np.uint64(32) - (j + np.uint64(1)) * np.uint64(layout.bits)
+
+
+def pack(codes: Codes, layout: WordLayout, *, pad_code: int = 0) -> Packed:
+    """Pack codes into 32-bit words.
+
+    Parameters
+    ----------
+    codes : Codes
+        The stream; its `bits` must match the layout.
+    layout : WordLayout
+        Samples per word and shift direction.
+    pad_code : int
+        Code that fills the unused slots of the last word (the idle code, so
+        the pins rest where the stream left them).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> p = pack(Codes(np.array([1, 2, 3, 4, 5], np.uint16), 8), WordLayout(8))
+    >>> [hex(w) for w in p.words]
+    ['0x4030201', '0x5']
+    """
+    if codes.bits != layout.bits:
+        raise OptionError(f"codes are {codes.bits}-bit but layout is {layout.bits}-bit",
+                          field="bits")
+    if not 0 <= pad_code < (1 << layout.bits):
+        raise OptionError(f"must be 0..{(1 << layout.bits) - 1}, got {pad_code}",
+                          field="pad_code")
+    spw = layout.samples_per_word
+    n = len(codes)
+    n_words = layout.words_for(n)
+    slots = np.full(n_words * spw, pad_code, dtype=np.uint64)
+    slots[:n] = codes.codes
+    grid = slots.reshape(n_words, spw) << _slot_shifts(layout)[None, :]
+    words = np.bitwise_or.reduce(grid, axis=1) if spw > 1 else grid[:, 0]
+    return Packed(words.astype(np.uint32), layout, n, int(pad_code))
+
+
+def unpack(words: np.ndarray, layout: WordLayout, sample_count: int | None = None) -> Codes:
+    """Recover codes from packed words (the inverse of :func:`pack`).
+
+    Parameters
+    ----------
+    words : numpy.ndarray
+        uint32 words.
+    layout : WordLayout
+        The layout they were packed with.
+    sample_count : int, optional
+        Number of samples to keep; default every slot.
+    """
+    w = np.asarray(words, dtype=np.uint64)
+    mask = np.uint64((1 << layout.bits) - 1)
+    slots = (w[:, None] >> _slot_shifts(layout)[None, :]) & mask
+    flat = slots.reshape(-1).astype(np.uint16)
+    if sample_count is not None:
+        flat = flat[:sample_count]
+    return Codes(flat, layout.bits)
