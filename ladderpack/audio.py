@@ -91,8 +91,9 @@ def check_signal(signal: Signal, *, source: str | None = None, min_frames: int =
             field="samples",
         )
     if not (np.isfinite(signal.rate_hz) and signal.rate_hz > 0):
-        raise SignalError(f"must be a positive rate, got {signal.rate_hz!r}", file=source,
-                          field="rate_hz")
+        raise SignalError(
+            f"must be a positive rate, got {signal.rate_hz!r}", file=source, field="rate_hz"
+        )
     return signal
 
 

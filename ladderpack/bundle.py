@@ -125,8 +125,9 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int = 256) -> dict[str,
     return files
 
 
-def write_bundle(asset: StreamAsset, out_dir: str | os.PathLike[str], *,
-                 embed_words_max: int = 256) -> list[str]:
+def write_bundle(
+    asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int = 256
+) -> list[str]:
     """Render a bundle and write it atomically into `out_dir`.
 
     Returns the paths written.  See :func:`ladderpack.emit.write_files`.

@@ -18,17 +18,26 @@ D = STREAM_DEFAULTS
 
 
 def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> None:
-    rate_line = (f"{summary['requested_rate_hz']:g} Hz requested, "
-                 f"{summary['achieved_rate_hz']:.6f} Hz achieved "
-                 f"({summary['rate_error_ppm']:+.3f} ppm)")
-    jitter = "fractional, 1 system clock of jitter" if summary["fractional_divider"] else \
-        "integer, no jitter"
+    rate_line = (
+        f"{summary['requested_rate_hz']:g} Hz requested, "
+        f"{summary['achieved_rate_hz']:.6f} Hz achieved "
+        f"({summary['rate_error_ppm']:+.3f} ppm)"
+    )
+    jitter = (
+        "fractional, 1 system clock of jitter"
+        if summary["fractional_divider"]
+        else "integer, no jitter"
+    )
     click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {summary['bits']}-bit")
     click.echo(f"  rate     {rate_line}")
-    click.echo(f"  divider  {summary['divider']} ({jitter}), "
-               f"{summary['cycles_per_sample']} cycle(s) per sample")
-    click.echo(f"  stream   {summary['samples']} samples, {summary['words']} words, "
-               f"{summary['bytes']} bytes")
+    click.echo(
+        f"  divider  {summary['divider']} ({jitter}), "
+        f"{summary['cycles_per_sample']} cycle(s) per sample"
+    )
+    click.echo(
+        f"  stream   {summary['samples']} samples, {summary['words']} words, "
+        f"{summary['bytes']} bytes"
+    )
     if "overloads" in summary:
         click.echo(f"  clipped  {summary['overloads']} sample(s)")
     for path in files or []:
@@ -38,42 +47,114 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
 def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
     """Options shared by every command that makes a stream bundle."""
     opts = [
-        click.option("--bits", type=int, default=D["bits"], show_default=True,
-                     help="Ladder width N in bits, 1..16."),
-        click.option("--rate-hz", type=float, default=D["rate_hz"], show_default=True,
-                     help="Requested stream sample rate, Hz."),
-        click.option("--sys-clock-hz", type=int, default=D["sys_clock_hz"], show_default=True,
-                     help="System clock feeding the PIO block, Hz."),
-        click.option("--rate-tolerance-ppm", type=float, default=D["rate_tolerance_ppm"],
-                     show_default=True,
-                     help="Rate error accepted to keep a jitter-free integer divider, ppm."),
-        click.option("--headroom-db", type=float, default=D["headroom_db"], show_default=True,
-                     help="Peak level below full scale after normalising, dB."),
-        click.option("--fade-ms", type=float, default=D["fade_ms"], show_default=True,
-                     help="Raised-cosine fade at each end of the audio, ms."),
-        click.option("--ramp-ms", type=float, default=D["ramp_ms"], show_default=True,
-                     help="Ramp between the idle code and mid-scale at start and end, ms."),
-        click.option("--idle-code", type=int, default=D["idle_code"], show_default=True,
-                     help="Code the pins hold when nothing plays."),
-        click.option("--dither", type=click.Choice(["tpdf", "rpdf", "none"]),
-                     default=D["dither"], show_default=True, help="Dither before rounding."),
-        click.option("--shaping", type=click.Choice(["none", "first-order"]),
-                     default=D["shaping"], show_default=True,
-                     help="Error-feedback noise shaping."),
-        click.option("--seed", type=int, default=D["seed"], show_default=True,
-                     help="Dither seed; the same seed gives identical output."),
-        click.option("--shift", type=click.Choice(["right", "left"]), default=D["shift"],
-                     show_default=True,
-                     help="OUT shift direction: right puts the first sample in the LSBs."),
-        click.option("--out-base", type=int, default=D["out_base"], show_default=True,
-                     help="GPIO number of the ladder's least significant bit."),
-        click.option("--gpio-count", type=int, default=D["gpio_count"], show_default=True,
-                     help="User GPIOs on the target (30 on RP2040)."),
-        click.option("--embed-words-max", type=int, default=256, show_default=True,
-                     help="Streams up to this many words are also embedded in the "
-                          "MicroPython module."),
-        click.option("--json", "as_json", is_flag=True,
-                     help="Print the summary as JSON instead of text."),
+        click.option(
+            "--bits",
+            type=int,
+            default=D["bits"],
+            show_default=True,
+            help="Ladder width N in bits, 1..16.",
+        ),
+        click.option(
+            "--rate-hz",
+            type=float,
+            default=D["rate_hz"],
+            show_default=True,
+            help="Requested stream sample rate, Hz.",
+        ),
+        click.option(
+            "--sys-clock-hz",
+            type=int,
+            default=D["sys_clock_hz"],
+            show_default=True,
+            help="System clock feeding the PIO block, Hz.",
+        ),
+        click.option(
+            "--rate-tolerance-ppm",
+            type=float,
+            default=D["rate_tolerance_ppm"],
+            show_default=True,
+            help="Rate error accepted to keep a jitter-free integer divider, ppm.",
+        ),
+        click.option(
+            "--headroom-db",
+            type=float,
+            default=D["headroom_db"],
+            show_default=True,
+            help="Peak level below full scale after normalising, dB.",
+        ),
+        click.option(
+            "--fade-ms",
+            type=float,
+            default=D["fade_ms"],
+            show_default=True,
+            help="Raised-cosine fade at each end of the audio, ms.",
+        ),
+        click.option(
+            "--ramp-ms",
+            type=float,
+            default=D["ramp_ms"],
+            show_default=True,
+            help="Ramp between the idle code and mid-scale at start and end, ms.",
+        ),
+        click.option(
+            "--idle-code",
+            type=int,
+            default=D["idle_code"],
+            show_default=True,
+            help="Code the pins hold when nothing plays.",
+        ),
+        click.option(
+            "--dither",
+            type=click.Choice(["tpdf", "rpdf", "none"]),
+            default=D["dither"],
+            show_default=True,
+            help="Dither before rounding.",
+        ),
+        click.option(
+            "--shaping",
+            type=click.Choice(["none", "first-order"]),
+            default=D["shaping"],
+            show_default=True,
+            help="Error-feedback noise shaping.",
+        ),
+        click.option(
+            "--seed",
+            type=int,
+            default=D["seed"],
+            show_default=True,
+            help="Dither seed; the same seed gives identical output.",
+        ),
+        click.option(
+            "--shift",
+            type=click.Choice(["right", "left"]),
+            default=D["shift"],
+            show_default=True,
+            help="OUT shift direction: right puts the first sample in the LSBs.",
+        ),
+        click.option(
+            "--out-base",
+            type=int,
+            default=D["out_base"],
+            show_default=True,
+            help="GPIO number of the ladder's least significant bit.",
+        ),
+        click.option(
+            "--gpio-count",
+            type=int,
+            default=D["gpio_count"],
+            show_default=True,
+            help="User GPIOs on the target (30 on RP2040).",
+        ),
+        click.option(
+            "--embed-words-max",
+            type=int,
+            default=256,
+            show_default=True,
+            help="Streams up to this many words are also embedded in the MicroPython module.",
+        ),
+        click.option(
+            "--json", "as_json", is_flag=True, help="Print the summary as JSON instead of text."
+        ),
     ]
     for opt in reversed(opts):
         func = opt(func)
@@ -93,15 +174,32 @@ def cli() -> None:
 
 @cli.command()
 @click.argument("clip", type=click.Path(dir_okay=False, path_type=str))
-@click.option("-o", "--out-dir", default="ladderpack_out", show_default=True,
-              help="Folder the bundle is written to (created if missing).")
-@click.option("--name", default=None,
-              help="Asset name for files and symbols  [default: the clip's file name]")
-@click.option("--channel", type=int, default=None,
-              help="Use this channel (0-based) instead of a mono mix of all channels.")
+@click.option(
+    "-o",
+    "--out-dir",
+    default="ladderpack_out",
+    show_default=True,
+    help="Folder the bundle is written to (created if missing).",
+)
+@click.option(
+    "--name", default=None, help="Asset name for files and symbols  [default: the clip's file name]"
+)
+@click.option(
+    "--channel",
+    type=int,
+    default=None,
+    help="Use this channel (0-based) instead of a mono mix of all channels.",
+)
 @_stream_options
-def stream(clip: str, out_dir: str, name: str | None, channel: int | None,
-           embed_words_max: int, as_json: bool, **options: Any) -> None:
+def stream(
+    clip: str,
+    out_dir: str,
+    name: str | None,
+    channel: int | None,
+    embed_words_max: int,
+    as_json: bool,
+    **options: Any,
+) -> None:
     """Convert the sound file CLIP (WAV, FLAC, OGG, AIFF) into a stream bundle."""
     from ladderpack.bundle import write_bundle
     from ladderpack.pipeline import stream_clip
@@ -118,11 +216,20 @@ def stream(clip: str, out_dir: str, name: str | None, channel: int | None,
 
 @cli.command()
 @click.argument("rate_hz", type=float)
-@click.option("--sys-clock-hz", type=int, default=D["sys_clock_hz"], show_default=True,
-              help="System clock feeding the PIO block, Hz.")
-@click.option("--rate-tolerance-ppm", type=float, default=D["rate_tolerance_ppm"],
-              show_default=True,
-              help="Rate error accepted to keep a jitter-free integer divider, ppm.")
+@click.option(
+    "--sys-clock-hz",
+    type=int,
+    default=D["sys_clock_hz"],
+    show_default=True,
+    help="System clock feeding the PIO block, Hz.",
+)
+@click.option(
+    "--rate-tolerance-ppm",
+    type=float,
+    default=D["rate_tolerance_ppm"],
+    show_default=True,
+    help="Rate error accepted to keep a jitter-free integer divider, ppm.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the plan as JSON.")
 def clock(rate_hz: float, sys_clock_hz: int, rate_tolerance_ppm: float, as_json: bool) -> None:
     """Show the clock plan (divider, cycles per sample, achieved rate) for RATE_HZ."""
@@ -143,8 +250,12 @@ def clock(rate_hz: float, sys_clock_hz: int, rate_tolerance_ppm: float, as_json:
 
 @cli.command()
 @click.argument("out_dir", type=click.Path(file_okay=False, path_type=str))
-@click.option("--clips-dir", default="demo_audio", show_default=True,
-              help="Folder holding the demo clips (door_chime.flac, frost_warning.flac).")
+@click.option(
+    "--clips-dir",
+    default="demo_audio",
+    show_default=True,
+    help="Folder holding the demo clips (door_chime.flac, frost_warning.flac).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the summaries as JSON.")
 def demo(out_dir: str, clips_dir: str, as_json: bool) -> None:
     """Build the garden weather-station demo bundles into OUT_DIR."""
@@ -152,8 +263,7 @@ def demo(out_dir: str, clips_dir: str, as_json: bool) -> None:
 
     results = run_demo(out_dir, clips_dir=clips_dir)
     if as_json:
-        click.echo(json.dumps([{**s, "files": f} for s, f in results], indent=2,
-                              sort_keys=True))
+        click.echo(json.dumps([{**s, "files": f} for s, f in results], indent=2, sort_keys=True))
         return
     for summary, files in results:
         _print_summary(summary, files)

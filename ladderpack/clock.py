@@ -76,8 +76,9 @@ class ClockPlan:
     @property
     def error_ppm(self) -> float:
         """Achieved rate minus requested, in parts per million of the request."""
-        return float((self.achieved_rate_hz - self.requested_rate_hz) / self.requested_rate_hz
-                     * 1_000_000)
+        return float(
+            (self.achieved_rate_hz - self.requested_rate_hz) / self.requested_rate_hz * 1_000_000
+        )
 
     @property
     def fractional(self) -> bool:
@@ -101,7 +102,7 @@ class ClockPlan:
             "requested_rate_hz": float(self.requested_rate_hz),
             "achieved_rate_hz": float(self.achieved_rate_hz),
             "achieved_rate_exact": f"{self.achieved_rate_hz.numerator}/"
-                                   f"{self.achieved_rate_hz.denominator}",
+            f"{self.achieved_rate_hz.denominator}",
             "error_ppm": round(self.error_ppm, 6),
             "div_int": self.div_int,
             "div_frac": self.div_frac,
@@ -115,9 +116,10 @@ class ClockPlan:
 def _as_fraction(value: float | int | Fraction, field: str) -> Fraction:
     try:
         frac = Fraction(value)
-    except (TypeError, ValueError):
-        raise OptionError(f"expected a number, got {value!r}", field=field) from None
-    if not math.isfinite(float(frac)) or frac <= 0:
+    except (TypeError, ValueError, OverflowError):
+        raise OptionError(f"expected a positive finite number, got {value!r}",
+                          field=field) from None
+    if frac <= 0:
         raise OptionError(f"must be positive, got {value!r}", field=field)
     return frac
 
@@ -166,14 +168,17 @@ def plan_clock(
     """
     rate = _as_fraction(rate_hz, "rate_hz")
     if int(sys_clock_hz) != sys_clock_hz or sys_clock_hz <= 0:
-        raise OptionError(f"must be a positive whole number of hertz, got {sys_clock_hz!r}",
-                          field="sys_clock_hz")
+        raise OptionError(
+            f"must be a positive whole number of hertz, got {sys_clock_hz!r}", field="sys_clock_hz"
+        )
     sys_clock_hz = int(sys_clock_hz)
     if not (math.isfinite(tolerance_ppm) and tolerance_ppm >= 0):
         raise OptionError(f"must be >= 0, got {tolerance_ppm!r}", field="rate_tolerance_ppm")
     if not 1 <= min_cycles <= max_cycles:
-        raise OptionError(f"need 1 <= min_cycles <= max_cycles, got {min_cycles}..{max_cycles}",
-                          field="cycles_per_sample")
+        raise OptionError(
+            f"need 1 <= min_cycles <= max_cycles, got {min_cycles}..{max_cycles}",
+            field="cycles_per_sample",
+        )
 
     fastest = Fraction(sys_clock_hz, min_cycles)
     slowest = Fraction(sys_clock_hz, 65536 * max_cycles)

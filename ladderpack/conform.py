@@ -112,8 +112,9 @@ class SincKernel:
     spec: ResamplerSpec
 
 
-def design_kernel(spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASES,
-                  margin_db: float = 3.0) -> SincKernel:
+def design_kernel(
+    spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASES, margin_db: float = 3.0
+) -> SincKernel:
     """Design the Kaiser-windowed sinc low-pass for a resampler.
 
     The length comes from Kaiser's order estimate ``M = (A - 8) / (2.285 dw)``
@@ -149,8 +150,9 @@ def design_kernel(spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASE
     return SincKernel(np.ascontiguousarray(table), phases, half, spec)
 
 
-def resample(sig: Signal, rate_out_hz: float | Fraction, *, bits: int = 16,
-             kernel: SincKernel | None = None) -> Signal:
+def resample(
+    sig: Signal, rate_out_hz: float | Fraction, *, bits: int = 16, kernel: SincKernel | None = None
+) -> Signal:
     """Resample a mono signal to a new rate, rational or not.
 
     Output sample ``n`` is the band-limited input evaluated at input time
@@ -185,8 +187,9 @@ def resample(sig: Signal, rate_out_hz: float | Fraction, *, bits: int = 16,
     if kernel is None:
         kernel = design_kernel(resampler_spec(sig.rate_hz, out_rate, bits), sig.rate_hz)
     half, P, table = kernel.half, kernel.phases, kernel.table
-    x = np.concatenate([np.zeros(half), np.asarray(sig.samples, dtype=np.float64),
-                        np.zeros(half + 1)])
+    x = np.concatenate(
+        [np.zeros(half), np.asarray(sig.samples, dtype=np.float64), np.zeros(half + 1)]
+    )
     windows = np.lib.stride_tricks.sliding_window_view(x, 2 * half)
     y = np.empty(n_out)
     block = max(256, (1 << 21) // (2 * half))
@@ -201,7 +204,7 @@ def resample(sig: Signal, rate_out_hz: float | Fraction, *, bits: int = 16,
         a = (p - p0)[:, None]
         taps = table[p0] * (1.0 - a) + table[p0 + 1] * a
         # input sample base + i sits at x[base + i + half]; taps start half - 1 before it
-        y[n0:n0 + k.size] = np.einsum("ij,ij->i", taps, windows[base + i + 1])
+        y[n0 : n0 + k.size] = np.einsum("ij,ij->i", taps, windows[base + i + 1])
     return Signal(y, out_rate)
 
 

@@ -27,18 +27,26 @@ def bench_sine(rate_hz: float = 48000.0, freq_hz: float = 997.0, seconds: float 
     return Signal(np.sin(2 * np.pi * freq_hz * t), rate_hz)
 
 
-def run_demo(out_dir: str, *, clips_dir: str = "demo_audio") -> list[tuple[dict[str, Any],
-                                                                             list[str]]]:
+def run_demo(
+    out_dir: str, *, clips_dir: str = "demo_audio"
+) -> list[tuple[dict[str, Any], list[str]]]:
     """Build every demo bundle into `out_dir`; return (summary, files) pairs."""
     results = []
     for clip in ("door_chime.flac", "frost_warning.flac"):
         path = os.path.join(clips_dir, clip)
         if not os.path.exists(path):
-            raise AudioFileError("demo clip not found; run from the repository root or pass "
-                                 "--clips-dir", file=path)
+            raise AudioFileError(
+                "demo clip not found; run from the repository root or pass --clips-dir", file=path
+            )
         asset = stream_clip(path, bits=8, rate_hz=22050, out_base=16)
         results.append((asset.summary(), write_bundle(asset, out_dir)))
-    bench = stream_signal(bench_sine(), name="bench_sine_997hz", bits=12, rate_hz=48000,
-                          out_base=0, source={"file": "synthesised 997 Hz sine"})
+    bench = stream_signal(
+        bench_sine(),
+        name="bench_sine_997hz",
+        bits=12,
+        rate_hz=48000,
+        out_base=0,
+        source={"file": "synthesised 997 Hz sine"},
+    )
     results.append((bench.summary(), write_bundle(bench, out_dir)))
     return results

@@ -121,11 +121,11 @@ def pack(codes: Codes, layout: WordLayout, *, pad_code: int = 0) -> Packed:
     ['0x4030201', '0x5']
     """
     if codes.bits != layout.bits:
-        raise OptionError(f"codes are {codes.bits}-bit but layout is {layout.bits}-bit",
-                          field="bits")
+        raise OptionError(
+            f"codes are {codes.bits}-bit but layout is {layout.bits}-bit", field="bits"
+        )
     if not 0 <= pad_code < (1 << layout.bits):
-        raise OptionError(f"must be 0..{(1 << layout.bits) - 1}, got {pad_code}",
-                          field="pad_code")
+        raise OptionError(f"must be 0..{(1 << layout.bits) - 1}, got {pad_code}", field="pad_code")
     spw = layout.samples_per_word
     n = len(codes)
     n_words = layout.words_for(n)

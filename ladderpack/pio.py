@@ -24,8 +24,17 @@ __all__ = [
     "state_machine_config",
 ]
 
-_OPCODE = {"jmp": 0, "wait": 1, "in": 2, "out": 3, "push": 4, "pull": 4, "mov": 5, "irq": 6,
-           "set": 7}
+_OPCODE = {
+    "jmp": 0,
+    "wait": 1,
+    "in": 2,
+    "out": 3,
+    "push": 4,
+    "pull": 4,
+    "mov": 5,
+    "irq": 6,
+    "set": 7,
+}
 _JMP_COND = {"": 0, "!x": 1, "x--": 2, "!y": 3, "y--": 4, "x!=y": 5, "pin": 6, "!osre": 7}
 _OUT_DEST = {"pins": 0, "x": 1, "y": 2, "null": 3, "pindirs": 4, "pc": 5, "isr": 6, "exec": 7}
 _IN_SRC = {"pins": 0, "x": 1, "y": 2, "null": 3, "isr": 6, "osr": 7}
@@ -40,8 +49,9 @@ def _field(table: dict[str, int], key: str, what: str) -> int:
     try:
         return table[key]
     except KeyError:
-        raise OptionError(f"unknown {what} {key!r}; expected one of {sorted(table)}",
-                          field="pio") from None
+        raise OptionError(
+            f"unknown {what} {key!r}; expected one of {sorted(table)}", field="pio"
+        ) from None
 
 
 def _count(n: int) -> int:
@@ -81,11 +91,11 @@ class Instruction:
         if op == "wait":
             pol, src, index = int(a[0]), str(a[1]), int(a[2])  # type: ignore[call-overload]
             return ((pol & 1) << 7) | (_field(_WAIT_SRC, src, "wait source") << 5) | (
-                index & 0x1F), f"{pol} {src} {index}"
+                index & 0x1F
+            ), f"{pol} {src} {index}"
         if op in ("out", "in"):
             target, n = str(a[0]), int(a[1])  # type: ignore[call-overload]
-            table, what = (_OUT_DEST, "out destination") if op == "out" else (_IN_SRC,
-                                                                               "in source")
+            table, what = (_OUT_DEST, "out destination") if op == "out" else (_IN_SRC, "in source")
             return (_field(table, target, what) << 5) | _count(n), f"{target}, {n}"
         if op in ("pull", "push"):
             cond, block = bool(a[0]) if a else False, bool(a[1]) if len(a) > 1 else True
@@ -99,9 +109,8 @@ class Instruction:
             dest, src = str(a[0]), str(a[1])
             mop = str(a[2]) if len(a) > 2 else ""
             return (_field(_MOV_DEST, dest, "mov destination") << 5) | (
-                _field(_MOV_OP, mop, "mov operation") << 3) | _field(_MOV_SRC, src,
-                                                                     "mov source"), (
-                f"{dest}, {mop}{src}")
+                _field(_MOV_OP, mop, "mov operation") << 3
+            ) | _field(_MOV_SRC, src, "mov source"), (f"{dest}, {mop}{src}")
         if op == "nop":
             return (_MOV_DEST["y"] << 5) | _MOV_SRC["y"], ""
         if op == "irq":
@@ -119,8 +128,9 @@ class Instruction:
         """Return the 16-bit machine word."""
         delay_bits = 5 - sideset_bits
         if not 0 <= self.delay < (1 << delay_bits):
-            raise OptionError(f"delay must be 0..{(1 << delay_bits) - 1}, got {self.delay}",
-                              field="pio")
+            raise OptionError(
+                f"delay must be 0..{(1 << delay_bits) - 1}, got {self.delay}", field="pio"
+            )
         opcode = _OPCODE["mov" if self.op == "nop" else self.op]
         arg, _ = self.arguments()
         return (opcode << 13) | (self.delay << 8) | arg
@@ -155,8 +165,9 @@ class Program:
 
     def __post_init__(self) -> None:
         if not 1 <= len(self.instructions) <= 32:
-            raise OptionError(f"a program holds 1..32 instructions, got "
-                              f"{len(self.instructions)}", field="pio")
+            raise OptionError(
+                f"a program holds 1..32 instructions, got {len(self.instructions)}", field="pio"
+            )
         if self.wrap < 0:
             object.__setattr__(self, "wrap", len(self.instructions) - 1)
 
@@ -168,7 +179,7 @@ class Program:
     @property
     def cycles(self) -> int:
         """Cycles for one pass from wrap target to wrap, when nothing stalls."""
-        body = self.instructions[self.wrap_target:self.wrap + 1]
+        body = self.instructions[self.wrap_target : self.wrap + 1]
         return sum(1 + i.delay for i in body)
 
     def source(self) -> str:
@@ -196,8 +207,10 @@ def ladder_program(bits: int, cycles_per_sample: int, *, name: str = "ladder_out
         Program name.
     """
     if not 1 <= cycles_per_sample <= 32:
-        raise OptionError(f"one out instruction covers 1..32 cycles, got {cycles_per_sample}",
-                          field="cycles_per_sample")
+        raise OptionError(
+            f"one out instruction covers 1..32 cycles, got {cycles_per_sample}",
+            field="cycles_per_sample",
+        )
     return Program(name, (Instruction("out", ("pins", bits), cycles_per_sample - 1),))
 
 
@@ -239,8 +252,9 @@ class StateMachineConfig:
 EXECCTRL_RESET = 0x0001F000
 
 
-def state_machine_config(program: Program, layout: WordLayout, plan: ClockPlan, *,
-                         out_base: int, gpio_count: int = 30) -> StateMachineConfig:
+def state_machine_config(
+    program: Program, layout: WordLayout, plan: ClockPlan, *, out_base: int, gpio_count: int = 30
+) -> StateMachineConfig:
     """Compute the state-machine registers for a ladder stream.
 
     Parameters
@@ -260,7 +274,8 @@ def state_machine_config(program: Program, layout: WordLayout, plan: ClockPlan, 
         raise OptionError(
             f"a {layout.bits}-bit ladder from GPIO {out_base} needs GPIO {out_base}.."
             f"{out_base + layout.bits - 1}, but the target has GPIO 0..{gpio_count - 1}",
-            field="out_base")
+            field="out_base",
+        )
     execctrl = (EXECCTRL_RESET & ~0x1FF80) | (program.wrap << 12) | (program.wrap_target << 7)
     shiftctrl = (
         (1 << 30)  # FJOIN_TX: 8-deep TX FIFO
@@ -270,5 +285,6 @@ def state_machine_config(program: Program, layout: WordLayout, plan: ClockPlan, 
         | (1 << 17)  # AUTOPULL
     )
     pinctrl = (layout.bits << 20) | out_base  # OUT_COUNT, OUT_BASE
-    return StateMachineConfig(plan.clkdiv_register, execctrl, shiftctrl, pinctrl, out_base,
-                              layout.bits)
+    return StateMachineConfig(
+        plan.clkdiv_register, execctrl, shiftctrl, pinctrl, out_base, layout.bits
+    )

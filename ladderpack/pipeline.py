@@ -128,22 +128,27 @@ def stream_signal(
     headroom_db = _check_nonneg(headroom_db, "headroom_db", "dB")
     fade_ms = _check_nonneg(fade_ms, "fade_ms", "ms")
     ramp_ms = _check_nonneg(ramp_ms, "ramp_ms", "ms")
-    if isinstance(idle_code, bool) or int(idle_code) != idle_code or not (
-            0 <= idle_code < (1 << bits)):
-        raise OptionError(f"must be a code 0..{(1 << bits) - 1} for {bits} bits, got "
-                          f"{idle_code!r}", field="idle_code")
+    if (
+        isinstance(idle_code, bool)
+        or int(idle_code) != idle_code
+        or not (0 <= idle_code < (1 << bits))
+    ):
+        raise OptionError(
+            f"must be a code 0..{(1 << bits) - 1} for {bits} bits, got {idle_code!r}",
+            field="idle_code",
+        )
     if isinstance(out_base, bool) or int(out_base) != out_base or out_base < 0:
         raise OptionError(f"must be a GPIO number >= 0, got {out_base!r}", field="out_base")
     check_signal(sig, source=(source or {}).get("file"))
     if sig.samples.ndim != 1:
-        raise OptionError("expected a mono signal; downmix or pick a channel first",
-                          field="samples")
+        raise OptionError(
+            "expected a mono signal; downmix or pick a channel first", field="samples"
+        )
 
     plan = plan_clock(rate_hz, sys_clock_hz=sys_clock_hz, tolerance_ppm=rate_tolerance_ppm)
     layout = WordLayout(bits, shift_right=(shift == "right"))
     program = ladder_program(bits, plan.cycles_per_sample, name=f"{ident}_out")
-    sm = state_machine_config(program, layout, plan, out_base=int(out_base),
-                              gpio_count=gpio_count)
+    sm = state_machine_config(program, layout, plan, out_base=int(out_base), gpio_count=gpio_count)
 
     x = conform.remove_dc(sig)
     x = conform.resample(x, plan.achieved_rate_hz, bits=bits)
@@ -183,12 +188,27 @@ def stream_signal(
             "attenuation_db": spec.attenuation_db,
         },
     }
-    return StreamAsset(ident, codes, packed, plan, program, sm, int(idle_code),
-                       source=dict(source or {}), options=options, stats=stats)
+    return StreamAsset(
+        ident,
+        codes,
+        packed,
+        plan,
+        program,
+        sm,
+        int(idle_code),
+        source=dict(source or {}),
+        options=options,
+        stats=stats,
+    )
 
 
-def stream_clip(path: str | os.PathLike[str], *, channel: int | None = None,
-                name: str | None = None, **options: Any) -> StreamAsset:
+def stream_clip(
+    path: str | os.PathLike[str],
+    *,
+    channel: int | None = None,
+    name: str | None = None,
+    **options: Any,
+) -> StreamAsset:
     """Read a sound file and turn it into a ladder stream.
 
     Parameters

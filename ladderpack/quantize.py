@@ -180,8 +180,7 @@ def quantize(
     if sig.samples.ndim != 1:
         raise OptionError("quantize expects a mono signal", field="samples")
     if shaping not in SHAPERS:
-        raise OptionError(f"must be one of {', '.join(SHAPERS)}; got {shaping!r}",
-                          field="shaping")
+        raise OptionError(f"must be one of {', '.join(SHAPERS)}; got {shaping!r}", field="shaping")
     rng = np.random.default_rng(seed)
     v = signal_to_lsb(sig.samples, bits)
     d = make_dither(v.shape[0], dither, rng)
@@ -218,7 +217,8 @@ def with_idle_ramps(audio: Codes, *, idle_code: int = 0, ramp_samples: int) -> C
     ramp up to mid-scale and closes with the mirror image back to idle.
     """
     if not 0 <= idle_code <= audio.max_code:
-        raise OptionError(f"must be 0..{audio.max_code} for {audio.bits} bits, got {idle_code}",
-                          field="idle_code")
+        raise OptionError(
+            f"must be 0..{audio.max_code} for {audio.bits} bits, got {idle_code}", field="idle_code"
+        )
     ramp = idle_ramp(idle_code, audio.bits, ramp_samples)
     return Codes(np.concatenate([ramp, audio.codes, ramp[::-1]]), audio.bits)

@@ -13,12 +13,55 @@ __all__ = ["C_KEYWORDS", "asset_identifier", "comment_safe"]
 #: C99 keywords plus names the generated code must not shadow.
 C_KEYWORDS = frozenset(
     [
-    "auto", "break", "case", "char", "const", "continue", "default", "do", "double", "else",
-    "enum", "extern", "float", "for", "goto", "if", "inline", "int", "long", "register",
-    "restrict", "return", "short", "signed", "sizeof", "static", "struct", "switch", "typedef",
-    "union", "unsigned", "void", "volatile", "while", "_Bool", "_Complex", "_Imaginary", "bool",
-    "true", "false", "NULL", "main", "uint8_t", "uint16_t", "uint32_t", "int8_t", "int16_t",
-    "int32_t", "size_t",
+        "auto",
+        "break",
+        "case",
+        "char",
+        "const",
+        "continue",
+        "default",
+        "do",
+        "double",
+        "else",
+        "enum",
+        "extern",
+        "float",
+        "for",
+        "goto",
+        "if",
+        "inline",
+        "int",
+        "long",
+        "register",
+        "restrict",
+        "return",
+        "short",
+        "signed",
+        "sizeof",
+        "static",
+        "struct",
+        "switch",
+        "typedef",
+        "union",
+        "unsigned",
+        "void",
+        "volatile",
+        "while",
+        "_Bool",
+        "_Complex",
+        "_Imaginary",
+        "bool",
+        "true",
+        "false",
+        "NULL",
+        "main",
+        "uint8_t",
+        "uint16_t",
+        "uint32_t",
+        "int8_t",
+        "int16_t",
+        "int32_t",
+        "size_t",
     ]
 )
 
@@ -43,8 +86,9 @@ def asset_identifier(name: str) -> str:
     folded = unicodedata.normalize("NFKD", str(name)).encode("ascii", "ignore").decode()
     ident = re.sub(r"[^A-Za-z0-9]+", "_", folded).strip("_").lower()
     if not ident:
-        raise OptionError(f"{name!r} has no letters or digits to make an identifier from",
-                          field="name")
+        raise OptionError(
+            f"{name!r} has no letters or digits to make an identifier from", field="name"
+        )
     if ident[0].isdigit():
         ident = "a_" + ident
     if ident in C_KEYWORDS or keyword.iskeyword(ident) or keyword.issoftkeyword(ident):

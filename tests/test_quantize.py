@@ -1,0 +1,150 @@
+"""Quantiser and dither against the published theory."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from ladderpack import _kernels
+from ladderpack.audio import Signal
+from ladderpack.errors import OptionError
+from ladderpack.quantize import (
+    Codes,
+    idle_ramp,
+    quantize,
+    signal_to_lsb,
+    with_idle_ramps,
+)
+
+# Coherent record (REFERENCES.md section 4, coherent sampling: M and N co-prime).
+N_REC = 1 << 16
+CYCLES = 4099  # prime, so co-prime with 2**16
+
+
+def _sine(amplitude: float = 1.0) -> Signal:
+    n = np.arange(N_REC)
+    return Signal(amplitude * np.sin(2 * np.pi * CYCLES * n / N_REC + 0.3), 48000.0)
+
+
+def _error_power_lsb2(sig: Signal, codes: Codes) -> float:
+    return float(np.mean((codes.codes - signal_to_lsb(sig.samples, codes.bits)) ** 2))
+
+
+@pytest.mark.parametrize("bits", [6, 8, 10, 12])
+def test_undithered_sine_snr_matches_602n_176(bits: int) -> None:
+    # Ideal quantiser SNR = 6.02 N + 1.76 dB for a full-scale sine: Analog Devices
+    # MT-229 / MT-001 (Kester); REFERENCES.md section 1 says +/-0.2 dB holds for N >= 6.
+    # Amplitude 1 - 2**-N keeps the top of the sine inside the top code.
+    sig = _sine(1.0 - 2.0**-bits)
+    codes, report = quantize(sig, bits=bits, dither="none")
+    assert report.overloads == 0
+    signal_power = (sig.samples.std() * 2 ** (bits - 1)) ** 2
+    snr = 10 * math.log10(signal_power / _error_power_lsb2(sig, codes))
+    theory = 6.0206 * bits + 1.7609 + 20 * math.log10(1.0 - 2.0**-bits)
+    assert snr == pytest.approx(theory, abs=0.3)
+
+
+@pytest.mark.parametrize("bits", [6, 8, 10, 12])
+def test_tpdf_noise_is_three_times_undithered(bits: int) -> None:
+    # TPDF (2 LSB p-p) total error power is LSB^2/4 = 3 x LSB^2/12, i.e. 4.77 dB more:
+    # Lipshitz, Wannamaker & Vanderkooy, JAES 40(5) 1992; REFERENCES.md section 2.
+    sig = _sine(0.9)
+    plain, _ = quantize(sig, bits=bits, dither="none")
+    dithered, _ = quantize(sig, bits=bits, dither="tpdf", seed=1)
+    penalty_db = 10 * math.log10(_error_power_lsb2(sig, dithered) / _error_power_lsb2(sig, plain))
+    assert penalty_db == pytest.approx(10 * math.log10(3), abs=0.3)
+    assert _error_power_lsb2(sig, dithered) == pytest.approx(0.25, rel=0.03)
+
+
+def test_rpdf_noise_is_twice_undithered() -> None:
+    # RPDF (1 LSB p-p) averages LSB^2/6 over a busy signal (+3.01 dB): same survey,
+    # REFERENCES.md section 2 table.
+    sig = _sine(0.9)
+    codes, _ = quantize(sig, bits=8, dither="rpdf", seed=2)
+    assert _error_power_lsb2(sig, codes) == pytest.approx(1 / 6, rel=0.03)
+
+
+@pytest.mark.parametrize("offset_lsb", [0.0, 0.125, 0.25, 0.375, 0.5])
+def test_tpdf_error_power_independent_of_input(offset_lsb: float) -> None:
+    # Moment theorem (Wannamaker et al., IEEE Trans. SP 48(2) 2000): with TPDF the
+    # conditional error variance is LSB^2/4 for every input; REFERENCES.md section 2
+    # check value 0.250 +/- 0.002 at n = 2e6 (we use 4e5 samples: +/- 0.005).
+    bits = 8
+    x = np.full(400_000, (offset_lsb + 3) / 2 ** (bits - 1))
+    codes, _ = quantize(Signal(x, 8000.0), bits=bits, dither="tpdf", seed=3)
+    err = codes.codes - signal_to_lsb(x, bits)
+    assert float(np.mean(err)) == pytest.approx(0.0, abs=0.005)
+    assert float(np.mean(err**2)) == pytest.approx(0.25, abs=0.005)
+
+
+def test_first_order_shaping_follows_ntf(rng: np.random.Generator) -> None:
+    # Error feedback with h1 = 1 gives NTF = 1 - z^-1 (REFERENCES.md section 3.1 sign
+    # convention, Lipshitz et al. 1991): total noise = white power x (1 + h1^2) = 2x and
+    # the noise spectrum rises as |2 sin(pi f / fs)|^2.
+    sig = Signal(0.5 * rng.standard_normal(1 << 16).clip(-1.5, 1.5) / 1.5, 48000.0)
+    codes, report = quantize(sig, bits=10, dither="tpdf", shaping="first-order", seed=4)
+    assert report.overloads == 0
+    err = codes.codes - signal_to_lsb(sig.samples, 10)
+    assert float(np.mean(err**2)) == pytest.approx(2 * 0.25, rel=0.05)
+    spec = np.abs(np.fft.rfft(err)) ** 2
+    f = np.fft.rfftfreq(err.size)
+    low = spec[(f > 0.01) & (f < 0.05)].mean() / (4 * np.sin(np.pi * 0.03) ** 2)
+    high = spec[(f > 0.4) & (f < 0.5)].mean() / (4 * np.sin(np.pi * 0.45) ** 2)
+    assert low / high == pytest.approx(1.0, rel=0.25)
+
+
+def test_compiled_kernel_matches_reference_bit_for_bit(rng: np.random.Generator) -> None:
+    v = rng.uniform(-20, 300, 5000)
+    d = rng.random(5000) - rng.random(5000)
+    h = np.array([1.623, -0.982, 0.109])  # F-weighted 3-tap set, REFERENCES.md 3.2
+    out_ref = np.empty(5000, np.int64)
+    out_jit = np.empty(5000, np.int64)
+    n_ref = _kernels.errfb_quantize_ref(v, d, h, 0, 255, 1.5, out_ref)
+    n_jit = _kernels.compiled("errfb_quantize")(v, d, h, 0, 255, 1.5, out_jit)
+    assert n_ref == n_jit > 0
+    np.testing.assert_array_equal(out_ref, out_jit)
+
+
+def test_same_seed_same_codes(rng: np.random.Generator) -> None:
+    sig = Signal(rng.uniform(-0.9, 0.9, 1000), 8000.0)
+    a, _ = quantize(sig, bits=8, seed=7)
+    b, _ = quantize(sig, bits=8, seed=7)
+    c, _ = quantize(sig, bits=8, seed=8)
+    np.testing.assert_array_equal(a.codes, b.codes)
+    assert not np.array_equal(a.codes, c.codes)
+
+
+@pytest.mark.parametrize(
+    ("x", "code"),
+    [(0.0, 128), (-1.0, 0), (1.0, 255), (0.5 / 128, 129), (0.49 / 128, 128), (-0.51 / 128, 127)],
+)
+def test_float_to_code_edges(x: float, code: int) -> None:
+    codes, _ = quantize(Signal(np.array([x]), 8000.0), bits=8, dither="none")
+    assert int(codes.codes[0]) == code
+
+
+def test_one_bit_codes_are_zero_or_one() -> None:
+    codes, _ = quantize(_sine(0.9), bits=1)
+    assert set(np.unique(codes.codes).tolist()) <= {0, 1}
+
+
+@pytest.mark.parametrize("bits", [0, 17, -1, 2.5])
+def test_bits_out_of_range(bits: float) -> None:
+    with pytest.raises(OptionError, match="bits"):
+        quantize(_sine(), bits=bits)  # type: ignore[arg-type]
+
+
+def test_idle_ramp_starts_at_idle_and_is_monotonic() -> None:
+    r = idle_ramp(0, 8, 100)
+    assert r[0] == 0
+    assert np.all(np.diff(r.astype(int)) >= 0)
+    assert r[-1] in (127, 128)
+
+
+def test_ramps_bracket_audio() -> None:
+    audio = Codes(np.full(10, 128, np.uint16), 8)
+    out = with_idle_ramps(audio, idle_code=3, ramp_samples=20)
+    assert len(out) == 50
+    assert out.codes[0] == 3 and out.codes[-1] == 3
