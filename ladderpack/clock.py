@@ -117,8 +117,9 @@ def _as_fraction(value: float | int | Fraction, field: str) -> Fraction:
     try:
         frac = Fraction(value)
     except (TypeError, ValueError, OverflowError):
-        raise OptionError(f"expected a positive finite number, got {value!r}",
-                          field=field) from None
+        raise OptionError(
+            f"expected a positive finite number, got {value!r}", field=field
+        ) from None
     if frac <= 0:
         raise OptionError(f"must be positive, got {value!r}", field=field)
     return frac

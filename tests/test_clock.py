@@ -78,7 +78,8 @@ def test_clkdiv_register_encoding(div_int: int, div_frac: int, register: int) ->
 def test_minimum_rate_is_sys_over_65536_cycles() -> None:
     # REFERENCES.md 7.3: minimum SM clock at 125 MHz is 1907.349 Hz (divider 65536).
     assert float(plan_clock(1907.349, max_cycles=1).achieved_rate_hz) == pytest.approx(
-        1907.3486, abs=1e-3)
+        1907.3486, abs=1e-3
+    )
     with pytest.raises(ClockError, match="cannot be reached"):
         plan_clock(1900, max_cycles=1)
 

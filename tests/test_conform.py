@@ -30,14 +30,15 @@ def _tone(rate_in: int, freq_hz: float, seconds: float = 0.5) -> Signal:
 def _fit_amplitude(y: np.ndarray, rate_hz: float, freq_hz: float) -> float:
     """Three-parameter least-squares sine fit at a known frequency (IEEE Std 1057)."""
     t = np.arange(y.size) / rate_hz
-    d = np.stack([np.cos(2 * np.pi * freq_hz * t), np.sin(2 * np.pi * freq_hz * t),
-                  np.ones_like(t)], axis=1)
+    d = np.stack(
+        [np.cos(2 * np.pi * freq_hz * t), np.sin(2 * np.pi * freq_hz * t), np.ones_like(t)], axis=1
+    )
     coef, *_ = np.linalg.lstsq(d, y, rcond=None)
     return float(np.hypot(coef[0], coef[1]))
 
 
 def _middle(y: np.ndarray) -> np.ndarray:
-    return y[y.size // 5: -y.size // 5]
+    return y[y.size // 5 : -y.size // 5]
 
 
 @pytest.mark.parametrize(("rate_in", "rate_out"), RATE_PAIRS)

@@ -29,8 +29,9 @@ def test_right_shift_puts_first_sample_in_lsbs() -> None:
 
 
 def test_left_shift_puts_first_sample_in_msbs() -> None:
-    p = pack(Codes(np.array([0xAB, 0xCD], np.uint16), 8), WordLayout(8, shift_right=False),
-             pad_code=0x11)
+    p = pack(
+        Codes(np.array([0xAB, 0xCD], np.uint16), 8), WordLayout(8, shift_right=False), pad_code=0x11
+    )
     assert p.words.tolist() == [0xABCD1111]
 
 
@@ -53,4 +54,4 @@ def test_pack_unpack_identity(bits: int, right: bool, data: st.DataObject) -> No
     assert packed.words.size == -(-len(values) // lay.samples_per_word)
     back = unpack(packed.words, lay)
     assert back.codes[: len(values)].tolist() == values
-    assert set(back.codes[len(values):].tolist()) <= {pad}
+    assert set(back.codes[len(values) :].tolist()) <= {pad}

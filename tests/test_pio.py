@@ -36,8 +36,9 @@ def test_encoding_matches_datasheet(ins: Instruction, word: int) -> None:
 
 
 @pytest.mark.parametrize(("ins", "word"), DATASHEET_WORDS, ids=lambda v: str(v))
-def test_text_assembles_to_same_word_with_independent_assembler(ins: Instruction,
-                                                                word: int) -> None:
+def test_text_assembles_to_same_word_with_independent_assembler(
+    ins: Instruction, word: int
+) -> None:
     # Independent assembler: adafruit-circuitpython-pioasm (PyPI).
     assert list(adafruit_pioasm.assemble(ins.text())) == [word]
 
@@ -70,13 +71,13 @@ def test_state_machine_registers() -> None:
     assert cfg.pinctrl == (12 << 20) | 0
     assert cfg.execctrl == 0  # wrap top = wrap bottom = 0 for a one-instruction loop
     assert cfg.clkdiv == (2834 << 16) | (120 << 8)
-    left = state_machine_config(ladder_program(8, 1), WordLayout(8, shift_right=False),
-                                plan_clock(8000), out_base=16)
+    left = state_machine_config(
+        ladder_program(8, 1), WordLayout(8, shift_right=False), plan_clock(8000), out_base=16
+    )
     assert left.shiftctrl == (1 << 30) | (0 << 25) | (1 << 18) | (1 << 17)
     assert left.pinctrl == (8 << 20) | 16
 
 
 def test_pins_beyond_target_rejected() -> None:
-    with pytest.raises(OptionError, match="GPIO 24..35"):
-        state_machine_config(ladder_program(12, 1), WordLayout(12), plan_clock(8000),
-                             out_base=24)
+    with pytest.raises(OptionError, match=r"GPIO 24\.\.35"):
+        state_machine_config(ladder_program(12, 1), WordLayout(12), plan_clock(8000), out_base=24)

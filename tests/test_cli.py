@@ -1,0 +1,219 @@
+"""The command line: bad input, determinism, the demo."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile
+
+from ladderpack.cli import main
+
+REPO = Path(__file__).resolve().parent.parent
+
+
+def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        [sys.executable, "-m", "ladderpack", *args], capture_output=True, text=True, cwd=cwd or REPO
+    )
+
+
+@pytest.fixture
+def clip(tmp_path: Path) -> Path:
+    t = np.arange(4410) / 44100
+    path = tmp_path / "beep.wav"
+    soundfile.write(path, 0.5 * np.sin(2 * np.pi * 880 * t), 44100)
+    return path
+
+
+def _bad_wav_nan(tmp_path: Path) -> Path:
+    x = np.zeros(100)
+    x[37] = np.nan
+    path = tmp_path / "nan.wav"
+    soundfile.write(path, x, 8000, subtype="FLOAT")
+    return path
+
+
+def _empty_wav(tmp_path: Path) -> Path:
+    path = tmp_path / "empty.wav"
+    soundfile.write(path, np.zeros(0), 8000)
+    return path
+
+
+def _not_audio(tmp_path: Path) -> Path:
+    path = tmp_path / "notes.wav"
+    path.write_text("this is not a sound file\n")
+    return path
+
+
+def _file_as_folder(tmp_path: Path) -> Path:
+    blocker = tmp_path / "blocker"
+    blocker.write_text("a file where a folder should be")
+    return blocker / "out"
+
+
+CASES = {
+    "missing file": (lambda p, c: [str(p / "nope.wav")], "no such file"),
+    "not audio": (lambda p, c: [str(_not_audio(p))], "not a readable sound file"),
+    "empty clip": (lambda p, c: [str(_empty_wav(p))], "at least 1 sample"),
+    "nan samples": (lambda p, c: [str(_bad_wav_nan(p))], "frame 37"),
+    "bits 0": (lambda p, c: [str(c), "--bits", "0"], "bits: must be a whole number 1..16"),
+    "bits 17": (lambda p, c: [str(c), "--bits", "17"], "bits: must be a whole number 1..16"),
+    "unreachable rate": (lambda p, c: [str(c), "--rate-hz", "20"], "rate_hz: 20 Hz cannot"),
+    "bad channel": (lambda p, c: [str(c), "--channel", "3"], "channel: file has 1 channel"),
+    "pins off the chip": (lambda p, c: [str(c), "--bits", "12", "--out-base", "20"], "GPIO 20..31"),
+    "idle code too big": (lambda p, c: [str(c), "--bits", "4", "--idle-code", "16"], "idle_code"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_bad_input_one_line_exit_2_no_output(tmp_path: Path, clip: Path, case: str) -> None:
+    make_args, expected = CASES[case]
+    out_dir = tmp_path / "out"
+    res = run("stream", *make_args(tmp_path, clip), "-o", str(out_dir))
+    assert res.returncode == 2, res.stderr
+    lines = res.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("ladderpack: error: ")
+    assert expected in lines[0]
+    assert "Traceback" not in res.stderr
+    assert not out_dir.exists()
+
+
+def test_unwritable_output_folder(tmp_path: Path, clip: Path) -> None:
+    target = _file_as_folder(tmp_path)
+    res = run("stream", str(clip), "-o", str(target))
+    assert res.returncode == 2
+    assert "cannot create output folder" in res.stderr and len(res.stderr.splitlines()) == 1
+
+
+def test_failed_write_leaves_no_partial_files(
+    tmp_path: Path, clip: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import ladderpack.emit as emit
+
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    (out_dir / "beep.bin").write_bytes(b"old")
+    real_replace = os.replace
+    calls = {"n": 0}
+
+    def failing_fsync(fd: int) -> None:
+        calls["n"] += 1
+        if calls["n"] == 3:
+            raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(emit.os, "fsync", failing_fsync)
+    monkeypatch.setattr(emit.os, "replace", real_replace)
+    with pytest.raises(SystemExit) as exc:
+        main(["stream", str(clip), "-o", str(out_dir)])
+    assert exc.value.code == 2
+    assert sorted(os.listdir(out_dir)) == ["beep.bin"]
+    assert (out_dir / "beep.bin").read_bytes() == b"old"
+
+
+def test_stream_json_summary(tmp_path: Path, clip: Path) -> None:
+    res = run("stream", str(clip), "-o", str(tmp_path / "o"), "--bits", "10", "--json")
+    assert res.returncode == 0, res.stderr
+    summary = json.loads(res.stdout)
+    assert summary["bits"] == 10 and summary["requested_rate_hz"] == 22050.0
+    assert summary["words"] == -(-summary["samples"] // 3)
+    assert summary["bytes"] == 4 * summary["words"]
+    assert sorted(Path(f).suffix for f in summary["files"]) == [
+        ".bin",
+        ".c",
+        ".h",
+        ".json",
+        ".pio",
+        ".py",
+    ]
+
+
+def test_byte_identical_across_runs_and_folders(tmp_path: Path, clip: Path) -> None:
+    a, b = tmp_path / "a", tmp_path / "b" / "deeper"
+    assert run("stream", str(clip), "-o", str(a)).returncode == 0
+    assert run("stream", str(clip), "-o", str(b), cwd=tmp_path).returncode == 0
+    names = sorted(os.listdir(a))
+    assert names == sorted(os.listdir(b))
+    for n in names:
+        assert (a / n).read_bytes() == (b / n).read_bytes(), n
+    side = (a / "beep.json").read_text()
+    assert str(tmp_path) not in side
+
+
+def test_sidecar_records_options_and_hashes(tmp_path: Path, clip: Path) -> None:
+    import hashlib
+
+    assert (
+        run("stream", str(clip), "-o", str(tmp_path), "--seed", "9", "--dither", "rpdf").returncode
+        == 0
+    )
+    side = json.loads((tmp_path / "beep.json").read_text())
+    assert side["options"]["seed"] == 9 and side["options"]["dither"] == "rpdf"
+    assert side["source"]["sha256"] == hashlib.sha256(clip.read_bytes()).hexdigest()
+    for name, digest in side["files"].items():
+        assert hashlib.sha256((tmp_path / name).read_bytes()).hexdigest() == digest
+
+
+def test_clock_command(tmp_path: Path) -> None:
+    res = run("clock", "44100", "--json")
+    assert res.returncode == 0
+    plan = json.loads(res.stdout)
+    assert (plan["div_int"], plan["div_frac"]) == (2834, 120)
+
+
+def test_demo_runs_end_to_end(tmp_path: Path) -> None:
+    res = run("demo", str(tmp_path / "demo"))
+    assert res.returncode == 0, res.stderr
+    files = sorted(os.listdir(tmp_path / "demo"))
+    for stem in ("door_chime", "frost_warning", "bench_sine_997hz"):
+        for ext in (".bin", ".c", ".h", ".json", ".pio", ".py"):
+            assert stem + ext in files
+    chime = json.loads((tmp_path / "demo" / "door_chime.json").read_text())
+    assert chime["state_machine"]["out_base"] == 16 and chime["stream"]["bits"] == 8
+    bench = json.loads((tmp_path / "demo" / "bench_sine_997hz.json").read_text())
+    assert bench["state_machine"]["out_base"] == 0 and bench["stream"]["bits"] == 12
+
+
+def test_help_documents_every_option() -> None:
+    res = run("stream", "--help")
+    for opt in (
+        "--bits",
+        "--rate-hz",
+        "--sys-clock-hz",
+        "--rate-tolerance-ppm",
+        "--headroom-db",
+        "--fade-ms",
+        "--ramp-ms",
+        "--idle-code",
+        "--dither",
+        "--shaping",
+        "--seed",
+        "--shift",
+        "--out-base",
+        "--gpio-count",
+        "--embed-words-max",
+        "--json",
+        "--out-dir",
+        "--name",
+        "--channel",
+    ):
+        assert opt in res.stdout
+
+
+def test_cli_defaults_match_library() -> None:
+    # python-soundfile habit: the library function and its CLI wrapper keep one set of defaults.
+    import inspect
+
+    from ladderpack.cli import stream
+    from ladderpack.pipeline import STREAM_DEFAULTS, stream_signal
+
+    params = {p.name: p.default for p in stream.params}
+    sig = inspect.signature(stream_signal).parameters
+    for key, value in STREAM_DEFAULTS.items():
+        assert params[key] == value, key
+        assert sig[key].default == value, key
