@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["compiled", "errfb_quantize_ref"]
+__all__ = ["compiled", "errfb_quantize_ref", "sinc_resample_ref"]
 
 
 def errfb_quantize_ref(
@@ -81,6 +81,61 @@ def errfb_quantize_ref(
             hist[0] = e
         out[n] = q
     return overloads
+
+
+def sinc_resample_ref(
+    x: np.ndarray,
+    table: np.ndarray,
+    base: int,
+    rem: int,
+    step_int: int,
+    step_rem: int,
+    den: int,
+    out: np.ndarray,
+) -> None:
+    """Polyphase windowed-sinc interpolation at exact rational instants, reference.
+
+    Output ``n`` is taken at input instant ``base + rem / den`` advanced by
+    ``step_int + step_rem / den`` per output, kept exact in integers.  Its
+    taps are interpolated linearly between rows ``p0`` and ``p0 + 1`` of the
+    phase table.
+
+    Parameters
+    ----------
+    x : numpy.ndarray
+        float64 input, zero-padded so that tap ``j`` of the output at input
+        instant ``i + f`` reads ``x[i + 1 + j]``.
+    table : numpy.ndarray
+        ``(phases + 1, taps)`` float64 phase table.
+    base, rem : int
+        Input instant of the first output: ``base + rem / den``.
+    step_int, step_rem : int
+        Instant advance per output: ``step_int + step_rem / den``.
+    den : int
+        Common denominator (``0 <= rem, step_rem < den``).
+    out : numpy.ndarray
+        float64 output; its length is the number of outputs.
+    """
+    phases = table.shape[0] - 1
+    taps = table.shape[1]
+    for n in range(out.shape[0]):
+        p = rem / den * phases
+        p0 = int(p)
+        if p0 > phases - 1:
+            p0 = phases - 1
+        a = p - p0
+        acc0 = 0.0
+        acc1 = 0.0
+        for j in range(taps):
+            xv = x[base + 1 + j]
+            acc0 += table[p0, j] * xv
+            acc1 += table[p0 + 1, j] * xv
+        out[n] = acc0 + a * (acc1 - acc0)
+        base += step_int
+        rem += step_rem
+        if rem >= den:
+            rem -= den
+            base += 1
 
 
 _COMPILED: dict[str, Callable[..., Any]] = {}

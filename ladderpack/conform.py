@@ -20,6 +20,7 @@ import numpy as np
 from scipy import signal as sps
 from scipy import special
 
+from ladderpack import _kernels
 from ladderpack.audio import Signal, check_signal
 from ladderpack.errors import OptionError
 
@@ -180,31 +181,23 @@ def resample(
     if sig.samples.ndim != 1:
         raise OptionError("resample expects a mono signal; downmix first", field="samples")
     step = Fraction(sig.rate_hz) / Fraction(rate_out_hz)
+    if step.denominator > 1 << 40:  # keep the kernel's integer instants inside int64
+        step = step.limit_denominator(1 << 40)
     out_rate = float(Fraction(rate_out_hz))
     n_out = math.ceil(sig.frames / step)
     if step == 1:
         return Signal(np.array(sig.samples, dtype=np.float64), out_rate)
     if kernel is None:
         kernel = design_kernel(resampler_spec(sig.rate_hz, out_rate, bits), sig.rate_hz)
-    half, P, table = kernel.half, kernel.phases, kernel.table
+    half = kernel.half
     x = np.concatenate(
         [np.zeros(half), np.asarray(sig.samples, dtype=np.float64), np.zeros(half + 1)]
     )
-    windows = np.lib.stride_tricks.sliding_window_view(x, 2 * half)
     y = np.empty(n_out)
-    block = max(256, (1 << 21) // (2 * half))
-    num, den = step.numerator, step.denominator
-    for n0 in range(0, n_out, block):
-        k = np.arange(min(block, n_out - n0))
-        base, rem = divmod(n0 * num, den)  # exact start instant: base + rem / den
-        t = rem / den + k * float(step)
-        i = np.floor(t).astype(np.int64)
-        p = (t - i) * P
-        p0 = np.minimum(p.astype(np.int64), P - 1)
-        a = (p - p0)[:, None]
-        taps = table[p0] * (1.0 - a) + table[p0 + 1] * a
-        # input sample base + i sits at x[base + i + half]; taps start half - 1 before it
-        y[n0 : n0 + k.size] = np.einsum("ij,ij->i", taps, windows[base + i + 1])
+    step_int, step_rem = divmod(step.numerator, step.denominator)
+    _kernels.compiled("sinc_resample")(
+        x, kernel.table, 0, 0, step_int, step_rem, step.denominator, y
+    )
     return Signal(y, out_rate)
 
 
