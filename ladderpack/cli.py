@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import click
@@ -42,6 +43,20 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
         click.echo(f"  clipped  {summary['overloads']} sample(s)")
     for path in files or []:
         click.echo(f"  wrote    {path}")
+
+
+@contextlib.contextmanager
+def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
+    """A progress bar over the pipeline stages on a terminal; nothing when piped."""
+    from ladderpack.pipeline import STAGES
+
+    if not sys.stderr.isatty():
+        yield None
+        return
+    with click.progressbar(
+        length=len(STAGES), label=label, file=sys.stderr, item_show_func=lambda s: s
+    ) as bar:
+        yield lambda stage: bar.update(1, stage)
 
 
 def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
@@ -204,7 +219,8 @@ def stream(
     from ladderpack.bundle import write_bundle
     from ladderpack.pipeline import stream_clip
 
-    asset = stream_clip(clip, channel=channel, name=name, **options)
+    with _stage_progress(f"streaming {os.path.basename(clip)}") as progress:
+        asset = stream_clip(clip, channel=channel, name=name, progress=progress, **options)
     written = write_bundle(asset, out_dir, embed_words_max=embed_words_max)
     summary = asset.summary()
     if as_json:

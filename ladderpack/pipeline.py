@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Callable
 from typing import Any
 
 from ladderpack import conform
@@ -22,7 +23,10 @@ from ladderpack.pack import WordLayout, pack
 from ladderpack.pio import ladder_program, state_machine_config
 from ladderpack.quantize import DITHERS, SHAPERS, check_bits, quantize, with_idle_ramps
 
-__all__ = ["STREAM_DEFAULTS", "stream_clip", "stream_signal"]
+__all__ = ["STAGES", "STREAM_DEFAULTS", "stream_clip", "stream_signal"]
+
+#: Stages reported to a ``progress`` callback, in order.
+STAGES = ("read", "resample", "quantise", "pack")
 
 #: Defaults shared by the library and the command line.
 STREAM_DEFAULTS: dict[str, Any] = {
@@ -74,6 +78,7 @@ def stream_signal(
     out_base: int = STREAM_DEFAULTS["out_base"],
     gpio_count: int = STREAM_DEFAULTS["gpio_count"],
     source: dict[str, Any] | None = None,
+    progress: Callable[[str], None] | None = None,
 ) -> StreamAsset:
     """Turn a mono signal into a ladder stream.
 
@@ -115,6 +120,9 @@ def stream_signal(
         User GPIOs on the target (default 30).
     source : dict, optional
         Provenance recorded in the sidecar.
+    progress : callable, optional
+        Called with the name of each stage as it finishes (one of
+        :data:`STAGES`), for progress display.
 
     Returns
     -------
@@ -150,14 +158,18 @@ def stream_signal(
     program = ladder_program(bits, plan.cycles_per_sample, name=f"{ident}_out")
     sm = state_machine_config(program, layout, plan, out_base=int(out_base), gpio_count=gpio_count)
 
+    done = progress or (lambda stage: None)
     x = conform.remove_dc(sig)
     x = conform.resample(x, plan.achieved_rate_hz, bits=bits)
+    done("resample")
     x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
     x = conform.apply_fades(x, fade_ms=fade_ms)
     audio, report = quantize(x, bits=bits, dither=dither, shaping=shaping, seed=seed)
+    done("quantise")
     ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
     codes = with_idle_ramps(audio, idle_code=int(idle_code), ramp_samples=ramp_samples)
     packed = pack(codes, layout, pad_code=int(idle_code))
+    done("pack")
 
     spec = conform.resampler_spec(sig.rate_hz, float(plan.achieved_rate_hz), bits)
     options = {
@@ -240,5 +252,7 @@ def stream_clip(
         "frames": sig.frames,
         "channel": "mix" if channel is None else int(channel),
     }
+    if options.get("progress"):
+        options["progress"]("read")
     stem = name if name is not None else os.path.splitext(os.path.basename(fname))[0]
     return stream_signal(sig, name=stem, source=source, **options)
