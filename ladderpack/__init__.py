@@ -6,33 +6,47 @@ the data flow (clip -> Signal -> Codes -> Packed -> bundle files)::
     >>> import ladderpack as lp                                   # doctest: +SKIP
     >>> asset = lp.stream_clip("demo_audio/door_chime.flac", bits=8, out_base=16)
     >>> lp.write_bundle(asset, "out")
+
+Names are imported on first use, so ``import ladderpack`` (and the command
+line) stays fast.
 """
 
-from ladderpack._version import __version__
-from ladderpack.audio import Signal, load_clip
-from ladderpack.bundle import StreamAsset, bundle_files, write_bundle
-from ladderpack.clock import ClockPlan, plan_clock
-from ladderpack.errors import LadderpackError
-from ladderpack.pack import Packed, WordLayout, pack, unpack
-from ladderpack.pipeline import stream_clip, stream_signal
-from ladderpack.quantize import Codes, quantize
+from __future__ import annotations
 
-__all__ = [
-    "ClockPlan",
-    "Codes",
-    "LadderpackError",
-    "Packed",
-    "Signal",
-    "StreamAsset",
-    "WordLayout",
-    "__version__",
-    "bundle_files",
-    "load_clip",
-    "pack",
-    "plan_clock",
-    "quantize",
-    "stream_clip",
-    "stream_signal",
-    "unpack",
-    "write_bundle",
-]
+import importlib
+from typing import Any
+
+from ladderpack._version import __version__
+
+_EXPORTS = {
+    "ClockPlan": "clock",
+    "Codes": "quantize",
+    "LadderpackError": "errors",
+    "Packed": "pack",
+    "Signal": "audio",
+    "StreamAsset": "bundle",
+    "WordLayout": "pack",
+    "bundle_files": "bundle",
+    "load_clip": "audio",
+    "pack": "pack",
+    "plan_clock": "clock",
+    "quantize": "quantize",
+    "stream_clip": "pipeline",
+    "stream_signal": "pipeline",
+    "unpack": "pack",
+    "write_bundle": "bundle",
+}
+
+__all__ = ["__version__", *sorted(_EXPORTS)]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _EXPORTS:
+        value = getattr(importlib.import_module(f"ladderpack.{_EXPORTS[name]}"), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'ladderpack' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)

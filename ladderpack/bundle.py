@@ -7,11 +7,12 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ladderpack.clock import ClockPlan
+from ladderpack.defaults import EMBED_WORDS_MAX
 from ladderpack.pack import Packed
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
-__all__ = ["StreamAsset", "bundle_files", "write_bundle"]
+__all__ = ["EMBED_WORDS_MAX", "StreamAsset", "bundle_files", "write_bundle"]
 
 
 @dataclass(frozen=True)
@@ -94,7 +95,7 @@ class StreamAsset:
         }
 
 
-def bundle_files(asset: StreamAsset, *, embed_words_max: int = 256) -> dict[str, bytes]:
+def bundle_files(asset: StreamAsset, *, embed_words_max: int = EMBED_WORDS_MAX) -> dict[str, bytes]:
     """Render every output file of a bundle, sidecar last.
 
     Parameters
@@ -126,7 +127,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int = 256) -> dict[str,
 
 
 def write_bundle(
-    asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int = 256
+    asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int = EMBED_WORDS_MAX
 ) -> list[str]:
     """Render a bundle and write it atomically into `out_dir`.
 

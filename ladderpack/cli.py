@@ -12,8 +12,14 @@ from typing import Any
 import click
 
 from ladderpack._version import __version__
+from ladderpack.defaults import (
+    DITHERS,
+    EMBED_WORDS_MAX,
+    SHAPER_NAMES,
+    SHIFTS,
+    STREAM_DEFAULTS,
+)
 from ladderpack.errors import LadderpackError
-from ladderpack.pipeline import STREAM_DEFAULTS
 
 D = STREAM_DEFAULTS
 
@@ -48,7 +54,7 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
 @contextlib.contextmanager
 def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
     """A progress bar over the pipeline stages on a terminal; nothing when piped."""
-    from ladderpack.pipeline import STAGES
+    from ladderpack.defaults import STAGES
 
     if not sys.stderr.isatty():
         yield None
@@ -59,111 +65,61 @@ def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
         yield lambda stage: bar.update(1, stage)
 
 
+def _opt(flag: str, key: str, help_text: str, **kw: Any) -> Callable[[Any], Any]:
+    """An option whose default comes from the library's STREAM_DEFAULTS."""
+    return click.option(flag, key, default=D[key], show_default=True, help=help_text, **kw)
+
+
 def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
     """Options shared by every command that makes a stream bundle."""
     opts = [
-        click.option(
-            "--bits",
-            type=int,
-            default=D["bits"],
-            show_default=True,
-            help="Ladder width N in bits, 1..16.",
-        ),
-        click.option(
-            "--rate-hz",
-            type=float,
-            default=D["rate_hz"],
-            show_default=True,
-            help="Requested stream sample rate, Hz.",
-        ),
-        click.option(
-            "--sys-clock-hz",
-            type=int,
-            default=D["sys_clock_hz"],
-            show_default=True,
-            help="System clock feeding the PIO block, Hz.",
-        ),
-        click.option(
+        _opt("--bits", "bits", "Ladder width N in bits, 1..16.", type=int),
+        _opt("--rate-hz", "rate_hz", "Requested stream sample rate, Hz.", type=float),
+        _opt("--sys-clock-hz", "sys_clock_hz", "System clock feeding the PIO block, Hz.", type=int),
+        _opt(
             "--rate-tolerance-ppm",
+            "rate_tolerance_ppm",
+            "Rate error accepted to keep a jitter-free integer divider, ppm.",
             type=float,
-            default=D["rate_tolerance_ppm"],
-            show_default=True,
-            help="Rate error accepted to keep a jitter-free integer divider, ppm.",
         ),
-        click.option(
+        _opt(
             "--headroom-db",
+            "headroom_db",
+            "Peak level below full scale after normalising, dB.",
             type=float,
-            default=D["headroom_db"],
-            show_default=True,
-            help="Peak level below full scale after normalising, dB.",
         ),
-        click.option(
-            "--fade-ms",
-            type=float,
-            default=D["fade_ms"],
-            show_default=True,
-            help="Raised-cosine fade at each end of the audio, ms.",
+        _opt(
+            "--fade-ms", "fade_ms", "Raised-cosine fade at each end of the audio, ms.", type=float
         ),
-        click.option(
+        _opt(
             "--ramp-ms",
+            "ramp_ms",
+            "Ramp between the idle code and mid-scale at start and end, ms.",
             type=float,
-            default=D["ramp_ms"],
-            show_default=True,
-            help="Ramp between the idle code and mid-scale at start and end, ms.",
         ),
-        click.option(
-            "--idle-code",
-            type=int,
-            default=D["idle_code"],
-            show_default=True,
-            help="Code the pins hold when nothing plays.",
-        ),
-        click.option(
-            "--dither",
-            type=click.Choice(["tpdf", "rpdf", "none"]),
-            default=D["dither"],
-            show_default=True,
-            help="Dither before rounding.",
-        ),
-        click.option(
+        _opt("--idle-code", "idle_code", "Code the pins hold when nothing plays.", type=int),
+        _opt("--dither", "dither", "Dither before rounding.", type=click.Choice(DITHERS)),
+        _opt(
             "--shaping",
-            type=click.Choice(["none", "first-order"]),
-            default=D["shaping"],
-            show_default=True,
-            help="Error-feedback noise shaping.",
+            "shaping",
+            "Error-feedback noise shaping.",
+            type=click.Choice(SHAPER_NAMES),
         ),
-        click.option(
-            "--seed",
-            type=int,
-            default=D["seed"],
-            show_default=True,
-            help="Dither seed; the same seed gives identical output.",
-        ),
-        click.option(
+        _opt("--seed", "seed", "Dither seed; the same seed gives identical output.", type=int),
+        _opt(
             "--shift",
-            type=click.Choice(["right", "left"]),
-            default=D["shift"],
-            show_default=True,
-            help="OUT shift direction: right puts the first sample in the LSBs.",
+            "shift",
+            "OUT shift direction: right puts the first sample in the LSBs.",
+            type=click.Choice(SHIFTS),
         ),
-        click.option(
-            "--out-base",
-            type=int,
-            default=D["out_base"],
-            show_default=True,
-            help="GPIO number of the ladder's least significant bit.",
+        _opt(
+            "--out-base", "out_base", "GPIO number of the ladder's least significant bit.", type=int
         ),
-        click.option(
-            "--gpio-count",
-            type=int,
-            default=D["gpio_count"],
-            show_default=True,
-            help="User GPIOs on the target (30 on RP2040).",
-        ),
+        _opt("--gpio-count", "gpio_count", "User GPIOs on the target (30 on RP2040).", type=int),
         click.option(
             "--embed-words-max",
             type=int,
-            default=256,
+            default=EMBED_WORDS_MAX,
             show_default=True,
             help="Streams up to this many words are also embedded in the MicroPython module.",
         ),

@@ -21,13 +21,11 @@ import math
 from dataclasses import dataclass
 from fractions import Fraction
 
+from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ
 from ladderpack.errors import ClockError, OptionError
 
 __all__ = ["DEFAULT_SYS_CLOCK_HZ", "ClockPlan", "plan_clock"]
 
-#: RP2040 default system clock (RP2040 datasheet; MicroPython rp2 docs:
-#: "The default at boot time is 125 MHz").
-DEFAULT_SYS_CLOCK_HZ = 125_000_000
 
 _DIV_MIN_256 = 1 * 256  # divider 1.0
 _DIV_MAX_256 = 65536 * 256  # divider 65536.0 (integer field 0, fraction 0)

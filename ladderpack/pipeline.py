@@ -16,7 +16,8 @@ from typing import Any
 from ladderpack import conform
 from ladderpack.audio import Signal, check_signal, load_clip, sha256_file
 from ladderpack.bundle import StreamAsset
-from ladderpack.clock import DEFAULT_SYS_CLOCK_HZ, plan_clock
+from ladderpack.clock import plan_clock
+from ladderpack.defaults import SHIFTS, STAGES, STREAM_DEFAULTS
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
 from ladderpack.pack import WordLayout, pack
@@ -24,27 +25,6 @@ from ladderpack.pio import ladder_program, state_machine_config
 from ladderpack.quantize import DITHERS, SHAPERS, check_bits, quantize, with_idle_ramps
 
 __all__ = ["STAGES", "STREAM_DEFAULTS", "stream_clip", "stream_signal"]
-
-#: Stages reported to a ``progress`` callback, in order.
-STAGES = ("read", "resample", "quantise", "pack")
-
-#: Defaults shared by the library and the command line.
-STREAM_DEFAULTS: dict[str, Any] = {
-    "bits": 8,
-    "rate_hz": 22050.0,
-    "sys_clock_hz": DEFAULT_SYS_CLOCK_HZ,
-    "rate_tolerance_ppm": 100.0,
-    "headroom_db": 1.0,
-    "fade_ms": 5.0,
-    "ramp_ms": 50.0,
-    "idle_code": 0,
-    "dither": "tpdf",
-    "shaping": "none",
-    "seed": 0,
-    "shift": "right",
-    "out_base": 0,
-    "gpio_count": 30,
-}
 
 
 def _check_choice(value: str, choices: tuple[str, ...] | list[str], field: str) -> str:
@@ -132,7 +112,7 @@ def stream_signal(
     bits = check_bits(bits)
     _check_choice(dither, DITHERS, "dither")
     _check_choice(shaping, tuple(SHAPERS), "shaping")
-    _check_choice(shift, ("right", "left"), "shift")
+    _check_choice(shift, SHIFTS, "shift")
     headroom_db = _check_nonneg(headroom_db, "headroom_db", "dB")
     fade_ms = _check_nonneg(fade_ms, "fade_ms", "ms")
     ramp_ms = _check_nonneg(ramp_ms, "ramp_ms", "ms")

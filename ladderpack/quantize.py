@@ -18,6 +18,7 @@ import numpy as np
 from ladderpack import _kernels
 from ladderpack.audio import Signal, check_signal
 from ladderpack.conform import raised_cosine
+from ladderpack.defaults import DITHERS, SHAPER_NAMES
 from ladderpack.errors import OptionError
 
 __all__ = [
@@ -33,13 +34,13 @@ __all__ = [
     "with_idle_ramps",
 ]
 
-DITHERS = ("tpdf", "rpdf", "none")
 
 #: Error-feedback filters available now, as taps h_1..h_K of NTF = 1 - sum h_k z^-k.
 SHAPERS: dict[str, tuple[float, ...]] = {
     "none": (),
     "first-order": (1.0,),
 }
+assert tuple(SHAPERS) == SHAPER_NAMES
 
 _DITHER_PEAK = {"tpdf": 1.0, "rpdf": 0.5, "none": 0.0}
 

@@ -1,0 +1,55 @@
+"""Defaults and choice lists shared by the library and the command line.
+
+Kept free of heavy imports so the command line starts fast.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+__all__ = [
+    "DEFAULT_SYS_CLOCK_HZ",
+    "DITHERS",
+    "EMBED_WORDS_MAX",
+    "SHAPER_NAMES",
+    "SHIFTS",
+    "STAGES",
+    "STREAM_DEFAULTS",
+]
+
+#: RP2040 default system clock (RP2040 datasheet; MicroPython rp2 docs:
+#: "The default at boot time is 125 MHz").
+DEFAULT_SYS_CLOCK_HZ = 125_000_000
+
+#: Dither kinds: triangular 2 LSB p-p, rectangular 1 LSB p-p, none.
+DITHERS = ("tpdf", "rpdf", "none")
+
+#: Error-feedback shaping filters available.
+SHAPER_NAMES = ("none", "first-order")
+
+#: OUT shift directions.
+SHIFTS = ("right", "left")
+
+#: Pipeline stages reported to a ``progress`` callback, in order.
+STAGES = ("read", "resample", "quantise", "pack")
+
+#: Largest stream, in words, also embedded in the MicroPython module.
+EMBED_WORDS_MAX = 256
+
+#: Defaults of :func:`ladderpack.pipeline.stream_signal` and ``ladderpack stream``.
+STREAM_DEFAULTS: dict[str, Any] = {
+    "bits": 8,
+    "rate_hz": 22050.0,
+    "sys_clock_hz": DEFAULT_SYS_CLOCK_HZ,
+    "rate_tolerance_ppm": 100.0,
+    "headroom_db": 1.0,
+    "fade_ms": 5.0,
+    "ramp_ms": 50.0,
+    "idle_code": 0,
+    "dither": "tpdf",
+    "shaping": "none",
+    "seed": 0,
+    "shift": "right",
+    "out_base": 0,
+    "gpio_count": 30,
+}
