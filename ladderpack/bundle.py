@@ -6,6 +6,7 @@ import os
 from dataclasses import dataclass, field
 from typing import Any
 
+from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
 from ladderpack.defaults import EMBED_WORDS_MAX
 from ladderpack.pack import Packed
@@ -43,6 +44,11 @@ class StreamAsset:
         Every option that shaped the result.
     stats : dict
         Measured facts (gain applied, overloads, ramp and audio samples).
+    intro, outro : Packed, optional
+        For loops: the ramp from the idle code up to mid-scale, played once
+        before the loop, and back down, played once after it.
+    budget : Budget, optional
+        Flash and RAM use on the target.
     """
 
     name: str
@@ -55,6 +61,14 @@ class StreamAsset:
     source: dict[str, Any] = field(default_factory=dict)
     options: dict[str, Any] = field(default_factory=dict)
     stats: dict[str, Any] = field(default_factory=dict)
+    intro: Packed | None = None
+    outro: Packed | None = None
+    budget: Budget | None = None
+
+    @property
+    def loop(self) -> bool:
+        """True for a repeating stream (its ramps are the separate intro and outro)."""
+        return self.intro is not None
 
     @property
     def sample_count(self) -> int:
@@ -92,20 +106,25 @@ class StreamAsset:
             "words": self.word_count,
             "bytes": self.byte_count,
             "overloads": int(self.stats.get("overloads", 0)),
+            "program": self.program.variant,
+            "loop": self.loop,
+            "flash_share": self.budget.flash_share if self.budget else None,
+            "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
 
 
-def bundle_files(asset: StreamAsset, *, embed_words_max: int = EMBED_WORDS_MAX) -> dict[str, bytes]:
+def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> dict[str, bytes]:
     """Render every output file of a bundle, sidecar last.
 
     Parameters
     ----------
     asset : StreamAsset
         The stream.
-    embed_words_max : int
+    embed_words_max : int, optional
         Streams of at most this many words are also embedded in the
         MicroPython module as a literal; longer ones are read from the
-        ``.bin`` file on the board's filesystem.
+        ``.bin`` file on the board's filesystem.  Default: the asset's own
+        ``embed_words_max`` option.
 
     Returns
     -------
@@ -114,6 +133,8 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int = EMBED_WORDS_MAX) 
     """
     from ladderpack.emit import binary, c, micropython, pioasm, sidecar
 
+    if embed_words_max is None:
+        embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
     files: dict[str, bytes] = {
         f"{n}.bin": binary.render(asset.packed),
@@ -127,7 +148,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int = EMBED_WORDS_MAX) 
 
 
 def write_bundle(
-    asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int = EMBED_WORDS_MAX
+    asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int | None = None
 ) -> list[str]:
     """Render a bundle and write it atomically into `out_dir`.
 

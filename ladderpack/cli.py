@@ -15,6 +15,8 @@ from ladderpack._version import __version__
 from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
+    PIN_ORDERS,
+    PROGRAM_CHOICES,
     SHAPER_NAMES,
     SHIFTS,
     STREAM_DEFAULTS,
@@ -47,6 +49,13 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
     )
     if "overloads" in summary:
         click.echo(f"  clipped  {summary['overloads']} sample(s)")
+    if summary.get("flash_share") is not None:
+        click.echo(
+            f"  flash    {100 * summary['flash_share']:.2f} % of the target; at most "
+            f"{summary['max_duration_s']:.1f} s fit at this rate and width"
+        )
+    if "program" in summary:
+        click.echo(f"  program  {summary['program']}" + (" (loops)" if summary.get("loop") else ""))
     for path in files or []:
         click.echo(f"  wrote    {path}")
 
@@ -67,7 +76,8 @@ def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
 
 def _opt(flag: str, key: str, help_text: str, **kw: Any) -> Callable[[Any], Any]:
     """An option whose default comes from the library's STREAM_DEFAULTS."""
-    return click.option(flag, key, default=D[key], show_default=True, help=help_text, **kw)
+    kw.setdefault("show_default", True)
+    return click.option(flag, key, default=D[key], help=help_text, **kw)
 
 
 def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
@@ -116,8 +126,61 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
             "--out-base", "out_base", "GPIO number of the ladder's least significant bit.", type=int
         ),
         _opt("--gpio-count", "gpio_count", "User GPIOs on the target (30 on RP2040).", type=int),
+        _opt(
+            "--pin-order",
+            "pin_order",
+            "msb-high: ladder MSB on the highest GPIO; msb-low: on the lowest (bits reversed).",
+            type=click.Choice(PIN_ORDERS),
+        ),
+        click.option(
+            "--invert/--no-invert",
+            default=D["invert"],
+            show_default=True,
+            help="Invert every bit, for an inverting buffer between pins and ladder.",
+        ),
+        _opt(
+            "--program",
+            "program",
+            "State-machine program; auto picks loop for loops when it fits, else autopull.",
+            type=click.Choice(PROGRAM_CHOICES),
+        ),
+        _opt(
+            "--samples-per-word",
+            "samples_per_word",
+            "Samples per 32-bit FIFO word  [default: as many as fit]",
+            type=int,
+            show_default=False,
+        ),
+        click.option(
+            "--loop/--no-loop",
+            default=D["loop"],
+            show_default=True,
+            help="The stream repeats: no fades or ramps at the seam, length rounded "
+            "to whole words, players loop.",
+        ),
+        _opt(
+            "--crossfade-ms",
+            "crossfade_ms",
+            "Loops: crossfade of the end onto the start, ms.",
+            type=float,
+        ),
+        _opt("--flash-bytes", "flash_bytes", "Target flash size, bytes.", type=int),
+        _opt(
+            "--flash-reserve-bytes",
+            "flash_reserve_bytes",
+            "Flash kept for firmware code, bytes.",
+            type=int,
+        ),
+        _opt("--ram-bytes", "ram_bytes", "Target RAM size, bytes.", type=int),
+        _opt(
+            "--chunk-words",
+            "chunk_words",
+            "Words per DMA buffer of the MicroPython player (two are used).",
+            type=int,
+        ),
         click.option(
             "--embed-words-max",
+            "embed_words_max",
             type=int,
             default=EMBED_WORDS_MAX,
             show_default=True,
@@ -167,7 +230,6 @@ def stream(
     out_dir: str,
     name: str | None,
     channel: int | None,
-    embed_words_max: int,
     as_json: bool,
     **options: Any,
 ) -> None:
@@ -177,7 +239,7 @@ def stream(
 
     with _stage_progress(f"streaming {os.path.basename(clip)}") as progress:
         asset = stream_clip(clip, channel=channel, name=name, progress=progress, **options)
-    written = write_bundle(asset, out_dir, embed_words_max=embed_words_max)
+    written = write_bundle(asset, out_dir)
     summary = asset.summary()
     if as_json:
         summary["files"] = written

@@ -30,6 +30,8 @@ __all__ = [
     "apply_fades",
     "dbfs_to_amplitude",
     "design_kernel",
+    "loop_crossfade",
+    "loop_rate",
     "normalise_peak",
     "remove_dc",
     "resample",
@@ -152,7 +154,12 @@ def design_kernel(
 
 
 def resample(
-    sig: Signal, rate_out_hz: float | Fraction, *, bits: int = 16, kernel: SincKernel | None = None
+    sig: Signal,
+    rate_out_hz: float | Fraction,
+    *,
+    bits: int = 16,
+    kernel: SincKernel | None = None,
+    periodic: bool = False,
 ) -> Signal:
     """Resample a mono signal to a new rate, rational or not.
 
@@ -171,6 +178,9 @@ def resample(
         Output code width, which sets the stop-band attenuation.
     kernel : SincKernel, optional
         A kernel from :func:`design_kernel` to reuse.
+    periodic : bool
+        Treat the input as one period of a loop (the filter wraps around
+        the ends instead of seeing silence), for seamless repeating streams.
 
     Returns
     -------
@@ -190,15 +200,51 @@ def resample(
     if kernel is None:
         kernel = design_kernel(resampler_spec(sig.rate_hz, out_rate, bits), sig.rate_hz)
     half = kernel.half
-    x = np.concatenate(
-        [np.zeros(half), np.asarray(sig.samples, dtype=np.float64), np.zeros(half + 1)]
-    )
+    body = np.asarray(sig.samples, dtype=np.float64)
+    if periodic:
+        reps = -(-(half + 1) // body.size)
+        tiled = np.tile(body, reps)
+        x = np.concatenate([tiled[tiled.size - half :], body, tiled[: half + 1]])
+    else:
+        x = np.concatenate([np.zeros(half), body, np.zeros(half + 1)])
     y = np.empty(n_out)
     step_int, step_rem = divmod(step.numerator, step.denominator)
     _kernels.compiled("sinc_resample")(
         x, kernel.table, 0, 0, step_int, step_rem, step.denominator, y
     )
     return Signal(y, out_rate)
+
+
+def loop_rate(frames: int, rate_in_hz: float, rate_out_hz: Fraction, multiple: int) -> Fraction:
+    """Rate to resample a loop to so its length is a whole number of `multiple`.
+
+    A loop of `frames` input samples becomes ``frames * rate_out / rate_in``
+    output samples, rarely a whole number of words.  Resampling it to the
+    returned rate instead gives exactly the nearest multiple of `multiple`
+    samples (at least one), so the loop closes on a word boundary; played at
+    `rate_out_hz` its pitch moves by ``returned / rate_out - 1``.
+    """
+    exact = Fraction(frames) * Fraction(rate_out_hz) / Fraction(rate_in_hz)
+    words = max(1, round(exact / multiple))
+    return Fraction(rate_in_hz) * words * multiple / frames
+
+
+def loop_crossfade(sig: Signal, *, crossfade_ms: float) -> Signal:
+    """Fold the end of a loop onto its start with an equal-power crossfade.
+
+    The last ``K`` samples fade out over the first ``K``, which fade in; the
+    result is ``K`` samples shorter and wraps from its end to its start
+    without a jump.  ``crossfade_ms = 0`` returns the signal unchanged.
+    """
+    if not (math.isfinite(crossfade_ms) and crossfade_ms >= 0):
+        raise OptionError(f"must be >= 0 ms, got {crossfade_ms!r}", field="crossfade_ms")
+    k = min(round(crossfade_ms * 1e-3 * sig.rate_hz), sig.frames // 2)
+    if k == 0:
+        return sig
+    x = np.array(sig.samples, dtype=np.float64)
+    phase = (np.arange(k) + 0.5) / k * (np.pi / 2)
+    head = x[:k] * np.sin(phase) + x[-k:] * np.cos(phase)
+    return Signal(np.concatenate([head, x[k:-k]]), sig.rate_hz)
 
 
 def remove_dc(sig: Signal) -> Signal:

@@ -11,6 +11,8 @@ __all__ = [
     "DEFAULT_SYS_CLOCK_HZ",
     "DITHERS",
     "EMBED_WORDS_MAX",
+    "PIN_ORDERS",
+    "PROGRAM_CHOICES",
     "SHAPER_NAMES",
     "SHIFTS",
     "STAGES",
@@ -26,6 +28,12 @@ DITHERS = ("tpdf", "rpdf", "none")
 
 #: Error-feedback shaping filters available.
 SHAPER_NAMES = ("none", "first-order")
+
+#: Which GPIO carries the ladder's most significant bit.
+PIN_ORDERS = ("msb-high", "msb-low")
+
+#: Ladder program choices ("auto": loop program for loops when it fits, else autopull).
+PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
 
 #: OUT shift directions.
 SHIFTS = ("right", "left")
@@ -52,4 +60,14 @@ STREAM_DEFAULTS: dict[str, Any] = {
     "shift": "right",
     "out_base": 0,
     "gpio_count": 30,
+    "pin_order": "msb-high",
+    "invert": False,
+    "program": "auto",
+    "samples_per_word": None,
+    "loop": False,
+    "crossfade_ms": 0.0,
+    "flash_bytes": 2 * 1024 * 1024,
+    "flash_reserve_bytes": 256 * 1024,
+    "ram_bytes": 264 * 1024,
+    "chunk_words": 1024,
 }

@@ -33,18 +33,57 @@ class WordLayout:
         True (default) for ``OUT_SHIFTDIR`` = right: the first sample of a
         word is in its least significant bits.  False: in its most
         significant bits.
+    per_word : int, optional
+        Samples per word, 1..floor(32 / bits); default as many as fit.
+    msb_high : bool
+        True (default) when the ladder's most significant bit is on the
+        highest GPIO (ladder bit k on GPIO ``out_base + k``).  False when it
+        is on the lowest: the bits of every code are reversed at pack time.
+    invert : bool
+        Invert every bit (for an inverting buffer between pins and ladder).
     """
 
     bits: int
     shift_right: bool = True
+    per_word: int | None = None
+    msb_high: bool = True
+    invert: bool = False
 
     def __post_init__(self) -> None:
         check_bits(self.bits)
+        most = 32 // self.bits
+        if self.per_word is not None and (
+            isinstance(self.per_word, bool)
+            or not isinstance(self.per_word, int)
+            or not 1 <= self.per_word <= most
+        ):
+            raise OptionError(
+                f"must be 1..{most} for {self.bits}-bit samples, got {self.per_word!r}",
+                field="samples_per_word",
+            )
 
     @property
     def samples_per_word(self) -> int:
-        """Whole samples per word, ``floor(32 / bits)``."""
-        return 32 // self.bits
+        """Samples per word (default ``floor(32 / bits)``)."""
+        return self.per_word if self.per_word is not None else 32 // self.bits
+
+    def to_pins(self, codes: np.ndarray) -> np.ndarray:
+        """Map ladder codes to the bit patterns written to the pins."""
+        x = np.asarray(codes, dtype=np.uint32)
+        if not self.msb_high:
+            x = _reverse_bits(x, self.bits)
+        if self.invert:
+            x = x ^ np.uint32((1 << self.bits) - 1)
+        return x
+
+    def from_pins(self, patterns: np.ndarray) -> np.ndarray:
+        """Inverse of :meth:`to_pins`."""
+        x = np.asarray(patterns, dtype=np.uint32)
+        if self.invert:
+            x = x ^ np.uint32((1 << self.bits) - 1)
+        if not self.msb_high:
+            x = _reverse_bits(x, self.bits)
+        return x
 
     @property
     def pull_threshold(self) -> int:
@@ -68,6 +107,8 @@ class WordLayout:
             "shift": "right" if self.shift_right else "left",
             "pull_threshold": self.pull_threshold,
             "pad_bits": self.pad_bits,
+            "pin_order": "msb-high" if self.msb_high else "msb-low",
+            "invert": self.invert,
         }
 
 
@@ -84,13 +125,20 @@ class Packed:
     sample_count : int
         Samples carried (the rest of the last word is padding).
     pad_code : int
-        Code used to fill the last word.
+        Ladder code used to fill the last word.
     """
 
     words: np.ndarray
     layout: WordLayout
     sample_count: int
     pad_code: int
+
+
+def _reverse_bits(x: np.ndarray, bits: int) -> np.ndarray:
+    out = np.zeros_like(x)
+    for k in range(bits):
+        out |= ((x >> np.uint32(k)) & np.uint32(1)) << np.uint32(bits - 1 - k)
+    return out
 
 
 def _slot_shifts(layout: WordLayout) -> np.ndarray:
@@ -110,8 +158,13 @@ def pack(codes: Codes, layout: WordLayout, *, pad_code: int = 0) -> Packed:
     layout : WordLayout
         Samples per word and shift direction.
     pad_code : int
-        Code that fills the unused slots of the last word (the idle code, so
-        the pins rest where the stream left them).
+        Ladder code that fills the unused slots of the last word (the idle
+        code, so the pins rest where the stream left them).
+
+    Notes
+    -----
+    Codes are ladder codes; the layout's pin order and inversion are applied
+    here, so the words hold pin patterns.
 
     Examples
     --------
@@ -129,15 +182,15 @@ def pack(codes: Codes, layout: WordLayout, *, pad_code: int = 0) -> Packed:
     spw = layout.samples_per_word
     n = len(codes)
     n_words = layout.words_for(n)
-    slots = np.full(n_words * spw, pad_code, dtype=np.uint64)
-    slots[:n] = codes.codes
+    slots = np.full(n_words * spw, int(layout.to_pins(np.array([pad_code]))[0]), dtype=np.uint64)
+    slots[:n] = layout.to_pins(codes.codes)
     grid = slots.reshape(n_words, spw) << _slot_shifts(layout)[None, :]
     words = np.bitwise_or.reduce(grid, axis=1) if spw > 1 else grid[:, 0]
     return Packed(words.astype(np.uint32), layout, n, int(pad_code))
 
 
 def unpack(words: np.ndarray, layout: WordLayout, sample_count: int | None = None) -> Codes:
-    """Recover codes from packed words (the inverse of :func:`pack`).
+    """Recover ladder codes from packed words (the inverse of :func:`pack`).
 
     Parameters
     ----------
@@ -151,7 +204,7 @@ def unpack(words: np.ndarray, layout: WordLayout, sample_count: int | None = Non
     w = np.asarray(words, dtype=np.uint64)
     mask = np.uint64((1 << layout.bits) - 1)
     slots = (w[:, None] >> _slot_shifts(layout)[None, :]) & mask
-    flat = slots.reshape(-1).astype(np.uint16)
+    flat = layout.from_pins(slots.reshape(-1)).astype(np.uint16)
     if sample_count is not None:
         flat = flat[:sample_count]
     return Codes(flat, layout.bits)

@@ -13,16 +13,40 @@ import os
 from collections.abc import Callable
 from typing import Any
 
+import numpy as np
+
 from ladderpack import conform
 from ladderpack.audio import Signal, check_signal, load_clip, sha256_file
+from ladderpack.budget import TargetProfile, check_budget, stream_budget
 from ladderpack.bundle import StreamAsset
 from ladderpack.clock import plan_clock
-from ladderpack.defaults import SHIFTS, STAGES, STREAM_DEFAULTS
+from ladderpack.defaults import (
+    EMBED_WORDS_MAX,
+    PIN_ORDERS,
+    PROGRAM_CHOICES,
+    SHIFTS,
+    STAGES,
+    STREAM_DEFAULTS,
+)
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
 from ladderpack.pack import WordLayout, pack
-from ladderpack.pio import ladder_program, state_machine_config
-from ladderpack.quantize import DITHERS, SHAPERS, check_bits, quantize, with_idle_ramps
+from ladderpack.pio import (
+    check_pins,
+    ladder_program,
+    max_cycles,
+    min_cycles,
+    state_machine_config,
+)
+from ladderpack.quantize import (
+    DITHERS,
+    SHAPERS,
+    Codes,
+    check_bits,
+    idle_ramp,
+    quantize,
+    with_idle_ramps,
+)
 
 __all__ = ["STAGES", "STREAM_DEFAULTS", "stream_clip", "stream_signal"]
 
@@ -37,6 +61,18 @@ def _check_nonneg(value: float, field: str, unit: str) -> float:
     if not (isinstance(value, int | float) and math.isfinite(value) and value >= 0):
         raise OptionError(f"must be a number >= 0 {unit}, got {value!r}", field=field)
     return float(value)
+
+
+def _check_int(value: object, field: str, lo: int, hi: int | None = None) -> int:
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, int)
+        or value < lo
+        or (hi is not None and value > hi)
+    ):
+        rng = f"{lo}..{hi}" if hi is not None else f">= {lo}"
+        raise OptionError(f"must be a whole number {rng}, got {value!r}", field=field)
+    return value
 
 
 def stream_signal(
@@ -57,6 +93,17 @@ def stream_signal(
     shift: str = STREAM_DEFAULTS["shift"],
     out_base: int = STREAM_DEFAULTS["out_base"],
     gpio_count: int = STREAM_DEFAULTS["gpio_count"],
+    pin_order: str = STREAM_DEFAULTS["pin_order"],
+    invert: bool = STREAM_DEFAULTS["invert"],
+    program: str = STREAM_DEFAULTS["program"],
+    samples_per_word: int | None = STREAM_DEFAULTS["samples_per_word"],
+    loop: bool = STREAM_DEFAULTS["loop"],
+    crossfade_ms: float = STREAM_DEFAULTS["crossfade_ms"],
+    flash_bytes: int = STREAM_DEFAULTS["flash_bytes"],
+    flash_reserve_bytes: int = STREAM_DEFAULTS["flash_reserve_bytes"],
+    ram_bytes: int = STREAM_DEFAULTS["ram_bytes"],
+    chunk_words: int = STREAM_DEFAULTS["chunk_words"],
+    embed_words_max: int = EMBED_WORDS_MAX,
     source: dict[str, Any] | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> StreamAsset:
@@ -80,12 +127,14 @@ def stream_signal(
     headroom_db : float
         Peak level below full scale after normalisation, in dB (default 1).
     fade_ms : float
-        Raised-cosine fade at each end of the audio, in ms (default 5).
+        Raised-cosine fade at each end of the audio, in ms (default 5; not
+        used for loops).
     ramp_ms : float
         Ramp between the idle code and mid-scale before and after the audio,
-        in ms (default 50).
+        in ms (default 50).  For loops the ramps are separate intro and
+        outro arrays played once, never at the seam.
     idle_code : int
-        Code the pins hold when nothing plays (default 0).
+        Ladder code the pins hold when nothing plays (default 0).
     dither : {'tpdf', 'rpdf', 'none'}
         Dither before quantisation (default 'tpdf').
     shaping : {'none', 'first-order'}
@@ -95,61 +144,135 @@ def stream_signal(
     shift : {'right', 'left'}
         OUT shift direction (default 'right': first sample in the LSBs).
     out_base : int
-        GPIO of the ladder's bit 0 (default 0).
+        GPIO of the ladder's first pin (default 0).
     gpio_count : int
         User GPIOs on the target (default 30).
+    pin_order : {'msb-high', 'msb-low'}
+        Ladder MSB on the highest pin (default) or on the lowest (bits are
+        reversed at pack time).
+    invert : bool
+        Invert every bit, for an inverting buffer stage (default False).
+    program : {'auto', 'autopull', 'pull', 'loop'}
+        State-machine program (default 'auto': 'loop' for loops when it fits
+        in 32 instructions, else 'autopull').
+    samples_per_word : int, optional
+        Samples per FIFO word (default as many as fit; 'pull' needs 1).
+    loop : bool
+        The stream repeats (default False): no fades or ramps inside it, the
+        resampler wraps around, and the length is rounded to whole words.
+    crossfade_ms : float
+        For loops, crossfade of the end onto the start, in ms (default 0).
+    flash_bytes, flash_reserve_bytes, ram_bytes : int
+        Target memory (defaults 2 MiB, 256 KiB reserved, 264 KiB).
+    chunk_words : int
+        Words per DMA buffer of the MicroPython player (default 1024).
+    embed_words_max : int
+        Streams up to this many words are embedded in the MicroPython module.
     source : dict, optional
         Provenance recorded in the sidecar.
     progress : callable, optional
-        Called with the name of each stage as it finishes (one of
-        :data:`STAGES`), for progress display.
+        Called with the name of each stage as it finishes (see ``STAGES``).
 
     Returns
     -------
     StreamAsset
+
+    Raises
+    ------
+    OptionError, ClockError
+        On any option out of range, or a stream that does not fit the target.
     """
     ident = asset_identifier(name)
     bits = check_bits(bits)
     _check_choice(dither, DITHERS, "dither")
     _check_choice(shaping, tuple(SHAPERS), "shaping")
     _check_choice(shift, SHIFTS, "shift")
+    _check_choice(pin_order, PIN_ORDERS, "pin_order")
+    _check_choice(program, PROGRAM_CHOICES, "program")
     headroom_db = _check_nonneg(headroom_db, "headroom_db", "dB")
     fade_ms = _check_nonneg(fade_ms, "fade_ms", "ms")
     ramp_ms = _check_nonneg(ramp_ms, "ramp_ms", "ms")
-    if (
-        isinstance(idle_code, bool)
-        or int(idle_code) != idle_code
-        or not (0 <= idle_code < (1 << bits))
-    ):
-        raise OptionError(
-            f"must be a code 0..{(1 << bits) - 1} for {bits} bits, got {idle_code!r}",
-            field="idle_code",
-        )
-    if isinstance(out_base, bool) or int(out_base) != out_base or out_base < 0:
-        raise OptionError(f"must be a GPIO number >= 0, got {out_base!r}", field="out_base")
+    crossfade_ms = _check_nonneg(crossfade_ms, "crossfade_ms", "ms")
+    _check_int(idle_code, "idle_code", 0, (1 << bits) - 1)
+    _check_int(chunk_words, "chunk_words", 1)
+    _check_int(embed_words_max, "embed_words_max", 0)
+    check_pins(out_base, bits, gpio_count)
+    target = TargetProfile(flash_bytes, flash_reserve_bytes, ram_bytes)
     check_signal(sig, source=(source or {}).get("file"))
     if sig.samples.ndim != 1:
         raise OptionError(
             "expected a mono signal; downmix or pick a channel first", field="samples"
         )
 
-    plan = plan_clock(rate_hz, sys_clock_hz=sys_clock_hz, tolerance_ppm=rate_tolerance_ppm)
-    layout = WordLayout(bits, shift_right=(shift == "right"))
-    program = ladder_program(bits, plan.cycles_per_sample, name=f"{ident}_out")
-    sm = state_machine_config(program, layout, plan, out_base=int(out_base), gpio_count=gpio_count)
+    layout = WordLayout(
+        bits,
+        shift_right=(shift == "right"),
+        per_word=samples_per_word,
+        msb_high=(pin_order == "msb-high"),
+        invert=bool(invert),
+    )
+    spw = layout.samples_per_word
+    variant = program
+    if program == "auto":
+        variant = (
+            "loop" if loop and max_cycles("loop", spw, bits) >= min_cycles("loop") else ("autopull")
+        )
+        if variant == "autopull" and spw == 1 and samples_per_word == 1:
+            variant = "pull"
+    plan = plan_clock(
+        rate_hz,
+        sys_clock_hz=sys_clock_hz,
+        tolerance_ppm=rate_tolerance_ppm,
+        min_cycles=min_cycles(variant),
+        max_cycles=max_cycles(variant, spw, bits),
+    )
+    prog = ladder_program(
+        bits, plan.cycles_per_sample, variant=variant, samples_per_word=spw, name=f"{ident}_out"
+    )
+    sm = state_machine_config(prog, layout, plan, out_base=out_base, gpio_count=gpio_count)
 
     done = progress or (lambda stage: None)
     x = conform.remove_dc(sig)
-    x = conform.resample(x, plan.achieved_rate_hz, bits=bits)
+    loop_rate_ppm = 0.0
+    if loop:
+        x = conform.loop_crossfade(x, crossfade_ms=crossfade_ms)
+        rate = conform.loop_rate(x.frames, x.rate_hz, plan.achieved_rate_hz, spw)
+        loop_rate_ppm = float((rate / plan.achieved_rate_hz - 1) * 1_000_000)
+        x = conform.resample(x, rate, bits=bits, periodic=True)
+        x = Signal(x.samples, float(plan.achieved_rate_hz))
+    else:
+        x = conform.resample(x, plan.achieved_rate_hz, bits=bits)
     done("resample")
     x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
-    x = conform.apply_fades(x, fade_ms=fade_ms)
+    if not loop:
+        x = conform.apply_fades(x, fade_ms=fade_ms)
     audio, report = quantize(x, bits=bits, dither=dither, shaping=shaping, seed=seed)
     done("quantise")
     ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
-    codes = with_idle_ramps(audio, idle_code=int(idle_code), ramp_samples=ramp_samples)
-    packed = pack(codes, layout, pad_code=int(idle_code))
+    intro = outro = None
+    if loop:
+        codes = audio
+        ramp = idle_ramp(idle_code, bits, ramp_samples)
+        mid = 1 << (bits - 1)
+        intro = pack(Codes(ramp, bits), layout, pad_code=mid if ramp.size else idle_code)
+        outro = pack(
+            Codes(np.append(ramp[::-1], np.uint16(idle_code)), bits), layout, pad_code=idle_code
+        )
+    else:
+        codes = with_idle_ramps(audio, idle_code=idle_code, ramp_samples=ramp_samples)
+    packed = pack(codes, layout, pad_code=idle_code)
     done("pack")
+
+    total_words = packed.words.size + sum(p.words.size for p in (intro, outro) if p is not None)
+    budget = stream_budget(
+        total_words,
+        samples_per_word=spw,
+        rate_hz=plan.achieved_rate_hz,
+        target=target,
+        player_chunk_words=chunk_words,
+        embedded=packed.words.size <= embed_words_max,
+    )
+    check_budget(budget)
 
     spec = conform.resampler_spec(sig.rate_hz, float(plan.achieved_rate_hz), bits)
     options = {
@@ -160,37 +283,54 @@ def stream_signal(
         "headroom_db": headroom_db,
         "fade_ms": fade_ms,
         "ramp_ms": ramp_ms,
-        "idle_code": int(idle_code),
+        "idle_code": idle_code,
         "dither": dither,
         "shaping": shaping,
         "seed": int(seed),
         "shift": shift,
-        "out_base": int(out_base),
-        "gpio_count": int(gpio_count),
+        "out_base": out_base,
+        "gpio_count": gpio_count,
+        "pin_order": pin_order,
+        "invert": bool(invert),
+        "program": program,
+        "samples_per_word": samples_per_word,
+        "loop": bool(loop),
+        "crossfade_ms": crossfade_ms,
+        "flash_bytes": flash_bytes,
+        "flash_reserve_bytes": flash_reserve_bytes,
+        "ram_bytes": ram_bytes,
+        "chunk_words": chunk_words,
+        "embed_words_max": embed_words_max,
     }
     stats = {
         "gain_db": round(gain_db, 6),
         "overloads": report.overloads,
         "audio_samples": len(audio),
         "ramp_samples": ramp_samples,
+        "loop_rate_adjust_ppm": round(loop_rate_ppm, 6),
+        "program_variant": variant,
         "resampler": {
             "passband_hz": spec.passband_hz,
             "stopband_hz": spec.stopband_hz,
             "ripple_db": spec.ripple_db,
             "attenuation_db": spec.attenuation_db,
         },
+        "budget": budget.to_dict(),
     }
     return StreamAsset(
         ident,
         codes,
         packed,
         plan,
-        program,
+        prog,
         sm,
-        int(idle_code),
+        idle_code,
         source=dict(source or {}),
         options=options,
         stats=stats,
+        intro=intro,
+        outro=outro,
+        budget=budget,
     )
 
 

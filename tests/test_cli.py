@@ -64,7 +64,7 @@ CASES = {
     "nan samples": (lambda p, c: [str(_bad_wav_nan(p))], "frame 37"),
     "bits 0": (lambda p, c: [str(c), "--bits", "0"], "bits: must be a whole number 1..16"),
     "bits 17": (lambda p, c: [str(c), "--bits", "17"], "bits: must be a whole number 1..16"),
-    "unreachable rate": (lambda p, c: [str(c), "--rate-hz", "20"], "rate_hz: 20 Hz cannot"),
+    "unreachable rate": (lambda p, c: [str(c), "--rate-hz", "1"], "rate_hz: 1 Hz cannot"),
     "bad channel": (lambda p, c: [str(c), "--channel", "3"], "channel: file has 1 channel"),
     "pins off the chip": (lambda p, c: [str(c), "--bits", "12", "--out-base", "20"], "GPIO 20..31"),
     "idle code too big": (lambda p, c: [str(c), "--bits", "4", "--idle-code", "16"], "idle_code"),
