@@ -6,6 +6,8 @@ import os
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
 from ladderpack.defaults import EMBED_WORDS_MAX
@@ -64,6 +66,11 @@ class StreamAsset:
     intro: Packed | None = None
     outro: Packed | None = None
     budget: Budget | None = None
+
+    @property
+    def idle_pins(self) -> int:
+        """Pin pattern of the idle code (pin order and inversion applied)."""
+        return int(self.packed.layout.to_pins(np.array([self.idle_code]))[0])
 
     @property
     def loop(self) -> bool:
@@ -131,7 +138,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     dict of str to bytes
         File name to content, in writing order (the sidecar is last).
     """
-    from ladderpack.emit import binary, c, micropython, pioasm, sidecar
+    from ladderpack.emit import binary, c, micropython, pioasm, player_c, sidecar
 
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
@@ -142,6 +149,8 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
         f"{n}.c": c.render_source(asset).encode(),
         f"{n}.py": micropython.render(asset, embed=asset.word_count <= embed_words_max).encode(),
         f"{n}.pio": pioasm.render(asset).encode(),
+        player_c.HEADER_NAME: player_c.render_header().encode(),
+        player_c.SOURCE_NAME: player_c.render_source().encode(),
     }
     files[f"{n}.json"] = sidecar.render(asset, files).encode()
     return files

@@ -11,6 +11,7 @@ from __future__ import annotations
 from ladderpack._version import __version__
 from ladderpack.bundle import StreamAsset
 from ladderpack.emit.names import comment_safe
+from ladderpack.pack import Packed
 
 __all__ = ["render_header", "render_source"]
 
@@ -35,7 +36,14 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("SAMPLES_PER_WORD", f"{lay.samples_per_word}u", "whole samples per word"),
         ("PULL_THRESHOLD", f"{lay.pull_threshold}u", "autopull threshold, bits"),
         ("OUT_SHIFT_RIGHT", "1" if lay.shift_right else "0", "1: first sample in the LSBs"),
-        ("IDLE_CODE", f"{asset.idle_code}u", "code the pins hold before and after"),
+        ("IDLE_CODE", f"{asset.idle_code}u", "ladder code held before and after"),
+        ("IDLE_PINS", f"0x{asset.idle_pins:X}u", "pin pattern of the idle code"),
+        ("MSB_ON_HIGH_PIN", "1" if lay.msb_high else "0", "0: ladder MSB on OUT_BASE"),
+        ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
+        ("AUTOPULL", "1" if asset.program.autopull else "0", "program relies on autopull"),
+        ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
+        ("INTRO_WORD_COUNT", f"{_count(asset.intro)}u", "loops: ramp up from idle"),
+        ("OUTRO_WORD_COUNT", f"{_count(asset.outro)}u", "loops: ramp down to idle"),
         ("REQUESTED_RATE_HZ", f"{float(p.requested_rate_hz)!r}", "sample rate asked for"),
         ("RATE_HZ", f"{float(rate)!r}", "achieved sample rate"),
         ("RATE_NUM", f"{rate.numerator}ull", "achieved rate = RATE_NUM / RATE_DEN Hz"),
@@ -56,11 +64,60 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
     ]
 
 
+def _count(p: Packed | None) -> int:
+    return 0 if p is None else int(p.words.size)
+
+
+def _init_macro(asset: StreamAsset) -> list[str]:
+    n, P = asset.name, asset.name.upper()
+    intro = f"{n}_intro_words" if _count(asset.intro) else "NULL"
+    outro = f"{n}_outro_words" if _count(asset.outro) else "NULL"
+    fields = [
+        f"{n}_words",
+        f"{P}_WORD_COUNT",
+        intro,
+        f"{P}_INTRO_WORD_COUNT",
+        outro,
+        f"{P}_OUTRO_WORD_COUNT",
+        f"{n}_program",
+        f"{P}_PROGRAM_LENGTH",
+        f"{P}_PROGRAM_WRAP_TARGET",
+        f"{P}_PROGRAM_WRAP",
+        f"{P}_OUT_BASE",
+        f"{P}_OUT_COUNT",
+        f"({P}_CLKDIV_INT & 0xFFFFu)",
+        f"{P}_CLKDIV_FRAC",
+        f"{P}_OUT_SHIFT_RIGHT",
+        f"{P}_AUTOPULL",
+        f"{P}_PULL_THRESHOLD",
+        f"{P}_IDLE_PINS",
+        f"{P}_SYS_CLOCK_HZ",
+        f"{P}_LOOP",
+    ]
+    lines = [
+        "/* Initialiser for lp_stream_t (ladderpack_player.h):",
+        f" *   static const lp_stream_t s = {P}_STREAM_INIT; */",
+        f"#define {P}_STREAM_INIT {{ \\",
+    ]
+    for i, f in enumerate(fields):
+        lines.append(f"    {f}{',' if i < len(fields) - 1 else ''} \\")
+    lines.append("}")
+    return lines
+
+
 def render_header(asset: StreamAsset) -> str:
     """Return the C header text for a stream asset."""
     prefix = asset.name.upper()
     guard = f"LADDERPACK_{prefix}_H"
-    lines = [_banner(asset), f"#ifndef {guard}", f"#define {guard}", "", "#include <stdint.h>", ""]
+    lines = [
+        _banner(asset),
+        f"#ifndef {guard}",
+        f"#define {guard}",
+        "",
+        "#include <stddef.h>",
+        "#include <stdint.h>",
+        "",
+    ]
     width = max(len(k) for k, _, _ in _defines(asset)) + len(prefix) + 1
     for key, value, note in _defines(asset):
         macro = f"{prefix}_{key}".ljust(width)
@@ -70,6 +127,16 @@ def render_header(asset: StreamAsset) -> str:
         "",
         f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
         f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
+    ]
+    for part in ("intro", "outro"):
+        if _count(getattr(asset, part)):
+            lines.append(
+                f"extern const uint32_t {asset.name}_{part}_words"
+                f"[{prefix}_{part.upper()}_WORD_COUNT];"
+            )
+    lines += [
+        "",
+        *_init_macro(asset),
         "",
         f"#endif /* {guard} */",
         "",
@@ -96,8 +163,17 @@ def render_source(asset: StreamAsset) -> str:
     lines.append(f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{")
     lines += _array([int(w) for w in asset.packed.words], 8)
     lines.append("};")
+    for part in ("intro", "outro"):
+        packed = getattr(asset, part)
+        if _count(packed):
+            lines.append("")
+            lines.append(
+                f"const uint32_t {asset.name}_{part}_words[{prefix}_{part.upper()}_WORD_COUNT] = {{"
+            )
+            lines += _array([int(w) for w in packed.words], 8)
+            lines.append("};")
     lines.append("")
-    lines.append("/* State-machine program:")
+    lines.append(f"/* State-machine program ({asset.program.variant}):")
     for ins in asset.program.instructions:
         lines.append(f" *   {ins.text()}")
     lines.append(" */")
