@@ -2,8 +2,8 @@
 
 * An 8-bit ladder on GPIO 16..23 plays ``door_chime.flac`` (an alert) and
   ``frost_warning.flac`` (a spoken warning) at 22.05 kHz.
-* The bench variant, a 12-bit ladder on GPIO 0..11, plays a 997 Hz test sine
-  at 48 kHz with TPDF dither.
+* The bench variant, a 12-bit ladder on GPIO 0..11, loops a 1 kHz test sine
+  at 48 kHz with TPDF dither (100 whole cycles, so the loop is seamless).
 """
 
 from __future__ import annotations
@@ -21,8 +21,8 @@ from ladderpack.pipeline import stream_clip, stream_signal
 __all__ = ["run_demo"]
 
 
-def bench_sine(rate_hz: float = 48000.0, freq_hz: float = 997.0, seconds: float = 0.5) -> Signal:
-    """A plain sine for the bench ladder (normalised later by the pipeline)."""
+def bench_sine(rate_hz: float = 48000.0, freq_hz: float = 1000.0, seconds: float = 0.1) -> Signal:
+    """One loop of a sine for the bench ladder (normalised later by the pipeline)."""
     t = np.arange(int(rate_hz * seconds)) / rate_hz
     return Signal(np.sin(2 * np.pi * freq_hz * t), rate_hz)
 
@@ -42,11 +42,12 @@ def run_demo(
         results.append((asset.summary(), write_bundle(asset, out_dir)))
     bench = stream_signal(
         bench_sine(),
-        name="bench_sine_997hz",
+        name="bench_sine_1khz_loop",
         bits=12,
         rate_hz=48000,
         out_base=0,
-        source={"file": "synthesised 997 Hz sine"},
+        loop=True,
+        source={"file": "synthesised 1 kHz sine, 100 cycles"},
     )
     results.append((bench.summary(), write_bundle(bench, out_dir)))
     return results

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -123,13 +124,15 @@ def test_stream_json_summary(tmp_path: Path, clip: Path) -> None:
     assert summary["bits"] == 10 and summary["requested_rate_hz"] == 22050.0
     assert summary["words"] == -(-summary["samples"] // 3)
     assert summary["bytes"] == 4 * summary["words"]
-    assert sorted(Path(f).suffix for f in summary["files"]) == [
-        ".bin",
-        ".c",
-        ".h",
-        ".json",
-        ".pio",
-        ".py",
+    assert sorted(Path(f).name for f in summary["files"]) == [
+        "beep.bin",
+        "beep.c",
+        "beep.h",
+        "beep.json",
+        "beep.pio",
+        "beep.py",
+        "ladderpack_player.c",
+        "ladderpack_player.h",
     ]
 
 
@@ -170,39 +173,32 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
     res = run("demo", str(tmp_path / "demo"))
     assert res.returncode == 0, res.stderr
     files = sorted(os.listdir(tmp_path / "demo"))
-    for stem in ("door_chime", "frost_warning", "bench_sine_997hz"):
+    for stem in ("door_chime", "frost_warning", "bench_sine_1khz_loop"):
         for ext in (".bin", ".c", ".h", ".json", ".pio", ".py"):
             assert stem + ext in files
     chime = json.loads((tmp_path / "demo" / "door_chime.json").read_text())
     assert chime["state_machine"]["out_base"] == 16 and chime["stream"]["bits"] == 8
-    bench = json.loads((tmp_path / "demo" / "bench_sine_997hz.json").read_text())
+    bench = json.loads((tmp_path / "demo" / "bench_sine_1khz_loop.json").read_text())
     assert bench["state_machine"]["out_base"] == 0 and bench["stream"]["bits"] == 12
+    assert bench["options"]["loop"] and bench["stats"]["program_variant"] == "loop"
 
 
-def test_help_documents_every_option() -> None:
-    res = run("stream", "--help")
-    for opt in (
-        "--bits",
-        "--rate-hz",
-        "--sys-clock-hz",
-        "--rate-tolerance-ppm",
-        "--headroom-db",
-        "--fade-ms",
-        "--ramp-ms",
-        "--idle-code",
-        "--dither",
-        "--shaping",
-        "--seed",
-        "--shift",
-        "--out-base",
-        "--gpio-count",
-        "--embed-words-max",
-        "--json",
-        "--out-dir",
-        "--name",
-        "--channel",
-    ):
-        assert opt in res.stdout
+@pytest.mark.parametrize("command", ["stream", "clock", "demo"])
+def test_every_option_documented_in_help_and_readme(command: str) -> None:
+    from ladderpack.cli import cli
+
+    readme = (REPO / "README.md").read_text()
+    help_text = run(command, "--help").stdout
+    cmd = cli.commands[command]
+    for param in cmd.params:
+        if param.name == "help" or not getattr(param, "opts", None):
+            continue
+        for opt in [o for o in param.opts if o.startswith("--")]:
+            assert opt in help_text, opt
+            in_code = re.search(r"`[^`]*" + re.escape(opt) + r"(?![\w-])[^`]*`", readme)
+            assert in_code, f"{command} {opt} missing from README"
+        if getattr(param, "help", None) is not None and param.param_type_name == "option":
+            assert param.help, param.name
 
 
 def test_cli_defaults_match_library() -> None:
