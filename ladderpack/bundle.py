@@ -11,7 +11,7 @@ import numpy as np
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
 from ladderpack.defaults import EMBED_WORDS_MAX
-from ladderpack.pack import Packed
+from ladderpack.pack import Packed, pack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
@@ -71,6 +71,16 @@ class StreamAsset:
     def idle_pins(self) -> int:
         """Pin pattern of the idle code (pin order and inversion applied)."""
         return int(self.packed.layout.to_pins(np.array([self.idle_code]))[0])
+
+    @property
+    def idle_word(self) -> int:
+        """A FIFO word whose every sample slot holds the idle code."""
+        spw = self.packed.layout.samples_per_word
+        return int(
+            pack(
+                Codes(np.full(spw, self.idle_code, np.uint16), self.codes.bits), self.packed.layout
+            ).words[0]
+        )
 
     @property
     def loop(self) -> bool:

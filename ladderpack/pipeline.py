@@ -255,9 +255,10 @@ def stream_signal(
         ramp = idle_ramp(idle_code, bits, ramp_samples)
         mid = 1 << (bits - 1)
         intro = pack(Codes(ramp, bits), layout, pad_code=mid if ramp.size else idle_code)
-        outro = pack(
-            Codes(np.append(ramp[::-1], np.uint16(idle_code)), bits), layout, pad_code=idle_code
-        )
+        # The outro ends with a whole word of idle codes: the loop program repeats the
+        # last word once the FIFO is empty, so that word must be silent.
+        tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, np.uint16)
+        outro = pack(Codes(np.concatenate([ramp[::-1], tail]), bits), layout, pad_code=idle_code)
     else:
         codes = with_idle_ramps(audio, idle_code=idle_code, ramp_samples=ramp_samples)
     packed = pack(codes, layout, pad_code=idle_code)

@@ -181,6 +181,14 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
     bench = json.loads((tmp_path / "demo" / "bench_sine_1khz_loop.json").read_text())
     assert bench["state_machine"]["out_base"] == 0 and bench["stream"]["bits"] == 12
     assert bench["options"]["loop"] and bench["stats"]["program_variant"] == "loop"
+    import adafruit_pioasm
+
+    for stem in ("door_chime", "frost_warning", "bench_sine_1khz_loop"):
+        # Every emitted program assembles identically in the independent assembler
+        # (adafruit-circuitpython-pioasm, PyPI).
+        side = json.loads((tmp_path / "demo" / f"{stem}.json").read_text())
+        text = (tmp_path / "demo" / f"{stem}.pio").read_text()
+        assert list(adafruit_pioasm.Program(text).assembled) == side["program"]["words"]
 
 
 @pytest.mark.parametrize("command", ["stream", "clock", "demo"])

@@ -184,11 +184,12 @@ def test_stream_init_macro_matches_struct_order(tmp_path: Path) -> None:
 #include "{asset.name}.h"
 static const lp_stream_t s = {P}_STREAM_INIT;
 int main(void) {{
-    printf("%lu %lu %lu %u %u %u %u %u %u %u %u %u %lu %lu %u %d\\n",
+    printf("%lu %lu %lu %u %u %u %u %u %u %u %u %u %lu %lu %lu %u %d\\n",
            (unsigned long)s.word_count, (unsigned long)s.intro_count,
            (unsigned long)s.outro_count, s.program_length, s.wrap_target, s.wrap,
            s.out_base, s.out_count, s.clkdiv_int, s.clkdiv_frac, s.shift_right,
-           s.pull_threshold, (unsigned long)s.idle_pins, (unsigned long)s.sys_clock_hz,
+           s.pull_threshold, (unsigned long)s.idle_pins, (unsigned long)s.idle_word,
+           (unsigned long)s.sys_clock_hz,
            s.autopull, (int)s.loop);
     return s.words[0] == {asset.name}_words[0] ? 0 : 1;
 }}
@@ -224,6 +225,7 @@ int main(void) {{
         int(lay.shift_right),
         lay.pull_threshold,
         asset.idle_pins,
+        asset.idle_word,
         asset.plan.sys_clock_hz,
         int(asset.program.autopull),
         1,

@@ -37,6 +37,9 @@ def test_no_ramp_or_fade_inside_a_loop() -> None:
     intro = unpack(asset.intro.words, asset.packed.layout).codes
     outro = unpack(asset.outro.words, asset.packed.layout).codes
     assert intro[0] == 0 and outro[-1] == 0  # from and back to the idle code
+    spw = asset.packed.layout.samples_per_word
+    # The loop program replays the last word once the FIFO is empty: it must be all idle.
+    assert outro.size % spw == 0 and set(outro[-spw:].tolist()) == {0}
     assert np.all(np.diff(intro[: asset.stats["ramp_samples"]].astype(int)) >= 0)
 
 

@@ -38,6 +38,7 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("OUT_SHIFT_RIGHT", "1" if lay.shift_right else "0", "1: first sample in the LSBs"),
         ("IDLE_CODE", f"{asset.idle_code}u", "ladder code held before and after"),
         ("IDLE_PINS", f"0x{asset.idle_pins:X}u", "pin pattern of the idle code"),
+        ("IDLE_WORD", f"0x{asset.idle_word:08X}u", "FIFO word of idle codes"),
         ("MSB_ON_HIGH_PIN", "1" if lay.msb_high else "0", "0: ladder MSB on OUT_BASE"),
         ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
         ("AUTOPULL", "1" if asset.program.autopull else "0", "program relies on autopull"),
@@ -91,6 +92,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_AUTOPULL",
         f"{P}_PULL_THRESHOLD",
         f"{P}_IDLE_PINS",
+        f"{P}_IDLE_WORD",
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_LOOP",
     ]

@@ -47,6 +47,7 @@ SAMPLES_PER_WORD = {spw}
 PULL_THRESHOLD = {thresh}
 IDLE_CODE = {idle}
 IDLE_PINS = {idle_pins}
+IDLE_WORD = 0x{idle_word:08X}
 RATE_HZ = {rate!r}
 SYS_CLOCK_HZ = {sys_clock}
 CLKDIV_INT = {div_int}
@@ -115,6 +116,7 @@ class Player:
     def play(self, loop: bool = LOOP) -> None:
         \"\"\"Play once, or repeat (loop=True) until stop() is called.\"\"\"
         self.running = True
+        self.sm.put(IDLE_WORD)  # start on the idle level whatever the program
         self.sm.active(1)
         try:
             if INTRO is not None:
@@ -219,6 +221,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         thresh=lay.pull_threshold,
         idle=asset.idle_code,
         idle_pins=asset.idle_pins,
+        idle_word=asset.idle_word,
         rate=float(p.achieved_rate_hz),
         sys_clock=p.sys_clock_hz,
         div_int=p.div_int,

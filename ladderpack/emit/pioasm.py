@@ -17,8 +17,11 @@ def render(asset: StreamAsset) -> str:
         f"{comment_safe(asset.source.get('file', 'generated signal'))}. Do not edit.",
         f"; {lay.bits}-bit ladder on GPIO {sm.out_base}..{sm.out_base + lay.bits - 1}"
         f" (bit 0 on GPIO {sm.out_base})",
-        f"; out shift {'right' if lay.shift_right else 'left'}, autopull at "
-        f"{lay.pull_threshold} bits, TX FIFO joined (8 deep)",
+        f"; {asset.program.variant} program; out shift {'right' if lay.shift_right else 'left'}, "
+        + (f"autopull at {lay.pull_threshold} bits" if asset.program.autopull else "autopull off")
+        + ", TX FIFO joined (8 deep)",
+        f"; {lay.samples_per_word} sample(s) per word, pin order "
+        f"{'msb-high' if lay.msb_high else 'msb-low'}{', inverted' if lay.invert else ''}",
         f"; clock divider {p.div_int} + {p.div_frac}/256 at {p.sys_clock_hz} Hz, "
         f"{p.cycles_per_sample} cycle(s) per sample -> {float(p.achieved_rate_hz):.6f} Hz",
     ]

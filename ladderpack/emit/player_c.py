@@ -57,6 +57,7 @@ typedef struct lp_stream {{
     bool autopull;
     uint8_t pull_threshold;      /* bits, 1..32 */
     uint32_t idle_pins;          /* pin pattern held before and after the stream */
+    uint32_t idle_word;          /* FIFO word of idle codes, sent first */
     uint32_t sys_clock_hz;       /* system clock the divider was planned for */
     bool loop;                   /* the stream is a loop */
 }} lp_stream_t;
@@ -169,6 +170,9 @@ void lp_player_start(lp_player_t *p, bool loop) {{
     channel_config_set_write_increment(&dc, false);
     channel_config_set_dreq(&dc, pio_get_dreq(p->pio, p->sm, true));
 
+    /* An idle word first: the state machine never starts on anything but the idle level
+     * (the loop program would otherwise replay its X register). */
+    pio_sm_put(p->pio, p->sm, s->idle_word);
     pio_sm_set_enabled(p->pio, p->sm, true);
     if (s->loop && s->intro != NULL) {{
         lp_put_all(p->pio, p->sm, s->intro, s->intro_count);

@@ -47,6 +47,7 @@ void pio_sm_set_pins_with_mask(PIO pio, uint sm, uint32_t pin_values, uint32_t p
 int pio_sm_set_consecutive_pindirs(PIO pio, uint sm, uint pin_base, uint pin_count, bool is_out);
 int pio_sm_init(PIO pio, uint sm, uint initial_pc, const pio_sm_config *config);
 void pio_sm_set_enabled(PIO pio, uint sm, bool enabled);
+void pio_sm_put(PIO pio, uint sm, uint32_t data);
 void pio_sm_put_blocking(PIO pio, uint sm, uint32_t data);
 bool pio_sm_is_tx_fifo_empty(PIO pio, uint sm);
 uint pio_get_dreq(PIO pio, uint sm, bool is_tx);
