@@ -15,72 +15,149 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["compiled", "errfb_quantize_ref", "sinc_resample_ref"]
+__all__ = [
+    "DITHER_DRAWS",
+    "compiled",
+    "seed_state",
+    "shape_quantize_ref",
+    "sinc_resample_ref",
+]
 
 
-def errfb_quantize_ref(
+#: Dither draws per sample for each kind: none 0, RPDF 1, TPDF 2.
+DITHER_DRAWS = {"none": 0, "rpdf": 1, "tpdf": 2}
+
+_M32 = 0xFFFFFFFF
+_INV24 = 1.0 / (1 << 24)
+
+
+def seed_state(seed: int) -> np.ndarray:
+    """Four 32-bit lanes of xorshift128 state from an integer seed (splitmix64 mixing).
+
+    The state is never all zero, so the generator's period is 2**128 - 1.
+    """
+    mask64 = (1 << 64) - 1
+    z = (int(seed) * 0x9E3779B97F4A7C15 + 0x632BE59BD9B4E019) & mask64
+    lanes = []
+    for _ in range(2):
+        z = (z + 0x9E3779B97F4A7C15) & mask64
+        x = z
+        x = ((x ^ (x >> 30)) * 0xBF58476D1CE4E5B9) & mask64
+        x = ((x ^ (x >> 27)) * 0x94D049BB133111EB) & mask64
+        x ^= x >> 31
+        lanes += [x & _M32, x >> 32]
+    if not any(lanes):
+        lanes[0] = 1
+    return np.array(lanes, dtype=np.int64)
+
+
+def shape_quantize_ref(
     v: np.ndarray,
-    dither: np.ndarray,
-    h: np.ndarray,
+    b: np.ndarray,
+    a: np.ndarray,
+    draws: int,
+    rng: np.ndarray,
     lo: int,
     hi: int,
-    clamp: float,
+    e_hist: np.ndarray,
+    f_hist: np.ndarray,
     out: np.ndarray,
-) -> int:
-    """Error-feedback quantiser, plain-Python reference.
+) -> tuple[int, int]:
+    """Error-feedback quantiser with in-loop dither, plain-Python reference.
 
-    Implements ``u[n] = v[n] - sum_k h[k] e[n-1-k]``,
-    ``y[n] = clip(floor(u[n] + d[n] + 0.5), lo, hi)``, ``e[n] = y[n] - u[n]``,
-    so the noise transfer function is ``1 - sum_k h[k] z^-(k+1)`` (Lipshitz,
-    Vanderkooy & Wannamaker 1991 sign convention).  The error fed back is
-    clamped to +/-`clamp` LSB so a clipped sample cannot start a runaway.
+    The noise transfer function is ``NTF(z) = B(z) / A(z)`` with
+    ``B = 1 + sum b[k] z^-(k+1)`` and ``A = 1 + sum a[k] z^-(k+1)`` (FIR when
+    `a` is all zero).  Each sample:
+
+    * feedback ``f[n] = sum (a[k] - b[k]) e[n-1-k] - sum a[k] f[n-1-k]``, i.e.
+      ``F = (1 - NTF) E``;
+    * ``u = v[n] - f[n]``; ``y = clip(floor(u + d + 0.5), lo, hi)``;
+    * total error ``e[n] = y - u``, so ``Y = V + NTF E`` (Lipshitz, Vanderkooy &
+      Wannamaker 1991 convention: NTF = 1 - H).
+
+    Dither ``d`` comes from an xorshift128 generator (Marsaglia, "Xorshift
+    RNGs", J. Stat. Software 8(14), 2003) held in `rng`: RPDF is one 24-bit
+    uniform draw minus 1/2, TPDF the difference of two draws.  A sample that
+    clips counts as an overload and resets the filter state, so clipping can
+    never start a limit cycle or a runaway.
 
     Parameters
     ----------
     v : numpy.ndarray
-        float64 input in LSB units (code scale).
-    dither : numpy.ndarray
-        float64 dither in LSB, same length as `v`.
-    h : numpy.ndarray
-        float64 error-filter taps ``h[0] = h_1 ...`` (may be empty).
+        float64 input in LSB (code scale).
+    b, a : numpy.ndarray
+        float64 NTF numerator and denominator coefficients after the leading 1,
+        same length K (0..16).
+    draws : int
+        Dither draws per sample: 0 none, 1 RPDF, 2 TPDF.
+    rng : numpy.ndarray
+        int64[4] generator state (32-bit lanes), updated in place.
     lo, hi : int
-        Lowest and highest code.
-    clamp : float
-        Largest magnitude of fed-back error, in LSB.
+        Code range.
+    e_hist, f_hist : numpy.ndarray
+        float64[K] past errors and feedback values (newest first), updated in
+        place so a long stream can be processed in blocks.
     out : numpy.ndarray
-        int64 output array, same length as `v`; receives the codes.
+        int64 output codes, same length as `v`.
 
     Returns
     -------
-    int
-        Number of samples that clipped (overloads).
+    (int, int)
+        Overloads (clipped samples) and state resets.
     """
-    order = h.shape[0]
-    hist = np.zeros(max(order, 1))
+    order = b.shape[0]
+    s0 = rng[0]
+    s1 = rng[1]
+    s2 = rng[2]
+    s3 = rng[3]
     overloads = 0
+    resets = 0
     for n in range(v.shape[0]):
+        d = 0.0
+        for k in range(draws):
+            t = s0 ^ ((s0 << 11) & 0xFFFFFFFF)
+            s0 = s1
+            s1 = s2
+            s2 = s3
+            s3 = s3 ^ (s3 >> 19) ^ t ^ (t >> 8)
+            r = (s3 >> 8) * _INV24
+            if k == 0:
+                d += r
+            else:
+                d -= r
+        if draws == 1:
+            d -= 0.5
         fb = 0.0
         for k in range(order):
-            fb += h[k] * hist[k]
+            fb += (a[k] - b[k]) * e_hist[k] - a[k] * f_hist[k]
         u = v[n] - fb
-        q = math.floor(u + dither[n] + 0.5)
+        q = math.floor(u + d + 0.5)
+        clipped = False
         if q < lo:
             q = lo
-            overloads += 1
+            clipped = True
         elif q > hi:
             q = hi
+            clipped = True
+        if clipped:
             overloads += 1
-        e = q - u
-        if e > clamp:
-            e = clamp
-        elif e < -clamp:
-            e = -clamp
-        for k in range(order - 1, 0, -1):
-            hist[k] = hist[k - 1]
-        if order > 0:
-            hist[0] = e
+            if order > 0:
+                resets += 1
+                for k in range(order):
+                    e_hist[k] = 0.0
+                    f_hist[k] = 0.0
+        elif order > 0:
+            for k in range(order - 1, 0, -1):
+                e_hist[k] = e_hist[k - 1]
+                f_hist[k] = f_hist[k - 1]
+            e_hist[0] = q - u
+            f_hist[0] = fb
         out[n] = q
-    return overloads
+    rng[0] = s0
+    rng[1] = s1
+    rng[2] = s2
+    rng[3] = s3
+    return overloads, resets
 
 
 def sinc_resample_ref(

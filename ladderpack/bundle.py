@@ -123,6 +123,8 @@ class StreamAsset:
             "words": self.word_count,
             "bytes": self.byte_count,
             "overloads": int(self.stats.get("overloads", 0)),
+            "shaping": self.stats.get("shaper", {}).get("name", "none"),
+            "predicted_noise_db": self.stats.get("predicted_noise_db"),
             "program": self.program.variant,
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,

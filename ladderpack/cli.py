@@ -15,11 +15,13 @@ from ladderpack._version import __version__
 from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
+    NTF_FORMS,
     PIN_ORDERS,
     PROGRAM_CHOICES,
     SHAPER_NAMES,
     SHIFTS,
     STREAM_DEFAULTS,
+    WEIGHTING_NAMES,
 )
 from ladderpack.errors import LadderpackError
 
@@ -49,6 +51,13 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
     )
     if "overloads" in summary:
         click.echo(f"  clipped  {summary['overloads']} sample(s)")
+    pred = summary.get("predicted_noise_db")
+    if pred:
+        click.echo(
+            f"  shaping  {summary.get('shaping', 'none')}: noise vs plain quantising "
+            f"{pred['weighted_db']:+.1f} dB weighted, {pred['in_band_db']:+.1f} dB in band, "
+            f"{pred['total_db']:+.1f} dB total"
+        )
     if summary.get("flash_share") is not None:
         click.echo(
             f"  flash    {100 * summary['flash_share']:.2f} % of the target; at most "
@@ -112,8 +121,44 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
         _opt(
             "--shaping",
             "shaping",
-            "Error-feedback noise shaping.",
+            "Error-feedback noise shaping: a fixed or published filter, or designed for the "
+            "stream's rate.",
             type=click.Choice(SHAPER_NAMES),
+        ),
+        _opt(
+            "--band-hz",
+            "band_hz",
+            "Audio band for shaping and noise figures, Hz  [default: 20000 or the stream's "
+            "Nyquist, whichever is lower]",
+            type=float,
+            show_default=False,
+        ),
+        _opt(
+            "--weighting",
+            "weighting",
+            "Noise weighting for the designer and the report.",
+            type=click.Choice(WEIGHTING_NAMES),
+        ),
+        _opt("--ntf-order", "ntf_order", "Order of a designed shaping filter, 1..16.", type=int),
+        _opt(
+            "--ntf-max-db",
+            "ntf_max_db",
+            "Peak gain bound of a designed filter, dB  [default: 3.5 up to 3 bits, 10 up to 7, "
+            "20 from 8]",
+            type=float,
+            show_default=False,
+        ),
+        _opt(
+            "--ntf-form",
+            "ntf_form",
+            "Designed filter form (auto: the better one).",
+            type=click.Choice(NTF_FORMS),
+        ),
+        click.option(
+            "--force/--no-force",
+            default=D["force"],
+            show_default=True,
+            help="Use a published filter even far from its 44.1 kHz design rate.",
         ),
         _opt("--seed", "seed", "Dither seed; the same seed gives identical output.", type=int),
         _opt(

@@ -11,12 +11,16 @@ __all__ = [
     "DEFAULT_SYS_CLOCK_HZ",
     "DITHERS",
     "EMBED_WORDS_MAX",
+    "NTF_FORMS",
     "PIN_ORDERS",
     "PROGRAM_CHOICES",
     "SHAPER_NAMES",
     "SHIFTS",
     "STAGES",
     "STREAM_DEFAULTS",
+    "WEIGHTING_NAMES",
+    "default_band_hz",
+    "default_ntf_max_db",
 ]
 
 #: RP2040 default system clock (RP2040 datasheet; MicroPython rp2 docs:
@@ -26,8 +30,24 @@ DEFAULT_SYS_CLOCK_HZ = 125_000_000
 #: Dither kinds: triangular 2 LSB p-p, rectangular 1 LSB p-p, none.
 DITHERS = ("tpdf", "rpdf", "none")
 
-#: Error-feedback shaping filters available.
-SHAPER_NAMES = ("none", "first-order")
+#: Error-feedback shaping choices: the catalogue in ladderpack.shaping, plus "designed".
+SHAPER_NAMES = (
+    "none",
+    "first-order",
+    "second-order",
+    "modified-e-9",
+    "improved-e-5",
+    "improved-e-9",
+    "f-weighted-3",
+    "f-weighted-9",
+    "designed",
+)
+
+#: Noise weightings for the shaping designer.
+WEIGHTING_NAMES = ("threshold", "a-weighting", "flat")
+
+#: Forms of designed filter.
+NTF_FORMS = ("auto", "fir", "iir")
 
 #: Which GPIO carries the ladder's most significant bit.
 PIN_ORDERS = ("msb-high", "msb-low")
@@ -70,4 +90,28 @@ STREAM_DEFAULTS: dict[str, Any] = {
     "flash_reserve_bytes": 256 * 1024,
     "ram_bytes": 264 * 1024,
     "chunk_words": 1024,
+    "band_hz": None,
+    "weighting": "threshold",
+    "ntf_order": 8,
+    "ntf_max_db": None,
+    "ntf_form": "auto",
+    "force": False,
 }
+
+
+def default_band_hz(rate_hz: float) -> float:
+    """Audio band assumed when none is given: 20 kHz or the rate's Nyquist, if lower."""
+    return min(20000.0, rate_hz / 2)
+
+
+def default_ntf_max_db(bits: int) -> float:
+    """Default bound on a designed NTF's peak gain, dB.
+
+    Few-level quantisers follow Lee's rule, max |NTF| <= 1.5 (3.52 dB; Schreier &
+    Temes 2005, the default of Schreier's synthesizeNTF).  Multi-bit ladders have
+    room for more: 10 dB up to 7 bits and 20 dB from 8 bits (common practice: the
+    feedback swing must stay inside the headroom).
+    """
+    if bits <= 3:
+        return 20 * 0.17609125905568124  # 20 log10(1.5)
+    return 10.0 if bits < 8 else 20.0

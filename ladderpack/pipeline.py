@@ -22,11 +22,16 @@ from ladderpack.bundle import StreamAsset
 from ladderpack.clock import plan_clock
 from ladderpack.defaults import (
     EMBED_WORDS_MAX,
+    NTF_FORMS,
     PIN_ORDERS,
     PROGRAM_CHOICES,
+    SHAPER_NAMES,
     SHIFTS,
     STAGES,
     STREAM_DEFAULTS,
+    WEIGHTING_NAMES,
+    default_band_hz,
+    default_ntf_max_db,
 )
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
@@ -40,13 +45,13 @@ from ladderpack.pio import (
 )
 from ladderpack.quantize import (
     DITHERS,
-    SHAPERS,
     Codes,
     check_bits,
     idle_ramp,
     quantize,
     with_idle_ramps,
 )
+from ladderpack.shaping import design_shaper, get_shaper, predict_noise
 
 __all__ = ["STAGES", "STREAM_DEFAULTS", "stream_clip", "stream_signal"]
 
@@ -104,6 +109,12 @@ def stream_signal(
     ram_bytes: int = STREAM_DEFAULTS["ram_bytes"],
     chunk_words: int = STREAM_DEFAULTS["chunk_words"],
     embed_words_max: int = EMBED_WORDS_MAX,
+    band_hz: float | None = STREAM_DEFAULTS["band_hz"],
+    weighting: str = STREAM_DEFAULTS["weighting"],
+    ntf_order: int = STREAM_DEFAULTS["ntf_order"],
+    ntf_max_db: float | None = STREAM_DEFAULTS["ntf_max_db"],
+    ntf_form: str = STREAM_DEFAULTS["ntf_form"],
+    force: bool = STREAM_DEFAULTS["force"],
     source: dict[str, Any] | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> StreamAsset:
@@ -137,8 +148,12 @@ def stream_signal(
         Ladder code the pins hold when nothing plays (default 0).
     dither : {'tpdf', 'rpdf', 'none'}
         Dither before quantisation (default 'tpdf').
-    shaping : {'none', 'first-order'}
-        Error-feedback noise shaping (default 'none').
+    shaping : str
+        Error-feedback noise shaping (default 'none'): a filter of the
+        catalogue in :mod:`ladderpack.shaping` ('first-order',
+        'second-order', the published 44.1 kHz sets 'modified-e-9',
+        'improved-e-5', 'improved-e-9', 'f-weighted-3', 'f-weighted-9'), or
+        'designed' for a filter designed for this rate, band and weighting.
     seed : int
         Dither seed (default 0); same seed, same output.
     shift : {'right', 'left'}
@@ -168,6 +183,23 @@ def stream_signal(
         Words per DMA buffer of the MicroPython player (default 1024).
     embed_words_max : int
         Streams up to this many words are embedded in the MicroPython module.
+    band_hz : float, optional
+        Audio band in Hz for the shaping designer and the noise report
+        (default 20 kHz or the stream's Nyquist, whichever is lower).  When the
+        stream rate is well above twice the band the designed filter pushes
+        the noise above it.
+    weighting : {'threshold', 'a-weighting', 'flat'}
+        Noise weighting for the designer and the weighted noise figure
+        (default 'threshold').
+    ntf_order : int
+        Order of a designed filter, 1..16 (default 8).
+    ntf_max_db : float, optional
+        Bound on a designed filter's peak gain in dB (default by bit depth:
+        3.5 dB up to 3 bits, 10 dB up to 7, 20 dB from 8).
+    ntf_form : {'auto', 'fir', 'iir'}
+        Form of a designed filter (default 'auto': the better of the two).
+    force : bool
+        Use a published filter even far from its design rate.
     source : dict, optional
         Provenance recorded in the sidecar.
     progress : callable, optional
@@ -185,7 +217,9 @@ def stream_signal(
     ident = asset_identifier(name)
     bits = check_bits(bits)
     _check_choice(dither, DITHERS, "dither")
-    _check_choice(shaping, tuple(SHAPERS), "shaping")
+    _check_choice(shaping, SHAPER_NAMES, "shaping")
+    _check_choice(weighting, WEIGHTING_NAMES, "weighting")
+    _check_choice(ntf_form, NTF_FORMS, "ntf_form")
     _check_choice(shift, SHIFTS, "shift")
     _check_choice(pin_order, PIN_ORDERS, "pin_order")
     _check_choice(program, PROGRAM_CHOICES, "program")
@@ -231,6 +265,26 @@ def stream_signal(
     )
     sm = state_machine_config(prog, layout, plan, out_base=out_base, gpio_count=gpio_count)
 
+    rate = float(plan.achieved_rate_hz)
+    band = default_band_hz(rate) if band_hz is None else band_hz
+    if not (isinstance(band, int | float) and math.isfinite(band) and 0 < band <= rate / 2):
+        raise OptionError(
+            f"must be > 0 Hz and at most the stream's Nyquist {rate / 2:.6g} Hz, got {band_hz!r}",
+            field="band_hz",
+        )
+    if shaping == "designed":
+        shaper = design_shaper(
+            rate,
+            band_hz=band,
+            weighting_kind=weighting,
+            order=ntf_order,
+            max_gain_db=(default_ntf_max_db(bits) if ntf_max_db is None else ntf_max_db),
+            form=ntf_form,
+        )
+    else:
+        shaper = get_shaper(shaping, rate, force=bool(force))
+    predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=weighting)
+
     done = progress or (lambda stage: None)
     x = conform.remove_dc(sig)
     loop_rate_ppm = 0.0
@@ -246,7 +300,7 @@ def stream_signal(
     x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
     if not loop:
         x = conform.apply_fades(x, fade_ms=fade_ms)
-    audio, report = quantize(x, bits=bits, dither=dither, shaping=shaping, seed=seed)
+    audio, report = quantize(x, bits=bits, dither=dither, shaper=shaper, seed=seed)
     done("quantise")
     ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
     intro = outro = None
@@ -302,10 +356,20 @@ def stream_signal(
         "ram_bytes": ram_bytes,
         "chunk_words": chunk_words,
         "embed_words_max": embed_words_max,
+        "band_hz": band_hz,
+        "weighting": weighting,
+        "ntf_order": ntf_order,
+        "ntf_max_db": ntf_max_db,
+        "ntf_form": ntf_form,
+        "force": bool(force),
     }
     stats = {
         "gain_db": round(gain_db, 6),
         "overloads": report.overloads,
+        "shaper_resets": report.resets,
+        "shaper": shaper.to_dict(),
+        "band_hz": band,
+        "predicted_noise_db": {k: round(v, 3) for k, v in predicted.items()},
         "audio_samples": len(audio),
         "ramp_samples": ramp_samples,
         "loop_rate_adjust_ppm": round(loop_rate_ppm, 6),

@@ -12,37 +12,29 @@ Theoretical Survey", JAES 40(5), 1992).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ladderpack import _kernels
 from ladderpack.audio import Signal, check_signal
 from ladderpack.conform import raised_cosine
-from ladderpack.defaults import DITHERS, SHAPER_NAMES
+from ladderpack.defaults import DITHERS
 from ladderpack.errors import OptionError
+
+if TYPE_CHECKING:
+    from ladderpack.shaping import Shaper
 
 __all__ = [
     "DITHERS",
-    "SHAPERS",
     "Codes",
     "QuantizeReport",
     "check_bits",
     "idle_ramp",
-    "make_dither",
     "quantize",
     "signal_to_lsb",
     "with_idle_ramps",
 ]
-
-
-#: Error-feedback filters available now, as taps h_1..h_K of NTF = 1 - sum h_k z^-k.
-SHAPERS: dict[str, tuple[float, ...]] = {
-    "none": (),
-    "first-order": (1.0,),
-}
-assert tuple(SHAPERS) == SHAPER_NAMES
-
-_DITHER_PEAK = {"tpdf": 1.0, "rpdf": 0.5, "none": 0.0}
 
 
 @dataclass(frozen=True)
@@ -88,12 +80,15 @@ class QuantizeReport:
         Seed of the dither generator.
     overloads : int
         Samples that had to be clipped to the code range.
+    resets : int
+        Times the shaping filter's state was reset after a clip.
     """
 
     dither: str
     shaping: str
     seed: int
     overloads: int
+    resets: int = 0
 
 
 def check_bits(bits: int) -> int:
@@ -120,36 +115,15 @@ def signal_to_lsb(x: np.ndarray, bits: int) -> np.ndarray:
     return np.asarray(x, dtype=np.float64) * half + half
 
 
-def make_dither(n: int, kind: str, rng: np.random.Generator) -> np.ndarray:
-    """Draw `n` dither values in LSB.
-
-    Parameters
-    ----------
-    n : int
-        Number of values.
-    kind : {'tpdf', 'rpdf', 'none'}
-        Triangular (2 LSB peak-to-peak), rectangular (1 LSB) or zeros.
-    rng : numpy.random.Generator
-        Seeded generator; the same seed gives the same values.
-    """
-    if kind == "tpdf":
-        return rng.random(n) - rng.random(n)
-    if kind == "rpdf":
-        return rng.random(n) - 0.5
-    if kind == "none":
-        return np.zeros(n)
-    raise OptionError(f"must be one of {', '.join(DITHERS)}; got {kind!r}", field="dither")
-
-
 def quantize(
     sig: Signal,
     *,
     bits: int,
     dither: str = "tpdf",
-    shaping: str = "none",
+    shaper: Shaper | str = "none",
     seed: int = 0,
 ) -> tuple[Codes, QuantizeReport]:
-    """Dither and quantise a mono signal to unsigned codes.
+    """Dither and quantise a mono signal to unsigned codes, with optional noise shaping.
 
     Parameters
     ----------
@@ -158,12 +132,14 @@ def quantize(
     bits : int
         Code width N, 1..16.
     dither : {'tpdf', 'rpdf', 'none'}
-        Dither added before rounding (default 'tpdf').
-    shaping : {'none', 'first-order'}
-        Error-feedback noise shaping.  'first-order' feeds the previous total
-        error back, giving a noise transfer function ``1 - z^-1``.
+        Dither added before rounding (default 'tpdf'), drawn inside the
+        quantiser loop from a generator seeded by `seed`.
+    shaper : Shaper or str
+        Error-feedback noise-shaping filter, or the name of one in
+        :data:`ladderpack.shaping.CATALOGUE` without a design rate
+        ('none', 'first-order', 'second-order').
     seed : int
-        Seed for the dither generator (numpy PCG64).
+        Dither seed; the same seed gives the same codes.
 
     Returns
     -------
@@ -176,27 +152,39 @@ def quantize(
     >>> c.codes.tolist(), r.overloads
     ([128, 128, 128, 128], 0)
     """
+    from ladderpack.shaping import CATALOGUE
+
     bits = check_bits(bits)
     check_signal(sig)
     if sig.samples.ndim != 1:
         raise OptionError("quantize expects a mono signal", field="samples")
-    if shaping not in SHAPERS:
-        raise OptionError(f"must be one of {', '.join(SHAPERS)}; got {shaping!r}", field="shaping")
-    rng = np.random.default_rng(seed)
+    if dither not in _kernels.DITHER_DRAWS:
+        raise OptionError(f"must be one of {', '.join(DITHERS)}; got {dither!r}", field="dither")
+    if isinstance(shaper, str):
+        if shaper not in CATALOGUE or CATALOGUE[shaper].design_rate_hz is not None:
+            raise OptionError(
+                f"pass a Shaper for {shaper!r}; by name only none, first-order and second-order",
+                field="shaping",
+            )
+        shaper = CATALOGUE[shaper]
     v = signal_to_lsb(sig.samples, bits)
-    d = make_dither(v.shape[0], dither, rng)
-    hi = (1 << bits) - 1
-    taps = np.asarray(SHAPERS[shaping], dtype=np.float64)
-    if taps.size == 0:
-        q = np.floor(v + d + 0.5)
-        overloads = int(np.count_nonzero((q < 0) | (q > hi)))
-        codes = np.clip(q, 0, hi).astype(np.uint16)
-    else:
-        out = np.empty(v.shape[0], dtype=np.int64)
-        clamp = 0.5 + _DITHER_PEAK[dither]
-        overloads = int(_kernels.compiled("errfb_quantize")(v, d, taps, 0, hi, clamp, out))
-        codes = out.astype(np.uint16)
-    return Codes(codes, bits), QuantizeReport(dither, shaping, int(seed), overloads)
+    out = np.empty(v.shape[0], dtype=np.int64)
+    b = np.asarray(shaper.b, dtype=np.float64)
+    a = np.asarray(shaper.a, dtype=np.float64)
+    overloads, resets = _kernels.compiled("shape_quantize")(
+        v,
+        b,
+        a,
+        _kernels.DITHER_DRAWS[dither],
+        _kernels.seed_state(seed),
+        0,
+        (1 << bits) - 1,
+        np.zeros(b.size),
+        np.zeros(b.size),
+        out,
+    )
+    report = QuantizeReport(dither, shaper.name, int(seed), int(overloads), int(resets))
+    return Codes(out.astype(np.uint16), bits), report
 
 
 def idle_ramp(idle_code: int, bits: int, n: int) -> np.ndarray:

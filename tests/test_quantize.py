@@ -84,7 +84,7 @@ def test_first_order_shaping_follows_ntf(rng: np.random.Generator) -> None:
     # convention, Lipshitz et al. 1991): total noise = white power x (1 + h1^2) = 2x and
     # the noise spectrum rises as |2 sin(pi f / fs)|^2.
     sig = Signal(0.5 * rng.standard_normal(1 << 16).clip(-1.5, 1.5) / 1.5, 48000.0)
-    codes, report = quantize(sig, bits=10, dither="tpdf", shaping="first-order", seed=4)
+    codes, report = quantize(sig, bits=10, dither="tpdf", shaper="first-order", seed=4)
     assert report.overloads == 0
     err = codes.codes - signal_to_lsb(sig.samples, 10)
     assert float(np.mean(err**2)) == pytest.approx(2 * 0.25, rel=0.05)
@@ -95,16 +95,54 @@ def test_first_order_shaping_follows_ntf(rng: np.random.Generator) -> None:
     assert low / high == pytest.approx(1.0, rel=0.25)
 
 
-def test_compiled_kernel_matches_reference_bit_for_bit(rng: np.random.Generator) -> None:
-    v = rng.uniform(-20, 300, 5000)
-    d = rng.random(5000) - rng.random(5000)
-    h = np.array([1.623, -0.982, 0.109])  # F-weighted 3-tap set, REFERENCES.md 3.2
-    out_ref = np.empty(5000, np.int64)
-    out_jit = np.empty(5000, np.int64)
-    n_ref = _kernels.errfb_quantize_ref(v, d, h, 0, 255, 1.5, out_ref)
-    n_jit = _kernels.compiled("errfb_quantize")(v, d, h, 0, 255, 1.5, out_jit)
-    assert n_ref == n_jit > 0
-    np.testing.assert_array_equal(out_ref, out_jit)
+@pytest.mark.parametrize("order", range(0, 17))
+@pytest.mark.parametrize("dither", ["none", "rpdf", "tpdf"])
+@pytest.mark.parametrize("iir", [False, True])
+def test_compiled_kernel_matches_reference_bit_for_bit(
+    order: int, dither: str, iir: bool, rng: np.random.Generator
+) -> None:
+    n = 3000
+    v = rng.uniform(-20, 275, n)  # some samples clip, exercising overload and reset
+    b = rng.normal(0, 0.3, order)
+    a = rng.normal(0, 0.05, order) if iir else np.zeros(order)
+    results = []
+    for fn in (_kernels.shape_quantize_ref, _kernels.compiled("shape_quantize")):
+        state = _kernels.seed_state(42)
+        eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
+        counts = fn(v, b, a, _kernels.DITHER_DRAWS[dither], state, 0, 255, eh, fh, out)
+        results.append((out, tuple(int(c) for c in counts), state.copy(), eh.copy(), fh.copy()))
+    (o1, c1, s1, e1, f1), (o2, c2, s2, e2, f2) = results
+    np.testing.assert_array_equal(o1, o2)
+    assert c1 == c2 and c1[0] > 0
+    np.testing.assert_array_equal(s1, s2)
+    np.testing.assert_array_equal(e1, e2)
+    np.testing.assert_array_equal(f1, f2)
+
+
+def test_block_processing_equals_whole(rng: np.random.Generator) -> None:
+    # Kernel state (generator, error and feedback history) carries across blocks.
+    v = rng.uniform(10, 240, 4000)
+    b, a = np.array([-1.6, 0.9, -0.1]), np.array([-0.3, 0.02, 0.0])
+    k = _kernels.compiled("shape_quantize")
+    whole = np.empty(4000, np.int64)
+    k(v, b, a, 2, _kernels.seed_state(1), 0, 255, np.zeros(3), np.zeros(3), whole)
+    parts = np.empty(4000, np.int64)
+    st, eh, fh = _kernels.seed_state(1), np.zeros(3), np.zeros(3)
+    for lo, hi in ((0, 1000), (1000, 1001), (1001, 4000)):
+        k(v[lo:hi], b, a, 2, st, 0, 255, eh, fh, parts[lo:hi])
+    np.testing.assert_array_equal(whole, parts)
+
+
+@pytest.mark.parametrize(("kind", "peak"), [("tpdf", 1.5), ("rpdf", 1.0), ("none", 0.5)])
+def test_total_error_bounded_by_dither_peak(
+    kind: str, peak: float, rng: np.random.Generator
+) -> None:
+    # Total error = rounding (+/-0.5 LSB) + dither (TPDF +/-1, RPDF +/-0.5 LSB).
+    sig = Signal(rng.uniform(-0.9, 0.9, 100_000), 8000.0)
+    codes, _ = quantize(sig, bits=8, dither=kind, seed=11)
+    err = codes.codes - signal_to_lsb(sig.samples, 8)
+    assert float(np.max(np.abs(err))) <= peak
+    assert float(np.max(np.abs(err))) > peak - 0.05
 
 
 def test_same_seed_same_codes(rng: np.random.Generator) -> None:
