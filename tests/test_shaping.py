@@ -82,7 +82,7 @@ def test_published_sets(
     assert 10 * math.log10(1 + sum(x * x for x in s.b)) == pytest.approx(white_db, abs=0.01)
 
 
-@pytest.mark.parametrize("name", PUBLISHED + ["first-order", "second-order"])
+@pytest.mark.parametrize("name", [*PUBLISHED, "first-order", "second-order"])
 def test_log_integral_is_zero_for_published_sets(name: str) -> None:
     # Gerzon-Craven theorem: mean of ln|NTF| over 0..fs/2 is 0 for a monic minimum-phase
     # NTF; REFERENCES.md 3.3 gives |mean| < 3e-4 on an 8192-point grid for the sets.
@@ -90,7 +90,10 @@ def test_log_integral_is_zero_for_published_sets(name: str) -> None:
     f = (np.arange(8192) + 0.5) * (FS / 2) / 8192
     with np.errstate(divide="ignore"):
         mean_ln = float(np.mean(np.log(np.abs(s.response(f, FS)))))
-    assert abs(mean_ln) < 3e-4 if name not in ("first-order", "second-order") else 5e-3
+    # (1 - z^-1)^k has its zeros on the unit circle at DC: the grid integral converges
+    # more slowly there, so those get a looser tolerance.
+    tol = 1e-3 if name in ("first-order", "second-order") else 3e-4
+    assert abs(mean_ln) < tol
 
 
 def test_non_minimum_phase_ntf_has_positive_log_integral() -> None:
