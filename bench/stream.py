@@ -60,20 +60,26 @@ def main() -> None:
 
     m = 200_000
     v = rng.uniform(0, 255, m)
-    d = rng.random(m) - rng.random(m)
-    h = np.array([1.0])
+    b, a = np.array([-1.0]), np.array([0.0])
     out = np.empty(m, np.int64)
-    jit = _kernels.compiled("errfb_quantize")
-    jit(v[:10], d[:10], h, 0, 255, 1.5, out[:10])  # compile (or load from cache) first
-    t_jit = best_of(lambda: jit(v, d, h, 0, 255, 1.5, out))
-    t_ref = best_of(lambda: _kernels.errfb_quantize_ref(v, d, h, 0, 255, 1.5, out), repeat=1)
+    jit = _kernels.compiled("shape_quantize")
+
+    def run(fn, n):  # type: ignore[no-untyped-def]
+        return fn(v[:n], b, a, 2, _kernels.seed_state(0), 0, 255, np.zeros(1), np.zeros(1), out[:n])
+
+    run(jit, 10)  # compile (or load from the cache) first
+    t_jit = best_of(lambda: run(jit, m))
+    t_ref = best_of(lambda: run(_kernels.shape_quantize_ref, m), repeat=1)
     print(
         f"error-feedback quantiser: numba {m / t_jit / 1e6:8.2f} Msample/s | "
         f"plain Python {m / t_ref / 1e6:8.3f} Msample/s ({t_ref / t_jit:.0f}x)"
     )
 
     t_all = best_of(
-        lambda: stream_signal(sig, name="bench", bits=8, shaping="first-order"), repeat=1
+        lambda: stream_signal(
+            sig, name="bench", bits=8, shaping="first-order", flash_bytes=1 << 30
+        ),
+        repeat=1,
     )
     print(
         f"whole stream pipeline (8-bit, first-order shaping): {t_all:.2f} s for "

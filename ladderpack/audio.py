@@ -140,7 +140,10 @@ def load_clip(path: str | os.PathLike[str], *, channel: int | None = None) -> Si
         raise AudioFileError(f"not a readable sound file ({detail})", file=name) from None
     n_ch = data.shape[1]
     if channel is None:
-        mono = data.mean(axis=1)
+        mono = data[:, 0].copy()  # column sums: much faster than mean(axis=1) on 2-D data
+        for ch in range(1, n_ch):
+            mono += data[:, ch]
+        mono /= n_ch
     else:
         if not 0 <= channel < n_ch:
             raise OptionError(

@@ -189,28 +189,38 @@ def plan_clock(
             field="rate_hz",
         )
 
-    # (error, is_fractional, cycles, div_256)
-    best_int: tuple[Fraction, int, int] | None = None
-    best_any: tuple[Fraction, int, int] | None = None
+    # Exact integer arithmetic: with rate = p/q, a candidate (d256, cycles) is off by
+    # |256 f q - p d256 cycles| / (p d256 cycles); errors are compared by cross-multiplying.
+    p, q = rate.numerator, rate.denominator
+    target = 256 * sys_clock_hz * q
+
+    def better(a: tuple[int, int, int, int], b: tuple[int, int, int, int] | None) -> bool:
+        if b is None:
+            return True
+        lhs, rhs = a[0] * b[1], b[0] * a[1]
+        return lhs < rhs or (lhs == rhs and a[2] < b[2])
+
+    best_int: tuple[int, int, int, int] | None = None  # (err num, err den, cycles, d256)
+    best_any: tuple[int, int, int, int] | None = None
     for cycles in range(min_cycles, max_cycles + 1):
-        ideal_256 = Fraction(sys_clock_hz * 256) / (rate * cycles)
-        candidates = {math.floor(ideal_256), math.ceil(ideal_256)}
-        k = ideal_256 / 256
-        candidates |= {256 * math.floor(k), 256 * math.ceil(k)}
-        for d256 in sorted(candidates):
+        pc = p * cycles
+        lo256 = target // pc
+        lo_int = (target // (pc * 256)) * 256
+        for d256 in {lo256, lo256 + 1, lo_int, lo_int + 256}:
             if not _DIV_MIN_256 <= d256 <= _DIV_MAX_256:
                 continue
-            achieved = Fraction(sys_clock_hz * 256, d256 * cycles)
-            err = abs(achieved - rate) / rate
-            key = (err, cycles, d256)
-            if best_any is None or key[:2] < best_any[:2]:
-                best_any = key
-            if d256 % 256 == 0 and (best_int is None or key[:2] < best_int[:2]):
-                best_int = key
+            den = pc * d256
+            cand = (abs(target - den), den, cycles, d256)
+            if better(cand, best_any):
+                best_any = cand
+            if d256 % 256 == 0 and better(cand, best_int):
+                best_int = cand
     assert best_any is not None  # the range check above guarantees a candidate
     chosen = best_any
-    if best_int is not None and best_int[0] * 1_000_000 <= Fraction(tolerance_ppm):
+    if best_int is not None and Fraction(best_int[0] * 1_000_000, best_int[1]) <= Fraction(
+        tolerance_ppm
+    ):
         chosen = best_int
-    _, cycles, d256 = chosen
+    cycles, d256 = chosen[2], chosen[3]
     div_int, div_frac = divmod(d256, 256)
     return ClockPlan(sys_clock_hz, rate, div_int, div_frac, cycles)

@@ -30,8 +30,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg
-from scipy import signal as sps
 
 from ladderpack.defaults import SHAPER_NAMES, WEIGHTING_NAMES
 from ladderpack.errors import OptionError
@@ -84,12 +82,12 @@ class Shaper:
     def response(self, freqs_hz: np.ndarray, rate_hz: float) -> np.ndarray:
         """Complex NTF at the given frequencies for sample rate `rate_hz`."""
         w = 2 * np.pi * np.asarray(freqs_hz, dtype=np.float64) / rate_hz
-        _, num = sps.freqz([1.0, *self.b], worN=w)
-        _, den = sps.freqz([1.0, *self.a], worN=w)
-        return num / den
+        return _freqz([1.0, *self.b], [1.0, *self.a], w)
 
     def impulse(self, n: int = 4096) -> np.ndarray:
         """First `n` samples of the NTF's impulse response."""
+        from scipy import signal as sps  # only needed here
+
         x = np.zeros(n)
         x[0] = 1.0
         return sps.lfilter([1.0, *self.b], [1.0, *self.a], x)
@@ -104,6 +102,14 @@ class Shaper:
             "design_rate_hz": self.design_rate_hz,
             "source": self.source,
         }
+
+
+def _freqz(
+    b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
+) -> np.ndarray:
+    """Frequency response of b(z)/a(z) at angular frequencies `omega` (rad/sample)."""
+    zinv = np.exp(-1j * np.asarray(omega))
+    return np.polyval(np.asarray(b)[::-1], zinv) / np.polyval(np.asarray(a)[::-1], zinv)
 
 
 def _fir(name: str, taps: tuple[float, ...], rate: float | None, source: str) -> Shaper:
@@ -241,13 +247,15 @@ def _lpc(spectrum: np.ndarray, order: int) -> np.ndarray:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
     r = (spectrum[None, :] * np.cos(k[:, None] * omega[None, :])).mean(axis=1)
     r[0] *= 1.0 + 1e-9  # white-noise floor keeps the Toeplitz system well conditioned
+    from scipy import linalg  # only the designer needs it
+
     coef = linalg.solve_toeplitz(r[:order], -r[1 : order + 1])
     return np.concatenate([[1.0], coef])
 
 
 def _peak_db(b: np.ndarray, a: np.ndarray) -> float:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
-    _, h = sps.freqz(b, a, worN=omega)
+    h = _freqz(b, a, omega)
     return float(20 * np.log10(np.max(np.abs(h))))
 
 
@@ -314,7 +322,7 @@ def design_shaper(
 
 def _weighted_power(ba: tuple[np.ndarray, np.ndarray], w: np.ndarray) -> float:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
-    _, h = sps.freqz(ba[0], ba[1], worN=omega)
+    h = _freqz(ba[0], ba[1], omega)
     return float(np.mean(w * np.abs(h) ** 2))
 
 

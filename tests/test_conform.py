@@ -144,3 +144,28 @@ def test_compiled_resampler_matches_reference_bit_for_bit(rng: np.random.Generat
     _kernels.sinc_resample_ref(x, kernel.table, 0, 0, si, sr, step.denominator, ref)
     _kernels.compiled("sinc_resample")(x, kernel.table, 0, 0, si, sr, step.denominator, jit)
     np.testing.assert_array_equal(ref, jit)
+
+
+@pytest.mark.parametrize(
+    ("atten", "beta"),
+    # REFERENCES.md section 11 (scipy.signal.kaiser_beta values) and Kaiser's formulas.
+    [
+        (30, 2.11662),
+        (40, 3.39532),
+        (50, 4.53351),
+        (60, 5.65326),
+        (65, 6.20426),
+        (80, 7.85726),
+        (96, 9.62046),
+        (100, 10.06126),
+        (120, 12.26526),
+        (140, 14.46926),
+    ],
+)
+def test_kaiser_beta(atten: float, beta: float) -> None:
+    from scipy import signal as sps
+
+    from ladderpack.conform import kaiser_beta
+
+    assert kaiser_beta(atten) == pytest.approx(beta, abs=1e-5)
+    assert kaiser_beta(atten) == pytest.approx(float(sps.kaiser_beta(atten)), rel=1e-12)
