@@ -179,7 +179,7 @@ def get_shaper(name: str, rate_hz: float, *, force: bool = False) -> Shaper:
     if s.design_rate_hz and abs(rate_hz / s.design_rate_hz - 1) > RATE_TOLERANCE and not force:
         raise OptionError(
             f"{name} was designed for {s.design_rate_hz:g} Hz but the stream runs at "
-            f"{rate_hz:.6g} Hz; use shaping 'designed' for this rate, or force it",
+            f"{rate_hz:.6g} Hz; use shaping 'designed' for this rate, or force it (--force)",
             field="shaping",
         )
     return s

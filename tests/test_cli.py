@@ -221,3 +221,13 @@ def test_cli_defaults_match_library() -> None:
     for key, value in STREAM_DEFAULTS.items():
         assert params[key] == value, key
         assert sig[key].default == value, key
+
+
+def test_help_does_not_load_numba_or_scipy() -> None:
+    # Kernels are compiled on first use, so the command line starts fast.
+    code = (
+        "import sys, ladderpack.cli, ladderpack.pipeline; "
+        "print('numba' in sys.modules, 'scipy' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True).stdout
+    assert out.split() == ["False", "False"]
