@@ -18,6 +18,7 @@ import numpy as np
 __all__ = [
     "DITHER_DRAWS",
     "compiled",
+    "levels_quantize_ref",
     "seed_state",
     "shape_quantize_ref",
     "sinc_resample_ref",
@@ -153,6 +154,94 @@ def shape_quantize_ref(
             e_hist[0] = q - u
             f_hist[0] = fb
         out[n] = q
+    rng[0] = s0
+    rng[1] = s1
+    rng[2] = s2
+    rng[3] = s3
+    return overloads, resets
+
+
+def levels_quantize_ref(
+    v: np.ndarray,
+    lv: np.ndarray,
+    lc: np.ndarray,
+    b: np.ndarray,
+    a: np.ndarray,
+    draws: int,
+    rng: np.ndarray,
+    e_hist: np.ndarray,
+    f_hist: np.ndarray,
+    out: np.ndarray,
+) -> tuple[int, int]:
+    """Error-feedback quantiser against true code levels, plain-Python reference.
+
+    Like :func:`shape_quantize_ref`, but the output is the code whose *true*
+    level (`lv`, sorted ascending, in LSB units; `lc` the matching codes) is
+    nearest the dithered target, and the error fed back is that level minus the
+    target, so ladder errors leave as shaped noise rather than distortion.
+    Non-monotonic ladders need nothing special: the search runs over sorted
+    levels.  A target more than half an LSB beyond the lowest or highest level
+    counts as an overload and resets the filter state.
+    """
+    order = b.shape[0]
+    m = lv.shape[0]
+    s0 = rng[0]
+    s1 = rng[1]
+    s2 = rng[2]
+    s3 = rng[3]
+    overloads = 0
+    resets = 0
+    for n in range(v.shape[0]):
+        d = 0.0
+        for k in range(draws):
+            t = s0 ^ ((s0 << 11) & 0xFFFFFFFF)
+            s0 = s1
+            s1 = s2
+            s2 = s3
+            s3 = s3 ^ (s3 >> 19) ^ t ^ (t >> 8)
+            r = (s3 >> 8) * _INV24
+            if k == 0:
+                d += r
+            else:
+                d -= r
+        if draws == 1:
+            d -= 0.5
+        fb = 0.0
+        for k in range(order):
+            fb += (a[k] - b[k]) * e_hist[k] - a[k] * f_hist[k]
+        u = v[n] - fb
+        target = u + d
+        lo = 0
+        hi = m  # first index with lv[idx] >= target
+        while lo < hi:
+            mid = (lo + hi) // 2
+            if lv[mid] < target:
+                lo = mid + 1
+            else:
+                hi = mid
+        if lo == 0:
+            j = 0
+        elif lo == m:
+            j = m - 1
+        elif target - lv[lo - 1] < lv[lo] - target:  # a tie goes up, as floor(t + 0.5)
+            j = lo - 1
+        else:
+            j = lo
+        clipped = target < lv[0] - 0.5 or target > lv[m - 1] + 0.5
+        if clipped:
+            overloads += 1
+            if order > 0:
+                resets += 1
+                for k in range(order):
+                    e_hist[k] = 0.0
+                    f_hist[k] = 0.0
+        elif order > 0:
+            for k in range(order - 1, 0, -1):
+                e_hist[k] = e_hist[k - 1]
+                f_hist[k] = f_hist[k - 1]
+            e_hist[0] = lv[j] - u
+            f_hist[0] = fb
+        out[n] = lc[j]
     rng[0] = s0
     rng[1] = s1
     rng[2] = s2

@@ -125,6 +125,7 @@ class StreamAsset:
             "overloads": int(self.stats.get("overloads", 0)),
             "shaping": self.stats.get("shaper", {}).get("name", "none"),
             "predicted_noise_db": self.stats.get("predicted_noise_db"),
+            "levels": self.stats.get("levels"),
             "program": self.program.variant,
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,

@@ -10,6 +10,7 @@ from collections.abc import Callable, Iterator
 from typing import Any
 
 import click
+import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.defaults import (
@@ -57,6 +58,18 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
             f"  shaping  {summary.get('shaping', 'none')}: noise vs plain quantising "
             f"{pred['weighted_db']:+.1f} dB weighted, {pred['in_band_db']:+.1f} dB in band, "
             f"{pred['total_db']:+.1f} dB total"
+        )
+    lv = summary.get("levels")
+    if lv:
+        shrink = (
+            f", {lv['span_vs_ideal_db']:+.2f} dB against the ideal span"
+            if "span_vs_ideal_db" in lv
+            else ""
+        )
+        click.echo(
+            f"  levels   {lv['origin']}: output reaches {lv['lowest_volts']:.4f} to "
+            f"{lv['highest_volts']:.4f} V{shrink}; the stream's full scale is scaled to "
+            "that reach"
         )
     if summary.get("flash_share") is not None:
         click.echo(
@@ -153,6 +166,14 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
             "ntf_form",
             "Designed filter form (auto: the better one).",
             type=click.Choice(NTF_FORMS),
+        ),
+        click.option(
+            "--levels",
+            "levels",
+            type=click.Path(dir_okay=False),
+            default=None,
+            help="LevelSet JSON (from 'ladderpack levels' or 'ladderpack ladder'): "
+            "quantise against the ladder's true levels.",
         ),
         click.option(
             "--force/--no-force",
@@ -325,6 +346,332 @@ def clock(rate_hz: float, sys_clock_hz: int, rate_tolerance_ppm: float, as_json:
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
     click.echo(f"cycles     {plan.cycles_per_sample} per sample")
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
+
+
+def _write_one(path: str, text: str) -> str:
+    """Write one file atomically (temporary name in the same folder, then rename)."""
+    from ladderpack.emit import write_files
+
+    folder = os.path.dirname(path) or "."
+    return write_files({os.path.basename(path): text.encode()}, folder)[0]
+
+
+def _lsb(v: float) -> str:
+    return f"{v:.3f} LSB"
+
+
+@cli.command()
+@click.option("--bits", type=int, default=8, show_default=True, help="Ladder width N, 1..16.")
+@click.option(
+    "--r-ohms",
+    type=float,
+    default=10_000.0,
+    show_default=True,
+    help="Unit resistance R, ohms (legs and termination 2R).",
+)
+@click.option(
+    "--tolerance-pct",
+    type=float,
+    default=1.0,
+    show_default=True,
+    help="Resistor tolerance, percent.",
+)
+@click.option(
+    "--distribution",
+    type=click.Choice(["uniform", "normal"]),
+    default="uniform",
+    show_default=True,
+    help="Monte Carlo spread (normal: tolerance = 3 sigma).",
+)
+@click.option(
+    "--drive-ma",
+    type=click.Choice(["2", "4", "8", "12"]),
+    default="4",
+    show_default=True,
+    help="GPIO drive strength, mA: default source resistances and current limit.",
+)
+@click.option(
+    "--source-high-ohms",
+    type=float,
+    default=None,
+    help="Pin source resistance driving high, ohms  [default: datasheet bound for "
+    "the drive strength]",
+)
+@click.option(
+    "--source-low-ohms",
+    type=float,
+    default=None,
+    help="Pin source resistance driving low, ohms  [default: datasheet bound for "
+    "the drive strength]",
+)
+@click.option("--supply-volts", type=float, default=3.3, show_default=True, help="IOVDD, volts.")
+@click.option(
+    "--load-ohms",
+    type=float,
+    default=None,
+    help="Resistive load on the output, ohms  [default: none]",
+)
+@click.option(
+    "--load-pf",
+    type=float,
+    default=20.0,
+    show_default=True,
+    help="Capacitance on the output, pF, for the settling check.",
+)
+@click.option(
+    "--rate-hz",
+    type=float,
+    default=22050.0,
+    show_default=True,
+    help="Sample rate, Hz: a step must settle within one period.",
+)
+@click.option(
+    "--band-hz",
+    type=float,
+    default=20000.0,
+    show_default=True,
+    help="Audio band for the thermal-noise figure, Hz.",
+)
+@click.option(
+    "--temperature-k",
+    type=float,
+    default=300.0,
+    show_default=True,
+    help="Temperature for the thermal noise, kelvin.",
+)
+@click.option("--trials", type=int, default=200, show_default=True, help="Monte Carlo trials.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Monte Carlo seed.")
+@click.option(
+    "--split-legs/--no-split-legs",
+    default=False,
+    show_default=True,
+    help="Build each 2R from two R in series.",
+)
+@click.option(
+    "--series",
+    type=click.Choice(["E24", "E96", "E192"]),
+    default="E96",
+    show_default=True,
+    help="Preferred-value series for the recommended R range.",
+)
+@click.option(
+    "--inl-share-lsb",
+    type=float,
+    default=0.5,
+    show_default=True,
+    help="Largest INL, LSB, that source resistance may cause in a recommended R.",
+)
+@click.option(
+    "--spice",
+    "spice_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Write a SPICE netlist of the nominal ladder to this file.",
+)
+@click.option(
+    "--spice-code", type=int, default=None, help="Code the netlist drives  [default: mid-scale]"
+)
+@click.option(
+    "--levels-out",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Write the nominal ladder's modelled levels as a LevelSet JSON file.",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
+def ladder(
+    bits: int,
+    r_ohms: float,
+    tolerance_pct: float,
+    distribution: str,
+    drive_ma: str,
+    source_high_ohms: float | None,
+    source_low_ohms: float | None,
+    supply_volts: float,
+    load_ohms: float | None,
+    load_pf: float,
+    rate_hz: float,
+    band_hz: float,
+    temperature_k: float,
+    trials: int,
+    seed: int,
+    split_legs: bool,
+    series: str,
+    inl_share_lsb: float,
+    spice_path: str | None,
+    spice_code: int | None,
+    levels_out: str | None,
+    as_json: bool,
+) -> None:
+    """Model an R-2R ladder and check the design: INL/DNL, tolerance spread, pin current,
+    thermal noise, settling and a recommended R range."""
+    from ladderpack.ladder import DRIVE_SOURCE_OHMS, design_check, ideal_ladder, spice_netlist
+    from ladderpack.levels import LevelSet
+
+    report = design_check(
+        bits,
+        r_ohms,
+        tolerance=tolerance_pct / 100,
+        distribution=distribution,
+        source_high_ohms=source_high_ohms,
+        source_low_ohms=source_low_ohms,
+        drive_ma=int(drive_ma),
+        supply_volts=supply_volts,
+        load_ohms=load_ohms,
+        load_farads=load_pf * 1e-12,
+        rate_hz=rate_hz,
+        band_hz=band_hz,
+        temperature_k=temperature_k,
+        trials=trials,
+        seed=seed,
+        split_legs=split_legs,
+        series=series,
+        inl_share_lsb=inl_share_lsb,
+    )
+    bound = DRIVE_SOURCE_OHMS[int(drive_ma)]
+    model = ideal_ladder(
+        bits,
+        r_ohms,
+        supply_volts=supply_volts,
+        source_high_ohms=report["source_high_ohms"],  # type: ignore[arg-type]
+        source_low_ohms=report["source_low_ohms"],  # type: ignore[arg-type]
+        load_ohms=load_ohms,
+        split_legs=split_legs,
+    )
+    written = []
+    if spice_path:
+        code = (1 << (bits - 1)) if spice_code is None else spice_code
+        written.append(_write_one(spice_path, spice_netlist(model, code)))
+    if levels_out:
+        ideal_span = supply_volts * ((1 << bits) - 1) / (1 << bits)
+        lev = LevelSet(
+            bits,
+            model.levels(),
+            "model",
+            {
+                "r_ohms": r_ohms,
+                "supply_volts": supply_volts,
+                "source_high_ohms": report["source_high_ohms"],
+                "source_low_ohms": report["source_low_ohms"],
+                "load_ohms": load_ohms,
+                "ideal_span_volts": ideal_span,
+            },
+        )
+        written.append(_write_one(levels_out, lev.to_json()))
+    if as_json:
+        click.echo(json.dumps({**report, "files": written}, indent=2, sort_keys=True))
+        return
+    nom, wc, mc = report["nominal"], report["worst_case"], report["monte_carlo"]
+    click.echo(
+        f"{bits}-bit R-2R, R = {r_ohms:g} ohm, 2R legs{' of two R' if split_legs else ''}"
+        f", {supply_volts:g} V, LSB {1e3 * report['lsb_volts']:.4f} mV"
+    )
+    click.echo(
+        f"  sources  high {report['source_high_ohms']:.1f} ohm, low "
+        f"{report['source_low_ohms']:.1f} ohm (datasheet bounds at {drive_ma} mA: "
+        f"{bound[0]:.1f} / {bound[1]:.1f})"
+    )
+    click.echo(
+        f"  nominal  INL {_lsb(nom['max_abs_inl_endpoint_lsb'])} endpoint, "
+        f"{_lsb(nom['max_abs_inl_best_fit_lsb'])} best fit; DNL {nom['min_dnl_lsb']:+.3f}"
+        f"; {'monotonic' if nom['monotonic'] else 'NOT monotonic'}; no missing codes"
+    )
+    click.echo(
+        f"  worst    over +/-{tolerance_pct:g} %: INL {_lsb(wc['max_abs_inl_endpoint_lsb'])}"
+        f", DNL down to {wc['min_dnl_lsb']:+.3f}; "
+        f"{'monotonic' if wc['monotonic'] else 'may be non-monotonic'}"
+    )
+    inl, dnl = mc["max_abs_inl_best_fit_lsb"], mc["max_abs_dnl_lsb"]
+    click.echo(
+        f"  spread   {mc['trials']} trials ({distribution}): INL p50/p90/p99 "
+        f"{inl['p50']:.2f}/{inl['p90']:.2f}/{inl['p99']:.2f}, DNL "
+        f"{dnl['p50']:.2f}/{dnl['p90']:.2f}/{dnl['p99']:.2f} LSB; "
+        f"{100 * mc['monotonic_share']:.0f} % monotonic"
+    )
+    click.echo(
+        f"  current  {1e3 * report['pin_current_max_a']:.3f} mA per pin at most "
+        f"({'within' if report['pin_current_ok'] else 'OVER'} the {drive_ma} mA setting),"
+        f" {1e3 * report['supply_current_max_a']:.3f} mA from IOVDD"
+    )
+    click.echo(
+        f"  noise    {1e6 * report['johnson_noise_volts']:.3f} uV rms over {band_hz:g} Hz"
+        f" = {report['johnson_noise_lsb']:.2e} LSB"
+    )
+    click.echo(
+        f"  settling tau {1e9 * report['settling_tau_s']:.1f} ns, to 1/2 LSB "
+        f"{1e6 * report['settling_half_lsb_s']:.3f} us of a "
+        f"{1e6 * report['sample_period_s']:.2f} us period"
+        f"{'' if report['settles_in_one_sample'] else ' (TOO SLOW)'}"
+    )
+    rec = report["recommended_r_ohms"]
+    click.echo(
+        f"  R range  {series}: {rec[0]:g} to {rec[1]:g} ohm"
+        if rec
+        else f"  R range  no {series} value meets every check"
+    )
+    for path in written:
+        click.echo(f"  wrote    {path}")
+
+
+@cli.command()
+@click.argument("csv_path", metavar="CSV", type=click.Path(dir_okay=False))
+@click.option("--bits", type=int, required=True, help="Ladder width N, 1..16.")
+@click.option(
+    "-o",
+    "--out",
+    "out_path",
+    default="levels.json",
+    show_default=True,
+    help="LevelSet JSON file to write.",
+)
+@click.option(
+    "--fill",
+    type=click.Choice(["refuse", "model"]),
+    default="refuse",
+    show_default=True,
+    help="Codes without a reading: refuse the file, or fill them from a fitted model.",
+)
+@click.option(
+    "--superposition/--no-superposition",
+    default=False,
+    show_default=True,
+    help="The CSV holds N+1 readings (all low, then each bit alone).",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
+def levels(
+    csv_path: str, bits: int, out_path: str, fill: str, superposition: bool, as_json: bool
+) -> None:
+    """Import a measured sweep (CSV: code and volts) into a LevelSet, with an INL/DNL report."""
+    from ladderpack.levels import linearity, read_sweep_csv
+
+    lev = read_sweep_csv(csv_path, bits, fill=fill, superposition=superposition)
+    lin = linearity(lev.volts)
+    written = _write_one(out_path, lev.to_json())
+    report = {k: v for k, v in lin.items() if not isinstance(v, np.ndarray)}
+    report.update(notes=lev.notes, origin=lev.origin, file=written)
+    if as_json:
+        click.echo(json.dumps(report, indent=2, sort_keys=True))
+        return
+    click.echo(
+        f"{lev.origin} levels, {bits} bits, from {lev.notes.get('readings')} readings of "
+        f"{lev.notes.get('codes_measured')} codes"
+    )
+    click.echo(f"  LSB      {1e3 * lin['lsb_volts']:.4f} mV (endpoint)")
+    click.echo(
+        f"  INL      {_lsb(lin['max_abs_inl_endpoint'])} endpoint, "
+        f"{_lsb(lin['max_abs_inl_best_fit'])} best fit"
+    )
+    click.echo(
+        f"  DNL      {_lsb(lin['max_abs_dnl'])} max, {lin['min_dnl']:+.3f} min; "
+        f"{'monotonic' if lin['monotonic'] else 'NOT monotonic'}"
+    )
+    if "superposition_residual_lsb" in lev.notes:
+        click.echo(
+            f"  superposition from the N+1 readings predicts every code within "
+            f"{_lsb(lev.notes['superposition_residual_lsb'])}"
+        )
+    if "codes_filled" in lev.notes:
+        click.echo(f"  filled   {lev.notes['codes_filled']} code(s) from the fitted model")
+    click.echo(f"  wrote    {written}")
 
 
 @cli.command()

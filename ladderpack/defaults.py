@@ -96,6 +96,7 @@ STREAM_DEFAULTS: dict[str, Any] = {
     "ntf_max_db": None,
     "ntf_form": "auto",
     "force": False,
+    "levels": None,
 }
 
 

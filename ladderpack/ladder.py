@@ -290,12 +290,19 @@ def johnson_noise_volts(r_ohms: float, band_hz: float, temperature_k: float = 30
     return math.sqrt(4 * BOLTZMANN * temperature_k * r_ohms * band_hz)
 
 
-def spice_netlist(ladder: Ladder, code: int, *, title: str = "ladderpack R-2R ladder") -> str:
+def spice_netlist(
+    ladder: Ladder,
+    code: int,
+    *,
+    title: str = "ladderpack R-2R ladder",
+    ngspice_control: bool = False,
+) -> str:
     """A SPICE netlist of the ladder driven with one code, with an operating-point analysis.
 
     Node names: ``n<k>`` ladder nodes (``n<N-1>`` is the output), ``p<k>`` pin
     outputs, ``m<k>`` the midpoint of a two-part leg.  The pin drivers are ideal
-    sources behind their state's source resistance.
+    sources behind their state's source resistance.  With `ngspice_control` the
+    netlist ends in an ngspice ``.control`` block that prints the output voltage.
     """
     n = ladder.bits
     if not 0 <= code < (1 << n):
@@ -304,18 +311,22 @@ def spice_netlist(ladder: Ladder, code: int, *, title: str = "ladderpack R-2R la
     for k in range(n):
         high = (code >> k) & 1
         rs = ladder.source_high_ohms[k] if high else ladder.source_low_ohms[k]
-        lines.append(f"V{k} s{k} 0 DC {ladder.supply_volts if high else 0.0!r}")
-        lines.append(f"RS{k} s{k} p{k} {max(rs, 1e-6)!r}")
+        lines.append(f"V{k} s{k} 0 DC {float(ladder.supply_volts if high else 0.0)!r}")
+        lines.append(f"RS{k} s{k} p{k} {float(max(rs, 1e-6))!r}")
         parts = ladder.legs[k]
         nodes = [f"p{k}"] + [f"m{k}_{j}" for j in range(len(parts) - 1)] + [f"n{k}"]
         for j, r in enumerate(parts):
-            lines.append(f"RL{k}_{j} {nodes[j]} {nodes[j + 1]} {r!r}")
+            lines.append(f"RL{k}_{j} {nodes[j]} {nodes[j + 1]} {float(r)!r}")
     for k, r in enumerate(ladder.rungs):
-        lines.append(f"RR{k} n{k} n{k + 1} {r!r}")
-    lines.append(f"RT n0 0 {ladder.termination_ohms!r}")
+        lines.append(f"RR{k} n{k} n{k + 1} {float(r)!r}")
+    lines.append(f"RT n0 0 {float(ladder.termination_ohms)!r}")
     if ladder.load_ohms is not None:
-        lines.append(f"RLOAD n{n - 1} 0 {ladder.load_ohms!r}")
-    lines += [".op", ".end", ""]
+        lines.append(f"RLOAD n{n - 1} 0 {float(ladder.load_ohms)!r}")
+    if ngspice_control:  # batch-mode block printing the output with full precision
+        lines += [".control", "set numdgt=15", "op", f"print v(n{n - 1})", ".endc"]
+    else:
+        lines.append(".op")
+    lines += [".end", ""]
     return "\n".join(lines)
 
 

@@ -20,7 +20,15 @@ import numpy as np
 from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.quantize import check_bits
 
-__all__ = ["FORMAT", "LevelSet", "ideal_levels", "linearity", "load_levels", "superpose"]
+__all__ = [
+    "FORMAT",
+    "LevelSet",
+    "ideal_levels",
+    "linearity",
+    "load_levels",
+    "read_sweep_csv",
+    "superpose",
+]
 
 FORMAT = "ladderpack-levels"
 FORMAT_VERSION = 1
@@ -149,6 +157,22 @@ def linearity(volts: np.ndarray) -> dict[str, Any]:
     }
 
 
+def code_scale(levels: LevelSet) -> tuple[np.ndarray, float, float]:
+    """Levels in LSB of their own endpoint line, and the signal mapping onto them.
+
+    Returns ``(lsb_levels, centre, half_span)``: a float sample ``x`` (full scale
+    +/-1) targets ``centre + x * half_span`` in those units.  For an ideal ladder
+    this is exactly the plain quantiser's mapping (``2**(N-1) + x 2**(N-1)``); a real
+    ladder's reach (lowest to highest level) sets the span, so its range shrinks
+    when it cannot reach as far.
+    """
+    v = levels.volts
+    lsb = (v[-1] - v[0]) / (v.size - 1)
+    lv = (v - v[0]) / lsb
+    lo, hi = float(lv.min()), float(lv.max())
+    return lv, (lo + hi + 1) / 2, (hi - lo + 1) / 2
+
+
 def superpose(bits: int, zero_volts: float, bit_volts: np.ndarray) -> np.ndarray:
     """Every code's level from N + 1 readings, assuming superposition.
 
@@ -171,3 +195,182 @@ def superpose(bits: int, zero_volts: float, bit_volts: np.ndarray) -> np.ndarray
     codes = np.arange(1 << bits)
     bitmat = (codes[:, None] >> np.arange(bits)[None, :]) & 1
     return zero_volts + bitmat @ weights
+
+
+_UNITS = {
+    "v": 1.0,
+    "volts": 1.0,
+    "volt": 1.0,
+    "mv": 1e-3,
+    "millivolts": 1e-3,
+    "uv": 1e-6,
+    "microvolts": 1e-6,
+}
+
+
+def read_sweep_csv(
+    path: str | os.PathLike[str],
+    bits: int,
+    *,
+    fill: str = "refuse",
+    superposition: bool = False,
+    conflict_lsb: float = 8.0,
+) -> LevelSet:
+    """Import measured levels from a CSV file.
+
+    The file has a header row naming a ``code`` column and a value column
+    whose name gives the unit (``volts``/``V``, ``mV``, ``uV``), or a ``value``
+    column plus a ``unit`` column giving each row's unit.  Lines starting with
+    ``#`` and blank lines are skipped.  Repeated readings of a code are averaged.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The CSV file.
+    bits : int
+        Ladder width N; codes must be 0 .. 2**N - 1.
+    fill : {'refuse', 'model'}
+        What to do with codes that have no reading: refuse the file, or fill
+        them from a least-squares superposition model (offset plus one weight
+        per bit) fitted to the codes that were measured.
+    superposition : bool
+        The file holds the N + 1 readings (code 0 and each single bit); every
+        other code follows by superposition.
+    conflict_lsb : float
+        Repeated readings of one code that differ by more than this many
+        nominal LSB are refused as conflicting (often a unit mix-up).
+
+    Raises
+    ------
+    LadderpackError
+        With the file, the line number and the field at fault.
+    """
+    import csv
+
+    bits = check_bits(bits)
+    name = os.fspath(path)
+    n_codes = 1 << bits
+    try:
+        with open(name, encoding="utf-8", newline="") as fh:
+            rows = [(i + 1, r) for i, r in enumerate(csv.reader(fh))]
+    except FileNotFoundError:
+        raise LadderpackError("no such file", file=name) from None
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise LadderpackError(f"cannot read CSV ({exc})", file=name) from None
+    rows = [
+        (i, [c.strip() for c in r])
+        for i, r in rows
+        if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")
+    ]
+    if not rows:
+        raise LadderpackError("no header row", file=name)
+    hline, header = rows[0]
+    cols = [h.lower() for h in header]
+    if "code" not in cols:
+        raise LadderpackError(
+            "header must name a 'code' column", file=f"{name}:{hline}", field="code"
+        )
+    ci = cols.index("code")
+    ui = cols.index("unit") if "unit" in cols else None
+    vi = next((j for j, h in enumerate(cols) if h in _UNITS or h == "value"), None)
+    if vi is None:
+        raise LadderpackError(
+            "header must have a value column named volts, V, mV, uV (or value with a unit column)",
+            file=f"{name}:{hline}",
+            field="volts",
+        )
+    if cols[vi] == "value" and ui is None:
+        raise LadderpackError(
+            "a 'value' column needs a 'unit' column", file=f"{name}:{hline}", field="unit"
+        )
+    readings: dict[int, list[tuple[int, float]]] = {}
+    for line, row in rows[1:]:
+        where = f"{name}:{line}"
+        if len(row) <= max(ci, vi, ui or 0):
+            raise LadderpackError(f"expected {len(header)} columns, got {len(row)}", file=where)
+        try:
+            code = int(row[ci])
+        except ValueError:
+            raise LadderpackError(
+                f"expected a whole number, got {row[ci]!r}", file=where, field="code"
+            ) from None
+        if not 0 <= code < n_codes:
+            raise LadderpackError(
+                f"code {code} is outside 0..{n_codes - 1} for {bits} bits", file=where, field="code"
+            )
+        try:
+            value = float(row[vi])
+        except ValueError:
+            raise LadderpackError(
+                f"expected a number, got {row[vi]!r}", file=where, field=header[vi]
+            ) from None
+        if not math.isfinite(value):
+            raise LadderpackError(
+                f"expected a finite number, got {row[vi]!r}", file=where, field=header[vi]
+            )
+        unit = cols[vi] if ui is None else row[ui].lower()
+        if unit not in _UNITS:
+            raise LadderpackError(
+                f"unknown unit {row[ui] if ui is not None else unit!r}; expected V, mV or uV",
+                file=where,
+                field="unit",
+            )
+        readings.setdefault(code, []).append((line, value * _UNITS[unit]))
+    if not readings:
+        raise LadderpackError("no readings", file=name)
+    means = {c: float(np.mean([v for _, v in rs])) for c, rs in readings.items()}
+    span = max(means.values()) - min(means.values())
+    nominal_lsb = span / (n_codes - 1) if span > 0 else 0.0
+    for c, rs in sorted(readings.items()):
+        vals = [v for _, v in rs]
+        if len(vals) > 1 and nominal_lsb > 0 and max(vals) - min(vals) > conflict_lsb * nominal_lsb:
+            lines = ", ".join(str(ln) for ln, _ in rs)
+            raise LadderpackError(
+                f"readings of code {c} on lines {lines} disagree by "
+                f"{(max(vals) - min(vals)) / nominal_lsb:.1f} LSB; are the units mixed?",
+                file=name,
+                field="volts",
+            )
+    notes: dict[str, Any] = {
+        "file": os.path.basename(name),
+        "readings": sum(len(r) for r in readings.values()),
+        "codes_measured": len(means),
+    }
+    singles = [1 << k for k in range(bits)]
+    if superposition:
+        need = [0, *singles]
+        missing = [c for c in need if c not in means]
+        if missing:
+            raise LadderpackError(
+                f"superposition needs codes 0 and each single bit; missing {missing[:8]}",
+                file=name,
+                field="code",
+            )
+        volts = superpose(bits, means[0], np.array([means[c] for c in singles]))
+        return LevelSet(bits, volts, "superposition", notes)
+    missing = [c for c in range(n_codes) if c not in means]
+    volts = np.full(n_codes, np.nan)
+    for c, v in means.items():
+        volts[c] = v
+    if all(c in means for c in (0, *singles)) and len(means) == n_codes:
+        pred = superpose(bits, means[0], np.array([means[c] for c in singles]))
+        notes["superposition_residual_lsb"] = (
+            float(np.max(np.abs(pred - volts)) / nominal_lsb) if nominal_lsb else 0.0
+        )
+    if missing:
+        if fill != "model":
+            raise LadderpackError(
+                f"{len(missing)} code(s) have no reading (first: {missing[:8]}); measure them "
+                "or fill them from a model",
+                file=name,
+                field="code",
+            )
+        codes = np.array(sorted(means))
+        design = np.column_stack(
+            [np.ones(codes.size), (codes[:, None] >> np.arange(bits)[None, :]) & 1]
+        )
+        coef, *_ = np.linalg.lstsq(design, np.array([means[c] for c in codes]), rcond=None)
+        miss = np.array(missing)
+        volts[miss] = coef[0] + ((miss[:, None] >> np.arange(bits)[None, :]) & 1) @ coef[1:]
+        notes["codes_filled"] = len(missing)
+    return LevelSet(bits, volts, "measured", notes)

@@ -35,6 +35,7 @@ from ladderpack.defaults import (
 )
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
+from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.pack import WordLayout, pack
 from ladderpack.pio import (
     check_pins,
@@ -115,6 +116,7 @@ def stream_signal(
     ntf_max_db: float | None = STREAM_DEFAULTS["ntf_max_db"],
     ntf_form: str = STREAM_DEFAULTS["ntf_form"],
     force: bool = STREAM_DEFAULTS["force"],
+    levels: LevelSet | str | os.PathLike[str] | None = STREAM_DEFAULTS["levels"],
     source: dict[str, Any] | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> StreamAsset:
@@ -200,6 +202,10 @@ def stream_signal(
         Form of a designed filter (default 'auto': the better of the two).
     force : bool
         Use a published filter even far from its design rate.
+    levels : LevelSet or path, optional
+        The ladder's true level per code (a LevelSet or its JSON file, from
+        ``ladderpack levels`` or ``ladderpack ladder``): quantise against them,
+        feeding the true error back.
     source : dict, optional
         Provenance recorded in the sidecar.
     progress : callable, optional
@@ -232,6 +238,14 @@ def stream_signal(
     _check_int(embed_words_max, "embed_words_max", 0)
     check_pins(out_base, bits, gpio_count)
     target = TargetProfile(flash_bytes, flash_reserve_bytes, ram_bytes)
+    levelset = None
+    if levels is not None:
+        levelset = levels if isinstance(levels, LevelSet) else load_levels(levels)
+        if levelset.bits != bits:
+            raise OptionError(
+                f"the levels file is for {levelset.bits} bits but the stream is {bits}-bit",
+                field="levels",
+            )
     check_signal(sig, source=(source or {}).get("file"))
     if sig.samples.ndim != 1:
         raise OptionError(
@@ -300,7 +314,7 @@ def stream_signal(
     x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
     if not loop:
         x = conform.apply_fades(x, fade_ms=fade_ms)
-    audio, report = quantize(x, bits=bits, dither=dither, shaper=shaper, seed=seed)
+    audio, report = quantize(x, bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levelset)
     done("quantise")
     ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
     intro = outro = None
@@ -362,6 +376,13 @@ def stream_signal(
         "ntf_max_db": ntf_max_db,
         "ntf_form": ntf_form,
         "force": bool(force),
+        "levels": None
+        if levels is None
+        else (
+            levelset.notes.get("file", "LevelSet")
+            if isinstance(levels, LevelSet)
+            else os.path.basename(os.fspath(levels))
+        ),
     }
     stats = {
         "gain_db": round(gain_db, 6),
@@ -381,6 +402,7 @@ def stream_signal(
             "attenuation_db": spec.attenuation_db,
         },
         "budget": budget.to_dict(),
+        "levels": None if levelset is None else _levels_stats(levelset),
     }
     return StreamAsset(
         ident,
@@ -397,6 +419,24 @@ def stream_signal(
         outro=outro,
         budget=budget,
     )
+
+
+def _levels_stats(levelset: LevelSet) -> dict[str, Any]:
+    lin = linearity(levelset.volts)
+    v = levelset.volts
+    out: dict[str, Any] = {
+        "origin": levelset.origin,
+        "lowest_volts": float(v.min()),
+        "highest_volts": float(v.max()),
+        "span_volts": float(v.max() - v.min()),
+        "max_abs_inl_best_fit_lsb": round(lin["max_abs_inl_best_fit"], 4),
+        "max_abs_dnl_lsb": round(lin["max_abs_dnl"], 4),
+        "monotonic": lin["monotonic"],
+    }
+    ideal = levelset.notes.get("ideal_span_volts")
+    if ideal:
+        out["span_vs_ideal_db"] = round(20 * math.log10(out["span_volts"] / ideal), 4)
+    return out
 
 
 def stream_clip(

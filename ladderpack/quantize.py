@@ -23,6 +23,7 @@ from ladderpack.defaults import DITHERS
 from ladderpack.errors import OptionError
 
 if TYPE_CHECKING:
+    from ladderpack.levels import LevelSet
     from ladderpack.shaping import Shaper
 
 __all__ = [
@@ -122,6 +123,7 @@ def quantize(
     dither: str = "tpdf",
     shaper: Shaper | str = "none",
     seed: int = 0,
+    levels: LevelSet | None = None,
 ) -> tuple[Codes, QuantizeReport]:
     """Dither and quantise a mono signal to unsigned codes, with optional noise shaping.
 
@@ -140,6 +142,12 @@ def quantize(
         ('none', 'first-order', 'second-order').
     seed : int
         Dither seed; the same seed gives the same codes.
+    levels : LevelSet, optional
+        The ladder's true level for every code (measured or modelled).  Each
+        sample then takes the code whose true level is nearest the dithered
+        target and the true error is fed back, so the ladder's errors become
+        (shaped) noise instead of distortion.  An ideal LevelSet gives exactly
+        the plain result.
 
     Returns
     -------
@@ -171,18 +179,33 @@ def quantize(
     out = np.empty(v.shape[0], dtype=np.int64)
     b = np.asarray(shaper.b, dtype=np.float64)
     a = np.asarray(shaper.a, dtype=np.float64)
-    overloads, resets = _kernels.compiled("shape_quantize")(
-        v,
-        b,
-        a,
-        _kernels.DITHER_DRAWS[dither],
-        _kernels.seed_state(seed),
-        0,
-        (1 << bits) - 1,
-        np.zeros(b.size),
-        np.zeros(b.size),
-        out,
-    )
+    draws, state = _kernels.DITHER_DRAWS[dither], _kernels.seed_state(seed)
+    if levels is None:
+        overloads, resets = _kernels.compiled("shape_quantize")(
+            v, b, a, draws, state, 0, (1 << bits) - 1, np.zeros(b.size), np.zeros(b.size), out
+        )
+    else:
+        from ladderpack.levels import code_scale
+
+        if levels.bits != bits:
+            raise OptionError(
+                f"the levels are for {levels.bits} bits, the stream is {bits}", field="levels"
+            )
+        lv, centre, half = code_scale(levels)
+        v = np.asarray(sig.samples, dtype=np.float64) * half + centre
+        order = np.argsort(lv, kind="stable")
+        overloads, resets = _kernels.compiled("levels_quantize")(
+            v,
+            lv[order],
+            order.astype(np.int64),
+            b,
+            a,
+            draws,
+            state,
+            np.zeros(b.size),
+            np.zeros(b.size),
+            out,
+        )
     report = QuantizeReport(dither, shaper.name, int(seed), int(overloads), int(resets))
     return Codes(out.astype(np.uint16), bits), report
 

@@ -191,7 +191,7 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
         assert list(adafruit_pioasm.Program(text).assembled) == side["program"]["words"]
 
 
-@pytest.mark.parametrize("command", ["stream", "clock", "demo"])
+@pytest.mark.parametrize("command", ["stream", "clock", "demo", "ladder", "levels"])
 def test_every_option_documented_in_help_and_readme(command: str) -> None:
     from ladderpack.cli import cli
 
