@@ -674,6 +674,187 @@ def levels(
     click.echo(f"  wrote    {written}")
 
 
+@cli.group()
+def table() -> None:
+    """Lookup tables for firmware."""
+
+
+@table.command("correction")
+@click.argument("levels_path", metavar="LEVELS", type=click.Path(dir_okay=False))
+@click.option(
+    "--in-bits",
+    type=int,
+    default=None,
+    help="Bits of the ideal input level  [default: the ladder's bits]",
+)
+@click.option(
+    "-o",
+    "--out-dir",
+    default="ladderpack_out",
+    show_default=True,
+    help="Folder the table files go to.",
+)
+@click.option(
+    "--name", default="correction", show_default=True, help="Table name for files and symbols."
+)
+@click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
+def table_correction(
+    levels_path: str, in_bits: int | None, out_dir: str, name: str, as_json: bool
+) -> None:
+    """Map each ideal level to the code whose measured level (LEVELS) is nearest, as C
+    and MicroPython arrays, for samples the firmware computes at run time."""
+    from ladderpack.emit import table as emit_table
+    from ladderpack.emit import write_files
+    from ladderpack.emit.names import asset_identifier
+    from ladderpack.levels import correction_table, load_levels
+
+    lev = load_levels(levels_path)
+    m = lev.bits if in_bits is None else in_bits
+    tab = correction_table(lev, m)
+    ident = asset_identifier(name)
+    src = os.path.basename(levels_path)
+    files = {
+        f"{ident}.h": emit_table.render_c_header(
+            ident, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+        f"{ident}.c": emit_table.render_c_source(ident, tab, bits=lev.bits, source=src).encode(),
+        f"{ident}.py": emit_table.render_micropython(
+            ident, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+    }
+    written = write_files(files, out_dir)
+    summary = {
+        "name": ident,
+        "in_bits": m,
+        "out_bits": lev.bits,
+        "entries": int(tab.size),
+        "distinct_codes": int(np.unique(tab).size),
+        "files": written,
+    }
+    if as_json:
+        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        return
+    click.echo(
+        f"{ident}: {m}-bit ideal level -> {lev.bits}-bit code, {tab.size} entries, "
+        f"{summary['distinct_codes']} distinct codes used"
+    )
+    for path in written:
+        click.echo(f"  wrote    {path}")
+
+
+@cli.command()
+@click.option("--bits", type=int, default=8, show_default=True, help="Ladder width N, 1..16.")
+@click.option(
+    "--out-base", type=int, default=0, show_default=True, help="First GPIO of the ladder."
+)
+@click.option(
+    "--pin-order",
+    type=click.Choice(["msb-high", "msb-low"]),
+    default="msb-high",
+    show_default=True,
+    help="Which GPIO carries the ladder's most significant bit.",
+)
+@click.option(
+    "--invert/--no-invert",
+    default=False,
+    show_default=True,
+    help="An inverting buffer sits between pins and ladder.",
+)
+@click.option(
+    "--mode",
+    type=click.Choice(["full", "n1"]),
+    default="full",
+    show_default=True,
+    help="full: every code; n1: code 0 and each bit alone (N+1 readings).",
+)
+@click.option(
+    "--read",
+    type=click.Choice(["adc", "meter"]),
+    default="adc",
+    show_default=True,
+    help="adc: on-chip ADC; meter: type each multimeter reading.",
+)
+@click.option(
+    "--adc-gpio",
+    type=click.Choice(["26", "27", "28"]),
+    default="26",
+    show_default=True,
+    help="ADC input pin for --read adc.",
+)
+@click.option(
+    "--samples", type=int, default=16, show_default=True, help="ADC readings averaged per code."
+)
+@click.option(
+    "--settle-ms", type=int, default=5, show_default=True, help="Wait after setting each code, ms."
+)
+@click.option(
+    "--adc-vref-volts",
+    type=float,
+    default=3.3,
+    show_default=True,
+    help="ADC reference voltage, volts (measure it).",
+)
+@click.option(
+    "--csv-name",
+    default="sweep.csv",
+    show_default=True,
+    help="CSV file the script writes on the board.",
+)
+@click.option(
+    "-o",
+    "--out",
+    "out_path",
+    default="ladder_sweep.py",
+    show_default=True,
+    help="Script file to write.",
+)
+def sweep(
+    bits: int,
+    out_base: int,
+    pin_order: str,
+    invert: bool,
+    mode: str,
+    read: str,
+    adc_gpio: str,
+    samples: int,
+    settle_ms: int,
+    adc_vref_volts: float,
+    csv_name: str,
+    out_path: str,
+) -> None:
+    """Write a MicroPython calibration script that steps the codes and records each level
+    as CSV for 'ladderpack levels'."""
+    from ladderpack.emit import sweep as emit_sweep
+    from ladderpack.errors import OptionError
+    from ladderpack.pio import check_pins
+    from ladderpack.quantize import check_bits
+
+    check_bits(bits)
+    check_pins(out_base, bits)
+    if samples < 1:
+        raise OptionError(f"must be at least 1, got {samples}", field="samples")
+    if settle_ms < 0:
+        raise OptionError(f"must be >= 0 ms, got {settle_ms}", field="settle_ms")
+    text = emit_sweep.render(
+        bits=bits,
+        out_base=out_base,
+        msb_high=(pin_order == "msb-high"),
+        invert=invert,
+        mode=mode,
+        read=read,
+        adc_gpio=int(adc_gpio),
+        samples=samples,
+        settle_ms=settle_ms,
+        adc_vref=adc_vref_volts,
+        csv_name=csv_name,
+    )
+    click.echo(
+        f"wrote {_write_one(out_path, text)}; run it on the board, then "
+        f"'ladderpack levels {csv_name} --bits {bits}"
+        f"{' --superposition' if mode == 'n1' else ''}'"
+    )
+
+
 @cli.command()
 @click.argument("out_dir", type=click.Path(file_okay=False, path_type=str))
 @click.option(

@@ -23,6 +23,8 @@ from ladderpack.quantize import check_bits
 __all__ = [
     "FORMAT",
     "LevelSet",
+    "code_scale",
+    "correction_table",
     "ideal_levels",
     "linearity",
     "load_levels",
@@ -374,3 +376,30 @@ def read_sweep_csv(
         volts[miss] = coef[0] + ((miss[:, None] >> np.arange(bits)[None, :]) & 1) @ coef[1:]
         notes["codes_filled"] = len(missing)
     return LevelSet(bits, volts, "measured", notes)
+
+
+def correction_table(levels: LevelSet, in_bits: int) -> np.ndarray:
+    """Lookup from an ``in_bits``-bit ideal level to the code whose true level is nearest.
+
+    Input ``i`` stands for the ideal level ``i / 2**in_bits`` of full scale (an
+    ideal ``in_bits``-bit DAC code), placed on the ladder's reach the same way
+    :func:`code_scale` places a stream, so firmware that computes samples at
+    run time gets the same correction as ``stream --levels``.  For an ideal
+    ladder and ``in_bits == bits`` the table is the identity.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint16 codes, ``2**in_bits`` entries.
+    """
+    if isinstance(in_bits, bool) or not isinstance(in_bits, int) or not 1 <= in_bits <= 16:
+        raise OptionError(f"must be a whole number 1..16, got {in_bits!r}", field="in_bits")
+    lv, centre, half = code_scale(levels)
+    x = np.arange(1 << in_bits) / (1 << (in_bits - 1)) - 1.0
+    target = centre + x * half
+    order = np.argsort(lv, kind="stable")
+    s = lv[order]
+    hi = np.clip(np.searchsorted(s, target, side="left"), 1, s.size - 1)
+    lo = hi - 1
+    pick = np.where(target - s[lo] < s[hi] - target, lo, hi)  # ties go up
+    return order[pick].astype(np.uint16)

@@ -191,13 +191,17 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
         assert list(adafruit_pioasm.Program(text).assembled) == side["program"]["words"]
 
 
-@pytest.mark.parametrize("command", ["stream", "clock", "demo", "ladder", "levels"])
+@pytest.mark.parametrize(
+    "command", ["stream", "clock", "demo", "ladder", "levels", "sweep", "table correction"]
+)
 def test_every_option_documented_in_help_and_readme(command: str) -> None:
     from ladderpack.cli import cli
 
     readme = (REPO / "README.md").read_text()
-    help_text = run(command, "--help").stdout
-    cmd = cli.commands[command]
+    help_text = run(*command.split(), "--help").stdout
+    cmd = cli
+    for part in command.split():
+        cmd = cmd.commands[part]  # type: ignore[attr-defined]
     for param in cmd.params:
         if param.name == "help" or not getattr(param, "opts", None):
             continue

@@ -74,7 +74,7 @@ def _stub_dir(tmp_path: Path) -> Path:
     dist = md.distribution("micropython-rp2-stubs")
     deps = md.distribution("micropython-stdlib-stubs")
     out = tmp_path / "typings"
-    wanted = {"rp2", "machine.pyi", "micropython.pyi", "vfs.pyi", "_mpy_shed"}
+    wanted = {"rp2", "machine.pyi", "micropython.pyi", "vfs.pyi", "_mpy_shed", "time.pyi"}
     for d in (dist, deps):
         for f in d.files or []:
             parts = Path(str(f)).parts
@@ -97,7 +97,7 @@ def test_player_type_checks_against_rp2_stubs(tmp_path: Path, loop: bool, embed_
     cfg = tmp_path / "mypy.ini"
     cfg.write_text(
         f"[mypy]\nmypy_path = {_stub_dir(tmp_path)}\n"
-        "[mypy-rp2,rp2.*,machine,micropython,vfs,_mpy_shed,_mpy_shed.*]\n"
+        "[mypy-rp2,rp2.*,machine,micropython,vfs,time,_mpy_shed,_mpy_shed.*]\n"
         "ignore_errors = True\n"
     )
     res = subprocess.run(

@@ -1,0 +1,200 @@
+"""Correction tables and the calibration sweep script."""
+
+from __future__ import annotations
+
+import ast
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from helpers import require_tool
+from test_emit_micropython import _stub_dir
+
+from ladderpack.emit import sweep as emit_sweep
+from ladderpack.emit import table as emit_table
+from ladderpack.ladder import Ladder, ideal_ladder, perturbed
+from ladderpack.levels import LevelSet, code_scale, correction_table, ideal_levels
+
+REPO = Path(__file__).resolve().parent.parent
+
+
+@pytest.mark.parametrize("bits", [4, 8, 10])
+def test_ideal_ladder_table_is_identity(bits: int) -> None:
+    np.testing.assert_array_equal(correction_table(ideal_levels(bits), bits), np.arange(1 << bits))
+
+
+def test_wider_input_rounds_to_nearest_code() -> None:
+    tab = correction_table(ideal_levels(8), 10)
+    i = np.arange(1 << 10)
+    np.testing.assert_array_equal(tab, np.clip(np.floor(i / 4 + 0.5), 0, 255))
+
+
+def test_table_picks_nearest_true_level_even_when_non_monotonic() -> None:
+    lad = ideal_ladder(8, 10_000.0)
+    legs = list(lad.legs)
+    legs[7] = (legs[7][0] * 1.03,)  # MSB leg 3 % high: the mid-scale step goes backwards
+    v = Ladder(
+        tuple(legs), lad.rungs, lad.termination_ohms, lad.source_high_ohms, lad.source_low_ohms, 3.3
+    ).levels()
+    lev = LevelSet(8, v)
+    tab = correction_table(lev, 10)
+    lv, centre, half = code_scale(lev)
+    target = centre + (np.arange(1024) / 512 - 1) * half
+    brute = np.argmin(np.abs(lv[None, :] - target[:, None]), axis=1)
+    np.testing.assert_allclose(np.abs(lv[tab] - target), np.abs(lv[brute] - target))
+
+
+@pytest.mark.parametrize("bits", [8, 12])
+def test_table_c_compiles_and_python_parses(tmp_path: Path, bits: int) -> None:
+    gcc = require_tool("gcc")
+    lev = LevelSet(
+        bits, perturbed(ideal_ladder(bits), np.random.default_rng(1), tolerance=0.01).levels()
+    )
+    tab = correction_table(lev, bits + 2)
+    (tmp_path / "fix.h").write_text(
+        emit_table.render_c_header("fix", tab, in_bits=bits + 2, bits=bits, source="t.json")
+    )
+    (tmp_path / "fix.c").write_text(
+        emit_table.render_c_source("fix", tab, bits=bits, source="t.json")
+    )
+    (tmp_path / "main.c").write_text(
+        '#include "fix.h"\n#include <stdio.h>\nint main(void) {\n'
+        "unsigned i; for (i = 0; i < FIX_LENGTH; ++i) "
+        'printf("%u\\n", (unsigned)fix_table[i]);\nreturn 0; }\n'
+    )
+    exe = tmp_path / "t"
+    subprocess.run(
+        [
+            gcc,
+            "-std=c99",
+            "-Wall",
+            "-Wextra",
+            "-Werror",
+            "-pedantic",
+            "-o",
+            str(exe),
+            str(tmp_path / "main.c"),
+            str(tmp_path / "fix.c"),
+        ],
+        check=True,
+    )
+    out = subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout.split()
+    assert [int(x) for x in out] == tab.tolist()
+    py = emit_table.render_micropython("fix", tab, in_bits=bits + 2, bits=bits, source="t.json")
+    tree = ast.parse(py, feature_version=(3, 4))
+    ns: dict[str, object] = {}
+    exec(compile(tree, "fix.py", "exec"), ns)  # plain CPython can run it too
+    assert list(ns["TABLE"]) == tab.tolist()  # type: ignore[call-overload]
+
+
+@pytest.mark.parametrize(("mode", "read"), [("full", "adc"), ("n1", "meter")])
+def test_sweep_script_type_checks_and_parses(tmp_path: Path, mode: str, read: str) -> None:
+    text = emit_sweep.render(bits=8, out_base=16, msb_high=False, invert=True, mode=mode, read=read)
+    ast.parse(text, feature_version=(3, 4))
+    script = tmp_path / "ladder_sweep.py"
+    script.write_text(text)
+    cfg = tmp_path / "mypy.ini"
+    cfg.write_text(
+        f"[mypy]\nmypy_path = {_stub_dir(tmp_path)}\n"
+        "[mypy-rp2,rp2.*,machine,micropython,vfs,time,_mpy_shed,_mpy_shed.*]\n"
+        "ignore_errors = True\n"
+    )
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "mypy",
+            "--config-file",
+            str(cfg),
+            "--no-site-packages",
+            "--strict",
+            "--no-incremental",
+            "--cache-dir",
+            str(tmp_path / "c"),
+            str(script),
+        ],
+        capture_output=True,
+        text=True,
+    )
+    assert res.returncode == 0, res.stdout + res.stderr
+
+
+def test_sweep_script_drives_pins_like_the_packer() -> None:
+    # Run the script's set_code against fake Pin objects and compare with the pin
+    # patterns the packer produces for the same wiring.
+    from ladderpack.pack import WordLayout
+
+    text = emit_sweep.render(bits=6, out_base=3, msb_high=False, invert=True)
+    body = text.split("_pins = ")[0]
+    driven: dict[int, int] = {}
+
+    class FakePin:
+        OUT = 1
+
+        def __init__(self, n: int, mode: int | None = None) -> None:
+            self.n = n
+
+        def value(self, v: int) -> None:
+            driven[self.n] = v
+
+    ns: dict[str, object] = {}
+    exec(body.replace("from machine import ADC, Pin", ""), ns)
+    ns["Pin"] = FakePin
+    exec(
+        "_pins = [Pin(OUT_BASE + k, Pin.OUT) for k in range(BITS)]\n"
+        + text.split("_pins = [Pin(OUT_BASE + k, Pin.OUT) for k in range(BITS)]\n")[1].split(
+            "def codes"
+        )[0],
+        ns,
+    )
+    layout = WordLayout(6, msb_high=False, invert=True)
+    for code in (0, 1, 5, 33, 63):
+        ns["set_code"](code)  # type: ignore[operator]
+        pattern = sum(driven[3 + k] << k for k in range(6))
+        assert pattern == int(layout.to_pins(np.array([code]))[0])
+
+
+def test_sweep_and_table_commands(tmp_path: Path) -> None:
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "sweep",
+            "--bits",
+            "12",
+            "--out-base",
+            "20",
+            "-o",
+            str(tmp_path / "s.py"),
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 2 and "GPIO 20..31" in res.stderr
+    lev = tmp_path / "lv.json"
+    lev.write_text(LevelSet(6, ideal_levels(6).volts).to_json())
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "table",
+            "correction",
+            str(lev),
+            "--in-bits",
+            "8",
+            "-o",
+            str(tmp_path / "t"),
+            "--name",
+            "fix 1",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    assert sorted(p.name for p in (tmp_path / "t").iterdir()) == ["fix_1.c", "fix_1.h", "fix_1.py"]
