@@ -314,6 +314,186 @@ def stream(
         _print_summary(summary, written)
 
 
+def _pairs(text: str | None) -> list[tuple[float, float]] | None:
+    if not text:
+        return None
+    out = []
+    for item in text.split(","):
+        try:
+            f, _, db = item.partition(":")
+            out.append((float(f), float(db or 0.0)))
+        except ValueError:
+            raise click.BadParameter(
+                f"expected FREQ_HZ:LEVEL_DB pairs, got {item!r}", param_hint="--tones"
+            ) from None
+    return out
+
+
+def _code_list(text: str | None) -> list[int] | None:
+    if not text:
+        return None
+    out: list[int] = []
+    for item in text.split(","):
+        try:
+            lo, sep, hi = item.partition("-")
+            out.extend(range(int(lo), int(hi) + 1) if sep else [int(lo)])
+        except ValueError:
+            raise click.BadParameter(
+                f"expected codes like 0-15,32,64, got {item!r}", param_hint="--codes"
+            ) from None
+    return out
+
+
+@cli.command()
+@click.argument(
+    "kind",
+    type=click.Choice(
+        [
+            "sine",
+            "square",
+            "sawtooth",
+            "triangle",
+            "multitone",
+            "sweep",
+            "white",
+            "pink",
+            "dc",
+            "staircase",
+            "impulse",
+            "step",
+        ]
+    ),
+)
+@click.option(
+    "-o",
+    "--out-dir",
+    default="ladderpack_out",
+    show_default=True,
+    help="Folder the bundle is written to.",
+)
+@click.option("--name", default=None, help="Asset name  [default: the kind]")
+@click.option(
+    "--freq-hz",
+    type=float,
+    default=1000.0,
+    show_default=True,
+    help="Frequency of periodic kinds, Hz.",
+)
+@click.option("--level-dbfs", type=float, default=-1.0, show_default=True, help="Peak level, dBFS.")
+@click.option("--seconds", type=float, default=1.0, show_default=True, help="Length, s.")
+@click.option(
+    "--cycles",
+    type=int,
+    default=None,
+    help="Length as whole cycles of --freq-hz (instead of --seconds).",
+)
+@click.option(
+    "--band-limited/--naive",
+    default=True,
+    show_default=True,
+    help="Square, sawtooth, triangle from harmonics below Nyquist, or naive.",
+)
+@click.option(
+    "--tones", default=None, help="Multitone components FREQ_HZ:LEVEL_DB,... (levels relative)."
+)
+@click.option(
+    "--f-start-hz", type=float, default=20.0, show_default=True, help="Exponential sweep start, Hz."
+)
+@click.option(
+    "--f-end-hz",
+    type=float,
+    default=None,
+    help="Exponential sweep end, Hz  [default: 20000 or 0.45 x the rate]",
+)
+@click.option(
+    "--dc-value",
+    type=float,
+    default=0.0,
+    show_default=True,
+    help="DC level, fraction of full scale -1..1.",
+)
+@click.option("--codes", default=None, help="Staircase codes, e.g. 0-15,128  [default: every code]")
+@click.option(
+    "--dwell-ms",
+    type=float,
+    default=10.0,
+    show_default=True,
+    help="Time on each staircase step, ms.",
+)
+@click.option(
+    "--coherent-record",
+    type=int,
+    default=None,
+    help="Record length (samples) of a coherent capture: the frequency moves to a "
+    "cycle count co-prime with it.",
+)
+@_stream_options
+def tone(
+    kind: str,
+    out_dir: str,
+    name: str | None,
+    freq_hz: float,
+    level_dbfs: float,
+    seconds: float,
+    cycles: int | None,
+    band_limited: bool,
+    tones: str | None,
+    f_start_hz: float,
+    f_end_hz: float | None,
+    dc_value: float,
+    codes: str | None,
+    dwell_ms: float,
+    coherent_record: int | None,
+    as_json: bool,
+    **options: Any,
+) -> None:
+    """Synthesise a test waveform KIND at the stream rate and write the same bundle as
+    'stream'."""
+    from ladderpack.bundle import write_bundle
+    from ladderpack.pipeline import stream_tone
+
+    asset = stream_tone(
+        kind,
+        name=name,
+        seconds=seconds,
+        cycles=cycles,
+        freq_hz=freq_hz,
+        level_dbfs=level_dbfs,
+        band_limited=band_limited,
+        tones=_pairs(tones),
+        f_start_hz=f_start_hz,
+        f_end_hz=f_end_hz,
+        dc_value=dc_value,
+        codes=_code_list(codes),
+        dwell_ms=dwell_ms,
+        coherent_record=coherent_record,
+        **options,
+    )
+    written = write_bundle(asset, out_dir)
+    summary = asset.summary()
+    summary["tone"] = asset.stats["tone"]
+    if as_json:
+        summary["files"] = written
+        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        return
+    info = asset.stats["tone"]
+    if info.get("freq_hz") is not None and kind not in ("dc", "staircase", "white", "pink"):
+        extra = (
+            f", {info['cycles_per_record']} cycles per {info['record']}-sample record"
+            if "record" in info
+            else (f", {info['cycles']} cycles per loop" if "cycles" in info else "")
+        )
+        click.echo(
+            f"tone     {kind} {info['requested_freq_hz']:g} Hz requested, "
+            f"{info['freq_hz']:.6f} Hz used ({info['freq_error_hz']:+.6f} Hz){extra}"
+        )
+    elif kind == "staircase":
+        click.echo(
+            f"tone     staircase of {info['steps']} steps, {info['dwell_samples']} samples each"
+        )
+    _print_summary(summary, written)
+
+
 @cli.command()
 @click.argument("rate_hz", type=float)
 @click.option(
@@ -738,6 +918,121 @@ def table_correction(
         f"{ident}: {m}-bit ideal level -> {lev.bits}-bit code, {tab.size} entries, "
         f"{summary['distinct_codes']} distinct codes used"
     )
+    for path in written:
+        click.echo(f"  wrote    {path}")
+
+
+@table.command("wave")
+@click.option(
+    "--kind",
+    type=click.Choice(["sine", "square", "sawtooth", "triangle"]),
+    default="sine",
+    show_default=True,
+    help="Waveform of the table (naive shapes).",
+)
+@click.option(
+    "--table-bits", type=int, default=8, show_default=True, help="Table of 2^k entries: k, 2..16."
+)
+@click.option(
+    "--bits", type=int, default=8, show_default=True, help="Ladder code width of the entries."
+)
+@click.option("--level-dbfs", type=float, default=-1.0, show_default=True, help="Peak level, dBFS.")
+@click.option(
+    "--freqs-hz",
+    default="440",
+    show_default=True,
+    help="Frequencies to give phase increments for, comma-separated, Hz.",
+)
+@click.option(
+    "--rate-hz",
+    type=float,
+    default=22050.0,
+    show_default=True,
+    help="Requested stream rate, Hz (the clock plan's achieved rate is used).",
+)
+@click.option(
+    "--sys-clock-hz",
+    type=int,
+    default=D["sys_clock_hz"],
+    show_default=True,
+    help="System clock, Hz.",
+)
+@click.option(
+    "--rate-tolerance-ppm",
+    type=float,
+    default=D["rate_tolerance_ppm"],
+    show_default=True,
+    help="Rate error accepted for an integer divider, ppm.",
+)
+@click.option(
+    "-o",
+    "--out-dir",
+    default="ladderpack_out",
+    show_default=True,
+    help="Folder the table files go to.",
+)
+@click.option(
+    "--name", default="wavetable", show_default=True, help="Table name for files and symbols."
+)
+@click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
+def table_wave(
+    kind: str,
+    table_bits: int,
+    bits: int,
+    level_dbfs: float,
+    freqs_hz: str,
+    rate_hz: float,
+    sys_clock_hz: int,
+    rate_tolerance_ppm: float,
+    out_dir: str,
+    name: str,
+    as_json: bool,
+) -> None:
+    """A 2^k-entry wavetable in ladder codes plus 32-bit phase-accumulator increments,
+    as C and MicroPython arrays, for firmware that synthesises at run time."""
+    from ladderpack.clock import plan_clock
+    from ladderpack.emit import table as emit_table
+    from ladderpack.emit import write_files
+    from ladderpack.emit.names import asset_identifier
+    from ladderpack.quantize import check_bits
+    from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
+
+    check_bits(bits)
+    try:
+        freqs = [float(f) for f in freqs_hz.split(",") if f.strip()]
+    except ValueError:
+        raise click.BadParameter(
+            f"expected comma-separated numbers, got {freqs_hz!r}", param_hint="--freqs-hz"
+        ) from None
+    plan = plan_clock(rate_hz, sys_clock_hz=sys_clock_hz, tolerance_ppm=rate_tolerance_ppm)
+    rate = float(plan.achieved_rate_hz)
+    tab = wavetable(kind, table_bits, bits=bits, level_dbfs=level_dbfs)
+    incs = phase_increments(freqs, rate)
+    spur = truncation_spur_dbc(table_bits)
+    ident = asset_identifier(name)
+    files = emit_table.render_wave_files(
+        ident, tab, incs, table_bits=table_bits, bits=bits, rate_hz=rate, spur_dbc=spur, kind=kind
+    )
+    written = write_files(files, out_dir)
+    summary = {
+        "name": ident,
+        "entries": int(tab.size),
+        "bits": bits,
+        "rate_hz": rate,
+        "resolution_hz": rate / 2**32,
+        "worst_truncation_spur_dbc": spur,
+        "increments": [{"requested_hz": f, "increment": i, "actual_hz": a} for f, i, a in incs],
+        "files": written,
+    }
+    if as_json:
+        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        return
+    click.echo(
+        f"{ident}: {kind}, {tab.size} entries of {bits}-bit codes at {rate:.6f} Hz; "
+        f"resolution {rate / 2**32:.3e} Hz, worst phase-truncation spur {spur:.1f} dBc"
+    )
+    for f, i, a in incs:
+        click.echo(f"  {f:g} Hz -> increment {i} ({a:.6f} Hz)")
     for path in written:
         click.echo(f"  wrote    {path}")
 

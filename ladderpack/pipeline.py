@@ -54,7 +54,14 @@ from ladderpack.quantize import (
 )
 from ladderpack.shaping import design_shaper, get_shaper, predict_noise
 
-__all__ = ["STAGES", "STREAM_DEFAULTS", "stream_clip", "stream_signal"]
+__all__ = [
+    "EXACT_KINDS",
+    "STAGES",
+    "STREAM_DEFAULTS",
+    "stream_clip",
+    "stream_signal",
+    "stream_tone",
+]
 
 
 def _check_choice(value: str, choices: tuple[str, ...] | list[str], field: str) -> str:
@@ -82,7 +89,7 @@ def _check_int(value: object, field: str, lo: int, hi: int | None = None) -> int
 
 
 def stream_signal(
-    sig: Signal,
+    sig: Signal | Callable[[float, int], Signal],
     *,
     name: str,
     bits: int = STREAM_DEFAULTS["bits"],
@@ -124,8 +131,11 @@ def stream_signal(
 
     Parameters
     ----------
-    sig : Signal
-        Mono input, nominal full scale +/-1.0, at any rate.
+    sig : Signal or callable
+        Mono input, nominal full scale +/-1.0, at any rate.  Or a function
+        ``synth(rate_hz, samples_per_word) -> Signal`` that synthesises the
+        stream directly at the achieved rate: its samples are used as they are
+        (no DC removal, resampling, normalisation or fades).
     name : str
         Asset name; sanitised into the identifier used for files and symbols.
     bits : int
@@ -246,11 +256,15 @@ def stream_signal(
                 f"the levels file is for {levelset.bits} bits but the stream is {bits}-bit",
                 field="levels",
             )
-    check_signal(sig, source=(source or {}).get("file"))
-    if sig.samples.ndim != 1:
-        raise OptionError(
-            "expected a mono signal; downmix or pick a channel first", field="samples"
-        )
+    synth = sig if callable(sig) else None
+    if not isinstance(sig, Signal) and synth is None:
+        raise OptionError("expected a Signal or a synthesis function", field="samples")
+    if isinstance(sig, Signal):
+        check_signal(sig, source=(source or {}).get("file"))
+        if sig.samples.ndim != 1:
+            raise OptionError(
+                "expected a mono signal; downmix or pick a channel first", field="samples"
+            )
 
     layout = WordLayout(
         bits,
@@ -300,20 +314,26 @@ def stream_signal(
     predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=weighting)
 
     done = progress or (lambda stage: None)
-    x = conform.remove_dc(sig)
     loop_rate_ppm = 0.0
-    if loop:
+    gain_db = 0.0
+    if synth is not None:
+        x = check_signal(synth(rate, spw))
+        x = Signal(x.samples, rate)
+        sig = x
+    elif loop:
+        x = conform.remove_dc(sig)
         x = conform.loop_crossfade(x, crossfade_ms=crossfade_ms)
         rate = conform.loop_rate(x.frames, x.rate_hz, plan.achieved_rate_hz, spw)
         loop_rate_ppm = float((rate / plan.achieved_rate_hz - 1) * 1_000_000)
         x = conform.resample(x, rate, bits=bits, periodic=True)
         x = Signal(x.samples, float(plan.achieved_rate_hz))
     else:
-        x = conform.resample(x, plan.achieved_rate_hz, bits=bits)
+        x = conform.resample(conform.remove_dc(sig), plan.achieved_rate_hz, bits=bits)
     done("resample")
-    x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
-    if not loop:
-        x = conform.apply_fades(x, fade_ms=fade_ms)
+    if synth is None:
+        x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
+        if not loop:
+            x = conform.apply_fades(x, fade_ms=fade_ms)
     audio, report = quantize(x, bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levelset)
     done("quantise")
     ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
@@ -481,3 +501,137 @@ def stream_clip(
         options["progress"]("read")
     stem = name if name is not None else os.path.splitext(os.path.basename(fname))[0]
     return stream_signal(sig, name=stem, source=source, **options)
+
+
+#: Tone kinds whose codes must come out exact: quantised without dither or shaping.
+EXACT_KINDS = ("staircase", "dc")
+
+
+def stream_tone(
+    kind: str,
+    *,
+    name: str | None = None,
+    seconds: float = 1.0,
+    cycles: int | None = None,
+    freq_hz: float = 1000.0,
+    level_dbfs: float = -1.0,
+    band_limited: bool = True,
+    tones: list[tuple[float, float]] | None = None,
+    f_start_hz: float = 20.0,
+    f_end_hz: float | None = None,
+    dc_value: float = 0.0,
+    codes: list[int] | None = None,
+    dwell_ms: float = 10.0,
+    coherent_record: int | None = None,
+    **options: Any,
+) -> StreamAsset:
+    """Synthesise a test waveform at the stream's achieved rate and make a bundle of it.
+
+    Parameters
+    ----------
+    kind : str
+        One of :data:`ladderpack.waves.TONE_KINDS`.
+    name : str, optional
+        Asset name (default: the kind).
+    seconds : float
+        Length, s (ignored when `cycles` is given, and for the staircase).
+    cycles : int, optional
+        Length as a number of cycles of `freq_hz`.
+    freq_hz : float
+        Frequency of periodic kinds, Hz.
+    level_dbfs : float
+        Peak level, dBFS.
+    band_limited : bool
+        Square, sawtooth and triangle without components above Nyquist.
+    tones : list of (freq_hz, level_db)
+        Multitone components.
+    f_start_hz, f_end_hz : float
+        Exponential sweep range, Hz (default end: 20 kHz or just under Nyquist).
+    dc_value : float
+        DC level as a fraction of full scale.
+    codes : list of int, optional
+        Codes the staircase visits (default every code).
+    dwell_ms : float
+        Time on each staircase step, ms.
+    coherent_record : int, optional
+        Record length, samples, of a coherent capture: the frequency is moved
+        to a cycle count co-prime with it (IEEE Std 1241 practice).
+    **options
+        Any keyword of :func:`stream_signal` (``loop=True`` adjusts the
+        frequency so whole cycles fill the loop).
+    """
+    from ladderpack.waves import TONE_KINDS, coherent_cycles, loop_cycles, synthesise
+
+    _check_choice(kind, TONE_KINDS, "kind")
+    bits = check_bits(options.get("bits", STREAM_DEFAULTS["bits"]))
+    loop = bool(options.get("loop", False))
+    if kind in EXACT_KINDS:
+        options["dither"] = "none"
+        options["shaping"] = "none"
+    periodic = kind in ("sine", "square", "sawtooth", "triangle")
+    info: dict[str, Any] = {"kind": kind, "level_dbfs": level_dbfs}
+    for value, field in ((seconds, "seconds"), (freq_hz, "freq_hz"), (dwell_ms, "dwell_ms")):
+        if not (math.isfinite(value) and value > 0):
+            raise OptionError(f"must be > 0, got {value!r}", field=field)
+
+    def synth(rate: float, spw: int) -> Signal:
+        f = freq_hz
+        if kind == "staircase":
+            dwell = max(1, round(dwell_ms * 1e-3 * rate))
+            x = synthesise(
+                kind, rate_hz=rate, samples=0, staircase_codes=codes, dwell_samples=dwell, bits=bits
+            )
+            if loop and x.size % spw:
+                x = np.tile(x, spw // math.gcd(x.size, spw))
+            info.update(dwell_samples=dwell, steps=x.size // dwell)
+            return Signal(x, rate)
+        if coherent_record is not None:
+            if (
+                isinstance(coherent_record, bool)
+                or not isinstance(coherent_record, int)
+                or (coherent_record < 4)
+            ):
+                raise OptionError(
+                    f"must be a whole number >= 4, got {coherent_record!r}", field="coherent_record"
+                )
+            m = coherent_cycles(freq_hz, coherent_record, rate)
+            f = m * rate / coherent_record
+            span = (
+                coherent_record * spw // math.gcd(coherent_record, spw)
+                if loop
+                else (coherent_record * max(1, math.ceil(seconds * rate / coherent_record)))
+            )
+            info.update(record=coherent_record, cycles_per_record=m)
+            n = span
+        elif cycles is not None:
+            n = max(1, round(cycles * rate / freq_hz))
+        else:
+            n = max(1, round(seconds * rate))
+        if loop and coherent_record is None:
+            n = max(spw, n - n % spw)
+            if periodic or kind in ("multitone",):
+                c = loop_cycles(freq_hz, n, rate)
+                f = c * rate / n
+                info["cycles"] = c
+        info.update(freq_hz=f, requested_freq_hz=freq_hz, freq_error_hz=f - freq_hz, samples=n)
+        x = synthesise(
+            kind,
+            rate_hz=rate,
+            samples=n,
+            level_dbfs=level_dbfs,
+            freq_hz=f,
+            band_limited=band_limited,
+            tones=tones,
+            f_start_hz=f_start_hz,
+            f_end_hz=f_end_hz if f_end_hz is not None else min(20000.0, 0.45 * rate),
+            dc_value=dc_value,
+            bits=bits,
+            seed=int(options.get("seed", 0)),
+        )
+        return Signal(x, rate)
+
+    asset = stream_signal(
+        synth, name=name or kind, source={"file": f"synthesised {kind}"}, **options
+    )
+    asset.stats["tone"] = info
+    return asset

@@ -192,7 +192,18 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize(
-    "command", ["stream", "clock", "demo", "ladder", "levels", "sweep", "table correction"]
+    "command",
+    [
+        "stream",
+        "clock",
+        "demo",
+        "ladder",
+        "levels",
+        "sweep",
+        "table correction",
+        "table wave",
+        "tone",
+    ],
 )
 def test_every_option_documented_in_help_and_readme(command: str) -> None:
     from ladderpack.cli import cli

@@ -198,3 +198,72 @@ def test_sweep_and_table_commands(tmp_path: Path) -> None:
     )
     assert res.returncode == 0, res.stderr
     assert sorted(p.name for p in (tmp_path / "t").iterdir()) == ["fix_1.c", "fix_1.h", "fix_1.py"]
+
+
+def test_wave_table_files_compile_and_agree(tmp_path: Path) -> None:
+    gcc = require_tool("gcc")
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "table",
+            "wave",
+            "--table-bits",
+            "9",
+            "--bits",
+            "12",
+            "--freqs-hz",
+            "440,1000.5",
+            "-o",
+            str(tmp_path),
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    import json
+
+    summary = json.loads(res.stdout)
+    (tmp_path / "main.c").write_text(
+        '#include "wavetable.h"\n#include <stdio.h>\nint main(void) {\n'
+        "unsigned i; for (i = 0; i < WAVETABLE_LENGTH; ++i) "
+        'printf("%u\\n", (unsigned)wavetable_table[i]);\n'
+        "for (i = 0; i < WAVETABLE_INCREMENT_COUNT; ++i) "
+        'printf("%lu\\n", (unsigned long)wavetable_increments[i]);\nreturn 0; }\n'
+    )
+    exe = tmp_path / "w"
+    subprocess.run(
+        [
+            gcc,
+            "-std=c99",
+            "-Wall",
+            "-Wextra",
+            "-Werror",
+            "-pedantic",
+            "-o",
+            str(exe),
+            str(tmp_path / "main.c"),
+            str(tmp_path / "wavetable.c"),
+        ],
+        check=True,
+    )
+    out = [
+        int(v)
+        for v in subprocess.run(
+            [str(exe)], capture_output=True, text=True, check=True
+        ).stdout.split()
+    ]
+    from ladderpack.waves import wavetable
+
+    assert out[:512] == wavetable("sine", 9, bits=12).tolist()
+    assert out[512:] == [i["increment"] for i in summary["increments"]]
+    rate = summary["rate_hz"]
+    for inc in summary["increments"]:
+        assert inc["increment"] == round(inc["requested_hz"] * 2**32 / rate)
+    py = (tmp_path / "wavetable.py").read_text()
+    ns: dict[str, object] = {}
+    exec(compile(ast.parse(py, feature_version=(3, 4)), "w.py", "exec"), ns)
+    assert list(ns["TABLE"]) == out[:512]  # type: ignore[call-overload]
