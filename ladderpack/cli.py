@@ -1151,6 +1151,56 @@ def sweep(
 
 
 @cli.command()
+@click.argument("manifest", default="ladderpack.toml", type=click.Path(dir_okay=False))
+@click.option(
+    "--jobs", type=int, default=1, show_default=True, help="Assets built in parallel (processes)."
+)
+@click.option(
+    "--check",
+    is_flag=True,
+    help="Build nothing; exit 1 naming every asset whose outputs are missing, "
+    "stale or edited by hand (for CI).",
+)
+@click.option(
+    "--depfile",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Write a Make-format dependency file naming every input of every output.",
+)
+@click.option(
+    "--only",
+    multiple=True,
+    help="Build just this asset (repeatable); the index and depfile cover all.",
+)
+def build(
+    manifest: str, jobs: int, check: bool, depfile: str | None, only: tuple[str, ...]
+) -> None:
+    """Build every asset of MANIFEST (default ladderpack.toml), skipping those that are up
+    to date, and write an index of them for the firmware."""
+    from ladderpack.build import build as run_build
+    from ladderpack.build import load_manifest
+    from ladderpack.errors import OptionError
+
+    if jobs < 1:
+        raise OptionError(f"must be at least 1, got {jobs}", field="jobs")
+    result = run_build(
+        load_manifest(manifest),
+        jobs=jobs,
+        only=list(only) or None,
+        check=check,
+        depfile=depfile,
+        echo=click.echo,
+    )
+    if check and result.problems:
+        click.echo(
+            f"ladderpack: {len(result.problems)} asset(s) out of date: "
+            + ", ".join(n for n, _ in result.problems),
+            err=True,
+        )
+        sys.exit(1)
+
+
+@cli.command()
 @click.argument("out_dir", type=click.Path(file_okay=False, path_type=str))
 @click.option(
     "--clips-dir",

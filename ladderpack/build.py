@@ -1,0 +1,693 @@
+"""Manifest builds: many assets, incremental, with a depfile and a CI check mode.
+
+A manifest (``ladderpack.toml``, read with the standard library's tomllib)::
+
+    [project]
+    out_dir = "generated"        # relative to the manifest
+
+    [defaults]                   # any stream option, for every asset
+    bits = 8
+    rate_hz = 22050
+    out_base = 16
+
+    [[asset]]
+    name = "door_chime"
+    clip = "clips/door_chime.flac"
+
+    [[asset]]
+    name = "bench_tone"
+    tone = "sine"
+    freq_hz = 1000
+    loop = true
+
+    [[asset]]
+    name = "sine_table"
+    table = "wave"
+    table_bits = 8
+
+Every asset is fingerprinted from the tool version, its kind, its effective options
+and the SHA-256 of each input file.  An asset whose fingerprint and outputs are
+unchanged is skipped.  Only stdlib is imported until something has to be built, so
+a no-op build is quick.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import tomllib
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from typing import Any
+
+from ladderpack._version import __version__
+from ladderpack.defaults import STREAM_DEFAULTS
+from ladderpack.errors import LadderpackError
+
+__all__ = ["STATE_NAME", "AssetSpec", "BuildResult", "Manifest", "build", "load_manifest"]
+
+STATE_NAME = ".ladderpack-state.json"
+INDEX_STEM = "assets"
+PLAYER_FILES = ("ladderpack_player.h", "ladderpack_player.c")
+
+_NUM = (int, float)
+#: Types allowed for each stream option in a manifest (None allowed where the default is).
+_STREAM_TYPES: dict[str, tuple[type, ...]] = {
+    k: (
+        (bool,)
+        if isinstance(v, bool)
+        else _NUM
+        if isinstance(v, int | float)
+        else (str,)
+        if isinstance(v, str)
+        else ()
+    )
+    for k, v in STREAM_DEFAULTS.items()
+}
+_STREAM_TYPES.update(
+    band_hz=_NUM, ntf_max_db=_NUM, samples_per_word=(int,), levels=(str,), embed_words_max=(int,)
+)
+_CLIP_TYPES = {"channel": (int,)}
+_TONE_TYPES: dict[str, tuple[type, ...]] = {
+    "seconds": _NUM,
+    "cycles": (int,),
+    "freq_hz": _NUM,
+    "level_dbfs": _NUM,
+    "band_limited": (bool,),
+    "tones": (list,),
+    "f_start_hz": _NUM,
+    "f_end_hz": _NUM,
+    "dc_value": _NUM,
+    "codes": (list,),
+    "dwell_ms": _NUM,
+    "coherent_record": (int,),
+}
+_TABLE_TYPES: dict[str, dict[str, tuple[type, ...]]] = {
+    "wave": {
+        "kind": (str,),
+        "table_bits": (int,),
+        "bits": (int,),
+        "level_dbfs": _NUM,
+        "freqs_hz": (list,),
+        "rate_hz": _NUM,
+        "sys_clock_hz": (int,),
+        "rate_tolerance_ppm": _NUM,
+    },
+    "correction": {"levels": (str,), "in_bits": (int,)},
+}
+_KIND_KEYS = ("clip", "tone", "table")
+
+
+@dataclass(frozen=True)
+class AssetSpec:
+    """One asset of a manifest, with its effective options.
+
+    Attributes
+    ----------
+    name : str
+        Safe identifier.
+    kind : {'clip', 'tone', 'table'}
+        What it is made from.
+    source : str
+        The clip path (absolute), tone kind or table kind.
+    options : dict
+        Effective options (defaults merged with the asset's own keys); paths
+        absolute.
+    inputs : tuple of str
+        Absolute paths of every input file (clip, levels file).
+    """
+
+    name: str
+    kind: str
+    source: str
+    options: dict[str, Any]
+    inputs: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Manifest:
+    """A parsed manifest."""
+
+    path: str
+    root: str
+    out_dir: str
+    assets: tuple[AssetSpec, ...]
+    flash_bytes: int
+    flash_reserve_bytes: int
+
+
+@dataclass
+class BuildResult:
+    """What a build did."""
+
+    built: list[str] = field(default_factory=list)
+    up_to_date: list[str] = field(default_factory=list)
+    problems: list[tuple[str, str]] = field(default_factory=list)  # (asset, why) in check
+    total_bytes: int = 0
+
+
+def _err(path: str, message: str, asset: str | None = None, key: str | None = None) -> None:
+    where = f"asset {asset!r}" if asset else None
+    field_name = ".".join(p for p in (where, key) if p) or None
+    raise LadderpackError(message, file=path, field=field_name)
+
+
+def _check_types(
+    path: str, asset: str | None, table: dict[str, Any], types: dict[str, tuple[type, ...]]
+) -> None:
+    for key, value in table.items():
+        if key not in types:
+            _err(path, f"unknown key; expected one of {', '.join(sorted(types))}", asset, key)
+        allowed = types[key]
+        if isinstance(value, bool) and bool not in allowed:
+            _err(
+                path,
+                f"expected {' or '.join(t.__name__ for t in allowed)}, got a boolean",
+                asset,
+                key,
+            )
+        if not isinstance(value, allowed):
+            _err(
+                path,
+                f"expected {' or '.join(t.__name__ for t in allowed)}, got "
+                f"{type(value).__name__} {value!r}",
+                asset,
+                key,
+            )
+
+
+def load_manifest(path: str | os.PathLike[str]) -> Manifest:
+    """Read and validate a manifest.
+
+    Raises
+    ------
+    LadderpackError
+        Naming the file, the asset and the key for unknown keys, wrong types,
+        missing or duplicate names and impossible combinations.
+    """
+    from ladderpack.emit.names import asset_identifier
+
+    mpath = os.fspath(path)
+    try:
+        with open(mpath, "rb") as fh:
+            doc = tomllib.load(fh)
+    except FileNotFoundError:
+        raise LadderpackError("no such manifest", file=mpath) from None
+    except (OSError, tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise LadderpackError(f"not valid TOML ({exc})", file=mpath) from None
+    root = os.path.dirname(os.path.abspath(mpath))
+    _check_types(
+        mpath,
+        None,
+        {k: v for k, v in doc.items()},
+        {"project": (dict,), "defaults": (dict,), "asset": (list,)},
+    )
+    project = doc.get("project", {})
+    _check_types(mpath, None, project, {"out_dir": (str,)})
+    defaults = doc.get("defaults", {})
+    all_types = {**_STREAM_TYPES, **_TONE_TYPES, **_CLIP_TYPES}
+    _check_types(mpath, None, defaults, all_types)
+    out_dir = os.path.normpath(os.path.join(root, project.get("out_dir", "generated")))
+    assets: list[AssetSpec] = []
+    seen: dict[str, str] = {}
+    for i, raw in enumerate(doc.get("asset", [])):
+        if not isinstance(raw, dict):
+            _err(mpath, f"asset {i + 1} must be a table", None, "asset")
+        label = str(raw.get("name", f"#{i + 1}"))
+        kinds = [k for k in _KIND_KEYS if k in raw]
+        if len(kinds) != 1:
+            _err(mpath, "give exactly one of clip, tone or table", label, ",".join(kinds) or "clip")
+        kind = kinds[0]
+        if "name" not in raw or not isinstance(raw["name"], str):
+            _err(mpath, "every asset needs a name (a string)", label, "name")
+        try:
+            ident = asset_identifier(raw["name"])
+        except LadderpackError as exc:
+            _err(mpath, exc.message, label, "name")
+        if ident in seen:
+            _err(
+                mpath,
+                f"name {raw['name']!r} and {seen[ident]!r} both become {ident!r}",
+                label,
+                "name",
+            )
+        seen[ident] = raw["name"]
+        if not isinstance(raw[kind], str):
+            _err(mpath, "expected a string", label, kind)
+        own = {k: v for k, v in raw.items() if k not in ("name", kind)}
+        inputs: list[str] = []
+        if kind == "table":
+            if raw[kind] not in _TABLE_TYPES:
+                _err(mpath, f"expected one of {', '.join(_TABLE_TYPES)}", label, "table")
+            _check_types(mpath, label, own, _TABLE_TYPES[raw[kind]])
+            opts = dict(own)
+            if raw[kind] == "correction" and "levels" not in opts:
+                _err(mpath, "a correction table needs a levels file", label, "levels")
+            source = raw[kind]
+        else:
+            types = {**_STREAM_TYPES, **(_CLIP_TYPES if kind == "clip" else _TONE_TYPES)}
+            _check_types(mpath, label, own, types)
+            inherited = {k: v for k, v in defaults.items() if k in types}
+            opts = {**inherited, **own}
+            if kind == "clip":
+                source = os.path.normpath(os.path.join(root, raw[kind]))
+                inputs.append(source)
+            else:
+                source = raw[kind]
+        if "levels" in opts:
+            opts["levels"] = os.path.normpath(os.path.join(root, opts["levels"]))
+            inputs.append(opts["levels"])
+        if opts.get("cycles") is not None and "seconds" in own:
+            _err(mpath, "give seconds or cycles, not both", label, "cycles")
+        for p in inputs:
+            if not os.path.isfile(p):
+                _err(
+                    mpath,
+                    f"input file {os.path.relpath(p, root)!r} does not exist",
+                    label,
+                    kind if p == source else "levels",
+                )
+        assets.append(AssetSpec(ident, kind, source, opts, tuple(inputs)))
+    if not assets:
+        _err(mpath, "no [[asset]] entries", None, "asset")
+    flash = int(defaults.get("flash_bytes", STREAM_DEFAULTS["flash_bytes"]))
+    reserve = int(defaults.get("flash_reserve_bytes", STREAM_DEFAULTS["flash_reserve_bytes"]))
+    return Manifest(mpath, root, out_dir, tuple(assets), flash, reserve)
+
+
+def _sha256(path: str) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _rel(p: str, root: str) -> str:
+    return os.path.relpath(p, root).replace(os.sep, "/")
+
+
+def input_stats(spec: AssetSpec, root: str) -> dict[str, list[int]]:
+    """(mtime in ns, size) of each input: a touched file counts as changed."""
+    out = {}
+    for p in spec.inputs:
+        st = os.stat(p)
+        out[_rel(p, root)] = [st.st_mtime_ns, st.st_size]
+    return out
+
+
+def input_hashes(
+    spec: AssetSpec,
+    root: str,
+    known: dict[str, Any] | None = None,
+    stats: dict[str, list[int]] | None = None,
+) -> dict[str, str]:
+    """SHA-256 of each input, reusing `known` digests for files whose stats are unchanged."""
+    known = known or {}
+    out = {}
+    for p in spec.inputs:
+        r = _rel(p, root)
+        rec = known.get(r)
+        if rec and stats and rec.get("stat") == stats.get(r):
+            out[r] = rec["sha256"]
+        else:
+            out[r] = _sha256(p)
+    return out
+
+
+def fingerprint(spec: AssetSpec, root: str, hashes: dict[str, str] | None = None) -> str:
+    """Hash of everything an asset's outputs depend on (no absolute paths, no times)."""
+    opts = {k: (_rel(v, root) if k == "levels" else v) for k, v in spec.options.items()}
+    doc = {
+        "tool": __version__,
+        "name": spec.name,
+        "kind": spec.kind,
+        "source": _rel(spec.source, root) if spec.kind == "clip" else spec.source,
+        "options": opts,
+        "inputs": hashes if hashes is not None else input_hashes(spec, root),
+    }
+    return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()
+
+
+def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
+    """Build one asset in memory: its files and its index entry (runs in a worker)."""
+    if spec.kind == "table":
+        return _render_table(spec)
+    from ladderpack.bundle import bundle_files
+    from ladderpack.pipeline import stream_clip, stream_tone
+
+    opts = dict(spec.options)
+    if spec.kind == "clip":
+        asset = stream_clip(spec.source, name=spec.name, **opts)
+    else:
+        if "tones" in opts:
+            opts["tones"] = [tuple(t) for t in opts["tones"]]
+        asset = stream_tone(spec.source, name=spec.name, **opts)
+    files = bundle_files(asset)
+    entry = {
+        "name": spec.name,
+        "kind": spec.kind,
+        "rate_hz": float(asset.plan.achieved_rate_hz),
+        "bits": asset.codes.bits,
+        "samples": asset.sample_count,
+        "words": asset.word_count,
+        "bytes": asset.byte_count,
+        "data": f"{spec.name}_words",
+    }
+    return files, entry
+
+
+def _render_table(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
+    from ladderpack.emit import table as emit_table
+
+    o = spec.options
+    if spec.source == "wave":
+        from ladderpack.clock import plan_clock
+        from ladderpack.quantize import check_bits
+        from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
+
+        bits = check_bits(o.get("bits", 8))
+        k = o.get("table_bits", 8)
+        plan = plan_clock(
+            o.get("rate_hz", 22050.0),
+            sys_clock_hz=o.get("sys_clock_hz", STREAM_DEFAULTS["sys_clock_hz"]),
+            tolerance_ppm=o.get("rate_tolerance_ppm", 100.0),
+        )
+        rate = float(plan.achieved_rate_hz)
+        tab = wavetable(o.get("kind", "sine"), k, bits=bits, level_dbfs=o.get("level_dbfs", -1.0))
+        incs = phase_increments([float(f) for f in o.get("freqs_hz", [440.0])], rate)
+        files = emit_table.render_wave_files(
+            spec.name,
+            tab,
+            incs,
+            table_bits=k,
+            bits=bits,
+            rate_hz=rate,
+            spur_dbc=truncation_spur_dbc(k),
+            kind=o.get("kind", "sine"),
+        )
+        entry = {
+            "name": spec.name,
+            "kind": "table",
+            "rate_hz": rate,
+            "bits": bits,
+            "samples": int(tab.size),
+            "words": 0,
+            "bytes": int(tab.size) * (1 if bits <= 8 else 2),
+            "data": None,
+        }
+        return files, entry
+    from ladderpack.levels import correction_table, load_levels
+
+    lev = load_levels(o["levels"])
+    m = o.get("in_bits", lev.bits)
+    tab = correction_table(lev, m)
+    src = os.path.basename(o["levels"])
+    files = {
+        f"{spec.name}.h": emit_table.render_c_header(
+            spec.name, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+        f"{spec.name}.c": emit_table.render_c_source(
+            spec.name, tab, bits=lev.bits, source=src
+        ).encode(),
+        f"{spec.name}.py": emit_table.render_micropython(
+            spec.name, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+    }
+    entry = {
+        "name": spec.name,
+        "kind": "table",
+        "rate_hz": 0.0,
+        "bits": lev.bits,
+        "samples": int(tab.size),
+        "words": 0,
+        "bytes": int(tab.size) * (1 if lev.bits <= 8 else 2),
+        "data": None,
+    }
+    return files, entry
+
+
+def _index_files(entries: list[dict[str, Any]]) -> dict[str, bytes]:
+    """assets.h / assets.c / assets.py listing every asset (sorted by name)."""
+    rows = sorted(entries, key=lambda e: e["name"])
+    h = [
+        f"/* Generated by ladderpack {__version__}. Do not edit. */",
+        "#ifndef LADDERPACK_ASSETS_H",
+        "#define LADDERPACK_ASSETS_H",
+        "",
+        "#include <stdint.h>",
+        "",
+        "typedef struct ladderpack_asset {",
+        "    const char *name;",
+        "    const char *kind;      /* clip, tone or table */",
+        "    double rate_hz;        /* achieved stream rate (0 for correction tables) */",
+        "    unsigned bits;",
+        "    unsigned long samples; /* samples or table entries */",
+        "    unsigned long words;   /* 32-bit FIFO words (0 for tables) */",
+        "    unsigned long bytes;   /* flash taken */",
+        "    const uint32_t *words_data; /* the stream's words, or NULL */",
+        "} ladderpack_asset_t;",
+        "",
+        f"#define LADDERPACK_ASSET_COUNT {len(rows)}u",
+        "",
+        "extern const ladderpack_asset_t ladderpack_assets[LADDERPACK_ASSET_COUNT];",
+        "",
+        "#endif /* LADDERPACK_ASSETS_H */",
+        "",
+    ]
+    c = [f"/* Generated by ladderpack {__version__}. Do not edit. */", '#include "assets.h"']
+    c += [f'#include "{e["name"]}.h"' for e in rows]
+    c += ["", "const ladderpack_asset_t ladderpack_assets[LADDERPACK_ASSET_COUNT] = {"]
+    for i, e in enumerate(rows):
+        data = e["data"] or "0"
+        c.append(
+            f'    {{"{e["name"]}", "{e["kind"]}", {float(e["rate_hz"])!r}, {e["bits"]}u, '
+            f"{e['samples']}ul, {e['words']}ul, {e['bytes']}ul, {data}}}"
+            + ("," if i < len(rows) - 1 else "")
+        )
+    c += ["};", ""]
+    py = [
+        f"# Generated by ladderpack {__version__}. Do not edit.",
+        "# (name, kind, rate_hz, bits, samples, words, bytes)",
+        "ASSETS = [",
+    ]
+    py += [
+        f"    ({e['name']!r}, {e['kind']!r}, {float(e['rate_hz'])!r}, {e['bits']}, "
+        f"{e['samples']}, {e['words']}, {e['bytes']}),"
+        for e in rows
+    ]
+    py += ["]", ""]
+    return {
+        f"{INDEX_STEM}.h": "\n".join(h).encode(),
+        f"{INDEX_STEM}.c": "\n".join(c).encode(),
+        f"{INDEX_STEM}.py": "\n".join(py).encode(),
+    }
+
+
+def _load_state(out_dir: str) -> dict[str, Any]:
+    try:
+        with open(os.path.join(out_dir, STATE_NAME), encoding="utf-8") as fh:
+            state = json.load(fh)
+        return state if isinstance(state, dict) else {}
+    except (OSError, ValueError):
+        return {}
+
+
+def _write_changed(files: dict[str, bytes], out_dir: str, *, touch: bool = False) -> None:
+    """Write only the files whose bytes differ, atomically, in order (sidecar last).
+
+    With `touch`, files that are already right get a new modification time, so a
+    rebuilt asset's outputs are newer than its inputs for Make and Ninja.
+    """
+    from ladderpack.emit import write_files
+
+    changed = {}
+    same = []
+    for name, data in files.items():
+        path = os.path.join(out_dir, name)
+        try:
+            with open(path, "rb") as fh:
+                if fh.read() == data:
+                    same.append(path)
+                    continue
+        except OSError:
+            pass
+        changed[name] = data
+    if changed:
+        write_files(changed, out_dir)
+    if touch:
+        for path in same:
+            os.utime(path)
+
+
+def _outputs_ok(out_dir: str, recorded: dict[str, str], *, verify: bool) -> str | None:
+    for name, digest in recorded.items():
+        path = os.path.join(out_dir, name)
+        if not os.path.exists(path):
+            return f"{name} is missing"
+        if verify and _sha256(path) != digest:
+            return f"{name} was edited by hand"
+    return None
+
+
+def _make_escape(p: str) -> str:
+    return p.replace("$", "$$").replace(" ", "\\ ").replace("#", "\\#")
+
+
+def build(
+    manifest: Manifest,
+    *,
+    jobs: int = 1,
+    only: list[str] | None = None,
+    check: bool = False,
+    depfile: str | None = None,
+    echo: Callable[[str], None] = print,
+) -> BuildResult:
+    """Build (or, with `check`, verify) every asset of a manifest.
+
+    Parameters
+    ----------
+    manifest : Manifest
+        From :func:`load_manifest`.
+    jobs : int
+        Assets built in parallel (processes).
+    only : list of str, optional
+        Build just these assets (the index and depfile still cover all).
+    check : bool
+        Build nothing; report every asset whose outputs are missing, stale or
+        edited by hand.
+    depfile : str, optional
+        Write a Make-format dependency file naming every input of every output.
+    echo : callable
+        Receives one line per asset and the budget line.
+    """
+    out = manifest.out_dir
+    state = _load_state(out)
+    old = state.get("assets", {}) if state.get("tool") == __version__ else {}
+    names = {a.name for a in manifest.assets}
+    if only:
+        unknown = sorted(set(only) - names)
+        if unknown:
+            raise LadderpackError(
+                f"no asset named {', '.join(unknown)}", file=manifest.path, field="only"
+            )
+    result = BuildResult()
+    todo: list[tuple[AssetSpec, str, dict[str, Any]]] = []
+    lines: dict[str, str] = {}
+    for spec in manifest.assets:
+        rec = old.get(spec.name)
+        stats = input_stats(spec, manifest.root)
+        hashes = input_hashes(spec, manifest.root, (rec or {}).get("inputs"), stats)
+        fp = fingerprint(spec, manifest.root, hashes)
+        inputs = {r: {"sha256": hashes[r], "stat": stats[r]} for r in hashes}
+        why = None
+        if rec is None:
+            why = "never built"
+        elif rec.get("fingerprint") != fp:
+            why = "inputs or options changed"
+        elif any((rec.get("inputs", {}).get(r) or {}).get("stat") != stats[r] for r in stats):
+            why = "an input was touched"
+        else:
+            why = _outputs_ok(out, rec.get("files", {}), verify=True)
+        if why is None:
+            result.up_to_date.append(spec.name)
+            lines[spec.name] = f"{spec.name}: up to date"
+        elif check:
+            result.problems.append((spec.name, why))
+            lines[spec.name] = f"{spec.name}: STALE ({why})"
+        elif only and spec.name not in only:
+            result.up_to_date.append(spec.name)
+            lines[spec.name] = f"{spec.name}: skipped (not in --only)"
+        else:
+            todo.append((spec, fp, inputs))
+    if check:
+        for spec in manifest.assets:
+            if spec.name in lines and "STALE" in lines[spec.name]:
+                echo(lines[spec.name])
+        index_rec = state.get("index", {})
+        why = _outputs_ok(out, index_rec, verify=True) if index_rec else "index missing"
+        if why:
+            result.problems.append(("index", why))
+            echo(f"index: STALE ({why})")
+        return result
+
+    new_assets = dict(old)
+    if todo:
+        if jobs > 1 and len(todo) > 1:
+            with ProcessPoolExecutor(max_workers=jobs) as pool:
+                rendered = list(pool.map(_render, [s for s, _, _ in todo]))
+        else:
+            rendered = [_render(s) for s, _, _ in todo]
+        for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
+            _write_changed(files, out, touch=True)
+            new_assets[spec.name] = {
+                "fingerprint": fp,
+                "inputs": inputs,
+                "files": {
+                    n: hashlib.sha256(d).hexdigest()
+                    for n, d in sorted(files.items())
+                    if n not in PLAYER_FILES
+                },
+                "entry": entry,
+            }
+            result.built.append(spec.name)
+            lines[spec.name] = f"{spec.name}: built ({entry['bytes']} bytes)"
+    for spec in manifest.assets:
+        echo(lines[spec.name])
+    new_assets = {k: v for k, v in new_assets.items() if k in names}
+    entries = [new_assets[a.name]["entry"] for a in manifest.assets if a.name in new_assets]
+    index = _index_files(entries)
+    _write_changed(index, out, touch=True)
+    result.total_bytes = sum(int(e["bytes"]) for e in entries)
+    new_state = {
+        "tool": __version__,
+        "assets": {k: new_assets[k] for k in sorted(new_assets)},
+        "index": {n: hashlib.sha256(d).hexdigest() for n, d in sorted(index.items())},
+    }
+    _write_changed(
+        {STATE_NAME: (json.dumps(new_state, indent=1, sort_keys=True) + "\n").encode()}, out
+    )
+    avail = manifest.flash_bytes - manifest.flash_reserve_bytes
+    echo(
+        f"flash: {result.total_bytes} of {avail} bytes available "
+        f"({100 * result.total_bytes / max(avail, 1):.1f} %) for {len(entries)} asset(s)"
+    )
+    if depfile:
+        _write_depfile(manifest, new_assets, index, depfile)
+    return result
+
+
+def _write_depfile(
+    manifest: Manifest, assets: dict[str, Any], index: dict[str, bytes], depfile: str
+) -> None:
+    cwd = os.getcwd()
+
+    def rel(p: str) -> str:
+        return _make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
+
+    lines = []
+    mf = rel(os.path.abspath(manifest.path))
+    all_inputs: list[str] = [mf]
+    for spec in manifest.assets:
+        deps = [mf, *(rel(p) for p in spec.inputs)]
+        all_inputs += deps[1:]
+        for name in sorted(assets.get(spec.name, {}).get("files", {})):
+            lines.append(f"{rel(os.path.join(manifest.out_dir, name))}: {' '.join(deps)}")
+    for name in sorted(index):
+        lines.append(
+            f"{rel(os.path.join(manifest.out_dir, name))}: {' '.join(sorted(set(all_inputs)))}"
+        )
+    text = "\n".join(lines) + "\n"
+    from ladderpack.emit import write_files
+
+    folder = os.path.dirname(os.path.abspath(depfile))
+    target = os.path.join(folder, os.path.basename(depfile))
+    try:
+        with open(target, encoding="utf-8") as fh:
+            if fh.read() == text:
+                return
+    except OSError:
+        pass
+    write_files({os.path.basename(depfile): text.encode()}, folder)

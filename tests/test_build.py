@@ -1,0 +1,240 @@
+"""Manifest builds: incremental, depfile with real make, CMake, check mode, errors."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from helpers import require_tool
+
+from ladderpack.build import STATE_NAME, build, load_manifest
+from ladderpack.errors import LadderpackError
+
+REPO = Path(__file__).resolve().parent.parent
+
+MANIFEST = """\
+[project]
+out_dir = "gen"
+
+[defaults]
+bits = 8
+rate_hz = 16000
+out_base = 16
+
+[[asset]]
+name = "chime"
+clip = "clips/chime.flac"
+
+[[asset]]
+name = "speech"
+clip = "clips/speech.flac"
+bits = 10
+
+[[asset]]
+name = "tone"
+tone = "sine"
+freq_hz = 1000
+seconds = 0.02
+loop = true
+
+[[asset]]
+name = "table"
+table = "wave"
+table_bits = 6
+"""
+
+
+@pytest.fixture
+def project(tmp_path: Path) -> Path:
+    (tmp_path / "clips").mkdir()
+    shutil.copy(REPO / "demo_audio" / "door_chime.flac", tmp_path / "clips" / "chime.flac")
+    shutil.copy(REPO / "demo_audio" / "frost_warning.flac", tmp_path / "clips" / "speech.flac")
+    (tmp_path / "ladderpack.toml").write_text(MANIFEST)
+    return tmp_path
+
+
+def _build(project: Path, **kw: object) -> tuple[list[str], list[str]]:
+    lines: list[str] = []
+    res = build(load_manifest(project / "ladderpack.toml"), echo=lines.append, **kw)  # type: ignore[arg-type]
+    return res.built, res.up_to_date
+
+
+def _touch_later(path: Path) -> None:
+    st = path.stat()
+    os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns + 2_000_000_000))
+
+
+def test_incremental_builds(project: Path) -> None:
+    built, _ = _build(project)
+    assert built == ["chime", "speech", "tone", "table"]
+    built, fresh = _build(project)
+    assert built == [] and len(fresh) == 4
+    _touch_later(project / "clips" / "chime.flac")
+    built, _ = _build(project)
+    assert built == ["chime"]
+    # Changing a default rebuilds the assets that use it, not the one that overrides it.
+    (project / "ladderpack.toml").write_text(MANIFEST.replace("bits = 8\n", "bits = 9\n", 1))
+    built, _ = _build(project)
+    assert built == ["chime", "tone"]
+
+
+def test_index_lists_every_asset(project: Path) -> None:
+    _build(project)
+    text = (project / "gen" / "assets.py").read_text()
+    ns: dict[str, object] = {}
+    exec(text, ns)
+    names = [row[0] for row in ns["ASSETS"]]  # type: ignore[attr-defined]
+    assert names == sorted(["chime", "speech", "tone", "table"])
+
+
+def test_outputs_identical_across_folders_and_jobs(
+    project: Path, tmp_path_factory: pytest.TempPathFactory
+) -> None:
+    other = tmp_path_factory.mktemp("elsewhere") / "deep" / "copy"
+    shutil.copytree(project, other)
+    _build(project)
+    lines: list[str] = []
+    build(load_manifest(other / "ladderpack.toml"), jobs=2, echo=lines.append)
+    a, b = project / "gen", other / "gen"
+    names = sorted(p.name for p in a.iterdir() if p.name != STATE_NAME)
+    assert names == sorted(p.name for p in b.iterdir() if p.name != STATE_NAME)
+    for n in names:
+        assert (a / n).read_bytes() == (b / n).read_bytes(), n
+        assert str(project) not in (a / n).read_bytes().decode("latin-1")
+
+
+def test_check_mode(project: Path) -> None:
+    def check() -> list[tuple[str, str]]:
+        out: list[str] = []
+        return build(
+            load_manifest(project / "ladderpack.toml"), check=True, echo=out.append
+        ).problems
+
+    assert [n for n, _ in check()] == ["chime", "speech", "tone", "table", "index"]
+    _build(project)
+    assert check() == []
+    with open(project / "gen" / "tone.c", "a") as fh:
+        fh.write("/* hand edit */\n")
+    assert check() == [("tone", "tone.c was edited by hand")]
+    _build(project)
+    _touch_later(project / "clips" / "speech.flac")
+    assert [n for n, _ in check()] == ["speech"]
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "build", "--check"],
+        cwd=project,
+        capture_output=True,
+        text=True,
+    )
+    assert res.returncode == 1 and "speech" in res.stderr
+
+
+BAD = [
+    (
+        "[[asset]]\nname = 'a'\nclip = 'clips/chime.flac'\nbitz = 8\n",
+        "asset 'a'.bitz",
+        "unknown key",
+    ),
+    (
+        "[[asset]]\nname = 'a'\nclip = 'clips/chime.flac'\nbits = '8'\n",
+        "asset 'a'.bits",
+        "expected int",
+    ),
+    (
+        "[[asset]]\nname = 'a'\nclip = 'clips/chime.flac'\ntone = 'sine'\n",
+        "asset 'a'",
+        "exactly one of clip, tone or table",
+    ),
+    ("[[asset]]\nclip = 'clips/chime.flac'\n", "name", "needs a name"),
+    (
+        "[[asset]]\nname = 'a b'\ntone = 'sine'\n[[asset]]\nname = 'a-b'\ntone = 'sine'\n",
+        "asset 'a-b'.name",
+        "both become 'a_b'",
+    ),
+    ("[[asset]]\nname = 'a'\nclip = 'clips/none.flac'\n", "asset 'a'.clip", "does not exist"),
+    ("[[asset]]\nname = 'a'\ntable = 'maze'\n", "asset 'a'.table", "expected one of"),
+    ("[project]\nout = 'x'\n", "project", "unknown key"),
+    ("[[asset]\n", "", "not valid TOML"),
+    ("[defaults]\nbits = true\n[[asset]]\nname='a'\ntone='sine'\n", "bits", "boolean"),
+    ("[[asset]]\nname = 'a'\ntone = 'sine'\nseconds = 1.0\ncycles = 3\n", "cycles", "not both"),
+]
+
+
+@pytest.mark.parametrize(("text", "where", "message"), BAD)
+def test_manifest_errors(project: Path, text: str, where: str, message: str) -> None:
+    path = project / "ladderpack.toml"
+    path.write_text(text)
+    with pytest.raises(LadderpackError) as exc:
+        load_manifest(path)
+    assert str(path) in str(exc.value) and where in str(exc.value) and message in str(exc.value)
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "build"], cwd=project, capture_output=True, text=True
+    )
+    assert res.returncode == 2 and len(res.stderr.splitlines()) == 1
+
+
+def _copy_example(kind: str, dest: Path) -> Path:
+    shutil.copytree(REPO / "examples" / kind, dest / "examples" / kind)
+    (dest / "demo_audio").mkdir()
+    shutil.copy(REPO / "demo_audio" / "door_chime.flac", dest / "demo_audio")
+    return dest / "examples" / kind
+
+
+def _ladderpack_env() -> dict[str, str]:
+    env = dict(os.environ)
+    bindir = os.path.dirname(sys.executable)
+    env["PATH"] = bindir + os.pathsep + env.get("PATH", "")
+    return env
+
+
+def test_make_with_depfile(tmp_path: Path) -> None:
+    # Real GNU make reads the depfile: the second run does nothing, and touching the clip
+    # remakes exactly that asset (and the program that links it).
+    make = require_tool("make")
+    ex = _copy_example("make", tmp_path)
+    env = _ladderpack_env()
+    first = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
+    assert first.returncode == 0, first.stderr
+    second = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
+    assert "is up to date" in second.stdout and "ladderpack build" not in second.stdout
+    time.sleep(0.01)
+    _touch_later(tmp_path / "demo_audio" / "door_chime.flac")
+    third = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
+    runs = [ln for ln in third.stdout.splitlines() if ln.startswith("ladderpack build")]
+    assert runs == ["ladderpack build ladderpack.toml --only door_chime --depfile generated/deps.d"]
+    assert "door_chime: built" in third.stdout and "bench_tone: built" not in third.stdout
+    fourth = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
+    assert "is up to date" in fourth.stdout
+    table = subprocess.run([str(ex / "host")], capture_output=True, text=True).stdout
+    assert "door_chime" in table and "sine_table" in table
+
+
+def test_cmake_example(tmp_path: Path) -> None:
+    # Real CMake (Debian package cmake) configures and builds the example.
+    cmake = require_tool("cmake")
+    ex = _copy_example("cmake", tmp_path)
+    env = _ladderpack_env()
+    bdir = tmp_path / "build"
+    subprocess.run(
+        [cmake, "-S", str(ex), "-B", str(bdir)], check=True, capture_output=True, env=env
+    )
+    subprocess.run([cmake, "--build", str(bdir)], check=True, capture_output=True, env=env)
+    out = subprocess.run([str(bdir / "host")], capture_output=True, text=True).stdout
+    assert out.splitlines()[0].split() == [
+        "asset",
+        "kind",
+        "rate_hz",
+        "bits",
+        "samples",
+        "words",
+        "bytes",
+    ]
+    assert [ln.split()[0] for ln in out.splitlines()[1:]] == [
+        "bench_tone",
+        "door_chime",
+        "sine_table",
+    ]
