@@ -16,7 +16,7 @@ import soundfile
 
 from ladderpack.errors import AudioFileError, OptionError, SignalError
 
-__all__ = ["Signal", "check_signal", "load_clip", "sha256_file"]
+__all__ = ["Signal", "check_signal", "load_clip", "read_samples_csv", "sha256_file"]
 
 
 @dataclass(frozen=True)
@@ -162,3 +162,41 @@ def sha256_file(path: str | os.PathLike[str]) -> str:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
     return h.hexdigest()
+
+
+def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:
+    """Read captured samples from a CSV file: the last numeric column of each row.
+
+    A header row and ``#`` comment lines are skipped; a scope export with
+    ``time,value`` columns works as it is.
+
+    Raises
+    ------
+    AudioFileError
+        Naming the file and line of a value that is not a number.
+    """
+    import csv
+
+    name = os.fspath(path)
+    values: list[float] = []
+    try:
+        with open(name, encoding="utf-8", newline="") as fh:
+            for line, row in enumerate(csv.reader(fh), start=1):
+                cells = [c.strip() for c in row if c.strip()]
+                if not cells or cells[0].startswith("#"):
+                    continue
+                try:
+                    values.append(float(cells[-1]))
+                except ValueError:
+                    if not values and line == 1:
+                        continue  # header
+                    raise AudioFileError(
+                        f"expected a number, got {cells[-1]!r}", file=f"{name}:{line}"
+                    ) from None
+    except FileNotFoundError:
+        raise AudioFileError("no such file", file=name) from None
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise AudioFileError(f"cannot read CSV ({exc})", file=name) from None
+    x = np.asarray(values, dtype=np.float64)
+    check_signal(Signal(x, 1.0), source=name, min_frames=8)
+    return x

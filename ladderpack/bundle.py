@@ -126,6 +126,8 @@ class StreamAsset:
             "shaping": self.stats.get("shaper", {}).get("name", "none"),
             "predicted_noise_db": self.stats.get("predicted_noise_db"),
             "levels": self.stats.get("levels"),
+            "loudness": self.stats.get("loudness"),
+            "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
             "program": self.program.variant,
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,

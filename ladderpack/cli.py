@@ -59,6 +59,19 @@ def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> N
             f"{pred['weighted_db']:+.1f} dB weighted, {pred['in_band_db']:+.1f} dB in band, "
             f"{pred['total_db']:+.1f} dB total"
         )
+    ps = summary.get("predicted_full_scale_sine")
+    if ps:
+        click.echo(
+            f"  predict  a full-scale sine would reach SINAD {ps['sinad_db']:.1f} dB, "
+            f"ENOB {ps['enob_bits']:.2f} bits (in band)"
+        )
+    ld = summary.get("loudness")
+    if ld:
+        click.echo(
+            f"  loudness {ld['lufs_in']:.1f} -> {ld['lufs_out']:.1f} LUFS, true peak "
+            f"{ld['true_peak_out_dbtp']:.1f} dBTP"
+            + (" (held back by the true-peak ceiling)" if ld["limited_by_true_peak"] else "")
+        )
     lv = summary.get("levels")
     if lv:
         shrink = (
@@ -166,6 +179,20 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
             "ntf_form",
             "Designed filter form (auto: the better one).",
             type=click.Choice(NTF_FORMS),
+        ),
+        click.option(
+            "--loudness-lufs",
+            "loudness_lufs",
+            type=float,
+            default=None,
+            help="Normalise to this integrated loudness (ITU-R BS.1770), LUFS, "
+            "instead of --headroom-db  [default: off]",
+        ),
+        _opt(
+            "--true-peak-dbtp",
+            "true_peak_dbtp",
+            "True-peak ceiling for --loudness-lufs, dBTP.",
+            type=float,
         ),
         click.option(
             "--levels",
@@ -1198,6 +1225,346 @@ def build(
             err=True,
         )
         sys.exit(1)
+
+
+def _print_analysis(r: dict[str, Any], label: str) -> None:
+    click.echo(
+        f"{label}: {r['freq_hz']:.4f} Hz at {r['amplitude_dbfs']:.2f} dBFS"
+        + (", A-weighted" if r["a_weighted"] else "")
+        + f", band {r['band_hz'][0]:g}..{r['band_hz'][1]:g} Hz"
+    )
+    click.echo(
+        f"  SINAD {r['sinad_db']:.2f} dB, SNR {r['snr_db']:.2f} dB, THD {r['thd_db']:.2f} "
+        f"dB, THD+N {r['thd_n_db']:.2f} dB, SFDR {r['sfdr_db']:.2f} dB"
+    )
+    click.echo(
+        f"  ENOB {r['enob_bits']:.3f} bits (IEEE), {r['enob_sine_bits']:.3f} bits "
+        f"((SINAD - 1.76) / 6.02); noise {r['noise_dbfs']:.2f} dBFS"
+    )
+
+
+def _analyse_opts(func: Callable[..., Any]) -> Callable[..., Any]:
+    opts = [
+        click.option(
+            "--freq-hz",
+            type=float,
+            default=None,
+            help="Test-tone frequency, Hz  [default: found by a four-parameter fit]",
+        ),
+        click.option(
+            "--harmonics",
+            type=int,
+            default=10,
+            show_default=True,
+            help="Highest harmonic counted in THD.",
+        ),
+        click.option(
+            "--band-low-hz",
+            type=float,
+            default=None,
+            help="Lower band edge for noise and distortion, Hz  [default: DC excluded]",
+        ),
+        click.option(
+            "--band-high-hz",
+            type=float,
+            default=None,
+            help="Upper band edge, Hz  [default: Nyquist]",
+        ),
+        click.option(
+            "--a-weighting/--no-a-weighting",
+            default=False,
+            show_default=True,
+            help="Weight noise and distortion by IEC 61672-1 A-weighting.",
+        ),
+        click.option(
+            "--plot",
+            "plot_path",
+            type=click.Path(dir_okay=False),
+            default=None,
+            help="Write a spectrum plot (PNG; needs the 'plot' extra).",
+        ),
+        click.option("--json", "as_json", is_flag=True, help="Print the result as JSON."),
+    ]
+    for opt in reversed(opts):
+        func = opt(func)
+    return func
+
+
+def _band(rate: float, lo: float | None, hi: float | None) -> tuple[float, float] | None:
+    if lo is None and hi is None:
+        return None
+    return (lo or 0.0, hi if hi is not None else rate / 2)
+
+
+@cli.command()
+@click.argument("capture", type=click.Path(dir_okay=False))
+@click.option(
+    "--rate-hz",
+    type=float,
+    default=None,
+    help="Sample rate of a CSV capture, Hz (sound files carry their own).",
+)
+@click.option(
+    "--channel",
+    type=int,
+    default=0,
+    show_default=True,
+    help="Channel of a multichannel sound file.",
+)
+@click.option(
+    "--full-scale",
+    type=float,
+    default=1.0,
+    show_default=True,
+    help="Peak of a full-scale sine in the capture's units (1.0 for sound files; "
+    "volts for a scope CSV).",
+)
+@_analyse_opts
+def measure(
+    capture: str,
+    rate_hz: float | None,
+    channel: int,
+    full_scale: float,
+    freq_hz: float | None,
+    harmonics: int,
+    band_low_hz: float | None,
+    band_high_hz: float | None,
+    a_weighting: bool,
+    plot_path: str | None,
+    as_json: bool,
+) -> None:
+    """Analyse a recorded test tone (WAV, FLAC or CSV of samples): IEEE 1241 sine fit,
+    SINAD, THD, THD+N, SFDR, ENOB and noise."""
+    from ladderpack.audio import load_clip, read_samples_csv
+    from ladderpack.measure import analyse
+
+    if capture.lower().endswith((".csv", ".txt")):
+        if rate_hz is None:
+            from ladderpack.errors import OptionError
+
+            raise OptionError("a CSV capture needs --rate-hz", field="rate_hz")
+        y = read_samples_csv(capture)
+        rate = rate_hz
+    else:
+        sig = load_clip(capture, channel=channel)
+        y, rate = sig.samples, sig.rate_hz
+    r = analyse(
+        y,
+        rate,
+        freq_hz=freq_hz,
+        full_scale=full_scale,
+        harmonics=harmonics,
+        band_hz=_band(rate, band_low_hz, band_high_hz),
+        a_weighted=a_weighting,
+    )
+    if plot_path:
+        from ladderpack.plots import spectrum_png
+
+        r["plot"] = _write_bytes(plot_path, spectrum_png(y, rate, r, full_scale=full_scale))
+    if as_json:
+        click.echo(json.dumps(r, indent=2, sort_keys=True))
+    else:
+        _print_analysis(r, os.path.basename(capture))
+
+
+def _write_bytes(path: str, data: bytes) -> str:
+    from ladderpack.emit import write_files
+
+    folder = os.path.dirname(path) or "."
+    return write_files({os.path.basename(path): data}, folder)[0]
+
+
+@cli.command()
+@click.argument("sidecar", type=click.Path(dir_okay=False))
+@click.option(
+    "-o",
+    "--out",
+    "out_path",
+    default=None,
+    help="WAV file to write  [default: <asset>_preview.wav beside the bundle]",
+)
+@click.option(
+    "--levels",
+    "levels_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="LevelSet of the real ladder  [default: ideal levels]",
+)
+@click.option(
+    "--playback-rate-hz",
+    type=float,
+    default=None,
+    help="Rate of the WAV, Hz  [default: the stream rate]",
+)
+@click.option(
+    "--filter-corner-hz",
+    type=float,
+    default=None,
+    help="Corner of a first-order RC output filter, Hz  [default: none]",
+)
+@click.option(
+    "--measure/--no-measure",
+    "do_measure",
+    default=None,
+    help="Measure the result like a capture  [default: for sine tones]",
+)
+@_analyse_opts
+def preview(
+    sidecar: str,
+    out_path: str | None,
+    levels_path: str | None,
+    playback_rate_hz: float | None,
+    filter_corner_hz: float | None,
+    do_measure: bool | None,
+    freq_hz: float | None,
+    harmonics: int,
+    band_low_hz: float | None,
+    band_high_hz: float | None,
+    a_weighting: bool,
+    plot_path: str | None,
+    as_json: bool,
+) -> None:
+    """Render what the ladder will put out for a bundle (its SIDECAR .json) to a WAV file,
+    for listening, and measure it."""
+    import io
+
+    import soundfile
+
+    from ladderpack.measure import analyse
+    from ladderpack.preview import render_preview
+
+    pv = render_preview(
+        sidecar,
+        levels_path=levels_path,
+        playback_rate_hz=playback_rate_hz,
+        filter_corner_hz=filter_corner_hz,
+    )
+    name = pv.sidecar["asset"]
+    target = out_path or os.path.join(os.path.dirname(sidecar), f"{name}_preview.wav")
+    buf = io.BytesIO()
+    soundfile.write(
+        buf,
+        np.clip(pv.samples, -1, 1).astype(np.float32),
+        round(pv.rate_hz),
+        format="WAV",
+        subtype="FLOAT",
+    )
+    written = _write_bytes(target, buf.getvalue())
+    tone_kind = (pv.sidecar.get("stats", {}).get("tone") or {}).get("kind")
+    result: dict[str, Any] = {"file": written, "rate_hz": pv.rate_hz}
+    if do_measure or (do_measure is None and tone_kind == "sine"):
+        y = pv.samples[pv.audio_slice]
+        known = freq_hz or (pv.sidecar.get("stats", {}).get("tone") or {}).get("freq_hz")
+        r = analyse(
+            y,
+            pv.rate_hz,
+            freq_hz=known,
+            harmonics=harmonics,
+            band_hz=_band(pv.rate_hz, band_low_hz, band_high_hz),
+            a_weighted=a_weighting,
+        )
+        result["analysis"] = r
+        if plot_path:
+            from ladderpack.plots import spectrum_png
+
+            result["plot"] = _write_bytes(plot_path, spectrum_png(y, pv.rate_hz, r))
+    if as_json:
+        click.echo(json.dumps(result, indent=2, sort_keys=True))
+        return
+    click.echo(
+        f"wrote {written} ({pv.samples.size / pv.rate_hz:.3f} s at {pv.rate_hz:g} Hz); "
+        "listen at a low volume first"
+    )
+    if "analysis" in result:
+        _print_analysis(result["analysis"], f"{name} (predicted)")
+
+
+@cli.group()
+def plot() -> None:
+    """PNG plots (needs the 'plot' extra: pip install 'ladderpack[plot]')."""
+
+
+@plot.command("levels")
+@click.argument("levels_path", metavar="LEVELS", type=click.Path(dir_okay=False))
+@click.option(
+    "-o", "--out", "out_path", default="levels.png", show_default=True, help="PNG file to write."
+)
+def plot_levels(levels_path: str, out_path: str) -> None:
+    """Transfer curve, INL and DNL of a LevelSet."""
+    from ladderpack.levels import load_levels
+    from ladderpack.plots import levels_png
+
+    lev = load_levels(levels_path)
+    title = f"{os.path.basename(levels_path)}: {lev.bits}-bit, {lev.origin}"
+    click.echo(f"wrote {_write_bytes(out_path, levels_png(lev.volts, title))}")
+
+
+@plot.command("ntf")
+@click.option(
+    "--shaping",
+    type=click.Choice(SHAPER_NAMES),
+    default="designed",
+    show_default=True,
+    help="Shaping filter.",
+)
+@click.option("--rate-hz", type=float, default=44100.0, show_default=True, help="Sample rate, Hz.")
+@click.option(
+    "--bits",
+    type=int,
+    default=8,
+    show_default=True,
+    help="Ladder width (sets a designed filter's default peak bound).",
+)
+@click.option(
+    "--band-hz", type=float, default=None, help="Audio band, Hz  [default: 20000 or Nyquist]"
+)
+@click.option(
+    "--weighting",
+    type=click.Choice(WEIGHTING_NAMES),
+    default="threshold",
+    show_default=True,
+    help="Weighting of a designed filter.",
+)
+@click.option(
+    "--ntf-order", type=int, default=8, show_default=True, help="Order of a designed filter."
+)
+@click.option(
+    "--force/--no-force",
+    default=False,
+    show_default=True,
+    help="Allow a published filter away from its design rate.",
+)
+@click.option(
+    "-o", "--out", "out_path", default="ntf.png", show_default=True, help="PNG file to write."
+)
+def plot_ntf(
+    shaping: str,
+    rate_hz: float,
+    bits: int,
+    band_hz: float | None,
+    weighting: str,
+    ntf_order: int,
+    force: bool,
+    out_path: str,
+) -> None:
+    """Noise transfer of a shaping filter at a sample rate."""
+    from ladderpack.defaults import default_band_hz, default_ntf_max_db
+    from ladderpack.plots import ntf_png
+    from ladderpack.shaping import design_shaper, get_shaper
+
+    band = band_hz or default_band_hz(rate_hz)
+    shaper = (
+        design_shaper(
+            rate_hz,
+            band_hz=band,
+            weighting_kind=weighting,
+            order=ntf_order,
+            max_gain_db=default_ntf_max_db(bits),
+        )
+        if shaping == "designed"
+        else get_shaper(shaping, rate_hz, force=force)
+    )
+    click.echo(f"wrote {_write_bytes(out_path, ntf_png(shaper, rate_hz, band_hz=band))}")
 
 
 @cli.command()

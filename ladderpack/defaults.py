@@ -97,6 +97,8 @@ STREAM_DEFAULTS: dict[str, Any] = {
     "ntf_form": "auto",
     "force": False,
     "levels": None,
+    "loudness_lufs": None,
+    "true_peak_dbtp": -1.0,
 }
 
 

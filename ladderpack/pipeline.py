@@ -124,6 +124,8 @@ def stream_signal(
     ntf_form: str = STREAM_DEFAULTS["ntf_form"],
     force: bool = STREAM_DEFAULTS["force"],
     levels: LevelSet | str | os.PathLike[str] | None = STREAM_DEFAULTS["levels"],
+    loudness_lufs: float | None = STREAM_DEFAULTS["loudness_lufs"],
+    true_peak_dbtp: float = STREAM_DEFAULTS["true_peak_dbtp"],
     source: dict[str, Any] | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> StreamAsset:
@@ -216,6 +218,12 @@ def stream_signal(
         The ladder's true level per code (a LevelSet or its JSON file, from
         ``ladderpack levels`` or ``ladderpack ladder``): quantise against them,
         feeding the true error back.
+    loudness_lufs : float, optional
+        Normalise to this integrated loudness (ITU-R BS.1770-4) instead of to a
+        peak level; the gain is capped so the true peak stays at or below
+        `true_peak_dbtp`.
+    true_peak_dbtp : float
+        True-peak ceiling for loudness normalisation, dBTP (default -1).
     source : dict, optional
         Provenance recorded in the sidecar.
     progress : callable, optional
@@ -330,7 +338,14 @@ def stream_signal(
     else:
         x = conform.resample(conform.remove_dc(sig), plan.achieved_rate_hz, bits=bits)
     done("resample")
-    if synth is None:
+    loudness: dict[str, Any] | None = None
+    if synth is None and loudness_lufs is not None:
+        x, gain_db, loudness = conform.normalise_loudness(
+            x, target_lufs=loudness_lufs, true_peak_dbtp=true_peak_dbtp
+        )
+        if not loop:
+            x = conform.apply_fades(x, fade_ms=fade_ms)
+    elif synth is None:
         x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
         if not loop:
             x = conform.apply_fades(x, fade_ms=fade_ms)
@@ -396,6 +411,8 @@ def stream_signal(
         "ntf_max_db": ntf_max_db,
         "ntf_form": ntf_form,
         "force": bool(force),
+        "loudness_lufs": loudness_lufs,
+        "true_peak_dbtp": true_peak_dbtp,
         "levels": None
         if levels is None
         else (
@@ -423,6 +440,10 @@ def stream_signal(
         },
         "budget": budget.to_dict(),
         "levels": None if levelset is None else _levels_stats(levelset),
+        "loudness": None
+        if loudness is None
+        else {k: (round(v, 4) if isinstance(v, float) else v) for k, v in loudness.items()},
+        "predicted_full_scale_sine": _predicted_sine(bits, dither, predicted),
     }
     return StreamAsset(
         ident,
@@ -439,6 +460,18 @@ def stream_signal(
         outro=outro,
         budget=budget,
     )
+
+
+def _predicted_sine(bits: int, dither: str, predicted: dict[str, float]) -> dict[str, float]:
+    """SINAD and ENOB a full-scale sine would get from this quantiser (in band).
+
+    Signal power (2^(N-1))^2 / 2 LSB^2 over error power sigma^2 x NTF in-band gain,
+    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992).
+    """
+    sigma2 = 1 / 12 + {"none": 0.0, "rpdf": 1 / 12, "tpdf": 1 / 6}[dither]
+    noise = sigma2 * 10 ** (predicted["in_band_db"] / 10)
+    sinad = 10 * math.log10((1 << (bits - 1)) ** 2 / 2 / noise)
+    return {"sinad_db": round(sinad, 3), "enob_bits": round((sinad - 1.76) / 6.02, 3)}
 
 
 def _levels_stats(levelset: LevelSet) -> dict[str, Any]:

@@ -1,0 +1,137 @@
+"""Predicted output: what the ladder will put out for a bundle, as audio.
+
+The bundle's words are unpacked to codes, each code is given its level (ideal, or a
+measured or modelled LevelSet), held for one sample period (the ladder's zero-order
+hold), optionally smoothed by a first-order RC output filter, and resampled to a
+playback rate.  The result is scaled so the ideal full scale is +/-1.0.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ladderpack.errors import LadderpackError, OptionError
+
+__all__ = ["Preview", "render_preview"]
+
+
+@dataclass(frozen=True)
+class Preview:
+    """Rendered output.
+
+    Attributes
+    ----------
+    samples : numpy.ndarray
+        float64 audio at `rate_hz`, ideal full scale +/-1.0.
+    rate_hz : float
+        Playback rate.
+    audio_slice : slice
+        The part that holds the audio (ramps and fades excluded), for measuring.
+    sidecar : dict
+        The bundle's sidecar.
+    """
+
+    samples: np.ndarray
+    rate_hz: float
+    audio_slice: slice
+    sidecar: dict[str, Any]
+
+
+def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
+    from ladderpack.pack import WordLayout, unpack
+
+    try:
+        with open(sidecar_path, encoding="utf-8") as fh:
+            side = json.load(fh)
+    except FileNotFoundError:
+        raise LadderpackError("no such file", file=sidecar_path) from None
+    except (OSError, ValueError) as exc:
+        raise LadderpackError(f"not a bundle sidecar ({exc})", file=sidecar_path) from None
+    if not isinstance(side, dict) or side.get("format") != "ladderpack-stream":
+        raise LadderpackError(
+            "expected a ladderpack stream sidecar (.json)", file=sidecar_path, field="format"
+        )
+    lay = side["layout"]
+    layout = WordLayout(
+        int(lay["bits"]),
+        shift_right=lay["shift"] == "right",
+        per_word=int(lay["samples_per_word"]),
+        msb_high=lay.get("pin_order", "msb-high") == "msb-high",
+        invert=bool(lay.get("invert", False)),
+    )
+    bin_path = os.path.join(os.path.dirname(sidecar_path), f"{side['asset']}.bin")
+    try:
+        words = np.fromfile(bin_path, dtype="<u4")
+    except OSError:
+        raise LadderpackError("the bundle's .bin file is missing", file=bin_path) from None
+    codes = unpack(words, layout, int(side["stream"]["sample_count"])).codes
+    return side, codes
+
+
+def render_preview(
+    sidecar_path: str,
+    *,
+    levels_path: str | None = None,
+    playback_rate_hz: float | None = None,
+    filter_corner_hz: float | None = None,
+) -> Preview:
+    """Render a bundle's predicted output.
+
+    Parameters
+    ----------
+    sidecar_path : str
+        The bundle's ``.json`` sidecar (the ``.bin`` beside it is read).
+    levels_path : str, optional
+        LevelSet file of the real ladder; default ideal levels.
+    playback_rate_hz : float, optional
+        Output rate, Hz (default the stream rate: no hold or resampling).
+    filter_corner_hz : float, optional
+        Corner of a first-order RC output filter, Hz (default none).
+    """
+    from ladderpack.audio import Signal
+    from ladderpack.conform import resample
+    from ladderpack.levels import ideal_levels, load_levels
+
+    side, codes = _read_bundle(sidecar_path)
+    bits = int(side["stream"]["bits"])
+    levels = ideal_levels(bits) if levels_path is None else load_levels(levels_path)
+    if levels.bits != bits:
+        raise OptionError(
+            f"the levels are for {levels.bits} bits, the bundle is {bits}-bit", field="levels"
+        )
+    v = levels.volts
+    ideal_half = (v[-1] - v[0]) * (1 << (bits - 1)) / ((1 << bits) - 1)
+    centre = v[0] + ideal_half
+    x = (v[codes] - centre) / ideal_half
+    rate = float(side["clock"]["achieved_rate_hz"])
+    out_rate = rate if playback_rate_hz is None else float(playback_rate_hz)
+    if not (math.isfinite(out_rate) and out_rate > 0):
+        raise OptionError(f"must be > 0 Hz, got {playback_rate_hz!r}", field="playback_rate_hz")
+    hold = 1
+    if out_rate != rate or filter_corner_hz is not None:
+        hold = max(1, math.ceil(4 * max(out_rate, rate) / rate))
+        x = np.repeat(x, hold)  # the ladder holds each level for a whole sample period
+    if filter_corner_hz is not None:
+        if not (math.isfinite(filter_corner_hz) and filter_corner_hz > 0):
+            raise OptionError(f"must be > 0 Hz, got {filter_corner_hz!r}", field="filter_corner_hz")
+        from scipy import signal as sps
+
+        a = math.exp(-2 * math.pi * filter_corner_hz / (hold * rate))  # exact for a held input
+        x = sps.lfilter([1 - a], [1, -a], x)
+    if hold > 1 or out_rate != rate:
+        x = resample(Signal(x, hold * rate), out_rate, bits=16).samples
+    stats = side.get("stats", {})
+    ramp = int(stats.get("ramp_samples", 0))
+    audio = int(stats.get("audio_samples", codes.size))
+    fade = round(float(side.get("options", {}).get("fade_ms", 0)) * 1e-3 * rate)
+    if side.get("options", {}).get("loop"):
+        ramp = fade = 0
+    lo = (ramp + fade) * out_rate / rate
+    hi = (ramp + audio - fade) * out_rate / rate
+    return Preview(x, out_rate, slice(math.ceil(lo), max(int(hi), math.ceil(lo) + 1)), side)

@@ -1,0 +1,347 @@
+"""Measurement against IEEE 1241 definitions, BS.1770 and a reference meter."""
+
+from __future__ import annotations
+
+import json
+import math
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile
+
+from ladderpack.measure import analyse, fit_sine, integrated_loudness, true_peak_dbtp
+
+REPO = Path(__file__).resolve().parent.parent
+FS = 48000.0
+
+
+@pytest.mark.parametrize("known", [True, False])
+def test_sine_fit_recovers_parameters(known: bool, rng: np.random.Generator) -> None:
+    # IEEE Std 1057/1241 three- and four-parameter fits on a noisy synthetic capture.
+    n = 20000
+    t = np.arange(n) / FS
+    f, a, ph, c = 1234.567, 0.7, 0.9, 0.05
+    y = a * np.cos(2 * np.pi * f * t + ph) + c + 1e-3 * rng.standard_normal(n)
+    fit = fit_sine(y, FS, freq_hz=f if known else None)
+    assert fit.freq_hz == pytest.approx(f, abs=1e-3)
+    assert fit.amplitude == pytest.approx(a, abs=1e-4)
+    assert fit.phase_rad == pytest.approx(ph, abs=1e-3)
+    assert fit.offset == pytest.approx(c, abs=1e-4)
+
+
+@pytest.mark.parametrize("bits", [6, 8, 10, 12, 16])
+def test_enob_of_ideal_quantiser_is_n(bits: int) -> None:
+    # IEEE ENOB = log2(FSR / (NAD_rms sqrt(12))) gives N for an ideal N-bit quantiser
+    # (REFERENCES.md section 1, IEEE 1057/1241 definition).
+    n, cycles = 1 << 15, 2053
+    half = 1 << (bits - 1)
+    x = np.sin(2 * np.pi * cycles * np.arange(n) / n + 0.2) * (half - 0.5)
+    y = np.floor(x + 0.5)
+    r = analyse(y, FS, full_scale=half)
+    assert r["enob_bits"] == pytest.approx(bits, abs=0.1)
+
+
+@pytest.mark.parametrize("thd_target_db", [-40.0, -60.0, -80.0])
+def test_thd_recovered(thd_target_db: float) -> None:
+    # Known harmonics (2nd..5th) with a chosen total: THD must come back within 0.1 dB.
+    n = 1 << 15
+    t = np.arange(n) / FS
+    f0 = 997.0
+    rel = np.array([1.0, 0.5, 0.25, 0.125])
+    scale = 10 ** (thd_target_db / 20) / math.sqrt(np.sum(rel**2))
+    y = np.sin(2 * np.pi * f0 * t)
+    for k, r in enumerate(rel, start=2):
+        y += scale * r * np.sin(2 * np.pi * k * f0 * t + 0.3 * k)
+    out = analyse(y, FS, freq_hz=f0)
+    assert out["thd_db"] == pytest.approx(thd_target_db, abs=0.1)
+    assert out["harmonics_dbc"][0] == pytest.approx(20 * math.log10(scale), abs=0.1)
+
+
+def test_band_limit_and_a_weighting_lower_noise(rng: np.random.Generator) -> None:
+    n = 1 << 15
+    t = np.arange(n) / FS
+    y = 0.5 * np.sin(2 * np.pi * 1000 * t) + 1e-3 * rng.standard_normal(n)
+    full = analyse(y, FS, freq_hz=1000)
+    band = analyse(y, FS, freq_hz=1000, band_hz=(20, 12000))
+    aw = analyse(y, FS, freq_hz=1000, a_weighted=True)
+    # White noise: half the band holds half the noise (+3 dB SINAD, within 0.5 dB).
+    assert band["sinad_db"] - full["sinad_db"] == pytest.approx(
+        10 * math.log10(24000 / 11980), abs=0.5
+    )
+    assert aw["sinad_db"] > full["sinad_db"]
+
+
+def test_bs1770_reference_tone() -> None:
+    # ITU-R BS.1770: a 0 dBFS 997 Hz sine in one channel reads -3.01 LKFS.
+    t = np.arange(int(10 * FS)) / FS
+    assert integrated_loudness(np.sin(2 * np.pi * 997 * t), FS) == pytest.approx(-3.01, abs=0.05)
+    stereo = np.stack([np.sin(2 * np.pi * 997 * t)] * 2, axis=1)
+    assert integrated_loudness(stereo, FS) == pytest.approx(0.0, abs=0.05)
+
+
+@pytest.mark.parametrize("clip", ["door_chime.flac", "frost_warning.flac"])
+def test_loudness_agrees_with_pyloudnorm(clip: str) -> None:
+    # Reference implementation from PyPI: pyloudnorm.
+    import pyloudnorm
+
+    data, rate = soundfile.read(REPO / "demo_audio" / clip)
+    ours = integrated_loudness(data, rate)
+    ref = pyloudnorm.Meter(rate).integrated_loudness(data)
+    assert ours == pytest.approx(ref, abs=0.1)
+
+
+def test_true_peak_sees_intersample_peaks() -> None:
+    # A sine at fs/4 with a 45 degree phase has samples at 0.707 of its peak: sample
+    # peak -3.01 dB, true peak 0 dB.
+    n = 4800
+    x = np.sin(2 * np.pi * np.arange(n) / 4 + np.pi / 4)
+    ramp = np.sin(np.linspace(0, np.pi / 2, 480)) ** 2  # soft edges: no Gibbs overshoot
+    x[:480] *= ramp
+    x[-480:] *= ramp[::-1]
+    assert 20 * math.log10(np.max(np.abs(x))) == pytest.approx(-3.01, abs=0.01)
+    assert true_peak_dbtp(x, FS) == pytest.approx(0.0, abs=0.05)
+
+
+def test_stream_loudness_target_and_ceiling(tmp_path: Path) -> None:
+    from ladderpack.pipeline import stream_clip
+
+    asset = stream_clip(REPO / "demo_audio" / "door_chime.flac", loudness_lufs=-23.0)
+    ld = asset.stats["loudness"]
+    assert ld["lufs_out"] == pytest.approx(-23.0, abs=1e-6) and not ld["limited_by_true_peak"]
+    loud = stream_clip(
+        REPO / "demo_audio" / "door_chime.flac", loudness_lufs=-6.0, true_peak_dbtp=-1.0
+    )
+    ld = loud.stats["loudness"]
+    assert ld["limited_by_true_peak"] and ld["true_peak_out_dbtp"] == pytest.approx(-1.0)
+    assert loud.stats["overloads"] == 0
+
+
+@pytest.mark.parametrize(
+    ("bits", "dither", "penalty_db"),
+    [(8, "tpdf", 4.77), (10, "tpdf", 4.77), (8, "rpdf", 3.01), (12, "none", 0.0)],
+)
+def test_preview_of_ideal_bundle_matches_theory(
+    tmp_path: Path, bits: int, dither: str, penalty_db: float
+) -> None:
+    # Theory: SNR = 6.02 N + 1.76 dB for a full-scale sine (MT-229), less the dither
+    # penalty (TPDF 4.77 dB, RPDF 3.01 dB; Lipshitz et al. 1992), less the 1 dB level.
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "tone",
+            "sine",
+            "--bits",
+            str(bits),
+            "--rate-hz",
+            "48000",
+            "--coherent-record",
+            "16384",
+            "--dither",
+            dither,
+            "--seconds",
+            "1",
+            "-o",
+            str(tmp_path),
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "preview", str(tmp_path / "sine.json"), "--json"],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)["analysis"]
+    theory = 6.0206 * bits + 1.7609 - penalty_db - 1.0
+    assert r["sinad_db"] == pytest.approx(theory, abs=0.5)
+    summary_pred = json.loads((tmp_path / "sine.json").read_text())["stats"][
+        "predicted_full_scale_sine"
+    ]["sinad_db"]
+    assert summary_pred == pytest.approx(theory + 1.0, abs=0.05)
+
+
+def test_preview_with_filter_and_levels(tmp_path: Path) -> None:
+    import soundfile as sf
+
+    assert (
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "ladderpack",
+                "tone",
+                "sine",
+                "--bits",
+                "8",
+                "--freq-hz",
+                "5000",
+                "-o",
+                str(tmp_path),
+            ],
+            cwd=REPO,
+        ).returncode
+        == 0
+    )
+    assert (
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "ladderpack",
+                "ladder",
+                "--bits",
+                "8",
+                "--levels-out",
+                str(tmp_path / "lv.json"),
+                "--trials",
+                "2",
+            ],
+            cwd=REPO,
+            capture_output=True,
+        ).returncode
+        == 0
+    )
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "preview",
+            str(tmp_path / "sine.json"),
+            "--levels",
+            str(tmp_path / "lv.json"),
+            "--playback-rate-hz",
+            "48000",
+            "--filter-corner-hz",
+            "5000",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    data, rate = sf.read(r["file"])
+    assert rate == 48000
+    # A first-order RC at its corner passes -3.01 dB; the hold's sinc adds its own droop
+    # at 5 kHz of a 22.05 kHz rate: 20 log10(sinc(5000 / 22049.7)) = -0.75 dB.
+    hold = 20 * math.log10(np.sinc(5000 / 22049.744))
+    assert r["analysis"]["amplitude_dbfs"] == pytest.approx(-1.0 - 3.01 + hold, abs=0.3)
+
+
+def test_measure_command_on_wav_and_csv(tmp_path: Path) -> None:
+    t = np.arange(48000) / FS
+    y = 0.5 * np.sin(2 * np.pi * 1000 * t)
+    soundfile.write(tmp_path / "cap.wav", y, 48000, subtype="FLOAT")
+    (tmp_path / "scope.csv").write_text(
+        "time,volts\n"
+        + "\n".join(
+            f"{tt:.8f},{1.65 + 1.2 * v:.8f}" for tt, v in zip(t[:4000], y[:4000] * 2, strict=True)
+        )
+    )
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "measure",
+            str(tmp_path / "cap.wav"),
+            "--json",
+            "--plot",
+            str(tmp_path / "s.png"),
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    assert r["amplitude_dbfs"] == pytest.approx(20 * math.log10(0.5), abs=0.01)
+    assert (tmp_path / "s.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "measure",
+            str(tmp_path / "scope.csv"),
+            "--rate-hz",
+            "48000",
+            "--full-scale",
+            "1.2",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    r = json.loads(res.stdout)
+    assert r["amplitude_dbfs"] == pytest.approx(0.0, abs=0.01)
+    assert r["offset"] == pytest.approx(1.65, abs=1e-6)
+    bad = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "measure", str(tmp_path / "scope.csv")],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert bad.returncode == 2 and "--rate-hz" in bad.stderr
+
+
+def test_plots_are_pngs(tmp_path: Path) -> None:
+    for args in (
+        ["plot", "ntf", "--shaping", "f-weighted-9", "-o", str(tmp_path / "n.png")],
+        ["plot", "ntf", "--rate-hz", "96000", "--band-hz", "20000", "-o", str(tmp_path / "d.png")],
+    ):
+        assert (
+            subprocess.run(
+                [sys.executable, "-m", "ladderpack", *args], cwd=REPO, capture_output=True
+            ).returncode
+            == 0
+        )
+    assert (
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "ladderpack",
+                "ladder",
+                "--levels-out",
+                str(tmp_path / "l.json"),
+                "--trials",
+                "2",
+            ],
+            cwd=REPO,
+            capture_output=True,
+        ).returncode
+        == 0
+    )
+    assert (
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "ladderpack",
+                "plot",
+                "levels",
+                str(tmp_path / "l.json"),
+                "-o",
+                str(tmp_path / "l.png"),
+            ],
+            cwd=REPO,
+            capture_output=True,
+        ).returncode
+        == 0
+    )
+    for name in ("n.png", "d.png", "l.png"):
+        data = (tmp_path / name).read_bytes()
+        assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000
