@@ -231,7 +231,7 @@ def test_preview_with_filter_and_levels(tmp_path: Path) -> None:
     )
     assert res.returncode == 0, res.stderr
     r = json.loads(res.stdout)
-    data, rate = sf.read(r["file"])
+    _data, rate = sf.read(r["file"])
     assert rate == 48000
     # A first-order RC at its corner passes -3.01 dB; the hold's sinc adds its own droop
     # at 5 kHz of a 22.05 kHz rate: 20 log10(sinc(5000 / 22049.7)) = -0.75 dB.
