@@ -178,6 +178,23 @@ def write_bundle(
 
     Returns the paths written.  See :func:`ladderpack.emit.write_files`.
     """
-    from ladderpack.emit import write_files
+    import json
 
+    from ladderpack.emit import write_files
+    from ladderpack.errors import OutputError
+
+    side = os.path.join(os.fspath(out_dir), f"{asset.name}.json")
+    try:
+        with open(side, encoding="utf-8") as fh:
+            before = json.load(fh).get("options", {}).get("name")
+    except (OSError, ValueError, AttributeError):
+        before = None
+    now = asset.options.get("name")
+    if before is not None and now is not None and before != now:
+        raise OutputError(
+            f"the folder already holds the bundle of asset {before!r}, and {now!r} becomes the "
+            f"same identifier {asset.name!r}; pick another name or folder",
+            file=side,
+            field="name",
+        )
     return write_files(bundle_files(asset, embed_words_max=embed_words_max), out_dir)

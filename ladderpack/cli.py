@@ -290,7 +290,10 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="ladderpack")
-def cli() -> None:
+@click.option(
+    "--debug", is_flag=True, help="Show the full traceback of an internal error (exit status 1)."
+)
+def cli(debug: bool) -> None:
     """Turn sound clips into code streams for GPIO resistor-ladder DACs driven by a
     PIO state machine, with firmware-ready C, MicroPython and binary outputs.
 
@@ -1590,16 +1593,32 @@ def demo(out_dir: str, clips_dir: str, as_json: bool) -> None:
 
 
 def main(argv: list[str] | None = None) -> None:
-    """Entry point: run the CLI, reporting user mistakes as one line, exit status 2."""
+    """Entry point.
+
+    User mistakes (:class:`LadderpackError`, bad options) print one line naming the
+    file and field and exit with status 2; Ctrl-C exits 130; anything else is an
+    internal fault: a one-line message and status 1, or the traceback with --debug.
+    """
+    args = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in args[: args.index("--")] if "--" in args else "--debug" in args
     try:
-        rc = cli.main(args=argv, prog_name="ladderpack", standalone_mode=False)
+        rc = cli.main(args=args, prog_name="ladderpack", standalone_mode=False)
     except LadderpackError as exc:
         click.echo(f"ladderpack: error: {exc}", err=True)
         sys.exit(exc.exit_code)
     except click.ClickException as exc:
         exc.show()
         sys.exit(exc.exit_code)
-    except click.exceptions.Abort:
-        click.echo("ladderpack: interrupted", err=True)
+    except (click.exceptions.Abort, KeyboardInterrupt):
+        click.echo("ladderpack: interrupted; earlier outputs are untouched", err=True)
         sys.exit(130)
+    except Exception as exc:  # an internal fault, not the user's mistake
+        if debug:
+            raise
+        click.echo(
+            f"ladderpack: internal error: {type(exc).__name__}: {exc} "
+            "(run with --debug for the traceback, and please report it)",
+            err=True,
+        )
+        sys.exit(1)
     sys.exit(rc if isinstance(rc, int) else 0)

@@ -380,6 +380,7 @@ def stream_signal(
 
     spec = conform.resampler_spec(sig.rate_hz, float(plan.achieved_rate_hz), bits)
     options = {
+        "name": str(name),
         "bits": bits,
         "rate_hz": float(rate_hz),
         "sys_clock_hz": int(sys_clock_hz),

@@ -9,6 +9,7 @@ outputs intact and no partial files behind.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import tempfile
 from collections.abc import Mapping
@@ -49,6 +50,7 @@ def write_files(files: Mapping[str, bytes], out_dir: str | os.PathLike[str]) -> 
         raise OutputError(f"cannot create output folder ({exc.strerror})", file=folder) from None
     umask = os.umask(0)
     os.umask(umask)
+    _remove_stale_parts(folder, files)
     temps: list[tuple[str, str]] = []
     try:
         for name, data in files.items():
@@ -62,8 +64,27 @@ def write_files(files: Mapping[str, bytes], out_dir: str | os.PathLike[str]) -> 
         for tmp, final in temps:
             os.replace(tmp, final)
     except OSError as exc:
-        for tmp, _ in temps:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
+        _cleanup(temps)
         raise OutputError(f"cannot write output ({exc.strerror or exc})", file=folder) from None
+    except BaseException:  # Ctrl-C or a signal mid-write: leave nothing half-written
+        _cleanup(temps)
+        raise
     return [final for _, final in temps]
+
+
+def _cleanup(temps: list[tuple[str, str]]) -> None:
+    for tmp, _ in temps:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def _remove_stale_parts(folder: str, files: Mapping[str, bytes]) -> None:
+    """Delete temporary files a killed earlier run left for these outputs."""
+    try:
+        entries = os.listdir(folder)
+    except OSError:
+        return
+    for entry in entries:
+        if entry.endswith(".part") and any(entry.startswith(f".{name}.") for name in files):
+            with contextlib.suppress(OSError):
+                os.unlink(os.path.join(folder, entry))
