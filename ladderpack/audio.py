@@ -97,7 +97,9 @@ def check_signal(signal: Signal, *, source: str | None = None, min_frames: int =
     return signal
 
 
-def load_clip(path: str | os.PathLike[str], *, channel: int | None = None) -> Signal:
+def load_clip(
+    path: str | os.PathLike[str], *, channel: int | None = None, frames: int = -1
+) -> Signal:
     """Read a sound file and reduce it to one channel.
 
     Parameters
@@ -107,6 +109,8 @@ def load_clip(path: str | os.PathLike[str], *, channel: int | None = None) -> Si
     channel : int, optional
         0-based channel to keep.  ``None`` (default) averages all channels
         into a mono mix.
+    frames : int
+        Read only this many frames (default all: -1).
 
     Returns
     -------
@@ -134,7 +138,7 @@ def load_clip(path: str | os.PathLike[str], *, channel: int | None = None) -> Si
     if os.path.isdir(name):
         raise AudioFileError("is a folder, expected a sound file", file=name)
     try:
-        data, rate = soundfile.read(name, dtype="float64", always_2d=True)
+        data, rate = soundfile.read(name, dtype="float64", always_2d=True, frames=frames)
     except (soundfile.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
         detail = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise AudioFileError(f"not a readable sound file ({detail})", file=name) from None

@@ -27,7 +27,9 @@ from ladderpack.errors import OptionError
 __all__ = [
     "ResamplerSpec",
     "SincKernel",
+    "StreamResampler",
     "apply_fades",
+    "chunked_mean",
     "dbfs_to_amplitude",
     "design_kernel",
     "kaiser_beta",
@@ -280,9 +282,110 @@ def loop_crossfade(sig: Signal, *, crossfade_ms: float) -> Signal:
     return Signal(np.concatenate([head, x[k:-k]]), sig.rate_hz)
 
 
+#: Chunk length over which partial sums are taken for the mean (see :func:`chunked_mean`).
+MEAN_CHUNK = 1 << 16
+
+
+def chunked_mean(x: np.ndarray) -> float:
+    """Mean of a 1-D array, defined so that block-wise processing gets the same bits.
+
+    Partial sums over fixed chunks of :data:`MEAN_CHUNK` samples (numpy) are added
+    exactly (``math.fsum``); a reader that sees the clip in blocks of any size can
+    form the same chunks and get the same value.
+    """
+    parts = [float(np.sum(x[i : i + MEAN_CHUNK])) for i in range(0, x.size, MEAN_CHUNK)]
+    return math.fsum(parts) / x.size if x.size else 0.0
+
+
 def remove_dc(sig: Signal) -> Signal:
-    """Subtract the mean of each channel."""
+    """Subtract the mean of each channel (mono: :func:`chunked_mean`)."""
+    if sig.samples.ndim == 1:
+        return Signal(sig.samples - chunked_mean(sig.samples), sig.rate_hz)
     return Signal(sig.samples - sig.samples.mean(axis=0), sig.rate_hz)
+
+
+class StreamResampler:
+    """The same resampler as :func:`resample`, fed in blocks.
+
+    Output sample ``n`` is computed from exactly the inputs and with exactly the
+    arithmetic :func:`resample` uses, so the concatenated output is bit-identical
+    whatever the block sizes.  Only the input window still needed is kept.
+
+    Parameters
+    ----------
+    rate_in_hz : float
+        Input rate, Hz.
+    rate_out_hz : float or Fraction
+        Output rate, Hz.
+    frames : int
+        Total input frames (sets the output length, as in :func:`resample`).
+    bits : int
+        Output code width (sets the stop band).
+    """
+
+    def __init__(
+        self, rate_in_hz: float, rate_out_hz: float | Fraction, frames: int, *, bits: int = 16
+    ) -> None:
+        step = Fraction(rate_in_hz) / Fraction(rate_out_hz)
+        if step.denominator > 1 << 40:
+            step = step.limit_denominator(1 << 40)
+        self.step = step
+        self.identity = step == 1
+        self.n_out = math.ceil(frames / step)
+        self.frames = frames
+        if not self.identity:
+            self.kernel = design_kernel(
+                resampler_spec(rate_in_hz, float(Fraction(rate_out_hz)), bits), rate_in_hz
+            )
+            self.half = self.kernel.half
+            self.buf = np.zeros(self.half)  # the leading zero padding
+        self.buf_start = 0  # padded index of buf[0]
+        self.fed = 0
+        self.done = 0  # outputs emitted
+
+    def _base(self, n: int) -> tuple[int, int]:
+        return divmod(n * self.step.numerator, self.step.denominator)
+
+    def feed(self, x: np.ndarray, *, last: bool = False) -> np.ndarray:
+        """Add input samples; return every output that can now be computed."""
+        x = np.asarray(x, dtype=np.float64)
+        self.fed += x.size
+        if self.identity:
+            return np.array(x)
+        tail = np.zeros(self.half + 1) if last else np.zeros(0)
+        self.buf = np.concatenate([self.buf, x, tail])
+        avail = self.buf_start + self.buf.size  # padded samples held, up to this index
+        # Output n reads padded indices base(n) + 1 .. base(n) + 2 half.
+        hi = self.n_out if last else self.done
+        if not last:
+            lo_n, hi_n = self.done, self.n_out
+            while lo_n < hi_n:  # largest n with base(n) + 2 half < avail
+                mid = (lo_n + hi_n) // 2
+                if self._base(mid)[0] + 2 * self.half < avail:
+                    lo_n = mid + 1
+                else:
+                    hi_n = mid
+            hi = lo_n
+        out = np.empty(hi - self.done)
+        if out.size:
+            base, rem = self._base(self.done)
+            step_int, step_rem = divmod(self.step.numerator, self.step.denominator)
+            _kernels.compiled("sinc_resample")(
+                self.buf,
+                self.kernel.table,
+                base - self.buf_start,
+                rem,
+                step_int,
+                step_rem,
+                self.step.denominator,
+                out,
+            )
+            self.done = hi
+        keep_from = self._base(self.done)[0] if self.done < self.n_out else avail
+        drop = max(0, keep_from - self.buf_start)
+        self.buf = self.buf[drop:]
+        self.buf_start += drop
+        return out
 
 
 def normalise_peak(sig: Signal, *, headroom_db: float = 1.0) -> tuple[Signal, float]:

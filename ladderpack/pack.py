@@ -11,6 +11,7 @@ that the refill discards.
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,7 +19,7 @@ import numpy as np
 from ladderpack.errors import OptionError
 from ladderpack.quantize import Codes, check_bits
 
-__all__ = ["Packed", "WordLayout", "pack", "unpack"]
+__all__ = ["Packed", "WordLayout", "pack", "pack_blocks", "unpack"]
 
 
 @dataclass(frozen=True)
@@ -208,3 +209,23 @@ def unpack(words: np.ndarray, layout: WordLayout, sample_count: int | None = Non
     if sample_count is not None:
         flat = flat[:sample_count]
     return Codes(flat, layout.bits)
+
+
+def pack_blocks(
+    blocks: Iterable[np.ndarray], layout: WordLayout, *, pad_code: int = 0
+) -> Iterator[np.ndarray]:
+    """:func:`pack` over a stream of code blocks, carrying partial words across blocks.
+
+    Yields uint32 word blocks whose concatenation equals ``pack`` of the
+    concatenated codes (the last word padded with `pad_code`).
+    """
+    spw = layout.samples_per_word
+    carry = np.zeros(0, dtype=np.uint16)
+    for block in blocks:
+        codes = np.concatenate([carry, np.asarray(block, dtype=np.uint16)])
+        whole = codes.size - codes.size % spw
+        carry = codes[whole:]
+        if whole:
+            yield pack(Codes(codes[:whole], layout.bits), layout, pad_code=pad_code).words
+    if carry.size:
+        yield pack(Codes(carry, layout.bits), layout, pad_code=pad_code).words

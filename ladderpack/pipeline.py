@@ -10,7 +10,8 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
@@ -669,3 +670,107 @@ def stream_tone(
     )
     asset.stats["tone"] = info
     return asset
+
+
+def clip_codes_in_blocks(
+    path: str | os.PathLike[str],
+    *,
+    rate_out_hz: Any,
+    bits: int,
+    block_frames: int = 1 << 16,
+    channel: int | None = None,
+    headroom_db: float = STREAM_DEFAULTS["headroom_db"],
+    fade_ms: float = STREAM_DEFAULTS["fade_ms"],
+    dither: str = STREAM_DEFAULTS["dither"],
+    shaper: Any = "none",
+    seed: int = STREAM_DEFAULTS["seed"],
+    levels: LevelSet | None = None,
+) -> Iterator[np.ndarray]:
+    """The audio codes of a clip, produced block by block in bounded memory.
+
+    The same stages as :func:`stream_signal` (mono mix, DC removal, resampling,
+    peak normalisation, fades, quantisation), in three passes over the file: the
+    mean, the resampled peak, then the codes.  The resampler's window and the
+    quantiser's dither and filter state carry across blocks, so the codes are
+    bit-identical to whole-clip processing for any `block_frames`.
+
+    Yields
+    ------
+    numpy.ndarray
+        uint16 codes (ramps not included).
+    """
+    import soundfile
+
+    from ladderpack.conform import MEAN_CHUNK, StreamResampler, dbfs_to_amplitude, raised_cosine
+    from ladderpack.quantize import BlockQuantizer
+
+    name = os.fspath(path)
+    load_clip(name, channel=channel, frames=1)  # validates the file and the channel
+    info = soundfile.info(name)
+    frames, rate_in = int(info.frames), float(info.samplerate)
+    if frames < 1:
+        raise OptionError("expected at least 1 sample frame(s), got 0", file=name, field="samples")
+
+    def mono_blocks() -> Iterator[np.ndarray]:
+        for block in soundfile.blocks(
+            name, blocksize=block_frames, dtype="float64", always_2d=True
+        ):
+            if not np.all(np.isfinite(block)):
+                raise OptionError("samples must be finite", file=name, field="samples")
+            if channel is None:
+                mono = block[:, 0].copy()
+                for ch in range(1, block.shape[1]):
+                    mono += block[:, ch]
+                mono /= block.shape[1]
+            else:
+                mono = block[:, channel].copy()
+            yield mono
+
+    # Pass 1: the mean, from partial sums over the same fixed chunks as chunked_mean.
+    parts: list[float] = []
+    carry = np.zeros(0)
+    for mono in mono_blocks():
+        carry = np.concatenate([carry, mono])
+        whole = carry.size - carry.size % MEAN_CHUNK
+        for i in range(0, whole, MEAN_CHUNK):
+            parts.append(float(np.sum(carry[i : i + MEAN_CHUNK])))
+        carry = carry[whole:]
+    if carry.size:
+        parts.append(float(np.sum(carry)))
+    mean = math.fsum(parts) / frames
+
+    def resampled() -> Iterator[np.ndarray]:
+        rs = StreamResampler(rate_in, rate_out_hz, frames, bits=bits)
+        seen = 0
+        for mono in mono_blocks():
+            seen += mono.size
+            y = rs.feed(mono - mean, last=seen >= frames)
+            if y.size:
+                yield y
+
+    # Pass 2: the peak of the resampled clip, for the gain.
+    peak = 0.0
+    n_out = 0
+    for y in resampled():
+        peak = max(peak, float(np.max(np.abs(y))))
+        n_out += y.size
+    gain = dbfs_to_amplitude(-headroom_db) / peak if peak > 0 else None
+    rate = float(Fraction(rate_out_hz))
+    n_fade = min(round(fade_ms * 1e-3 * rate), n_out // 2)
+    w = raised_cosine(n_fade)
+
+    # Pass 3: scale, fade, quantise.
+    q = BlockQuantizer(bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levels)
+    pos = 0
+    for y in resampled():
+        if gain is not None:
+            y = y * gain
+        idx = np.arange(pos, pos + y.size)
+        head = idx < n_fade
+        if np.any(head):
+            y[head] *= w[idx[head]]
+        tail = idx >= n_out - n_fade
+        if n_fade and np.any(tail):
+            y[tail] *= w[::-1][idx[tail] - (n_out - n_fade)]
+        pos += y.size
+        yield q.feed(y)

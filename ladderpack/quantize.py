@@ -28,6 +28,7 @@ if TYPE_CHECKING:
 
 __all__ = [
     "DITHERS",
+    "BlockQuantizer",
     "Codes",
     "QuantizeReport",
     "check_bits",
@@ -234,3 +235,79 @@ def with_idle_ramps(audio: Codes, *, idle_code: int = 0, ramp_samples: int) -> C
         )
     ramp = idle_ramp(idle_code, audio.bits, ramp_samples)
     return Codes(np.concatenate([ramp, audio.codes, ramp[::-1]]), audio.bits)
+
+
+class BlockQuantizer:
+    """:func:`quantize` fed in blocks: the dither generator and the error filter's
+    state carry across calls, so the codes are bit-identical to one whole call.
+
+    Parameters are those of :func:`quantize` (without the signal).
+    """
+
+    def __init__(
+        self,
+        *,
+        bits: int,
+        dither: str = "tpdf",
+        shaper: Shaper | str = "none",
+        seed: int = 0,
+        levels: LevelSet | None = None,
+    ) -> None:
+        from ladderpack.shaping import CATALOGUE
+
+        self.bits = check_bits(bits)
+        if dither not in _kernels.DITHER_DRAWS:
+            raise OptionError(
+                f"must be one of {', '.join(DITHERS)}; got {dither!r}", field="dither"
+            )
+        self.shaper = CATALOGUE[shaper] if isinstance(shaper, str) else shaper
+        self.b = np.asarray(self.shaper.b, dtype=np.float64)
+        self.a = np.asarray(self.shaper.a, dtype=np.float64)
+        self.draws = _kernels.DITHER_DRAWS[dither]
+        self.state = _kernels.seed_state(seed)
+        self.e_hist = np.zeros(self.b.size)
+        self.f_hist = np.zeros(self.b.size)
+        self.levels = levels
+        if levels is not None:
+            from ladderpack.levels import code_scale
+
+            lv, self.centre, self.half = code_scale(levels)
+            order = np.argsort(lv, kind="stable")
+            self.lv, self.lc = lv[order], order.astype(np.int64)
+        self.overloads = 0
+        self.resets = 0
+
+    def feed(self, x: np.ndarray) -> np.ndarray:
+        """Quantise the next block of float samples; return its uint16 codes."""
+        out = np.empty(x.shape[0], dtype=np.int64)
+        if self.levels is None:
+            v = signal_to_lsb(x, self.bits)
+            o, r = _kernels.compiled("shape_quantize")(
+                v,
+                self.b,
+                self.a,
+                self.draws,
+                self.state,
+                0,
+                (1 << self.bits) - 1,
+                self.e_hist,
+                self.f_hist,
+                out,
+            )
+        else:
+            v = np.asarray(x, dtype=np.float64) * self.half + self.centre
+            o, r = _kernels.compiled("levels_quantize")(
+                v,
+                self.lv,
+                self.lc,
+                self.b,
+                self.a,
+                self.draws,
+                self.state,
+                self.e_hist,
+                self.f_hist,
+                out,
+            )
+        self.overloads += int(o)
+        self.resets += int(r)
+        return out.astype(np.uint16)
