@@ -350,7 +350,7 @@ def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
         "name": spec.name,
         "kind": spec.kind,
         "rate_hz": float(asset.plan.achieved_rate_hz),
-        "bits": asset.codes.bits,
+        "bits": asset.packed.layout.bits,
         "samples": asset.sample_count,
         "words": asset.word_count,
         "bytes": asset.byte_count,

@@ -15,7 +15,7 @@ from ladderpack.pack import Packed, pack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
-__all__ = ["EMBED_WORDS_MAX", "StreamAsset", "bundle_files", "write_bundle"]
+__all__ = ["EMBED_WORDS_MAX", "StreamAsset", "bundle_files", "bundle_parts", "write_bundle"]
 
 
 @dataclass(frozen=True)
@@ -78,7 +78,8 @@ class StreamAsset:
         spw = self.packed.layout.samples_per_word
         return int(
             pack(
-                Codes(np.full(spw, self.idle_code, np.uint16), self.codes.bits), self.packed.layout
+                Codes(np.full(spw, self.idle_code, np.uint16), self.packed.layout.bits),
+                self.packed.layout,
             ).words[0]
         )
 
@@ -112,7 +113,7 @@ class StreamAsset:
         return {
             "asset": self.name,
             "duration_s": round(self.duration_s, 6),
-            "bits": self.codes.bits,
+            "bits": self.packed.layout.bits,
             "requested_rate_hz": float(self.plan.requested_rate_hz),
             "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
             "rate_error_ppm": round(self.plan.error_ppm, 3),
@@ -171,6 +172,30 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     return files
 
 
+def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> dict[str, Any]:
+    """Like :func:`bundle_files`, but the large files stay lazy (byte chunks) and the
+    sidecar is made from the digests of the files written before it.
+
+    For :func:`ladderpack.emit.write_files`; the bytes written are identical to
+    :func:`bundle_files`.
+    """
+    from ladderpack.emit import binary, c, micropython, pioasm, player_c, sidecar
+
+    if embed_words_max is None:
+        embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
+    n = asset.name
+    return {
+        f"{n}.bin": binary.render_chunks(asset.packed),
+        f"{n}.h": c.render_header(asset).encode(),
+        f"{n}.c": c.render_source_chunks(asset),
+        f"{n}.py": micropython.render(asset, embed=asset.word_count <= embed_words_max).encode(),
+        f"{n}.pio": pioasm.render(asset).encode(),
+        player_c.HEADER_NAME: player_c.render_header().encode(),
+        player_c.SOURCE_NAME: player_c.render_source().encode(),
+        f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
+    }
+
+
 def write_bundle(
     asset: StreamAsset, out_dir: str | os.PathLike[str], *, embed_words_max: int | None = None
 ) -> list[str]:
@@ -197,4 +222,4 @@ def write_bundle(
             file=side,
             field="name",
         )
-    return write_files(bundle_files(asset, embed_words_max=embed_words_max), out_dir)
+    return write_files(bundle_parts(asset, embed_words_max=embed_words_max), out_dir)

@@ -315,6 +315,13 @@ def cli(debug: bool) -> None:
     "--name", default=None, help="Asset name for files and symbols  [default: the clip's file name]"
 )
 @click.option(
+    "--block-frames",
+    type=int,
+    default=None,
+    help="Process the clip in blocks of this many frames (bounded memory, same output)  "
+    "[default: 65536-frame blocks for clips over 8388608 samples, else whole]",
+)
+@click.option(
     "--channel",
     type=int,
     default=None,

@@ -48,6 +48,7 @@ from ladderpack.pio import (
 from ladderpack.quantize import (
     DITHERS,
     Codes,
+    QuantizeReport,
     check_bits,
     idle_ramp,
     quantize,
@@ -129,6 +130,7 @@ def stream_signal(
     true_peak_dbtp: float = STREAM_DEFAULTS["true_peak_dbtp"],
     source: dict[str, Any] | None = None,
     progress: Callable[[str], None] | None = None,
+    blocks: Callable[..., Iterator[np.ndarray]] | None = None,
 ) -> StreamAsset:
     """Turn a mono signal into a ladder stream.
 
@@ -229,6 +231,12 @@ def stream_signal(
         Provenance recorded in the sidecar.
     progress : callable, optional
         Called with the name of each stage as it finishes (see ``STAGES``).
+    blocks : callable, optional
+        Block-wise audio instead of `sig`'s samples: called as
+        ``blocks(rate_out_hz=, bits=, shaper=, levels=, report=)`` it yields code
+        blocks and fills `report` (``n_out`` before its first block, then
+        ``gain_db``, ``overloads``, ``resets``); see :func:`clip_codes_in_blocks`.
+        The packed words are then built without holding all codes.
 
     Returns
     -------
@@ -325,48 +333,97 @@ def stream_signal(
     done = progress or (lambda stage: None)
     loop_rate_ppm = 0.0
     gain_db = 0.0
-    if synth is not None:
-        x = check_signal(synth(rate, spw))
-        x = Signal(x.samples, rate)
-        sig = x
-    elif loop:
-        x = conform.remove_dc(sig)
-        x = conform.loop_crossfade(x, crossfade_ms=crossfade_ms)
-        rate = conform.loop_rate(x.frames, x.rate_hz, plan.achieved_rate_hz, spw)
-        loop_rate_ppm = float((rate / plan.achieved_rate_hz - 1) * 1_000_000)
-        x = conform.resample(x, rate, bits=bits, periodic=True)
-        x = Signal(x.samples, float(plan.achieved_rate_hz))
-    else:
-        x = conform.resample(conform.remove_dc(sig), plan.achieved_rate_hz, bits=bits)
-    done("resample")
-    loudness: dict[str, Any] | None = None
-    if synth is None and loudness_lufs is not None:
-        x, gain_db, loudness = conform.normalise_loudness(
-            x, target_lufs=loudness_lufs, true_peak_dbtp=true_peak_dbtp
+    if blocks is not None:
+        if loop or loudness_lufs is not None:
+            raise OptionError(
+                "a clip processed in blocks supports neither loops nor loudness "
+                "normalisation; use a shorter clip",
+                field="block_frames",
+            )
+        from itertools import chain
+
+        from ladderpack.pack import Packed, pack_blocks
+
+        breport: dict[str, Any] = {}
+        audio_iter = blocks(
+            rate_out_hz=plan.achieved_rate_hz,
+            bits=bits,
+            shaper=shaper,
+            levels=levelset,
+            report=breport,
         )
-        if not loop:
-            x = conform.apply_fades(x, fade_ms=fade_ms)
-    elif synth is None:
-        x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
-        if not loop:
-            x = conform.apply_fades(x, fade_ms=fade_ms)
-    audio, report = quantize(x, bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levelset)
-    done("quantise")
-    ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
-    intro = outro = None
-    if loop:
-        codes = audio
+        first = next(audio_iter, np.zeros(0, np.uint16))  # first passes: n_out now known
+        done("resample")
+        ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
         ramp = idle_ramp(idle_code, bits, ramp_samples)
-        mid = 1 << (bits - 1)
-        intro = pack(Codes(ramp, bits), layout, pad_code=mid if ramp.size else idle_code)
-        # The outro ends with a whole word of idle codes: the loop program repeats the
-        # last word once the FIFO is empty, so that word must be silent.
-        tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, np.uint16)
-        outro = pack(Codes(np.concatenate([ramp[::-1], tail]), bits), layout, pad_code=idle_code)
+        audio_len = int(breport["n_out"])
+        total = 2 * ramp.size + audio_len
+        words = np.empty(layout.words_for(total), dtype=np.uint32)
+        pos = 0
+        for w in pack_blocks(
+            chain([ramp, first], audio_iter, [ramp[::-1]]), layout, pad_code=idle_code
+        ):
+            words[pos : pos + w.size] = w
+            pos += w.size
+        done("quantise")
+        packed = Packed(words, layout, total, idle_code)
+        codes = None
+        intro = outro = None
+        loudness = None
+        gain_db = float(breport["gain_db"])
+        report = QuantizeReport(
+            dither, shaper.name, int(seed), int(breport["overloads"]), int(breport["resets"])
+        )
+        sig = Signal(np.zeros(1), float(breport["rate_in"]))
+        done("pack")
     else:
-        codes = with_idle_ramps(audio, idle_code=idle_code, ramp_samples=ramp_samples)
-    packed = pack(codes, layout, pad_code=idle_code)
-    done("pack")
+        if synth is not None:
+            x = check_signal(synth(rate, spw))
+            x = Signal(x.samples, rate)
+            sig = x
+        elif loop:
+            x = conform.remove_dc(sig)
+            x = conform.loop_crossfade(x, crossfade_ms=crossfade_ms)
+            rate = conform.loop_rate(x.frames, x.rate_hz, plan.achieved_rate_hz, spw)
+            loop_rate_ppm = float((rate / plan.achieved_rate_hz - 1) * 1_000_000)
+            x = conform.resample(x, rate, bits=bits, periodic=True)
+            x = Signal(x.samples, float(plan.achieved_rate_hz))
+        else:
+            x = conform.resample(conform.remove_dc(sig), plan.achieved_rate_hz, bits=bits)
+        done("resample")
+        loudness: dict[str, Any] | None = None
+        if synth is None and loudness_lufs is not None:
+            x, gain_db, loudness = conform.normalise_loudness(
+                x, target_lufs=loudness_lufs, true_peak_dbtp=true_peak_dbtp
+            )
+            if not loop:
+                x = conform.apply_fades(x, fade_ms=fade_ms)
+        elif synth is None:
+            x, gain_db = conform.normalise_peak(x, headroom_db=headroom_db)
+            if not loop:
+                x = conform.apply_fades(x, fade_ms=fade_ms)
+        audio, report = quantize(
+            x, bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levelset
+        )
+        done("quantise")
+        ramp_samples = round(ramp_ms * 1e-3 * float(plan.achieved_rate_hz))
+        intro = outro = None
+        if loop:
+            codes = audio
+            ramp = idle_ramp(idle_code, bits, ramp_samples)
+            mid = 1 << (bits - 1)
+            intro = pack(Codes(ramp, bits), layout, pad_code=mid if ramp.size else idle_code)
+            # The outro ends with a whole word of idle codes: the loop program repeats the
+            # last word once the FIFO is empty, so that word must be silent.
+            tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, np.uint16)
+            outro = pack(
+                Codes(np.concatenate([ramp[::-1], tail]), bits), layout, pad_code=idle_code
+            )
+        else:
+            codes = with_idle_ramps(audio, idle_code=idle_code, ramp_samples=ramp_samples)
+        packed = pack(codes, layout, pad_code=idle_code)
+        audio_len = len(audio)
+        done("pack")
 
     total_words = packed.words.size + sum(p.words.size for p in (intro, outro) if p is not None)
     budget = stream_budget(
@@ -430,7 +487,7 @@ def stream_signal(
         "shaper": shaper.to_dict(),
         "band_hz": band,
         "predicted_noise_db": {k: round(v, 3) for k, v in predicted.items()},
-        "audio_samples": len(audio),
+        "audio_samples": audio_len,
         "ramp_samples": ramp_samples,
         "loop_rate_adjust_ppm": round(loop_rate_ppm, 6),
         "program_variant": variant,
@@ -494,11 +551,16 @@ def _levels_stats(levelset: LevelSet) -> dict[str, Any]:
     return out
 
 
+#: Clips with more samples (frames x channels) than this are processed in blocks.
+BLOCK_THRESHOLD = 1 << 23
+
+
 def stream_clip(
     path: str | os.PathLike[str],
     *,
     channel: int | None = None,
     name: str | None = None,
+    block_frames: int | None = None,
     **options: Any,
 ) -> StreamAsset:
     """Read a sound file and turn it into a ladder stream.
@@ -511,6 +573,11 @@ def stream_clip(
         Channel to use (0-based); default: mix all channels to mono.
     name : str, optional
         Asset name; default the file name without its extension.
+    block_frames : int, optional
+        Process the clip in blocks of this many frames, in bounded memory
+        (bit-identical to processing it whole).  Default: blocks of 65536
+        frames for clips of more than :data:`BLOCK_THRESHOLD` samples that are
+        neither loops nor loudness-normalised, whole otherwise.
     **options
         Any keyword of :func:`stream_signal`.
 
@@ -519,23 +586,56 @@ def stream_clip(
     >>> asset = stream_clip("demo_audio/door_chime.flac", bits=8)  # doctest: +SKIP
     >>> write_bundle(asset, "out")  # doctest: +SKIP
     """
-    fname = os.fspath(path)
-    sig = load_clip(fname, channel=channel)
     import soundfile
 
+    fname = os.fspath(path)
+    head = load_clip(fname, channel=channel, frames=1)  # checks the file and channel early
     info = soundfile.info(fname)
+    big = (
+        info.frames * info.channels > BLOCK_THRESHOLD
+        and not options.get("loop")
+        and (options.get("loudness_lufs") is None)
+    )
+    if block_frames is not None:
+        if (
+            isinstance(block_frames, bool)
+            or not isinstance(block_frames, int)
+            or (block_frames < 1)
+        ):
+            raise OptionError(
+                f"must be a whole number >= 1, got {block_frames!r}", field="block_frames"
+            )
+    elif big:
+        block_frames = 1 << 16
     source = {
         "file": os.path.basename(fname),
         "sha256": sha256_file(fname),
-        "rate_hz": sig.rate_hz,
+        "rate_hz": head.rate_hz,
         "channels": int(info.channels),
-        "frames": sig.frames,
+        "frames": int(info.frames),
         "channel": "mix" if channel is None else int(channel),
     }
     if options.get("progress"):
         options["progress"]("read")
     stem = name if name is not None else os.path.splitext(os.path.basename(fname))[0]
-    return stream_signal(sig, name=stem, source=source, **options)
+    if block_frames is None:
+        sig = load_clip(fname, channel=channel)
+        return stream_signal(sig, name=stem, source=source, **options)
+
+    def blocks(**kw: Any) -> Iterator[np.ndarray]:
+        return clip_codes_in_blocks(
+            fname,
+            block_frames=block_frames,
+            channel=channel,
+            headroom_db=options.get("headroom_db", STREAM_DEFAULTS["headroom_db"]),
+            fade_ms=options.get("fade_ms", STREAM_DEFAULTS["fade_ms"]),
+            dither=options.get("dither", STREAM_DEFAULTS["dither"]),
+            seed=options.get("seed", STREAM_DEFAULTS["seed"]),
+            **kw,
+        )
+
+    stand_in = Signal(np.zeros(1), head.rate_hz)  # validated; the samples come from blocks
+    return stream_signal(stand_in, name=stem, source=source, blocks=blocks, **options)
 
 
 #: Tone kinds whose codes must come out exact: quantised without dither or shaping.
@@ -685,6 +785,7 @@ def clip_codes_in_blocks(
     shaper: Any = "none",
     seed: int = STREAM_DEFAULTS["seed"],
     levels: LevelSet | None = None,
+    report: dict[str, Any] | None = None,
 ) -> Iterator[np.ndarray]:
     """The audio codes of a clip, produced block by block in bounded memory.
 
@@ -694,11 +795,16 @@ def clip_codes_in_blocks(
     quantiser's dither and filter state carry across blocks, so the codes are
     bit-identical to whole-clip processing for any `block_frames`.
 
+    `report`, if given, receives ``rate_in`` and ``n_out`` (the number of codes)
+    before the first block is yielded, and ``gain_db``, ``overloads`` and
+    ``resets`` as soon as they are known.
+
     Yields
     ------
     numpy.ndarray
         uint16 codes (ramps not included).
     """
+    report = {} if report is None else report
     import soundfile
 
     from ladderpack.conform import MEAN_CHUNK, StreamResampler, dbfs_to_amplitude, raised_cosine
@@ -755,6 +861,9 @@ def clip_codes_in_blocks(
         peak = max(peak, float(np.max(np.abs(y))))
         n_out += y.size
     gain = dbfs_to_amplitude(-headroom_db) / peak if peak > 0 else None
+    report.update(
+        rate_in=rate_in, n_out=n_out, gain_db=20 * math.log10(gain) if gain is not None else 0.0
+    )
     rate = float(Fraction(rate_out_hz))
     n_fade = min(round(fade_ms * 1e-3 * rate), n_out // 2)
     w = raised_cosine(n_fade)
@@ -773,4 +882,8 @@ def clip_codes_in_blocks(
         if n_fade and np.any(tail):
             y[tail] *= w[::-1][idx[tail] - (n_out - n_fade)]
         pos += y.size
-        yield q.feed(y)
+        codes = q.feed(y)
+        report.update(overloads=q.overloads, resets=q.resets)
+        yield codes
+    report.setdefault("overloads", q.overloads)
+    report.setdefault("resets", q.resets)

@@ -10,23 +10,31 @@ outputs intact and no partial files behind.
 from __future__ import annotations
 
 import contextlib
+import hashlib
 import os
 import tempfile
-from collections.abc import Mapping
+from collections.abc import Callable, Iterable, Mapping
 
 from ladderpack.errors import OutputError
 
-__all__ = ["write_files"]
+__all__ = ["Content", "write_files"]
 
 
-def write_files(files: Mapping[str, bytes], out_dir: str | os.PathLike[str]) -> list[str]:
+#: What a file's content may be: bytes, an iterable of byte chunks (written as they come,
+#: for large files), or a function called with the SHA-256 digests of the files written
+#: before it (for a sidecar that records them).
+Content = bytes | Iterable[bytes] | Callable[[dict[str, str]], bytes]
+
+
+def write_files(files: Mapping[str, Content], out_dir: str | os.PathLike[str]) -> list[str]:
     """Write a set of files into `out_dir`, all or nothing.
 
     Parameters
     ----------
-    files : mapping of str to bytes
-        File name (no folders) to content.  Written in the mapping's order,
-        so put the file that marks the set complete (the sidecar) last.
+    files : mapping of str to content
+        File name (no folders) to content (see :data:`Content`).  Written in
+        the mapping's order, so put the file that marks the set complete (the
+        sidecar) last.
     out_dir : str or path-like
         Target folder; created if missing.
 
@@ -53,14 +61,22 @@ def write_files(files: Mapping[str, bytes], out_dir: str | os.PathLike[str]) -> 
     _remove_stale_parts(folder, files)
     temps: list[tuple[str, str]] = []
     try:
+        digests: dict[str, str] = {}
         for name, data in files.items():
             fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=folder)
             temps.append((tmp, os.path.join(folder, name)))
             os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual mode
+            h = hashlib.sha256()
             with os.fdopen(fd, "wb") as fh:
-                fh.write(data)
+                if callable(data):
+                    data = data(dict(digests))
+                chunks = [data] if isinstance(data, bytes | bytearray | memoryview) else data
+                for chunk in chunks:
+                    fh.write(chunk)
+                    h.update(chunk)
                 fh.flush()
                 os.fsync(fh.fileno())
+            digests[name] = h.hexdigest()
         for tmp, final in temps:
             os.replace(tmp, final)
     except OSError as exc:

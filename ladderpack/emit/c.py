@@ -8,6 +8,10 @@ name, passed through :func:`comment_safe` so it cannot end a comment.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+
+import numpy as np
+
 from ladderpack._version import __version__
 from ladderpack.bundle import StreamAsset
 from ladderpack.emit.names import comment_safe
@@ -156,31 +160,58 @@ def _array(values: list[int], digits: int) -> list[str]:
     return out
 
 
-def render_source(asset: StreamAsset) -> str:
-    """Return the C source text holding the words and the program."""
+def _array_lines(words: np.ndarray, digits: int, block: int = 1 << 16) -> Iterator[str]:
+    """Lines of `_WORDS_PER_LINE` hex literals, the last without a trailing comma."""
+    n = int(words.shape[0])
+    per = _WORDS_PER_LINE
+    for start in range(0, n, block):
+        chunk = [int(w) for w in words[start : start + block]]
+        for i in range(0, len(chunk), per):
+            line = "    " + ", ".join(f"0x{v:0{digits}X}u" for v in chunk[i : i + per])
+            yield line if start + i + per >= n else line + ","
+
+
+def source_lines(asset: StreamAsset) -> Iterator[str]:
+    """The C source, line by line (large streams are rendered without holding the text)."""
     prefix = asset.name.upper()
-    lines = [_banner(asset), f'#include "{asset.name}.h"', ""]
-    lines.append("/* Packed samples in FIFO order; const, so they stay in flash, and")
-    lines.append(" * uint32_t, so they are word-aligned for DMA. */")
-    lines.append(f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{")
-    lines += _array([int(w) for w in asset.packed.words], 8)
-    lines.append("};")
+    yield from _banner(asset).split("\n")  # its last element is the blank line after it
+    yield f'#include "{asset.name}.h"'
+    yield ""
+    yield "/* Packed samples in FIFO order; const, so they stay in flash, and"
+    yield " * uint32_t, so they are word-aligned for DMA. */"
+    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
+    yield from _array_lines(asset.packed.words, 8)
+    yield "};"
     for part in ("intro", "outro"):
         packed = getattr(asset, part)
         if _count(packed):
-            lines.append("")
-            lines.append(
-                f"const uint32_t {asset.name}_{part}_words[{prefix}_{part.upper()}_WORD_COUNT] = {{"
-            )
-            lines += _array([int(w) for w in packed.words], 8)
-            lines.append("};")
-    lines.append("")
-    lines.append(f"/* State-machine program ({asset.program.variant}):")
+            yield ""
+            count = f"{prefix}_{part.upper()}_WORD_COUNT"
+            yield f"const uint32_t {asset.name}_{part}_words[{count}] = {{"
+            yield from _array_lines(packed.words, 8)
+            yield "};"
+    yield ""
+    yield f"/* State-machine program ({asset.program.variant}):"
     for ins in asset.program.instructions:
-        lines.append(f" *   {ins.text()}")
-    lines.append(" */")
-    lines.append(f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{")
-    lines += _array(list(asset.program.words), 4)
-    lines.append("};")
-    lines.append("")
-    return "\n".join(lines)
+        yield f" *   {ins.text()}"
+    yield " */"
+    yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
+    yield from _array_lines(np.array(asset.program.words), 4)
+    yield "};"
+
+
+def render_source_chunks(asset: StreamAsset, lines_per_chunk: int = 8192) -> Iterator[bytes]:
+    """The C source as byte chunks (identical to :func:`render_source` joined)."""
+    buf: list[str] = []
+    for line in source_lines(asset):
+        buf.append(line)
+        if len(buf) >= lines_per_chunk:
+            yield ("\n".join(buf) + "\n").encode()
+            buf = []
+    if buf:
+        yield ("\n".join(buf) + "\n").encode()
+
+
+def render_source(asset: StreamAsset) -> str:
+    """Return the C source text holding the words and the program."""
+    return b"".join(render_source_chunks(asset)).decode()

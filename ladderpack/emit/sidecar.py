@@ -15,17 +15,26 @@ FORMAT = "ladderpack-stream"
 FORMAT_VERSION = 1
 
 
-def render(asset: StreamAsset, files: Mapping[str, bytes]) -> str:
+def render(
+    asset: StreamAsset,
+    files: Mapping[str, bytes] | None = None,
+    *,
+    digests: Mapping[str, str] | None = None,
+) -> str:
     """Return the sidecar JSON text.
 
     Parameters
     ----------
     asset : StreamAsset
         The stream.
-    files : mapping of str to bytes
+    files : mapping of str to bytes, optional
         The bundle's other files; their SHA-256 digests are recorded so a
         build can tell a hand-edited or incomplete bundle.
+    digests : mapping of str to str, optional
+        The digests themselves, when the files were streamed to disk.
     """
+    if digests is None:
+        digests = {name: hashlib.sha256(data).hexdigest() for name, data in (files or {}).items()}
     doc = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
@@ -44,7 +53,7 @@ def render(asset: StreamAsset, files: Mapping[str, bytes]) -> str:
         },
         "state_machine": asset.sm.to_dict(),
         "stream": {
-            "bits": asset.codes.bits,
+            "bits": asset.packed.layout.bits,
             "idle_code": asset.idle_code,
             "pad_code": asset.packed.pad_code,
             "sample_count": asset.sample_count,
@@ -53,6 +62,6 @@ def render(asset: StreamAsset, files: Mapping[str, bytes]) -> str:
             "duration_s": round(asset.duration_s, 9),
         },
         "stats": asset.stats,
-        "files": {name: hashlib.sha256(data).hexdigest() for name, data in sorted(files.items())},
+        "files": dict(sorted(digests.items())),
     }
     return json.dumps(doc, indent=2, sort_keys=True) + "\n"
