@@ -29,7 +29,7 @@ import resource, sys, time
 import numpy as np
 from ladderpack.clock import plan_clock
 from ladderpack.pack import WordLayout, pack_blocks
-from ladderpack.pipeline import clip_codes_in_blocks, stream_clip
+from ladderpack.pipeline import clip_codes_in_blocks
 mode, path, out = sys.argv[1:4]
 t0 = time.perf_counter()
 rate = plan_clock(22050).achieved_rate_hz
@@ -47,8 +47,10 @@ if mode == "blocks":
                                                   block_frames=1 << 16), WordLayout(8)):
             fh.write(w.astype("<u4").tobytes())
             words += w.size
-else:
-    asset = stream_clip(path, bits=8, flash_bytes=1 << 34)
+else:  # the whole-clip path: every sample in memory at once
+    from ladderpack.audio import load_clip
+    from ladderpack.pipeline import stream_signal
+    asset = stream_signal(load_clip(path), name="whole", bits=8, flash_bytes=1 << 34)
     words = asset.word_count
 peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 print(f"{peak_mb:.1f} {time.perf_counter() - t0:.1f} {words}")
