@@ -22,6 +22,7 @@ from ladderpack.defaults import (
     SHAPER_NAMES,
     SHIFTS,
     STREAM_DEFAULTS,
+    TONE_KINDS,
     WEIGHTING_NAMES,
 )
 from ladderpack.errors import LadderpackError
@@ -384,22 +385,7 @@ def _code_list(text: str | None) -> list[int] | None:
 @cli.command()
 @click.argument(
     "kind",
-    type=click.Choice(
-        [
-            "sine",
-            "square",
-            "sawtooth",
-            "triangle",
-            "multitone",
-            "sweep",
-            "white",
-            "pink",
-            "dc",
-            "staircase",
-            "impulse",
-            "step",
-        ]
-    ),
+    type=click.Choice(TONE_KINDS),
 )
 @click.option(
     "-o",

@@ -18,6 +18,7 @@ __all__ = [
     "SHIFTS",
     "STAGES",
     "STREAM_DEFAULTS",
+    "TONE_KINDS",
     "WEIGHTING_NAMES",
     "default_band_hz",
     "default_ntf_max_db",
@@ -48,6 +49,22 @@ WEIGHTING_NAMES = ("threshold", "a-weighting", "flat")
 
 #: Forms of designed filter.
 NTF_FORMS = ("auto", "fir", "iir")
+
+#: Test waveforms of `ladderpack tone` (see ladderpack.waves).
+TONE_KINDS = (
+    "sine",
+    "square",
+    "sawtooth",
+    "triangle",
+    "multitone",
+    "sweep",
+    "white",
+    "pink",
+    "dc",
+    "staircase",
+    "impulse",
+    "step",
+)
 
 #: Which GPIO carries the ladder's most significant bit.
 PIN_ORDERS = ("msb-high", "msb-low")

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ladderpack.audio import Signal
+from ladderpack.defaults import TONE_KINDS
 from ladderpack.errors import OptionError
 
 __all__ = [
@@ -25,21 +26,6 @@ __all__ = [
     "truncation_spur_dbc",
     "wavetable",
 ]
-
-TONE_KINDS = (
-    "sine",
-    "square",
-    "sawtooth",
-    "triangle",
-    "multitone",
-    "sweep",
-    "white",
-    "pink",
-    "dc",
-    "staircase",
-    "impulse",
-    "step",
-)
 
 
 @dataclass(frozen=True)

@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import shutil
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -43,3 +46,50 @@ def require_tool(name: str) -> str:
     if path is None:
         pytest.fail(f"{name} is not installed; .ci/run installs it")
     return path
+
+
+def _stub_dir(tmp_path: Path) -> Path:
+    """Copy the MicroPython rp2 port stubs (PyPI micropython-rp2-stubs) into a folder of
+    their own, so mypy sees them without the rest of site-packages."""
+    import importlib.metadata as md
+
+    out = tmp_path / "typings"
+    wanted = {"rp2", "machine.pyi", "micropython.pyi", "vfs.pyi", "_mpy_shed", "time.pyi"}
+    for d in (
+        md.distribution("micropython-rp2-stubs"),
+        md.distribution("micropython-stdlib-stubs"),
+    ):
+        for f in d.files or []:
+            parts = Path(str(f)).parts
+            if parts and parts[0] in wanted:
+                dst = out.joinpath(*parts)
+                dst.parent.mkdir(parents=True, exist_ok=True)
+                shutil.copyfile(Path(str(d.locate_file(f))), dst)
+    return out
+
+
+def mypy_micropython(module: Path, tmp_path: Path) -> subprocess.CompletedProcess[str]:
+    """mypy --strict on a generated MicroPython file against the rp2 port's stubs."""
+    cfg = tmp_path / "mypy.ini"
+    cfg.write_text(
+        f"[mypy]\nmypy_path = {_stub_dir(tmp_path)}\n"
+        "[mypy-rp2,rp2.*,machine,micropython,vfs,time,_mpy_shed,_mpy_shed.*]\n"
+        "ignore_errors = True\n"
+    )
+    return subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "mypy",
+            "--config-file",
+            str(cfg),
+            "--no-site-packages",
+            "--strict",
+            "--no-incremental",
+            "--cache-dir",
+            str(tmp_path / "mypy-cache"),
+            str(module),
+        ],
+        capture_output=True,
+        text=True,
+    )

@@ -4,13 +4,10 @@ from __future__ import annotations
 
 import ast
 import json
-import shutil
-import subprocess
-import sys
 from pathlib import Path
 
 import pytest
-from helpers import small_asset
+from helpers import mypy_micropython, small_asset
 
 from ladderpack.bundle import bundle_files
 
@@ -66,26 +63,6 @@ def test_out_init_matches_idle_code() -> None:
     assert expected in src
 
 
-def _stub_dir(tmp_path: Path) -> Path:
-    """Copy the MicroPython rp2 port stubs (PyPI micropython-rp2-stubs) into a folder of
-    their own, so mypy sees them without the rest of site-packages."""
-    import importlib.metadata as md
-
-    dist = md.distribution("micropython-rp2-stubs")
-    deps = md.distribution("micropython-stdlib-stubs")
-    out = tmp_path / "typings"
-    wanted = {"rp2", "machine.pyi", "micropython.pyi", "vfs.pyi", "_mpy_shed", "time.pyi"}
-    for d in (dist, deps):
-        for f in d.files or []:
-            parts = Path(str(f)).parts
-            if parts and parts[0] in wanted:
-                src = Path(str(d.locate_file(f)))
-                dst = out.joinpath(*parts)
-                dst.parent.mkdir(parents=True, exist_ok=True)
-                shutil.copyfile(src, dst)
-    return out
-
-
 @pytest.mark.parametrize("loop", [False, True])
 @pytest.mark.parametrize("embed_max", [0, 10**6])
 def test_player_type_checks_against_rp2_stubs(tmp_path: Path, loop: bool, embed_max: int) -> None:
@@ -94,29 +71,7 @@ def test_player_type_checks_against_rp2_stubs(tmp_path: Path, loop: bool, embed_
     src = bundle_files(asset, embed_words_max=embed_max)[f"{asset.name}.py"].decode()
     module = tmp_path / f"{asset.name}.py"
     module.write_text(src)
-    cfg = tmp_path / "mypy.ini"
-    cfg.write_text(
-        f"[mypy]\nmypy_path = {_stub_dir(tmp_path)}\n"
-        "[mypy-rp2,rp2.*,machine,micropython,vfs,time,_mpy_shed,_mpy_shed.*]\n"
-        "ignore_errors = True\n"
-    )
-    res = subprocess.run(
-        [
-            sys.executable,
-            "-m",
-            "mypy",
-            "--config-file",
-            str(cfg),
-            "--no-site-packages",
-            "--strict",
-            "--no-incremental",
-            "--cache-dir",
-            str(tmp_path / "cache"),
-            str(module),
-        ],
-        capture_output=True,
-        text=True,
-    )
+    res = mypy_micropython(module, tmp_path)
     assert res.returncode == 0, res.stdout + res.stderr
 
 

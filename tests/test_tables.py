@@ -9,8 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import require_tool
-from test_emit_micropython import _stub_dir
+from helpers import mypy_micropython, require_tool
 
 from ladderpack.emit import sweep as emit_sweep
 from ladderpack.emit import table as emit_table
@@ -95,29 +94,7 @@ def test_sweep_script_type_checks_and_parses(tmp_path: Path, mode: str, read: st
     ast.parse(text, feature_version=(3, 4))
     script = tmp_path / "ladder_sweep.py"
     script.write_text(text)
-    cfg = tmp_path / "mypy.ini"
-    cfg.write_text(
-        f"[mypy]\nmypy_path = {_stub_dir(tmp_path)}\n"
-        "[mypy-rp2,rp2.*,machine,micropython,vfs,time,_mpy_shed,_mpy_shed.*]\n"
-        "ignore_errors = True\n"
-    )
-    res = subprocess.run(
-        [
-            sys.executable,
-            "-m",
-            "mypy",
-            "--config-file",
-            str(cfg),
-            "--no-site-packages",
-            "--strict",
-            "--no-incremental",
-            "--cache-dir",
-            str(tmp_path / "c"),
-            str(script),
-        ],
-        capture_output=True,
-        text=True,
-    )
+    res = mypy_micropython(script, tmp_path)
     assert res.returncode == 0, res.stdout + res.stderr
 
 
