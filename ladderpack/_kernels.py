@@ -290,12 +290,27 @@ def sinc_resample_ref(
         if p0 > phases - 1:
             p0 = phases - 1
         a = p - p0
-        acc0 = 0.0
-        acc1 = 0.0
-        for j in range(taps):
-            xv = x[base + 1 + j]
-            acc0 += table[p0, j] * xv
-            acc1 += table[p0 + 1, j] * xv
+        xs = x[base + 1 : base + 1 + taps]
+        t0 = table[p0]
+        t1 = table[p0 + 1]
+        # Four partial sums per row: independent chains the compiler can keep in flight.
+        s0 = s1 = s2 = s3 = 0.0
+        u0 = u1 = u2 = u3 = 0.0
+        whole = taps - taps % 4
+        for j in range(0, whole, 4):
+            s0 += t0[j] * xs[j]
+            s1 += t0[j + 1] * xs[j + 1]
+            s2 += t0[j + 2] * xs[j + 2]
+            s3 += t0[j + 3] * xs[j + 3]
+            u0 += t1[j] * xs[j]
+            u1 += t1[j + 1] * xs[j + 1]
+            u2 += t1[j + 2] * xs[j + 2]
+            u3 += t1[j + 3] * xs[j + 3]
+        for j in range(whole, taps):
+            s0 += t0[j] * xs[j]
+            u0 += t1[j] * xs[j]
+        acc0 = (s0 + s1) + (s2 + s3)
+        acc1 = (u0 + u1) + (u2 + u3)
         out[n] = acc0 + a * (acc1 - acc0)
         base += step_int
         rem += step_rem

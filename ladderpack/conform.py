@@ -12,6 +12,7 @@ exact, usually irrational-looking ratio of a clock plan is served directly.
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
@@ -134,6 +135,7 @@ def kaiser_beta(attenuation_db: float) -> float:
     return 0.0
 
 
+@functools.lru_cache(maxsize=16)
 def design_kernel(
     spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASES, margin_db: float = 3.0
 ) -> SincKernel:
