@@ -93,3 +93,43 @@ def mypy_micropython(module: Path, tmp_path: Path) -> subprocess.CompletedProces
         capture_output=True,
         text=True,
     )
+
+
+#: Flags every generated C file must compile with (DESIGN.md output contract).
+CFLAGS = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic"]
+REPO = Path(__file__).resolve().parent.parent
+
+
+def cc_strict(
+    out: Path,
+    *sources: Path,
+    compile_only: bool = False,
+    compiler: str = "gcc",
+    extra: tuple[str, ...] = (),
+) -> None:
+    """Compile C sources with :data:`CFLAGS` (real compiler), failing the test on error."""
+    cc = require_tool(compiler)
+    cmd = [
+        cc,
+        *extra,
+        *CFLAGS,
+        *(["-c"] if compile_only else []),
+        "-o",
+        str(out),
+        *map(str, sources),
+    ]
+    res = subprocess.run(cmd, capture_output=True, text=True)
+    assert res.returncode == 0, res.stderr
+
+
+def ladderpack_cli(
+    *args: str, cwd: Path | None = None, **kw: object
+) -> subprocess.CompletedProcess[str]:
+    """Run ``python -m ladderpack ARGS`` and capture its output."""
+    return subprocess.run(
+        [sys.executable, "-m", "ladderpack", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd or REPO,
+        **kw,
+    )  # type: ignore[call-overload]

@@ -11,12 +11,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import require_tool, small_asset
+from helpers import CFLAGS, require_tool, small_asset
 
 from ladderpack.bundle import bundle_files
 from ladderpack.emit.c import render_header
-
-CFLAGS = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic"]
 
 UNPACK_MAIN = """\
 #include "{name}.h"

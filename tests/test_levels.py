@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers import ladderpack_cli
 
 from ladderpack.errors import LadderpackError
 from ladderpack.ladder import ideal_ladder, perturbed
@@ -126,10 +125,7 @@ def test_linearity_definitions() -> None:
     assert not linearity(np.array([0.0, 1.2, 1.1, 3.0]))["monotonic"]
 
 
-def _cli(*args: str) -> subprocess.CompletedProcess[str]:
-    return subprocess.run(
-        [sys.executable, "-m", "ladderpack", *args], capture_output=True, text=True, cwd=REPO
-    )
+_cli = ladderpack_cli
 
 
 def test_levels_and_ladder_commands(tmp_path: Path) -> None:

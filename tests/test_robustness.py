@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import soundfile
-from helpers import require_tool, small_asset
+from helpers import cc_strict, ladderpack_cli, small_asset
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -25,14 +25,7 @@ from ladderpack.errors import LadderpackError
 REPO = Path(__file__).resolve().parent.parent
 
 
-def run(*args: str, cwd: Path | None = None, **kw: object) -> subprocess.CompletedProcess[str]:
-    return subprocess.run(
-        [sys.executable, "-m", "ladderpack", *args],
-        capture_output=True,
-        text=True,
-        cwd=cwd or REPO,
-        **kw,
-    )  # type: ignore[call-overload]
+run = ladderpack_cli
 
 
 def _wav(path: Path, data: np.ndarray, rate: int = 16000, subtype: str = "PCM_16") -> Path:
@@ -283,26 +276,11 @@ def test_two_names_one_identifier_refused(tmp_path: Path) -> None:
 
 
 def test_hostile_source_file_name_stays_in_comments(tmp_path: Path) -> None:
-    gcc = require_tool("gcc")
     weird = tmp_path / "evil * #include <x> \u2603 'q\".wav"  # no '/' in a file name
     _wav(weird, 0.2 * np.sin(np.arange(500) / 4.0))
     out = tmp_path / "o"
     assert run("stream", str(weird), "--name", "evil", "-o", str(out)).returncode == 0
-    subprocess.run(
-        [
-            gcc,
-            "-std=c99",
-            "-Wall",
-            "-Wextra",
-            "-Werror",
-            "-pedantic",
-            "-c",
-            "-o",
-            str(tmp_path / "e.o"),
-            str(out / "evil.c"),
-        ],
-        check=True,
-    )
+    cc_strict(tmp_path / "e.o", out / "evil.c", compile_only=True)
     import ast
 
     ast.parse((out / "evil.py").read_text())
@@ -324,22 +302,7 @@ def test_any_name_gives_compiling_c_and_parsing_python(
     folder = tmp_path_factory.mktemp("n")
     for fname, data in bundle_files(asset).items():
         (folder / fname).write_bytes(data)
-    gcc = require_tool("gcc")
-    subprocess.run(
-        [
-            gcc,
-            "-std=c99",
-            "-Wall",
-            "-Wextra",
-            "-Werror",
-            "-pedantic",
-            "-c",
-            "-o",
-            str(folder / "a.o"),
-            str(folder / f"{asset.name}.c"),
-        ],
-        check=True,
-    )
+    cc_strict(folder / "a.o", folder / f"{asset.name}.c", compile_only=True)
     import ast
 
     ast.parse((folder / f"{asset.name}.py").read_text(), feature_version=(3, 4))

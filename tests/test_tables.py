@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from helpers import mypy_micropython, require_tool
+from helpers import cc_strict, mypy_micropython
 
 from ladderpack.emit import sweep as emit_sweep
 from ladderpack.emit import table as emit_table
@@ -47,7 +47,6 @@ def test_table_picks_nearest_true_level_even_when_non_monotonic() -> None:
 
 @pytest.mark.parametrize("bits", [8, 12])
 def test_table_c_compiles_and_python_parses(tmp_path: Path, bits: int) -> None:
-    gcc = require_tool("gcc")
     lev = LevelSet(
         bits, perturbed(ideal_ladder(bits), np.random.default_rng(1), tolerance=0.01).levels()
     )
@@ -64,21 +63,7 @@ def test_table_c_compiles_and_python_parses(tmp_path: Path, bits: int) -> None:
         'printf("%u\\n", (unsigned)fix_table[i]);\nreturn 0; }\n'
     )
     exe = tmp_path / "t"
-    subprocess.run(
-        [
-            gcc,
-            "-std=c99",
-            "-Wall",
-            "-Wextra",
-            "-Werror",
-            "-pedantic",
-            "-o",
-            str(exe),
-            str(tmp_path / "main.c"),
-            str(tmp_path / "fix.c"),
-        ],
-        check=True,
-    )
+    cc_strict(exe, tmp_path / "main.c", tmp_path / "fix.c")
     out = subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout.split()
     assert [int(x) for x in out] == tab.tolist()
     py = emit_table.render_micropython("fix", tab, in_bits=bits + 2, bits=bits, source="t.json")
@@ -178,7 +163,6 @@ def test_sweep_and_table_commands(tmp_path: Path) -> None:
 
 
 def test_wave_table_files_compile_and_agree(tmp_path: Path) -> None:
-    gcc = require_tool("gcc")
     res = subprocess.run(
         [
             sys.executable,
@@ -212,21 +196,7 @@ def test_wave_table_files_compile_and_agree(tmp_path: Path) -> None:
         'printf("%lu\\n", (unsigned long)wavetable_increments[i]);\nreturn 0; }\n'
     )
     exe = tmp_path / "w"
-    subprocess.run(
-        [
-            gcc,
-            "-std=c99",
-            "-Wall",
-            "-Wextra",
-            "-Werror",
-            "-pedantic",
-            "-o",
-            str(exe),
-            str(tmp_path / "main.c"),
-            str(tmp_path / "wavetable.c"),
-        ],
-        check=True,
-    )
+    cc_strict(exe, tmp_path / "main.c", tmp_path / "wavetable.c")
     out = [
         int(v)
         for v in subprocess.run(
