@@ -28,8 +28,7 @@ WORKER = r"""
 import resource, sys, time
 import numpy as np
 from ladderpack.clock import plan_clock
-from ladderpack.pack import WordLayout, pack_blocks
-from ladderpack.pipeline import clip_codes_in_blocks
+from ladderpack.stream import stream_clip
 mode, path, out = sys.argv[1:4]
 t0 = time.perf_counter()
 rate = plan_clock(22050).achieved_rate_hz
@@ -41,15 +40,11 @@ if mode == "command":
     print(f"{peak_mb:.1f} {time.perf_counter() - t0:.1f} 0")
     raise SystemExit
 if mode == "blocks":
-    words = 0
-    with open(out, "wb") as fh:
-        for w in pack_blocks(clip_codes_in_blocks(path, rate_out_hz=rate, bits=8,
-                                                  block_frames=1 << 16), WordLayout(8)):
-            fh.write(w.astype("<u4").tobytes())
-            words += w.size
+    asset = stream_clip(path, bits=8, block_frames=1 << 16, flash_bytes=1 << 34)
+    words = asset.word_count
 else:  # the whole-clip path: every sample in memory at once
     from ladderpack.audio import load_clip
-    from ladderpack.pipeline import stream_signal
+    from ladderpack.stream import stream_signal
     asset = stream_signal(load_clip(path), name="whole", bits=8, flash_bytes=1 << 34)
     words = asset.word_count
 peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024

@@ -26,7 +26,7 @@ import numpy as np
 import soundfile
 
 from ladderpack import _kernels
-from ladderpack.pipeline import stream_clip
+from ladderpack.stream import stream_clip
 
 C_LOOP = r"""
 #include <math.h>

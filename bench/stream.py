@@ -23,7 +23,7 @@ from ladderpack import _kernels
 from ladderpack.audio import Signal
 from ladderpack.clock import plan_clock
 from ladderpack.conform import design_kernel, resample, resampler_spec
-from ladderpack.pipeline import stream_signal
+from ladderpack.stream import stream_signal
 
 
 def best_of(fn: Callable[[], object], repeat: int = 3) -> float:

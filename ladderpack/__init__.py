@@ -31,8 +31,8 @@ _EXPORTS = {
     "pack": "pack",
     "plan_clock": "clock",
     "quantize": "quantize",
-    "stream_clip": "pipeline",
-    "stream_signal": "pipeline",
+    "stream_clip": "stream",
+    "stream_signal": "stream",
     "unpack": "pack",
     "write_bundle": "bundle",
 }

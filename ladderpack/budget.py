@@ -5,7 +5,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from fractions import Fraction
 
-from ladderpack.defaults import STREAM_DEFAULTS
 from ladderpack.errors import OptionError
 
 __all__ = ["Budget", "TargetProfile", "check_budget", "stream_budget"]
@@ -18,7 +17,7 @@ class TargetProfile:
     Attributes
     ----------
     flash_bytes : int
-        Flash size (default 2 MiB, a Raspberry Pi Pico's W25Q16).
+        Flash size (default 2 MiB, the RP2040 target's; see :mod:`ladderpack.targets`).
     flash_reserve_bytes : int
         Flash kept for firmware code and anything else (default 256 KiB); the
         rest is available for streams.
@@ -26,9 +25,9 @@ class TargetProfile:
         SRAM size (default 264 KiB, RP2040).
     """
 
-    flash_bytes: int = STREAM_DEFAULTS["flash_bytes"]
-    flash_reserve_bytes: int = STREAM_DEFAULTS["flash_reserve_bytes"]
-    ram_bytes: int = STREAM_DEFAULTS["ram_bytes"]
+    flash_bytes: int = 2 * 1024 * 1024
+    flash_reserve_bytes: int = 256 * 1024
+    ram_bytes: int = 264 * 1024
 
     def __post_init__(self) -> None:
         for field in ("flash_bytes", "flash_reserve_bytes", "ram_bytes"):

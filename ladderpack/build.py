@@ -43,7 +43,6 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ladderpack._version import __version__
-from ladderpack.defaults import STREAM_DEFAULTS
 from ladderpack.errors import LadderpackError
 
 __all__ = ["STATE_NAME", "AssetSpec", "BuildResult", "Manifest", "build", "load_manifest"]
@@ -52,51 +51,13 @@ STATE_NAME = ".ladderpack-state.json"
 INDEX_STEM = "assets"
 PLAYER_FILES = ("ladderpack_player.h", "ladderpack_player.c")
 
-_NUM = (int, float)
-#: Types allowed for each stream option in a manifest (None allowed where the default is).
-_STREAM_TYPES: dict[str, tuple[type, ...]] = {
-    k: (
-        (bool,)
-        if isinstance(v, bool)
-        else _NUM
-        if isinstance(v, int | float)
-        else (str,)
-        if isinstance(v, str)
-        else ()
-    )
-    for k, v in STREAM_DEFAULTS.items()
-}
-_STREAM_TYPES.update(
-    band_hz=_NUM, ntf_max_db=_NUM, samples_per_word=(int,), levels=(str,), embed_words_max=(int,)
-)
-_CLIP_TYPES = {"channel": (int,)}
-_TONE_TYPES: dict[str, tuple[type, ...]] = {
-    "seconds": _NUM,
-    "cycles": (int,),
-    "freq_hz": _NUM,
-    "level_dbfs": _NUM,
-    "band_limited": (bool,),
-    "tones": (list,),
-    "f_start_hz": _NUM,
-    "f_end_hz": _NUM,
-    "dc_value": _NUM,
-    "codes": (list,),
-    "dwell_ms": _NUM,
-    "coherent_record": (int,),
-}
-_TABLE_TYPES: dict[str, dict[str, tuple[type, ...]]] = {
-    "wave": {
-        "kind": (str,),
-        "table_bits": (int,),
-        "bits": (int,),
-        "level_dbfs": _NUM,
-        "freqs_hz": (list,),
-        "rate_hz": _NUM,
-        "sys_clock_hz": (int,),
-        "rate_tolerance_ppm": _NUM,
-    },
-    "correction": {"levels": (str,), "in_bits": (int,)},
-}
+
+def _types(cls_name: str) -> dict[str, tuple[type, ...]]:
+    from ladderpack import options
+
+    return options.manifest_types(getattr(options, cls_name))
+
+
 _KIND_KEYS = ("clip", "tone", "table")
 
 
@@ -207,7 +168,16 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
     project = doc.get("project", {})
     _check_types(mpath, None, project, {"out_dir": (str,)})
     defaults = doc.get("defaults", {})
-    all_types = {**_STREAM_TYPES, **_TONE_TYPES, **_CLIP_TYPES}
+    stream_types, tone_types, clip_types = (
+        _types("StreamOptions"),
+        {k: v for k, v in _types("ToneSpec").items() if k != "kind"},
+        _types("ClipOptions"),
+    )
+    table_types = {
+        "wave": _types("WaveTableSpec"),
+        "correction": _types("CorrectionTableSpec"),
+    }
+    all_types = {**stream_types, **tone_types, **clip_types}
     _check_types(mpath, None, defaults, all_types)
     out_dir = os.path.normpath(os.path.join(root, project.get("out_dir", "generated")))
     assets: list[AssetSpec] = []
@@ -239,15 +209,15 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
         own = {k: v for k, v in raw.items() if k not in ("name", kind)}
         inputs: list[str] = []
         if kind == "table":
-            if raw[kind] not in _TABLE_TYPES:
-                _err(mpath, f"expected one of {', '.join(_TABLE_TYPES)}", label, "table")
-            _check_types(mpath, label, own, _TABLE_TYPES[raw[kind]])
+            if raw[kind] not in table_types:
+                _err(mpath, f"expected one of {', '.join(table_types)}", label, "table")
+            _check_types(mpath, label, own, table_types[raw[kind]])
             opts = dict(own)
             if raw[kind] == "correction" and "levels" not in opts:
                 _err(mpath, "a correction table needs a levels file", label, "levels")
             source = raw[kind]
         else:
-            types = {**_STREAM_TYPES, **(_CLIP_TYPES if kind == "clip" else _TONE_TYPES)}
+            types = {**stream_types, **(clip_types if kind == "clip" else tone_types)}
             _check_types(mpath, label, own, types)
             inherited = {k: v for k, v in defaults.items() if k in types}
             opts = {**inherited, **own}
@@ -269,12 +239,64 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
                     label,
                     kind if p == source else "levels",
                 )
+        opts = _validated(mpath, label, kind, source, opts)
         assets.append(AssetSpec(ident, kind, source, opts, tuple(inputs)))
     if not assets:
         _err(mpath, "no [[asset]] entries", None, "asset")
-    flash = int(defaults.get("flash_bytes", STREAM_DEFAULTS["flash_bytes"]))
-    reserve = int(defaults.get("flash_reserve_bytes", STREAM_DEFAULTS["flash_reserve_bytes"]))
+    from ladderpack.options import StreamOptions, from_mapping
+
+    budget_keys = ("target", "flash_bytes", "flash_reserve_bytes")
+    whole = from_mapping(
+        StreamOptions,
+        {k: defaults[k] for k in budget_keys if k in defaults},
+        file=mpath,
+        where="defaults",
+    )
+    flash, reserve = int(whole.flash_bytes or 0), whole.flash_reserve_bytes
     return Manifest(mpath, root, out_dir, tuple(assets), flash, reserve)
+
+
+def option_objects(
+    kind: str,
+    source: str,
+    options: dict[str, Any],
+    *,
+    file: str | None = None,
+    where: str | None = None,
+) -> list[Any]:
+    """The option-model objects of an asset: ``[StreamOptions, ClipOptions or ToneSpec]``
+    for streams, ``[WaveTableSpec]`` or ``[CorrectionTableSpec]`` for tables.
+
+    Each takes its own keys of `options`; errors name `file` and `where`.
+    """
+    from ladderpack import options as model
+
+    groups: list[type]
+    if kind == "table":
+        groups = [model.WaveTableSpec if source == "wave" else model.CorrectionTableSpec]
+    else:
+        groups = [model.StreamOptions, model.ClipOptions if kind == "clip" else model.ToneSpec]
+    out = []
+    for cls in groups:
+        keys = {f.name for f, _i, _h in model.option_fields(cls)}
+        values = {k: v for k, v in options.items() if k in keys}
+        if cls is model.ToneSpec:
+            values["kind"] = source
+        out.append(model.from_mapping(cls, values, file=file, where=where))
+    return out
+
+
+def _validated(
+    mpath: str, label: str, kind: str, source: str, opts: dict[str, Any]
+) -> dict[str, Any]:
+    """Check an asset's options through the option model (one line naming the key)."""
+    parts = option_objects(kind, source, opts, file=mpath, where=f"asset {label!r}")
+    if kind == "tone":
+        try:
+            parts[0].check_for_tone()
+        except LadderpackError as exc:
+            _err(mpath, exc.message, label, exc.field)
+    return opts
 
 
 def _sha256(path: str) -> str:
@@ -317,9 +339,19 @@ def input_hashes(
     return out
 
 
+def _resolved(spec: AssetSpec) -> dict[str, Any]:
+    """Every option of an asset as the model resolves it (defaults included)."""
+    out: dict[str, Any] = {}
+    for obj in option_objects(spec.kind, spec.source, spec.options):
+        out.update(obj.to_dict())
+    if "levels" in spec.options:
+        out["levels"] = spec.options["levels"]
+    return out
+
+
 def fingerprint(spec: AssetSpec, root: str, hashes: dict[str, str] | None = None) -> str:
     """Hash of everything an asset's outputs depend on (no absolute paths, no times)."""
-    opts = {k: (_rel(v, root) if k == "levels" else v) for k, v in spec.options.items()}
+    opts = {k: (_rel(v, root) if k == "levels" and v else v) for k, v in _resolved(spec).items()}
     doc = {
         "tool": __version__,
         "name": spec.name,
@@ -333,18 +365,30 @@ def fingerprint(spec: AssetSpec, root: str, hashes: dict[str, str] | None = None
 
 def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
     """Build one asset in memory: its files and its index entry (runs in a worker)."""
+    parts = option_objects(spec.kind, spec.source, spec.options)
     if spec.kind == "table":
-        return _render_table(spec)
-    from ladderpack.bundle import bundle_files
-    from ladderpack.pipeline import stream_clip, stream_tone
+        from ladderpack.tables import correction_table_files, wave_table_files
 
-    opts = dict(spec.options)
+        make = wave_table_files if spec.source == "wave" else correction_table_files
+        res = make(spec.name, parts[0])
+        entry = {
+            "name": spec.name,
+            "kind": "table",
+            "rate_hz": res.rate_hz,
+            "bits": res.bits,
+            "samples": res.entries,
+            "words": 0,
+            "bytes": res.byte_count,
+            "data": None,
+        }
+        return res.files, entry
+    from ladderpack.bundle import bundle_files
+    from ladderpack.stream import stream_clip, stream_tone
+
     if spec.kind == "clip":
-        asset = stream_clip(spec.source, name=spec.name, **opts)
+        asset = stream_clip(spec.source, name=spec.name, options=parts[0], clip=parts[1])
     else:
-        if "tones" in opts:
-            opts["tones"] = [tuple(t) for t in opts["tones"]]
-        asset = stream_tone(spec.source, name=spec.name, **opts)
+        asset = stream_tone(spec.source, name=spec.name, tone=parts[1], options=parts[0])
     files = bundle_files(asset)
     entry = {
         "name": spec.name,
@@ -355,76 +399,6 @@ def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
         "words": asset.word_count,
         "bytes": asset.byte_count,
         "data": f"{spec.name}_words",
-    }
-    return files, entry
-
-
-def _render_table(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
-    from ladderpack.emit import table as emit_table
-
-    o = spec.options
-    if spec.source == "wave":
-        from ladderpack.clock import plan_clock
-        from ladderpack.quantize import check_bits
-        from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
-
-        bits = check_bits(o.get("bits", 8))
-        k = o.get("table_bits", 8)
-        plan = plan_clock(
-            o.get("rate_hz", 22050.0),
-            sys_clock_hz=o.get("sys_clock_hz", STREAM_DEFAULTS["sys_clock_hz"]),
-            tolerance_ppm=o.get("rate_tolerance_ppm", 100.0),
-        )
-        rate = float(plan.achieved_rate_hz)
-        tab = wavetable(o.get("kind", "sine"), k, bits=bits, level_dbfs=o.get("level_dbfs", -1.0))
-        incs = phase_increments([float(f) for f in o.get("freqs_hz", [440.0])], rate)
-        files = emit_table.render_wave_files(
-            spec.name,
-            tab,
-            incs,
-            table_bits=k,
-            bits=bits,
-            rate_hz=rate,
-            spur_dbc=truncation_spur_dbc(k),
-            kind=o.get("kind", "sine"),
-        )
-        entry = {
-            "name": spec.name,
-            "kind": "table",
-            "rate_hz": rate,
-            "bits": bits,
-            "samples": int(tab.size),
-            "words": 0,
-            "bytes": int(tab.size) * (1 if bits <= 8 else 2),
-            "data": None,
-        }
-        return files, entry
-    from ladderpack.levels import correction_table, load_levels
-
-    lev = load_levels(o["levels"])
-    m = o.get("in_bits", lev.bits)
-    tab = correction_table(lev, m)
-    src = os.path.basename(o["levels"])
-    files = {
-        f"{spec.name}.h": emit_table.render_c_header(
-            spec.name, tab, in_bits=m, bits=lev.bits, source=src
-        ).encode(),
-        f"{spec.name}.c": emit_table.render_c_source(
-            spec.name, tab, bits=lev.bits, source=src
-        ).encode(),
-        f"{spec.name}.py": emit_table.render_micropython(
-            spec.name, tab, in_bits=m, bits=lev.bits, source=src
-        ).encode(),
-    }
-    entry = {
-        "name": spec.name,
-        "kind": "table",
-        "rate_hz": 0.0,
-        "bits": lev.bits,
-        "samples": int(tab.size),
-        "words": 0,
-        "bytes": int(tab.size) * (1 if lev.bits <= 8 else 2),
-        "data": None,
     }
     return files, entry
 

@@ -27,8 +27,11 @@ class StreamAsset:
     name : str
         Safe identifier (from :func:`ladderpack.emit.names.asset_identifier`);
         the stem of every output file and the prefix of every C symbol.
-    codes : Codes
-        The stream's codes, ramps included.
+    codes : Codes or None
+        The stream's codes, ramps included, when the input was processed in
+        one block; None when it went in several (only the packed words are
+        kept, so memory stays bounded: :func:`ladderpack.pack.unpack` recovers
+        the codes).
     packed : Packed
         FIFO words.
     plan : ClockPlan
@@ -54,7 +57,7 @@ class StreamAsset:
     """
 
     name: str
-    codes: Codes
+    codes: Codes | None
     packed: Packed
     plan: ClockPlan
     program: Program

@@ -14,20 +14,11 @@ import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.defaults import (
-    DITHERS,
-    EMBED_WORDS_MAX,
-    NTF_FORMS,
-    PIN_ORDERS,
-    PROGRAM_CHOICES,
     SHAPER_NAMES,
-    SHIFTS,
-    STREAM_DEFAULTS,
     TONE_KINDS,
     WEIGHTING_NAMES,
 )
 from ladderpack.errors import LadderpackError
-
-D = STREAM_DEFAULTS
 
 
 def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> None:
@@ -110,183 +101,141 @@ def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
         yield lambda stage: bar.update(1, stage)
 
 
-def _opt(flag: str, key: str, help_text: str, **kw: Any) -> Callable[[Any], Any]:
-    """An option whose default comes from the library's STREAM_DEFAULTS."""
-    kw.setdefault("show_default", True)
-    return click.option(flag, key, default=D[key], help=help_text, **kw)
+def _split_list(text: str, param: str, conv: Callable[[str], Any]) -> tuple[Any, ...]:
+    try:
+        return tuple(conv(item) for item in text.split(",") if item.strip())
+    except ValueError:
+        raise click.BadParameter(
+            f"expected comma-separated numbers, got {text!r}", param_hint=param
+        ) from None
+
+
+def _pairs(text: str | None) -> tuple[tuple[float, float], ...] | None:
+    if not text:
+        return None
+    out = []
+    for item in text.split(","):
+        try:
+            f, _, db = item.partition(":")
+            out.append((float(f), float(db or 0.0)))
+        except ValueError:
+            raise click.BadParameter(
+                f"expected FREQ_HZ:LEVEL_DB pairs, got {item!r}", param_hint="--tones"
+            ) from None
+    return tuple(out)
+
+
+def _code_list(text: str | None) -> tuple[int, ...] | None:
+    if not text:
+        return None
+    out: list[int] = []
+    for item in text.split(","):
+        try:
+            lo, sep, hi = item.partition("-")
+            out.extend(range(int(lo), int(hi) + 1) if sep else [int(lo)])
+        except ValueError:
+            raise click.BadParameter(
+                f"expected codes like 0-15,32,64, got {item!r}", param_hint="--codes"
+            ) from None
+    return tuple(out)
+
+
+#: Options written as text on the command line and parsed into the model's tuples.
+_TEXT_PARSERS: dict[str, Callable[[str | None], Any]] = {
+    "tones": _pairs,
+    "codes": _code_list,
+    "freqs_hz": lambda t: None if t is None else _split_list(t, "--freqs-hz", float),
+}
+
+
+def model_options(
+    cls: type, *, exclude: tuple[str, ...] = (), only: tuple[str, ...] | None = None
+) -> Callable[[Any], Any]:
+    """Click options for every command-line field of an option class of
+    :mod:`ladderpack.options`: flag, type, default, choices and help all come from
+    the model."""
+    from ladderpack.options import option_fields
+
+    decorators = []
+    for f, info, hint in option_fields(cls):
+        if not info.cli or f.name in exclude or (only is not None and f.name not in only):
+            continue
+        flag = info.flag or "--" + f.name.replace("_", "-")
+        text = info.help
+        if info.unit and info.unit not in ("file",):
+            text = f"{text.rstrip('.')} ({info.unit})."
+        if info.lo is not None and info.hi is not None and not info.lo_open:
+            text = f"{text[:-1]}; {info.lo:g}..{info.hi:g}."
+        kw: dict[str, Any] = {"help": text, "show_default": True}
+        if f.default is None or f.name in _TEXT_PARSERS:
+            kw["show_default"] = False
+            kw["help"] = f"{text}  [default: {info.default_text or 'none'}]"
+            kw["default"] = None
+        else:
+            kw["default"] = f.default
+        base = hint if isinstance(hint, type) else None
+        args = typing_args(hint)
+        if info.choices is not None:
+            kw["type"] = click.Choice(info.choices)
+        elif f.name in _TEXT_PARSERS:
+            kw["type"] = str
+        elif base is bool:
+            kw.pop("type", None)
+        elif int in args or base is int:
+            kw["type"] = int
+        elif float in args or base is float:
+            kw["type"] = float
+        elif info.metavar == "FILE":
+            kw["type"] = click.Path(dir_okay=False)
+        if info.metavar:
+            kw["metavar"] = info.metavar
+        decorators.append(click.option(flag, f.name, **kw))
+
+    def apply(func: Callable[..., Any]) -> Callable[..., Any]:
+        for deco in reversed(decorators):
+            func = deco(func)
+        return func
+
+    return apply
+
+
+def typing_args(hint: Any) -> tuple[Any, ...]:
+    """The members of a union type hint (or the hint itself)."""
+    import typing
+
+    args = typing.get_args(hint)
+    return args if args else (hint,)
+
+
+def model_values(cls: type, values: dict[str, Any]) -> dict[str, Any]:
+    """Take the fields of `cls` out of a command's keyword arguments (parsing text lists)."""
+    from ladderpack.options import option_fields
+
+    out = {}
+    for f, info, _hint in option_fields(cls):
+        if info.cli and f.name in values:
+            v = values.pop(f.name)
+            out[f.name] = _TEXT_PARSERS[f.name](v) if f.name in _TEXT_PARSERS else v
+            if out[f.name] is None and f.default is not None:
+                del out[f.name]
+    return out
+
+
+def _model_options_lazy(cls_name: str, **kw: Any) -> Callable[[Any], Any]:
+    """:func:`model_options` for the option class of that name in ladderpack.options."""
+    from ladderpack import options
+
+    return model_options(getattr(options, cls_name), **kw)
 
 
 def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
-    """Options shared by every command that makes a stream bundle."""
-    opts = [
-        _opt("--bits", "bits", "Ladder width N in bits, 1..16.", type=int),
-        _opt("--rate-hz", "rate_hz", "Requested stream sample rate, Hz.", type=float),
-        _opt("--sys-clock-hz", "sys_clock_hz", "System clock feeding the PIO block, Hz.", type=int),
-        _opt(
-            "--rate-tolerance-ppm",
-            "rate_tolerance_ppm",
-            "Rate error accepted to keep a jitter-free integer divider, ppm.",
-            type=float,
-        ),
-        _opt(
-            "--headroom-db",
-            "headroom_db",
-            "Peak level below full scale after normalising, dB.",
-            type=float,
-        ),
-        _opt(
-            "--fade-ms", "fade_ms", "Raised-cosine fade at each end of the audio, ms.", type=float
-        ),
-        _opt(
-            "--ramp-ms",
-            "ramp_ms",
-            "Ramp between the idle code and mid-scale at start and end, ms.",
-            type=float,
-        ),
-        _opt("--idle-code", "idle_code", "Code the pins hold when nothing plays.", type=int),
-        _opt("--dither", "dither", "Dither before rounding.", type=click.Choice(DITHERS)),
-        _opt(
-            "--shaping",
-            "shaping",
-            "Error-feedback noise shaping: a fixed or published filter, or designed for the "
-            "stream's rate.",
-            type=click.Choice(SHAPER_NAMES),
-        ),
-        _opt(
-            "--band-hz",
-            "band_hz",
-            "Audio band for shaping and noise figures, Hz  [default: 20000 or the stream's "
-            "Nyquist, whichever is lower]",
-            type=float,
-            show_default=False,
-        ),
-        _opt(
-            "--weighting",
-            "weighting",
-            "Noise weighting for the designer and the report.",
-            type=click.Choice(WEIGHTING_NAMES),
-        ),
-        _opt("--ntf-order", "ntf_order", "Order of a designed shaping filter, 1..16.", type=int),
-        _opt(
-            "--ntf-max-db",
-            "ntf_max_db",
-            "Peak gain bound of a designed filter, dB  [default: 3.5 up to 3 bits, 10 up to 7, "
-            "20 from 8]",
-            type=float,
-            show_default=False,
-        ),
-        _opt(
-            "--ntf-form",
-            "ntf_form",
-            "Designed filter form (auto: the better one).",
-            type=click.Choice(NTF_FORMS),
-        ),
-        click.option(
-            "--loudness-lufs",
-            "loudness_lufs",
-            type=float,
-            default=None,
-            help="Normalise to this integrated loudness (ITU-R BS.1770), LUFS, "
-            "instead of --headroom-db  [default: off]",
-        ),
-        _opt(
-            "--true-peak-dbtp",
-            "true_peak_dbtp",
-            "True-peak ceiling for --loudness-lufs, dBTP.",
-            type=float,
-        ),
-        click.option(
-            "--levels",
-            "levels",
-            type=click.Path(dir_okay=False),
-            default=None,
-            help="LevelSet JSON (from 'ladderpack levels' or 'ladderpack ladder'): "
-            "quantise against the ladder's true levels.",
-        ),
-        click.option(
-            "--force/--no-force",
-            default=D["force"],
-            show_default=True,
-            help="Use a published filter even far from its 44.1 kHz design rate.",
-        ),
-        _opt("--seed", "seed", "Dither seed; the same seed gives identical output.", type=int),
-        _opt(
-            "--shift",
-            "shift",
-            "OUT shift direction: right puts the first sample in the LSBs.",
-            type=click.Choice(SHIFTS),
-        ),
-        _opt(
-            "--out-base", "out_base", "GPIO number of the ladder's least significant bit.", type=int
-        ),
-        _opt("--gpio-count", "gpio_count", "User GPIOs on the target (30 on RP2040).", type=int),
-        _opt(
-            "--pin-order",
-            "pin_order",
-            "msb-high: ladder MSB on the highest GPIO; msb-low: on the lowest (bits reversed).",
-            type=click.Choice(PIN_ORDERS),
-        ),
-        click.option(
-            "--invert/--no-invert",
-            default=D["invert"],
-            show_default=True,
-            help="Invert every bit, for an inverting buffer between pins and ladder.",
-        ),
-        _opt(
-            "--program",
-            "program",
-            "State-machine program; auto picks loop for loops when it fits, else autopull.",
-            type=click.Choice(PROGRAM_CHOICES),
-        ),
-        _opt(
-            "--samples-per-word",
-            "samples_per_word",
-            "Samples per 32-bit FIFO word  [default: as many as fit]",
-            type=int,
-            show_default=False,
-        ),
-        click.option(
-            "--loop/--no-loop",
-            default=D["loop"],
-            show_default=True,
-            help="The stream repeats: no fades or ramps at the seam, length rounded "
-            "to whole words, players loop.",
-        ),
-        _opt(
-            "--crossfade-ms",
-            "crossfade_ms",
-            "Loops: crossfade of the end onto the start, ms.",
-            type=float,
-        ),
-        _opt("--flash-bytes", "flash_bytes", "Target flash size, bytes.", type=int),
-        _opt(
-            "--flash-reserve-bytes",
-            "flash_reserve_bytes",
-            "Flash kept for firmware code, bytes.",
-            type=int,
-        ),
-        _opt("--ram-bytes", "ram_bytes", "Target RAM size, bytes.", type=int),
-        _opt(
-            "--chunk-words",
-            "chunk_words",
-            "Words per DMA buffer of the MicroPython player (two are used).",
-            type=int,
-        ),
-        click.option(
-            "--embed-words-max",
-            "embed_words_max",
-            type=int,
-            default=EMBED_WORDS_MAX,
-            show_default=True,
-            help="Streams up to this many words are also embedded in the MicroPython module.",
-        ),
-        click.option(
-            "--json", "as_json", is_flag=True, help="Print the summary as JSON instead of text."
-        ),
-    ]
-    for opt in reversed(opts):
-        func = opt(func)
-    return func
+    """Options shared by every command that makes a stream bundle (from StreamOptions)."""
+    from ladderpack.options import StreamOptions
+
+    func = click.option(
+        "--json", "as_json", is_flag=True, help="Print the summary as JSON instead of text."
+    )(func)
+    return model_options(StreamOptions)(func)
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -315,34 +264,18 @@ def cli(debug: bool) -> None:
 @click.option(
     "--name", default=None, help="Asset name for files and symbols  [default: the clip's file name]"
 )
-@click.option(
-    "--block-frames",
-    type=int,
-    default=None,
-    help="Process the clip in blocks of this many frames (bounded memory, same output)  "
-    "[default: 65536-frame blocks for clips over 8388608 samples, else whole]",
-)
-@click.option(
-    "--channel",
-    type=int,
-    default=None,
-    help="Use this channel (0-based) instead of a mono mix of all channels.",
-)
+@_model_options_lazy("ClipOptions")
 @_stream_options
-def stream(
-    clip: str,
-    out_dir: str,
-    name: str | None,
-    channel: int | None,
-    as_json: bool,
-    **options: Any,
-) -> None:
+def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: Any) -> None:
     """Convert the sound file CLIP (WAV, FLAC, OGG, AIFF) into a stream bundle."""
     from ladderpack.bundle import write_bundle
-    from ladderpack.pipeline import stream_clip
+    from ladderpack.options import ClipOptions, StreamOptions
+    from ladderpack.stream import stream_clip
 
+    copts = ClipOptions(**model_values(ClipOptions, values))
+    opts = StreamOptions(**model_values(StreamOptions, values))
     with _stage_progress(f"streaming {os.path.basename(clip)}") as progress:
-        asset = stream_clip(clip, channel=channel, name=name, progress=progress, **options)
+        asset = stream_clip(clip, name=name, options=opts, clip=copts, progress=progress)
     written = write_bundle(asset, out_dir)
     summary = asset.summary()
     if as_json:
@@ -352,41 +285,8 @@ def stream(
         _print_summary(summary, written)
 
 
-def _pairs(text: str | None) -> list[tuple[float, float]] | None:
-    if not text:
-        return None
-    out = []
-    for item in text.split(","):
-        try:
-            f, _, db = item.partition(":")
-            out.append((float(f), float(db or 0.0)))
-        except ValueError:
-            raise click.BadParameter(
-                f"expected FREQ_HZ:LEVEL_DB pairs, got {item!r}", param_hint="--tones"
-            ) from None
-    return out
-
-
-def _code_list(text: str | None) -> list[int] | None:
-    if not text:
-        return None
-    out: list[int] = []
-    for item in text.split(","):
-        try:
-            lo, sep, hi = item.partition("-")
-            out.extend(range(int(lo), int(hi) + 1) if sep else [int(lo)])
-        except ValueError:
-            raise click.BadParameter(
-                f"expected codes like 0-15,32,64, got {item!r}", param_hint="--codes"
-            ) from None
-    return out
-
-
 @cli.command()
-@click.argument(
-    "kind",
-    type=click.Choice(TONE_KINDS),
-)
+@click.argument("kind", type=click.Choice(TONE_KINDS))
 @click.option(
     "-o",
     "--out-dir",
@@ -395,103 +295,18 @@ def _code_list(text: str | None) -> list[int] | None:
     help="Folder the bundle is written to.",
 )
 @click.option("--name", default=None, help="Asset name  [default: the kind]")
-@click.option(
-    "--freq-hz",
-    type=float,
-    default=1000.0,
-    show_default=True,
-    help="Frequency of periodic kinds, Hz.",
-)
-@click.option("--level-dbfs", type=float, default=-1.0, show_default=True, help="Peak level, dBFS.")
-@click.option("--seconds", type=float, default=1.0, show_default=True, help="Length, s.")
-@click.option(
-    "--cycles",
-    type=int,
-    default=None,
-    help="Length as whole cycles of --freq-hz (instead of --seconds).",
-)
-@click.option(
-    "--band-limited/--naive",
-    default=True,
-    show_default=True,
-    help="Square, sawtooth, triangle from harmonics below Nyquist, or naive.",
-)
-@click.option(
-    "--tones", default=None, help="Multitone components FREQ_HZ:LEVEL_DB,... (levels relative)."
-)
-@click.option(
-    "--f-start-hz", type=float, default=20.0, show_default=True, help="Exponential sweep start, Hz."
-)
-@click.option(
-    "--f-end-hz",
-    type=float,
-    default=None,
-    help="Exponential sweep end, Hz  [default: 20000 or 0.45 x the rate]",
-)
-@click.option(
-    "--dc-value",
-    type=float,
-    default=0.0,
-    show_default=True,
-    help="DC level, fraction of full scale -1..1.",
-)
-@click.option("--codes", default=None, help="Staircase codes, e.g. 0-15,128  [default: every code]")
-@click.option(
-    "--dwell-ms",
-    type=float,
-    default=10.0,
-    show_default=True,
-    help="Time on each staircase step, ms.",
-)
-@click.option(
-    "--coherent-record",
-    type=int,
-    default=None,
-    help="Record length (samples) of a coherent capture: the frequency moves to a "
-    "cycle count co-prime with it.",
-)
+@_model_options_lazy("ToneSpec")
 @_stream_options
-def tone(
-    kind: str,
-    out_dir: str,
-    name: str | None,
-    freq_hz: float,
-    level_dbfs: float,
-    seconds: float,
-    cycles: int | None,
-    band_limited: bool,
-    tones: str | None,
-    f_start_hz: float,
-    f_end_hz: float | None,
-    dc_value: float,
-    codes: str | None,
-    dwell_ms: float,
-    coherent_record: int | None,
-    as_json: bool,
-    **options: Any,
-) -> None:
+def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any) -> None:
     """Synthesise a test waveform KIND at the stream rate and write the same bundle as
     'stream'."""
     from ladderpack.bundle import write_bundle
-    from ladderpack.pipeline import stream_tone
+    from ladderpack.options import StreamOptions, ToneSpec
+    from ladderpack.stream import stream_tone
 
-    asset = stream_tone(
-        kind,
-        name=name,
-        seconds=seconds,
-        cycles=cycles,
-        freq_hz=freq_hz,
-        level_dbfs=level_dbfs,
-        band_limited=band_limited,
-        tones=_pairs(tones),
-        f_start_hz=f_start_hz,
-        f_end_hz=f_end_hz,
-        dc_value=dc_value,
-        codes=_code_list(codes),
-        dwell_ms=dwell_ms,
-        coherent_record=coherent_record,
-        **options,
-    )
+    spec = ToneSpec(kind=kind, **model_values(ToneSpec, values))
+    opts = StreamOptions(**model_values(StreamOptions, values))
+    asset = stream_tone(kind, name=name, tone=spec, options=opts)
     written = write_bundle(asset, out_dir)
     summary = asset.summary()
     summary["tone"] = asset.stats["tone"]
@@ -519,26 +334,17 @@ def tone(
 
 @cli.command()
 @click.argument("rate_hz", type=float)
-@click.option(
-    "--sys-clock-hz",
-    type=int,
-    default=D["sys_clock_hz"],
-    show_default=True,
-    help="System clock feeding the PIO block, Hz.",
-)
-@click.option(
-    "--rate-tolerance-ppm",
-    type=float,
-    default=D["rate_tolerance_ppm"],
-    show_default=True,
-    help="Rate error accepted to keep a jitter-free integer divider, ppm.",
-)
+@_model_options_lazy("StreamOptions", only=("target", "sys_clock_hz", "rate_tolerance_ppm"))
 @click.option("--json", "as_json", is_flag=True, help="Print the plan as JSON.")
-def clock(rate_hz: float, sys_clock_hz: int, rate_tolerance_ppm: float, as_json: bool) -> None:
+def clock(rate_hz: float, as_json: bool, **values: Any) -> None:
     """Show the clock plan (divider, cycles per sample, achieved rate) for RATE_HZ."""
     from ladderpack.clock import plan_clock
+    from ladderpack.options import StreamOptions
 
-    plan = plan_clock(rate_hz, sys_clock_hz=sys_clock_hz, tolerance_ppm=rate_tolerance_ppm)
+    opts = StreamOptions(rate_hz=rate_hz, **model_values(StreamOptions, values))
+    plan = plan_clock(
+        rate_hz, sys_clock_hz=int(opts.sys_clock_hz or 0), tolerance_ppm=opts.rate_tolerance_ppm
+    )
     d = plan.to_dict()
     if as_json:
         click.echo(json.dumps(d, indent=2, sort_keys=True))
@@ -884,12 +690,7 @@ def table() -> None:
 
 @table.command("correction")
 @click.argument("levels_path", metavar="LEVELS", type=click.Path(dir_okay=False))
-@click.option(
-    "--in-bits",
-    type=int,
-    default=None,
-    help="Bits of the ideal input level  [default: the ladder's bits]",
-)
+@_model_options_lazy("CorrectionTableSpec")
 @click.option(
     "-o",
     "--out-dir",
@@ -902,91 +703,38 @@ def table() -> None:
 )
 @click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
 def table_correction(
-    levels_path: str, in_bits: int | None, out_dir: str, name: str, as_json: bool
+    levels_path: str, out_dir: str, name: str, as_json: bool, **values: Any
 ) -> None:
     """Map each ideal level to the code whose measured level (LEVELS) is nearest, as C
     and MicroPython arrays, for samples the firmware computes at run time."""
-    from ladderpack.emit import table as emit_table
     from ladderpack.emit import write_files
-    from ladderpack.emit.names import asset_identifier
-    from ladderpack.levels import correction_table, load_levels
+    from ladderpack.options import CorrectionTableSpec
+    from ladderpack.tables import correction_table_files
 
-    lev = load_levels(levels_path)
-    m = lev.bits if in_bits is None else in_bits
-    tab = correction_table(lev, m)
-    ident = asset_identifier(name)
-    src = os.path.basename(levels_path)
-    files = {
-        f"{ident}.h": emit_table.render_c_header(
-            ident, tab, in_bits=m, bits=lev.bits, source=src
-        ).encode(),
-        f"{ident}.c": emit_table.render_c_source(ident, tab, bits=lev.bits, source=src).encode(),
-        f"{ident}.py": emit_table.render_micropython(
-            ident, tab, in_bits=m, bits=lev.bits, source=src
-        ).encode(),
-    }
-    written = write_files(files, out_dir)
+    spec = CorrectionTableSpec(levels=levels_path, **model_values(CorrectionTableSpec, values))
+    res = correction_table_files(name, spec)
+    written = write_files(res.files, out_dir)
     summary = {
-        "name": ident,
-        "in_bits": m,
-        "out_bits": lev.bits,
-        "entries": int(tab.size),
-        "distinct_codes": int(np.unique(tab).size),
+        "name": res.name,
+        "in_bits": res.in_bits,
+        "out_bits": res.bits,
+        "entries": res.entries,
+        "distinct_codes": res.distinct_codes,
         "files": written,
     }
     if as_json:
         click.echo(json.dumps(summary, indent=2, sort_keys=True))
         return
     click.echo(
-        f"{ident}: {m}-bit ideal level -> {lev.bits}-bit code, {tab.size} entries, "
-        f"{summary['distinct_codes']} distinct codes used"
+        f"{res.name}: {res.in_bits}-bit ideal level -> {res.bits}-bit code, {res.entries} "
+        f"entries, {res.distinct_codes} distinct codes used"
     )
     for path in written:
         click.echo(f"  wrote    {path}")
 
 
 @table.command("wave")
-@click.option(
-    "--kind",
-    type=click.Choice(["sine", "square", "sawtooth", "triangle"]),
-    default="sine",
-    show_default=True,
-    help="Waveform of the table (naive shapes).",
-)
-@click.option(
-    "--table-bits", type=int, default=8, show_default=True, help="Table of 2^k entries: k, 2..16."
-)
-@click.option(
-    "--bits", type=int, default=8, show_default=True, help="Ladder code width of the entries."
-)
-@click.option("--level-dbfs", type=float, default=-1.0, show_default=True, help="Peak level, dBFS.")
-@click.option(
-    "--freqs-hz",
-    default="440",
-    show_default=True,
-    help="Frequencies to give phase increments for, comma-separated, Hz.",
-)
-@click.option(
-    "--rate-hz",
-    type=float,
-    default=22050.0,
-    show_default=True,
-    help="Requested stream rate, Hz (the clock plan's achieved rate is used).",
-)
-@click.option(
-    "--sys-clock-hz",
-    type=int,
-    default=D["sys_clock_hz"],
-    show_default=True,
-    help="System clock, Hz.",
-)
-@click.option(
-    "--rate-tolerance-ppm",
-    type=float,
-    default=D["rate_tolerance_ppm"],
-    show_default=True,
-    help="Rate error accepted for an integer divider, ppm.",
-)
+@_model_options_lazy("WaveTableSpec")
 @click.option(
     "-o",
     "--out-dir",
@@ -998,63 +746,37 @@ def table_correction(
     "--name", default="wavetable", show_default=True, help="Table name for files and symbols."
 )
 @click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
-def table_wave(
-    kind: str,
-    table_bits: int,
-    bits: int,
-    level_dbfs: float,
-    freqs_hz: str,
-    rate_hz: float,
-    sys_clock_hz: int,
-    rate_tolerance_ppm: float,
-    out_dir: str,
-    name: str,
-    as_json: bool,
-) -> None:
+def table_wave(out_dir: str, name: str, as_json: bool, **values: Any) -> None:
     """A 2^k-entry wavetable in ladder codes plus 32-bit phase-accumulator increments,
     as C and MicroPython arrays, for firmware that synthesises at run time."""
-    from ladderpack.clock import plan_clock
-    from ladderpack.emit import table as emit_table
     from ladderpack.emit import write_files
-    from ladderpack.emit.names import asset_identifier
-    from ladderpack.quantize import check_bits
-    from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
+    from ladderpack.options import WaveTableSpec
+    from ladderpack.tables import wave_table_files
 
-    check_bits(bits)
-    try:
-        freqs = [float(f) for f in freqs_hz.split(",") if f.strip()]
-    except ValueError:
-        raise click.BadParameter(
-            f"expected comma-separated numbers, got {freqs_hz!r}", param_hint="--freqs-hz"
-        ) from None
-    plan = plan_clock(rate_hz, sys_clock_hz=sys_clock_hz, tolerance_ppm=rate_tolerance_ppm)
-    rate = float(plan.achieved_rate_hz)
-    tab = wavetable(kind, table_bits, bits=bits, level_dbfs=level_dbfs)
-    incs = phase_increments(freqs, rate)
-    spur = truncation_spur_dbc(table_bits)
-    ident = asset_identifier(name)
-    files = emit_table.render_wave_files(
-        ident, tab, incs, table_bits=table_bits, bits=bits, rate_hz=rate, spur_dbc=spur, kind=kind
-    )
-    written = write_files(files, out_dir)
+    spec = WaveTableSpec(**model_values(WaveTableSpec, values))
+    res = wave_table_files(name, spec)
+    written = write_files(res.files, out_dir)
     summary = {
-        "name": ident,
-        "entries": int(tab.size),
-        "bits": bits,
-        "rate_hz": rate,
-        "resolution_hz": rate / 2**32,
-        "worst_truncation_spur_dbc": spur,
-        "increments": [{"requested_hz": f, "increment": i, "actual_hz": a} for f, i, a in incs],
+        "name": res.name,
+        "entries": res.entries,
+        "bits": res.bits,
+        "rate_hz": res.rate_hz,
+        "resolution_hz": res.resolution_hz,
+        "worst_truncation_spur_dbc": res.spur_dbc,
+        "increments": [
+            {"requested_hz": f, "increment": i, "actual_hz": a} for f, i, a in res.increments
+        ],
         "files": written,
     }
     if as_json:
         click.echo(json.dumps(summary, indent=2, sort_keys=True))
         return
     click.echo(
-        f"{ident}: {kind}, {tab.size} entries of {bits}-bit codes at {rate:.6f} Hz; "
-        f"resolution {rate / 2**32:.3e} Hz, worst phase-truncation spur {spur:.1f} dBc"
+        f"{res.name}: {spec.kind}, {res.entries} entries of {res.bits}-bit codes at "
+        f"{res.rate_hz:.6f} Hz; resolution {res.resolution_hz:.3e} Hz, worst phase-truncation "
+        f"spur {res.spur_dbc:.1f} dBc"
     )
-    for f, i, a in incs:
+    for f, i, a in res.increments:
         click.echo(f"  {f:g} Hz -> increment {i} ({a:.6f} Hz)")
     for path in written:
         click.echo(f"  wrote    {path}")

@@ -135,6 +135,17 @@ def kaiser_beta(attenuation_db: float) -> float:
     return 0.0
 
 
+def kernel_half(spec: ResamplerSpec, rate_in_hz: float, *, margin_db: float = 3.0) -> int:
+    """Taps on each side of the output instant of the kernel :func:`design_kernel` makes.
+
+    Cheap: lets a plan know the table's size (``(PHASES + 1) x 2 half`` doubles)
+    before designing it.
+    """
+    atten = spec.attenuation_db + margin_db
+    width = 2.0 * math.pi * (spec.stopband_hz - spec.passband_hz) / float(rate_in_hz)
+    return math.ceil(0.5 * (atten - 8.0) / (2.285 * width)) + 1
+
+
 @functools.lru_cache(maxsize=16)
 def design_kernel(
     spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASES, margin_db: float = 3.0
@@ -162,7 +173,7 @@ def design_kernel(
     rate_in = float(rate_in_hz)
     width = 2.0 * math.pi * (spec.stopband_hz - spec.passband_hz) / rate_in  # rad/sample
     half_span = 0.5 * (atten - 8.0) / (2.285 * width)  # M / 2, in input samples
-    half = math.ceil(half_span) + 1
+    half = kernel_half(spec, rate_in, margin_db=margin_db)
     beta = kaiser_beta(atten)
     fc = 0.5 * (spec.passband_hz + spec.stopband_hz) / rate_in  # cycles per input sample
     frac = np.arange(phases + 1)[:, None] / phases
@@ -348,6 +359,38 @@ class StreamResampler:
     def _base(self, n: int) -> tuple[int, int]:
         return divmod(n * self.step.numerator, self.step.denominator)
 
+    def _run(self, out: np.ndarray) -> None:
+        """Compute outputs ``done .. done + out.size`` into `out`.
+
+        Outputs are independent, so a large block is split across threads (the
+        kernel releases the GIL); each part starts at its own exact instant, so the
+        result does not depend on the split.
+        """
+        step_int, step_rem = divmod(self.step.numerator, self.step.denominator)
+        run = _kernels.compiled("sinc_resample")
+        parts = min(os.cpu_count() or 1, 4) if out.size >= 1 << 17 else 1
+        bounds = [out.size * k // parts for k in range(parts + 1)]
+
+        def part(k: int) -> None:
+            lo, hi = bounds[k], bounds[k + 1]
+            base, rem = self._base(self.done + lo)
+            run(
+                self.buf,
+                self.kernel.table,
+                base - self.buf_start,
+                rem,
+                step_int,
+                step_rem,
+                self.step.denominator,
+                out[lo:hi],
+            )
+
+        if parts == 1:
+            part(0)
+        else:
+            with ThreadPoolExecutor(max_workers=parts) as pool:
+                list(pool.map(part, range(parts)))
+
     def feed(self, x: np.ndarray, *, last: bool = False) -> np.ndarray:
         """Add input samples; return every output that can now be computed."""
         x = np.asarray(x, dtype=np.float64)
@@ -370,18 +413,7 @@ class StreamResampler:
             hi = lo_n
         out = np.empty(hi - self.done)
         if out.size:
-            base, rem = self._base(self.done)
-            step_int, step_rem = divmod(self.step.numerator, self.step.denominator)
-            _kernels.compiled("sinc_resample")(
-                self.buf,
-                self.kernel.table,
-                base - self.buf_start,
-                rem,
-                step_int,
-                step_rem,
-                self.step.denominator,
-                out,
-            )
+            self._run(out)
             self.done = hi
         keep_from = self._base(self.done)[0] if self.done < self.n_out else avail
         drop = max(0, keep_from - self.buf_start)

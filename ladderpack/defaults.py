@@ -5,8 +5,6 @@ Kept free of heavy imports so the command line starts fast.
 
 from __future__ import annotations
 
-from typing import Any
-
 __all__ = [
     "DEFAULT_SYS_CLOCK_HZ",
     "DITHERS",
@@ -17,7 +15,6 @@ __all__ = [
     "SHAPER_NAMES",
     "SHIFTS",
     "STAGES",
-    "STREAM_DEFAULTS",
     "TONE_KINDS",
     "WEIGHTING_NAMES",
     "default_band_hz",
@@ -80,43 +77,6 @@ STAGES = ("read", "resample", "quantise", "pack")
 
 #: Largest stream, in words, also embedded in the MicroPython module.
 EMBED_WORDS_MAX = 256
-
-#: Defaults of :func:`ladderpack.pipeline.stream_signal` and ``ladderpack stream``.
-STREAM_DEFAULTS: dict[str, Any] = {
-    "bits": 8,
-    "rate_hz": 22050.0,
-    "sys_clock_hz": DEFAULT_SYS_CLOCK_HZ,
-    "rate_tolerance_ppm": 100.0,
-    "headroom_db": 1.0,
-    "fade_ms": 5.0,
-    "ramp_ms": 50.0,
-    "idle_code": 0,
-    "dither": "tpdf",
-    "shaping": "none",
-    "seed": 0,
-    "shift": "right",
-    "out_base": 0,
-    "gpio_count": 30,
-    "pin_order": "msb-high",
-    "invert": False,
-    "program": "auto",
-    "samples_per_word": None,
-    "loop": False,
-    "crossfade_ms": 0.0,
-    "flash_bytes": 2 * 1024 * 1024,
-    "flash_reserve_bytes": 256 * 1024,
-    "ram_bytes": 264 * 1024,
-    "chunk_words": 1024,
-    "band_hz": None,
-    "weighting": "threshold",
-    "ntf_order": 8,
-    "ntf_max_db": None,
-    "ntf_form": "auto",
-    "force": False,
-    "levels": None,
-    "loudness_lufs": None,
-    "true_peak_dbtp": -1.0,
-}
 
 
 def default_band_hz(rate_hz: float) -> float:

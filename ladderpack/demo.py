@@ -16,7 +16,7 @@ import numpy as np
 from ladderpack.audio import Signal
 from ladderpack.bundle import write_bundle
 from ladderpack.errors import AudioFileError
-from ladderpack.pipeline import stream_clip, stream_signal
+from ladderpack.stream import stream_clip, stream_signal
 
 __all__ = ["run_demo"]
 

@@ -445,6 +445,9 @@ class StateMachineConfig:
         Number of pins written.
     autopull : bool
         Whether autopull is on.
+    gpio_base : int
+        The PIO block's GPIO base (0, or 16 for GPIO 32 and above on the
+        RP2350B); PINCTRL's OUT_BASE is relative to it.
     """
 
     clkdiv: int
@@ -454,6 +457,7 @@ class StateMachineConfig:
     out_base: int
     out_count: int
     autopull: bool = True
+    gpio_base: int = 0
 
     def to_dict(self) -> dict[str, int | bool]:
         """Plain-data description."""
@@ -465,6 +469,7 @@ class StateMachineConfig:
             "out_base": self.out_base,
             "out_count": self.out_count,
             "autopull": self.autopull,
+            **({"gpio_base": self.gpio_base} if self.gpio_base else {}),
         }
 
 
@@ -473,7 +478,13 @@ EXECCTRL_RESET = 0x0001F000
 
 
 def state_machine_config(
-    program: Program, layout: WordLayout, plan: ClockPlan, *, out_base: int, gpio_count: int = 30
+    program: Program,
+    layout: WordLayout,
+    plan: ClockPlan,
+    *,
+    out_base: int,
+    gpio_count: int = 30,
+    gpio_base: int = 0,
 ) -> StateMachineConfig:
     """Compute the state-machine registers for a ladder stream.
 
@@ -489,8 +500,17 @@ def state_machine_config(
         First GPIO of the ladder.
     gpio_count : int
         User GPIOs on the target (30 on RP2040).
+    gpio_base : int
+        The PIO block's GPIO base (RP2350: 0 or 16); PINCTRL holds pin numbers
+        relative to it (RP2350 datasheet, PIO chapter, GPIOBASE register).
     """
     check_pins(out_base, layout.bits, gpio_count)
+    if not 0 <= out_base - gpio_base <= 31 or out_base + layout.bits > gpio_base + 32:
+        raise OptionError(
+            f"GPIO {out_base}..{out_base + layout.bits - 1} are outside the PIO window "
+            f"{gpio_base}..{gpio_base + 31}",
+            field="out_base",
+        )
     execctrl = (EXECCTRL_RESET & ~0x1FF80) | (program.wrap << 12) | (program.wrap_target << 7)
     if program.sideset.optional:
         execctrl |= 1 << 30  # SIDE_EN
@@ -502,9 +522,16 @@ def state_machine_config(
         | (int(program.autopull) << 17)  # AUTOPULL
     )
     # PINCTRL: SIDESET_COUNT 31:29 (enable bit included), OUT_COUNT 25:20, OUT_BASE 4:0.
-    pinctrl = (program.sideset.field_bits << 29) | (layout.bits << 20) | out_base
+    pinctrl = (program.sideset.field_bits << 29) | (layout.bits << 20) | (out_base - gpio_base)
     return StateMachineConfig(
-        plan.clkdiv_register, execctrl, shiftctrl, pinctrl, out_base, layout.bits, program.autopull
+        plan.clkdiv_register,
+        execctrl,
+        shiftctrl,
+        pinctrl,
+        out_base,
+        layout.bits,
+        program.autopull,
+        gpio_base,
     )
 
 

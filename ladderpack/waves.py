@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -19,6 +20,7 @@ from ladderpack.errors import OptionError
 __all__ = [
     "TONE_KINDS",
     "Tone",
+    "ToneSynth",
     "coherent_cycles",
     "loop_cycles",
     "phase_increments",
@@ -267,3 +269,95 @@ def truncation_spur_dbc(table_bits: int) -> float:
     bound is quoted from memory and checked by FFT in the tests).
     """
     return -20 * math.log10(2) * table_bits
+
+
+class ToneSynth:
+    """A tone of :class:`~ladderpack.options.ToneSpec`, synthesised at a stream's rate.
+
+    Its length is known before any sample is made (:meth:`samples_for`), so a stream
+    can be planned and checked first.  Calling it returns the samples; :attr:`info`
+    then holds the frequency used, the cycle counts and the length.
+
+    Parameters
+    ----------
+    spec : ToneSpec
+        The waveform.
+    bits : int
+        Ladder width (the staircase's exact code levels).
+    loop : bool
+        The stream repeats: whole cycles fill it and its length is whole words.
+    seed : int
+        Seed of the noise kinds.
+    """
+
+    PERIODIC = ("sine", "square", "sawtooth", "triangle")
+
+    def __init__(self, spec: Any, *, bits: int, loop: bool, seed: int) -> None:
+        self.spec, self.bits, self.loop, self.seed = spec, bits, loop, seed
+        self.info: dict[str, Any] = {"kind": spec.kind, "level_dbfs": spec.level_dbfs}
+
+    def _dwell(self, rate: float) -> int:
+        return max(1, round(self.spec.dwell_ms * 1e-3 * rate))
+
+    def samples_for(self, rate: float, spw: int) -> int:
+        """Samples the tone will have at `rate` with `spw` samples per word."""
+        s = self.spec
+        if s.kind == "staircase":
+            n = (len(s.codes) if s.codes is not None else 1 << self.bits) * self._dwell(rate)
+            return n * (spw // math.gcd(n, spw)) if self.loop and n % spw else n
+        if s.coherent_record is not None:
+            rec = s.coherent_record
+            if self.loop:
+                return rec * spw // math.gcd(rec, spw)
+            return rec * max(1, math.ceil(s.seconds * rate / rec))
+        if s.cycles is not None:
+            n = max(1, round(s.cycles * rate / s.freq_hz))
+        else:
+            n = max(1, round(s.seconds * rate))
+        return max(spw, n - n % spw) if self.loop else n
+
+    def __call__(self, rate: float, spw: int) -> Signal:
+        """The tone's samples at `rate` (a :class:`Signal`)."""
+        s = self.spec
+        n = self.samples_for(rate, spw)
+        if s.kind == "staircase":
+            dwell = self._dwell(rate)
+            x = synthesise(
+                s.kind,
+                rate_hz=rate,
+                samples=0,
+                staircase_codes=None if s.codes is None else list(s.codes),
+                dwell_samples=dwell,
+                bits=self.bits,
+            )
+            if self.loop and x.size % spw:
+                x = np.tile(x, spw // math.gcd(x.size, spw))
+            self.info.update(dwell_samples=dwell, steps=x.size // dwell)
+            return Signal(x, rate)
+        f = s.freq_hz
+        if s.coherent_record is not None:
+            m = coherent_cycles(s.freq_hz, s.coherent_record, rate)
+            f = m * rate / s.coherent_record
+            self.info.update(record=s.coherent_record, cycles_per_record=m)
+        elif self.loop and (s.kind in self.PERIODIC or s.kind == "multitone"):
+            c = loop_cycles(s.freq_hz, n, rate)
+            f = c * rate / n
+            self.info["cycles"] = c
+        self.info.update(
+            freq_hz=f, requested_freq_hz=s.freq_hz, freq_error_hz=f - s.freq_hz, samples=n
+        )
+        x = synthesise(
+            s.kind,
+            rate_hz=rate,
+            samples=n,
+            level_dbfs=s.level_dbfs,
+            freq_hz=f,
+            band_limited=s.band_limited,
+            tones=None if s.tones is None else [tuple(t) for t in s.tones],
+            f_start_hz=s.f_start_hz,
+            f_end_hz=s.f_end_hz if s.f_end_hz is not None else min(20000.0, 0.45 * rate),
+            dc_value=s.dc_value,
+            bits=self.bits,
+            seed=self.seed,
+        )
+        return Signal(x, rate)

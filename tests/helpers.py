@@ -12,7 +12,7 @@ import pytest
 
 from ladderpack.audio import Signal
 from ladderpack.bundle import StreamAsset
-from ladderpack.pipeline import stream_signal
+from ladderpack.stream import stream_signal
 
 
 def small_asset(

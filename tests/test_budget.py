@@ -10,7 +10,7 @@ import pytest
 from ladderpack.audio import Signal
 from ladderpack.budget import TargetProfile, check_budget, stream_budget
 from ladderpack.errors import OptionError
-from ladderpack.pipeline import stream_signal
+from ladderpack.stream import stream_signal
 
 RATE_22K = Fraction(125_000_000, 5669)  # plan for 22050 Hz at 125 MHz: 22049.744 Hz
 

@@ -225,23 +225,28 @@ def test_every_option_documented_in_help_and_readme(command: str) -> None:
 
 
 def test_cli_defaults_match_library() -> None:
-    # python-soundfile habit: the library function and its CLI wrapper keep one set of defaults.
-    import inspect
+    # python-soundfile habit: the library function and its CLI wrapper keep one set of
+    # defaults.  Both come from the option model; check the derived click options and
+    # what the library records when given nothing.
+    import numpy as np
 
+    from ladderpack.audio import Signal
     from ladderpack.cli import stream
-    from ladderpack.pipeline import STREAM_DEFAULTS, stream_signal
+    from ladderpack.options import StreamOptions, option_fields
+    from ladderpack.stream import stream_signal
 
     params = {p.name: p.default for p in stream.params}
-    sig = inspect.signature(stream_signal).parameters
-    for key, value in STREAM_DEFAULTS.items():
-        assert params[key] == value, key
-        assert sig[key].default == value, key
+    for f, info, _hint in option_fields(StreamOptions):
+        if info.cli:
+            assert params[f.name] == f.default, f.name
+    asset = stream_signal(Signal(np.zeros(480), 48000.0), name="x")
+    assert asset.options == {"name": "x", **StreamOptions().to_dict()}
 
 
 def test_help_does_not_load_numba_or_scipy() -> None:
     # Kernels are compiled on first use, so the command line starts fast.
     code = (
-        "import sys, ladderpack.cli, ladderpack.pipeline; "
+        "import sys, ladderpack.cli, ladderpack.stream; "
         "print('numba' in sys.modules, 'scipy' in sys.modules)"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True).stdout

@@ -9,7 +9,7 @@ import pytest
 
 from ladderpack.audio import Signal
 from ladderpack.conform import loop_crossfade, loop_rate, resample
-from ladderpack.pipeline import stream_signal
+from ladderpack.stream import stream_signal
 
 
 def _tone_loop(cycles: int = 50, rate: float = 44100.0, freq: float = 441.0) -> Signal:

@@ -106,7 +106,7 @@ def test_true_peak_sees_intersample_peaks() -> None:
 
 
 def test_stream_loudness_target_and_ceiling(tmp_path: Path) -> None:
-    from ladderpack.pipeline import stream_clip
+    from ladderpack.stream import stream_clip
 
     asset = stream_clip(REPO / "demo_audio" / "door_chime.flac", loudness_lufs=-23.0)
     ld = asset.stats["loudness"]

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import signal as sps
 
-from ladderpack.pipeline import stream_tone
+from ladderpack.stream import stream_tone
 from ladderpack.waves import (
     coherent_cycles,
     phase_increments,

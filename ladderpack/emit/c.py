@@ -59,6 +59,7 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("CYCLES_PER_SAMPLE", f"{p.cycles_per_sample}u", "state-machine cycles per sample"),
         ("OUT_BASE", f"{sm.out_base}u", "GPIO of the ladder's bit 0"),
         ("OUT_COUNT", f"{sm.out_count}u", "pins written by out"),
+        ("GPIO_BASE", f"{sm.gpio_base}u", "PIO GPIO base (16 for GPIO 32 and above)"),
         ("PROGRAM_LENGTH", f"{len(asset.program.instructions)}u", "instructions"),
         ("PROGRAM_WRAP_TARGET", f"{asset.program.wrap_target}u", "relative to load offset"),
         ("PROGRAM_WRAP", f"{asset.program.wrap}u", "relative to load offset"),
@@ -99,6 +100,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_IDLE_WORD",
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_LOOP",
+        f"{P}_GPIO_BASE",
     ]
     lines = [
         "/* Initialiser for lp_stream_t (ladderpack_player.h):",

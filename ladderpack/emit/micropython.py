@@ -56,6 +56,7 @@ CLKDIV_REG = 0x{clkdiv:08X}
 CYCLES_PER_SAMPLE = {cycles}
 PROGRAM = {variant!r}
 OUT_BASE = {out_base}
+GPIO_BASE = {gpio_base}  # PIO GPIO base: 16 reaches GPIO 32 and above (RP2350B)
 LOOP = {loop}
 BIN_FILE = {bin_file!r}
 CHUNK_WORDS = {chunk_words}
@@ -89,6 +90,8 @@ class Player:
                              % (freq(), SYS_CLOCK_HZ))
         self.sm_id = sm_id
         self.path = path
+        if GPIO_BASE:
+            rp2.PIO(sm_id // 4).gpio_base(Pin(GPIO_BASE))  # type: ignore[attr-defined]
         self.sm = rp2.StateMachine(sm_id, ladder_program, freq=SYS_CLOCK_HZ * 256 // (
             CLKDIV_INT * 256 + CLKDIV_FRAC), out_base=Pin(OUT_BASE))
         base = _PIO_BASE[sm_id // 4] + 0x18 * (sm_id % 4)
@@ -230,6 +233,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         cycles=p.cycles_per_sample,
         variant=prog.variant,
         out_base=asset.sm.out_base,
+        gpio_base=asset.sm.gpio_base,
         loop=asset.loop,
         bin_file=f"{asset.name}.bin",
         chunk_words=int(asset.options.get("chunk_words", 1024)),

@@ -60,6 +60,7 @@ typedef struct lp_stream {{
     uint32_t idle_word;          /* FIFO word of idle codes, sent first */
     uint32_t sys_clock_hz;       /* system clock the divider was planned for */
     bool loop;                   /* the stream is a loop */
+    uint8_t gpio_base;           /* PIO GPIO base the pins need: 0, or 16 for GPIO 32+ (RP2350B) */
 }} lp_stream_t;
 
 typedef struct lp_player {{
@@ -75,7 +76,9 @@ typedef struct lp_player {{
 
 /* Claim a state machine and two DMA channels, load the program, set the pins to the
  * idle pattern. Returns 0, or -1 (no room for the program), -2 (no free state
- * machine), -3 (the system clock differs from the one the stream was planned for). */
+ * machine), -3 (the system clock differs from the one the stream was planned for),
+ * -4 (the ladder's GPIOs are outside this PIO block's reach, or its GPIO base cannot be
+ * changed because another program is loaded). */
 int lp_player_init(lp_player_t *p, const lp_stream_t *stream, PIO pio);
 
 /* Start playing; with loop set (and a looping stream) it repeats until lp_player_stop. */
@@ -117,7 +120,7 @@ static void lp_wait_drained(PIO pio, uint sm) {{
 
 int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {{
     pio_sm_config c;
-    uint32_t mask;
+    uint64_t mask;
     int sm;
     uint i;
 
@@ -129,6 +132,18 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {{
     p->program.instructions = s->program;
     p->program.length = s->program_length;
     p->program.origin = -1;
+#if PICO_PIO_USE_GPIO_BASE
+    /* GPIO 32 and above are reached through the block's GPIO base (RP2350B; only a
+     * block with no program loaded can change it). */
+    if (pio_get_gpio_base(pio) != s->gpio_base
+        && pio_set_gpio_base(pio, s->gpio_base) != PICO_OK) {{
+        return -4;
+    }}
+#else
+    if (s->gpio_base != 0u) {{
+        return -4;
+    }}
+#endif
     if (!pio_can_add_program(pio, &p->program)) {{
         return -1;
     }}
@@ -149,8 +164,8 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {{
     for (i = 0; i < s->out_count; ++i) {{
         pio_gpio_init(pio, s->out_base + i);
     }}
-    mask = (s->out_count >= 32u ? 0xFFFFFFFFu : ((1u << s->out_count) - 1u)) << s->out_base;
-    pio_sm_set_pins_with_mask(pio, p->sm, s->idle_pins << s->out_base, mask);
+    mask = ((1ull << s->out_count) - 1ull) << s->out_base;
+    pio_sm_set_pins_with_mask64(pio, p->sm, (uint64_t)s->idle_pins << s->out_base, mask);
     pio_sm_set_consecutive_pindirs(pio, p->sm, s->out_base, s->out_count, true);
     pio_sm_init(pio, p->sm, p->offset, &c);
 

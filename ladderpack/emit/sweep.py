@@ -13,7 +13,7 @@ _TEMPLATE = '''\
 #
 # Reading with the on-chip ADC (READ = "adc"): connect the ladder output to GPIO
 # {adc_gpio}. The RP2040 ADC is only 12-bit, has known non-linearity at some codes, and
-# measures against its own reference (on the Pico the filtered 3.3 V supply), so set
+# measures against its own reference (on common boards the filtered 3.3 V supply), so set
 # ADC_VREF to the measured reference; these limits are from memory of the datasheet.
 # For ladders above about 8 bits, or wherever accuracy matters, use a good multimeter
 # (READ = "meter") and type each reading.

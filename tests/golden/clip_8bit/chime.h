@@ -32,6 +32,7 @@
 #define CHIME_CYCLES_PER_SAMPLE   1u /* state-machine cycles per sample */
 #define CHIME_OUT_BASE            16u /* GPIO of the ladder's bit 0 */
 #define CHIME_OUT_COUNT           8u /* pins written by out */
+#define CHIME_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define CHIME_PROGRAM_LENGTH      1u /* instructions */
 #define CHIME_PROGRAM_WRAP_TARGET 0u /* relative to load offset */
 #define CHIME_PROGRAM_WRAP        0u /* relative to load offset */
@@ -66,7 +67,8 @@ extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
     CHIME_IDLE_PINS, \
     CHIME_IDLE_WORD, \
     CHIME_SYS_CLOCK_HZ, \
-    CHIME_LOOP \
+    CHIME_LOOP, \
+    CHIME_GPIO_BASE \
 }
 
 #endif /* LADDERPACK_CHIME_H */

@@ -37,6 +37,7 @@ CLKDIV_REG = 0x3D090000
 CYCLES_PER_SAMPLE = 1
 PROGRAM = 'autopull'
 OUT_BASE = 16
+GPIO_BASE = 0  # PIO GPIO base: 16 reaches GPIO 32 and above (RP2350B)
 LOOP = False
 BIN_FILE = 'chime.bin'
 CHUNK_WORDS = 1024
@@ -72,6 +73,8 @@ class Player:
                              % (freq(), SYS_CLOCK_HZ))
         self.sm_id = sm_id
         self.path = path
+        if GPIO_BASE:
+            rp2.PIO(sm_id // 4).gpio_base(Pin(GPIO_BASE))  # type: ignore[attr-defined]
         self.sm = rp2.StateMachine(sm_id, ladder_program, freq=SYS_CLOCK_HZ * 256 // (
             CLKDIV_INT * 256 + CLKDIV_FRAC), out_base=Pin(OUT_BASE))
         base = _PIO_BASE[sm_id // 4] + 0x18 * (sm_id % 4)

@@ -5,6 +5,6 @@ import array  # noqa: F401  (used for tables wider than 8 bits)
 TABLE_BITS = 5
 INDEX_SHIFT = 27
 RATE_HZ = 22049.744222967012
-TABLE = b'\x80\x8e\x9d\xab\xb9\xc7\xd6\xe4\xf2\xe4\xd6\xc7\xb9\xab\x9d\x8e\x80rcUG9*\x1c\x0e\x1c*9GUcr'
+TABLE = bytes(b'\x80\x8e\x9d\xab\xb9\xc7\xd6\xe4\xf2\xe4\xd6\xc7\xb9\xab\x9d\x8e\x80rcUG9*\x1c\x0e\x1c*9GUcr')
 # (requested Hz, 32-bit phase increment, actual Hz)
 INCREMENTS = [(100.0, 19478536, 100.0000016386283), (1000.0, 194785357, 1000.0000009847146)]

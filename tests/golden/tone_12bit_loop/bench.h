@@ -32,6 +32,7 @@
 #define BENCH_CYCLES_PER_SAMPLE   3u /* state-machine cycles per sample */
 #define BENCH_OUT_BASE            0u /* GPIO of the ladder's bit 0 */
 #define BENCH_OUT_COUNT           12u /* pins written by out */
+#define BENCH_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define BENCH_PROGRAM_LENGTH      4u /* instructions */
 #define BENCH_PROGRAM_WRAP_TARGET 0u /* relative to load offset */
 #define BENCH_PROGRAM_WRAP        3u /* relative to load offset */
@@ -68,7 +69,8 @@ extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
     BENCH_IDLE_PINS, \
     BENCH_IDLE_WORD, \
     BENCH_SYS_CLOCK_HZ, \
-    BENCH_LOOP \
+    BENCH_LOOP, \
+    BENCH_GPIO_BASE \
 }
 
 #endif /* LADDERPACK_BENCH_H */

@@ -37,6 +37,7 @@ CLKDIV_REG = 0x03640000
 CYCLES_PER_SAMPLE = 3
 PROGRAM = 'loop'
 OUT_BASE = 0
+GPIO_BASE = 0  # PIO GPIO base: 16 reaches GPIO 32 and above (RP2350B)
 LOOP = True
 BIN_FILE = 'bench.bin'
 CHUNK_WORDS = 1024
@@ -75,6 +76,8 @@ class Player:
                              % (freq(), SYS_CLOCK_HZ))
         self.sm_id = sm_id
         self.path = path
+        if GPIO_BASE:
+            rp2.PIO(sm_id // 4).gpio_base(Pin(GPIO_BASE))  # type: ignore[attr-defined]
         self.sm = rp2.StateMachine(sm_id, ladder_program, freq=SYS_CLOCK_HZ * 256 // (
             CLKDIV_INT * 256 + CLKDIV_FRAC), out_base=Pin(OUT_BASE))
         base = _PIO_BASE[sm_id // 4] + 0x18 * (sm_id % 4)

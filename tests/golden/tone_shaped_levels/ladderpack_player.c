@@ -21,7 +21,7 @@ static void lp_wait_drained(PIO pio, uint sm) {
 
 int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     pio_sm_config c;
-    uint32_t mask;
+    uint64_t mask;
     int sm;
     uint i;
 
@@ -33,6 +33,18 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     p->program.instructions = s->program;
     p->program.length = s->program_length;
     p->program.origin = -1;
+#if PICO_PIO_USE_GPIO_BASE
+    /* GPIO 32 and above are reached through the block's GPIO base (RP2350B; only a
+     * block with no program loaded can change it). */
+    if (pio_get_gpio_base(pio) != s->gpio_base
+        && pio_set_gpio_base(pio, s->gpio_base) != PICO_OK) {
+        return -4;
+    }
+#else
+    if (s->gpio_base != 0u) {
+        return -4;
+    }
+#endif
     if (!pio_can_add_program(pio, &p->program)) {
         return -1;
     }
@@ -53,8 +65,8 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     for (i = 0; i < s->out_count; ++i) {
         pio_gpio_init(pio, s->out_base + i);
     }
-    mask = (s->out_count >= 32u ? 0xFFFFFFFFu : ((1u << s->out_count) - 1u)) << s->out_base;
-    pio_sm_set_pins_with_mask(pio, p->sm, s->idle_pins << s->out_base, mask);
+    mask = ((1ull << s->out_count) - 1ull) << s->out_base;
+    pio_sm_set_pins_with_mask64(pio, p->sm, (uint64_t)s->idle_pins << s->out_base, mask);
     pio_sm_set_consecutive_pindirs(pio, p->sm, s->out_base, s->out_count, true);
     pio_sm_init(pio, p->sm, p->offset, &c);
 

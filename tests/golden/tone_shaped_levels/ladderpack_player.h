@@ -43,6 +43,7 @@ typedef struct lp_stream {
     uint32_t idle_word;          /* FIFO word of idle codes, sent first */
     uint32_t sys_clock_hz;       /* system clock the divider was planned for */
     bool loop;                   /* the stream is a loop */
+    uint8_t gpio_base;           /* PIO GPIO base the pins need: 0, or 16 for GPIO 32+ (RP2350B) */
 } lp_stream_t;
 
 typedef struct lp_player {
@@ -58,7 +59,9 @@ typedef struct lp_player {
 
 /* Claim a state machine and two DMA channels, load the program, set the pins to the
  * idle pattern. Returns 0, or -1 (no room for the program), -2 (no free state
- * machine), -3 (the system clock differs from the one the stream was planned for). */
+ * machine), -3 (the system clock differs from the one the stream was planned for),
+ * -4 (the ladder's GPIOs are outside this PIO block's reach, or its GPIO base cannot be
+ * changed because another program is loaded). */
 int lp_player_init(lp_player_t *p, const lp_stream_t *stream, PIO pio);
 
 /* Start playing; with loop set (and a looping stream) it repeats until lp_player_stop. */

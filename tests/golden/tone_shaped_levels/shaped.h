@@ -32,6 +32,7 @@
 #define SHAPED_CYCLES_PER_SAMPLE   2u /* state-machine cycles per sample */
 #define SHAPED_OUT_BASE            0u /* GPIO of the ladder's bit 0 */
 #define SHAPED_OUT_COUNT           6u /* pins written by out */
+#define SHAPED_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define SHAPED_PROGRAM_LENGTH      2u /* instructions */
 #define SHAPED_PROGRAM_WRAP_TARGET 0u /* relative to load offset */
 #define SHAPED_PROGRAM_WRAP        1u /* relative to load offset */
@@ -66,7 +67,8 @@ extern const uint16_t shaped_program[SHAPED_PROGRAM_LENGTH];
     SHAPED_IDLE_PINS, \
     SHAPED_IDLE_WORD, \
     SHAPED_SYS_CLOCK_HZ, \
-    SHAPED_LOOP \
+    SHAPED_LOOP, \
+    SHAPED_GPIO_BASE \
 }
 
 #endif /* LADDERPACK_SHAPED_H */

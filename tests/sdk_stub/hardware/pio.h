@@ -44,6 +44,13 @@ void sm_config_set_fifo_join(pio_sm_config *c, enum pio_fifo_join join);
 void sm_config_set_clkdiv_int_frac(pio_sm_config *c, uint16_t div_int, uint8_t div_frac);
 void pio_gpio_init(PIO pio, uint pin);
 void pio_sm_set_pins_with_mask(PIO pio, uint sm, uint32_t pin_values, uint32_t pin_mask);
+void pio_sm_set_pins_with_mask64(PIO pio, uint sm, uint64_t pin_values, uint64_t pin_mask);
+int pio_set_gpio_base(PIO pio, uint gpio_base);
+uint pio_get_gpio_base(PIO pio);
+#define PICO_OK 0
+#ifndef PICO_PIO_USE_GPIO_BASE
+#define PICO_PIO_USE_GPIO_BASE 0
+#endif
 int pio_sm_set_consecutive_pindirs(PIO pio, uint sm, uint pin_base, uint pin_count, bool is_out);
 int pio_sm_init(PIO pio, uint sm, uint initial_pc, const pio_sm_config *config);
 void pio_sm_set_enabled(PIO pio, uint sm, bool enabled);

@@ -1,0 +1,693 @@
+"""The option model: every option's name, type, unit, default, range and help, once.
+
+Each group of options is a frozen dataclass whose fields carry an :class:`OptionInfo`
+in their metadata.  The command line (:func:`ladderpack.cli`), the manifest's key
+types (:mod:`ladderpack.build`), ``--help``, the sidecar's ``options`` and the build
+fingerprint are all derived from these classes, and values are checked here, in
+``__post_init__``, whatever their source: a wrong value raises
+:class:`~ladderpack.errors.OptionError` naming the field.
+
+Kept free of heavy imports so the command line starts fast.
+
+Examples
+--------
+>>> StreamOptions(bits=12).samples_per_word_max
+2
+>>> StreamOptions(bits=20)
+Traceback (most recent call last):
+...
+ladderpack.errors.OptionError: bits: must be a whole number 1..16, got 20
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import typing
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
+
+from ladderpack.defaults import (
+    DITHERS,
+    EMBED_WORDS_MAX,
+    NTF_FORMS,
+    PIN_ORDERS,
+    PROGRAM_CHOICES,
+    SHAPER_NAMES,
+    SHIFTS,
+    TONE_KINDS,
+    WEIGHTING_NAMES,
+)
+from ladderpack.errors import LadderpackError, OptionError
+from ladderpack.targets import TARGET_NAMES, get_target
+
+__all__ = [
+    "ClipOptions",
+    "CorrectionTableSpec",
+    "OptionInfo",
+    "StreamOptions",
+    "ToneSpec",
+    "WaveTableSpec",
+    "from_mapping",
+    "manifest_types",
+    "option_fields",
+]
+
+#: Published shaping sets designed for 44.1 kHz (``force`` applies to these).
+PUBLISHED_SHAPERS = ("modified-e-9", "improved-e-5", "improved-e-9", "f-weighted-3", "f-weighted-9")
+
+
+@dataclass(frozen=True)
+class OptionInfo:
+    """What the model knows of one option besides its type and default.
+
+    Attributes
+    ----------
+    help : str
+        One line for ``--help`` and the README.
+    unit : str
+        Unit of the value ("Hz", "ms", "dB", "bytes", ...), or "" for none.
+    choices : tuple of str, optional
+        The allowed values of a text option.
+    lo, hi : float, optional
+        Inclusive bounds of a number (`lo_open`: the lower bound is excluded).
+    default_text : str, optional
+        How to describe a default that is not a plain value (``None`` defaults).
+    flag : str, optional
+        Command-line flag when not ``--`` plus the name with dashes; for a
+        yes/no option, the ``--on/--off`` pair.
+    metavar : str, optional
+        How the value is shown in ``--help``.
+    cli : bool
+        Whether the option appears on the command line.
+    recorded : bool
+        Whether the option goes into the sidecar and the build fingerprint
+        (False for options that cannot change an output).
+    """
+
+    help: str
+    unit: str = ""
+    choices: tuple[str, ...] | None = None
+    lo: float | None = None
+    hi: float | None = None
+    lo_open: bool = False
+    default_text: str | None = None
+    flag: str | None = None
+    metavar: str | None = None
+    cli: bool = True
+    recorded: bool = True
+
+
+def _opt(default: Any, help: str, **info: Any) -> Any:
+    return field(default=default, metadata={"option": OptionInfo(help, **info)})
+
+
+def option_fields(cls: type) -> list[tuple[dataclasses.Field[Any], OptionInfo, Any]]:
+    """The fields of an option class with their :class:`OptionInfo` and resolved type."""
+    hints = typing.get_type_hints(cls)
+    return [
+        (f, f.metadata["option"], hints[f.name])
+        for f in dataclasses.fields(cls)
+        if "option" in f.metadata
+    ]
+
+
+def _base_types(hint: Any) -> tuple[tuple[type, ...], bool]:
+    """(python types allowed, None allowed) for a field's type hint."""
+    args = typing.get_args(hint)
+    origin = typing.get_origin(hint)
+    nullable = False
+    if origin in (typing.Union, getattr(__import__("types"), "UnionType", None)):
+        inner = [a for a in args if a is not type(None)]
+        nullable = len(inner) < len(args)
+        hint = inner[0] if len(inner) == 1 else hint
+        origin = typing.get_origin(hint)
+    if origin is tuple:
+        return (tuple, list), nullable
+    if hint is float:
+        return (int, float), nullable
+    if isinstance(hint, type):
+        return (hint,), nullable
+    return (object,), nullable
+
+
+def _type_words(types: tuple[type, ...]) -> str:
+    names = {int: "a whole number", float: "a number", bool: "true or false", str: "text"}
+    if types == (int, float):
+        return "a number"
+    if types == (tuple, list):
+        return "a list"
+    return " or ".join(names.get(t, t.__name__) for t in types)
+
+
+def _check_value(name: str, value: Any, hint: Any, info: OptionInfo) -> Any:
+    """Check one value against its type and range; return it normalised."""
+    if hint is Any:
+        return value
+    types, nullable = _base_types(hint)
+    if value is None:
+        if nullable:
+            return None
+        raise OptionError(f"must be {_type_words(types)}, got nothing", field=name)
+    ok = isinstance(value, types) and not (isinstance(value, bool) and bool not in types)
+    if not ok:
+        raise OptionError(
+            f"must be {_type_words(types)}, got {type(value).__name__} {value!r}", field=name
+        )
+    if types == (int, float):
+        value = float(value)
+        if not math.isfinite(value):
+            raise OptionError(f"must be a finite number, got {value!r}", field=name)
+    if info.choices is not None and value not in info.choices:
+        raise OptionError(f"must be one of {', '.join(info.choices)}; got {value!r}", field=name)
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        lo, hi = info.lo, info.hi
+        bad = (lo is not None and (value <= lo if info.lo_open else value < lo)) or (
+            hi is not None and value > hi
+        )
+        if bad:
+            kind = "a whole number" if isinstance(value, int) else "a number"
+            unit = f" {info.unit}" if info.unit else ""
+            fmt = (lambda v: f"{int(v)}") if isinstance(value, int) else (lambda v: f"{v:g}")
+            if lo is not None and hi is not None:
+                rng = f"{fmt(lo)}..{fmt(hi)}{unit}"
+            elif lo is not None:
+                rng = f"{'>' if info.lo_open else '>='} {fmt(lo)}{unit}"
+            else:
+                rng = f"<= {fmt(hi)}{unit}"
+            raise OptionError(f"must be {kind} {rng}, got {value!r}", field=name)
+    if types == (tuple, list):
+        value = tuple(tuple(v) if isinstance(v, list) else v for v in value)
+    return value
+
+
+class _Model:
+    """Shared behaviour of the option classes (validation, conversion to data)."""
+
+    def _check_fields(self) -> None:
+        for f, info, hint in option_fields(type(self)):
+            value = _check_value(f.name, getattr(self, f.name), hint, info)
+            object.__setattr__(self, f.name, value)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The recorded options as plain JSON-ready data (sidecar, fingerprint)."""
+        out: dict[str, Any] = {}
+        for f, info, _hint in option_fields(type(self)):
+            if info.recorded:
+                v = getattr(self, f.name)
+                out[f.name] = (
+                    [list(x) if isinstance(x, tuple) else x for x in v]
+                    if isinstance(v, tuple)
+                    else v
+                )
+        return out
+
+    def changed(self) -> dict[str, Any]:
+        """The options that differ from their defaults."""
+        return {
+            f.name: getattr(self, f.name)
+            for f, _info, _hint in option_fields(type(self))
+            if getattr(self, f.name) != f.default
+        }
+
+
+def _flag_given(obj: Any, name: str) -> bool:
+    f = {x.name: x for x in dataclasses.fields(obj)}[name]
+    return bool(getattr(obj, name) != f.default)
+
+
+@dataclass(frozen=True)
+class StreamOptions(_Model):
+    """Every option of a stream (``ladderpack stream`` and ``tone``, manifest assets).
+
+    Attributes are the options of the same names; see each field's ``help`` in
+    :func:`option_fields` or ``ladderpack stream --help``.  Options left as None that
+    a target supplies (``sys_clock_hz``, ``gpio_count``, ``flash_bytes``,
+    ``ram_bytes``) are filled in from `target`.
+
+    Raises
+    ------
+    OptionError
+        For a value of the wrong type or out of range, or an option that does
+        not apply with the others given (``crossfade_ms`` without ``loop``, a
+        designer setting without ``shaping='designed'``, ...).
+    """
+
+    target: str = _opt(
+        "rp2040",
+        "Chip the bundle is for; sets the defaults of the system clock, GPIO count, flash and RAM.",
+        choices=TARGET_NAMES,
+    )
+    bits: int = _opt(8, "Ladder width N.", unit="bits", lo=1, hi=16)
+    rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
+    sys_clock_hz: int | None = _opt(
+        None,
+        "System clock feeding the PIO block.",
+        unit="Hz",
+        lo=1,
+        default_text="the target's: 125000000 on rp2040, 150000000 on rp2350",
+    )
+    rate_tolerance_ppm: float = _opt(
+        100.0, "Rate error accepted to keep a jitter-free integer divider.", unit="ppm", lo=0
+    )
+    headroom_db: float = _opt(
+        1.0, "Peak level below full scale after normalising.", unit="dB", lo=0
+    )
+    fade_ms: float = _opt(5.0, "Raised-cosine fade at each end of the audio.", unit="ms", lo=0)
+    ramp_ms: float = _opt(
+        50.0, "Ramp between the idle code and mid-scale at start and end.", unit="ms", lo=0
+    )
+    idle_code: int = _opt(0, "Code the pins hold when nothing plays.", unit="code", lo=0)
+    dither: str = _opt("tpdf", "Dither before rounding.", choices=DITHERS)
+    shaping: str = _opt(
+        "none",
+        "Error-feedback noise shaping: a fixed or published filter, or designed for the "
+        "stream's rate.",
+        choices=SHAPER_NAMES,
+    )
+    band_hz: float | None = _opt(
+        None,
+        "Audio band for shaping and noise figures.",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="20000 or the stream's Nyquist, whichever is lower",
+    )
+    weighting: str = _opt(
+        "threshold", "Noise weighting for the designer and the report.", choices=WEIGHTING_NAMES
+    )
+    ntf_order: int = _opt(8, "Order of a designed shaping filter.", unit="order", lo=1, hi=16)
+    ntf_max_db: float | None = _opt(
+        None,
+        "Peak gain bound of a designed filter.",
+        unit="dB",
+        lo=0,
+        lo_open=True,
+        default_text="3.5 up to 3 bits, 10 up to 7, 20 from 8",
+    )
+    ntf_form: str = _opt("auto", "Designed filter form (auto: the better one).", choices=NTF_FORMS)
+    loudness_lufs: float | None = _opt(
+        None,
+        "Normalise to this integrated loudness (ITU-R BS.1770) instead of --headroom-db.",
+        unit="LUFS",
+        lo=-70,
+        hi=0,
+        default_text="off",
+    )
+    true_peak_dbtp: float = _opt(
+        -1.0, "True-peak ceiling for --loudness-lufs.", unit="dBTP", lo=-60, hi=0
+    )
+    levels: Any = _opt(  # noqa: RUF009 (an option field, like the others)
+        None,
+        "LevelSet JSON (from 'ladderpack levels' or 'ladderpack ladder'): quantise against "
+        "the ladder's true levels.",
+        unit="file",
+        default_text="ideal levels",
+        metavar="FILE",
+    )
+    force: bool = _opt(
+        False,
+        "Use a published filter even far from its 44.1 kHz design rate.",
+        flag="--force/--no-force",
+    )
+    seed: int = _opt(0, "Dither seed; the same seed gives identical output.", lo=0, hi=2**63 - 1)
+    shift: str = _opt(
+        "right", "OUT shift direction: right puts the first sample in the LSBs.", choices=SHIFTS
+    )
+    out_base: int = _opt(0, "GPIO number of the ladder's first pin.", unit="GPIO", lo=0)
+    gpio_count: int | None = _opt(
+        None,
+        "User GPIOs on the target.",
+        unit="pins",
+        lo=1,
+        default_text="the target's: 30, or 48 on rp2350b",
+    )
+    pin_order: str = _opt(
+        "msb-high",
+        "msb-high: ladder MSB on the highest GPIO; msb-low: on the lowest (bits reversed).",
+        choices=PIN_ORDERS,
+    )
+    invert: bool = _opt(
+        False,
+        "Invert every bit, for an inverting buffer between pins and ladder.",
+        flag="--invert/--no-invert",
+    )
+    program: str = _opt(
+        "auto",
+        "State-machine program; auto picks loop for loops when it fits, else autopull.",
+        choices=PROGRAM_CHOICES,
+    )
+    samples_per_word: int | None = _opt(
+        None,
+        "Samples per 32-bit FIFO word.",
+        unit="samples",
+        lo=1,
+        hi=32,
+        default_text="as many as fit",
+    )
+    loop: bool = _opt(
+        False,
+        "The stream repeats: no fades or ramps at the seam, length rounded to whole words, "
+        "players loop.",
+        flag="--loop/--no-loop",
+    )
+    crossfade_ms: float = _opt(0.0, "Loops: crossfade of the end onto the start.", unit="ms", lo=0)
+    flash_bytes: int | None = _opt(
+        None,
+        "Target flash size.",
+        unit="bytes",
+        lo=0,
+        default_text="the target's: 2097152 on rp2040, 4194304 on rp2350",
+    )
+    flash_reserve_bytes: int = _opt(256 * 1024, "Flash kept for firmware code.", unit="bytes", lo=0)
+    ram_bytes: int | None = _opt(
+        None,
+        "Target RAM size.",
+        unit="bytes",
+        lo=0,
+        default_text="the target's: 270336 on rp2040, 532480 on rp2350",
+    )
+    chunk_words: int = _opt(
+        1024, "Words per DMA buffer of the MicroPython player (two are used).", unit="words", lo=1
+    )
+    embed_words_max: int = _opt(
+        EMBED_WORDS_MAX,
+        "Streams up to this many words are also embedded in the MicroPython module.",
+        unit="words",
+        lo=0,
+    )
+    max_memory_mib: float = _opt(
+        1024.0,
+        "Refuse a job whose working memory would exceed this.",
+        unit="MiB",
+        lo=0,
+        lo_open=True,
+        recorded=False,
+    )
+
+    #: Options that only apply to clips (a synthesised tone is made at its level).
+    CLIP_ONLY: ClassVar[tuple[str, ...]] = (
+        "headroom_db",
+        "fade_ms",
+        "loudness_lufs",
+        "true_peak_dbtp",
+        "crossfade_ms",
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        tgt = get_target(self.target)
+        for name, value in (
+            ("sys_clock_hz", tgt.sys_clock_hz),
+            ("gpio_count", tgt.gpio_count),
+            ("flash_bytes", tgt.flash_bytes),
+            ("ram_bytes", tgt.ram_bytes),
+        ):
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, value)
+        if self.levels is not None and not isinstance(self.levels, str | os.PathLike):
+            from ladderpack.levels import LevelSet
+
+            if not isinstance(self.levels, LevelSet):
+                raise OptionError(
+                    f"must be a LevelSet or the path of its JSON file, got "
+                    f"{type(self.levels).__name__}",
+                    field="levels",
+                )
+        top = (1 << self.bits) - 1
+        if self.idle_code > top:
+            raise OptionError(
+                f"must be 0..{top} for {self.bits} bits, got {self.idle_code}", field="idle_code"
+            )
+        if self.samples_per_word is not None and self.samples_per_word > self.samples_per_word_max:
+            raise OptionError(
+                f"must be 1..{self.samples_per_word_max} for {self.bits}-bit samples in a "
+                f"32-bit word, got {self.samples_per_word}",
+                field="samples_per_word",
+            )
+        if self.flash_reserve_bytes > int(self.flash_bytes or 0):
+            raise OptionError(
+                f"reserve of {self.flash_reserve_bytes} bytes exceeds the flash size "
+                f"{self.flash_bytes}",
+                field="flash_reserve_bytes",
+            )
+        if self.crossfade_ms > 0 and not self.loop:
+            raise OptionError("applies only to loops; add loop or drop it", field="crossfade_ms")
+        if self.loop and _flag_given(self, "fade_ms"):
+            raise OptionError(
+                "does not apply to loops (a loop has no ends to fade); use crossfade_ms",
+                field="fade_ms",
+            )
+        if self.loudness_lufs is None and _flag_given(self, "true_peak_dbtp"):
+            raise OptionError("applies only with loudness_lufs", field="true_peak_dbtp")
+        if self.loudness_lufs is not None and _flag_given(self, "headroom_db"):
+            raise OptionError(
+                "give headroom_db (peak normalising) or loudness_lufs, not both",
+                field="headroom_db",
+            )
+        if self.shaping != "designed":
+            for name in ("ntf_order", "ntf_max_db", "ntf_form"):
+                if _flag_given(self, name):
+                    raise OptionError(
+                        "applies only to a designed filter (shaping designed)", field=name
+                    )
+        if self.force and self.shaping not in PUBLISHED_SHAPERS:
+            raise OptionError(
+                f"applies only to the published sets {', '.join(PUBLISHED_SHAPERS)}",
+                field="force",
+            )
+        tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+
+    @property
+    def samples_per_word_max(self) -> int:
+        """Most samples of this width in a 32-bit word."""
+        return 32 // self.bits
+
+    @property
+    def gpio_base(self) -> int:
+        """The PIO block's GPIO base that reaches the ladder's pins (0 or 16)."""
+        tgt = get_target(self.target)
+        return tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+
+    def to_dict(self) -> dict[str, Any]:
+        """Recorded options; a LevelSet or path is recorded by its file name only."""
+        out = super().to_dict()
+        lv = self.levels
+        if lv is not None:
+            if isinstance(lv, str | os.PathLike):
+                out["levels"] = os.path.basename(os.fspath(lv))
+            else:
+                out["levels"] = lv.notes.get("file", "LevelSet")
+        return out
+
+    def check_for_tone(self) -> None:
+        """Refuse the clip-only options (a tone is synthesised at its own level)."""
+        for name in self.CLIP_ONLY:
+            if _flag_given(self, name):
+                raise OptionError(
+                    "does not apply to a synthesised tone (set its level with level_dbfs)",
+                    field=name,
+                )
+
+
+@dataclass(frozen=True)
+class ClipOptions(_Model):
+    """How a clip is read: which channel, and in what blocks."""
+
+    channel: int | None = _opt(
+        None,
+        "Use this channel (0-based) instead of a mono mix of all channels.",
+        unit="index",
+        lo=0,
+        default_text="mix",
+    )
+    block_frames: int | None = _opt(
+        None,
+        "Process the clip in blocks of this many frames (bounded memory, same output).",
+        unit="frames",
+        lo=1,
+        default_text="65536-frame blocks for clips over 8388608 samples, else whole",
+        recorded=False,
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+
+
+@dataclass(frozen=True)
+class ToneSpec(_Model):
+    """A test waveform (``ladderpack tone``; see :mod:`ladderpack.waves`)."""
+
+    kind: str = _opt("sine", "Waveform kind.", choices=TONE_KINDS, cli=False)
+    freq_hz: float = _opt(1000.0, "Frequency of periodic kinds.", unit="Hz", lo=0, lo_open=True)
+    level_dbfs: float = _opt(-1.0, "Peak level.", unit="dBFS", hi=0)
+    seconds: float = _opt(1.0, "Length.", unit="s", lo=0, lo_open=True, hi=86400)
+    cycles: int | None = _opt(
+        None,
+        "Length as whole cycles of --freq-hz (instead of --seconds).",
+        unit="cycles",
+        lo=1,
+        default_text="none",
+    )
+    band_limited: bool = _opt(
+        True,
+        "Square, sawtooth, triangle from harmonics below Nyquist, or naive.",
+        flag="--band-limited/--naive",
+    )
+    tones: tuple[tuple[float, float], ...] | None = _opt(
+        None,
+        "Multitone components FREQ_HZ:LEVEL_DB,... (levels relative).",
+        unit="Hz:dB list",
+        default_text="none",
+        metavar="LIST",
+    )
+    f_start_hz: float = _opt(20.0, "Exponential sweep start.", unit="Hz", lo=0, lo_open=True)
+    f_end_hz: float | None = _opt(
+        None,
+        "Exponential sweep end.",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="20000 or 0.45 x the rate",
+    )
+    dc_value: float = _opt(0.0, "DC level as a fraction of full scale.", unit="FS", lo=-1, hi=1)
+    codes: tuple[int, ...] | None = _opt(
+        None,
+        "Staircase codes, e.g. 0-15,128.",
+        unit="code list",
+        default_text="every code",
+        metavar="LIST",
+    )
+    dwell_ms: float = _opt(10.0, "Time on each staircase step.", unit="ms", lo=0, lo_open=True)
+    coherent_record: int | None = _opt(
+        None,
+        "Record length of a coherent capture: the frequency moves to a cycle count "
+        "co-prime with it.",
+        unit="samples",
+        lo=4,
+        default_text="none",
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        if self.cycles is not None and _flag_given(self, "seconds"):
+            raise OptionError("give seconds or cycles, not both", field="cycles")
+        if self.tones is not None:
+            for t in self.tones:
+                if len(t) != 2 or not all(
+                    isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+                    for v in t
+                ):
+                    raise OptionError(
+                        f"expected (freq_hz, level_db) pairs, got {list(t)!r}", field="tones"
+                    )
+        if self.codes is not None:
+            for c in self.codes:
+                if isinstance(c, bool) or not isinstance(c, int) or c < 0:
+                    raise OptionError(f"expected codes >= 0, got {c!r}", field="codes")
+
+
+@dataclass(frozen=True)
+class WaveTableSpec(_Model):
+    """A wavetable with phase increments (``ladderpack table wave``)."""
+
+    kind: str = _opt(
+        "sine",
+        "Waveform of the table (naive shapes).",
+        choices=("sine", "square", "sawtooth", "triangle"),
+    )
+    table_bits: int = _opt(8, "Table of 2^k entries: k.", unit="bits", lo=2, hi=16)
+    bits: int = _opt(8, "Ladder code width of the entries.", unit="bits", lo=1, hi=16)
+    level_dbfs: float = _opt(-1.0, "Peak level.", unit="dBFS", hi=0)
+    freqs_hz: tuple[float, ...] = _opt(
+        (440.0,),
+        "Frequencies to give phase increments for, comma-separated.",
+        unit="Hz",
+        metavar="LIST",
+        default_text="440",
+    )
+    rate_hz: float = _opt(
+        22050.0,
+        "Requested stream rate (the clock plan's achieved rate is used).",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+    )
+    target: str = _opt("rp2040", "Chip the table is for.", choices=TARGET_NAMES)
+    sys_clock_hz: int | None = _opt(
+        None,
+        "System clock.",
+        unit="Hz",
+        lo=1,
+        default_text="the target's: 125000000 on rp2040, 150000000 on rp2350",
+    )
+    rate_tolerance_ppm: float = _opt(
+        100.0, "Rate error accepted for an integer divider.", unit="ppm", lo=0
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        if self.sys_clock_hz is None:
+            object.__setattr__(self, "sys_clock_hz", get_target(self.target).sys_clock_hz)
+        for f in self.freqs_hz:
+            if isinstance(f, bool) or not isinstance(f, int | float) or not f > 0:
+                raise OptionError(f"expected frequencies > 0 Hz, got {f!r}", field="freqs_hz")
+        object.__setattr__(self, "freqs_hz", tuple(float(f) for f in self.freqs_hz))
+
+
+@dataclass(frozen=True)
+class CorrectionTableSpec(_Model):
+    """A correction table from a LevelSet (``ladderpack table correction``)."""
+
+    levels: str = _opt("", "LevelSet JSON of the measured ladder.", unit="file", cli=False)
+    in_bits: int | None = _opt(
+        None,
+        "Bits of the ideal input level.",
+        unit="bits",
+        lo=1,
+        hi=16,
+        default_text="the ladder's bits",
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        if not self.levels:
+            raise OptionError("a correction table needs a levels file", field="levels")
+
+
+def manifest_types(cls: type) -> dict[str, tuple[type, ...]]:
+    """TOML value types each option of `cls` accepts in a manifest."""
+    out: dict[str, tuple[type, ...]] = {}
+    for f, _info, hint in option_fields(cls):
+        types, _nullable = _base_types(hint)
+        out[f.name] = (str,) if f.name == "levels" else types
+    return out
+
+
+_M = typing.TypeVar("_M")
+
+
+def from_mapping(
+    cls: type[_M], values: Mapping[str, Any], *, file: str | None = None, where: str | None = None
+) -> _M:
+    """Build an option object from a mapping (a manifest table, a sidecar's options).
+
+    Unknown keys and bad values raise one :class:`~ladderpack.errors.LadderpackError`
+    naming `file` and the field (prefixed by `where`, e.g. ``asset 'bell'``).
+    """
+    known = {f.name for f, _i, _h in option_fields(cls)}
+    for key in values:
+        if key not in known:
+            field_name = f"{where}.{key}" if where else key
+            raise LadderpackError(
+                f"unknown key; expected one of {', '.join(sorted(known))}",
+                file=file,
+                field=field_name,
+            )
+    try:
+        return cls(**values)
+    except LadderpackError as exc:
+        field_name = ".".join(p for p in (where, exc.field) if p) or None
+        raise type(exc)(exc.message, file=file or exc.file, field=field_name) from None

@@ -1,0 +1,797 @@
+"""Streams: plan, then process, then finish.  The only composition of the stages.
+
+1. :func:`plan_stream` makes every decision before a sample is touched: clock
+   plan, word layout, program, state-machine registers, shaping filter and its
+   predicted noise, the output's sample and word counts, the flash budget and the
+   working memory.  An unreachable rate, a stream that will not fit the flash, or
+   a job whose memory would exceed ``max_memory_mib`` is refused here, at once.
+2. :func:`process` runs the samples through the stages.  A clip is always read in
+   blocks; processing it whole is the case of one block, so there is one path,
+   and the output is byte-identical for any block size.
+3. :func:`finish` checks the exact budget and assembles the :class:`StreamAsset`.
+
+:func:`stream_clip`, :func:`stream_signal` and :func:`stream_tone` are the library
+faces of ``ladderpack stream`` and ``ladderpack tone``; they write nothing (pass the
+result to :func:`ladderpack.bundle.write_bundle`).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+
+from ladderpack import conform
+from ladderpack.audio import Signal, check_signal, sha256_file
+from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
+from ladderpack.bundle import StreamAsset
+from ladderpack.clock import ClockPlan, plan_clock
+from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
+from ladderpack.emit.names import asset_identifier
+from ladderpack.errors import OptionError
+from ladderpack.levels import LevelSet, linearity, load_levels
+from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
+from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
+from ladderpack.pio import (
+    Program,
+    StateMachineConfig,
+    ladder_program,
+    max_cycles,
+    min_cycles,
+    state_machine_config,
+)
+from ladderpack.quantize import BlockQuantizer, Codes, idle_ramp
+from ladderpack.shaping import Shaper, design_shaper, get_shaper, predict_noise
+from ladderpack.sources import BLOCK_FRAMES, BLOCK_THRESHOLD, ArraySource, FileSource, MonoSource
+
+__all__ = [
+    "BLOCK_THRESHOLD",
+    "EXACT_KINDS",
+    "STAGES",
+    "StreamPlan",
+    "finish",
+    "plan_stream",
+    "process",
+    "stream_clip",
+    "stream_signal",
+    "stream_tone",
+]
+
+#: Tone kinds whose codes must come out exact: quantised without dither or shaping.
+EXACT_KINDS = ("staircase", "dc")
+
+Progress = Callable[[str], None]
+
+
+@dataclass(frozen=True)
+class StreamPlan:
+    """Every decision about a stream, made before any sample is processed.
+
+    Attributes
+    ----------
+    name : str
+        Safe identifier of the asset.
+    options : StreamOptions
+        The options, validated.
+    levels : LevelSet, optional
+        The ladder's true levels, when quantising against them.
+    clock : ClockPlan
+        Divider and cycles per sample; ``clock.achieved_rate_hz`` is the stream rate.
+    layout : WordLayout
+        How codes pack into FIFO words.
+    program : Program
+        The state-machine program (its ``variant`` says which).
+    sm : StateMachineConfig
+        State-machine register values.
+    shaper : Shaper
+        The error-feedback filter (``none`` included).
+    band_hz : float
+        Audio band of the noise figures, Hz.
+    predicted_noise_db : dict
+        Predicted noise against plain quantising (``weighted_db``, ``in_band_db``,
+        ``total_db``).
+    ramp_samples : int
+        Length of each idle ramp.
+    audio_samples : int
+        Audio samples the stream will hold (an upper bound for loops, whose
+        length is rounded to whole words).
+    words : int
+        FIFO words the stream will take, intro and outro included (upper bound).
+    budget : Budget
+        Flash and RAM for `words`.
+    memory_bytes : int
+        Estimated peak working memory of :func:`process`.
+    block_frames : int
+        Input frames per block (the whole input when it is one block).
+    """
+
+    name: str
+    options: StreamOptions
+    levels: LevelSet | None
+    clock: ClockPlan
+    layout: WordLayout
+    program: Program
+    sm: StateMachineConfig
+    shaper: Shaper
+    band_hz: float
+    predicted_noise_db: dict[str, float]
+    ramp_samples: int
+    audio_samples: int
+    words: int
+    budget: Budget
+    memory_bytes: int
+    block_frames: int
+
+    @property
+    def rate_hz(self) -> float:
+        """The stream's achieved rate, Hz."""
+        return float(self.clock.achieved_rate_hz)
+
+
+@dataclass
+class Processed:
+    """What :func:`process` produced: the packed words and what was measured on the way."""
+
+    packed: Packed
+    codes: Codes | None
+    intro: Packed | None
+    outro: Packed | None
+    audio_samples: int
+    gain_db: float = 0.0
+    overloads: int = 0
+    resets: int = 0
+    loop_rate_ppm: float = 0.0
+    loudness: dict[str, Any] | None = None
+    rate_in_hz: float | None = None
+    tone: dict[str, Any] = field(default_factory=dict)
+
+
+# -- plan ----------------------------------------------------------------------------
+
+
+def _program_variant(opts: StreamOptions, spw: int) -> str:
+    if opts.program != "auto":
+        return opts.program
+    if opts.loop and max_cycles("loop", spw, opts.bits) >= min_cycles("loop"):
+        return "loop"
+    return "pull" if spw == 1 and opts.samples_per_word == 1 else "autopull"
+
+
+def _shaper_for(opts: StreamOptions, rate: float, band: float) -> Shaper:
+    if opts.shaping == "designed":
+        return design_shaper(
+            rate,
+            band_hz=band,
+            weighting_kind=opts.weighting,
+            order=opts.ntf_order,
+            max_gain_db=(
+                default_ntf_max_db(opts.bits) if opts.ntf_max_db is None else opts.ntf_max_db
+            ),
+            form=opts.ntf_form,
+        )
+    return get_shaper(opts.shaping, rate, force=opts.force)
+
+
+def _memory_bytes(
+    opts: StreamOptions,
+    rate_in: float | None,
+    rate_out: float,
+    in_frames: int,
+    channels: int,
+    block_frames: int,
+    out_samples: int,
+) -> int:
+    """Peak working memory of :func:`process`, bytes (an estimate on the safe side)."""
+    total = 4 * out_samples // max(1, 32 // opts.bits) * 2  # the words and one copy
+    if rate_in is None:  # synthesised: the samples, the codes, the int64 quantiser output
+        return total + 26 * out_samples
+    if rate_in != rate_out:
+        spec = conform.resampler_spec(rate_in, rate_out, opts.bits)
+        half = conform.kernel_half(spec, rate_in)
+        # the table and the design's temporaries of the same size
+        total += 6 * (conform.PHASES + 1) * 2 * half * 8
+    block_out = math.ceil(block_frames * rate_out / rate_in) + 1
+    one_block = block_frames >= in_frames
+    # read buffer (all channels) and the mono mix; resampled, scaled and faded output;
+    # int64 quantiser output and the codes.  One block is also kept between passes.
+    total += 8 * block_frames * (channels + 2) + block_out * (8 * 3 + 10)
+    if one_block:
+        total += 8 * block_out
+    return total
+
+
+def plan_stream(
+    options: StreamOptions,
+    *,
+    name: str,
+    rate_in_hz: float | None,
+    frames: int | Callable[[float, int], int],
+    channels: int = 1,
+    block_frames: int | None = None,
+) -> StreamPlan:
+    """Plan a stream and check that it can be made, before any sample is processed.
+
+    Parameters
+    ----------
+    options : StreamOptions
+        The stream's options.
+    name : str
+        Asset name (sanitised into the identifier).
+    rate_in_hz : float or None
+        Rate of the input; None for a waveform synthesised at the stream rate,
+        when `frames` is the number of samples it will have.
+    frames : int or callable
+        Input frames; for a synthesised waveform, a function
+        ``(rate_hz, samples_per_word) -> samples`` of the stream rate.
+    channels : int
+        Channels of the input file (for the memory estimate).
+    block_frames : int, optional
+        Frames per block (default: the whole input in one block).
+
+    Raises
+    ------
+    OptionError, ClockError
+        For a rate the clock cannot make, a stream that will not fit the flash or
+        RAM, or a job whose working memory would exceed ``options.max_memory_mib``.
+    """
+    opts = options
+    ident = asset_identifier(name)
+    levels = None
+    if opts.levels is not None:
+        levels = opts.levels if isinstance(opts.levels, LevelSet) else load_levels(opts.levels)
+        if levels.bits != opts.bits:
+            raise OptionError(
+                f"the levels file is for {levels.bits} bits but the stream is {opts.bits}-bit",
+                field="levels",
+            )
+    layout = WordLayout(
+        opts.bits,
+        shift_right=opts.shift == "right",
+        per_word=opts.samples_per_word,
+        msb_high=opts.pin_order == "msb-high",
+        invert=opts.invert,
+    )
+    spw = layout.samples_per_word
+    variant = _program_variant(opts, spw)
+    clock = plan_clock(
+        opts.rate_hz,
+        sys_clock_hz=int(opts.sys_clock_hz or 0),
+        tolerance_ppm=opts.rate_tolerance_ppm,
+        min_cycles=min_cycles(variant),
+        max_cycles=max_cycles(variant, spw, opts.bits),
+    )
+    rate = float(clock.achieved_rate_hz)
+    ramp = round(opts.ramp_ms * 1e-3 * rate)
+    if callable(frames):
+        frames = frames(rate, spw)
+    if rate_in_hz is None:
+        audio = frames
+    else:
+        audio = math.ceil(Fraction(frames) * clock.achieved_rate_hz / Fraction(rate_in_hz))
+        audio += spw if opts.loop else 0
+    words = layout.words_for(audio + 2 * ramp) + (3 if opts.loop else 0)
+    budget = stream_budget(
+        words,
+        samples_per_word=spw,
+        rate_hz=clock.achieved_rate_hz,
+        target=TargetProfile(
+            int(opts.flash_bytes or 0), opts.flash_reserve_bytes, int(opts.ram_bytes or 0)
+        ),
+        player_chunk_words=opts.chunk_words,
+        embedded=words <= opts.embed_words_max,
+    )
+    check_budget(budget)
+    blk = frames if block_frames is None else min(block_frames, frames)
+    memory = _memory_bytes(opts, rate_in_hz, rate, frames, channels, max(1, blk), audio)
+    if memory > opts.max_memory_mib * 2**20:
+        hint = (
+            f" (did you mean {opts.rate_hz * 1000:g} Hz?)"
+            if opts.rate_hz < 1000 and rate_in_hz
+            else ""
+        )
+        raise OptionError(
+            f"the job would need about {memory / 2**20:,.0f} MiB of working memory, over the "
+            f"{opts.max_memory_mib:g} MiB limit: {frames} input frames at "
+            f"{rate_in_hz or rate:g} Hz to {audio} samples at {rate:.6g} Hz"
+            f"{hint}; raise --max-memory-mib if that is really meant",
+            field="max_memory_mib" if not hint else "rate_hz",
+        )
+    band = default_band_hz(rate) if opts.band_hz is None else opts.band_hz
+    if not band <= rate / 2:
+        raise OptionError(
+            f"must be at most the stream's Nyquist {rate / 2:.6g} Hz, got {opts.band_hz!r}",
+            field="band_hz",
+        )
+    shaper = _shaper_for(opts, rate, band)
+    predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=opts.weighting)
+    program = ladder_program(
+        opts.bits,
+        clock.cycles_per_sample,
+        variant=variant,
+        samples_per_word=spw,
+        name=f"{ident}_out",
+    )
+    sm = state_machine_config(
+        program,
+        layout,
+        clock,
+        out_base=opts.out_base,
+        gpio_count=int(opts.gpio_count or 0),
+        gpio_base=opts.gpio_base,
+    )
+    return StreamPlan(
+        ident,
+        opts,
+        levels,
+        clock,
+        layout,
+        program,
+        sm,
+        shaper,
+        band,
+        predicted,
+        ramp,
+        audio,
+        words,
+        budget,
+        memory,
+        max(1, blk),
+    )
+
+
+# -- process -------------------------------------------------------------------------
+
+
+def _conformed(plan: StreamPlan, src: MonoSource, out: Processed) -> Iterator[np.ndarray]:
+    """DC removal, resampling, level and fades, block by block (float samples)."""
+    opts, rate_out = plan.options, plan.clock.achieved_rate_hz
+    mean = src.mean(plan.block_frames)
+    if opts.loop:  # a loop is one block: the crossfade and the wrap need all of it
+        x = conform.loop_crossfade(
+            Signal(src.whole() - mean, src.rate_hz), crossfade_ms=opts.crossfade_ms
+        )
+        rate = conform.loop_rate(x.frames, x.rate_hz, rate_out, plan.layout.samples_per_word)
+        out.loop_rate_ppm = float((rate / rate_out - 1) * 1_000_000)
+        x = conform.resample(x, rate, bits=opts.bits, periodic=True)
+        x, out.gain_db = conform.normalise_peak(x, headroom_db=opts.headroom_db)
+        yield x.samples
+        return
+    one_block = plan.block_frames >= src.frames
+    kept: list[np.ndarray] = []
+
+    def resampled() -> Iterator[np.ndarray]:
+        if kept:
+            yield from kept
+            return
+        rs = conform.StreamResampler(src.rate_hz, rate_out, src.frames, bits=opts.bits)
+        seen = 0
+        for mono in src.blocks(plan.block_frames):
+            seen += mono.size
+            y = rs.feed(mono - mean, last=seen >= src.frames)
+            if one_block:
+                kept.append(y)
+            if y.size:
+                yield y
+
+    rate = float(Fraction(rate_out))
+    if opts.loudness_lufs is not None:  # loudness needs the whole clip: one block
+        x = Signal(np.concatenate(list(resampled())), rate)
+        x, out.gain_db, out.loudness = conform.normalise_loudness(
+            x, target_lufs=opts.loudness_lufs, true_peak_dbtp=opts.true_peak_dbtp
+        )
+        yield conform.apply_fades(x, fade_ms=opts.fade_ms).samples
+        return
+    peak, n_out = 0.0, 0
+    for y in resampled():
+        peak = max(peak, float(np.max(np.abs(y))))
+        n_out += y.size
+    gain = conform.dbfs_to_amplitude(-opts.headroom_db) / peak if peak > 0 else None
+    out.gain_db = 20 * math.log10(gain) if gain is not None else 0.0
+    n_fade = min(round(opts.fade_ms * 1e-3 * rate), n_out // 2)
+    w = conform.raised_cosine(n_fade)
+    pos = 0
+    for y in resampled():
+        y = y * gain if gain is not None else np.array(y)
+        lo, hi = pos, pos + y.size
+        if lo < n_fade:
+            y[: min(hi, n_fade) - lo] *= w[lo : min(hi, n_fade)]
+        if n_fade and hi > n_out - n_fade:
+            start = max(lo, n_out - n_fade)
+            y[start - lo :] *= w[::-1][start - (n_out - n_fade) : hi - (n_out - n_fade)]
+        pos = hi
+        yield y
+
+
+def process(
+    plan: StreamPlan,
+    source: MonoSource | Callable[[float, int], Signal],
+    *,
+    progress: Progress | None = None,
+) -> Processed:
+    """Run the samples of `source` through the stages of `plan`.
+
+    Parameters
+    ----------
+    plan : StreamPlan
+        From :func:`plan_stream`.
+    source : MonoSource or callable
+        Mono samples in blocks (a clip or an in-memory signal), or a function
+        ``synth(rate_hz, samples_per_word) -> Signal`` whose samples, made at the
+        stream rate, are quantised as they are.
+    progress : callable, optional
+        Called with each stage name of :data:`STAGES` as it finishes.
+
+    Returns
+    -------
+    Processed
+        The packed words (and the codes, when the input was one block).
+    """
+    done = progress or (lambda stage: None)
+    opts, lay = plan.options, plan.layout
+    out = Processed(Packed(np.zeros(0, np.uint32), lay, 0, opts.idle_code), None, None, None, 0)
+    if isinstance(source, MonoSource):
+        out.rate_in_hz = source.rate_hz
+        keep = plan.block_frames >= source.frames
+        audio_blocks: Iterator[np.ndarray] = _conformed(plan, source, out)
+    else:
+        sig = check_signal(source(plan.rate_hz, lay.samples_per_word))
+        keep = True
+        audio_blocks = iter([np.asarray(sig.samples, dtype=np.float64)])
+    q = BlockQuantizer(
+        bits=opts.bits, dither=opts.dither, shaper=plan.shaper, seed=opts.seed, levels=plan.levels
+    )
+    ramp = idle_ramp(opts.idle_code, opts.bits, plan.ramp_samples)
+    kept: list[np.ndarray] = []
+
+    def quantised() -> Iterator[np.ndarray]:
+        for i, block in enumerate(audio_blocks):
+            if i == 0:
+                done("resample")
+            c = q.feed(block)
+            out.audio_samples += c.size
+            if keep:
+                kept.append(c)
+            yield c
+        done("quantise")
+
+    if opts.loop:
+        out.codes = Codes(np.concatenate(list(quantised())), opts.bits)
+        out.packed = pack(out.codes, lay, pad_code=opts.idle_code)
+        out.intro, out.outro = _loop_ramps(ramp, lay, opts.idle_code)
+    else:
+        words = list(
+            pack_blocks(_chain(ramp, quantised(), ramp[::-1]), lay, pad_code=opts.idle_code)
+        )
+        n = 2 * ramp.size + out.audio_samples
+        flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
+        out.packed = Packed(flat, lay, n, opts.idle_code)
+        if keep:
+            out.codes = Codes(np.concatenate([ramp, *kept, ramp[::-1]]), opts.bits)
+    out.overloads, out.resets = q.overloads, q.resets
+    done("pack")
+    return out
+
+
+def _chain(
+    head: np.ndarray, middle: Iterator[np.ndarray], tail: np.ndarray
+) -> Iterator[np.ndarray]:
+    yield head
+    yield from middle
+    yield tail
+
+
+def _loop_ramps(ramp: np.ndarray, lay: WordLayout, idle_code: int) -> tuple[Packed, Packed]:
+    """The intro (idle up to mid-scale) and outro (down to idle) played around a loop."""
+    spw, bits = lay.samples_per_word, lay.bits
+    mid = 1 << (bits - 1)
+    intro = pack(Codes(ramp, bits), lay, pad_code=mid if ramp.size else idle_code)
+    # The outro ends with a whole word of idle codes: the loop program repeats the last
+    # word once the FIFO is empty, so that word must be silent.
+    tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, np.uint16)
+    outro = pack(Codes(np.concatenate([ramp[::-1], tail]), bits), lay, pad_code=idle_code)
+    return intro, outro
+
+
+# -- finish --------------------------------------------------------------------------
+
+
+def finish(
+    plan: StreamPlan, done: Processed, *, name: str, source: dict[str, Any] | None = None
+) -> StreamAsset:
+    """Check the exact budget and assemble the :class:`StreamAsset`.
+
+    Parameters
+    ----------
+    plan : StreamPlan
+        The plan the samples were processed with.
+    done : Processed
+        The result of :func:`process`.
+    name : str
+        The asset name as given (recorded in the sidecar).
+    source : dict, optional
+        Provenance of the samples (file name, SHA-256, rate, channels, frames).
+    """
+    opts = plan.options
+    total = done.packed.words.size + sum(
+        p.words.size for p in (done.intro, done.outro) if p is not None
+    )
+    budget = stream_budget(
+        total,
+        samples_per_word=plan.layout.samples_per_word,
+        rate_hz=plan.clock.achieved_rate_hz,
+        target=plan.budget.target,
+        player_chunk_words=opts.chunk_words,
+        embedded=done.packed.words.size <= opts.embed_words_max,
+    )
+    check_budget(budget)
+    rate_in = done.rate_in_hz if done.rate_in_hz is not None else plan.rate_hz
+    spec = conform.resampler_spec(rate_in, plan.rate_hz, opts.bits)
+    stats: dict[str, Any] = {
+        "gain_db": round(done.gain_db, 6),
+        "overloads": done.overloads,
+        "shaper_resets": done.resets,
+        "shaper": plan.shaper.to_dict(),
+        "band_hz": plan.band_hz,
+        "predicted_noise_db": {k: round(v, 3) for k, v in plan.predicted_noise_db.items()},
+        "audio_samples": done.audio_samples,
+        "ramp_samples": plan.ramp_samples,
+        "loop_rate_adjust_ppm": round(done.loop_rate_ppm, 6),
+        "program_variant": plan.program.variant,
+        "resampler": {
+            "passband_hz": spec.passband_hz,
+            "stopband_hz": spec.stopband_hz,
+            "ripple_db": spec.ripple_db,
+            "attenuation_db": spec.attenuation_db,
+        },
+        "budget": budget.to_dict(),
+        "levels": None if plan.levels is None else _levels_stats(plan.levels),
+        "loudness": None
+        if done.loudness is None
+        else {k: (round(v, 4) if isinstance(v, float) else v) for k, v in done.loudness.items()},
+        "predicted_full_scale_sine": _predicted_sine(
+            opts.bits, opts.dither, plan.predicted_noise_db
+        ),
+    }
+    if done.tone:
+        stats["tone"] = done.tone
+    return StreamAsset(
+        plan.name,
+        done.codes,
+        done.packed,
+        plan.clock,
+        plan.program,
+        plan.sm,
+        opts.idle_code,
+        source=dict(source or {}),
+        options={"name": str(name), **opts.to_dict()},
+        stats=stats,
+        intro=done.intro,
+        outro=done.outro,
+        budget=budget,
+    )
+
+
+def _predicted_sine(bits: int, dither: str, predicted: dict[str, float]) -> dict[str, float]:
+    """SINAD and ENOB a full-scale sine would get from this quantiser (in band).
+
+    Signal power (2^(N-1))^2 / 2 LSB^2 over error power sigma^2 x NTF in-band gain,
+    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992).
+    """
+    sigma2 = 1 / 12 + {"none": 0.0, "rpdf": 1 / 12, "tpdf": 1 / 6}[dither]
+    noise = sigma2 * 10 ** (predicted["in_band_db"] / 10)
+    sinad = 10 * math.log10((1 << (bits - 1)) ** 2 / 2 / noise)
+    return {"sinad_db": round(sinad, 3), "enob_bits": round((sinad - 1.76) / 6.02, 3)}
+
+
+def _levels_stats(levelset: LevelSet) -> dict[str, Any]:
+    lin = linearity(levelset.volts)
+    v = levelset.volts
+    out: dict[str, Any] = {
+        "origin": levelset.origin,
+        "lowest_volts": float(v.min()),
+        "highest_volts": float(v.max()),
+        "span_volts": float(v.max() - v.min()),
+        "max_abs_inl_best_fit_lsb": round(lin["max_abs_inl_best_fit"], 4),
+        "max_abs_dnl_lsb": round(lin["max_abs_dnl"], 4),
+        "monotonic": lin["monotonic"],
+    }
+    ideal = levelset.notes.get("ideal_span_volts")
+    if ideal:
+        out["span_vs_ideal_db"] = round(20 * math.log10(out["span_volts"] / ideal), 4)
+    return out
+
+
+# -- library faces -------------------------------------------------------------------
+
+
+def _options(options: StreamOptions | None, overrides: dict[str, Any]) -> StreamOptions:
+    if options is None:
+        return StreamOptions(**overrides)
+    if overrides:
+        import dataclasses
+
+        return dataclasses.replace(options, **overrides)
+    return options
+
+
+def stream_signal(
+    sig: Signal,
+    *,
+    name: str,
+    options: StreamOptions | None = None,
+    source: dict[str, Any] | None = None,
+    progress: Progress | None = None,
+    **overrides: Any,
+) -> StreamAsset:
+    """Turn a mono signal into a ladder stream.
+
+    Parameters
+    ----------
+    sig : Signal
+        Mono input, nominal full scale +/-1.0, at any rate.
+    name : str
+        Asset name; sanitised into the identifier used for files and symbols.
+    options : StreamOptions, optional
+        Every stream option (default: the defaults).
+    source : dict, optional
+        Provenance recorded in the sidecar.
+    progress : callable, optional
+        Called with the name of each stage as it finishes (see ``STAGES``).
+    **overrides
+        Any field of :class:`~ladderpack.options.StreamOptions` (``bits=12``, ...),
+        replacing the one in `options`.
+
+    Returns
+    -------
+    StreamAsset
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> sig = Signal(np.sin(np.arange(4800) * 0.1), 48000.0)
+    >>> stream_signal(sig, name="beep", bits=8, rate_hz=16000).sample_count
+    4200
+    """
+    opts = _options(options, overrides)
+    if not isinstance(sig, Signal):
+        raise OptionError("expected a Signal", field="samples")
+    check_signal(sig, source=(source or {}).get("file"))
+    if sig.samples.ndim != 1:
+        raise OptionError(
+            "expected a mono signal; downmix or pick a channel first", field="samples"
+        )
+    src = ArraySource(sig)
+    plan = plan_stream(opts, name=name, rate_in_hz=src.rate_hz, frames=src.frames)
+    return finish(plan, process(plan, src, progress=progress), name=name, source=source)
+
+
+def stream_clip(
+    path: str | os.PathLike[str],
+    *,
+    name: str | None = None,
+    options: StreamOptions | None = None,
+    clip: ClipOptions | None = None,
+    progress: Progress | None = None,
+    channel: int | None = None,
+    block_frames: int | None = None,
+    **overrides: Any,
+) -> StreamAsset:
+    """Read a sound file and turn it into a ladder stream.
+
+    Parameters
+    ----------
+    path : str or path-like
+        WAV, FLAC, OGG or AIFF file.
+    name : str, optional
+        Asset name; default the file name without its extension.
+    options : StreamOptions, optional
+        Every stream option (default: the defaults).
+    clip : ClipOptions, optional
+        Channel and block size (or give `channel` and `block_frames`).
+    progress : callable, optional
+        Called with each stage name as it finishes.
+    channel : int, optional
+        Channel to use (0-based); default: mix all channels to mono.
+    block_frames : int, optional
+        Process the clip in blocks of this many frames, in bounded memory
+        (byte-identical output).  Default: blocks of 65536 frames for clips of
+        more than :data:`BLOCK_THRESHOLD` samples that are neither loops nor
+        loudness-normalised, one block otherwise.
+    **overrides
+        Any field of :class:`~ladderpack.options.StreamOptions`.
+
+    Examples
+    --------
+    >>> asset = stream_clip("demo_audio/door_chime.flac", bits=8)  # doctest: +SKIP
+    >>> write_bundle(asset, "out")  # doctest: +SKIP
+    """
+    opts = _options(options, overrides)
+    copts = clip or ClipOptions(channel=channel, block_frames=block_frames)
+    src = FileSource(path, channel=copts.channel)
+    whole = opts.loop or opts.loudness_lufs is not None
+    blk = copts.block_frames
+    if blk is not None and whole and blk < src.frames:
+        raise OptionError(
+            "loops and loudness normalisation need the whole clip at once; drop block_frames",
+            field="block_frames",
+        )
+    if blk is None:
+        big = src.frames * src.channels > BLOCK_THRESHOLD
+        blk = BLOCK_FRAMES if big and not whole else src.frames
+    if progress:
+        progress("read")
+    stem = name if name is not None else os.path.splitext(os.path.basename(src.path))[0]
+    plan = plan_stream(
+        opts,
+        name=stem,
+        rate_in_hz=src.rate_hz,
+        frames=src.frames,
+        channels=src.channels,
+        block_frames=blk,
+    )
+    provenance = {
+        "file": os.path.basename(src.path),
+        "sha256": sha256_file(src.path),
+        "rate_hz": src.rate_hz,
+        "channels": src.channels,
+        "frames": src.frames,
+        "channel": "mix" if copts.channel is None else copts.channel,
+    }
+    return finish(plan, process(plan, src, progress=progress), name=stem, source=provenance)
+
+
+def stream_tone(
+    kind: str,
+    *,
+    name: str | None = None,
+    tone: ToneSpec | None = None,
+    options: StreamOptions | None = None,
+    progress: Progress | None = None,
+    **overrides: Any,
+) -> StreamAsset:
+    """Synthesise a test waveform at the stream's achieved rate and make a bundle of it.
+
+    Parameters
+    ----------
+    kind : str
+        One of :data:`ladderpack.defaults.TONE_KINDS`.
+    name : str, optional
+        Asset name (default: the kind).
+    tone : ToneSpec, optional
+        The waveform's own settings (frequency, level, length, ...).
+    options : StreamOptions, optional
+        Stream options; the clip-only ones (headroom, fades, loudness,
+        crossfade) are refused.  Staircase and DC tones are quantised without
+        dither or shaping so their codes come out exact.
+    progress : callable, optional
+        Called with each stage name as it finishes.
+    **overrides
+        Fields of :class:`~ladderpack.options.ToneSpec` or
+        :class:`~ladderpack.options.StreamOptions`.
+    """
+    from ladderpack.options import option_fields
+    from ladderpack.waves import ToneSynth
+
+    tone_keys = {f.name for f, _i, _h in option_fields(ToneSpec)}
+    tone_kw = {k: v for k, v in overrides.items() if k in tone_keys}
+    if "tones" in tone_kw and tone_kw["tones"] is not None:
+        tone_kw["tones"] = tuple(tuple(t) for t in tone_kw["tones"])
+    if "codes" in tone_kw and tone_kw["codes"] is not None:
+        tone_kw["codes"] = tuple(tone_kw["codes"])
+    spec = ToneSpec(kind=kind, **tone_kw) if tone is None else tone
+    opts = _options(options, {k: v for k, v in overrides.items() if k not in tone_keys})
+    opts.check_for_tone()
+    if spec.kind in EXACT_KINDS:
+        import dataclasses
+
+        opts = dataclasses.replace(opts, dither="none", shaping="none")
+    synth = ToneSynth(spec, bits=opts.bits, loop=opts.loop, seed=opts.seed)
+    plan = plan_stream(opts, name=name or spec.kind, rate_in_hz=None, frames=synth.samples_for)
+    done = process(plan, synth, progress=progress)
+    done.tone = synth.info
+    return finish(plan, done, name=name or spec.kind, source={"file": f"synthesised {spec.kind}"})

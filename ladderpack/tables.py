@@ -1,0 +1,140 @@
+"""Lookup tables for firmware: wavetables with phase increments, correction tables.
+
+One function per table kind, used by ``ladderpack table`` and by manifest builds
+alike.  They return the files as bytes and a typed summary; nothing is written.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ladderpack.emit import table as emit_table
+from ladderpack.emit.names import asset_identifier
+from ladderpack.options import CorrectionTableSpec, WaveTableSpec
+
+__all__ = ["TableResult", "correction_table_files", "wave_table_files"]
+
+
+@dataclass(frozen=True)
+class TableResult:
+    """A rendered table.
+
+    Attributes
+    ----------
+    name : str
+        Safe identifier (file stem and symbol prefix).
+    files : dict of str to bytes
+        File name to content.
+    bits : int
+        Width of the ladder codes in the table.
+    entries : int
+        Table entries.
+    rate_hz : float
+        Achieved stream rate the increments are for (0 for correction tables).
+    in_bits : int
+        Correction tables: bits of the ideal input level (0 for wavetables).
+    distinct_codes : int
+        Different codes the table uses.
+    resolution_hz : float
+        Wavetables: frequency step of the 32-bit phase accumulator.
+    spur_dbc : float
+        Wavetables: worst phase-truncation spur, dBc.
+    increments : list of (float, int, float)
+        Wavetables: (requested Hz, increment, actual Hz).
+    """
+
+    name: str
+    files: dict[str, bytes]
+    bits: int
+    entries: int
+    rate_hz: float = 0.0
+    in_bits: int = 0
+    distinct_codes: int = 0
+    resolution_hz: float = 0.0
+    spur_dbc: float = 0.0
+    increments: list[tuple[float, int, float]] = field(default_factory=list)
+
+    @property
+    def byte_count(self) -> int:
+        """Flash the table takes (one byte per entry up to 8 bits, else two)."""
+        return self.entries * (1 if self.bits <= 8 else 2)
+
+
+def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
+    """A 2^k-entry wavetable in ladder codes plus 32-bit phase increments.
+
+    Parameters
+    ----------
+    name : str
+        Table name (sanitised into the identifier).
+    spec : WaveTableSpec
+        Kind, size, width, level, frequencies and the clock they are planned for.
+    """
+    from ladderpack.clock import plan_clock
+    from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
+
+    plan = plan_clock(
+        spec.rate_hz,
+        sys_clock_hz=int(spec.sys_clock_hz or 0),
+        tolerance_ppm=spec.rate_tolerance_ppm,
+    )
+    rate = float(plan.achieved_rate_hz)
+    tab = wavetable(spec.kind, spec.table_bits, bits=spec.bits, level_dbfs=spec.level_dbfs)
+    incs = phase_increments(list(spec.freqs_hz), rate)
+    spur = truncation_spur_dbc(spec.table_bits)
+    ident = asset_identifier(name)
+    files = emit_table.render_wave_files(
+        ident,
+        tab,
+        incs,
+        table_bits=spec.table_bits,
+        bits=spec.bits,
+        rate_hz=rate,
+        spur_dbc=spur,
+        kind=spec.kind,
+    )
+    return TableResult(
+        ident,
+        files,
+        spec.bits,
+        int(tab.size),
+        rate_hz=rate,
+        distinct_codes=int(np.unique(tab).size),
+        resolution_hz=rate / 2**32,
+        spur_dbc=spur,
+        increments=[(float(f), int(i), float(a)) for f, i, a in incs],
+    )
+
+
+def correction_table_files(name: str, spec: CorrectionTableSpec) -> TableResult:
+    """Map each ideal level to the code whose measured level is nearest.
+
+    Parameters
+    ----------
+    name : str
+        Table name (sanitised into the identifier).
+    spec : CorrectionTableSpec
+        The LevelSet file and the bits of the ideal input level.
+    """
+    from ladderpack.levels import correction_table, load_levels
+
+    lev = load_levels(spec.levels)
+    m = lev.bits if spec.in_bits is None else spec.in_bits
+    tab = correction_table(lev, m)
+    ident = asset_identifier(name)
+    src = os.path.basename(os.fspath(spec.levels))
+    files = {
+        f"{ident}.h": emit_table.render_c_header(
+            ident, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+        f"{ident}.c": emit_table.render_c_source(ident, tab, bits=lev.bits, source=src).encode(),
+        f"{ident}.py": emit_table.render_micropython(
+            ident, tab, in_bits=m, bits=lev.bits, source=src
+        ).encode(),
+    }
+    return TableResult(
+        ident, files, lev.bits, int(tab.size), in_bits=m, distinct_codes=int(np.unique(tab).size)
+    )

@@ -1,0 +1,134 @@
+"""Chips as data: clocks, GPIOs, PIO blocks and memory of each supported target.
+
+Every figure comes from the vendor's C SDK headers in ``../shared/vendor/pico-sdk``
+(which transcribe the datasheets) or from the datasheets themselves, named beside
+each value.  Flash is external to both chips: the sizes given are those of the
+common boards, and ``--flash-bytes`` overrides them.
+
+Examples
+--------
+>>> get_target("rp2350b").gpio_count
+48
+>>> get_target("rp2350b").gpio_window(40, 8)
+16
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ladderpack.errors import OptionError
+
+__all__ = ["TARGETS", "TARGET_NAMES", "Target", "get_target"]
+
+
+@dataclass(frozen=True)
+class Target:
+    """One chip (and package) a bundle can be made for.
+
+    Attributes
+    ----------
+    name : str
+        Our name for it (``--target``).
+    sys_clock_hz : int
+        System clock after the SDK's start-up code (the clock streams are planned
+        for unless ``--sys-clock-hz`` says otherwise).
+    gpio_count : int
+        User GPIOs in bank 0.
+    pio_blocks : int
+        PIO blocks (four state machines each).
+    ram_bytes : int
+        Main SRAM.
+    flash_bytes : int
+        Flash on the common boards (external QSPI, so board-dependent).
+    gpio_bases : tuple of int
+        GPIO numbers a PIO block's 32-pin window can start at (``GPIOBASE``).
+    """
+
+    name: str
+    sys_clock_hz: int
+    gpio_count: int
+    pio_blocks: int
+    ram_bytes: int
+    flash_bytes: int
+    gpio_bases: tuple[int, ...] = (0,)
+
+    def gpio_window(self, first_gpio: int, pins: int, gpio_count: int | None = None) -> int:
+        """The PIO GPIO base whose 32-pin window holds GPIO ``first_gpio`` .. ``+ pins - 1``.
+
+        Parameters
+        ----------
+        first_gpio : int
+            Lowest GPIO used.
+        pins : int
+            Consecutive pins used.
+        gpio_count : int, optional
+            GPIOs on the part, when not the target's own count.
+
+        Returns
+        -------
+        int
+            0 when the pins lie in GPIO 0..31 (always so on a chip without a
+            GPIO base register), else 16.
+
+        Raises
+        ------
+        OptionError
+            When the pins do not exist or no window holds them all.
+        """
+        last = first_gpio + pins - 1
+        count = self.gpio_count if gpio_count is None else gpio_count
+        if first_gpio < 0 or last >= count:
+            raise OptionError(
+                f"a {pins}-bit ladder from GPIO {first_gpio} needs GPIO {first_gpio}..{last}, "
+                f"but the target has GPIO 0..{count - 1}",
+                field="out_base",
+            )
+        for base in self.gpio_bases:
+            if base <= first_gpio and last <= base + 31:
+                return base
+        windows = " or ".join(f"{b}..{b + 31}" for b in self.gpio_bases)
+        raise OptionError(
+            f"GPIO {first_gpio}..{last} straddle the PIO block's 32-pin window (a state "
+            f"machine reaches GPIO {windows}); move the ladder inside one window",
+            field="out_base",
+        )
+
+
+#: RP2040: SYS_CLK_HZ 125 MHz (pico-sdk src/rp2040/hardware_regs/.../platform_defs.h;
+#: RP2040 datasheet, clocks chapter), NUM_BANK0_GPIOS 30 and NUM_PIOS 2 (same header),
+#: SRAM 0x20000000..0x20042000 = 264 KiB (.../regs/addressmap.h), 2 MiB flash on the
+#: common boards (W25Q16JV, from memory of the board datasheets).
+RP2040 = Target("rp2040", 125_000_000, 30, 2, 0x42000, 2 * 1024 * 1024)
+
+#: RP2350, QFN-60 "A" package: SYS_CLK_HZ 150 MHz, NUM_BANK0_GPIOS 30, NUM_PIOS 3
+#: (pico-sdk src/rp2350/hardware_regs/.../platform_defs.h), SRAM 0x20000000..0x20082000
+#: = 520 KiB (.../regs/addressmap.h), 4 MiB flash on the common boards (from memory).
+#: PIO GPIOBASE (offset 0x168) takes 0 or 16 ("Only the values 0 and 16 are supported",
+#: .../regs/pio.h; RP2350 datasheet, PIO chapter, GPIOBASE).
+RP2350A = Target("rp2350", 150_000_000, 30, 3, 0x82000, 4 * 1024 * 1024, (0, 16))
+
+#: RP2350, QFN-80 "B" package: as the A package with NUM_BANK0_GPIOS 48 (same header).
+RP2350B = Target("rp2350b", 150_000_000, 48, 3, 0x82000, 4 * 1024 * 1024, (0, 16))
+
+#: Every target by name.
+TARGETS: dict[str, Target] = {t.name: t for t in (RP2040, RP2350A, RP2350B)}
+
+#: Names accepted by ``--target``.
+TARGET_NAMES = tuple(TARGETS)
+
+
+def get_target(name: str) -> Target:
+    """The :class:`Target` called `name`.
+
+    Raises
+    ------
+    OptionError
+        For an unknown name, listing the known ones.
+    """
+    try:
+        return TARGETS[name]
+    except (KeyError, TypeError):
+        raise OptionError(
+            f"must be one of {', '.join(TARGET_NAMES)}; got {name!r}", field="target"
+        ) from None
