@@ -1,4 +1,4 @@
-"""Flash and RAM budgets: does a stream fit the target, and how long could it be?"""
+"""Flash and RAM budgets: whether a stream fits the target, and how long it could be."""
 
 from __future__ import annotations
 

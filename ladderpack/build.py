@@ -264,8 +264,10 @@ def option_objects(
     file: str | None = None,
     where: str | None = None,
 ) -> list[Any]:
-    """The option-model objects of an asset: ``[StreamOptions, ClipOptions or ToneSpec]``
-    for streams, ``[WaveTableSpec]`` or ``[CorrectionTableSpec]`` for tables.
+    """The option-model objects of an asset.
+
+    ``[StreamOptions, ClipOptions or ToneSpec]`` for streams, ``[WaveTableSpec]`` or
+    ``[CorrectionTableSpec]`` for tables.
 
     Each takes its own keys of `options`; errors name `file` and `where`.
     """
@@ -276,7 +278,7 @@ def option_objects(
         groups = [model.WaveTableSpec if source == "wave" else model.CorrectionTableSpec]
     else:
         groups = [model.StreamOptions, model.ClipOptions if kind == "clip" else model.ToneSpec]
-    out = []
+    out: list[Any] = []
     for cls in groups:
         keys = {f.name for f, _i, _h in model.option_fields(cls)}
         values = {k: v for k, v in options.items() if k in keys}

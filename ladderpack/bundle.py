@@ -1,142 +1,21 @@
-"""A stream asset: every stage's product, ready for the emitters."""
+"""A bundle: the files of a stream asset, rendered by the emitters and written as a set."""
 
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
-from ladderpack.budget import Budget
-from ladderpack.clock import ClockPlan
+from ladderpack.asset import StreamAsset, StreamSummary
 from ladderpack.defaults import EMBED_WORDS_MAX
-from ladderpack.pack import Packed, pack
-from ladderpack.pio import Program, StateMachineConfig
-from ladderpack.quantize import Codes
 
-__all__ = ["EMBED_WORDS_MAX", "StreamAsset", "bundle_files", "bundle_parts", "write_bundle"]
-
-
-@dataclass(frozen=True)
-class StreamAsset:
-    """A finished stream and everything needed to play or reproduce it.
-
-    Attributes
-    ----------
-    name : str
-        Safe identifier (from :func:`ladderpack.emit.names.asset_identifier`);
-        the stem of every output file and the prefix of every C symbol.
-    codes : Codes or None
-        The stream's codes, ramps included, when the input was processed in
-        one block; None when it went in several (only the packed words are
-        kept, so memory stays bounded: :func:`ladderpack.pack.unpack` recovers
-        the codes).
-    packed : Packed
-        FIFO words.
-    plan : ClockPlan
-        Clock divider and cycles per sample.
-    program : Program
-        State-machine program.
-    sm : StateMachineConfig
-        State-machine register values.
-    idle_code : int
-        Code the pins hold before and after the stream.
-    source : dict
-        Where the samples came from (file name without folders, SHA-256,
-        original rate, channels, frames).
-    options : dict
-        Every option that shaped the result.
-    stats : dict
-        Measured facts (gain applied, overloads, ramp and audio samples).
-    intro, outro : Packed, optional
-        For loops: the ramp from the idle code up to mid-scale, played once
-        before the loop, and back down, played once after it.
-    budget : Budget, optional
-        Flash and RAM use on the target.
-    """
-
-    name: str
-    codes: Codes | None
-    packed: Packed
-    plan: ClockPlan
-    program: Program
-    sm: StateMachineConfig
-    idle_code: int
-    source: dict[str, Any] = field(default_factory=dict)
-    options: dict[str, Any] = field(default_factory=dict)
-    stats: dict[str, Any] = field(default_factory=dict)
-    intro: Packed | None = None
-    outro: Packed | None = None
-    budget: Budget | None = None
-
-    @property
-    def idle_pins(self) -> int:
-        """Pin pattern of the idle code (pin order and inversion applied)."""
-        return int(self.packed.layout.to_pins(np.array([self.idle_code]))[0])
-
-    @property
-    def idle_word(self) -> int:
-        """A FIFO word whose every sample slot holds the idle code."""
-        spw = self.packed.layout.samples_per_word
-        return int(
-            pack(
-                Codes(np.full(spw, self.idle_code, np.uint16), self.packed.layout.bits),
-                self.packed.layout,
-            ).words[0]
-        )
-
-    @property
-    def loop(self) -> bool:
-        """True for a repeating stream (its ramps are the separate intro and outro)."""
-        return self.intro is not None
-
-    @property
-    def sample_count(self) -> int:
-        """Samples in the stream, ramps included."""
-        return self.packed.sample_count
-
-    @property
-    def word_count(self) -> int:
-        """32-bit words in the stream."""
-        return int(self.packed.words.shape[0])
-
-    @property
-    def byte_count(self) -> int:
-        """Bytes of packed stream data."""
-        return 4 * self.word_count
-
-    @property
-    def duration_s(self) -> float:
-        """Playing time at the achieved rate, in seconds."""
-        return self.sample_count / float(self.plan.achieved_rate_hz)
-
-    def summary(self) -> dict[str, Any]:
-        """The short human summary as plain data (also the ``--json`` output)."""
-        return {
-            "asset": self.name,
-            "duration_s": round(self.duration_s, 6),
-            "bits": self.packed.layout.bits,
-            "requested_rate_hz": float(self.plan.requested_rate_hz),
-            "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
-            "rate_error_ppm": round(self.plan.error_ppm, 3),
-            "divider": f"{self.plan.div_int}+{self.plan.div_frac}/256",
-            "fractional_divider": self.plan.fractional,
-            "cycles_per_sample": self.plan.cycles_per_sample,
-            "samples": self.sample_count,
-            "words": self.word_count,
-            "bytes": self.byte_count,
-            "overloads": int(self.stats.get("overloads", 0)),
-            "shaping": self.stats.get("shaper", {}).get("name", "none"),
-            "predicted_noise_db": self.stats.get("predicted_noise_db"),
-            "levels": self.stats.get("levels"),
-            "loudness": self.stats.get("loudness"),
-            "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
-            "program": self.program.variant,
-            "loop": self.loop,
-            "flash_share": self.budget.flash_share if self.budget else None,
-            "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
-        }
+__all__ = [
+    "EMBED_WORDS_MAX",
+    "StreamAsset",
+    "StreamSummary",
+    "bundle_files",
+    "bundle_parts",
+    "write_bundle",
+]
 
 
 def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> dict[str, bytes]:
@@ -176,8 +55,10 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
 
 
 def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> dict[str, Any]:
-    """Like :func:`bundle_files`, but the large files stay lazy (byte chunks) and the
-    sidecar is made from the digests of the files written before it.
+    """Like :func:`bundle_files`, but with the large files left lazy.
+
+    The large files are byte chunks and the sidecar is made from the digests of the
+    files written before it.
 
     For :func:`ladderpack.emit.write_files`; the bytes written are identical to
     :func:`bundle_files`.

@@ -6,7 +6,7 @@ import contextlib
 import json
 import os
 import sys
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from typing import Any
 
 import click
@@ -21,7 +21,7 @@ from ladderpack.defaults import (
 from ladderpack.errors import LadderpackError
 
 
-def _print_summary(summary: dict[str, Any], files: list[str] | None = None) -> None:
+def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -> None:
     rate_line = (
         f"{summary['requested_rate_hz']:g} Hz requested, "
         f"{summary['achieved_rate_hz']:.6f} Hz achieved "
@@ -151,9 +151,11 @@ _TEXT_PARSERS: dict[str, Callable[[str | None], Any]] = {
 def model_options(
     cls: type, *, exclude: tuple[str, ...] = (), only: tuple[str, ...] | None = None
 ) -> Callable[[Any], Any]:
-    """Click options for every command-line field of an option class of
-    :mod:`ladderpack.options`: flag, type, default, choices and help all come from
-    the model."""
+    """Click options for every command-line field of an option class.
+
+    Flag, type, default, choices and help all come from the :mod:`ladderpack.options`
+    model.
+    """
     from ladderpack.options import option_fields
 
     decorators = []
@@ -244,8 +246,10 @@ def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
     "--debug", is_flag=True, help="Show the full traceback of an internal error (exit status 1)."
 )
 def cli(debug: bool) -> None:
-    """Turn sound clips into code streams for GPIO resistor-ladder DACs driven by a
-    PIO state machine, with firmware-ready C, MicroPython and binary outputs.
+    """Turn sound clips into code streams for GPIO resistor-ladder DACs.
+
+    The ladder is driven by a PIO state machine; the outputs are firmware-ready C,
+    MicroPython and binary files.
 
     Safety: never drive a speaker or headphones from the ladder directly, keep
     listening levels low, and leave mains-powered gear to qualified people.
@@ -277,7 +281,7 @@ def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: A
     with _stage_progress(f"streaming {os.path.basename(clip)}") as progress:
         asset = stream_clip(clip, name=name, options=opts, clip=copts, progress=progress)
     written = write_bundle(asset, out_dir)
-    summary = asset.summary()
+    summary: dict[str, Any] = dict(asset.summary())
     if as_json:
         summary["files"] = written
         click.echo(json.dumps(summary, indent=2, sort_keys=True))
@@ -298,8 +302,10 @@ def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: A
 @_model_options_lazy("ToneSpec")
 @_stream_options
 def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any) -> None:
-    """Synthesise a test waveform KIND at the stream rate and write the same bundle as
-    'stream'."""
+    """Synthesise a test waveform KIND at the stream rate into a bundle.
+
+    The bundle is the same as 'stream' writes.
+    """
     from ladderpack.bundle import write_bundle
     from ladderpack.options import StreamOptions, ToneSpec
     from ladderpack.stream import stream_tone
@@ -308,7 +314,7 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
     opts = StreamOptions(**model_values(StreamOptions, values))
     asset = stream_tone(kind, name=name, tone=spec, options=opts)
     written = write_bundle(asset, out_dir)
-    summary = asset.summary()
+    summary: dict[str, Any] = dict(asset.summary())
     summary["tone"] = asset.stats["tone"]
     if as_json:
         summary["files"] = written
@@ -511,8 +517,11 @@ def ladder(
     levels_out: str | None,
     as_json: bool,
 ) -> None:
-    """Model an R-2R ladder and check the design: INL/DNL, tolerance spread, pin current,
-    thermal noise, settling and a recommended R range."""
+    """Model an R-2R ladder and check the design.
+
+    Reports INL/DNL, tolerance spread, pin current, thermal noise, settling and a
+    recommended R range.
+    """
     from ladderpack.ladder import DRIVE_SOURCE_OHMS, design_check, ideal_ladder, spice_netlist
     from ladderpack.levels import LevelSet
 
@@ -705,8 +714,10 @@ def table() -> None:
 def table_correction(
     levels_path: str, out_dir: str, name: str, as_json: bool, **values: Any
 ) -> None:
-    """Map each ideal level to the code whose measured level (LEVELS) is nearest, as C
-    and MicroPython arrays, for samples the firmware computes at run time."""
+    """Map each ideal level to the code whose measured level (LEVELS) is nearest.
+
+    Written as C and MicroPython arrays, for samples the firmware computes at run time.
+    """
     from ladderpack.emit import write_files
     from ladderpack.options import CorrectionTableSpec
     from ladderpack.tables import correction_table_files
@@ -747,8 +758,11 @@ def table_correction(
 )
 @click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
 def table_wave(out_dir: str, name: str, as_json: bool, **values: Any) -> None:
-    """A 2^k-entry wavetable in ladder codes plus 32-bit phase-accumulator increments,
-    as C and MicroPython arrays, for firmware that synthesises at run time."""
+    """Make a 2^k-entry wavetable in ladder codes plus phase increments.
+
+    The 32-bit phase-accumulator increments and the table are written as C and
+    MicroPython arrays, for firmware that synthesises at run time.
+    """
     from ladderpack.emit import write_files
     from ladderpack.options import WaveTableSpec
     from ladderpack.tables import wave_table_files
@@ -862,8 +876,10 @@ def sweep(
     csv_name: str,
     out_path: str,
 ) -> None:
-    """Write a MicroPython calibration script that steps the codes and records each level
-    as CSV for 'ladderpack levels'."""
+    """Write a MicroPython calibration script for the ladder.
+
+    It steps the codes and records each level as CSV for 'ladderpack levels'.
+    """
     from ladderpack.emit import sweep as emit_sweep
     from ladderpack.errors import OptionError
     from ladderpack.pio import check_pins
@@ -920,8 +936,11 @@ def sweep(
 def build(
     manifest: str, jobs: int, check: bool, depfile: str | None, only: tuple[str, ...]
 ) -> None:
-    """Build every asset of MANIFEST (default ladderpack.toml), skipping those that are up
-    to date, and write an index of them for the firmware."""
+    """Build every asset of MANIFEST (default ladderpack.toml).
+
+    Assets that are up to date are skipped; an index of all of them is written for
+    the firmware.
+    """
     from ladderpack.build import build as run_build
     from ladderpack.build import load_manifest
     from ladderpack.errors import OptionError
@@ -945,7 +964,7 @@ def build(
         sys.exit(1)
 
 
-def _print_analysis(r: dict[str, Any], label: str) -> None:
+def _print_analysis(r: Mapping[str, Any], label: str) -> None:
     click.echo(
         f"{label}: {r['freq_hz']:.4f} Hz at {r['amplitude_dbfs']:.2f} dBFS"
         + (", A-weighted" if r["a_weighted"] else "")
@@ -1051,8 +1070,10 @@ def measure(
     plot_path: str | None,
     as_json: bool,
 ) -> None:
-    """Analyse a recorded test tone (WAV, FLAC or CSV of samples): IEEE 1241 sine fit,
-    SINAD, THD, THD+N, SFDR, ENOB and noise."""
+    """Analyse a recorded test tone (WAV, FLAC or CSV of samples).
+
+    IEEE 1241 sine fit, SINAD, THD, THD+N, SFDR, ENOB and noise.
+    """
     from ladderpack.audio import load_clip, read_samples_csv
     from ladderpack.measure import analyse
 
@@ -1066,14 +1087,16 @@ def measure(
     else:
         sig = load_clip(capture, channel=channel)
         y, rate = sig.samples, sig.rate_hz
-    r = analyse(
-        y,
-        rate,
-        freq_hz=freq_hz,
-        full_scale=full_scale,
-        harmonics=harmonics,
-        band_hz=_band(rate, band_low_hz, band_high_hz),
-        a_weighted=a_weighting,
+    r: dict[str, Any] = dict(
+        analyse(
+            y,
+            rate,
+            freq_hz=freq_hz,
+            full_scale=full_scale,
+            harmonics=harmonics,
+            band_hz=_band(rate, band_low_hz, band_high_hz),
+            a_weighted=a_weighting,
+        )
     )
     if plot_path:
         from ladderpack.plots import spectrum_png
@@ -1142,8 +1165,10 @@ def preview(
     plot_path: str | None,
     as_json: bool,
 ) -> None:
-    """Render what the ladder will put out for a bundle (its SIDECAR .json) to a WAV file,
-    for listening, and measure it."""
+    """Render what the ladder will put out for a bundle (its SIDECAR .json).
+
+    The result is a WAV file for listening, and is measured.
+    """
     import io
 
     import soundfile

@@ -36,7 +36,6 @@ __all__ = [
     "kaiser_beta",
     "loop_crossfade",
     "loop_rate",
-    "normalise_loudness",
     "normalise_peak",
     "remove_dc",
     "resample",
@@ -445,51 +444,6 @@ def normalise_peak(sig: Signal, *, headroom_db: float = 1.0) -> tuple[Signal, fl
         return sig, 0.0
     gain = dbfs_to_amplitude(-headroom_db) / peak
     return Signal(sig.samples * gain, sig.rate_hz), 20.0 * math.log10(gain)
-
-
-def normalise_loudness(
-    sig: Signal, *, target_lufs: float, true_peak_dbtp: float = -1.0
-) -> tuple[Signal, float, dict[str, float]]:
-    """Scale to an integrated loudness (ITU-R BS.1770-4) under a true-peak ceiling.
-
-    The gain that reaches `target_lufs` is reduced if the 4x-oversampled true
-    peak would exceed `true_peak_dbtp`, so the target never clips.
-
-    Returns
-    -------
-    (Signal, float, dict)
-        The scaled signal, the gain in dB, and the measured loudness and true
-        peak before and after (``lufs_in``, ``lufs_out``, ``true_peak_in_dbtp``,
-        ``true_peak_out_dbtp``, ``limited_by_true_peak``).
-    """
-    from ladderpack.measure import integrated_loudness
-    from ladderpack.measure import true_peak_dbtp as measure_true_peak
-
-    for value, field in ((target_lufs, "loudness_lufs"), (true_peak_dbtp, "true_peak_dbtp")):
-        if not math.isfinite(value) or value > 0:
-            raise OptionError(f"must be a finite level <= 0, got {value!r}", field=field)
-    lufs = integrated_loudness(sig.samples, sig.rate_hz)
-    if not math.isfinite(lufs):
-        raise OptionError(
-            "the clip is silent (every block below the -70 LKFS gate)", field="loudness_lufs"
-        )
-    peak = measure_true_peak(sig.samples, sig.rate_hz)
-    gain = target_lufs - lufs
-    limited = peak + gain > true_peak_dbtp
-    if limited:
-        gain = true_peak_dbtp - peak
-    out = Signal(sig.samples * 10 ** (gain / 20), sig.rate_hz)
-    return (
-        out,
-        gain,
-        {
-            "lufs_in": lufs,
-            "lufs_out": lufs + gain,
-            "true_peak_in_dbtp": peak,
-            "true_peak_out_dbtp": peak + gain,
-            "limited_by_true_peak": limited,
-        },
-    )
 
 
 def raised_cosine(n: int) -> np.ndarray:

@@ -9,10 +9,10 @@
 from __future__ import annotations
 
 import os
-from typing import Any
 
 import numpy as np
 
+from ladderpack.asset import StreamSummary
 from ladderpack.audio import Signal
 from ladderpack.bundle import write_bundle
 from ladderpack.errors import AudioFileError
@@ -29,7 +29,7 @@ def bench_sine(rate_hz: float = 48000.0, freq_hz: float = 1000.0, seconds: float
 
 def run_demo(
     out_dir: str, *, clips_dir: str = "demo_audio"
-) -> list[tuple[dict[str, Any], list[str]]]:
+) -> list[tuple[StreamSummary, list[str]]]:
     """Build every demo bundle into `out_dir`; return (summary, files) pairs."""
     results = []
     for clip in ("door_chime.flac", "frost_warning.flac"):

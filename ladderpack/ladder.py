@@ -16,11 +16,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from typing import TypedDict
 
 import numpy as np
 
 from ladderpack.errors import OptionError
-from ladderpack.quantize import check_bits
+from ladderpack.options import check_bits
 
 __all__ = [
     "BOLTZMANN",
@@ -330,7 +331,75 @@ def spice_netlist(
     return "\n".join(lines)
 
 
-def _summary(volts: np.ndarray) -> dict[str, float | bool]:
+class LinearityFigures(TypedDict):
+    """The largest linearity errors of one level table, LSB."""
+
+    max_abs_inl_endpoint_lsb: float
+    max_abs_inl_best_fit_lsb: float
+    max_abs_dnl_lsb: float
+    min_dnl_lsb: float
+    monotonic: bool
+
+
+class WorstCase(TypedDict):
+    """First-order worst case over the tolerance band, LSB."""
+
+    max_abs_inl_endpoint_lsb: float
+    min_dnl_lsb: float
+    max_abs_dnl_lsb: float
+    monotonic: bool
+
+
+class Percentiles(TypedDict):
+    """Percentiles and maximum of a Monte Carlo figure."""
+
+    p50: float
+    p90: float
+    p99: float
+    max: float
+
+
+class MonteCarlo(TypedDict):
+    """Spread of the linearity over random resistor draws."""
+
+    trials: int
+    max_abs_inl_best_fit_lsb: Percentiles
+    max_abs_dnl_lsb: Percentiles
+    monotonic_share: float
+
+
+class DesignReport(TypedDict):
+    """What :func:`design_check` found (units in the key names)."""
+
+    bits: int
+    r_ohms: float
+    tolerance: float
+    distribution: str
+    source_high_ohms: float
+    source_low_ohms: float
+    drive_ma: int
+    supply_volts: float
+    load_ohms: float | None
+    lsb_volts: float
+    nominal: LinearityFigures
+    ideal_sources: LinearityFigures
+    worst_case: WorstCase
+    monte_carlo: MonteCarlo
+    pin_current_max_a: float
+    pin_current_ok: bool
+    supply_current_max_a: float
+    output_ohms_max: float
+    johnson_noise_volts: float
+    johnson_noise_lsb: float
+    settling_tau_s: float
+    settling_half_lsb_s: float
+    sample_period_s: float
+    settles_in_one_sample: bool
+    recommended_r_ohms: list[float] | None
+    recommended_series: str
+
+
+def _summary(volts: np.ndarray) -> LinearityFigures:
     from ladderpack.levels import linearity
 
     lin = linearity(volts)
@@ -363,7 +432,7 @@ def design_check(
     split_legs: bool = False,
     series: str = "E96",
     inl_share_lsb: float = 0.5,
-) -> dict[str, object]:
+) -> DesignReport:
     """Check a ladder design: linearity, tolerance spread, pin current, noise, settling, R range.
 
     Parameters
@@ -441,11 +510,10 @@ def design_check(
         for _ in range(trials)
     ]
 
-    def pct(key: str) -> dict[str, float]:
-        vals = np.array([float(m[key]) for m in mc])
-        return {f"p{q}": float(np.percentile(vals, q)) for q in (50, 90, 99)} | {
-            "max": float(vals.max())
-        }
+    def pct(key: str) -> Percentiles:
+        vals = np.array([float(m[key]) for m in mc])  # type: ignore[literal-required]
+        p50, p90, p99 = (float(np.percentile(vals, q)) for q in (50, 90, 99))
+        return {"p50": p50, "p90": p90, "p99": p99, "max": float(vals.max())}
 
     # First-order worst case over tolerance: every resistor pushed to the end of its band
     # that increases the error, from finite-difference sensitivities of the levels.
@@ -505,7 +573,7 @@ def design_check(
     }
 
 
-def _worst_case(ladder: Ladder, tolerance: float) -> dict[str, float | bool]:
+def _worst_case(ladder: Ladder, tolerance: float) -> WorstCase:
     """First-order worst case of INL and DNL over the resistor tolerance band.
 
     The levels are linearised around nominal (finite differences per resistor), and

@@ -13,12 +13,12 @@ import json
 import math
 import os
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, TypedDict
 
 import numpy as np
 
 from ladderpack.errors import LadderpackError, OptionError
-from ladderpack.quantize import check_bits
+from ladderpack.options import check_bits
 
 __all__ = [
     "FORMAT",
@@ -122,12 +122,28 @@ def load_levels(path: str | os.PathLike[str]) -> LevelSet:
         raise LadderpackError(str(exc), file=name, field="volts") from None
 
 
-def linearity(volts: np.ndarray) -> dict[str, Any]:
+class Linearity(TypedDict):
+    """Static linearity of a level table (IEEE Std 1241 definitions), in LSB."""
+
+    lsb_volts: float
+    dnl: np.ndarray
+    inl_endpoint: np.ndarray
+    inl_best_fit: np.ndarray
+    max_abs_dnl: float
+    min_dnl: float
+    max_abs_inl_endpoint: float
+    max_abs_inl_best_fit: float
+    monotonic: bool
+    non_monotonic_steps: list[int]
+    missing_codes: int
+
+
+def linearity(volts: np.ndarray) -> Linearity:
     """INL, DNL and monotonicity of a level table, in LSB.
 
     Returns
     -------
-    dict
+    Linearity
         ``lsb_volts`` (endpoint), ``dnl`` and ``inl_endpoint``/``inl_best_fit``
         arrays, their maxima ``max_abs_dnl``, ``max_abs_inl_endpoint``,
         ``max_abs_inl_best_fit``, ``min_dnl``, ``monotonic`` and the codes whose

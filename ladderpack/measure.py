@@ -21,11 +21,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TypedDict
 
 import numpy as np
 
 from ladderpack.errors import OptionError
+from ladderpack.loudness import integrated_loudness, k_weighting, true_peak_dbtp
 
 __all__ = [
     "SineFit",
@@ -128,6 +129,28 @@ def _fold(f: float, rate_hz: float) -> float:
     return rate_hz - f if f > rate_hz / 2 else f
 
 
+class ToneAnalysis(TypedDict):
+    """Dynamic metrics of a test tone (IEEE Std 1241 definitions); see :func:`analyse`."""
+
+    freq_hz: float
+    amplitude: float
+    amplitude_dbfs: float
+    offset: float
+    phase_rad: float
+    sinad_db: float
+    snr_db: float
+    thd_db: float
+    thd_n_db: float
+    sfdr_db: float
+    enob_bits: float
+    enob_sine_bits: float
+    noise_dbfs: float
+    harmonics_dbc: list[float]
+    band_hz: list[float]
+    a_weighted: bool
+    window: str
+
+
 def analyse(
     y: np.ndarray,
     rate_hz: float,
@@ -137,7 +160,7 @@ def analyse(
     harmonics: int = 10,
     band_hz: tuple[float, float] | None = None,
     a_weighted: bool = False,
-) -> dict[str, Any]:
+) -> ToneAnalysis:
     """Dynamic metrics of a captured test tone.
 
     Parameters
@@ -236,77 +259,3 @@ def analyse(
         "window": "hann (power-corrected) for band-limited, weighted and SFDR figures; "
         "time-domain fit residual otherwise",
     }
-
-
-# BS.1770 K-weighting from the analog prototype (B. De Man's re-derivation, which
-# reproduces the standard's 48 kHz coefficients; REFERENCES.md section 6).
-_SHELF = (1681.974450955533, 3.999843853973347, 0.7071752369554196)
-_HIGHPASS = (38.13547087602444, 0.5003270373238773)
-
-
-def k_weighting(rate_hz: float) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
-    """The two K-weighting biquads ``((b, a), (b, a))`` for a sample rate."""
-    f0, g, q = _SHELF
-    k = math.tan(math.pi * f0 / rate_hz)
-    vh = 10 ** (g / 20)
-    vb = vh**0.4996667741545416
-    a0 = 1 + k / q + k * k
-    b_shelf = np.array(
-        [(vh + vb * k / q + k * k) / a0, 2 * (k * k - vh) / a0, (vh - vb * k / q + k * k) / a0]
-    )
-    a_shelf = np.array([1.0, 2 * (k * k - 1) / a0, (1 - k / q + k * k) / a0])
-    f0, q = _HIGHPASS
-    k = math.tan(math.pi * f0 / rate_hz)
-    a0 = 1 + k / q + k * k
-    b_hp = np.array([1.0, -2.0, 1.0])
-    a_hp = np.array([1.0, 2 * (k * k - 1) / a0, (1 - k / q + k * k) / a0])
-    return (b_shelf, a_shelf), (b_hp, a_hp)
-
-
-def integrated_loudness(x: np.ndarray, rate_hz: float) -> float:
-    """Integrated loudness in LUFS (ITU-R BS.1770-4), channels in columns (L, R, C: G = 1).
-
-    Returns ``-inf`` when every block is below the absolute gate.
-    """
-    from scipy import signal as sps
-
-    data = np.asarray(x, dtype=np.float64)
-    if data.ndim == 1:
-        data = data[:, None]
-    (bs, as_), (bh, ah) = k_weighting(rate_hz)
-    z = sps.lfilter(bh, ah, sps.lfilter(bs, as_, data, axis=0), axis=0)
-    block = round(0.4 * rate_hz)
-    hop = round(0.1 * rate_hz)
-    if data.shape[0] < block:
-        raise OptionError("need at least 400 ms for integrated loudness", field="samples")
-    starts = range(0, data.shape[0] - block + 1, hop)
-    sq = np.cumsum(np.vstack([np.zeros((1, z.shape[1])), z**2]), axis=0)
-    ms = np.array([(sq[s + block] - sq[s]) / block for s in starts])  # (blocks, channels)
-    power = ms.sum(axis=1)
-    with np.errstate(divide="ignore"):
-        lk = -0.691 + 10 * np.log10(power)
-    keep = lk > -70.0
-    if not np.any(keep):
-        return -math.inf
-    rel = -0.691 + 10 * math.log10(float(np.mean(power[keep]))) - 10.0
-    keep &= lk > rel
-    return -0.691 + 10 * math.log10(float(np.mean(power[keep])))
-
-
-def true_peak_dbtp(x: np.ndarray, rate_hz: float) -> float:
-    """True peak in dBTP: the largest sample after 4x oversampling (BS.1770-4 Annex 2).
-
-    Oversampling uses the project's windowed-sinc resampler, far steeper than the
-    Annex's example 48-tap filter.
-    """
-    from ladderpack.audio import Signal
-    from ladderpack.conform import resample
-
-    data = np.asarray(x, dtype=np.float64)
-    if data.ndim == 1:
-        data = data[:, None]
-    peak = 0.0
-    for ch in range(data.shape[1]):
-        up = resample(Signal(data[:, ch], float(rate_hz)), 4 * float(rate_hz), bits=16).samples
-        peak = max(peak, float(np.max(np.abs(up))), float(np.max(np.abs(data[:, ch]))))
-    return 20 * math.log10(max(peak, 1e-300))

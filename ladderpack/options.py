@@ -50,6 +50,7 @@ __all__ = [
     "StreamOptions",
     "ToneSpec",
     "WaveTableSpec",
+    "check_bits",
     "from_mapping",
     "manifest_types",
     "option_fields",
@@ -407,15 +408,12 @@ class StreamOptions(_Model):
         ):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, value)
-        if self.levels is not None and not isinstance(self.levels, str | os.PathLike):
-            from ladderpack.levels import LevelSet
-
-            if not isinstance(self.levels, LevelSet):
-                raise OptionError(
-                    f"must be a LevelSet or the path of its JSON file, got "
-                    f"{type(self.levels).__name__}",
-                    field="levels",
-                )
+        lv = self.levels
+        if not (lv is None or isinstance(lv, str | os.PathLike) or hasattr(lv, "volts")):
+            raise OptionError(
+                f"must be a LevelSet or the path of its JSON file, got {type(lv).__name__}",
+                field="levels",
+            )
         top = (1 << self.bits) - 1
         if self.idle_code > top:
             raise OptionError(
@@ -657,6 +655,19 @@ class CorrectionTableSpec(_Model):
             raise OptionError("a correction table needs a levels file", field="levels")
 
 
+def check_bits(bits: int) -> int:
+    """Validate a code width; return it as int.
+
+    Raises
+    ------
+    OptionError
+        Unless `bits` is a whole number 1..16.
+    """
+    if isinstance(bits, bool) or int(bits) != bits or not 1 <= int(bits) <= 16:
+        raise OptionError(f"must be a whole number 1..16, got {bits!r}", field="bits")
+    return int(bits)
+
+
 def manifest_types(cls: type) -> dict[str, tuple[type, ...]]:
     """TOML value types each option of `cls` accepts in a manifest."""
     out: dict[str, tuple[type, ...]] = {}
@@ -689,5 +700,5 @@ def from_mapping(
     try:
         return cls(**values)
     except LadderpackError as exc:
-        field_name = ".".join(p for p in (where, exc.field) if p) or None
-        raise type(exc)(exc.message, file=file or exc.file, field=field_name) from None
+        named = ".".join(p for p in (where, exc.field) if p) or None
+        raise type(exc)(exc.message, file=file or exc.file, field=named) from None

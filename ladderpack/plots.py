@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
@@ -33,7 +34,7 @@ def _png(fig: Any) -> bytes:
 
 
 def spectrum_png(
-    y: np.ndarray, rate_hz: float, analysis: dict[str, Any], *, full_scale: float = 1.0
+    y: np.ndarray, rate_hz: float, analysis: Mapping[str, Any], *, full_scale: float = 1.0
 ) -> bytes:
     """Spectrum (Hann window, dBFS) with the fundamental and harmonics marked."""
     plt = _pyplot()

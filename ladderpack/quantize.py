@@ -21,6 +21,7 @@ from ladderpack.audio import Signal, check_signal
 from ladderpack.conform import raised_cosine
 from ladderpack.defaults import DITHERS
 from ladderpack.errors import OptionError
+from ladderpack.options import check_bits
 
 if TYPE_CHECKING:
     from ladderpack.levels import LevelSet
@@ -91,19 +92,6 @@ class QuantizeReport:
     seed: int
     overloads: int
     resets: int = 0
-
-
-def check_bits(bits: int) -> int:
-    """Validate a code width; return it as int.
-
-    Raises
-    ------
-    OptionError
-        Unless `bits` is a whole number 1..16.
-    """
-    if isinstance(bits, bool) or int(bits) != bits or not 1 <= int(bits) <= 16:
-        raise OptionError(f"must be a whole number 1..16, got {bits!r}", field="bits")
-    return int(bits)
 
 
 def signal_to_lsb(x: np.ndarray, bits: int) -> np.ndarray:
@@ -238,8 +226,10 @@ def with_idle_ramps(audio: Codes, *, idle_code: int = 0, ramp_samples: int) -> C
 
 
 class BlockQuantizer:
-    """:func:`quantize` fed in blocks: the dither generator and the error filter's
-    state carry across calls, so the codes are bit-identical to one whole call.
+    """:func:`quantize` fed in blocks.
+
+    The dither generator and the error filter's state carry across calls, so the
+    codes are bit-identical to one whole call.
 
     Parameters are those of :func:`quantize` (without the signal).
     """

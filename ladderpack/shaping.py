@@ -241,8 +241,10 @@ def _grid(rate_hz: float) -> np.ndarray:
 
 
 def _lpc(spectrum: np.ndarray, order: int) -> np.ndarray:
-    """Prediction-error filter [1, a1..aK] of a process with power spectrum `spectrum`
-    sampled on the uniform half-band grid (autocorrelation method)."""
+    """Prediction-error filter [1, a1..aK] of a process with a given power spectrum.
+
+    `spectrum` is sampled on the uniform half-band grid (autocorrelation method).
+    """
     k = np.arange(order + 1)
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
     r = (spectrum[None, :] * np.cos(k[:, None] * omega[None, :])).mean(axis=1)

@@ -27,14 +27,15 @@ from typing import Any
 import numpy as np
 
 from ladderpack import conform
+from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
-from ladderpack.bundle import StreamAsset
 from ladderpack.clock import ClockPlan, plan_clock
 from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
+from ladderpack.loudness import normalise_loudness
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
 from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
@@ -378,10 +379,10 @@ def _conformed(plan: StreamPlan, src: MonoSource, out: Processed) -> Iterator[np
             if y.size:
                 yield y
 
-    rate = float(Fraction(rate_out))
+    out_hz = float(Fraction(rate_out))
     if opts.loudness_lufs is not None:  # loudness needs the whole clip: one block
-        x = Signal(np.concatenate(list(resampled())), rate)
-        x, out.gain_db, out.loudness = conform.normalise_loudness(
+        x = Signal(np.concatenate(list(resampled())), out_hz)
+        x, out.gain_db, out.loudness = normalise_loudness(
             x, target_lufs=opts.loudness_lufs, true_peak_dbtp=opts.true_peak_dbtp
         )
         yield conform.apply_fades(x, fade_ms=opts.fade_ms).samples
@@ -392,7 +393,7 @@ def _conformed(plan: StreamPlan, src: MonoSource, out: Processed) -> Iterator[np
         n_out += y.size
     gain = conform.dbfs_to_amplitude(-opts.headroom_db) / peak if peak > 0 else None
     out.gain_db = 20 * math.log10(gain) if gain is not None else 0.0
-    n_fade = min(round(opts.fade_ms * 1e-3 * rate), n_out // 2)
+    n_fade = min(round(opts.fade_ms * 1e-3 * out_hz), n_out // 2)
     w = conform.raised_cosine(n_fade)
     pos = 0
     for y in resampled():

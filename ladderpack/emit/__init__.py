@@ -94,7 +94,7 @@ def _cleanup(temps: list[tuple[str, str]]) -> None:
             os.unlink(tmp)
 
 
-def _remove_stale_parts(folder: str, files: Mapping[str, bytes]) -> None:
+def _remove_stale_parts(folder: str, files: Mapping[str, object]) -> None:
     """Delete temporary files a killed earlier run left for these outputs."""
     try:
         entries = os.listdir(folder)

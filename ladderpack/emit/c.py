@@ -13,7 +13,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from ladderpack._version import __version__
-from ladderpack.bundle import StreamAsset
+from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 

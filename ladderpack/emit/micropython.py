@@ -9,7 +9,7 @@ read in chunks; very short streams are embedded as a literal instead.
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.bundle import StreamAsset
+from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 from ladderpack.pio import Instruction

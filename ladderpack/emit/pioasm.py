@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.bundle import StreamAsset
+from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 
 __all__ = ["render"]

@@ -7,7 +7,7 @@ import json
 from collections.abc import Mapping
 
 from ladderpack._version import __version__
-from ladderpack.bundle import StreamAsset
+from ladderpack.asset import StreamAsset
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "render"]
 

@@ -1,0 +1,168 @@
+"""A finished stream: every stage's product, ready for the emitters.
+
+A data type only: it knows no DSP and no files.  :mod:`ladderpack.stream` makes it,
+the emitters in :mod:`ladderpack.emit` render it, :mod:`ladderpack.bundle` writes them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, TypedDict
+
+import numpy as np
+
+from ladderpack.budget import Budget
+from ladderpack.clock import ClockPlan
+from ladderpack.pack import Packed, pack
+from ladderpack.pio import Program, StateMachineConfig
+from ladderpack.quantize import Codes
+
+__all__ = ["StreamAsset", "StreamSummary"]
+
+
+class StreamSummary(TypedDict):
+    """The short summary of a stream (also the ``--json`` output); units in the names."""
+
+    asset: str
+    duration_s: float
+    bits: int
+    requested_rate_hz: float
+    achieved_rate_hz: float
+    rate_error_ppm: float
+    divider: str
+    fractional_divider: bool
+    cycles_per_sample: int
+    samples: int
+    words: int
+    bytes: int
+    overloads: int
+    shaping: str
+    predicted_noise_db: dict[str, float] | None
+    levels: dict[str, Any] | None
+    loudness: dict[str, Any] | None
+    predicted_full_scale_sine: dict[str, float] | None
+    program: str
+    loop: bool
+    flash_share: float | None
+    max_duration_s: float | None
+
+
+@dataclass(frozen=True)
+class StreamAsset:
+    """A finished stream and everything needed to play or reproduce it.
+
+    Attributes
+    ----------
+    name : str
+        Safe identifier (from :func:`ladderpack.emit.names.asset_identifier`);
+        the stem of every output file and the prefix of every C symbol.
+    codes : Codes or None
+        The stream's codes, ramps included, when the input was processed in
+        one block; None when it went in several (only the packed words are
+        kept, so memory stays bounded: :func:`ladderpack.pack.unpack` recovers
+        the codes).
+    packed : Packed
+        FIFO words.
+    plan : ClockPlan
+        Clock divider and cycles per sample.
+    program : Program
+        State-machine program.
+    sm : StateMachineConfig
+        State-machine register values.
+    idle_code : int
+        Code the pins hold before and after the stream.
+    source : dict
+        Where the samples came from (file name without folders, SHA-256,
+        original rate, channels, frames).
+    options : dict
+        Every option that shaped the result.
+    stats : dict
+        Measured facts (gain applied, overloads, ramp and audio samples).
+    intro, outro : Packed, optional
+        For loops: the ramp from the idle code up to mid-scale, played once
+        before the loop, and back down, played once after it.
+    budget : Budget, optional
+        Flash and RAM use on the target.
+    """
+
+    name: str
+    codes: Codes | None
+    packed: Packed
+    plan: ClockPlan
+    program: Program
+    sm: StateMachineConfig
+    idle_code: int
+    source: dict[str, Any] = field(default_factory=dict)
+    options: dict[str, Any] = field(default_factory=dict)
+    stats: dict[str, Any] = field(default_factory=dict)
+    intro: Packed | None = None
+    outro: Packed | None = None
+    budget: Budget | None = None
+
+    @property
+    def idle_pins(self) -> int:
+        """Pin pattern of the idle code (pin order and inversion applied)."""
+        return int(self.packed.layout.to_pins(np.array([self.idle_code]))[0])
+
+    @property
+    def idle_word(self) -> int:
+        """A FIFO word whose every sample slot holds the idle code."""
+        spw = self.packed.layout.samples_per_word
+        return int(
+            pack(
+                Codes(np.full(spw, self.idle_code, np.uint16), self.packed.layout.bits),
+                self.packed.layout,
+            ).words[0]
+        )
+
+    @property
+    def loop(self) -> bool:
+        """True for a repeating stream (its ramps are the separate intro and outro)."""
+        return self.intro is not None
+
+    @property
+    def sample_count(self) -> int:
+        """Samples in the stream, ramps included."""
+        return self.packed.sample_count
+
+    @property
+    def word_count(self) -> int:
+        """32-bit words in the stream."""
+        return int(self.packed.words.shape[0])
+
+    @property
+    def byte_count(self) -> int:
+        """Bytes of packed stream data."""
+        return 4 * self.word_count
+
+    @property
+    def duration_s(self) -> float:
+        """Playing time at the achieved rate, in seconds."""
+        return self.sample_count / float(self.plan.achieved_rate_hz)
+
+    def summary(self) -> StreamSummary:
+        """The short human summary as plain data (also the ``--json`` output)."""
+        return {
+            "asset": self.name,
+            "duration_s": round(self.duration_s, 6),
+            "bits": self.packed.layout.bits,
+            "requested_rate_hz": float(self.plan.requested_rate_hz),
+            "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
+            "rate_error_ppm": round(self.plan.error_ppm, 3),
+            "divider": f"{self.plan.div_int}+{self.plan.div_frac}/256",
+            "fractional_divider": self.plan.fractional,
+            "cycles_per_sample": self.plan.cycles_per_sample,
+            "samples": self.sample_count,
+            "words": self.word_count,
+            "bytes": self.byte_count,
+            "overloads": int(self.stats.get("overloads", 0)),
+            "shaping": self.stats.get("shaper", {}).get("name", "none"),
+            "predicted_noise_db": self.stats.get("predicted_noise_db"),
+            "levels": self.stats.get("levels"),
+            "loudness": self.stats.get("loudness"),
+            "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
+            "program": self.program.variant,
+            "loop": self.loop,
+            "flash_share": self.budget.flash_share if self.budget else None,
+            "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
+        }
