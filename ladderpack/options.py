@@ -172,7 +172,9 @@ def _check_value(name: str, value: Any, hint: Any, info: OptionInfo) -> Any:
             kind = "a whole number" if isinstance(value, int) else "a number"
             unit = f" {info.unit}" if info.unit else ""
             fmt = (lambda v: f"{int(v)}") if isinstance(value, int) else (lambda v: f"{v:g}")
-            if lo is not None and hi is not None:
+            if lo is not None and hi is not None and info.lo_open:
+                rng = f"> {fmt(lo)} and <= {fmt(hi)}{unit}"
+            elif lo is not None and hi is not None:
                 rng = f"{fmt(lo)}..{fmt(hi)}{unit}"
             elif lo is not None:
                 rng = f"{'>' if info.lo_open else '>='} {fmt(lo)}{unit}"

@@ -69,6 +69,16 @@ def _touch_later(path: Path) -> None:
     os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns + 2_000_000_000))
 
 
+def _touch_newer_than_all(path: Path, tree: Path) -> None:
+    """Make `path` newer than every other file of `tree`, and all of them older than
+    now, whatever time the builds so far took (no clock arithmetic on their speed)."""
+    now = time.time_ns()
+    for p in tree.rglob("*"):
+        if p.is_file():
+            os.utime(p, ns=(now - 20_000_000_000, now - 20_000_000_000))
+    os.utime(path, ns=(now - 10_000_000_000, now - 10_000_000_000))
+
+
 def test_incremental_builds(project: Path) -> None:
     built, _ = _build(project)
     assert built == ["chime", "speech", "tone", "table"]
@@ -201,8 +211,8 @@ def test_make_with_depfile(tmp_path: Path) -> None:
     assert first.returncode == 0, first.stderr
     second = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
     assert "is up to date" in second.stdout and "ladderpack build" not in second.stdout
-    time.sleep(0.01)
-    _touch_later(tmp_path / "demo_audio" / "door_chime.flac")
+    # Newer than everything make has seen, however long the builds took.
+    _touch_newer_than_all(tmp_path / "demo_audio" / "door_chime.flac", tmp_path)
     third = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
     runs = [ln for ln in third.stdout.splitlines() if ln.startswith("ladderpack build")]
     assert runs == ["ladderpack build ladderpack.toml --only door_chime --depfile generated/deps.d"]
@@ -238,3 +248,41 @@ def test_cmake_example(tmp_path: Path) -> None:
         "door_chime",
         "sine_table",
     ]
+
+
+def _manifest(tmp_path: Path, body: str) -> Path:
+    shutil.copy(REPO / "demo_audio" / "door_chime.flac", tmp_path / "chime.flac")
+    path = tmp_path / "ladderpack.toml"
+    path.write_text(body)
+    return path
+
+
+def test_manifest_takes_every_stream_option_from_the_model(tmp_path: Path) -> None:
+    # loudness_lufs (a float with no default) and target were refused before the option
+    # model; any StreamOptions field is a manifest key now.
+    m = load_manifest(
+        _manifest(
+            tmp_path,
+            '[defaults]\ntarget = "rp2350"\n\n[[asset]]\nname = "a"\nclip = "chime.flac"\n'
+            "loudness_lufs = -18.0\ntrue_peak_dbtp = -2\n",
+        )
+    )
+    assert m.assets[0].options["loudness_lufs"] == -18.0
+    assert m.flash_bytes == 4 * 1024 * 1024  # the rp2350 target's default
+
+
+@pytest.mark.parametrize(
+    ("asset", "message"),
+    [
+        ('clip = "chime.flac"\nbits = 40', "asset 'a'.bits: must be a whole number 1..16"),
+        ('clip = "chime.flac"\ncrossfade_ms = 5.0', "asset 'a'.crossfade_ms: applies only"),
+        ('tone = "sine"\nheadroom_db = 3.0', "asset 'a'.headroom_db: does not apply"),
+        ('tone = "sine"\nseconds = -1.0', "asset 'a'.seconds: must be a number > 0"),
+        ('table = "wave"\ntable_bits = 1', "asset 'a'.table_bits: must be a whole number 2..16"),
+    ],
+)
+def test_manifest_values_checked_by_the_model(tmp_path: Path, asset: str, message: str) -> None:
+    path = _manifest(tmp_path, f'[[asset]]\nname = "a"\n{asset}\n')
+    with pytest.raises(LadderpackError) as info:
+        load_manifest(path)
+    assert str(info.value).startswith(f"{path}: {message}"), str(info.value)
