@@ -201,6 +201,7 @@ def _ladderpack_env() -> dict[str, str]:
     return env
 
 
+@pytest.mark.slow
 def test_make_with_depfile(tmp_path: Path) -> None:
     # Real GNU make reads the depfile: the second run does nothing, and touching the clip
     # remakes exactly that asset (and the program that links it).
@@ -223,6 +224,7 @@ def test_make_with_depfile(tmp_path: Path) -> None:
     assert "door_chime" in table and "sine_table" in table
 
 
+@pytest.mark.slow
 def test_cmake_example(tmp_path: Path) -> None:
     # Real CMake (Debian package cmake) configures and builds the example.
     cmake = require_tool("cmake")

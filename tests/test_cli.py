@@ -169,6 +169,7 @@ def test_clock_command(tmp_path: Path) -> None:
     assert (plan["div_int"], plan["div_frac"]) == (2834, 120)
 
 
+@pytest.mark.slow
 def test_demo_runs_end_to_end(tmp_path: Path) -> None:
     res = run("demo", str(tmp_path / "demo"))
     assert res.returncode == 0, res.stderr

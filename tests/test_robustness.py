@@ -131,6 +131,7 @@ def test_full_disk_leaves_earlier_outputs(tmp_path: Path, earlier: Path) -> None
     assert _snapshot(earlier) == before
 
 
+@pytest.mark.slow
 def test_killed_process_leaves_earlier_outputs(tmp_path: Path, earlier: Path) -> None:
     # Kill the process mid-run; the earlier bundle must be untouched, and the next run
     # removes any temporary files the killed one left.
@@ -175,6 +176,7 @@ def res_ok(res: subprocess.CompletedProcess[str]) -> bool:
     return res.returncode == 0
 
 
+@pytest.mark.slow
 def test_ctrl_c_is_clean(tmp_path: Path, earlier: Path) -> None:
     clip = _wav(tmp_path / "long.wav", 0.3 * np.sin(np.arange(2_000_000) / 7.0))
     before = _snapshot(earlier)
