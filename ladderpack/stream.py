@@ -206,6 +206,40 @@ def _memory_bytes(
     return total
 
 
+def _plan_levels(opts: StreamOptions) -> LevelSet | None:
+    """The LevelSet the stream quantises against, checked against its width."""
+    if opts.levels is None:
+        return None
+    levels = opts.levels if isinstance(opts.levels, LevelSet) else load_levels(opts.levels)
+    if levels.bits != opts.bits:
+        raise OptionError(
+            f"the levels file is for {levels.bits} bits but the stream is {opts.bits}-bit",
+            field="levels",
+        )
+    return levels
+
+
+def _check_memory(
+    opts: StreamOptions,
+    memory: int,
+    rate_in: float | None,
+    rate: float,
+    frames: int,
+    audio: int,
+) -> None:
+    """Refuse a job whose working memory would exceed ``opts.max_memory_mib``."""
+    if memory <= opts.max_memory_mib * 2**20:
+        return
+    hint = f" (did you mean {opts.rate_hz * 1000:g} Hz?)" if opts.rate_hz < 1000 and rate_in else ""
+    raise OptionError(
+        f"the job would need about {memory / 2**20:,.0f} MiB of working memory, over the "
+        f"{opts.max_memory_mib:g} MiB limit: {frames} input frames at "
+        f"{rate_in or rate:g} Hz to {audio} samples at {rate:.6g} Hz"
+        f"{hint}; raise --max-memory-mib if that is really meant",
+        field="max_memory_mib" if not hint else "rate_hz",
+    )
+
+
 def plan_stream(
     options: StreamOptions,
     *,
@@ -242,14 +276,7 @@ def plan_stream(
     """
     opts = options
     ident = asset_identifier(name)
-    levels = None
-    if opts.levels is not None:
-        levels = opts.levels if isinstance(opts.levels, LevelSet) else load_levels(opts.levels)
-        if levels.bits != opts.bits:
-            raise OptionError(
-                f"the levels file is for {levels.bits} bits but the stream is {opts.bits}-bit",
-                field="levels",
-            )
+    levels = _plan_levels(opts)
     layout = WordLayout(
         opts.bits,
         shift_right=opts.shift == "right",
@@ -289,19 +316,7 @@ def plan_stream(
     check_budget(budget)
     blk = frames if block_frames is None else min(block_frames, frames)
     memory = _memory_bytes(opts, rate_in_hz, rate, frames, channels, max(1, blk), audio)
-    if memory > opts.max_memory_mib * 2**20:
-        hint = (
-            f" (did you mean {opts.rate_hz * 1000:g} Hz?)"
-            if opts.rate_hz < 1000 and rate_in_hz
-            else ""
-        )
-        raise OptionError(
-            f"the job would need about {memory / 2**20:,.0f} MiB of working memory, over the "
-            f"{opts.max_memory_mib:g} MiB limit: {frames} input frames at "
-            f"{rate_in_hz or rate:g} Hz to {audio} samples at {rate:.6g} Hz"
-            f"{hint}; raise --max-memory-mib if that is really meant",
-            field="max_memory_mib" if not hint else "rate_hz",
-        )
+    _check_memory(opts, memory, rate_in_hz, rate, frames, audio)
     band = default_band_hz(rate) if opts.band_hz is None else opts.band_hz
     if not band <= rate / 2:
         raise OptionError(
