@@ -160,7 +160,8 @@ SCENARIOS: dict[str, list[list[str]]] = {
 }
 
 #: Files a scenario writes that are not outputs of the tool (inputs, build state).
-_SKIP = {"ladderpack.toml", ".ladderpack-state.json"}
+#: Not outputs: the manifest itself, and the bookkeeping files (state, record, lock).
+_SKIP = {"ladderpack.toml"}
 
 
 def render_scenario(name: str, work: Path) -> dict[str, bytes]:
@@ -188,7 +189,7 @@ def render_scenario(name: str, work: Path) -> dict[str, bytes]:
         os.chdir(old)
     out: dict[str, bytes] = {}
     for p in sorted(work.rglob("*")):
-        if p.is_file() and p.name not in _SKIP:
+        if p.is_file() and p.name not in _SKIP and not p.name.startswith(".ladderpack"):
             out[p.relative_to(work).as_posix()] = p.read_bytes()
     return out
 

@@ -159,7 +159,8 @@ def test_sweep_and_table_commands(tmp_path: Path) -> None:
         cwd=REPO,
     )
     assert res.returncode == 0, res.stderr
-    assert sorted(p.name for p in (tmp_path / "t").iterdir()) == ["fix_1.c", "fix_1.h", "fix_1.py"]
+    names = sorted(p.name for p in (tmp_path / "t").iterdir() if not p.name.startswith("."))
+    assert names == ["fix_1.c", "fix_1.h", "fix_1.py"]
 
 
 def test_wave_table_files_compile_and_agree(tmp_path: Path) -> None:
