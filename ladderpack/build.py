@@ -35,7 +35,9 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
+import re
 import tomllib
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
@@ -139,25 +141,42 @@ def _check_types(
             )
 
 
-def load_manifest(path: str | os.PathLike[str]) -> Manifest:
+def load_manifest(
+    path: str | os.PathLike[str], *, out_dir: str | os.PathLike[str] | None = None
+) -> Manifest:
     """Read and validate a manifest.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The manifest (TOML).
+    out_dir : str or path-like, optional
+        Output folder given on the command line, overriding the manifest's
+        ``project.out_dir``.  Without it, the manifest's folder must lie inside
+        the manifest's own folder (symlinks resolved): a manifest alone can never
+        send outputs elsewhere.
 
     Raises
     ------
     LadderpackError
         Naming the file, the asset and the key for unknown keys, wrong types,
-        missing or duplicate names and impossible combinations.
+        missing or duplicate names, reserved names, an output folder outside the
+        manifest's folder and impossible combinations.
     """
     from ladderpack.emit.names import asset_identifier
+    from ladderpack.reading import MAX_DEPTH, check_regular_file, nesting_depth
 
     mpath = os.fspath(path)
+    check_regular_file(mpath, what="manifest")
     try:
         with open(mpath, "rb") as fh:
             doc = tomllib.load(fh)
-    except FileNotFoundError:
-        raise LadderpackError("no such manifest", file=mpath) from None
     except (OSError, tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise LadderpackError(f"not valid TOML ({exc})", file=mpath) from None
+    except RecursionError:
+        raise LadderpackError("not valid TOML (nested too deeply)", file=mpath) from None
+    if nesting_depth(doc) > MAX_DEPTH:
+        raise LadderpackError(f"nested more than {MAX_DEPTH} levels deep", file=mpath)
     root = os.path.dirname(os.path.abspath(mpath))
     _check_types(
         mpath,
@@ -179,7 +198,10 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
     }
     all_types = {**stream_types, **tone_types, **clip_types}
     _check_types(mpath, None, defaults, all_types)
-    out_dir = os.path.normpath(os.path.join(root, project.get("out_dir", "generated")))
+    if out_dir is not None:
+        out = os.path.abspath(os.fspath(out_dir))
+    else:
+        out = _contained_out_dir(mpath, root, project.get("out_dir", "generated"))
     assets: list[AssetSpec] = []
     seen: dict[str, str] = {}
     for i, raw in enumerate(doc.get("asset", [])):
@@ -232,10 +254,11 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
         if opts.get("cycles") is not None and "seconds" in own:
             _err(mpath, "give seconds or cycles, not both", label, "cycles")
         for p in inputs:
-            if not os.path.isfile(p):
+            why = _not_regular(p)
+            if why:
                 _err(
                     mpath,
-                    f"input file {os.path.relpath(p, root)!r} does not exist",
+                    f"input file {os.path.relpath(p, root)!r} {why}",
                     label,
                     kind if p == source else "levels",
                 )
@@ -253,7 +276,32 @@ def load_manifest(path: str | os.PathLike[str]) -> Manifest:
         where="defaults",
     )
     flash, reserve = int(whole.flash_bytes or 0), whole.flash_reserve_bytes
-    return Manifest(mpath, root, out_dir, tuple(assets), flash, reserve)
+    return Manifest(mpath, root, out, tuple(assets), flash, reserve)
+
+
+def _not_regular(path: str) -> str | None:
+    import stat
+
+    try:
+        st = os.stat(path)
+    except OSError:
+        return "does not exist"
+    return None if stat.S_ISREG(st.st_mode) else "is not a regular file"
+
+
+def _contained_out_dir(mpath: str, root: str, rel: str) -> str:
+    """The manifest's output folder, refused unless it lies inside the manifest's folder."""
+    out = os.path.normpath(os.path.join(root, rel))
+    real_root, real_out = os.path.realpath(root), os.path.realpath(out)
+    if os.path.isabs(rel) or os.path.commonpath([real_root, real_out]) != real_root:
+        _err(
+            mpath,
+            f"must be a folder inside the manifest's folder {root}, got {rel!r} (it resolves "
+            f"to {real_out}); give --out-dir on the command line to build elsewhere",
+            None,
+            "project.out_dir",
+        )
+    return out
 
 
 def option_objects(
@@ -462,13 +510,93 @@ def _index_files(entries: list[dict[str, Any]]) -> dict[str, bytes]:
     }
 
 
+_HEX64 = re.compile(r"[0-9a-f]{64}")
+
+
+def _is_digest_map(obj: Any) -> bool:
+    from ladderpack.emit import BOOK_NAMES
+
+    return isinstance(obj, dict) and all(
+        isinstance(k, str)
+        and k
+        and "/" not in k
+        and k not in (".", "..", *BOOK_NAMES)
+        and isinstance(v, str)
+        and _HEX64.fullmatch(v)
+        for k, v in obj.items()
+    )
+
+
+def _is_count(v: Any) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool) and 0 <= v < 2**40
+
+
+def _valid_record(name: str, rec: Any) -> bool:
+    """Whether a state-file record of asset `name` has exactly the shape we write."""
+    if not isinstance(rec, dict) or not isinstance(rec.get("fingerprint"), str):
+        return False
+    if not _HEX64.fullmatch(rec["fingerprint"]) or not _is_digest_map(rec.get("files")):
+        return False
+    inputs = rec.get("inputs")
+    if not isinstance(inputs, dict) or not all(
+        isinstance(v, dict)
+        and isinstance(v.get("sha256"), str)
+        and _HEX64.fullmatch(v["sha256"])
+        and isinstance(v.get("stat"), list)
+        and len(v["stat"]) == 2
+        and all(isinstance(x, int) and not isinstance(x, bool) and x >= 0 for x in v["stat"])
+        for v in inputs.values()
+    ):
+        return False
+    e = rec.get("entry")
+    return (
+        isinstance(e, dict)
+        and set(e) == {"name", "kind", "rate_hz", "bits", "samples", "words", "bytes", "data"}
+        and e["name"] == name
+        and e["kind"] in _KIND_KEYS
+        and isinstance(e["rate_hz"], int | float)
+        and not isinstance(e["rate_hz"], bool)
+        and math.isfinite(e["rate_hz"])
+        and e["rate_hz"] >= 0
+        and _is_count(e["bits"])
+        and 1 <= e["bits"] <= 16
+        and all(_is_count(e[k]) for k in ("samples", "words", "bytes"))
+        and e["data"] in (None, f"{name}_words")
+    )
+
+
 def _load_state(out_dir: str) -> dict[str, Any]:
-    try:
-        with open(os.path.join(out_dir, STATE_NAME), encoding="utf-8") as fh:
-            state = json.load(fh)
-        return state if isinstance(state, dict) else {}
-    except (OSError, ValueError):
+    """The state file, with every record that is not exactly of our shape dropped.
+
+    A missing, damaged or edited state file never stops a build: what cannot be
+    trusted is rebuilt.
+    """
+    from ladderpack.emit.names import asset_identifier
+    from ladderpack.reading import read_json
+
+    path = os.path.join(out_dir, STATE_NAME)
+    if not os.path.lexists(path):
         return {}
+    try:
+        state = read_json(path, what="state file")
+    except LadderpackError:
+        return {}
+    if not isinstance(state, dict) or not isinstance(state.get("assets"), dict):
+        return {}
+    good = {}
+    for name, rec in state["assets"].items():
+        try:
+            ok = isinstance(name, str) and asset_identifier(name) == name
+        except LadderpackError:
+            ok = False
+        if ok and _valid_record(name, rec):
+            good[name] = rec
+    index = state.get("index")
+    return {
+        "tool": state.get("tool"),
+        "assets": good,
+        "index": index if _is_digest_map(index) else {},
+    }
 
 
 def _write_changed(files: dict[str, bytes], out_dir: str, *, touch: bool = False) -> None:
@@ -508,8 +636,39 @@ def _outputs_ok(out_dir: str, recorded: dict[str, str], *, verify: bool) -> str 
     return None
 
 
-def _make_escape(p: str) -> str:
-    return p.replace("$", "$$").replace(" ", "\\ ").replace("#", "\\#")
+#: Characters a Make depfile cannot carry in a file name (GNU make has no escape for them).
+_MAKE_REFUSED = frozenset("\n\r\t\\") | frozenset(chr(c) for c in range(32))
+
+
+def make_escape(path: str) -> str:
+    r"""Escape a file name for a Make rule (GNU make syntax), or refuse it.
+
+    Space, ``#``, ``:`` and ``%`` get a backslash, ``$`` is doubled.  Newline,
+    carriage return, tab, backslash and other control characters cannot be
+    written safely (a newline would start a recipe line) and are refused.
+
+    Raises
+    ------
+    LadderpackError
+        For a name holding a character that cannot be escaped.
+
+    Examples
+    --------
+    >>> make_escape("clips/door chime #2: 50%.flac")
+    'clips/door\\ chime\\ \\#2\\:\\ 50\\%.flac'
+    """
+    bad = sorted({repr(ch) for ch in path if ch in _MAKE_REFUSED})
+    if bad:
+        raise LadderpackError(
+            f"this file name holds {', '.join(bad)}, which a Make depfile cannot carry; "
+            "rename the file or build without --depfile",
+            file=path,
+            field="depfile",
+        )
+    out = path.replace("$", "$$")
+    for ch in " #:%":
+        out = out.replace(ch, "\\" + ch)
+    return out
 
 
 def build(
@@ -538,7 +697,95 @@ def build(
         Write a Make-format dependency file naming every input of every output.
     echo : callable
         Receives one line per asset and the budget line.
+
+    Raises
+    ------
+    LadderpackError
+        Before anything is written: for assets whose C symbols clash, input
+        names a depfile cannot carry, or files in the way that ladderpack did
+        not write.
     """
+    from ladderpack.emit import folder_lock
+
+    if depfile:
+        _check_depfile_names(manifest, depfile)
+    with folder_lock(manifest.out_dir, on_wait=echo):
+        return _build_locked(
+            manifest, jobs=jobs, only=only, check=check, depfile=depfile, echo=echo
+        )
+
+
+def _check_depfile_names(manifest: Manifest, depfile: str) -> None:
+    """Refuse, before building, any name the depfile could not carry safely."""
+    cwd = os.getcwd()
+    paths = [os.path.abspath(manifest.path), os.path.abspath(manifest.out_dir)]
+    paths += [p for spec in manifest.assets for p in spec.inputs]
+    for p in paths:
+        make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
+    dep = os.path.abspath(depfile)
+    if os.path.dirname(dep) == os.path.abspath(manifest.out_dir):
+        from ladderpack.emit import BOOK_NAMES
+
+        taken = {f"{a.name}{ext}" for a in manifest.assets for ext in _OUTPUT_EXTS}
+        taken |= {f"{INDEX_STEM}.{e}" for e in ("h", "c", "py")} | set(PLAYER_FILES)
+        if os.path.basename(dep) in taken | {STATE_NAME, *BOOK_NAMES}:
+            raise LadderpackError(
+                "the depfile would replace one of the build's own outputs; name it otherwise",
+                file=depfile,
+                field="depfile",
+            )
+
+
+#: Extensions of the files an asset can have.
+_OUTPUT_EXTS = (".bin", ".h", ".c", ".py", ".pio", ".json")
+
+
+def _symbol_clashes(
+    manifest: Manifest, rendered: dict[str, dict[str, bytes]], index: dict[str, bytes]
+) -> None:
+    """Refuse assets whose C macros or arrays would clash once the index includes them all."""
+    from ladderpack.emit import player_c
+    from ladderpack.emit.names import c_symbols
+
+    owner: dict[str, str] = {}
+    sources = [
+        ("the shared player", player_c.render_header()),
+        ("the index", index[f"{INDEX_STEM}.h"].decode()),
+    ]
+    for spec in manifest.assets:
+        files = rendered.get(spec.name)
+        if files is not None:
+            header = files[f"{spec.name}.h"].decode()
+        else:
+            try:
+                with open(os.path.join(manifest.out_dir, f"{spec.name}.h"), encoding="utf-8") as fh:
+                    header = fh.read()
+            except (OSError, UnicodeDecodeError):
+                header = ""
+        sources.append((f"asset {spec.name!r}", header))
+    for who, text in sources:
+        for sym in sorted(c_symbols(text)):
+            if sym in owner and owner[sym] != who:
+                raise LadderpackError(
+                    f"{owner[sym]} and {who} would both define the C symbol {sym}; "
+                    "rename one of them",
+                    file=manifest.path,
+                    field="name",
+                )
+            owner[sym] = who
+
+
+def _build_locked(
+    manifest: Manifest,
+    *,
+    jobs: int,
+    only: list[str] | None,
+    check: bool,
+    depfile: str | None,
+    echo: Callable[[str], None],
+) -> BuildResult:
+    from ladderpack.emit import pending_journal
+
     out = manifest.out_dir
     state = _load_state(out)
     old = state.get("assets", {}) if state.get("tool") == __version__ else {}
@@ -579,6 +826,9 @@ def build(
         else:
             todo.append((spec, fp, inputs))
     if check:
+        if pending_journal(out):
+            result.problems.append(("folder", "a replace was interrupted"))
+            echo("folder: STALE (a replace was interrupted and left a mixed set; run build)")
         for spec in manifest.assets:
             if spec.name in lines and "STALE" in lines[spec.name]:
                 echo(lines[spec.name])
@@ -596,6 +846,17 @@ def build(
                 rendered = list(pool.map(_render, [s for s, _, _ in todo]))
         else:
             rendered = [_render(s) for s, _, _ in todo]
+    else:
+        rendered = []
+    preview = dict(new_assets)
+    for (spec, _fp, _inputs), (_files, entry) in zip(todo, rendered, strict=True):
+        preview[spec.name] = {"entry": entry}
+    _symbol_clashes(
+        manifest,
+        {s.name: files for (s, _, _), (files, _) in zip(todo, rendered, strict=True)},
+        _index_files([preview[a.name]["entry"] for a in manifest.assets if a.name in preview]),
+    )
+    if todo:
         for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
             _write_changed(files, out, touch=True)
             new_assets[spec.name] = {
@@ -641,7 +902,7 @@ def _write_depfile(
     cwd = os.getcwd()
 
     def rel(p: str) -> str:
-        return _make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
+        return make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
 
     lines = []
     mf = rel(os.path.abspath(manifest.path))

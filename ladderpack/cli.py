@@ -933,8 +933,20 @@ def sweep(
     multiple=True,
     help="Build just this asset (repeatable); the index and depfile cover all.",
 )
+@click.option(
+    "--out-dir",
+    type=click.Path(file_okay=False),
+    default=None,
+    help="Output folder, anywhere  [default: the manifest's project.out_dir, which must "
+    "lie inside the manifest's folder]",
+)
 def build(
-    manifest: str, jobs: int, check: bool, depfile: str | None, only: tuple[str, ...]
+    manifest: str,
+    jobs: int,
+    check: bool,
+    depfile: str | None,
+    only: tuple[str, ...],
+    out_dir: str | None,
 ) -> None:
     """Build every asset of MANIFEST (default ladderpack.toml).
 
@@ -948,7 +960,7 @@ def build(
     if jobs < 1:
         raise OptionError(f"must be at least 1, got {jobs}", field="jobs")
     result = run_build(
-        load_manifest(manifest),
+        load_manifest(manifest, out_dir=out_dir),
         jobs=jobs,
         only=list(only) or None,
         check=check,
@@ -1350,7 +1362,7 @@ def main(argv: list[str] | None = None) -> None:
         exc.show()
         sys.exit(exc.exit_code)
     except (click.exceptions.Abort, KeyboardInterrupt):
-        click.echo("ladderpack: interrupted; earlier outputs are untouched", err=True)
+        click.echo("ladderpack: interrupted; each output set is whole, old or new", err=True)
         sys.exit(130)
     except Exception as exc:  # an internal fault, not the user's mistake
         if debug:

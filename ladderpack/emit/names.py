@@ -8,7 +8,7 @@ import unicodedata
 
 from ladderpack.errors import OptionError
 
-__all__ = ["C_KEYWORDS", "asset_identifier", "comment_safe"]
+__all__ = ["C_KEYWORDS", "RESERVED_NAMES", "asset_identifier", "c_symbols", "comment_safe"]
 
 #: C99 keywords plus names the generated code must not shadow.
 C_KEYWORDS = frozenset(
@@ -66,6 +66,20 @@ C_KEYWORDS = frozenset(
 )
 
 
+#: Identifiers an asset may not have, and why: fixed output names of the tool, and
+#: modules a bundle's MicroPython file would shadow on the board (the modules the
+#: generated code imports, and the two files MicroPython runs at start-up).
+RESERVED_NAMES: dict[str, str] = {
+    "assets": "the build's index files (assets.h, assets.c, assets.py)",
+    "ladderpack_player": "the shared C player files (ladderpack_player.h, .c)",
+    **{
+        m: f"MicroPython's {m} module, which {m}.py would shadow on the board"
+        for m in ("rp2", "machine", "array", "time", "micropython", "gc", "os", "sys")
+    },
+    "boot": "MicroPython's start-up file boot.py, which the board runs at every reset",
+}
+
+
 def asset_identifier(name: str) -> str:
     """Turn an asset name into an identifier valid in C and Python.
 
@@ -73,6 +87,7 @@ def asset_identifier(name: str) -> str:
     becomes one underscore, a leading digit gets an ``a_`` prefix, and C or
     Python keywords get a trailing underscore.  The result is also used as
     the stem of every output file name, so it never holds a path separator.
+    Names in :data:`RESERVED_NAMES` are refused (`OptionError`).
 
     Examples
     --------
@@ -93,6 +108,12 @@ def asset_identifier(name: str) -> str:
         ident = "a_" + ident
     if ident in C_KEYWORDS or keyword.iskeyword(ident) or keyword.issoftkeyword(ident):
         ident += "_"
+    if ident in RESERVED_NAMES:
+        raise OptionError(
+            f"{name!r} becomes {ident!r}, which is reserved for {RESERVED_NAMES[ident]}; "
+            "pick another name",
+            field="name",
+        )
     return ident
 
 
@@ -104,3 +125,20 @@ def comment_safe(text: str) -> str:
     """
     clean = "".join(ch if ch.isprintable() and ch.isascii() else "?" for ch in str(text))
     return clean.replace("*/", "* /").replace("/*", "/ *")
+
+
+_C_DEFINE = re.compile(r"^[ \t]*#[ \t]*define[ \t]+([A-Za-z_]\w*)", re.MULTILINE)
+_C_ARRAY = re.compile(
+    r"^[ \t]*(?:extern[ \t]+)?(?:const[ \t]+)?\w+[ \t]+([A-Za-z_]\w*)[ \t]*\[", re.MULTILINE
+)
+
+
+def c_symbols(text: str) -> set[str]:
+    r"""The macros and arrays a generated C header or source defines.
+
+    Examples
+    --------
+    >>> sorted(c_symbols("#define A_BITS 8u\nextern const uint32_t a_words[4];"))
+    ['A_BITS', 'a_words']
+    """
+    return set(_C_DEFINE.findall(text)) | set(_C_ARRAY.findall(text))
