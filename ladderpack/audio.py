@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import struct
 from dataclasses import dataclass
 
 import numpy as np
@@ -132,11 +133,17 @@ def load_clip(
     >>> sig.rate_hz, sig.channels  # doctest: +SKIP
     (44100, 1)
     """
+    from ladderpack.reading import check_regular_file
+
     name = os.fspath(path)
     if not os.path.exists(name):
         raise AudioFileError("no such file", file=name)
     if os.path.isdir(name):
         raise AudioFileError("is a folder, expected a sound file", file=name)
+    check_regular_file(name, what="sound file")
+    cut = truncation(name)
+    if cut:
+        raise AudioFileError(cut, file=name)
     try:
         data, rate = soundfile.read(name, dtype="float64", always_2d=True, frames=frames)
     except (soundfile.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
@@ -157,6 +164,40 @@ def load_clip(
             )
         mono = data[:, channel].copy()
     return check_signal(Signal(np.ascontiguousarray(mono), float(rate)), source=name)
+
+
+def truncation(path: str | os.PathLike[str]) -> str | None:
+    """Why a WAV or AIFF file is cut short, or None if it is whole (or another format).
+
+    The header's sample-data chunk (``data`` in RIFF/WAVE, Microsoft's RIFF
+    specification; ``SSND`` in AIFF/AIFC, Apple's AIFF 1.3) declares its length
+    in bytes; a file holding fewer bytes than that was cut short.  A length of
+    0 or 0xFFFFFFFF is the placeholder of a stream recorder, not a promise.
+    """
+    name = os.fspath(path)
+    size = os.path.getsize(name)
+    with open(name, "rb") as fh:
+        head = fh.read(12)
+        if head[:4] == b"RIFF" and head[8:12] == b"WAVE":
+            order, want = "<", b"data"
+        elif head[:4] == b"FORM" and head[8:12] in (b"AIFF", b"AIFC"):
+            order, want = ">", b"SSND"
+        else:
+            return None
+        pos = 12
+        while pos + 8 <= size:
+            fh.seek(pos)
+            cid, clen = struct.unpack(order + "4sI", fh.read(8))
+            if cid == want:
+                avail = size - pos - 8
+                if clen in (0, 0xFFFFFFFF) or clen <= avail:
+                    return None
+                return (
+                    f"cut short: the header promises {clen} bytes of samples but the file "
+                    f"holds {avail} ({100 * avail / clen:.0f} %); use the complete file"
+                )
+            pos += 8 + clen + (clen & 1)
+    return None
 
 
 def sha256_file(path: str | os.PathLike[str]) -> str:
@@ -182,9 +223,12 @@ def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:
     import csv
 
     name = os.fspath(path)
+    from ladderpack.reading import check_regular_file
+
+    check_regular_file(name, what="capture CSV")
     values: list[float] = []
     try:
-        with open(name, encoding="utf-8", newline="") as fh:
+        with open(name, encoding="utf-8-sig", newline="") as fh:
             for line, row in enumerate(csv.reader(fh), start=1):
                 cells = [c.strip() for c in row if c.strip()]
                 if not cells or cells[0].startswith("#"):

@@ -640,12 +640,14 @@ def _outputs_ok(out_dir: str, recorded: dict[str, str], *, verify: bool) -> str 
 _MAKE_REFUSED = frozenset("\n\r\t\\") | frozenset(chr(c) for c in range(32))
 
 
-def make_escape(path: str) -> str:
+def make_escape(path: str, *, target: bool = False) -> str:
     r"""Escape a file name for a Make rule (GNU make syntax), or refuse it.
 
-    Space, ``#``, ``:`` and ``%`` get a backslash, ``$`` is doubled.  Newline,
+    Space, ``#`` and ``:`` get a backslash, ``$`` is doubled.  Newline,
     carriage return, tab, backslash and other control characters cannot be
-    written safely (a newline would start a recipe line) and are refused.
+    written safely (a newline would start a recipe line) and are refused.  A
+    ``%`` is literal in a prerequisite but would turn a target into a pattern
+    rule, so it is refused in targets (`target`).
 
     Raises
     ------
@@ -655,9 +657,10 @@ def make_escape(path: str) -> str:
     Examples
     --------
     >>> make_escape("clips/door chime #2: 50%.flac")
-    'clips/door\\ chime\\ \\#2\\:\\ 50\\%.flac'
+    'clips/door\\ chime\\ \\#2\\:\\ 50%.flac'
     """
-    bad = sorted({repr(ch) for ch in path if ch in _MAKE_REFUSED})
+    refused = _MAKE_REFUSED | ({"%"} if target else set())
+    bad = sorted({repr(ch) for ch in path if ch in refused})
     if bad:
         raise LadderpackError(
             f"this file name holds {', '.join(bad)}, which a Make depfile cannot carry; "
@@ -666,7 +669,7 @@ def make_escape(path: str) -> str:
             field="depfile",
         )
     out = path.replace("$", "$$")
-    for ch in " #:%":
+    for ch in " #:":
         out = out.replace(ch, "\\" + ch)
     return out
 
@@ -718,10 +721,11 @@ def build(
 def _check_depfile_names(manifest: Manifest, depfile: str) -> None:
     """Refuse, before building, any name the depfile could not carry safely."""
     cwd = os.getcwd()
-    paths = [os.path.abspath(manifest.path), os.path.abspath(manifest.out_dir)]
+    paths = [os.path.abspath(manifest.path)]
     paths += [p for spec in manifest.assets for p in spec.inputs]
     for p in paths:
         make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
+    make_escape(os.path.relpath(manifest.out_dir, cwd).replace(os.sep, "/"), target=True)
     dep = os.path.abspath(depfile)
     if os.path.dirname(dep) == os.path.abspath(manifest.out_dir):
         from ladderpack.emit import BOOK_NAMES
@@ -901,8 +905,8 @@ def _write_depfile(
 ) -> None:
     cwd = os.getcwd()
 
-    def rel(p: str) -> str:
-        return make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"))
+    def rel(p: str, target: bool = False) -> str:
+        return make_escape(os.path.relpath(p, cwd).replace(os.sep, "/"), target=target)
 
     lines = []
     mf = rel(os.path.abspath(manifest.path))
@@ -911,11 +915,11 @@ def _write_depfile(
         deps = [mf, *(rel(p) for p in spec.inputs)]
         all_inputs += deps[1:]
         for name in sorted(assets.get(spec.name, {}).get("files", {})):
-            lines.append(f"{rel(os.path.join(manifest.out_dir, name))}: {' '.join(deps)}")
+            out = rel(os.path.join(manifest.out_dir, name), target=True)
+            lines.append(f"{out}: {' '.join(deps)}")
     for name in sorted(index):
-        lines.append(
-            f"{rel(os.path.join(manifest.out_dir, name))}: {' '.join(sorted(set(all_inputs)))}"
-        )
+        out = rel(os.path.join(manifest.out_dir, name), target=True)
+        lines.append(f"{out}: {' '.join(sorted(set(all_inputs)))}")
     text = "\n".join(lines) + "\n"
     from ladderpack.emit import write_files
 

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import json
 import os
 import sys
 from collections.abc import Callable, Iterator, Mapping
@@ -19,6 +18,7 @@ from ladderpack.defaults import (
     WEIGHTING_NAMES,
 )
 from ladderpack.errors import LadderpackError
+from ladderpack.reading import json_text
 
 
 def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -> None:
@@ -284,7 +284,7 @@ def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: A
     summary: dict[str, Any] = dict(asset.summary())
     if as_json:
         summary["files"] = written
-        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        click.echo(json_text(summary))
     else:
         _print_summary(summary, written)
 
@@ -318,7 +318,7 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
     summary["tone"] = asset.stats["tone"]
     if as_json:
         summary["files"] = written
-        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        click.echo(json_text(summary))
         return
     info = asset.stats["tone"]
     if info.get("freq_hz") is not None and kind not in ("dc", "staircase", "white", "pink"):
@@ -353,7 +353,7 @@ def clock(rate_hz: float, as_json: bool, **values: Any) -> None:
     )
     d = plan.to_dict()
     if as_json:
-        click.echo(json.dumps(d, indent=2, sort_keys=True))
+        click.echo(json_text(d))
         return
     kind = "fractional (1 system clock of jitter)" if plan.fractional else "integer (no jitter)"
     click.echo(f"requested  {d['requested_rate_hz']:g} Hz at {plan.sys_clock_hz} Hz system clock")
@@ -576,7 +576,7 @@ def ladder(
         )
         written.append(_write_one(levels_out, lev.to_json()))
     if as_json:
-        click.echo(json.dumps({**report, "files": written}, indent=2, sort_keys=True))
+        click.echo(json_text({**report, "files": written}))
         return
     nom, wc, mc = report["nominal"], report["worst_case"], report["monte_carlo"]
     click.echo(
@@ -667,7 +667,7 @@ def levels(
     report = {k: v for k, v in lin.items() if not isinstance(v, np.ndarray)}
     report.update(notes=lev.notes, origin=lev.origin, file=written)
     if as_json:
-        click.echo(json.dumps(report, indent=2, sort_keys=True))
+        click.echo(json_text(report))
         return
     click.echo(
         f"{lev.origin} levels, {bits} bits, from {lev.notes.get('readings')} readings of "
@@ -734,7 +734,7 @@ def table_correction(
         "files": written,
     }
     if as_json:
-        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        click.echo(json_text(summary))
         return
     click.echo(
         f"{res.name}: {res.in_bits}-bit ideal level -> {res.bits}-bit code, {res.entries} "
@@ -783,7 +783,7 @@ def table_wave(out_dir: str, name: str, as_json: bool, **values: Any) -> None:
         "files": written,
     }
     if as_json:
-        click.echo(json.dumps(summary, indent=2, sort_keys=True))
+        click.echo(json_text(summary))
         return
     click.echo(
         f"{res.name}: {spec.kind}, {res.entries} entries of {res.bits}-bit codes at "
@@ -1115,7 +1115,7 @@ def measure(
 
         r["plot"] = _write_bytes(plot_path, spectrum_png(y, rate, r, full_scale=full_scale))
     if as_json:
-        click.echo(json.dumps(r, indent=2, sort_keys=True))
+        click.echo(json_text(r))
     else:
         _print_analysis(r, os.path.basename(capture))
 
@@ -1224,7 +1224,7 @@ def preview(
 
             result["plot"] = _write_bytes(plot_path, spectrum_png(y, pv.rate_hz, r))
     if as_json:
-        click.echo(json.dumps(result, indent=2, sort_keys=True))
+        click.echo(json_text(result))
         return
     click.echo(
         f"wrote {written} ({pv.samples.size / pv.rate_hz:.3f} s at {pv.rate_hz:g} Hz); "
@@ -1337,7 +1337,7 @@ def demo(out_dir: str, clips_dir: str, as_json: bool) -> None:
 
     results = run_demo(out_dir, clips_dir=clips_dir)
     if as_json:
-        click.echo(json.dumps([{**s, "files": f} for s, f in results], indent=2, sort_keys=True))
+        click.echo(json_text([{**s, "files": f} for s, f in results]))
         return
     for summary, files in results:
         _print_summary(summary, files)

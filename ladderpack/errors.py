@@ -48,7 +48,9 @@ class LadderpackError(Exception):
     def __str__(self) -> str:
         parts = [p for p in (self.file, self.field) if p]
         parts.append(self.message)
-        return ": ".join(parts)
+        # One line, whatever a file name holds: control characters are shown escaped.
+        text = ": ".join(parts)
+        return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
 
 
 class OptionError(LadderpackError, ValueError):

@@ -9,7 +9,6 @@ missing codes (that is an ADC notion): every code produces a level.
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from dataclasses import dataclass, field
@@ -80,7 +79,9 @@ class LevelSet:
             "notes": self.notes,
             "volts": [float(x) for x in self.volts],
         }
-        return json.dumps(doc, indent=1, sort_keys=True) + "\n"
+        from ladderpack.reading import json_text
+
+        return json_text(doc, indent=1) + "\n"
 
 
 def ideal_levels(bits: int, *, full_scale_volts: float = 1.0) -> LevelSet:
@@ -98,13 +99,9 @@ def load_levels(path: str | os.PathLike[str]) -> LevelSet:
         Naming the file and the field that is wrong.
     """
     name = os.fspath(path)
-    try:
-        with open(name, encoding="utf-8") as fh:
-            doc = json.load(fh)
-    except FileNotFoundError:
-        raise LadderpackError("no such file", file=name) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise LadderpackError(f"not a levels file ({exc})", file=name) from None
+    from ladderpack.reading import read_json
+
+    doc = read_json(name, what="levels file")
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise LadderpackError(
             f"expected a JSON object with format {FORMAT!r}", file=name, field="format"
@@ -268,8 +265,11 @@ def read_sweep_csv(
     bits = check_bits(bits)
     name = os.fspath(path)
     n_codes = 1 << bits
+    from ladderpack.reading import check_regular_file
+
+    check_regular_file(name, what="sweep CSV")
     try:
-        with open(name, encoding="utf-8", newline="") as fh:
+        with open(name, encoding="utf-8-sig", newline="") as fh:  # a byte-order mark is fine
             rows = [(i + 1, r) for i, r in enumerate(csv.reader(fh))]
     except FileNotFoundError:
         raise LadderpackError("no such file", file=name) from None
@@ -283,6 +283,14 @@ def read_sweep_csv(
     if not rows:
         raise LadderpackError("no header row", file=name)
     hline, header = rows[0]
+    if len(header) == 1:
+        for sep in (";", "\t", "|"):
+            if sep in header[0]:
+                raise LadderpackError(
+                    f"columns are separated by {sep!r}; expected commas (save the sweep as "
+                    "comma-separated CSV)",
+                    file=f"{name}:{hline}",
+                )
     cols = [h.lower() for h in header]
     if "code" not in cols:
         raise LadderpackError(

@@ -134,6 +134,40 @@ def _base_types(hint: Any) -> tuple[tuple[type, ...], bool]:
     return (object,), nullable
 
 
+def _tuple_hint(hint: Any) -> Any:
+    """The ``tuple[...]`` inside an optional hint."""
+    for h in (hint, *typing.get_args(hint)):
+        if typing.get_origin(h) is tuple:
+            return h
+    return None
+
+
+def _check_items(name: str, value: Any, hint: Any, depth: int = 0) -> None:
+    """Check the items of a list value against ``tuple[T, ...]`` or ``tuple[T, U]``."""
+    args = typing.get_args(hint) if hint is not None else ()
+    if not args:
+        return
+    if len(args) == 2 and args[1] is Ellipsis:
+        item_hints = [args[0]] * len(value)
+    else:
+        if len(value) != len(args):
+            raise OptionError(f"each item must hold {len(args)} values, got {value!r}", field=name)
+        item_hints = list(args)
+    for item, h in zip(value, item_hints, strict=True):
+        if typing.get_origin(h) is tuple:
+            if not isinstance(item, list | tuple) or depth > 2:
+                raise OptionError(f"each item must be a list, got {item!r}", field=name)
+            _check_items(name, item, h, depth + 1)
+            continue
+        number = isinstance(item, int | float) and not isinstance(item, bool)
+        if h is float and not (number and math.isfinite(item)):
+            raise OptionError(f"every item must be a finite number, got {item!r}", field=name)
+        if h is int and not (isinstance(item, int) and not isinstance(item, bool)):
+            raise OptionError(f"every item must be a whole number, got {item!r}", field=name)
+        if h is str and not isinstance(item, str):
+            raise OptionError(f"every item must be text, got {item!r}", field=name)
+
+
 def _type_words(types: tuple[type, ...]) -> str:
     names = {int: "a whole number", float: "a number", bool: "true or false", str: "text"}
     if types == (int, float):
@@ -159,8 +193,10 @@ def _check_value(name: str, value: Any, hint: Any, info: OptionInfo) -> Any:
         )
     if types == (int, float):
         value = float(value)
-        if not math.isfinite(value):
-            raise OptionError(f"must be a finite number, got {value!r}", field=name)
+    if isinstance(value, float) and not math.isfinite(value):
+        raise OptionError(f"must be a finite number, got {value!r}", field=name)
+    if types == (tuple, list):
+        _check_items(name, value, _tuple_hint(hint))
     if info.choices is not None and value not in info.choices:
         raise OptionError(f"must be one of {', '.join(info.choices)}; got {value!r}", field=name)
     if isinstance(value, int | float) and not isinstance(value, bool):
@@ -256,7 +292,7 @@ class StreamOptions(_Model):
         100.0, "Rate error accepted to keep a jitter-free integer divider.", unit="ppm", lo=0
     )
     headroom_db: float = _opt(
-        1.0, "Peak level below full scale after normalising.", unit="dB", lo=0
+        1.0, "Peak level below full scale after normalising.", unit="dB", lo=0, hi=120
     )
     fade_ms: float = _opt(5.0, "Raised-cosine fade at each end of the audio.", unit="ms", lo=0)
     ramp_ms: float = _opt(

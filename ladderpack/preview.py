@@ -8,7 +8,6 @@ playback rate.  The result is scaled so the ideal full scale is +/-1.0.
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from dataclasses import dataclass
@@ -44,33 +43,58 @@ class Preview:
 
 
 def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
+    from ladderpack.emit.names import asset_identifier
     from ladderpack.pack import WordLayout, unpack
+    from ladderpack.reading import read_json
 
-    try:
-        with open(sidecar_path, encoding="utf-8") as fh:
-            side = json.load(fh)
-    except FileNotFoundError:
-        raise LadderpackError("no such file", file=sidecar_path) from None
-    except (OSError, ValueError) as exc:
-        raise LadderpackError(f"not a bundle sidecar ({exc})", file=sidecar_path) from None
+    side = read_json(sidecar_path, what="bundle sidecar")
     if not isinstance(side, dict) or side.get("format") != "ladderpack-stream":
         raise LadderpackError(
             "expected a ladderpack stream sidecar (.json)", file=sidecar_path, field="format"
         )
-    lay = side["layout"]
-    layout = WordLayout(
-        int(lay["bits"]),
-        shift_right=lay["shift"] == "right",
-        per_word=int(lay["samples_per_word"]),
-        msb_high=lay.get("pin_order", "msb-high") == "msb-high",
-        invert=bool(lay.get("invert", False)),
-    )
-    bin_path = os.path.join(os.path.dirname(sidecar_path), f"{side['asset']}.bin")
+    try:
+        name = side["asset"]
+        if not isinstance(name, str) or asset_identifier(name) != name:
+            raise ValueError("asset: expected the bundle's identifier (letters, digits, _)")
+        lay = side["layout"]
+        bits, spw = lay["bits"], lay["samples_per_word"]
+        count = side["stream"]["sample_count"]
+        for key, v, lo, hi in (
+            ("layout.bits", bits, 1, 16),
+            ("layout.samples_per_word", spw, 1, 32),
+            ("stream.sample_count", count, 0, 2**40),
+        ):
+            if not isinstance(v, int) or isinstance(v, bool) or not lo <= v <= hi:
+                raise ValueError(f"{key}: expected a whole number {lo}..{hi}, got {v!r}")
+        if lay["shift"] not in ("left", "right"):
+            raise ValueError(f"layout.shift: expected 'left' or 'right', got {lay['shift']!r}")
+        layout = WordLayout(
+            bits,
+            shift_right=lay["shift"] == "right",
+            per_word=spw,
+            msb_high=lay.get("pin_order", "msb-high") == "msb-high",
+            invert=bool(lay.get("invert", False)),
+        )
+    except (KeyError, TypeError) as exc:
+        raise LadderpackError(
+            f"not a complete bundle sidecar (missing or wrong {exc})", file=sidecar_path
+        ) from None
+    except (ValueError, LadderpackError) as exc:
+        raise LadderpackError(str(exc), file=sidecar_path) from None
+    bin_path = os.path.join(os.path.dirname(sidecar_path), f"{name}.bin")
+    from ladderpack.reading import check_regular_file
+
+    check_regular_file(bin_path, what="bundle .bin file")
     try:
         words = np.fromfile(bin_path, dtype="<u4")
     except OSError:
-        raise LadderpackError("the bundle's .bin file is missing", file=bin_path) from None
-    codes = unpack(words, layout, int(side["stream"]["sample_count"])).codes
+        raise LadderpackError("the bundle's .bin file is unreadable", file=bin_path) from None
+    if words.size < layout.words_for(count):
+        raise LadderpackError(
+            f"holds {words.size} words but the sidecar says {layout.words_for(count)}",
+            file=bin_path,
+        )
+    codes = unpack(words, layout, count).codes
     return side, codes
 
 

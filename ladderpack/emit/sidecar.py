@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import hashlib
-import json
 from collections.abc import Mapping
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
+from ladderpack.reading import json_text
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "render"]
 
@@ -64,4 +64,4 @@ def render(
         "stats": asset.stats,
         "files": dict(sorted(digests.items())),
     }
-    return json.dumps(doc, indent=2, sort_keys=True) + "\n"
+    return json_text(doc, indent=2) + "\n"

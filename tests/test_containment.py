@@ -1,0 +1,383 @@
+"""A build step that never damages what it did not write (containment, ownership,
+names, escaping, untrusted read-backs, whole-set replace, one writer per folder).
+
+Each test attempts the attack and shows: decoy files unchanged (hashed), exit status 2
+with one line on stderr, and no injected text turned into code (gcc -Werror on the C,
+``ast`` on the Python, GNU make on the depfile).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+from helpers import cc_strict, require_tool
+
+import ladderpack.emit as emit
+from ladderpack.build import STATE_NAME, build, load_manifest, make_escape
+from ladderpack.errors import LadderpackError
+
+REPO = Path(__file__).resolve().parent.parent
+TONE = 'tone = "sine"\nfreq_hz = 1000\nseconds = 0.01\nramp_ms = 1.0\n'
+
+
+def _manifest(root: Path, body: str, out_dir: str = "gen") -> Path:
+    text = f'[project]\nout_dir = "{out_dir}"\n\n[defaults]\nbits = 8\nrate_hz = 16000\n\n'
+    (root / "ladderpack.toml").write_text(text + body)
+    return root / "ladderpack.toml"
+
+
+def _asset(name: str, extra: str = "") -> str:
+    return f'[[asset]]\nname = "{name}"\n{TONE}{extra}\n'
+
+
+def _hashes(folder: Path) -> dict[str, str]:
+    return {
+        p.relative_to(folder).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+        for p in sorted(folder.rglob("*"))
+        if p.is_file()
+    }
+
+
+def _cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        [sys.executable, "-m", "ladderpack", *args], cwd=cwd, capture_output=True, text=True
+    )
+
+
+def _one_line_exit_2(res: subprocess.CompletedProcess[str]) -> None:
+    assert res.returncode == 2, res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1, res.stderr
+    assert "Traceback" not in res.stderr
+
+
+# -- containment --------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("out_dir", ["../elsewhere", "/tmp/ladderpack-abs-target", "sub/../.."])
+def test_manifest_cannot_send_outputs_outside_its_folder(tmp_path: Path, out_dir: str) -> None:
+    root = tmp_path / "proj"
+    root.mkdir()
+    decoy = tmp_path / "elsewhere"
+    decoy.mkdir()
+    (decoy / "beep.c").write_text("int precious;\n")
+    before = _hashes(tmp_path)
+    mf = _manifest(root, _asset("beep"), out_dir=out_dir)
+    with pytest.raises(LadderpackError, match="inside the manifest's folder"):
+        load_manifest(mf)
+    _one_line_exit_2(_cli("build", str(mf), cwd=root))
+    after = _hashes(tmp_path)
+    assert {k: v for k, v in after.items() if not k.startswith("proj/")} == {
+        k: v for k, v in before.items() if not k.startswith("proj/")
+    }
+    assert not Path("/tmp/ladderpack-abs-target").exists()
+
+
+def test_symlinked_out_dir_is_resolved_before_the_check(tmp_path: Path) -> None:
+    root = tmp_path / "proj"
+    root.mkdir()
+    (tmp_path / "victim").mkdir()
+    (root / "gen").symlink_to(tmp_path / "victim")
+    with pytest.raises(LadderpackError, match="resolves to"):
+        load_manifest(_manifest(root, _asset("beep")))
+
+
+def test_command_line_out_dir_may_go_anywhere(tmp_path: Path) -> None:
+    root = tmp_path / "proj"
+    root.mkdir()
+    mf = _manifest(root, _asset("beep"), out_dir="../elsewhere")
+    res = _cli("build", str(mf), "--out-dir", str(tmp_path / "chosen"), cwd=root)
+    assert res.returncode == 0, res.stderr
+    assert (tmp_path / "chosen" / "beep.c").exists()
+
+
+# -- ownership ----------------------------------------------------------------------
+
+
+def test_users_files_in_the_way_are_never_replaced(tmp_path: Path) -> None:
+    # out_dir "." with the user's own assets.py and beep.c beside the manifest.
+    (tmp_path / "assets.py").write_text("print('mine')\n")
+    (tmp_path / "beep.c").write_text("int mine;\n")
+    before = _hashes(tmp_path)
+    mf = _manifest(tmp_path, _asset("beep"), out_dir=".")
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "not written by ladderpack" in res.stderr and "beep.c" in res.stderr
+    after = _hashes(tmp_path)
+    assert {k: after[k] for k in before if k != "ladderpack.toml"} == {
+        k: v for k, v in before.items() if k != "ladderpack.toml"
+    }
+
+
+def test_own_files_are_replaced_and_recorded(tmp_path: Path) -> None:
+    emit.write_files({"a.txt": b"1"}, tmp_path)
+    emit.write_files({"a.txt": b"2"}, tmp_path)
+    assert (tmp_path / "a.txt").read_bytes() == b"2"
+    assert emit.owned_files(tmp_path) == {"a.txt": hashlib.sha256(b"2").hexdigest()}
+
+
+def test_a_symlink_in_the_way_is_not_followed(tmp_path: Path) -> None:
+    victim = tmp_path / "victim.c"
+    victim.write_text("int precious;\n")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "beep.c").symlink_to(victim)
+    with pytest.raises(LadderpackError, match="not written by ladderpack"):
+        emit.write_files({"beep.c": b"x"}, out)
+    assert victim.read_text() == "int precious;\n"
+
+
+# -- names --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("name", ["assets", "ladderpack_player", "rp2", "machine", "boot"])
+def test_reserved_names_are_refused(tmp_path: Path, name: str) -> None:
+    res = _cli("build", str(_manifest(tmp_path, _asset(name))), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "reserved" in res.stderr
+    assert not (tmp_path / "gen").exists()
+
+
+@pytest.mark.parametrize(
+    ("first", "second", "symbol"),
+    [
+        (_asset("door", "loop = true\n"), _asset("door_intro"), "DOOR_INTRO_WORD_COUNT"),
+        (_asset("bell"), _asset("bell_requested"), "BELL_REQUESTED_RATE_HZ"),
+        (_asset("player"), _asset("chime"), "LADDERPACK_PLAYER_H"),
+    ],
+    ids=["loop-intro", "rate-define", "player-guard"],
+)
+def test_symbol_clashes_are_refused_before_writing(
+    tmp_path: Path, first: str, second: str, symbol: str
+) -> None:
+    res = _cli("build", str(_manifest(tmp_path, first + second)), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert symbol in res.stderr
+    assert not (tmp_path / "gen" / "assets.c").exists()
+
+
+def test_index_of_many_assets_compiles(tmp_path: Path) -> None:
+    # gcc -std=c99 -Werror over the index, which includes every asset's header.
+    body = _asset("door", "loop = true\n") + _asset("bell") + _asset("frost")
+    build(load_manifest(_manifest(tmp_path, body)), echo=lambda s: None)
+    cc_strict(
+        tmp_path / "a.o",
+        tmp_path / "gen" / "assets.c",
+        compile_only=True,
+        extra=("-I", str(tmp_path / "gen")),
+    )
+
+
+# -- nothing unescaped, nothing trusted ------------------------------------------------
+
+
+def test_depfile_names_are_escaped_for_make(tmp_path: Path) -> None:
+    # GNU make reads the depfile: hostile but legal names become plain prerequisites,
+    # and `make -n` runs no command from them.
+    make = require_tool("make")
+    clip_name = "door chime #2: 50% $HOME.flac"
+    shutil.copy(REPO / "demo_audio" / "door_chime.flac", tmp_path / clip_name)
+    mf = _manifest(tmp_path, f'[[asset]]\nname = "chime"\nclip = "{clip_name}"\n')
+    res = _cli("build", str(mf), "--depfile", "gen.d", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    (tmp_path / "Makefile").write_text(
+        "include gen.d\nall: gen/chime.c\n\t@echo made\n", encoding="utf-8"
+    )
+    dry = subprocess.run([make, "-n", "all"], cwd=tmp_path, capture_output=True, text=True)
+    assert dry.returncode == 0, dry.stderr
+    assert dry.stdout.splitlines() == ["echo made"]
+    db = subprocess.run([make, "-p", "-q", "all"], cwd=tmp_path, capture_output=True, text=True)
+    assert f"gen/chime.c: ladderpack.toml {clip_name}" in db.stdout.replace("\\", "")
+
+
+@pytest.mark.parametrize("bad", ["a\nrm -rf x:y.flac", "tab\there.flac", "back\\slash.flac"])
+def test_depfile_refuses_names_make_cannot_carry(tmp_path: Path, bad: str) -> None:
+    shutil.copy(REPO / "demo_audio" / "door_chime.flac", tmp_path / bad)
+    clip = json.dumps(bad)  # a TOML basic string accepts JSON escapes
+    mf = _manifest(tmp_path, f'[[asset]]\nname = "chime"\nclip = {clip}\n')
+    res = _cli("build", str(mf), "--depfile", "gen.d", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "depfile" in res.stderr
+    assert not (tmp_path / "gen.d").exists() and not (tmp_path / "gen").exists()
+
+
+def test_make_escape_examples() -> None:
+    # GNU make (Debian's make, checked by the test above): $$ for $, backslash before
+    # space, # and :; % is literal in a prerequisite and refused in a target.
+    assert make_escape("a b#c:d%e$f") == "a\\ b\\#c\\:d%e$$f"
+    with pytest.raises(LadderpackError):
+        make_escape("gen%/x.c", target=True)
+
+
+def _state(tmp_path: Path) -> Path:
+    build(load_manifest(_manifest(tmp_path, _asset("beep"))), echo=lambda s: None)
+    return tmp_path / "gen" / STATE_NAME
+
+
+def test_edited_state_field_is_not_pasted_into_c(tmp_path: Path) -> None:
+    state = _state(tmp_path)
+    doc = json.loads(state.read_text())
+    doc["assets"]["beep"]["entry"]["kind"] = 'tone", 0}; int evil(void) { return 1; } //'
+    state.write_text(json.dumps(doc))
+    build(load_manifest(tmp_path / "ladderpack.toml"), echo=lambda s: None)
+    text = (tmp_path / "gen" / "assets.c").read_text()
+    assert "evil" not in text
+    cc_strict(
+        tmp_path / "a.o",
+        tmp_path / "gen" / "assets.c",
+        compile_only=True,
+        extra=("-I", str(tmp_path / "gen")),
+    )
+
+
+@pytest.mark.parametrize(
+    "content", ["[1, 2]", "{", '{"assets": 5}', '{"assets": {"beep": []}}', "[" * 5000]
+)
+def test_damaged_state_file_means_rebuild(tmp_path: Path, content: str) -> None:
+    state = _state(tmp_path)
+    state.write_text(content)
+    lines: list[str] = []
+    res = build(load_manifest(tmp_path / "ladderpack.toml"), echo=lines.append)
+    assert res.built == ["beep"]
+    assert json.loads(state.read_text())["assets"]["beep"]["entry"]["name"] == "beep"
+
+
+def test_sidecar_asset_field_cannot_leave_the_bundle(tmp_path: Path) -> None:
+    out = tmp_path / "b"
+    assert _cli("tone", "sine", "--seconds", "0.01", "-o", str(out), cwd=tmp_path).returncode == 0
+    side = out / "sine.json"
+    doc = json.loads(side.read_text())
+    doc["asset"] = "../x/victim"
+    side.write_text(json.dumps(doc))
+    res = _cli("preview", str(side), "-o", str(tmp_path / "p.wav"), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "asset" in res.stderr
+
+
+@pytest.mark.parametrize(
+    "edit",
+    [
+        lambda d: d["layout"].update(bits="eight"),
+        lambda d: d["stream"].update(sample_count=-5),
+        lambda d: d.pop("layout"),
+    ],
+    ids=["bits text", "negative count", "no layout"],
+)
+def test_bad_sidecar_fields_exit_2(tmp_path: Path, edit: object) -> None:
+    out = tmp_path / "b"
+    assert _cli("tone", "sine", "--seconds", "0.01", "-o", str(out), cwd=tmp_path).returncode == 0
+    side = out / "sine.json"
+    doc = json.loads(side.read_text())
+    edit(doc)  # type: ignore[operator]
+    side.write_text(json.dumps(doc))
+    _one_line_exit_2(_cli("preview", str(side), "-o", str(tmp_path / "p.wav"), cwd=tmp_path))
+
+
+# -- whole sets ---------------------------------------------------------------------
+
+_KILLER = textwrap.dedent(
+    """
+    import os, sys
+    import ladderpack.emit as emit
+    target = sys.argv[2]
+    def hook(step):
+        if step == target:
+            os._exit(9)
+    emit._step_hook = hook
+    emit.write_files({n: (n + "-new").encode() for n in ("a.bin", "a.c", "a.json")}, sys.argv[1])
+    """
+)
+_STEPS = [
+    "temp a.bin",
+    "temp a.c",
+    "temp a.json",
+    "journal written",
+    "journal committed",
+    "moved a.bin",
+    "moved a.c",
+    "moved a.json",
+    f"moved {emit.RECORD_NAME}",
+    "done",
+]
+
+
+@pytest.mark.parametrize("step", _STEPS)
+def test_killed_replace_leaves_the_old_or_the_new_set(tmp_path: Path, step: str) -> None:
+    names = ("a.bin", "a.c", "a.json")
+    emit.write_files({n: (n + "-old").encode() for n in names}, tmp_path)
+    res = subprocess.run(
+        [sys.executable, "-c", _KILLER, str(tmp_path), step], capture_output=True, text=True
+    )
+    assert res.returncode == 9, res.stderr
+    with emit.folder_lock(tmp_path):
+        emit.recover(tmp_path)  # what the next run does first
+    got = {n: (tmp_path / n).read_bytes() for n in names}
+    old = {n: (n + "-old").encode() for n in names}
+    new = {n: (n + "-new").encode() for n in names}
+    committed = _STEPS.index(step) >= _STEPS.index("journal committed")
+    assert got == (new if committed else old)
+    assert not [p for p in os.listdir(tmp_path) if p.endswith(".part")]
+    assert not emit.pending_journal(tmp_path)
+    assert set(emit.owned_files(tmp_path)) == set(names)
+
+
+def test_check_recognises_an_interrupted_replace(tmp_path: Path) -> None:
+    _state(tmp_path)
+    (tmp_path / "gen" / emit.JOURNAL_NAME).write_text('{"moves": []}')
+    res = _cli("build", "--check", cwd=tmp_path)
+    assert res.returncode == 1
+    assert "interrupted" in res.stdout
+
+
+# -- one writer per folder ------------------------------------------------------------
+
+
+def test_second_writer_waits_then_gives_up(tmp_path: Path) -> None:
+    holder = subprocess.Popen(
+        [
+            sys.executable,
+            "-c",
+            "import sys, time, ladderpack.emit as e\n"
+            "with e.folder_lock(sys.argv[1]):\n    print('held', flush=True); time.sleep(30)\n",
+            str(tmp_path),
+        ],
+        stdout=subprocess.PIPE,
+        text=True,
+    )
+    try:
+        assert holder.stdout is not None and holder.stdout.readline().strip() == "held"
+        with (
+            pytest.raises(LadderpackError, match="another ladderpack run"),
+            emit.folder_lock(tmp_path, wait_s=0.3),
+        ):
+            pass
+    finally:
+        holder.kill()
+        holder.wait()
+    with emit.folder_lock(tmp_path, wait_s=5):  # free again once the holder is gone
+        pass
+
+
+def test_two_builds_on_one_folder_both_succeed(tmp_path: Path) -> None:
+    mf = _manifest(tmp_path, _asset("beep") + _asset("bell"))
+    procs = [
+        subprocess.Popen(
+            [sys.executable, "-m", "ladderpack", "build", str(mf)],
+            cwd=tmp_path,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        for _ in range(2)
+    ]
+    for p in procs:
+        _out, err = p.communicate(timeout=120)
+        assert p.returncode == 0, err
+    assert _cli("build", "--check", cwd=tmp_path).returncode == 0
