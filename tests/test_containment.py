@@ -381,3 +381,96 @@ def test_two_builds_on_one_folder_both_succeed(tmp_path: Path) -> None:
         _out, err = p.communicate(timeout=120)
         assert p.returncode == 0, err
     assert _cli("build", "--check", cwd=tmp_path).returncode == 0
+
+
+# -- bad input refused cleanly -------------------------------------------------------
+
+
+def test_named_pipe_as_clip_is_refused_at_once(tmp_path: Path) -> None:
+    fifo = tmp_path / "clip.wav"
+    os.mkfifo(fifo)
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "stream", str(fifo), "-o", str(tmp_path / "o")],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    _one_line_exit_2(res)
+    assert "named pipe" in res.stderr
+
+
+@pytest.mark.parametrize("fmt", ["WAV", "AIFF"])
+def test_truncated_clip_is_refused(tmp_path: Path, fmt: str) -> None:
+    # The data/SSND chunk length (Microsoft RIFF WAVE; Apple AIFF 1.3) promises more
+    # bytes than the file holds.
+    import numpy as np
+    import soundfile as sf
+
+    whole = tmp_path / f"c.{fmt.lower()}"
+    sf.write(whole, np.zeros(30000), 44100, subtype="PCM_16", format=fmt)
+    cut = tmp_path / f"cut.{fmt.lower()}"
+    cut.write_bytes(whole.read_bytes()[: whole.stat().st_size // 3])
+    res = _cli("stream", str(cut), "-o", str(tmp_path / "o"), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "cut short" in res.stderr
+    assert _cli("stream", str(whole), "-o", str(tmp_path / "o"), cwd=tmp_path).returncode == 0
+
+
+@pytest.mark.parametrize(
+    ("body", "field"),
+    [
+        ('[[asset]]\nname = "t"\ntable = "wave"\nfreqs_hz = ["a", 2]\n', "freqs_hz"),
+        ('[[asset]]\nname = "t"\ntone = "multitone"\ntones = [[1, "x"]]\n', "tones"),
+        ('[[asset]]\nname = "t"\ntone = "sine"\n\n[defaults]\nflash_bytes = inf\n', "flash"),
+        ('[[asset]]\nname = "t"\ntone = "sine"\nheadroom_db = 1e300\n', "headroom_db"),
+        ("x = " + "[" * 3000 + "]" * 3000 + "\n", "nested"),
+    ],
+    ids=["text in freqs", "junk tones", "flash inf", "huge headroom", "deep nesting"],
+)
+def test_bad_manifest_values_exit_2(tmp_path: Path, body: str, field: str) -> None:
+    (tmp_path / "ladderpack.toml").write_text(body)
+    res = _cli("build", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert field in res.stderr
+
+
+def test_huge_headroom_on_the_command_line(tmp_path: Path) -> None:
+    res = _cli("tone", "sine", "--headroom-db", "1e300", "-o", str(tmp_path / "o"), cwd=tmp_path)
+    _one_line_exit_2(res)
+
+
+def test_json_output_is_strict(tmp_path: Path) -> None:
+    # RFC 8259 has no NaN or Infinity: every --json output must parse strictly.
+    res = _cli("tone", "dc", "--seconds", "0.01", "--json", "-o", str(tmp_path / "o"), cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+
+    def refuse(name: str) -> None:
+        raise ValueError(name)
+
+    json.loads(res.stdout, parse_constant=refuse)
+    json.loads((tmp_path / "o" / "dc.json").read_text(), parse_constant=refuse)
+
+
+def test_levels_json_with_nan_is_refused(tmp_path: Path) -> None:
+    bad = tmp_path / "l.json"
+    bad.write_text('{"format": "ladderpack-levels", "bits": 1, "volts": [0, NaN]}')
+    res = _cli("table", "correction", str(bad), "-o", str(tmp_path / "o"), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "not JSON" in res.stderr or "JSON" in res.stderr
+
+
+def _sweep(tmp_path: Path, text: str) -> subprocess.CompletedProcess[str]:
+    csv = tmp_path / "sweep.csv"
+    csv.write_bytes(text.encode("utf-8"))
+    return _cli("levels", str(csv), "--bits", "2", "-o", str(tmp_path / "l.json"), cwd=tmp_path)
+
+
+def test_csv_with_byte_order_mark_is_read(tmp_path: Path) -> None:
+    res = _sweep(tmp_path, "\ufeffcode,volts\n0,0.0\n1,0.8\n2,1.6\n3,2.4\n")
+    assert res.returncode == 0, res.stderr
+
+
+def test_csv_with_semicolons_is_named_as_such(tmp_path: Path) -> None:
+    res = _sweep(tmp_path, "code;volts\n0;0.0\n1;0.8\n2;1.6\n3;2.4\n")
+    _one_line_exit_2(res)
+    assert "';'" in res.stderr and "comma" in res.stderr
