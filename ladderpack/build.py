@@ -280,13 +280,14 @@ def load_manifest(
 
 
 def _not_regular(path: str) -> str | None:
-    import stat
+    """Why `path` cannot be read as an input file, or None."""
+    from ladderpack.reading import check_regular_file
 
     try:
-        st = os.stat(path)
-    except OSError:
-        return "does not exist"
-    return None if stat.S_ISREG(st.st_mode) else "is not a regular file"
+        check_regular_file(path, what="input file")
+    except LadderpackError as exc:
+        return "does not exist" if exc.message.startswith("no such") else exc.message
+    return None
 
 
 def _contained_out_dir(mpath: str, root: str, rel: str) -> str:
@@ -712,6 +713,8 @@ def build(
 
     if depfile:
         _check_depfile_names(manifest, depfile)
+    if check and not os.path.isdir(manifest.out_dir):  # nothing to lock, nothing to create
+        return _build_locked(manifest, jobs=jobs, only=only, check=check, depfile=None, echo=echo)
     with folder_lock(manifest.out_dir, on_wait=echo):
         return _build_locked(
             manifest, jobs=jobs, only=only, check=check, depfile=depfile, echo=echo
