@@ -172,7 +172,7 @@ def truncation(path: str | os.PathLike[str]) -> str | None:
     The header's sample-data chunk (``data`` in RIFF/WAVE, Microsoft's RIFF
     specification; ``SSND`` in AIFF/AIFC, Apple's AIFF 1.3) declares its length
     in bytes; a file holding fewer bytes than that was cut short.  A length of
-    0 or 0xFFFFFFFF is the placeholder of a stream recorder, not a promise.
+    0 or 0xFFFFFFFF is what a recorder writes while still recording, not a promise.
     """
     name = os.fspath(path)
     size = os.path.getsize(name)
