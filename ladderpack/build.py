@@ -514,29 +514,17 @@ def _index_files(entries: list[dict[str, Any]]) -> dict[str, bytes]:
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 
 
-def _is_digest_map(obj: Any) -> bool:
-    from ladderpack.emit import BOOK_NAMES
-
-    return isinstance(obj, dict) and all(
-        isinstance(k, str)
-        and k
-        and "/" not in k
-        and k not in (".", "..", *BOOK_NAMES)
-        and isinstance(v, str)
-        and _HEX64.fullmatch(v)
-        for k, v in obj.items()
-    )
-
-
 def _is_count(v: Any) -> bool:
     return isinstance(v, int) and not isinstance(v, bool) and 0 <= v < 2**40
 
 
 def _valid_record(name: str, rec: Any) -> bool:
     """Whether a state-file record of asset `name` has exactly the shape we write."""
+    from ladderpack.emit import valid_digests
+
     if not isinstance(rec, dict) or not isinstance(rec.get("fingerprint"), str):
         return False
-    if not _HEX64.fullmatch(rec["fingerprint"]) or not _is_digest_map(rec.get("files")):
+    if not _HEX64.fullmatch(rec["fingerprint"]) or not valid_digests(rec.get("files")):
         return False
     inputs = rec.get("inputs")
     if not isinstance(inputs, dict) or not all(
@@ -572,6 +560,7 @@ def _load_state(out_dir: str) -> dict[str, Any]:
     A missing, damaged or edited state file never stops a build: what cannot be
     trusted is rebuilt.
     """
+    from ladderpack.emit import valid_digests
     from ladderpack.emit.names import asset_identifier
     from ladderpack.reading import read_json
 
@@ -596,7 +585,7 @@ def _load_state(out_dir: str) -> dict[str, Any]:
     return {
         "tool": state.get("tool"),
         "assets": good,
-        "index": index if _is_digest_map(index) else {},
+        "index": index if valid_digests(index) else {},
     }
 
 
@@ -847,42 +836,38 @@ def _build_locked(
         return result
 
     new_assets = dict(old)
-    if todo:
-        if jobs > 1 and len(todo) > 1:
-            with ProcessPoolExecutor(max_workers=jobs) as pool:
-                rendered = list(pool.map(_render, [s for s, _, _ in todo]))
-        else:
-            rendered = [_render(s) for s, _, _ in todo]
+    rendered: list[tuple[dict[str, bytes], dict[str, Any]]] = []
+    if jobs > 1 and len(todo) > 1:
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            rendered = list(pool.map(_render, [s for s, _, _ in todo]))
     else:
-        rendered = []
-    preview = dict(new_assets)
-    for (spec, _fp, _inputs), (_files, entry) in zip(todo, rendered, strict=True):
-        preview[spec.name] = {"entry": entry}
-    _symbol_clashes(
-        manifest,
-        {s.name: files for (s, _, _), (files, _) in zip(todo, rendered, strict=True)},
-        _index_files([preview[a.name]["entry"] for a in manifest.assets if a.name in preview]),
-    )
-    if todo:
-        for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
-            _write_changed(files, out, touch=True)
-            new_assets[spec.name] = {
-                "fingerprint": fp,
-                "inputs": inputs,
-                "files": {
-                    n: hashlib.sha256(d).hexdigest()
-                    for n, d in sorted(files.items())
-                    if n not in PLAYER_FILES
-                },
-                "entry": entry,
-            }
-            result.built.append(spec.name)
-            lines[spec.name] = f"{spec.name}: built ({entry['bytes']} bytes)"
-    for spec in manifest.assets:
-        echo(lines[spec.name])
+        rendered = [_render(s) for s, _, _ in todo]
+    for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
+        new_assets[spec.name] = {
+            "fingerprint": fp,
+            "inputs": inputs,
+            "files": {
+                n: hashlib.sha256(d).hexdigest()
+                for n, d in sorted(files.items())
+                if n not in PLAYER_FILES
+            },
+            "entry": entry,
+        }
     new_assets = {k: v for k, v in new_assets.items() if k in names}
     entries = [new_assets[a.name]["entry"] for a in manifest.assets if a.name in new_assets]
     index = _index_files(entries)
+    # Every check before the first write: the set of assets must compile together.
+    _symbol_clashes(
+        manifest,
+        {s.name: files for (s, _, _), (files, _) in zip(todo, rendered, strict=True)},
+        index,
+    )
+    for (spec, _fp, _inputs), (files, entry) in zip(todo, rendered, strict=True):
+        _write_changed(files, out, touch=True)
+        result.built.append(spec.name)
+        lines[spec.name] = f"{spec.name}: built ({entry['bytes']} bytes)"
+    for spec in manifest.assets:
+        echo(lines[spec.name])
     _write_changed(index, out, touch=True)
     result.total_bytes = sum(int(e["bytes"]) for e in entries)
     new_state = {

@@ -451,12 +451,22 @@ def test_json_output_is_strict(tmp_path: Path) -> None:
     json.loads((tmp_path / "o" / "dc.json").read_text(), parse_constant=refuse)
 
 
+def test_json_text_writes_null_for_non_finite_numbers() -> None:
+    # RFC 8259 section 6: "Numeric values that cannot be represented ... (such as Infinity
+    # and NaN) are not permitted."  The standard library would write them as bare words.
+    from ladderpack.reading import json_text
+
+    doc = {"snr_db": float("inf"), "nested": [float("nan"), 1.5], "bits": 8}
+    assert json.dumps(doc, sort_keys=True).count("Infinity") == 1
+    assert json_text(doc, indent=None) == '{"bits": 8, "nested": [null, 1.5], "snr_db": null}'
+
+
 def test_levels_json_with_nan_is_refused(tmp_path: Path) -> None:
     bad = tmp_path / "l.json"
     bad.write_text('{"format": "ladderpack-levels", "bits": 1, "volts": [0, NaN]}')
     res = _cli("table", "correction", str(bad), "-o", str(tmp_path / "o"), cwd=tmp_path)
     _one_line_exit_2(res)
-    assert "not JSON" in res.stderr or "JSON" in res.stderr
+    assert "NaN is not JSON" in res.stderr
 
 
 def _sweep(tmp_path: Path, text: str) -> subprocess.CompletedProcess[str]:

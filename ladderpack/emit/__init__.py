@@ -46,6 +46,7 @@ __all__ = [
     "owned_files",
     "pending_journal",
     "recover",
+    "valid_digests",
     "write_files",
 ]
 
@@ -181,13 +182,18 @@ def owned_files(out_dir: str | os.PathLike[str]) -> dict[str, str]:
     path = os.path.join(os.fspath(out_dir), RECORD_NAME)
     doc = _read_small_json(path)
     files = doc.get("files") if isinstance(doc, dict) else None
-    if not isinstance(files, dict):
-        return {}
-    return {
-        k: v
-        for k, v in files.items()
-        if _is_plain_name(k) and isinstance(v, str) and re.fullmatch(r"[0-9a-f]{64}", v)
-    }
+    return dict(files) if files is not None and valid_digests(files) else {}
+
+
+def valid_digests(obj: Any) -> bool:
+    """Whether `obj` maps plain output file names to SHA-256 hex digests, and nothing else."""
+    return isinstance(obj, dict) and all(
+        _is_plain_name(k)
+        and k not in BOOK_NAMES
+        and isinstance(v, str)
+        and re.fullmatch(r"[0-9a-f]{64}", v) is not None
+        for k, v in obj.items()
+    )
 
 
 def _read_small_json(path: str, limit: int = 1 << 22) -> Any:
