@@ -13,11 +13,11 @@ import numpy as np
 
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
-from ladderpack.pack import Packed, pack
+from ladderpack.pack import Packed, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
-__all__ = ["StreamAsset", "StreamSummary"]
+__all__ = ["StreamAsset", "StreamSummary", "largest_step"]
 
 
 class StreamSummary(TypedDict):
@@ -166,3 +166,42 @@ class StreamAsset:
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
+
+
+def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:
+    """Largest step between consecutive codes anywhere the pins can go, in codes.
+
+    Counts every sample slot the state machine plays (padding included): the
+    stream's ramps and audio, the step from the idle code into the first
+    sample and from the last back to the idle code, and for loops the intro, the seam
+    from the last sample to the first and the outro. The players use it to bound the
+    ramps they make at run time (a stop, a held code). Unpacks the words in chunks, so
+    memory stays bounded for long streams.
+
+    Parameters
+    ----------
+    asset : StreamAsset
+        The stream.
+    chunk_words : int
+        Words unpacked at a time.
+    """
+    lay = asset.packed.layout
+    parts = [p for p in (asset.intro, asset.packed, asset.outro) if p is not None]
+    best = 0
+    prev = asset.idle_code
+    first_of_loop: int | None = None
+    for part in parts:
+        for start in range(0, part.words.size, chunk_words):
+            # Every slot of a word is played, padding included.
+            codes = unpack(part.words[start : start + chunk_words], lay).codes.astype(np.int64)
+            if codes.size == 0:
+                continue
+            if part is asset.packed and start == 0:
+                first_of_loop = int(codes[0])
+            best = max(best, abs(int(codes[0]) - prev))
+            if codes.size > 1:
+                best = max(best, int(np.abs(np.diff(codes)).max()))
+            prev = int(codes[-1])
+        if part is asset.packed and asset.loop and first_of_loop is not None:
+            best = max(best, abs(prev - first_of_loop))
+    return max(best, abs(prev - asset.idle_code))

@@ -302,7 +302,7 @@ def plan_stream(
     else:
         audio = math.ceil(Fraction(frames) * clock.achieved_rate_hz / Fraction(rate_in_hz))
         audio += spw if opts.loop else 0
-    words = layout.words_for(audio + 2 * ramp) + (3 if opts.loop else 0)
+    words = layout.words_for(audio + 2 * max(ramp, 1)) + (3 if opts.loop else 0)
     budget = stream_budget(
         words,
         samples_per_word=spw,
@@ -480,14 +480,15 @@ def process(
         out.packed = pack(out.codes, lay, pad_code=opts.idle_code)
         out.intro, out.outro = _loop_ramps(ramp, lay, opts.idle_code)
     else:
-        words = list(
-            pack_blocks(_chain(ramp, quantised(), ramp[::-1]), lay, pad_code=opts.idle_code)
-        )
-        n = 2 * ramp.size + out.audio_samples
+        # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
+        # sample closes it, a step no larger than the one from idle into its start.
+        tail = ramp[::-1] if ramp.size else np.full(1, opts.idle_code, np.uint16)
+        words = list(pack_blocks(_chain(ramp, quantised(), tail), lay, pad_code=opts.idle_code))
+        n = ramp.size + out.audio_samples + tail.size
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
         out.packed = Packed(flat, lay, n, opts.idle_code)
         if keep:
-            out.codes = Codes(np.concatenate([ramp, *kept, ramp[::-1]]), opts.bits)
+            out.codes = Codes(np.concatenate([ramp, *kept, tail]), opts.bits)
     out.overloads, out.resets = q.overloads, q.resets
     done("pack")
     return out

@@ -13,13 +13,14 @@ from collections.abc import Iterator
 import numpy as np
 
 from ladderpack._version import __version__
-from ladderpack.asset import StreamAsset
+from ladderpack.asset import StreamAsset, largest_step
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 
 __all__ = ["render_header", "render_source"]
 
 _WORDS_PER_LINE = 8
+_PROGRAM_KIND = {"autopull": "0u", "pull": "1u", "loop": "2u"}
 
 
 def _banner(asset: StreamAsset) -> str:
@@ -46,6 +47,8 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("MSB_ON_HIGH_PIN", "1" if lay.msb_high else "0", "0: ladder MSB on OUT_BASE"),
         ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
         ("AUTOPULL", "1" if asset.program.autopull else "0", "program relies on autopull"),
+        ("PROGRAM_KIND", _PROGRAM_KIND[asset.program.variant], "LP_PROGRAM_* of the player"),
+        ("MAX_STEP", f"{largest_step(asset)}u", "largest step between consecutive codes"),
         ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
         ("INTRO_WORD_COUNT", f"{_count(asset.intro)}u", "loops: ramp up from idle"),
         ("OUTRO_WORD_COUNT", f"{_count(asset.outro)}u", "loops: ramp down to idle"),
@@ -101,6 +104,13 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_LOOP",
         f"{P}_GPIO_BASE",
+        f"{P}_BITS",
+        f"{P}_SAMPLES_PER_WORD",
+        f"{P}_MSB_ON_HIGH_PIN",
+        f"{P}_INVERTED",
+        f"{P}_IDLE_CODE",
+        f"{P}_MAX_STEP",
+        f"{P}_PROGRAM_KIND",
     ]
     lines = [
         "/* Initialiser for lp_stream_t (ladderpack_player.h):",

@@ -1,0 +1,325 @@
+"""Build firmware from bundles with the vendor SDK and run it on the emulated chip.
+
+The firmware (``tests/chip/fw``) is the generated C player and assets, compiled by CMake
+and arm-none-eabi-gcc against the vendored SDK (``../shared/vendor/pico-sdk``, 2.2.0),
+driven by a scenario of player calls. ``run.mjs`` runs the flat image on the rp2040js
+emulator (npm, pinned in ``tests/chip/package.json``) with the state machines clocked on
+a cycle-accurate schedule of its own, and records every sample that reaches the pins.
+
+Expected codes are decoded here from the ``.bin`` (or the C arrays of the intro and
+outro) and the sidecar's layout, with code of the tests' own, not with ladderpack's
+unpacker.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import subprocess
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parents[1]
+VENDOR = ROOT.parent / "shared" / "vendor"
+SDK = VENDOR / "pico-sdk"
+BOOTROM = VENDOR / "rp2040-bootrom" / "bootrom.mjs"
+
+OPS = {
+    "init": 1,
+    "start": 2,
+    "wait": 3,
+    "delay": 4,
+    "stop": 5,
+    "deinit": 6,
+    "request_stop": 7,
+    "hold": 8,
+    "mark": 9,
+}
+OP_END = 0x7F
+
+
+def require(tool: str) -> str:
+    path = shutil.which(tool)
+    if path is None:
+        pytest.fail(f"{tool} is not installed; .ci/run installs it")
+    return path
+
+
+def node_modules_ready() -> None:
+    if not (HERE / "node_modules" / "rp2040js").is_dir():
+        require("npm")
+        subprocess.run(
+            ["npm", "ci", "--no-audit", "--no-fund", "--silent"], cwd=HERE, check=True
+        )
+
+
+# --- expected codes, decoded independently ---------------------------------------------
+
+
+@dataclass(frozen=True)
+class Layout:
+    """What the sidecar says about the word layout and the pins."""
+
+    bits: int
+    spw: int
+    shift_right: bool
+    msb_high: bool
+    invert: bool
+    out_base: int
+    idle_code: int
+    sys_clock_hz: int
+    div_int: int
+    div_frac: int
+    cycles: int
+
+    @classmethod
+    def from_sidecar(cls, path: Path) -> Layout:
+        d = json.loads(path.read_text())
+        lay, clk, sm = d["layout"], d["clock"], d["state_machine"]
+        return cls(
+            bits=lay["bits"],
+            spw=lay["samples_per_word"],
+            shift_right=lay["shift"] == "right",
+            msb_high=lay["pin_order"] == "msb-high",
+            invert=lay["invert"],
+            out_base=sm["out_base"],
+            idle_code=d["stream"]["idle_code"],
+            sys_clock_hz=clk["sys_clock_hz"],
+            div_int=clk["div_int"],
+            div_frac=clk["div_frac"],
+            cycles=clk["cycles_per_sample"],
+        )
+
+    @property
+    def sample_period_clocks(self) -> float:
+        """System clocks per sample: cycles x (INT + FRAC / 256) (datasheet 3.5.5)."""
+        whole = self.div_int or 65536
+        return self.cycles * (whole + self.div_frac / 256)
+
+    def pins_to_code(self, pins: np.ndarray) -> np.ndarray:
+        """GPIO output words -> ladder codes (pin order and inversion undone)."""
+        n = self.bits
+        field_ = (np.asarray(pins, dtype=np.uint64) >> np.uint64(self.out_base)) & np.uint64(
+            (1 << n) - 1
+        )
+        if self.invert:
+            field_ = field_ ^ np.uint64((1 << n) - 1)
+        if self.msb_high:
+            return field_.astype(np.int64)
+        out = np.zeros(field_.shape, dtype=np.int64)
+        for k in range(n):
+            out |= ((field_ >> np.uint64(k)) & np.uint64(1)).astype(np.int64) << (n - 1 - k)
+        return out
+
+    def words_to_codes(self, words: np.ndarray) -> np.ndarray:
+        """Every sample slot of every word, in the order OUT sends them."""
+        n, out = self.bits, []
+        w = np.asarray(words, dtype=np.uint64)
+        for k in range(self.spw):
+            # OUT shifting right takes the least significant bits first; shifting left
+            # the most significant (RP2040 datasheet, 3.4.5 OUT).
+            shift = k * n if self.shift_right else 32 - (k + 1) * n
+            out.append((w >> np.uint64(shift)) & np.uint64((1 << n) - 1))
+        slots = np.stack(out, axis=1).reshape(-1)
+        # slot bits are pin bits: undo inversion and pin order
+        return self.pins_to_code(slots << np.uint64(self.out_base))
+
+
+def bin_words(path: Path) -> np.ndarray:
+    return np.frombuffer(path.read_bytes(), dtype="<u4")
+
+
+def c_array(source: Path, symbol: str) -> np.ndarray:
+    """The values of `const uint32_t symbol[...] = {...};` in a generated C source."""
+    m = re.search(rf"{re.escape(symbol)}\[[^\]]*\]\s*=\s*\{{([^}}]*)\}}", source.read_text())
+    if m is None:
+        return np.zeros(0, dtype=np.uint32)
+    return np.array([int(v, 16) for v in re.findall(r"0x[0-9A-Fa-f]+", m.group(1))], np.uint32)
+
+
+@dataclass
+class Stream:
+    """A bundle's asset as the tests see it: layout and the three parts' codes."""
+
+    name: str
+    layout: Layout
+    codes: np.ndarray
+    intro: np.ndarray
+    outro: np.ndarray
+
+    @classmethod
+    def load(cls, folder: Path, name: str) -> Stream:
+        lay = Layout.from_sidecar(folder / f"{name}.json")
+        src = folder / f"{name}.c"
+        return cls(
+            name,
+            lay,
+            lay.words_to_codes(bin_words(folder / f"{name}.bin")),
+            lay.words_to_codes(c_array(src, f"{name}_intro_words")),
+            lay.words_to_codes(c_array(src, f"{name}_outro_words")),
+        )
+
+    @property
+    def max_step(self) -> int:
+        seq = np.concatenate([[self.layout.idle_code], self.intro, self.codes, self.outro])
+        steps = np.abs(np.diff(seq))
+        if self.intro.size:  # the loop seam
+            steps = np.append(steps, abs(int(self.codes[-1]) - int(self.codes[0])))
+        return int(max(steps.max(), abs(int(seq[-1]) - self.layout.idle_code)))
+
+
+# --- firmware -----------------------------------------------------------------------------
+
+
+@dataclass
+class Step:
+    op: str
+    slot: int = 0
+    arg: int = 0
+    arg2: int = 0
+
+
+def scenario_header(streams: list[str], steps: list[Step]) -> str:
+    lines = [f'#include "{s}.h"' for s in streams]
+    lines.append("static const lp_stream_t lp_streams[] = {")
+    lines += [f"    {s.upper()}_STREAM_INIT," for s in streams]
+    lines.append("};")
+    lines.append("static const lp_step_t lp_steps[] = {")
+    lines += [f"    {{{OPS[s.op]}u, {s.slot}u, {s.arg}u, {s.arg2}u}}," for s in steps]
+    lines.append("};")
+    return "\n".join(lines) + "\n"
+
+
+@dataclass
+class Firmware:
+    """One CMake build tree per platform, reused by every test (only our files change)."""
+
+    root: Path
+    platform: str = "rp2040"
+    configured: bool = field(default=False)
+
+    @property
+    def build(self) -> Path:
+        return self.root / "build"
+
+    @property
+    def bundle(self) -> Path:
+        return self.root / "bundle"
+
+    @property
+    def scenario(self) -> Path:
+        return self.root / "scenario"
+
+    def make(self, bundle_dir: Path, streams: list[str], steps: list[Step]) -> Path:
+        """Build the firmware for these streams and steps; return the flat image."""
+        require("cmake")
+        require("arm-none-eabi-gcc")
+        if self.bundle.exists():
+            shutil.rmtree(self.bundle)
+        shutil.copytree(bundle_dir, self.bundle)
+        self.scenario.mkdir(parents=True, exist_ok=True)
+        (self.scenario / "scenario.h").write_text(scenario_header(streams, steps))
+        if not self.configured:
+            board = {"rp2040": "pico", "rp2350": "pico2"}[self.platform]
+            subprocess.run(
+                [
+                    "cmake",
+                    "-S",
+                    str(HERE / "fw"),
+                    "-B",
+                    str(self.build),
+                    "-G",
+                    "Ninja" if shutil.which("ninja") else "Unix Makefiles",
+                    f"-DPICO_SDK_PATH={SDK}",
+                    "-DPICO_NO_PICOTOOL=1",
+                    f"-DPICO_PLATFORM={self.platform}",
+                    f"-DPICO_BOARD={board}",
+                    f"-DLP_BUNDLE_DIR={self.bundle}",
+                    f"-DLP_SCENARIO_DIR={self.scenario}",
+                ],
+                check=True,
+                capture_output=True,
+            )
+            self.configured = True
+        done = subprocess.run(
+            ["cmake", "--build", str(self.build), "-j2"], capture_output=True, text=True
+        )
+        if done.returncode != 0:
+            pytest.fail(f"firmware build failed:\n{done.stdout[-4000:]}\n{done.stderr[-2000:]}")
+        return self.build / "lp_fw.bin"
+
+    def mailbox(self) -> int:
+        nm = subprocess.run(
+            ["arm-none-eabi-nm", str(self.build / "lp_fw.elf")],
+            check=True,
+            capture_output=True,
+            text=True,
+        ).stdout
+        m = re.search(r"^([0-9a-f]+) \w lp_test_mailbox$", nm, re.M)
+        assert m is not None
+        return int(m.group(1), 16)
+
+
+@dataclass
+class Run:
+    """What the emulator recorded."""
+
+    events: list[tuple[int, int, int]]
+    samples: dict[str, np.ndarray]  # "pio.sm" -> (n, 2) array of (cycle, pins)
+    final_pins: int
+    cycles: int
+    ended: bool
+
+    def results(self) -> list[int]:
+        """Result code of each step, signed."""
+        out = []
+        for _c, v, _p in self.events:
+            if v >> 24 in OPS.values():
+                rc = v & 0xFF
+                out.append(rc - 256 if rc > 127 else rc)
+        return out
+
+    def event_cycle(self, index: int) -> int:
+        """System clock at which step `index` finished."""
+        for c, v, _p in self.events:
+            if v >> 24 != OP_END and (v >> 8) & 0xFFFF == index:
+                return c
+        raise KeyError(index)
+
+
+def run(image: Path, mailbox: int, *, max_cycles: int = 50_000_000, tail: int = 20000) -> Run:
+    """Run a flat image on the emulated RP2040 until the scenario ends (plus `tail` clocks)."""
+    require("node")
+    node_modules_ready()
+    cfg = image.parent / "run.json"
+    cfg.write_text(
+        json.dumps(
+            {
+                "image": str(image),
+                "bootrom": str(BOOTROM),
+                "mailbox": mailbox,
+                "max_cycles": max_cycles,
+                "end_value_op": OP_END,
+                "tail_cycles": tail,
+            }
+        )
+    )
+    done = subprocess.run(
+        ["node", str(HERE / "run.mjs"), str(cfg)], capture_output=True, text=True, cwd=HERE
+    )
+    if done.returncode != 0:
+        pytest.fail(f"emulator failed: {done.stderr[-3000:]}")
+    d = json.loads(done.stdout)
+    return Run(
+        # the C runtime zeroes the mailbox before main(): not a report
+        events=[tuple(e) for e in d["events"] if e[1] >> 24],
+        samples={k: np.array(v, dtype=np.int64).reshape(-1, 2) for k, v in d["samples"].items()},
+        final_pins=d["final_pins"],
+        cycles=d["cycles"],
+        ended=d["ended"],
+    )

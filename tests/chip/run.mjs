@@ -1,0 +1,206 @@
+// Runs a flat RP2040 flash image on the rp2040js emulator (npm, MIT) with the PIO state
+// machines stepped on a cycle-accurate schedule of our own, and records what reaches the
+// pins. rp2040js models the PIO instruction set, FIFOs and DMA but not the clock divider
+// or instruction delays, and steps the PIO from a timer of its own (vendor README); here
+// every state machine gets a clock enable every CLKDIV system clocks (16.8 fixed point,
+// RP2040 datasheet 3.5.5 "Clock Dividers": the fractional part stretches some periods by
+// one clock), and an instruction with delay d occupies 1 + d enables (datasheet 3.4.1).
+//
+// Usage: node run.mjs CONFIG.json  ->  JSON on stdout
+// CONFIG: { "image": flat binary, "bootrom": bootrom.mjs, "mailbox": address of the
+//           firmware's report word, "max_cycles": limit, "end_value_op": op byte of the
+//           final report, "tail_cycles": system clocks to keep running after it,
+//           "sys_clock_hz": clock of the firmware (for the emulator's timer) }
+// Output: { "events": [[cycle, value, pins], ...],
+//           "samples": {"pio.sm": [[cycle, pins], ...]},  one entry per executed OUT PINS
+//           "final_pins": pins, "final_oe": output enables, "cycles": total, "ended": bool }
+import { readFileSync } from 'node:fs';
+import { pathToFileURL } from 'node:url';
+import { RP2040, ConsoleLogger, LogLevel, FIFO } from 'rp2040js';
+
+const config = JSON.parse(readFileSync(process.argv[2], 'utf8'));
+const { bootromB1 } = await import(pathToFileURL(config.bootrom).href);
+
+const mcu = new RP2040();
+mcu.logger = new ConsoleLogger(LogLevel.Error);
+mcu.loadBootrom(bootromB1);
+const image = readFileSync(config.image);
+mcu.flash.set(image, 0);
+mcu.core.PC = 0x10000000;
+
+const NANOS_PER_CYCLE = 1e9 / (config.sys_clock_hz || 125e6);
+let cycle = 0;
+
+// --- PIO: our own schedule -------------------------------------------------------------
+const FJOIN_TX = 1 << 30;
+for (const pio of mcu.pio) {
+  pio.run = () => {}; // no timer-driven stepping: the loop below clocks the machines
+  for (const sm of pio.machines) {
+    sm.nextEnable = -1; // system clock of the next clock enable, -1: not yet scheduled
+    sm.fracAcc = 0;
+    sm.delayLeft = 0;
+    // A state machine picks up FIFO data on its own clock, not at the instant the CPU or
+    // the DMA writes it (rp2040js would complete a stalled instruction inside the write).
+    sm.writeFIFO = function (value) {
+      if (this.txFIFO.full) {
+        this.pio.fdebug |= (1 << 16) << this.index; // TXOVER
+        return;
+      }
+      this.txFIFO.push(value);
+      this.pio.txStall &= ~((1 << 24) << this.index);
+      this.updateDMATx();
+    };
+    // A restarted machine is no longer stalled: rp2040js keeps its stall level, which
+    // would re-set FDEBUG.TXSTALL after the firmware clears it.
+    const origRestart = sm.restart.bind(sm);
+    sm.restart = function () {
+      origRestart();
+      this.pio.txStall &= ~((1 << 24) << this.index);
+    };
+    // FJOIN_TX: the TX FIFO takes the RX FIFO's storage, 8 entries (datasheet 3.5.4).
+    const origWrite = sm.writeUint32.bind(sm);
+    sm.writeUint32 = function (offset, value) {
+      const before = this.shiftCtrl;
+      origWrite(offset, value);
+      if (offset === 0x08 && ((before ^ this.shiftCtrl) & FJOIN_TX)) {
+        this.txFIFO = new FIFO(this.shiftCtrl & FJOIN_TX ? 8 : 4);
+        this.updateDMATx();
+      }
+    };
+  }
+}
+
+const samples = {};
+let pinsCache = 0;
+
+function pinWord() {
+  let v = 0;
+  for (let i = 0; i < 30; i++) {
+    if (mcu.gpio[i].outputValue) v |= 1 << i;
+  }
+  return v >>> 0;
+}
+function oeWord() {
+  let v = 0;
+  for (let i = 0; i < 30; i++) {
+    if (mcu.gpio[i].outputEnable) v |= 1 << i;
+  }
+  return v >>> 0;
+}
+
+function isOutPins(opcode) {
+  return opcode >>> 13 === 0b011 && ((opcode >> 5) & 0x7) === 0;
+}
+
+function record(pioIndex, sm) {
+  const key = `${pioIndex}.${sm.index}`;
+  sm.pio.checkChangedPins();
+  (samples[key] ||= []).push([cycle, pinWord()]);
+}
+
+function clockMachine(pioIndex, sm) {
+  if (sm.delayLeft > 0) {
+    sm.delayLeft--;
+    return;
+  }
+  const stalledPull = sm.pio.txStall;
+  if (sm.waiting) {
+    const opcode = sm.pio.instructions[sm.pc];
+    const c0 = sm.cycles;
+    sm.checkWait();
+    if (!sm.waiting) {
+      sm.delayLeft = sm.cycles - c0;
+      if (isOutPins(opcode)) record(pioIndex, sm);
+    }
+    return;
+  }
+  const pc = sm.pc;
+  const opcode = sm.pio.instructions[pc];
+  const fifoEmpty = sm.txFIFO.empty;
+  const c0 = sm.cycles;
+  sm.updatePC = true;
+  sm.executeInstruction(opcode);
+  if (sm.updatePC) sm.nextPC();
+  // PULL NOBLOCK on an empty FIFO copies X and does not stall (datasheet 3.4.7): rp2040js
+  // flags TXSTALL for it, the hardware flags only blocking PULLs and autopull OUTs.
+  if (opcode >>> 13 === 0b100 && opcode & 0x80 && !(opcode & 0x20) && fifoEmpty) {
+    const bit = (1 << 24) << sm.index;
+    sm.pio.txStall = (sm.pio.txStall & ~bit) | (stalledPull & bit);
+    sm.pio.fdebug = (sm.pio.fdebug & ~bit) | (stalledPull & bit);
+  }
+  if (!sm.waiting) {
+    sm.delayLeft = sm.cycles - c0 - 1;
+    if (isOutPins(opcode)) record(pioIndex, sm);
+  }
+}
+
+function divider(sm) {
+  const whole = sm.clockDivInt === 0 ? 65536 : sm.clockDivInt;
+  sm.fracAcc += sm.clockDivFrac;
+  if (sm.fracAcc >= 256) {
+    sm.fracAcc -= 256;
+    return whole + 1;
+  }
+  return whole;
+}
+
+function tickPIO() {
+  for (let p = 0; p < 2; p++) {
+    const pio = mcu.pio[p];
+    for (const sm of pio.machines) {
+      if (!sm.enabled) {
+        sm.nextEnable = -1;
+        sm.delayLeft = 0;
+        continue;
+      }
+      if (sm.nextEnable < 0) {
+        sm.nextEnable = cycle; // the divider starts counting when the machine is enabled
+        sm.fracAcc = 0;
+      }
+      if (cycle === sm.nextEnable) {
+        clockMachine(p, sm);
+        sm.nextEnable = cycle + divider(sm);
+      }
+    }
+  }
+}
+
+// --- mailbox ---------------------------------------------------------------------------
+const events = [];
+let endedAt = -1;
+const mailbox = config.mailbox >>> 0;
+const origWrite32 = mcu.writeUint32.bind(mcu);
+mcu.writeUint32 = (address, value) => {
+  origWrite32(address, value);
+  if (address >>> 0 === mailbox) {
+    events.push([cycle, value >>> 0, pinWord()]);
+    if (value >>> 24 === config.end_value_op && endedAt < 0) endedAt = cycle;
+  }
+};
+
+// --- main loop -------------------------------------------------------------------------
+const maxCycles = config.max_cycles;
+const tail = config.tail_cycles || 0;
+const core = mcu.core;
+while (cycle < maxCycles) {
+  if (endedAt >= 0 && cycle >= endedAt + tail) break;
+  let n = 1;
+  if (!core.waiting) n = core.executeInstruction();
+  for (let k = 0; k < n; k++) {
+    cycle++;
+    mcu.clock.tick(NANOS_PER_CYCLE);
+    tickPIO();
+  }
+}
+for (const pio of mcu.pio) pio.checkChangedPins();
+process.stdout.write(
+  JSON.stringify({
+    events,
+    samples,
+    final_pins: pinWord(),
+    final_oe: oeWord(),
+    cycles: cycle,
+    ended: endedAt >= 0,
+  }),
+);
+void pinsCache;
