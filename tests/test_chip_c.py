@@ -155,11 +155,28 @@ def test_ramp_zero_returns_to_idle(fw: Firmware, tmp_path: Path) -> None:
 
 
 def decompose_loop(codes: np.ndarray, s: Stream) -> int:
-    """Number of whole passes in intro + passes + outro; fails if it is not that."""
-    n_i, n_l, n_o = s.intro.size, s.codes.size, s.outro.size
-    np.testing.assert_array_equal(codes[:n_i], s.intro)
+    """Number of whole passes in intro + passes + outro; fails if it is not that.
+
+    The loop program reports the end once its closing word of idle codes is on the pins,
+    so idle samples at the very end may still be on their way: trailing idle codes are
+    compared without their count.
+    """
+    idle = s.layout.idle_code
+    outro = s.outro
+    while outro.size and outro[-1] == idle:
+        outro = outro[:-1]
+    while codes.size and codes[-1] == idle:
+        codes = codes[:-1]
+    # likewise the idle samples a previous playback of the loop program left behind
+    intro = s.intro
+    while intro.size and intro[0] == idle:
+        intro = intro[1:]
+    while codes.size and codes[0] == idle:
+        codes = codes[1:]
+    n_i, n_l, n_o = intro.size, s.codes.size, outro.size
+    np.testing.assert_array_equal(codes[:n_i], intro)
     body = codes[n_i : codes.size - n_o]
-    np.testing.assert_array_equal(codes[codes.size - n_o :], s.outro)
+    np.testing.assert_array_equal(codes[codes.size - n_o :], outro)
     assert body.size % n_l == 0, (body.size, n_l)
     passes = body.size // n_l
     np.testing.assert_array_equal(body, np.tile(s.codes, passes))
@@ -183,7 +200,9 @@ def test_loop_stop_at_many_points_ends_on_a_pass_boundary(
     for k in range(len(delays)):
         codes, times = played(r, s, 1 + 4 * k, 4 + 4 * k)
         assert decompose_loop(codes, s) >= 1
-        assert_period(times, s)
+        # timed from the first non-idle sample (idle ones left by the previous playback
+        # of the loop program come before a restart)
+        assert_period(times[int(np.argmax(codes != s.layout.idle_code)) :], s)
         assert np.abs(np.diff(codes)).max() <= s.max_step
     base = 1 + 4 * len(delays)
     codes, _t = played(r, s, base, base + 1)
@@ -276,9 +295,10 @@ def test_hold_code_puts_a_dc_level_on_the_pins(fw: Firmware, tmp_path: Path) -> 
     assert r.results() == [0] * 8
     code_at = [s.layout.pins_to_code(np.array([e[2]]))[0] for e in r.events]
     assert code_at[2] == 200 and code_at[3] == 200 and code_at[5] == 37
-    codes, _t = played(r, s, 1, 6)
+    codes, _t = played(r, s, 1, 5)
     assert np.abs(np.diff(codes)).max() <= s.max_step
-    codes, _t = played(r, s, 7, 8)
+    codes, _t = played(r, s, 6, 7)
+    assert np.abs(np.diff(codes)).max() <= s.max_step
     assert codes[-s.codes.size :].tolist() == s.codes.tolist()
 
 

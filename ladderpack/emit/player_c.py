@@ -466,6 +466,45 @@ static void lp_run_from(lp_player_t *p, int first) {
     p->started = true;
 }
 
+/* Chain for a loop: intro -> data <-> control (re-arms data), or data -> tail once;
+ * the tail plays the outro (or one idle word) after the last pass. Returns the first
+ * channel. */
+static __noinline int lp_setup_loop(lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    if (s->outro != NULL) {
+        lp_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
+    } else {
+        lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+    }
+    if (p->looping) {
+        /* The control channel writes the start address into the data channel's
+         * read-address trigger register each time the data channel finishes. */
+        dma_channel_config cc = dma_channel_get_default_config((uint)p->ctrl_ch);
+        channel_config_set_transfer_data_size(&cc, DMA_SIZE_32);
+        channel_config_set_read_increment(&cc, false);
+        channel_config_set_write_increment(&cc, false);
+        dma_channel_configure((uint)p->ctrl_ch, &cc, &dma_hw->ch[p->data_ch].al3_read_addr_trig,
+                              &p->loop_start, 1u, false);
+    }
+    lp_feed(p, p->data_ch, s->words, s->word_count, p->looping ? p->ctrl_ch : p->tail_ch,
+            false);
+    if (s->intro == NULL) {
+        return p->data_ch;
+    }
+    lp_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+    return p->intro_ch;
+}
+
+/* Chain for a stream: data, then (for the loop program, which repeats its last word when
+ * the FIFO runs dry) a whole word of idle codes from the tail. Returns the first channel. */
+static __noinline int lp_setup_stream(lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    bool closing = s->program_kind == LP_PROGRAM_LOOP;
+    lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+    lp_feed(p, p->data_ch, s->words, s->word_count, closing ? p->tail_ch : p->data_ch, false);
+    return p->data_ch;
+}
+
 int lp_player_start(lp_player_t *p, bool loop) {
     const lp_stream_t *s = p->stream;
     int first;
@@ -486,41 +525,7 @@ int lp_player_start(lp_player_t *p, bool loop) {
     p->looping = loop && s->loop;
     p->target_code = s->idle_code;
     p->ramp[0] = s->idle_word;
-    if (s->loop) {
-        /* Tail: the outro (or one idle word) after the last pass. */
-        if (s->outro != NULL) {
-            lp_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
-        } else {
-            lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
-        }
-        if (p->looping) {
-            /* The control channel writes the start address into the data channel's
-             * read-address trigger register each time the data channel finishes. */
-            dma_channel_config cc = dma_channel_get_default_config((uint)p->ctrl_ch);
-            channel_config_set_transfer_data_size(&cc, DMA_SIZE_32);
-            channel_config_set_read_increment(&cc, false);
-            channel_config_set_write_increment(&cc, false);
-            dma_channel_configure((uint)p->ctrl_ch, &cc,
-                                  &dma_hw->ch[p->data_ch].al3_read_addr_trig, &p->loop_start,
-                                  1u, false);
-        }
-        lp_feed(p, p->data_ch, s->words, s->word_count,
-                p->looping ? p->ctrl_ch : p->tail_ch, false);
-        if (s->intro != NULL) {
-            lp_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
-            first = p->intro_ch;
-        } else {
-            first = p->data_ch;
-        }
-    } else {
-        /* The loop program repeats its last word when the FIFO runs dry: close the
-         * stream with a whole word of idle codes for it. */
-        bool closing = s->program_kind == LP_PROGRAM_LOOP;
-        lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
-        lp_feed(p, p->data_ch, s->words, s->word_count, closing ? p->tail_ch : p->data_ch,
-                false);
-        first = p->data_ch;
-    }
+    first = s->loop ? lp_setup_loop(p) : lp_setup_stream(p);
     p->state = LP_PLAYING;
     lp_run_from(p, first);
     return LP_OK;
