@@ -57,7 +57,9 @@ def test_blocks_equal_whole_clip(
         clip, bits=bits, dither=dither, shaping=shaper, seed=3, ramp_ms=0.0, block_frames=block
     )
     got = unpack(asset.packed.words, asset.packed.layout, asset.sample_count).codes
-    np.testing.assert_array_equal(got, whole)
+    # without ramps one idle sample (code 0) closes the stream, so it ends on the idle code
+    np.testing.assert_array_equal(got[:-1], whole)
+    assert got[-1] == 0
     assert (asset.codes is None) == (block < 150_001)  # codes kept only for one block
 
 

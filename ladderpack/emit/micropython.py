@@ -9,7 +9,7 @@ read in chunks; very short streams are embedded as a literal instead.
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.asset import StreamAsset
+from ladderpack.asset import StreamAsset, largest_step
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 from ladderpack.pio import Instruction
@@ -64,10 +64,17 @@ CHUNK_WORDS = {chunk_words}
 INTRO = {intro}
 OUTRO = {outro}
 
-# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x
-# (RP2040 datasheet, PIO registers). DREQ of SM x's TX FIFO: 8 * pio + x (RP2040
-# datasheet, DMA DREQ table; RP2350 numbers PIO2 from 16 the same way).
+# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG
+# at 0x08 (TXSTALL of SM x: bit 24 + x), DBG_PADOUT at 0x3C (RP2040 datasheet, PIO
+# registers). DREQ of SM x's TX FIFO: 8 * pio + x (RP2040 datasheet, DMA DREQ table;
+# RP2350 numbers PIO2 from 16 the same way).
 _PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
+SPW = SAMPLES_PER_WORD
+SHIFT_RIGHT = {shift_right}
+MSB_HIGH = {msb_high}
+INVERTED = {invert_flag}
+MAX_STEP = {max_step}  # largest step between consecutive codes of the stream
+LOOP_PROGRAM = {loop_program}  # the program repeats its last word when the FIFO runs dry
 
 
 @rp2.asm_pio(
@@ -81,81 +88,241 @@ def ladder_program() -> None:
 {body}
 
 
+def _pins_of(code: int) -> int:
+    v = code
+    if not MSB_HIGH:
+        v = 0
+        for k in range(BITS):
+            if (code >> k) & 1:
+                v |= 1 << (BITS - 1 - k)
+    if INVERTED:
+        v = ~v & ((1 << BITS) - 1)
+    return v
+
+
+def _code_of(pins: int) -> int:
+    v = pins & ((1 << BITS) - 1)
+    if INVERTED:
+        v = ~v & ((1 << BITS) - 1)
+    if MSB_HIGH:
+        return v
+    r = 0
+    for k in range(BITS):
+        if (v >> k) & 1:
+            r |= 1 << (BITS - 1 - k)
+    return r
+
+
+def _shift(k: int) -> int:
+    # OUT shifting right sends the least significant bits first, left the most significant.
+    return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
+
+
+def _ramp_words(start: int, end: int) -> "array.array[int]":
+    \"\"\"Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
+    no step larger than MAX_STEP; a closing word of end codes for the loop program.\"\"\"
+    import math
+
+    step = MAX_STEP or 1
+    delta = abs(start - end)
+    n = 0 if delta == 0 else int(math.ceil(math.pi / 2 * delta / step)) + 1
+    codes = [start] * 0  # list of ints
+    prev = start
+    i = 1
+    while i <= n or prev != end:
+        c = end
+        if i < n:
+            c = int(math.floor(end + (start - end) * (1 + math.cos(math.pi * i / n)) / 2 + 0.5))
+        c = max(prev - step, min(prev + step, c))
+        codes.append(c)
+        prev = c
+        i += 1
+    while len(codes) % SPW:
+        codes.append(end)
+    if LOOP_PROGRAM or not codes:
+        codes += [end] * SPW
+    out = array.array("I")
+    for w in range(0, len(codes), SPW):
+        word = 0
+        for k in range(SPW):
+            word |= _pins_of(codes[w + k]) << _shift(k)
+        out.append(word)
+    return out
+
+
 class Player:
-    \"\"\"Plays the stream on state machine sm_id, fed by DMA from two buffers in turn.\"\"\"
+    \"\"\"Plays the stream on state machine sm_id, fed by DMA from two buffers in turn.
+
+    Every way a playback ends leaves the pins on the idle code without a step larger than
+    the stream's own largest step: a natural end plays the stream's closing ramp; stop()
+    on a loop finishes the current pass and plays the outro; Ctrl-C (KeyboardInterrupt)
+    or stop() on a stream ramps down at once from the code the pins were on.
+    \"\"\"
 
     def __init__(self, sm_id: int = 0, path: str = BIN_FILE, chunk_words: int = CHUNK_WORDS):
         if freq() != SYS_CLOCK_HZ:
-            raise ValueError("system clock is %d Hz; the stream was planned for %d Hz"
-                             % (freq(), SYS_CLOCK_HZ))
+            raise ValueError(
+                "system clock is %d Hz, the stream was planned for %d Hz: remake it with "
+                "--sys-clock-hz %d (or call machine.freq(%d) first)"
+                % (freq(), SYS_CLOCK_HZ, freq(), SYS_CLOCK_HZ)
+            )
         self.sm_id = sm_id
         self.path = path
         if GPIO_BASE:
             rp2.PIO(sm_id // 4).gpio_base(Pin(GPIO_BASE))  # type: ignore[attr-defined]
         self.sm = rp2.StateMachine(sm_id, ladder_program, freq=SYS_CLOCK_HZ * 256 // (
             CLKDIV_INT * 256 + CLKDIV_FRAC), out_base=Pin(OUT_BASE))
-        base = _PIO_BASE[sm_id // 4] + 0x18 * (sm_id % 4)
-        mem32[base + 0xC8] = CLKDIV_REG  # the exact 16.8 divider of the plan
-        self.txf = _PIO_BASE[sm_id // 4] + 0x10 + 4 * (sm_id % 4)
+        self.pio = _PIO_BASE[sm_id // 4]
+        self.idx = sm_id % 4
+        mem32[self.pio + 0xC8 + 0x18 * self.idx] = CLKDIV_REG  # the exact 16.8 divider
+        self.txf = self.pio + 0x10 + 4 * self.idx
         self.dma = rp2.DMA()
         self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
-                                       treq_sel=8 * (sm_id // 4) + sm_id % 4)
+                                       treq_sel=8 * (sm_id // 4) + self.idx)
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
+        self.last_word = IDLE_WORD  # the last word handed to the state machine
+
+    def _code_on_pins(self) -> int:
+        return _code_of(mem32[self.pio + 0x3C] >> (OUT_BASE - GPIO_BASE))
 
     def _send(self, buf: "array.array[int]", count: int) -> None:
         while self.dma.active():
             pass
+        self.last_word = buf[count - 1]
+        self.cur, self.cur_n = buf, count
         self.dma.config(read=buf, write=self.txf, count=count, ctrl=self.ctrl, trigger=True)
 
-    def _drain(self) -> None:
-        while self.dma.active() or self.sm.tx_fifo():
+    def _put(self, words: "array.array[int]") -> None:
+        while self.dma.active():
             pass
+        for w in words:
+            self.sm.put(w)
+        if len(words):
+            self.last_word = words[-1]
+
+    def _drained(self, code: int) -> bool:
+        if self.dma.active() or self.sm.tx_fifo():
+            return False
+        if LOOP_PROGRAM:  # it took its closing word (all one code): done once that shows
+            return self._code_on_pins() == code
+        # autopull and pull stall on the empty FIFO only once the last word has left
+        # the output shift register (FDEBUG.TXSTALL)
+        return bool(mem32[self.pio + 0x08] & (1 << (24 + self.idx)))
+
+    def _drain(self, code: int = IDLE_CODE) -> None:
+        while not self._drained(code):
+            pass
+
+    def _restart(self) -> None:
+        self.sm.active(0)
+        self.sm.restart()
+
+    def _go(self) -> None:
+        mem32[self.pio + 0x08] = 1 << (24 + self.idx)  # clear TXSTALL
+        self.sm.active(1)
 
     def stop(self) -> None:
         \"\"\"Ask a running play() to finish (safe to call from an interrupt handler).\"\"\"
         self.running = False
 
+    def _abort_to(self, code: int) -> None:
+        # where the stream is: the last sample of the last word the DMA handed over
+        sent = self.last_word
+        if self.dma.active():
+            self.dma.active(0)
+            # transfers made of this buffer (rp2.DMA.count: those left; the stubs lack it)
+            done = self.cur_n - self.dma.count  # type: ignore[attr-defined]
+            sent = self.cur[done - 1] if done > 0 else self.prev_word
+        start = _code_of(sent >> _shift(SPW - 1))
+        self._put(_ramp_words(start, code))
+        self._drain(code)
+
     def play(self, loop: bool = LOOP) -> None:
-        \"\"\"Play once, or repeat (loop=True) until stop() is called.\"\"\"
+        \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
+        pins are back on the idle code.\"\"\"
         self.running = True
-        self.sm.put(IDLE_WORD)  # start on the idle level whatever the program
-        self.sm.active(1)
+        self._restart()
+        self.prev_word = IDLE_WORD
+        self.cur, self.cur_n = self.bufs[0], 0
         try:
-            if INTRO is not None:
-                self.sm.put(INTRO)
             if WORDS is not None:
-                while self.running:
-                    self._send(WORDS, WORD_COUNT)
-                    if not loop:
-                        break
+                self._play_words(WORDS, loop)
             else:
-                self._stream_file(loop)
-            self._drain()
+                self._play_file(loop)
             if OUTRO is not None:
-                self.sm.put(OUTRO)
-                self._drain()
+                self._put(OUTRO)
+            elif LOOP_PROGRAM:
+                self._put(array.array("I", [IDLE_WORD]))
+            self._drain()
+        except KeyboardInterrupt:
+            self._abort_to(IDLE_CODE)
+            raise
         finally:
             self.dma.active(0)
             self.running = False
-            self.sm.active(0)
 
-    def _stream_file(self, loop: bool) -> None:
+    def _intro(self) -> None:
+        # the first words go into the FIFO before the machine runs, so the loop program
+        # never repeats a word while playback starts
+        if INTRO is None:
+            return
+        head = min(len(INTRO), 8)
+        for w in INTRO[:head]:
+            self.sm.put(w)
+        self._go()
+        for w in INTRO[head:]:
+            self.sm.put(w)
+        self.last_word = INTRO[len(INTRO) - 1]
+
+    def _play_words(self, words: "array.array[int]", loop: bool) -> None:
+        self._intro()
+        self._send(words, WORD_COUNT)
+        if INTRO is None:
+            self._go()
+        while loop and self.running:
+            self.prev_word = words[WORD_COUNT - 1]
+            self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
+        if not LOOP and not self.running:
+            self._abort_to(IDLE_CODE)  # a stream stopped early ramps down at once
+
+    def _play_file(self, loop: bool) -> None:
         with open(self.path, "rb") as f:
             which = 0
-            while self.running:
+            n = f.readinto(self.bufs[0]) // 4  # read before the machine runs
+            self._intro()
+            self._send(self.bufs[0], n)
+            if INTRO is None:
+                self._go()
+            while True:
+                which ^= 1
                 buf = self.bufs[which]
-                n = f.readinto(buf) // 4
+                n = f.readinto(buf) // 4  # read the next chunk while this one plays
                 if n == 0:
-                    if not loop:
+                    if not (loop and self.running):
                         break
-                    f.seek(0)
+                    f.seek(0)  # a loop ends only on a pass boundary
                     continue
-                self._send(buf, n)  # starts as soon as the previous buffer is done
-                which ^= 1  # read the next chunk while this one plays
+                if not self.running and not LOOP:
+                    self._abort_to(IDLE_CODE)  # a stream stops at once, ramping down
+                    return
+                self.prev_word = self.cur[self.cur_n - 1]
+                self._send(buf, n)
+
+    def hold_code(self, code: int) -> None:
+        \"\"\"Put `code` on the pins and hold it (the ladder as a DC source), ramping from
+        the code the pins hold with no step larger than MAX_STEP.\"\"\"
+        if not 0 <= code < (1 << BITS):
+            raise ValueError("code %d is outside 0..%d" % (code, (1 << BITS) - 1))
+        words = _ramp_words(self._code_on_pins(), code)
+        self._restart()
+        for w in words:
+            self.sm.put(w)
+        self._go()
+        self._drain(code)
 
     def close(self) -> None:
-        \"\"\"Release the DMA channel and the state machine.\"\"\"
+        \"\"\"Release the DMA channel and the state machine (the pins keep their code).\"\"\"
         self.dma.close()
         self.sm.active(0)
 
@@ -244,6 +411,11 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         shiftdir="SHIFT_RIGHT" if lay.shift_right else "SHIFT_LEFT",
         autopull=prog.autopull,
         body="\n".join(body),
+        shift_right=lay.shift_right,
+        msb_high=lay.msb_high,
+        invert_flag=lay.invert,
+        max_step=largest_step(asset),
+        loop_program=prog.variant == "loop",
     )
 
 

@@ -53,9 +53,7 @@ def require(tool: str) -> str:
 def node_modules_ready() -> None:
     if not (HERE / "node_modules" / "rp2040js").is_dir():
         require("npm")
-        subprocess.run(
-            ["npm", "ci", "--no-audit", "--no-fund", "--silent"], cwd=HERE, check=True
-        )
+        subprocess.run(["npm", "ci", "--no-audit", "--no-fund", "--silent"], cwd=HERE, check=True)
 
 
 # --- expected codes, decoded independently ---------------------------------------------

@@ -19,6 +19,8 @@
 #define CHIME_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define CHIME_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define CHIME_AUTOPULL            1 /* program relies on autopull */
+#define CHIME_PROGRAM_KIND        0u /* LP_PROGRAM_* of the player */
+#define CHIME_MAX_STEP            119u /* largest step between consecutive codes */
 #define CHIME_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define CHIME_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
 #define CHIME_OUTRO_WORD_COUNT    0u /* loops: ramp down to idle */
@@ -68,7 +70,14 @@ extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
     CHIME_IDLE_WORD, \
     CHIME_SYS_CLOCK_HZ, \
     CHIME_LOOP, \
-    CHIME_GPIO_BASE \
+    CHIME_GPIO_BASE, \
+    CHIME_BITS, \
+    CHIME_SAMPLES_PER_WORD, \
+    CHIME_MSB_ON_HIGH_PIN, \
+    CHIME_INVERTED, \
+    CHIME_IDLE_CODE, \
+    CHIME_MAX_STEP, \
+    CHIME_PROGRAM_KIND \
 }
 
 #endif /* LADDERPACK_CHIME_H */

@@ -19,6 +19,8 @@
 #define BENCH_MSB_ON_HIGH_PIN     0 /* 0: ladder MSB on OUT_BASE */
 #define BENCH_INVERTED            1 /* 1: bits inverted for an inverting buffer */
 #define BENCH_AUTOPULL            0 /* program relies on autopull */
+#define BENCH_PROGRAM_KIND        2u /* LP_PROGRAM_* of the player */
+#define BENCH_MAX_STEP            240u /* largest step between consecutive codes */
 #define BENCH_LOOP                1 /* 1: a loop, with separate intro and outro */
 #define BENCH_INTRO_WORD_COUNT    12u /* loops: ramp up from idle */
 #define BENCH_OUTRO_WORD_COUNT    13u /* loops: ramp down to idle */
@@ -70,7 +72,14 @@ extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
     BENCH_IDLE_WORD, \
     BENCH_SYS_CLOCK_HZ, \
     BENCH_LOOP, \
-    BENCH_GPIO_BASE \
+    BENCH_GPIO_BASE, \
+    BENCH_BITS, \
+    BENCH_SAMPLES_PER_WORD, \
+    BENCH_MSB_ON_HIGH_PIN, \
+    BENCH_INVERTED, \
+    BENCH_IDLE_CODE, \
+    BENCH_MAX_STEP, \
+    BENCH_PROGRAM_KIND \
 }
 
 #endif /* LADDERPACK_BENCH_H */

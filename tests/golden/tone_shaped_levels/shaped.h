@@ -19,6 +19,8 @@
 #define SHAPED_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define SHAPED_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define SHAPED_AUTOPULL            0 /* program relies on autopull */
+#define SHAPED_PROGRAM_KIND        1u /* LP_PROGRAM_* of the player */
+#define SHAPED_MAX_STEP            10u /* largest step between consecutive codes */
 #define SHAPED_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define SHAPED_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
 #define SHAPED_OUTRO_WORD_COUNT    0u /* loops: ramp down to idle */
@@ -68,7 +70,14 @@ extern const uint16_t shaped_program[SHAPED_PROGRAM_LENGTH];
     SHAPED_IDLE_WORD, \
     SHAPED_SYS_CLOCK_HZ, \
     SHAPED_LOOP, \
-    SHAPED_GPIO_BASE \
+    SHAPED_GPIO_BASE, \
+    SHAPED_BITS, \
+    SHAPED_SAMPLES_PER_WORD, \
+    SHAPED_MSB_ON_HIGH_PIN, \
+    SHAPED_INVERTED, \
+    SHAPED_IDLE_CODE, \
+    SHAPED_MAX_STEP, \
+    SHAPED_PROGRAM_KIND \
 }
 
 #endif /* LADDERPACK_SHAPED_H */

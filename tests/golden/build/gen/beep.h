@@ -19,6 +19,8 @@
 #define BEEP_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define BEEP_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define BEEP_AUTOPULL            1 /* program relies on autopull */
+#define BEEP_PROGRAM_KIND        0u /* LP_PROGRAM_* of the player */
+#define BEEP_MAX_STEP            45u /* largest step between consecutive codes */
 #define BEEP_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define BEEP_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
 #define BEEP_OUTRO_WORD_COUNT    0u /* loops: ramp down to idle */
@@ -68,7 +70,14 @@ extern const uint16_t beep_program[BEEP_PROGRAM_LENGTH];
     BEEP_IDLE_WORD, \
     BEEP_SYS_CLOCK_HZ, \
     BEEP_LOOP, \
-    BEEP_GPIO_BASE \
+    BEEP_GPIO_BASE, \
+    BEEP_BITS, \
+    BEEP_SAMPLES_PER_WORD, \
+    BEEP_MSB_ON_HIGH_PIN, \
+    BEEP_INVERTED, \
+    BEEP_IDLE_CODE, \
+    BEEP_MAX_STEP, \
+    BEEP_PROGRAM_KIND \
 }
 
 #endif /* LADDERPACK_BEEP_H */

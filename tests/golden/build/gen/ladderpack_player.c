@@ -6,29 +6,219 @@
 #include "hardware/dma.h"
 #include "hardware/pio.h"
 
-static void lp_put_all(PIO pio, uint sm, const uint32_t *words, uint32_t count) {
+#define LP_IDLE     0u
+#define LP_PLAYING  1u
+#define LP_STOPPING 2u
+
+/* (1 + cos(pi k / 64)) / 2 in Q15, k = 0..64: the shape of every ramp made at run time
+ * (the same raised cosine as the stream's own ramps). */
+static const uint16_t lp_cosine_q15[65] = {
+    32767u, 32748u, 32689u, 32591u, 32453u, 32277u, 32063u, 31810u,
+    31521u, 31195u, 30833u, 30437u, 30007u, 29544u, 29049u, 28524u,
+    27969u, 27387u, 26778u, 26144u, 25486u, 24807u, 24107u, 23389u,
+    22654u, 21904u, 21140u, 20365u, 19580u, 18788u, 17990u, 17188u,
+    16384u, 15580u, 14778u, 13980u, 13188u, 12403u, 11628u, 10864u,
+    10114u, 9379u, 8661u, 7961u, 7282u, 6624u, 5990u, 5381u,
+    4799u, 4244u, 3719u, 3224u, 2761u, 2331u, 1935u, 1573u,
+    1247u, 958u, 705u, 491u, 315u, 177u, 79u, 20u,
+    0u
+};
+
+/* Ladder code -> the bits OUT writes to the pins (pin order, inversion). */
+static uint32_t lp_pins_of(const lp_stream_t *s, uint32_t code) {
+    uint32_t v = code;
+    uint32_t k;
+    if (!s->msb_high) {
+        v = 0u;
+        for (k = 0u; k < s->bits; ++k) {
+            if ((code >> k) & 1u) {
+                v |= 1u << (s->bits - 1u - k);
+            }
+        }
+    }
+    if (s->invert) {
+        v = ~v & ((1u << s->bits) - 1u);
+    }
+    return v;
+}
+
+/* Pin bits -> ladder code (the inverse of lp_pins_of). */
+static uint32_t lp_code_of(const lp_stream_t *s, uint32_t pins) {
+    uint32_t v = pins & ((1u << s->bits) - 1u);
+    uint32_t r = 0u;
+    uint32_t k;
+    if (s->invert) {
+        v = ~v & ((1u << s->bits) - 1u);
+    }
+    if (s->msb_high) {
+        return v;
+    }
+    for (k = 0u; k < s->bits; ++k) {
+        if ((v >> k) & 1u) {
+            r |= 1u << (s->bits - 1u - k);
+        }
+    }
+    return r;
+}
+
+/* Bit position of sample slot k in a FIFO word: OUT shifting right sends the least
+ * significant bits first, shifting left the most significant (RP2040 datasheet, OUT). */
+static uint32_t lp_slot_shift(const lp_stream_t *s, uint32_t k) {
+    return s->shift_right ? k * s->bits : 32u - (k + 1u) * s->bits;
+}
+
+/* The code in the last sample slot of a word: what the pins hold once it has played. */
+static uint32_t lp_last_code(const lp_stream_t *s, uint32_t word) {
+    uint32_t shift = lp_slot_shift(s, s->samples_per_word - 1u);
+    return lp_code_of(s, word >> shift);
+}
+
+/* The code the pins hold now (the pad outputs this PIO block drives). */
+static uint32_t lp_code_on_pins(const lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    return lp_code_of(s, p->pio->dbg_padout >> (s->out_base - s->gpio_base));
+}
+
+/* Fill p->ramp with a raised-cosine ramp from the code on the pins (`from`, not repeated)
+ * to `to`, padded with `to`, with no step larger than the stream's largest step. The loop
+ * program repeats the last word when its FIFO runs dry, so for it a whole word of `to`
+ * closes the ramp. Returns the number of words. Kept out of line: inlined into
+ * lp_player_start, gcc 12.2 at -O3 (the SDK's Release setting) built a start that skipped
+ * the loop set-up, seen on the emulated chip. */
+static __noinline uint32_t lp_build_ramp(lp_player_t *p, uint32_t from, uint32_t to) {
+    const lp_stream_t *s = p->stream;
+    uint32_t spw = s->samples_per_word;
+    uint32_t step = s->max_step ? s->max_step : 1u;
+    uint32_t delta = from > to ? from - to : to - from;
+    uint32_t cap = (LP_RAMP_WORDS - 1u) * spw;
+    uint32_t n = 0u;
+    uint32_t count = 0u;
+    uint32_t words = 0u;
+    uint32_t word = 0u;
+    int32_t prev = (int32_t)from;
     uint32_t i;
-    for (i = 0; i < count; ++i) {
-        pio_sm_put_blocking(pio, sm, words[i]);
+
+    if (delta != 0u) {
+        /* The raised cosine's steepest step is (pi / 2) delta / n; 355 / 226 > pi / 2. */
+        n = (355u * delta + 226u * step - 1u) / (226u * step) + 1u;
+        if (n > cap) {
+            n = cap;
+        }
+    }
+    for (i = 1u; i <= n || (uint32_t)prev != to; ++i) {
+        int32_t code;
+        if (i <= n) {
+            uint32_t pos = (i << 14) / n; /* 0..64 in Q8 */
+            uint32_t idx = pos >> 8;
+            int32_t frac = (int32_t)(pos & 255u);
+            int32_t c0 = lp_cosine_q15[idx];
+            int32_t c1 = lp_cosine_q15[idx < 64u ? idx + 1u : 64u];
+            int32_t w = c0 + (((c1 - c0) * frac) >> 8);
+            int64_t span = (int64_t)from - (int64_t)to;
+            code = (int32_t)to + (int32_t)((span * w + (span >= 0 ? 16384 : -16384)) / 32768);
+        } else {
+            code = (int32_t)to;
+        }
+        if (code > prev + (int32_t)step) {
+            code = prev + (int32_t)step;
+        } else if (code < prev - (int32_t)step) {
+            code = prev - (int32_t)step;
+        }
+        if (count == cap) {
+            break; /* the buffer is full: the closing word below jumps the rest */
+        }
+        word |= lp_pins_of(s, (uint32_t)code) << lp_slot_shift(s, count % spw);
+        ++count;
+        if (count % spw == 0u) {
+            p->ramp[words++] = word;
+            word = 0u;
+        }
+        prev = code;
+    }
+    if (count % spw != 0u) {
+        for (i = count % spw; i < spw; ++i) {
+            word |= lp_pins_of(s, to) << lp_slot_shift(s, i);
+        }
+        p->ramp[words++] = word;
+    }
+    if (s->program_kind == LP_PROGRAM_LOOP || (uint32_t)prev != to) {
+        word = 0u;
+        for (i = 0u; i < spw; ++i) {
+            word |= lp_pins_of(s, to) << lp_slot_shift(s, i);
+        }
+        p->ramp[words++] = word;
+    }
+    return words;
+}
+
+static dma_channel_config lp_feed_config(const lp_player_t *p, uint ch) {
+    dma_channel_config c = dma_channel_get_default_config(ch);
+    channel_config_set_transfer_data_size(&c, DMA_SIZE_32);
+    channel_config_set_read_increment(&c, true);
+    channel_config_set_write_increment(&c, false);
+    channel_config_set_dreq(&c, pio_get_dreq(p->pio, p->sm, true));
+    return c;
+}
+
+/* Configure channel ch to feed `count` words from `words` to the FIFO, chained to `chain`
+ * (ch itself for none), started now or by a chain. */
+static void lp_feed(lp_player_t *p, int ch, const uint32_t *words, uint32_t count, int chain,
+                    bool now) {
+    dma_channel_config c = lp_feed_config(p, (uint)ch);
+    channel_config_set_chain_to(&c, (uint)chain);
+    dma_channel_configure((uint)ch, &c, &p->pio->txf[p->sm], words, count, now);
+}
+
+static uint32_t lp_channel_mask(const lp_player_t *p) {
+    uint32_t m = 0u;
+    if (p->data_ch >= 0) m |= 1u << (uint)p->data_ch;
+    if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
+    if (p->intro_ch >= 0) m |= 1u << (uint)p->intro_ch;
+    if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    return m;
+}
+
+/* Abort every channel of the player. RP2350-E5 (SDK dma_channel_abort): clear the enable
+ * bit of the aborted channels and of any channel chained from them first, so no chain
+ * can re-trigger one of them. */
+static void lp_abort_all(lp_player_t *p) {
+    uint32_t mask = lp_channel_mask(p);
+    uint ch;
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        if (mask & (1u << ch)) {
+            dma_hw->ch[ch].al1_ctrl = dma_hw->ch[ch].al1_ctrl & ~DMA_CH0_CTRL_TRIG_EN_BITS;
+        }
+    }
+    dma_hw->abort = mask;
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        if (mask & (1u << ch)) {
+            while (dma_hw->ch[ch].ctrl_trig & DMA_CH0_CTRL_TRIG_BUSY_BITS) {
+                tight_loop_contents();
+            }
+        }
     }
 }
 
-static void lp_wait_drained(PIO pio, uint sm) {
-    while (!pio_sm_is_tx_fifo_empty(pio, sm)) {
-        tight_loop_contents();
-    }
+static void lp_release(lp_player_t *p) {
+    if (p->data_ch >= 0) dma_channel_unclaim((uint)p->data_ch);
+    if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
+    if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
+    if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
 }
 
 int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
-    pio_sm_config c;
     uint64_t mask;
     int sm;
+    int offset;
     uint i;
 
+    p->stream = NULL;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    p->state = LP_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
-        return -3;
+        return LP_ERR_CLOCK;
     }
-    p->stream = s;
     p->pio = pio;
     p->program.instructions = s->program;
     p->program.length = s->program_length;
@@ -38,62 +228,92 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
      * block with no program loaded can change it). */
     if (pio_get_gpio_base(pio) != s->gpio_base
         && pio_set_gpio_base(pio, s->gpio_base) != PICO_OK) {
-        return -4;
+        return LP_ERR_GPIO;
     }
 #else
     if (s->gpio_base != 0u) {
-        return -4;
+        return LP_ERR_GPIO;
     }
 #endif
     if (!pio_can_add_program(pio, &p->program)) {
-        return -1;
+        return LP_ERR_PROGRAM_SPACE;
+    }
+    p->data_ch = dma_claim_unused_channel(false);
+    p->tail_ch = dma_claim_unused_channel(false);
+    if (s->loop) {
+        p->ctrl_ch = dma_claim_unused_channel(false);
+        if (s->intro != NULL) {
+            p->intro_ch = dma_claim_unused_channel(false);
+        }
+    }
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
+        || (s->loop && s->intro != NULL && p->intro_ch < 0)) {
+        lp_release(p);
+        return LP_ERR_NO_DMA;
     }
     sm = pio_claim_unused_sm(pio, false);
     if (sm < 0) {
-        return -2;
+        lp_release(p);
+        return LP_ERR_NO_SM;
+    }
+    offset = pio_add_program(pio, &p->program);
+    if (offset < 0) {
+        pio_sm_unclaim(pio, (uint)sm);
+        lp_release(p);
+        return LP_ERR_PROGRAM_SPACE;
     }
     p->sm = (uint)sm;
-    p->offset = pio_add_program(pio, &p->program);
+    p->offset = (uint)offset;
 
-    c = pio_get_default_sm_config();
-    sm_config_set_wrap(&c, p->offset + s->wrap_target, p->offset + s->wrap);
-    sm_config_set_out_pins(&c, s->out_base, s->out_count);
-    sm_config_set_out_shift(&c, s->shift_right, s->autopull, s->pull_threshold);
-    sm_config_set_fifo_join(&c, PIO_FIFO_JOIN_TX);
-    sm_config_set_clkdiv_int_frac(&c, s->clkdiv_int, s->clkdiv_frac);
+    p->config = pio_get_default_sm_config();
+    sm_config_set_wrap(&p->config, p->offset + s->wrap_target, p->offset + s->wrap);
+    sm_config_set_out_pins(&p->config, s->out_base, s->out_count);
+    sm_config_set_out_shift(&p->config, s->shift_right, s->autopull, s->pull_threshold);
+    sm_config_set_fifo_join(&p->config, PIO_FIFO_JOIN_TX);
+    sm_config_set_clkdiv_int_frac8(&p->config, s->clkdiv_int, s->clkdiv_frac);
 
-    for (i = 0; i < s->out_count; ++i) {
-        pio_gpio_init(pio, s->out_base + i);
-    }
     mask = ((1ull << s->out_count) - 1ull) << s->out_base;
     pio_sm_set_pins_with_mask64(pio, p->sm, (uint64_t)s->idle_pins << s->out_base, mask);
-    pio_sm_set_consecutive_pindirs(pio, p->sm, s->out_base, s->out_count, true);
-    pio_sm_init(pio, p->sm, p->offset, &c);
-
-    p->data_ch = dma_claim_unused_channel(true);
-    p->ctrl_ch = dma_claim_unused_channel(true);
+    pio_sm_set_pindirs_with_mask64(pio, p->sm, mask, mask);
+    for (i = 0u; i < s->out_count; ++i) {
+        pio_gpio_init(pio, s->out_base + i);
+    }
+    pio_sm_init(pio, p->sm, p->offset, &p->config);
     p->loop_start = s->words;
-    return 0;
+    p->looping = false;
+    p->started = false;
+    p->stream = s;
+    return LP_OK;
 }
 
-void lp_player_start(lp_player_t *p, bool loop) {
-    const lp_stream_t *s = p->stream;
-    dma_channel_config dc = dma_channel_get_default_config((uint)p->data_ch);
-    bool looping = loop && s->loop;
-
-    channel_config_set_transfer_data_size(&dc, DMA_SIZE_32);
-    channel_config_set_read_increment(&dc, true);
-    channel_config_set_write_increment(&dc, false);
-    channel_config_set_dreq(&dc, pio_get_dreq(p->pio, p->sm, true));
-
-    /* An idle word first: the state machine never starts on anything but the idle level
-     * (the loop program would otherwise replay its X register). */
-    pio_sm_put(p->pio, p->sm, s->idle_word);
-    pio_sm_set_enabled(p->pio, p->sm, true);
-    if (s->loop && s->intro != NULL) {
-        lp_put_all(p->pio, p->sm, s->intro, s->intro_count);
+/* Restart the state machine at its program with empty FIFOs and let channel `first` fill
+ * the FIFO before it runs, so the first sample is the stream's first (the loop program
+ * would otherwise replay its X register). */
+static void lp_run_from(lp_player_t *p, int first) {
+    pio_sm_set_enabled(p->pio, p->sm, false);
+    pio_sm_init(p->pio, p->sm, p->offset, &p->config);
+    dma_channel_start((uint)first);
+    while (!pio_sm_is_tx_fifo_full(p->pio, p->sm) && dma_channel_is_busy((uint)first)) {
+        tight_loop_contents();
     }
-    if (looping) {
+    /* TXSTALL (write 1 to clear) marks the end of a playback in lp_player_busy: clear
+     * what an earlier playback left, while the machine is stopped and its FIFO full. */
+    p->pio->fdebug = 1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm);
+    pio_sm_set_enabled(p->pio, p->sm, true);
+    p->started = true;
+}
+
+/* Chain for a loop: intro -> data <-> control (re-arms data), or data -> tail once;
+ * the tail plays the outro (or one idle word) after the last pass. Returns the first
+ * channel. */
+static __noinline int lp_setup_loop(lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    if (s->outro != NULL) {
+        lp_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
+    } else {
+        lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+    }
+    if (p->looping) {
         /* The control channel writes the start address into the data channel's
          * read-address trigger register each time the data channel finishes. */
         dma_channel_config cc = dma_channel_get_default_config((uint)p->ctrl_ch);
@@ -101,37 +321,196 @@ void lp_player_start(lp_player_t *p, bool loop) {
         channel_config_set_read_increment(&cc, false);
         channel_config_set_write_increment(&cc, false);
         dma_channel_configure((uint)p->ctrl_ch, &cc, &dma_hw->ch[p->data_ch].al3_read_addr_trig,
-                              &p->loop_start, 1, false);
-        channel_config_set_chain_to(&dc, (uint)p->ctrl_ch);
+                              &p->loop_start, 1u, false);
     }
-    dma_channel_configure((uint)p->data_ch, &dc, &p->pio->txf[p->sm], s->words, s->word_count,
-                          true);
+    lp_feed(p, p->data_ch, s->words, s->word_count, p->looping ? p->ctrl_ch : p->tail_ch,
+            false);
+    if (s->intro == NULL) {
+        return p->data_ch;
+    }
+    lp_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+    return p->intro_ch;
 }
 
-bool lp_player_busy(const lp_player_t *p) {
-    return dma_channel_is_busy((uint)p->data_ch) || !pio_sm_is_tx_fifo_empty(p->pio, p->sm);
-}
-
-void lp_player_stop(lp_player_t *p) {
+/* Chain for a stream: data, then (for the loop program, which repeats its last word when
+ * the FIFO runs dry) a whole word of idle codes from the tail. Returns the first channel. */
+static __noinline int lp_setup_stream(lp_player_t *p) {
     const lp_stream_t *s = p->stream;
-    dma_channel_config dc = dma_get_channel_config((uint)p->data_ch);
+    bool closing = s->program_kind == LP_PROGRAM_LOOP;
+    lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+    lp_feed(p, p->data_ch, s->words, s->word_count, closing ? p->tail_ch : p->data_ch, false);
+    return p->data_ch;
+}
 
-    /* Break the chain before aborting, so the control channel cannot re-arm it. */
-    channel_config_set_chain_to(&dc, (uint)p->data_ch);
-    dma_channel_set_config((uint)p->data_ch, &dc, false);
-    dma_channel_abort((uint)p->ctrl_ch);
-    dma_channel_abort((uint)p->data_ch);
-    lp_wait_drained(p->pio, p->sm);
-    if (s->loop && s->outro != NULL) {
-        lp_put_all(p->pio, p->sm, s->outro, s->outro_count);
-        lp_wait_drained(p->pio, p->sm);
+int lp_player_start(lp_player_t *p, bool loop) {
+    const lp_stream_t *s = p->stream;
+    int first;
+
+    if (s == NULL) {
+        return LP_ERR_STATE;
     }
+    if (lp_player_busy(p)) {
+        return LP_ERR_BUSY;
+    }
+    if (p->started && lp_code_on_pins(p) != s->idle_code) {
+        /* After lp_player_hold_code: back to the idle code first (blocking, one ramp). */
+        lp_player_hold_code(p, s->idle_code);
+        while (lp_player_busy(p)) {
+            tight_loop_contents();
+        }
+    }
+    p->looping = loop && s->loop;
+    p->target_code = s->idle_code;
+    p->ramp[0] = s->idle_word;
+    first = s->loop ? lp_setup_loop(p) : lp_setup_stream(p);
+    p->state = LP_PLAYING;
+    lp_run_from(p, first);
+    return LP_OK;
+}
+
+bool lp_player_busy(lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    uint32_t mask;
+    uint ch;
+
+    if (s == NULL || p->state == LP_IDLE) {
+        return false;
+    }
+    mask = lp_channel_mask(p);
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
+            return true;
+        }
+    }
+    if (!pio_sm_is_tx_fifo_empty(p->pio, p->sm)) {
+        return true;
+    }
+    if (s->program_kind == LP_PROGRAM_LOOP) {
+        /* It has taken its closing word (all one code): done once that is on the pins. */
+        if (lp_code_on_pins(p) != p->target_code) {
+            return true;
+        }
+    } else if (!(p->pio->fdebug & (1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm)))) {
+        /* Autopull and pull stall on an empty FIFO once the last word has left the
+         * output shift register: until then samples are still on their way out. */
+        return true;
+    }
+    p->state = LP_IDLE;
+    return false;
+}
+
+int lp_player_request_stop(lp_player_t *p) {
+    const lp_stream_t *s = p->stream;
+    uint32_t sent;
+    uint32_t last;
+    uint32_t n;
+
+    if (s == NULL) {
+        return LP_ERR_STATE;
+    }
+    if (!lp_player_busy(p) || p->state == LP_STOPPING) {
+        return LP_OK;
+    }
+    p->state = LP_STOPPING;
+    if (s->loop) {
+        /* End on a pass boundary: re-point the data channel's chain from the control
+         * channel to the outro. Either this pass or, if the control channel has just
+         * re-armed it, the next one is the last. */
+        if (p->looping) {
+            uint32_t ctrl = dma_hw->ch[p->data_ch].al1_ctrl;
+            ctrl = (ctrl & ~DMA_CH0_CTRL_TRIG_CHAIN_TO_BITS)
+                   | ((uint32_t)p->tail_ch << DMA_CH0_CTRL_TRIG_CHAIN_TO_LSB);
+            dma_hw->ch[p->data_ch].al1_ctrl = ctrl;
+        }
+        return LP_OK;
+    }
+    /* A stream: stop feeding and ramp down at once from the last code sent. */
+    lp_abort_all(p);
+    sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
+    last = sent == 0u ? s->idle_word : s->words[sent - 1u];
+    n = lp_build_ramp(p, lp_last_code(s, last), s->idle_code);
+    p->target_code = s->idle_code;
+    if (n != 0u) {
+        lp_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
+    }
+    return LP_OK;
+}
+
+int lp_player_stop(lp_player_t *p) {
+    int rc = lp_player_request_stop(p);
+    while (rc == LP_OK && lp_player_busy(p)) {
+        tight_loop_contents();
+    }
+    return rc;
+}
+
+int lp_player_hold_code(lp_player_t *p, uint16_t code) {
+    const lp_stream_t *s = p->stream;
+    uint32_t n;
+
+    if (s == NULL) {
+        return LP_ERR_STATE;
+    }
+    if ((uint32_t)code >> s->bits) {
+        return LP_ERR_CODE;
+    }
+    if (lp_player_busy(p)) {
+        return LP_ERR_BUSY;
+    }
+    n = lp_build_ramp(p, lp_code_on_pins(p), code);
+    p->target_code = code;
+    if (n == 0u) {
+        return LP_OK;
+    }
+    lp_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, false);
+    p->state = LP_PLAYING;
+    lp_run_from(p, p->tail_ch);
+    return LP_OK;
+}
+
+uint16_t lp_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts) {
+    uint32_t best = 0u;
+    float best_err = -1.0f;
+    uint32_t k;
+    for (k = 0u; k < code_count; ++k) {
+        float e = volts_per_code[k] - volts;
+        if (e < 0.0f) {
+            e = -e;
+        }
+        if (best_err < 0.0f || e < best_err) {
+            best_err = e;
+            best = k;
+        }
+    }
+    return (uint16_t)best;
 }
 
 void lp_player_deinit(lp_player_t *p) {
+    if (p->stream == NULL) {
+        return;
+    }
+    lp_player_stop(p);
+    lp_abort_all(p);
     pio_sm_set_enabled(p->pio, p->sm, false);
-    dma_channel_unclaim((uint)p->data_ch);
-    dma_channel_unclaim((uint)p->ctrl_ch);
+    lp_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);
     pio_sm_unclaim(p->pio, p->sm);
+    p->stream = NULL;
+}
+
+const char *lp_strerror(int result) {
+    switch (result) {
+    case LP_OK: return "ok";
+    case LP_ERR_PROGRAM_SPACE: return "no room for the program in this PIO block";
+    case LP_ERR_NO_SM: return "no free state machine in this PIO block";
+    case LP_ERR_CLOCK:
+        return "clk_sys is not the clock the stream was planned for (its SYS_CLOCK_HZ): "
+               "remake the bundle with --sys-clock-hz set to this chip's clock";
+    case LP_ERR_GPIO: return "the ladder's GPIOs are outside this PIO block's reach";
+    case LP_ERR_NO_DMA: return "not enough free DMA channels";
+    case LP_ERR_BUSY: return "the player is playing";
+    case LP_ERR_CODE: return "code out of range for the ladder";
+    case LP_ERR_STATE: return "player not initialised";
+    default: return "unknown result";
+    }
 }
