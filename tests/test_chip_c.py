@@ -312,3 +312,32 @@ def test_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory, tmp_path: P
     ]
     image = fw2350.make(tmp_path, [s.name for s in streams], play_once_steps(2))
     assert image.stat().st_size > 1000
+
+
+def readme_c_example() -> str:
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    part = text[text.index("**C, vendor SDK.**") :]
+    start = part.index("```c\n") + 5
+    return part[start : part.index("```", start)]
+
+
+def test_readme_c_example_runs(tmp_path_factory: pytest.TempPathFactory, tmp_path: Path) -> None:
+    # The README's example, verbatim, with a main() that reports its result.
+    fw_readme = Firmware(tmp_path_factory.mktemp("fwreadme"))
+    s = make(tmp_path, "door_chime", out_base=16, seconds=0.001)
+    app = (
+        '#include "pico/stdlib.h"\n'
+        + readme_c_example()
+        + "\nvolatile uint32_t lp_test_mailbox;\n"
+        + "int main(void) {\n"
+        + "    int rc = ring();\n"
+        + "    lp_test_mailbox = (3u << 24) | (uint32_t)(rc & 0xFF);\n"
+        + "    lp_test_mailbox = 0x7Fu << 24;\n"
+        + "    for (;;) { tight_loop_contents(); }\n"
+        + "}\n"
+    )
+    r = run(fw_readme.make(tmp_path, [], [], app=app), fw_readme.mailbox())
+    assert r.ended and r.results() == [0]
+    codes = s.layout.pins_to_code(r.samples["0.0"][:, 1])
+    np.testing.assert_array_equal(codes, s.codes)
+    assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == s.layout.idle_code

@@ -213,8 +213,11 @@ class Firmware:
     def scenario(self) -> Path:
         return self.root / "scenario"
 
-    def make(self, bundle_dir: Path, streams: list[str], steps: list[Step]) -> Path:
-        """Build the firmware for these streams and steps; return the flat image."""
+    def make(
+        self, bundle_dir: Path, streams: list[str], steps: list[Step], app: str | None = None
+    ) -> Path:
+        """Build the firmware for these streams and steps (or the main program `app`);
+        return the flat image."""
         require("cmake")
         require("arm-none-eabi-gcc")
         if self.bundle.exists():
@@ -222,6 +225,13 @@ class Firmware:
         shutil.copytree(bundle_dir, self.bundle)
         self.scenario.mkdir(parents=True, exist_ok=True)
         (self.scenario / "scenario.h").write_text(scenario_header(streams, steps))
+        app_file = self.scenario / "app.c"
+        if app is not None:
+            app_file.write_text(app)
+            self.configured = False  # the main source changes: configure again
+        elif app_file.exists():
+            app_file.unlink()
+            self.configured = False
         if not self.configured:
             board = {"rp2040": "pico", "rp2350": "pico2"}[self.platform]
             subprocess.run(
