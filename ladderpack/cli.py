@@ -363,6 +363,54 @@ def clock(rate_hz: float, as_json: bool, **values: Any) -> None:
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
 
 
+@cli.command()
+@click.option("--volts", type=float, required=True, help="Wanted output voltage (V).")
+@click.option(
+    "--levels",
+    "levels_file",
+    default=None,
+    help="LevelSet JSON of the real ladder (from 'levels' or 'ladder --levels-out')  "
+    "[default: an ideal ladder]",
+)
+@click.option(
+    "--bits", type=int, default=8, show_default=True, help="Ideal ladder: width N (bits)."
+)
+@click.option(
+    "--full-scale-volts",
+    type=float,
+    default=3.3,
+    show_default=True,
+    help="Ideal ladder: the reference (V); code k gives k / 2^N of it.",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print the answer as JSON.")
+def code(
+    volts: float, levels_file: str | None, bits: int, full_scale_volts: float, as_json: bool
+) -> None:
+    """Which code puts VOLTS on the ladder's output, and what it really gives."""
+    import math
+
+    from ladderpack.errors import OptionError
+    from ladderpack.levels import code_for_volts, ideal_levels, load_levels
+
+    if levels_file is not None:
+        levels = load_levels(levels_file)
+    else:
+        if not (full_scale_volts > 0 and math.isfinite(full_scale_volts)):
+            raise OptionError(
+                f"must be a positive voltage, got {full_scale_volts!r}", field="full-scale-volts"
+            )
+        levels = ideal_levels(bits, full_scale_volts=full_scale_volts)
+    r = code_for_volts(levels, volts)
+    if as_json:
+        click.echo(json_text(r))
+        return
+    click.echo(f"code     {r['code']} of {(1 << r['bits']) - 1} ({r['origin']} levels)")
+    click.echo(f"gives    {r['volts']:.6f} V for {r['wanted_volts']:.6f} V wanted")
+    click.echo(f"error    {r['error_volts'] * 1e3:+.3f} mV ({r['error_lsb']:+.3f} LSB)")
+    if not r["in_range"]:
+        click.echo("note     outside the ladder's reach: the nearest end was taken")
+
+
 def _write_one(path: str, text: str) -> str:
     """Write one file atomically (temporary name in the same folder, then rename)."""
     from ladderpack.emit import write_files

@@ -20,6 +20,7 @@ from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.options import check_bits
 
 __all__ = [
+    "code_for_volts",
     "FORMAT",
     "LevelSet",
     "code_scale",
@@ -427,3 +428,46 @@ def correction_table(levels: LevelSet, in_bits: int) -> np.ndarray:
     lo = hi - 1
     pick = np.where(target - s[lo] < s[hi] - target, lo, hi)  # ties go up
     return order[pick].astype(np.uint16)
+
+
+def code_for_volts(levels: LevelSet, volts: float) -> dict[str, Any]:
+    """The code whose level is nearest to `volts` (the ladder as a DC source).
+
+    Parameters
+    ----------
+    levels : LevelSet
+        Ideal, modelled or measured level of every code, in volts.
+    volts : float
+        Wanted output voltage.
+
+    Returns
+    -------
+    dict
+        ``code``, ``volts`` (what that code really gives), ``error_volts``
+        (given minus wanted), ``error_lsb`` (in units of the mean step, full
+        range / (2**N - 1)), ``in_range`` (False when `volts` lies outside the
+        ladder's reach and the nearest end was taken) and ``origin``.
+
+    Examples
+    --------
+    >>> r = code_for_volts(ideal_levels(8, full_scale_volts=3.3), 1.0)
+    >>> r["code"], round(r["volts"], 5)
+    (78, 1.00547)
+    """
+    v = float(volts)
+    if not np.isfinite(v):
+        raise OptionError(f"must be a finite voltage, got {volts!r}", field="volts")
+    err = levels.volts - v
+    code = int(np.argmin(np.abs(err)))
+    lo, hi = float(levels.volts.min()), float(levels.volts.max())
+    lsb = (hi - lo) / ((1 << levels.bits) - 1) if hi > lo else 1.0
+    return {
+        "code": code,
+        "volts": float(levels.volts[code]),
+        "wanted_volts": v,
+        "error_volts": float(err[code]),
+        "error_lsb": float(err[code]) / lsb,
+        "in_range": lo <= v <= hi,
+        "origin": levels.origin,
+        "bits": levels.bits,
+    }

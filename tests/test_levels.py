@@ -201,3 +201,27 @@ def test_stream_with_levels(tmp_path: Path) -> None:
         "stream", str(clip), "--bits", "8", "--levels", str(lev), "-o", str(tmp_path / "o2")
     )
     assert wrong.returncode == 2 and "levels" in wrong.stderr
+
+
+def test_code_for_volts_ideal_ladder_worked_example() -> None:
+    # Ideal R-2R transfer V = D / 2^N x Vref (textbook R-2R result, as ideal_levels):
+    # 1.000 V from an 8-bit ladder on 3.3 V: D = round(1.0 / 3.3 x 256) = 78, which gives
+    # 78 x 3.3 / 256 = 1.005469 V, +0.424 LSB (worked by hand).
+    from ladderpack.levels import code_for_volts, ideal_levels
+
+    r = code_for_volts(ideal_levels(8, full_scale_volts=3.3), 1.0)
+    assert r["code"] == 78
+    assert r["volts"] == pytest.approx(78 * 3.3 / 256)
+    assert r["error_lsb"] == pytest.approx((78 * 3.3 / 256 - 1.0) / (3.3 / 256))
+    assert r["in_range"]
+
+
+def test_code_for_volts_uses_the_real_levels() -> None:
+    # A non-monotonic ladder: the nearest level wins, whichever code it is.
+    from ladderpack.levels import LevelSet, code_for_volts
+
+    levels = LevelSet(2, np.array([0.0, 1.2, 1.0, 3.0]), "measured")
+    assert code_for_volts(levels, 1.05)["code"] == 2
+    assert code_for_volts(levels, 1.15)["code"] == 1
+    outside = code_for_volts(levels, 4.0)
+    assert outside["code"] == 3 and not outside["in_range"]

@@ -28,6 +28,12 @@ ROOT = HERE.parents[1]
 VENDOR = ROOT.parent / "shared" / "vendor"
 SDK = VENDOR / "pico-sdk"
 BOOTROM = VENDOR / "rp2040-bootrom" / "bootrom.mjs"
+MICROPYTHON = VENDOR / "micropython-rp2" / "RPI_PICO-v1.27.0.bin"
+# MicroPython's rp2 port keeps its filesystem at the end of flash: on the RPI_PICO board
+# 1408 KiB (MICROPY_HW_FLASH_STORAGE_BYTES) of the 2 MiB, from offset 0xA0000, in 4 KiB
+# blocks, mounted by its _boot.py as VfsLfs2 with progsize=256 (MicroPython sources).
+FS_OFFSET = 0xA0000
+FS_BLOCKS = 1408 * 1024 // 4096
 
 OPS = {
     "init": 1,
@@ -282,6 +288,22 @@ class Run:
     final_pins: int
     cycles: int
     ended: bool
+    serial: list[tuple[int, str]] = field(default_factory=list)
+
+    def output(self) -> str:
+        """Everything MicroPython printed."""
+        return "".join(t for _c, t in self.serial if not t.startswith("<<"))
+
+    def mark(self, text: str) -> int:
+        """System clock at which `text` first appeared on the serial line."""
+        seen = ""
+        for c, t in self.serial:
+            if t.startswith("<<"):
+                continue
+            seen += t
+            if text in seen:
+                return c
+        raise KeyError(text)
 
     def results(self) -> list[int]:
         """Result code of each step, signed."""
@@ -300,11 +322,55 @@ class Run:
         raise KeyError(index)
 
 
-def run(image: Path, mailbox: int, *, max_cycles: int = 50_000_000, tail: int = 20000) -> Run:
+def fs_image(files: dict[str, bytes], path: Path) -> Path:
+    """A LittleFS image (littlefs-python, PyPI) holding `files`, as MicroPython mounts it."""
+    from littlefs import LittleFS
+
+    fs = LittleFS(block_size=4096, block_count=FS_BLOCKS, prog_size=256, read_size=32)
+    for name, data in sorted(files.items()):
+        with fs.open(name, "wb") as fh:
+            fh.write(data)
+    path.write_bytes(bytes(fs.context.buffer))
+    return path
+
+
+def run_micropython(
+    files: dict[str, bytes],
+    steps: list[dict[str, object]],
+    folder: Path,
+    *,
+    max_cycles: int = 400_000_000,
+) -> Run:
+    """Boot the vendored MicroPython image with `files` on its filesystem and run each
+    step's code through the raw REPL over USB CDC (``interrupt_after``: Ctrl-C that many
+    system clocks after the code was sent)."""
+    return run(
+        MICROPYTHON,
+        0,
+        max_cycles=max_cycles,
+        tail=0,
+        extra={
+            "fs_image": str(fs_image(files, folder / "fs.img")),
+            "fs_offset": FS_OFFSET,
+            "repl": steps,
+        },
+        config_dir=folder,
+    )
+
+
+def run(
+    image: Path,
+    mailbox: int,
+    *,
+    max_cycles: int = 50_000_000,
+    tail: int = 20000,
+    extra: dict[str, object] | None = None,
+    config_dir: Path | None = None,
+) -> Run:
     """Run a flat image on the emulated RP2040 until the scenario ends (plus `tail` clocks)."""
     require("node")
     node_modules_ready()
-    cfg = image.parent / "run.json"
+    cfg = (config_dir or image.parent) / "run.json"
     cfg.write_text(
         json.dumps(
             {
@@ -314,6 +380,7 @@ def run(image: Path, mailbox: int, *, max_cycles: int = 50_000_000, tail: int = 
                 "max_cycles": max_cycles,
                 "end_value_op": OP_END,
                 "tail_cycles": tail,
+                **(extra or {}),
             }
         )
     )
@@ -330,4 +397,5 @@ def run(image: Path, mailbox: int, *, max_cycles: int = 50_000_000, tail: int = 
         final_pins=d["final_pins"],
         cycles=d["cycles"],
         ended=d["ended"],
+        serial=[tuple(s) for s in d.get("serial", [])],
     )

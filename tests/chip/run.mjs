@@ -16,7 +16,7 @@
 //           "final_pins": pins, "final_oe": output enables, "cycles": total, "ended": bool }
 import { readFileSync } from 'node:fs';
 import { pathToFileURL } from 'node:url';
-import { RP2040, ConsoleLogger, LogLevel, FIFO } from 'rp2040js';
+import { RP2040, ConsoleLogger, LogLevel, FIFO, USBCDC } from 'rp2040js';
 
 const config = JSON.parse(readFileSync(process.argv[2], 'utf8'));
 const { bootromB1 } = await import(pathToFileURL(config.bootrom).href);
@@ -26,6 +26,9 @@ mcu.logger = new ConsoleLogger(LogLevel.Error);
 mcu.loadBootrom(bootromB1);
 const image = readFileSync(config.image);
 mcu.flash.set(image, 0);
+// A filesystem image for MicroPython where its flash block device lies (the emulator
+// cannot erase or program flash, so it is prepared on the host).
+if (config.fs_image) mcu.flash.set(readFileSync(config.fs_image), config.fs_offset);
 mcu.core.PC = 0x10000000;
 
 const NANOS_PER_CYCLE = 1e9 / (config.sys_clock_hz || 125e6);
@@ -178,12 +181,64 @@ mcu.writeUint32 = (address, value) => {
   }
 };
 
+// --- REPL over USB CDC (MicroPython) ----------------------------------------------------
+// config.repl: a list of steps {code, interrupt_after?}. Each step's code runs through
+// the raw REPL (Ctrl-A, code, Ctrl-D); with interrupt_after, Ctrl-C follows that many
+// system clocks after the code was sent. Serial output is recorded with its time.
+const serial = [];
+let serialText = '';
+let replStep = -1;
+let replState = 'boot';
+let interruptAt = -1;
+let cdc = null;
+function send(text) {
+  for (const ch of Buffer.from(text, 'latin1')) cdc.sendSerialByte(ch);
+}
+function nextReplStep() {
+  replStep++;
+  if (replStep >= config.repl.length) {
+    replState = 'done';
+    endedAt = cycle;
+    return;
+  }
+  const st = config.repl[replStep];
+  serialText = '';
+  replState = 'running';
+  serial.push([cycle, `<<step ${replStep}>>`]);
+  send(st.code + '\x04');
+  interruptAt = st.interrupt_after !== undefined ? cycle + st.interrupt_after : -1;
+}
+if (config.repl) {
+  cdc = new USBCDC(mcu.usbCtrl);
+  cdc.onDeviceConnected = () => {
+    replState = 'connecting';
+    send('\r\x03\x03\x01'); // stop anything, enter the raw REPL
+  };
+  cdc.onSerialData = (buffer) => {
+    const text = Buffer.from(buffer).toString('latin1');
+    serial.push([cycle, text]);
+    serialText += text;
+    if (replState === 'connecting' && serialText.includes('raw REPL; CTRL-B to exit\r\n>')) {
+      nextReplStep();
+    } else if (replState === 'running') {
+      // raw REPL: OK, stdout, \x04, stderr, \x04, then the prompt '>'
+      const parts = serialText.split('\x04');
+      if (parts.length >= 3 && parts[2].startsWith('>')) nextReplStep();
+    }
+  };
+}
+
 // --- main loop -------------------------------------------------------------------------
 const maxCycles = config.max_cycles;
 const tail = config.tail_cycles || 0;
 const core = mcu.core;
 while (cycle < maxCycles) {
   if (endedAt >= 0 && cycle >= endedAt + tail) break;
+  if (interruptAt >= 0 && cycle >= interruptAt) {
+    interruptAt = -1;
+    serial.push([cycle, '<<ctrl-c>>']);
+    send('\x03');
+  }
   let n = 1;
   if (!core.waiting) n = core.executeInstruction();
   for (let k = 0; k < n; k++) {
@@ -201,6 +256,7 @@ process.stdout.write(
     final_oe: oeWord(),
     cycles: cycle,
     ended: endedAt >= 0,
+    serial,
   }),
 );
 void pinsCache;

@@ -218,6 +218,12 @@ class Player:
             done = self.cur_n - self.dma.count  # type: ignore[attr-defined]
             sent = self.cur[done - 1] if done > 0 else self.prev_word
         start = _code_of(sent >> _shift(SPW - 1))
+        # hold that code at once while the ramp is computed, so the loop program cannot
+        # run dry and repeat a word of different codes
+        hold = 0
+        for k in range(SPW):
+            hold |= _pins_of(start) << _shift(k)
+        self.sm.put(hold)
         self._put(_ramp_words(start, code))
         self._drain(code)
 
@@ -285,7 +291,7 @@ class Player:
                     if not (loop and self.running):
                         break
                     f.seek(0)  # a loop ends only on a pass boundary
-                    continue
+                    n = f.readinto(buf) // 4
                 if not self.running and not LOOP:
                     self._abort_to(IDLE_CODE)  # a stream stops at once, ramping down
                     return
