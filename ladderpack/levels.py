@@ -20,9 +20,9 @@ from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.options import check_bits
 
 __all__ = [
-    "code_for_volts",
     "FORMAT",
     "LevelSet",
+    "code_for_volts",
     "code_scale",
     "correction_table",
     "ideal_levels",

@@ -150,7 +150,7 @@ def test_ctrl_c_ramps_down_from_where_it_is(tmp_path: Path, loop: bool) -> None:
     s, files = make(tmp_path, "cc", level_dbfs=-0.5, **opts)
     steps = [
         {"code": "import cc\np = cc.Player()\n"},
-        {"code": "p.play(loop=%s)\n" % loop, "interrupt_after": 1_500_000},  # 12 ms in
+        {"code": f"p.play(loop={loop})\n", "interrupt_after": 1_500_000},  # 12 ms in
     ]
     r = run_micropython(files, steps, tmp_path)
     assert r.ended
@@ -166,7 +166,7 @@ def test_ctrl_c_ramps_down_from_where_it_is(tmp_path: Path, loop: bool) -> None:
 
 def test_hold_code_and_clock_refusal(tmp_path: Path) -> None:
     s, files = make(tmp_path, "dc", bits=8)
-    wrong, more = make(tmp_path, "fast", bits=8, sys_clock_hz=150_000_000)
+    _wrong, more = make(tmp_path, "fast", bits=8, sys_clock_hz=150_000_000)
     files.update(more)
     steps = [
         {"code": "import dc\np = dc.Player()\np.hold_code(200)\n"},
