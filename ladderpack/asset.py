@@ -83,6 +83,9 @@ class StreamAsset:
         before the loop, and back down, played once after it.
     budget : Budget, optional
         Flash and RAM use on the target.
+    levels_volts : numpy.ndarray, optional
+        The level of every code (volts) of the LevelSet the stream was made with
+        (``--levels``), embedded for the players' code-for-a-voltage calls.
     """
 
     name: str
@@ -98,6 +101,7 @@ class StreamAsset:
     intro: Packed | None = None
     outro: Packed | None = None
     budget: Budget | None = None
+    levels_volts: np.ndarray | None = None
 
     @property
     def idle_pins(self) -> int:

@@ -590,6 +590,7 @@ def finish(
         intro=done.intro,
         outro=done.outro,
         budget=budget,
+        levels_volts=None if plan.levels is None else plan.levels.volts,
     )
 
 

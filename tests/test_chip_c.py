@@ -341,3 +341,23 @@ def test_readme_c_example_runs(tmp_path_factory: pytest.TempPathFactory, tmp_pat
     codes = s.layout.pins_to_code(r.samples["0.0"][:, 1])
     np.testing.assert_array_equal(codes, s.codes)
     assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == s.layout.idle_code
+
+
+def test_hold_volts_through_the_embedded_level_table(fw: Firmware, tmp_path: Path) -> None:
+    # A modelled 8-bit ladder (ladder --levels-out) embedded with the stream; the code
+    # for 1.000 V is checked against the nearest level computed here from the LevelSet.
+    import json
+
+    from ladderpack.ladder import ideal_ladder, perturbed
+    from ladderpack.levels import LevelSet
+
+    lad = perturbed(ideal_ladder(8), np.random.default_rng(3), tolerance=0.01)
+    volts = np.array(lad.levels())
+    path = tmp_path / "lad.json"
+    path.write_text(LevelSet(8, volts, "model").to_json())
+    s = make(tmp_path, "lv", levels=str(path))
+    steps = [Step("init", 0, 0), Step("hold_volts", 0, 1000), Step("wait")]
+    r = run(fw.make(tmp_path, [s.name], steps, levels=s.name), fw.mailbox())
+    want = int(np.argmin(np.abs(np.array(json.loads(path.read_text())["volts"]) - 1.0)))
+    assert r.results()[1] % 256 == want  # the report carries the code's low byte
+    assert s.layout.pins_to_code(np.array([r.events[2][2]]))[0] == want

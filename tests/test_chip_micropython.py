@@ -195,3 +195,24 @@ def test_readme_micropython_example(tmp_path: Path) -> None:
     assert_ok(r)
     codes, _t = played(r, s, 0)
     np.testing.assert_array_equal(codes, s.codes)
+
+
+def test_hold_volts_through_the_embedded_level_table(tmp_path: Path) -> None:
+    # The code for 1.000 V through a modelled ladder's levels, against the nearest level
+    # computed here from the LevelSet file.
+    import json
+
+    from ladderpack.ladder import ideal_ladder, perturbed
+    from ladderpack.levels import LevelSet
+
+    lad = perturbed(ideal_ladder(8), np.random.default_rng(3), tolerance=0.01)
+    path = tmp_path / "lad.json"
+    path.write_text(LevelSet(8, np.array(lad.levels()), "model").to_json())
+    s, files = make(tmp_path, "lv", levels=str(path))
+    r = run_micropython(
+        files, [{"code": "import lv\nprint(lv.Player().hold_volts(1.0))\n"}], tmp_path
+    )
+    assert_ok(r)
+    want = int(np.argmin(np.abs(np.array(json.loads(path.read_text())["volts"]) - 1.0)))
+    assert f"\n{want}\r\n" in "\n" + r.output().split("OK")[-1]
+    assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == want

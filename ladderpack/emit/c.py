@@ -21,6 +21,12 @@ __all__ = ["render_header", "render_source"]
 
 _WORDS_PER_LINE = 8
 _PROGRAM_KIND = {"autopull": "0u", "pull": "1u", "loop": "2u"}
+#: Widest ladder whose level table is embedded (4096 floats, 16 KiB of flash).
+LEVELS_EMBED_MAX_BITS = 12
+
+
+def _embed_levels(asset: StreamAsset) -> bool:
+    return asset.levels_volts is not None and asset.packed.layout.bits <= LEVELS_EMBED_MAX_BITS
 
 
 def _banner(asset: StreamAsset) -> str:
@@ -152,6 +158,14 @@ def render_header(asset: StreamAsset) -> str:
                 f"extern const uint32_t {asset.name}_{part}_words"
                 f"[{prefix}_{part.upper()}_WORD_COUNT];"
             )
+    if _embed_levels(asset):
+        lines += [
+            "",
+            "/* Level of every code (volts) of the LevelSet the stream was made with: for",
+            " * lp_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_player_hold_code. */",
+            f"#define {prefix}_LEVEL_COUNT {1 << asset.packed.layout.bits}u",
+            f"extern const float {asset.name}_levels_v[{prefix}_LEVEL_COUNT];",
+        ]
     lines += [
         "",
         *_init_macro(asset),
@@ -210,6 +224,13 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
     yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
     yield from _array_lines(np.array(asset.program.words), 4)
     yield "};"
+    if _embed_levels(asset) and asset.levels_volts is not None:
+        yield ""
+        yield f"const float {asset.name}_levels_v[{prefix}_LEVEL_COUNT] = {{"
+        vals = [f"{float(v):.9e}f" for v in asset.levels_volts]
+        for i in range(0, len(vals), 4):
+            yield "    " + ", ".join(vals[i : i + 4]) + ("," if i + 4 < len(vals) else "")
+        yield "};"
 
 
 def render_source_chunks(asset: StreamAsset, lines_per_chunk: int = 8192) -> Iterator[bytes]:

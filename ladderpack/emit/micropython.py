@@ -63,6 +63,8 @@ CHUNK_WORDS = {chunk_words}
 {words_literal}
 INTRO = {intro}
 OUTRO = {outro}
+# Level of every code (volts) of the LevelSet the stream was made with, for hold_volts()
+LEVELS_V = {levels}
 
 # PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG
 # at 0x08 (TXSTALL of SM x: bit 24 + x), DBG_PADOUT at 0x3C (RP2040 datasheet, PIO
@@ -327,6 +329,17 @@ class Player:
         self._go()
         self._drain(code)
 
+    def hold_volts(self, volts: float) -> int:
+        \"\"\"Hold the code whose level (LEVELS_V) is nearest to `volts`; returns it.\"\"\"
+        if LEVELS_V is None:
+            raise ValueError("the stream was made without --levels: no level table")
+        best = 0
+        for k in range(len(LEVELS_V)):
+            if abs(LEVELS_V[k] - volts) < abs(LEVELS_V[best] - volts):
+                best = k
+        self.hold_code(best)
+        return best
+
     def close(self) -> None:
         \"\"\"Release the DMA channel and the state machine (the pins keep their code).\"\"\"
         self.dma.close()
@@ -341,6 +354,17 @@ def play(sm_id: int = 0, loop: bool = LOOP) -> None:
     finally:
         p.close()
 """
+
+
+#: Widest ladder whose level table is embedded in the module (1024 floats).
+LEVELS_EMBED_MAX_BITS = 10
+
+
+def _levels_literal(asset: StreamAsset) -> str:
+    v = asset.levels_volts
+    if v is None or asset.packed.layout.bits > LEVELS_EMBED_MAX_BITS:
+        return "None"
+    return 'array.array("f", [' + ", ".join(f"{float(x):.9g}" for x in v) + "])"
 
 
 def _literal(packed: Packed | None) -> str:
@@ -412,6 +436,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         chunk_words=int(asset.options.get("chunk_words", 1024)),
         words_literal=words_literal,
         intro=_literal(asset.intro),
+        levels=_levels_literal(asset),
         outro=_literal(asset.outro),
         out_init=out_init,
         shiftdir="SHIFT_RIGHT" if lay.shift_right else "SHIFT_LEFT",

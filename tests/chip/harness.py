@@ -45,6 +45,7 @@ OPS = {
     "request_stop": 7,
     "hold": 8,
     "mark": 9,
+    "hold_volts": 10,
 }
 OP_END = 0x7F
 
@@ -188,8 +189,13 @@ class Step:
     arg2: int = 0
 
 
-def scenario_header(streams: list[str], steps: list[Step]) -> str:
+def scenario_header(streams: list[str], steps: list[Step], levels: str | None = None) -> str:
     lines = [f'#include "{s}.h"' for s in streams]
+    if levels is not None:  # an asset with an embedded level table
+        lines += [
+            f"#define LP_TEST_LEVELS {levels}_levels_v",
+            f"#define LP_TEST_LEVEL_COUNT {levels.upper()}_LEVEL_COUNT",
+        ]
     lines.append("static const lp_stream_t lp_streams[] = {")
     lines += [f"    {s.upper()}_STREAM_INIT," for s in streams]
     lines.append("};")
@@ -220,7 +226,12 @@ class Firmware:
         return self.root / "scenario"
 
     def make(
-        self, bundle_dir: Path, streams: list[str], steps: list[Step], app: str | None = None
+        self,
+        bundle_dir: Path,
+        streams: list[str],
+        steps: list[Step],
+        app: str | None = None,
+        levels: str | None = None,
     ) -> Path:
         """Build the firmware for these streams and steps (or the main program `app`);
         return the flat image."""
@@ -230,7 +241,7 @@ class Firmware:
             shutil.rmtree(self.bundle)
         shutil.copytree(bundle_dir, self.bundle)
         self.scenario.mkdir(parents=True, exist_ok=True)
-        (self.scenario / "scenario.h").write_text(scenario_header(streams, steps))
+        (self.scenario / "scenario.h").write_text(scenario_header(streams, steps, levels))
         app_file = self.scenario / "app.c"
         if app is not None:
             app_file.write_text(app)

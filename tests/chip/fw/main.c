@@ -11,7 +11,7 @@
 #include "ladderpack_player.h"
 
 enum { OP_INIT = 1, OP_START, OP_WAIT, OP_DELAY, OP_STOP, OP_DEINIT, OP_POLL_STOP,
-       OP_HOLD, OP_MARK, OP_END = 0x7F };
+       OP_HOLD, OP_MARK, OP_HOLD_VOLTS, OP_END = 0x7F };
 
 typedef struct lp_step {
     uint8_t op;
@@ -61,6 +61,12 @@ int main(void) {
             break;
         case OP_HOLD:
             rc = lp_player_hold_code(p, (uint16_t)st->arg);
+            break;
+        case OP_HOLD_VOLTS: /* arg: millivolts, through the stream's embedded level table */
+#ifdef LP_TEST_LEVELS
+            rc = lp_code_for_volts(LP_TEST_LEVELS, LP_TEST_LEVEL_COUNT, (float)st->arg / 1000.0f);
+            rc = lp_player_hold_code(p, (uint16_t)rc) == LP_OK ? rc : -100;
+#endif
             break;
         case OP_MARK:
             rc = (int)st->arg;

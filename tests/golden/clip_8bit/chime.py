@@ -44,6 +44,8 @@ CHUNK_WORDS = 1024
 WORDS = None  # read from BIN_FILE in chunks
 INTRO = None
 OUTRO = None
+# Level of every code (volts) of the LevelSet the stream was made with, for hold_volts()
+LEVELS_V = None
 
 # PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG
 # at 0x08 (TXSTALL of SM x: bit 24 + x), DBG_PADOUT at 0x3C (RP2040 datasheet, PIO
@@ -309,6 +311,17 @@ class Player:
             self.sm.put(w)
         self._go()
         self._drain(code)
+
+    def hold_volts(self, volts: float) -> int:
+        """Hold the code whose level (LEVELS_V) is nearest to `volts`; returns it."""
+        if LEVELS_V is None:
+            raise ValueError("the stream was made without --levels: no level table")
+        best = 0
+        for k in range(len(LEVELS_V)):
+            if abs(LEVELS_V[k] - volts) < abs(LEVELS_V[best] - volts):
+                best = k
+        self.hold_code(best)
+        return best
 
     def close(self) -> None:
         """Release the DMA channel and the state machine (the pins keep their code)."""

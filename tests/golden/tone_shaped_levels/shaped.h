@@ -46,6 +46,11 @@
 extern const uint32_t shaped_words[SHAPED_WORD_COUNT];
 extern const uint16_t shaped_program[SHAPED_PROGRAM_LENGTH];
 
+/* Level of every code (volts) of the LevelSet the stream was made with: for
+ * lp_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_player_hold_code. */
+#define SHAPED_LEVEL_COUNT 64u
+extern const float shaped_levels_v[SHAPED_LEVEL_COUNT];
+
 /* Initialiser for lp_stream_t (ladderpack_player.h):
  *   static const lp_stream_t s = SHAPED_STREAM_INIT; */
 #define SHAPED_STREAM_INIT { \

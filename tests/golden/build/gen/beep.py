@@ -44,6 +44,8 @@ CHUNK_WORDS = 1024
 WORDS = array.array("I", [0x0B050100, 0x34281C13, 0x64584C40, 0x7F7B756D, 0xEAD1AC80, 0xACD1E9F3, 0x162F5580, 0x5530170F, 0xEAD0AC80, 0xABD1EAF2, 0x172F5480, 0x552F160E, 0xE9D0AC80, 0xACD1E9F2, 0x17305580, 0x552F170E, 0xE9D1AC80, 0xACD0E9F2, 0x172F5480, 0x542F170E, 0xE9D0AC80, 0xABD0EAF2, 0x16305580, 0x5430170E, 0xEAD1AC80, 0xACD0E9F2, 0x162F547F, 0x5430170E, 0xEAD1AC7F, 0xABD0E8F1, 0x162F547F, 0x5530160E, 0xEAD1AC80, 0xABD1E9F2, 0x1630557F, 0x5530170E, 0xE9D1AC80, 0xABD0EAF2, 0x162F5580, 0x5530170E, 0xE9D1AC81, 0xABD0E9F2, 0x162F547F, 0x5530170E, 0x6D757B7F, 0x404C5864, 0x131C2834, 0x0001050B])
 INTRO = None
 OUTRO = None
+# Level of every code (volts) of the LevelSet the stream was made with, for hold_volts()
+LEVELS_V = None
 
 # PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG
 # at 0x08 (TXSTALL of SM x: bit 24 + x), DBG_PADOUT at 0x3C (RP2040 datasheet, PIO
@@ -309,6 +311,17 @@ class Player:
             self.sm.put(w)
         self._go()
         self._drain(code)
+
+    def hold_volts(self, volts: float) -> int:
+        """Hold the code whose level (LEVELS_V) is nearest to `volts`; returns it."""
+        if LEVELS_V is None:
+            raise ValueError("the stream was made without --levels: no level table")
+        best = 0
+        for k in range(len(LEVELS_V)):
+            if abs(LEVELS_V[k] - volts) < abs(LEVELS_V[best] - volts):
+                best = k
+        self.hold_code(best)
+        return best
 
     def close(self) -> None:
         """Release the DMA channel and the state machine (the pins keep their code)."""
