@@ -216,3 +216,21 @@ def test_hold_volts_through_the_embedded_level_table(tmp_path: Path) -> None:
     want = int(np.argmin(np.abs(np.array(json.loads(path.read_text())["volts"]) - 1.0)))
     assert f"\n{want}\r\n" in "\n" + r.output().split("OK")[-1]
     assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == want
+
+
+@pytest.mark.parametrize("embed", [False, True], ids=["file", "embedded"])
+def test_stop_a_stream_ramps_down_at_once(tmp_path: Path, embed: bool) -> None:
+    s, files = make(tmp_path, "st", embed=embed, seconds=0.04, level_dbfs=-0.5)
+    code = (
+        "import st\nfrom machine import Timer\np = st.Player()\n"
+        "Timer(period=12, mode=Timer.ONE_SHOT, callback=lambda t: p.stop())\np.play()\n"
+    )
+    r = run_micropython(files, [{"code": code}], tmp_path)
+    assert_ok(r)
+    codes, _t = played(r, s, 0)
+    n = 0
+    while n < codes.size and n < s.codes.size and codes[n] == s.codes[n]:
+        n += 1
+    assert 0 < n < s.codes.size  # a prefix of the stream, cut short
+    assert np.abs(np.diff(codes)).max() <= s.max_step
+    assert codes[-1] == s.layout.idle_code

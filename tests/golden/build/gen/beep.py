@@ -241,6 +241,12 @@ class Player:
                 self._play_words(WORDS, loop)
             else:
                 self._play_file(loop)
+            if not LOOP:
+                # a stream stopped early ramps down at once from where it is
+                while self.dma.active():
+                    if not self.running:
+                        self._abort_to(IDLE_CODE)
+                        break
             if OUTRO is not None:
                 self._put(OUTRO)
             elif LOOP_PROGRAM:
@@ -274,8 +280,6 @@ class Player:
         while loop and self.running:
             self.prev_word = words[WORD_COUNT - 1]
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
-        if not LOOP and not self.running:
-            self._abort_to(IDLE_CODE)  # a stream stopped early ramps down at once
 
     def _play_file(self, loop: bool) -> None:
         with open(self.path, "rb") as f:
