@@ -331,6 +331,12 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
             f"tone     {kind} {info['requested_freq_hz']:g} Hz requested, "
             f"{info['freq_hz']:.6f} Hz used ({info['freq_error_hz']:+.6f} Hz){extra}"
         )
+    elif "tones_hz" in info:
+        click.echo("tone     multitone of " + ", ".join(f"{f:g}" for f in info["tones_hz"]) + " Hz")
+    elif "f_start_hz" in info:
+        click.echo(f"tone     exponential sweep {info['f_start_hz']:g} to {info['f_end_hz']:g} Hz")
+    elif "at_sample" in info:
+        click.echo(f"tone     {kind} at sample {info['at_sample']} of {info['samples']}")
     elif kind == "staircase":
         click.echo(
             f"tone     staircase of {info['steps']} steps, {info['dwell_samples']} samples each"
@@ -727,7 +733,8 @@ def levels(
         f"{_lsb(lin['max_abs_inl_best_fit'])} best fit"
     )
     click.echo(
-        f"  DNL      {_lsb(lin['max_abs_dnl'])} max, {lin['min_dnl']:+.3f} min; "
+        f"  DNL      {lin['min_dnl']:+.3f} to {lin['max_dnl']:+.3f} LSB "
+        f"(largest |DNL| {_lsb(lin['max_abs_dnl'])}); "
         f"{'monotonic' if lin['monotonic'] else 'NOT monotonic'}"
     )
     if "superposition_residual_lsb" in lev.notes:

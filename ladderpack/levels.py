@@ -128,6 +128,7 @@ class Linearity(TypedDict):
     inl_endpoint: np.ndarray
     inl_best_fit: np.ndarray
     max_abs_dnl: float
+    max_dnl: float
     min_dnl: float
     max_abs_inl_endpoint: float
     max_abs_inl_best_fit: float
@@ -144,8 +145,8 @@ def linearity(volts: np.ndarray) -> Linearity:
     Linearity
         ``lsb_volts`` (endpoint), ``dnl`` and ``inl_endpoint``/``inl_best_fit``
         arrays, their maxima ``max_abs_dnl``, ``max_abs_inl_endpoint``,
-        ``max_abs_inl_best_fit``, ``min_dnl``, ``monotonic`` and the codes whose
-        step is negative.
+        ``max_abs_inl_best_fit``, ``max_dnl``, ``min_dnl`` (signed), ``monotonic``
+        and the codes whose step is negative.
     """
     v = np.asarray(volts, dtype=np.float64)
     n = v.size
@@ -164,6 +165,7 @@ def linearity(volts: np.ndarray) -> Linearity:
         "inl_endpoint": inl_end,
         "inl_best_fit": inl_fit,
         "max_abs_dnl": float(np.max(np.abs(dnl))) if dnl.size else 0.0,
+        "max_dnl": float(np.max(dnl)) if dnl.size else 0.0,
         "min_dnl": float(np.min(dnl)) if dnl.size else 0.0,
         "max_abs_inl_endpoint": float(np.max(np.abs(inl_end))),
         "max_abs_inl_best_fit": float(np.max(np.abs(inl_fit))),

@@ -355,7 +355,13 @@ class StreamOptions(_Model):
     shift: str = _opt(
         "right", "OUT shift direction: right puts the first sample in the LSBs.", choices=SHIFTS
     )
-    out_base: int = _opt(0, "GPIO number of the ladder's first pin.", unit="GPIO", lo=0)
+    out_base: int = _opt(
+        0,
+        "Lowest GPIO of the ladder's N consecutive pins: the ladder's least significant "
+        "bit with --pin-order msb-high, its most significant bit with msb-low.",
+        unit="GPIO",
+        lo=0,
+    )
     gpio_count: int | None = _opt(
         None,
         "User GPIOs on the target.",

@@ -103,7 +103,34 @@ def _harmonics(kind: str, phase: np.ndarray, f0_hz: float, rate_hz: float) -> np
     out = np.zeros_like(phase)
     for k, a in zip(n, amp, strict=True):
         out += a * np.sin(k * phase)
-    return out
+    # Normalise to the series' own peak (the Gibbs overshoot of a square tends to
+    # (2 / pi) Si(pi) = 1.179 of its amplitude), found on a fine grid over one period,
+    # so the level asked for is the peak and nothing clips.
+    return out / _series_peak(n, amp) if n.size else out
+
+
+def _series_peak(n: np.ndarray, amp: np.ndarray) -> float:
+    """Peak of ``sum amp_k sin(n_k theta)`` over a period.
+
+    Found on a grid of 64 points per period of the highest harmonic (by an inverse
+    FFT), then refined around the best point (a fine grid, then Newton steps).
+    """
+    m = 64 * int(n.max())
+    spec = np.zeros(m // 2 + 1, dtype=np.complex128)
+    spec[n] = -0.5j * m * amp  # irfft(spec)[j] = sum amp_k sin(2 pi n_k j / m)
+    coarse = np.fft.irfft(spec, m)
+    j = int(np.argmax(np.abs(coarse)))
+    theta = 2 * np.pi * (j + np.linspace(-1.0, 1.0, 129)) / m
+    fine = np.sin(np.outer(theta, n)) @ amp
+    t = float(theta[int(np.argmax(np.abs(fine)))])
+    for _ in range(4):  # Newton steps on the derivative, to the extremum itself
+        d1 = float(np.cos(n * t) @ (amp * n))
+        d2 = -float(np.sin(n * t) @ (amp * n * n))
+        if d2 == 0.0:
+            break
+        t -= d1 / d2
+    exact = abs(float(np.sin(n * t) @ amp))
+    return float(max(np.abs(coarse[j]), np.max(np.abs(fine)), exact))
 
 
 def synthesise(
@@ -158,6 +185,21 @@ def synthesise(
     """
     n = np.arange(samples)
     amp = 10 ** (level_dbfs / 20)
+    nyquist = rate_hz / 2
+    if kind in ("sine", "square", "sawtooth", "triangle") and not 0 < freq_hz < nyquist:
+        raise OptionError(
+            f"{freq_hz:g} Hz is not below Nyquist ({nyquist:g} Hz at the {rate_hz:g} Hz stream "
+            "rate): it would play as an alias; lower it or raise --rate-hz",
+            field="freq_hz",
+        )
+    if kind == "multitone" and tones:
+        over = [f for f, _db in tones if not 0 < f < nyquist]
+        if over:
+            raise OptionError(
+                f"{over[0]:g} Hz is not below Nyquist ({nyquist:g} Hz at the {rate_hz:g} Hz "
+                "stream rate)",
+                field="tones",
+            )
     phase = 2 * np.pi * freq_hz * n / rate_hz
     if kind == "sine":
         return amp * np.sin(phase)
@@ -343,9 +385,18 @@ class ToneSynth:
             c = loop_cycles(s.freq_hz, n, rate)
             f = c * rate / n
             self.info["cycles"] = c
-        self.info.update(
-            freq_hz=f, requested_freq_hz=s.freq_hz, freq_error_hz=f - s.freq_hz, samples=n
-        )
+        self.info["samples"] = n
+        if s.kind in self.PERIODIC or s.coherent_record is not None:
+            self.info.update(freq_hz=f, requested_freq_hz=s.freq_hz, freq_error_hz=f - s.freq_hz)
+        elif s.kind == "multitone" and s.tones is not None:
+            self.info["tones_hz"] = [float(t[0]) for t in s.tones]
+        elif s.kind == "sweep":
+            self.info.update(
+                f_start_hz=s.f_start_hz,
+                f_end_hz=s.f_end_hz if s.f_end_hz is not None else min(20000.0, 0.45 * rate),
+            )
+        elif s.kind in ("impulse", "step"):
+            self.info["at_sample"] = n // 2
         x = synthesise(
             s.kind,
             rate_hz=rate,

@@ -210,6 +210,10 @@ def test_make_with_depfile(tmp_path: Path) -> None:
     env = _ladderpack_env()
     first = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
     assert first.returncode == 0, first.stderr
+    # a clean first build prints no error (make once tried to remake the depfile through
+    # the asset rule and ran ladderpack with --only deps.d)
+    assert "ladderpack: error" not in first.stdout + first.stderr
+    assert "--only deps.d" not in first.stdout
     second = subprocess.run([make], cwd=ex, capture_output=True, text=True, env=env)
     assert "is up to date" in second.stdout and "ladderpack build" not in second.stdout
     # Newer than everything make has seen, however long the builds took.

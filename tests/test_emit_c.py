@@ -144,3 +144,20 @@ def test_demo_bundles_compile_for_host_and_cortex_m0plus(tmp_path: Path) -> None
                 capture_output=True,
                 text=True,
             )
+
+
+@pytest.mark.parametrize("pin_order", ["msb-high", "msb-low"])
+def test_out_base_wording_matches_the_pins(pin_order: str) -> None:
+    # Which ladder bit sits on OUT_BASE, read from the packed words themselves: a stream of
+    # one code with only the MSB set (2^(N-1)) drives the highest pin for msb-high and the
+    # lowest (OUT_BASE) for msb-low (RP2040 datasheet: OUT pins are OUT_BASE + bit index).
+    from ladderpack.emit import c, pioasm
+
+    asset = small_asset(8, pin_order=pin_order, out_base=4)
+    msb_on_base = asset.packed.layout.to_pins(np.array([128]))[0] == 1
+    expect = "most" if msb_on_base else "least"
+    assert msb_on_base == (pin_order == "msb-low")
+    header = c.render_header(asset)
+    line = next(t for t in header.splitlines() if "_OUT_BASE " in t)
+    assert f"the ladder's {expect} significant bit" in line
+    assert f"{expect} significant bit on GPIO 4" in pioasm.render(asset)

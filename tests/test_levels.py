@@ -225,3 +225,19 @@ def test_code_for_volts_uses_the_real_levels() -> None:
     assert code_for_volts(levels, 1.15)["code"] == 1
     outside = code_for_volts(levels, 4.0)
     assert outside["code"] == 3 and not outside["in_range"]
+
+
+def test_levels_report_gives_signed_dnl_extremes(tmp_path: Path) -> None:
+    # DNL_k = (V[k+1] - V[k]) / LSB - 1 with the endpoint LSB (IEEE Std 1241
+    # definition of DNL), computed here independently: a 3-bit sweep whose largest |DNL| is a
+    # negative step, so "max" and "min" must differ.
+    volts = np.array([0.0, 0.10, 0.21, 0.25, 0.40, 0.50, 0.61, 0.70])
+    lsb = (volts[-1] - volts[0]) / 7
+    dnl = np.diff(volts) / lsb - 1
+    csv = tmp_path / "sweep.csv"
+    csv.write_text("code,volts\n" + "".join(f"{k},{v}\n" for k, v in enumerate(volts)))
+    res = ladderpack_cli("levels", str(csv), "--bits", "3", "-o", str(tmp_path / "l.json"))
+    assert res.returncode == 0, res.stderr
+    line = next(t for t in res.stdout.splitlines() if t.strip().startswith("DNL"))
+    assert f"{dnl.min():+.3f} to {dnl.max():+.3f} LSB" in line
+    assert f"largest |DNL| {np.abs(dnl).max():.3f} LSB" in line

@@ -75,6 +75,10 @@ def test_band_limited_shapes_stop_at_nyquist(kind: str) -> None:
     x = synthesise(kind, rate_hz=FS, samples=n, level_dbfs=0.0, freq_hz=f0)
     mag = np.abs(np.fft.rfft(x)) / (n / 2)
     harmonics = [k for k in range(1, int(FS / 2 // f0) + 1)]
+    # the waveform is scaled so its peak is the level: compare the series' shape
+    scale = mag[cycles] / (2 / math.pi if kind == "sawtooth" else 4 / math.pi)
+    if kind == "triangle":
+        scale = mag[cycles] / (8 / math.pi**2)
     for k in harmonics[:9]:
         if kind == "sawtooth":
             expected = 2 / (math.pi * k)
@@ -82,7 +86,7 @@ def test_band_limited_shapes_stop_at_nyquist(kind: str) -> None:
             expected = 0.0
         else:
             expected = 4 / (math.pi * k) if kind == "square" else 8 / (math.pi**2 * k * k)
-        assert mag[k * cycles] == pytest.approx(expected, abs=1e-9)
+        assert mag[k * cycles] == pytest.approx(scale * expected, abs=1e-9)
     others = np.ones(mag.size, bool)
     others[[k * cycles for k in harmonics]] = False
     assert np.max(mag[others]) < 1e-9  # nothing else: no aliased component anywhere
@@ -215,3 +219,68 @@ def test_tone_command_json(tmp_path: Path) -> None:
         cwd=REPO,
     )
     assert bad.returncode == 2 and "outside 0..255" in bad.stderr
+
+
+@pytest.mark.parametrize("kind", ["square", "sawtooth", "triangle"])
+@pytest.mark.parametrize("freq_hz", [1000.0, 97.0, 7000.0])
+def test_band_limited_level_is_the_peak(kind: str, freq_hz: float) -> None:
+    # The level is the waveform's peak. Reference computed here: the textbook Fourier
+    # series (square 4/(pi n), odd n; sawtooth 2/(pi n) (-1)^(n+1); triangle
+    # 8/(pi^2 n^2) (-1)^((n-1)/2), odd n) below Nyquist, its continuous peak found by
+    # bounded minimisation (scipy.optimize) around the best of a dense grid.
+    from scipy.optimize import minimize_scalar
+
+    from ladderpack.waves import synthesise
+
+    rate, level = 48000.0, 10 ** (-1 / 20)
+    n = np.arange(1, int(rate / 2 / freq_hz) + 2)
+    n = n[n * freq_hz < rate / 2]
+    if kind == "sawtooth":
+        a = 2 / (np.pi * n) * (-1.0) ** (n + 1)
+    else:
+        n = n[n % 2 == 1]
+        a = 4 / (np.pi * n) if kind == "square" else 8 / np.pi**2 * (-1.0) ** ((n - 1) // 2) / n**2
+
+    def series(theta: float | np.ndarray) -> np.ndarray:
+        return np.sin(np.multiply.outer(np.atleast_1d(theta), n)) @ a
+
+    grid = np.linspace(0, 2 * np.pi, 40 * int(n.max()) + 1)
+    best = grid[int(np.argmax(np.abs(series(grid))))]
+    step = grid[1] - grid[0]
+    res = minimize_scalar(
+        lambda th: -abs(float(series(th)[0])),
+        bounds=(best - step, best + step),
+        method="bounded",
+        options={"xatol": 1e-12},
+    )
+    peak = -res.fun
+    x = synthesise(kind, rate_hz=rate, samples=4800, level_dbfs=-1.0, freq_hz=freq_hz)
+    want = level * series(2 * np.pi * freq_hz * np.arange(4800) / rate) / peak
+    np.testing.assert_allclose(x, want, atol=1e-7)
+    assert np.max(np.abs(x)) <= level + 1e-9
+
+
+def test_square_gibbs_overshoot_is_normalised_away() -> None:
+    # A square from many harmonics overshoots by the Wilbraham-Gibbs constant
+    # (2 / pi) Si(pi) = 1.17898 (scipy.special.sici): normalised to its peak, the
+    # fundamental's amplitude is 4 / pi / 1.17898 of the level.
+    from scipy.special import sici
+
+    from ladderpack.waves import synthesise
+
+    rate, f = 192000.0, 100.0
+    x = synthesise("square", rate_hz=rate, samples=int(rate / f) * 10, level_dbfs=0.0, freq_hz=f)
+    fundamental = 2 * np.abs(np.fft.rfft(x)[10]) / x.size
+    gibbs = 2 / np.pi * sici(np.pi)[0]
+    assert fundamental == pytest.approx(4 / np.pi / gibbs, rel=2e-3)
+
+
+@pytest.mark.parametrize("freq_hz", [22050.0, 30000.0])
+def test_tones_at_or_above_nyquist_are_refused(freq_hz: float) -> None:
+    from ladderpack.errors import OptionError
+    from ladderpack.waves import synthesise
+
+    with pytest.raises(OptionError, match="Nyquist"):
+        synthesise("sine", rate_hz=44100.0, samples=10, freq_hz=freq_hz)
+    with pytest.raises(OptionError, match="Nyquist"):
+        synthesise("multitone", rate_hz=44100.0, samples=10, tones=[(1000.0, 0.0), (freq_hz, 0)])

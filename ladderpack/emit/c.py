@@ -66,7 +66,13 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("CLKDIV_INT", f"{p.div_int}u", "clock divider, integer part (65536 is 0 in the register)"),
         ("CLKDIV_FRAC", f"{p.div_frac}u", "clock divider, fraction in 1/256"),
         ("CYCLES_PER_SAMPLE", f"{p.cycles_per_sample}u", "state-machine cycles per sample"),
-        ("OUT_BASE", f"{sm.out_base}u", "GPIO of the ladder's bit 0"),
+        (
+            "OUT_BASE",
+            f"{sm.out_base}u",
+            "lowest ladder GPIO: the ladder's "
+            + ("least" if lay.msb_high else "most")
+            + " significant bit",
+        ),
         ("OUT_COUNT", f"{sm.out_count}u", "pins written by out"),
         ("GPIO_BASE", f"{sm.gpio_base}u", "PIO GPIO base (16 for GPIO 32 and above)"),
         ("PROGRAM_LENGTH", f"{len(asset.program.instructions)}u", "instructions"),

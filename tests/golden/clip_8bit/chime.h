@@ -32,7 +32,7 @@
 #define CHIME_CLKDIV_INT          15625u /* clock divider, integer part (65536 is 0 in the register) */
 #define CHIME_CLKDIV_FRAC         0u /* clock divider, fraction in 1/256 */
 #define CHIME_CYCLES_PER_SAMPLE   1u /* state-machine cycles per sample */
-#define CHIME_OUT_BASE            16u /* GPIO of the ladder's bit 0 */
+#define CHIME_OUT_BASE            16u /* lowest ladder GPIO: the ladder's least significant bit */
 #define CHIME_OUT_COUNT           8u /* pins written by out */
 #define CHIME_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define CHIME_PROGRAM_LENGTH      1u /* instructions */

@@ -32,7 +32,7 @@
 #define BENCH_CLKDIV_INT          868u /* clock divider, integer part (65536 is 0 in the register) */
 #define BENCH_CLKDIV_FRAC         0u /* clock divider, fraction in 1/256 */
 #define BENCH_CYCLES_PER_SAMPLE   3u /* state-machine cycles per sample */
-#define BENCH_OUT_BASE            0u /* GPIO of the ladder's bit 0 */
+#define BENCH_OUT_BASE            0u /* lowest ladder GPIO: the ladder's most significant bit */
 #define BENCH_OUT_COUNT           12u /* pins written by out */
 #define BENCH_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define BENCH_PROGRAM_LENGTH      4u /* instructions */

@@ -32,7 +32,7 @@
 #define SHAPED_CLKDIV_INT          1417u /* clock divider, integer part (65536 is 0 in the register) */
 #define SHAPED_CLKDIV_FRAC         60u /* clock divider, fraction in 1/256 */
 #define SHAPED_CYCLES_PER_SAMPLE   2u /* state-machine cycles per sample */
-#define SHAPED_OUT_BASE            0u /* GPIO of the ladder's bit 0 */
+#define SHAPED_OUT_BASE            0u /* lowest ladder GPIO: the ladder's least significant bit */
 #define SHAPED_OUT_COUNT           6u /* pins written by out */
 #define SHAPED_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define SHAPED_PROGRAM_LENGTH      2u /* instructions */

@@ -32,7 +32,7 @@
 #define BEEP_CLKDIV_INT          7813u /* clock divider, integer part (65536 is 0 in the register) */
 #define BEEP_CLKDIV_FRAC         0u /* clock divider, fraction in 1/256 */
 #define BEEP_CYCLES_PER_SAMPLE   1u /* state-machine cycles per sample */
-#define BEEP_OUT_BASE            16u /* GPIO of the ladder's bit 0 */
+#define BEEP_OUT_BASE            16u /* lowest ladder GPIO: the ladder's least significant bit */
 #define BEEP_OUT_COUNT           8u /* pins written by out */
 #define BEEP_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
 #define BEEP_PROGRAM_LENGTH      1u /* instructions */

@@ -61,7 +61,7 @@ typedef struct lp_stream {
     uint8_t program_length;
     uint8_t wrap_target;         /* relative to the program's load offset */
     uint8_t wrap;
-    uint8_t out_base;            /* GPIO of the ladder's first pin */
+    uint8_t out_base;            /* lowest GPIO of the ladder's pins */
     uint8_t out_count;           /* ladder width, pins */
     uint16_t clkdiv_int;         /* 16.8 clock divider: integer part (0 means 65536) */
     uint8_t clkdiv_frac;         /* fraction in 1/256 */
