@@ -132,7 +132,11 @@ def test_check_mode(project: Path) -> None:
         fh.write("/* hand edit */\n")
     assert check() == [("tone", "tone.c was edited by hand")]
     _build(project)
+    # --check goes by content: a touched but unchanged input is not stale ...
     _touch_later(project / "clips" / "speech.flac")
+    assert check() == []
+    # ... a changed one is
+    shutil.copy(project / "clips" / "chime.flac", project / "clips" / "speech.flac")
     assert [n for n, _ in check()] == ["speech"]
     res = subprocess.run(
         [sys.executable, "-m", "ladderpack", "build", "--check"],
@@ -141,6 +145,26 @@ def test_check_mode(project: Path) -> None:
         text=True,
     )
     assert res.returncode == 1 and "speech" in res.stderr
+
+
+def test_check_on_a_fresh_clone_goes_by_content(project: Path) -> None:
+    # A project that commits its generated files, cloned: no build state (it is not
+    # committed, or it is and every file time is new) and every file time changed. The
+    # outputs match their inputs byte for byte (SHA-256 by hashlib), so nothing is stale.
+    _build(project)
+    (project / "gen" / STATE_NAME).unlink()
+    now = time.time_ns()
+    for i, p in enumerate(sorted(project.rglob("*"))):
+        if p.is_file():  # checkout order: outputs may come out older than inputs
+            os.utime(p, ns=(now - i * 1_000_000, now - i * 1_000_000))
+    out: list[str] = []
+    res = build(load_manifest(project / "ladderpack.toml"), check=True, echo=out.append)
+    assert res.problems == [], out
+    # an output that no longer matches is still found, and named
+    with open(project / "gen" / "chime.h", "a") as fh:
+        fh.write("/* edited */\n")
+    res = build(load_manifest(project / "ladderpack.toml"), check=True, echo=out.append)
+    assert res.problems == [("chime", "chime.h differs from what its inputs give")]
 
 
 BAD = [
