@@ -41,6 +41,7 @@ class StreamSummary(TypedDict):
     levels: dict[str, Any] | None
     loudness: dict[str, Any] | None
     predicted_full_scale_sine: dict[str, float] | None
+    warnings: list[str]
     program: str
     loop: bool
     flash_share: float | None
@@ -165,6 +166,7 @@ class StreamAsset:
             "levels": self.stats.get("levels"),
             "loudness": self.stats.get("loudness"),
             "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
+            "warnings": list(self.stats.get("warnings", [])),
             "program": self.program.variant,
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,

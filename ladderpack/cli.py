@@ -57,6 +57,8 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
             f"  predict  a full-scale sine would reach SINAD {ps['sinad_db']:.1f} dB, "
             f"ENOB {ps['enob_bits']:.2f} bits (in band)"
         )
+    for warning in summary.get("warnings") or []:
+        click.echo(f"  warning  {warning}")
     ld = summary.get("loudness")
     if ld:
         click.echo(
@@ -1196,7 +1198,8 @@ def _write_bytes(path: str, data: bytes) -> str:
     "levels_path",
     type=click.Path(dir_okay=False),
     default=None,
-    help="LevelSet of the real ladder  [default: ideal levels]",
+    help="LevelSet of the real ladder, or 'ideal'  [default: the one the stream was made "
+    "with (stream --levels), else ideal levels]",
 )
 @click.option(
     "--playback-rate-hz",
@@ -1261,7 +1264,11 @@ def preview(
     )
     written = _write_bytes(target, buf.getvalue())
     tone_kind = (pv.sidecar.get("stats", {}).get("tone") or {}).get("kind")
-    result: dict[str, Any] = {"file": written, "rate_hz": pv.rate_hz}
+    result: dict[str, Any] = {
+        "file": written,
+        "rate_hz": pv.rate_hz,
+        "wav_header_rate_hz": round(pv.rate_hz),
+    }
     if do_measure or (do_measure is None and tone_kind == "sine"):
         y = pv.samples[pv.audio_slice]
         known = freq_hz or (pv.sidecar.get("stats", {}).get("tone") or {}).get("freq_hz")
@@ -1282,8 +1289,11 @@ def preview(
         click.echo(json_text(result))
         return
     click.echo(
-        f"wrote {written} ({pv.samples.size / pv.rate_hz:.3f} s at {pv.rate_hz:g} Hz); "
-        "listen at a low volume first"
+        f"wrote {written} ({pv.samples.size / pv.rate_hz:.3f} s); listen at a low volume first"
+    )
+    click.echo(
+        f"rate  rendered at {pv.rate_hz:.6f} Hz (the stream's achieved rate, or the playback "
+        f"rate asked for); the WAV header says {round(pv.rate_hz)} Hz (WAV stores whole hertz)"
     )
     if "analysis" in result:
         _print_analysis(result["analysis"], f"{name} (predicted)")

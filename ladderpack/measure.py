@@ -117,6 +117,39 @@ def fit_sine(
     return SineFit(f, amp, phase, float(c), resid)
 
 
+def _largest_spur(
+    resid: np.ndarray, t: np.ndarray, rate_hz: float, power: np.ndarray, inband: np.ndarray
+) -> float:
+    """Amplitude of the largest spur in the fit residual.
+
+    The highest few peaks of the Hann periodogram are candidates; each one's amplitude
+    comes from a three-parameter least-squares fit at the frequency that maximises it
+    (bounded search within one bin), so a spur between bins is not read low or high by
+    the window's scalloping.
+    """
+    from scipy.optimize import minimize_scalar
+
+    n = resid.size
+    bin_hz = rate_hz / n
+    p = np.where(inband, power, 0.0)
+    best = 0.0
+    for k in np.argsort(p)[::-1][:4]:
+        if p[k] <= 0:
+            break
+        f = float(k * bin_hz)
+
+        def neg_amp(fq: float) -> float:
+            coef, _ = _fit3(resid, t, fq)
+            return -math.hypot(coef[0], coef[1])
+
+        lo_f, hi_f = max(f - bin_hz, 1e-3), min(f + bin_hz, rate_hz / 2)
+        res = minimize_scalar(
+            neg_amp, bounds=(lo_f, hi_f), method="bounded", options={"xatol": bin_hz * 1e-4}
+        )
+        best = max(best, -float(res.fun), -neg_amp(f))
+    return best
+
+
 def a_weighting_gain(freqs_hz: np.ndarray) -> np.ndarray:
     """A-weighting as a power gain (IEC 61672-1 Annex E)."""
     from ladderpack.shaping import a_weighting_db
@@ -192,53 +225,66 @@ def analyse(
     fit = fit_sine(y, rate_hz, freq_hz=freq_hz)
     f0 = fit.freq_hz
     t = np.arange(y.size) / rate_hz
-    harm_amp = []
+    # Harmonics fitted jointly (cos and sin of each, least squares) on the fit residual;
+    # what remains after removing them is the noise, measured directly rather than as
+    # the difference of two large powers.
+    cols: list[np.ndarray] = []
+    kept: list[float] = []
     for k in range(2, harmonics + 1):
         fk = _fold(k * f0, rate_hz)
-        if fk < 1.0 or abs(fk - rate_hz / 2) < 1.0:
-            harm_amp.append(0.0)
+        if fk < 1.0 or abs(fk - rate_hz / 2) < 1.0 or any(abs(fk - g) < 1e-9 for g in kept):
             continue
-        coef, _ = _fit3(fit.residual, t, fk)
-        harm_amp.append(float(math.hypot(coef[0], coef[1])))
-    sig_rms = fit.amplitude / math.sqrt(2)
-    # Residual power per frequency, from a Hann-windowed periodogram; the window's power
-    # loss is corrected by its mean square (the "power correction" of the window).
+        w = 2 * np.pi * fk * t
+        cols += [np.cos(w), np.sin(w)]
+        kept.append(fk)
+    harm_amp = [0.0] * (harmonics - 1)
+    noise_resid = fit.residual
+    if cols:
+        d = np.column_stack(cols)
+        coef, *_ = np.linalg.lstsq(d, fit.residual, rcond=None)
+        noise_resid = fit.residual - d @ coef
+        amp_at = {f: math.hypot(coef[2 * i], coef[2 * i + 1]) for i, f in enumerate(kept)}
+        for k in range(2, harmonics + 1):
+            harm_amp[k - 2] = amp_at.get(_fold(k * f0, rate_hz), 0.0)
     n = y.size
     win = np.hanning(n)
-    spec = np.abs(np.fft.rfft(fit.residual * win)) ** 2
     freqs = np.fft.rfftfreq(n, 1 / rate_hz)
-    power = spec / (np.sum(win**2) * n / 2)
-    power[0] = 0.0
-    if n % 2 == 0:
-        power[-1] /= 2
+
+    def periodogram(x: np.ndarray) -> np.ndarray:
+        # power per bin of a Hann-windowed spectrum, corrected by the window's mean square
+        p = np.abs(np.fft.rfft(x * win)) ** 2 / (np.sum(win**2) * n / 2)
+        p[0] = 0.0
+        if n % 2 == 0:
+            p[-1] /= 2
+        return p
+
     lo, hi = band_hz if band_hz is not None else (0.0, rate_hz / 2)
     inband = (freqs >= lo) & (freqs <= hi) & (freqs > 0)
-    weight = a_weighting_gain(freqs) if a_weighted else np.ones_like(freqs)
     limited = band_hz is not None or a_weighted
-    nad_power = (
-        float(np.sum(power[inband] * weight[inband]))
-        if limited
-        else float(np.mean(fit.residual**2))
-    )
+
+    def weight_at(f: float) -> float:
+        return float(a_weighting_gain(np.array([f]))[0]) if a_weighted else 1.0
+
+    # Signal, harmonics and noise weighted the same way: each line by the weighting at its
+    # own frequency, the noise spectrum bin by bin.
+    sig_power = fit.amplitude**2 / 2 * weight_at(f0)
     harm_power = 0.0
     for k, a in enumerate(harm_amp, start=2):
         fk = _fold(k * f0, rate_hz)
-        if lo <= fk <= hi:
-            g = (
-                float(a_weighting_gain(np.array([fk]))[0] / a_weighting_gain(np.array([f0]))[0])
-                if a_weighted
-                else 1.0
-            )
-            harm_power += a * a / 2 * g
-    noise_power = max(nad_power - harm_power, 1e-300)
-    sig_power = sig_rms**2
+        if a > 0 and lo <= fk <= hi:
+            harm_power += a * a / 2 * weight_at(fk)
+    if limited:
+        pw = periodogram(noise_resid)
+        weight = a_weighting_gain(freqs) if a_weighted else np.ones_like(freqs)
+        noise_power = float(np.sum(pw[inband] * weight[inband]))
+    else:
+        noise_power = float(np.mean(noise_resid**2))
+    noise_power = max(noise_power, 1e-300)
+    nad_power = noise_power + harm_power
     fsr = 2 * full_scale
-    nad_rms = math.sqrt(max(nad_power, 1e-300))
-    # SFDR: the largest residual line against the fundamental, from the windowed spectrum
-    # (Hann: coherent gain 1/2, so a line's amplitude is 4 |X| / n).
-    line_amp = 4 * np.sqrt(spec) / n
-    spur = float(np.max(line_amp[inband])) if np.any(inband) else 0.0
-    sinad = 10 * math.log10(sig_power / max(nad_power, 1e-300))
+    nad_rms = math.sqrt(nad_power)
+    spur = _largest_spur(fit.residual, t, rate_hz, periodogram(fit.residual), inband)
+    sinad = 10 * math.log10(sig_power / nad_power)
     return {
         "freq_hz": f0,
         "amplitude": fit.amplitude,
@@ -256,6 +302,6 @@ def analyse(
         "harmonics_dbc": [20 * math.log10(max(a, 1e-300) / fit.amplitude) for a in harm_amp],
         "band_hz": [lo, hi],
         "a_weighted": a_weighted,
-        "window": "hann (power-corrected) for band-limited, weighted and SFDR figures; "
-        "time-domain fit residual otherwise",
+        "window": "hann (power-corrected) for band-limited and weighted noise; harmonics and "
+        "spurs by least-squares fits; time-domain residual otherwise",
     }

@@ -98,6 +98,33 @@ def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
     return side, codes
 
 
+def _own_levels(side: dict[str, Any], sidecar_path: str) -> Any:
+    """The LevelSet the stream was made with (``stream --levels``), or None.
+
+    Looked for by name beside the bundle and in the current folder, and accepted only
+    if its digest is the one the sidecar records.
+    """
+    import hashlib
+
+    from ladderpack.levels import load_levels
+
+    name = (side.get("options") or {}).get("levels")
+    want = ((side.get("stats") or {}).get("levels") or {}).get("sha256")
+    if not isinstance(name, str) or not name:
+        return None
+    for path in (os.path.join(os.path.dirname(sidecar_path), name), name):
+        if os.path.isfile(path):
+            levels = load_levels(path)
+            if want is None or hashlib.sha256(levels.to_json().encode()).hexdigest() == want:
+                return levels
+    raise LadderpackError(
+        f"the stream was made with the LevelSet {name!r}, which is not beside the bundle or "
+        "in the current folder (or has changed since): pass --levels FILE, or --levels ideal",
+        file=sidecar_path,
+        field="levels",
+    )
+
+
 def render_preview(
     sidecar_path: str,
     *,
@@ -112,7 +139,9 @@ def render_preview(
     sidecar_path : str
         The bundle's ``.json`` sidecar (the ``.bin`` beside it is read).
     levels_path : str, optional
-        LevelSet file of the real ladder; default ideal levels.
+        LevelSet file of the real ladder, or ``"ideal"``; default the LevelSet the
+        stream was made with (``stream --levels``, found beside the bundle or in the
+        current folder and checked against the sidecar's digest), else ideal levels.
     playback_rate_hz : float, optional
         Output rate, Hz (default the stream rate: no hold or resampling).
     filter_corner_hz : float, optional
@@ -124,7 +153,12 @@ def render_preview(
 
     side, codes = _read_bundle(sidecar_path)
     bits = int(side["stream"]["bits"])
-    levels = ideal_levels(bits) if levels_path is None else load_levels(levels_path)
+    if levels_path == "ideal":
+        levels = ideal_levels(bits)
+    elif levels_path is not None:
+        levels = load_levels(levels_path)
+    else:
+        levels = _own_levels(side, sidecar_path) or ideal_levels(bits)
     if levels.bits != bits:
         raise OptionError(
             f"the levels are for {levels.bits} bits, the bundle is {bits}-bit", field="levels"

@@ -571,7 +571,10 @@ def finish(
         if done.loudness is None
         else {k: (round(v, 4) if isinstance(v, float) else v) for k, v in done.loudness.items()},
         "predicted_full_scale_sine": _predicted_sine(
-            opts.bits, opts.dither, plan.predicted_noise_db
+            opts.bits, opts.dither, plan.predicted_noise_db, plan.band_hz, plan.rate_hz
+        ),
+        **_shaper_warnings(
+            opts, str(plan.shaper.to_dict().get("name", "none")), plan.predicted_noise_db
         ),
     }
     if done.tone:
@@ -594,14 +597,52 @@ def finish(
     )
 
 
-def _predicted_sine(bits: int, dither: str, predicted: dict[str, float]) -> dict[str, float]:
-    """SINAD and ENOB a full-scale sine would get from this quantiser (in band).
+#: Share of half-scale the shaped noise's peak (4 sigma) may take before the summary warns
+#: (our own rule of thumb: common practice, no published source).
+SHAPED_NOISE_WARN_SHARE = 0.10
 
-    Signal power (2^(N-1))^2 / 2 LSB^2 over error power sigma^2 x NTF in-band gain,
-    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992).
+
+def _shaper_warnings(
+    opts: StreamOptions, shaper: str, predicted: dict[str, float]
+) -> dict[str, list[str]]:
+    """A warning when the shaper's total noise eats the headroom of a narrow ladder.
+
+    sigma^2 = (1/12 + dither variance) x the shaper's total (full-band) noise gain, in
+    LSB^2; the published sets were designed for 16-bit audio, where that is negligible.
+    """
+    if shaper == "none":
+        return {}
+    dither_var = {"tpdf": 1 / 6, "rpdf": 1 / 12}.get(opts.dither, 0.0)
+    sigma = math.sqrt((1 / 12 + dither_var) * 10 ** (predicted["total_db"] / 10))
+    share = 4 * sigma / (1 << (opts.bits - 1))
+    if share <= SHAPED_NOISE_WARN_SHARE:
+        return {}
+    half = 1 << (opts.bits - 1)
+    snr = 10 * math.log10(half * half / 2 / (sigma * sigma))
+    return {
+        "warnings": [
+            f"shaping {shaper} raises the total noise {predicted['total_db']:+.1f} dB: its "
+            f"peaks (4 sigma, {4 * sigma:.1f} LSB) take {100 * share:.0f} % of half-scale at "
+            f"{opts.bits} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
+            f"whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
+            "(first-order, second-order) or 'designed' with a lower --ntf-max-db"
+        ]
+    }
+
+
+def _predicted_sine(
+    bits: int, dither: str, predicted: dict[str, float], band_hz: float, rate_hz: float
+) -> dict[str, float]:
+    """SINAD and ENOB a full-scale sine would get from this quantiser, in the band.
+
+    Signal power (2^(N-1))^2 / 2 LSB^2 over the error power in 0..band_hz: the total
+    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992) is
+    white over 0..rate/2, so the band holds band / (rate / 2) of it, times the NTF's mean
+    power gain over the band.
     """
     sigma2 = 1 / 12 + {"none": 0.0, "rpdf": 1 / 12, "tpdf": 1 / 6}[dither]
-    noise = sigma2 * 10 ** (predicted["in_band_db"] / 10)
+    share = min(1.0, band_hz / (rate_hz / 2))
+    noise = sigma2 * share * 10 ** (predicted["in_band_db"] / 10)
     sinad = 10 * math.log10((1 << (bits - 1)) ** 2 / 2 / noise)
     return {"sinad_db": round(sinad, 3), "enob_bits": round((sinad - 1.76) / 6.02, 3)}
 
@@ -609,8 +650,12 @@ def _predicted_sine(bits: int, dither: str, predicted: dict[str, float]) -> dict
 def _levels_stats(levelset: LevelSet) -> dict[str, Any]:
     lin = linearity(levelset.volts)
     v = levelset.volts
+    import hashlib
+
     out: dict[str, Any] = {
         "origin": levelset.origin,
+        # digest of the LevelSet's own JSON, so preview can find and verify it
+        "sha256": hashlib.sha256(levelset.to_json().encode()).hexdigest(),
         "lowest_volts": float(v.min()),
         "highest_volts": float(v.max()),
         "span_volts": float(v.max() - v.min()),

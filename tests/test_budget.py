@@ -111,3 +111,23 @@ def test_pipeline_refuses_a_stream_that_cannot_fit() -> None:
     asset = stream_signal(sig, name="big", bits=8, rate_hz=22050)
     assert asset.budget is not None
     assert asset.budget.stream_bytes == asset.byte_count
+
+
+def test_flash_refusal_comes_from_the_plan_before_any_sample(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # The 2.3 s demo chime at 22.05 kHz, 8 bits, needs 50716 bytes; a 16 KiB flash with
+    # nothing reserved holds 16384 (worked by hand: 4 samples a word). The refusal must
+    # come from the plan: processing is not even started.
+    from pathlib import Path
+
+    import ladderpack.stream as st
+    from ladderpack.errors import LadderpackError
+
+    def no_processing(*_a: object, **_k: object) -> None:
+        raise AssertionError("the clip was processed before the budget was checked")
+
+    monkeypatch.setattr(st, "process", no_processing)
+    clip = Path(__file__).resolve().parents[1] / "demo_audio" / "door_chime.flac"
+    with pytest.raises(LadderpackError, match="flash"):
+        st.stream_clip(clip, flash_bytes=16384, flash_reserve_bytes=0)

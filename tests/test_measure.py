@@ -166,7 +166,9 @@ def test_preview_of_ideal_bundle_matches_theory(
     summary_pred = json.loads((tmp_path / "sine.json").read_text())["stats"][
         "predicted_full_scale_sine"
     ]["sinad_db"]
-    assert summary_pred == pytest.approx(theory + 1.0, abs=0.05)
+    # the summary's figure counts the noise in the 20 kHz band only: 20 of the 24 kHz
+    # (processing gain 10 log10(fs / 2 BW), Kester, Analog Devices MT-001)
+    assert summary_pred == pytest.approx(theory + 1.0 + 10 * math.log10(24 / 20), abs=0.05)
 
 
 def test_preview_with_filter_and_levels(tmp_path: Path) -> None:
@@ -345,3 +347,104 @@ def test_plots_are_pngs(tmp_path: Path) -> None:
     for name in ("n.png", "d.png", "l.png"):
         data = (tmp_path / name).read_bytes()
         assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000
+
+
+def test_preview_uses_the_streams_own_levels(tmp_path: Path) -> None:
+    # A stream made with --levels previews through those levels by default (a modelled
+    # ladder whose top level sits 10 % low: the preview's peak must show it), 'ideal'
+    # asks for the ideal ladder, and a changed levels file is refused by its digest.
+    from ladderpack.bundle import write_bundle
+    from ladderpack.errors import LadderpackError
+    from ladderpack.levels import LevelSet
+    from ladderpack.preview import render_preview
+    from ladderpack.stream import stream_tone
+
+    volts = np.arange(256) * (3.3 / 256)
+    volts[128:] -= 0.1 * volts[128:] * (np.arange(128) / 127)  # upper half sags to -10 %
+    lv = tmp_path / "sag.json"
+    lv.write_text(LevelSet(8, volts, "model").to_json())
+    asset = stream_tone("sine", bits=8, seconds=0.05, levels=str(lv), ramp_ms=0.0)
+    write_bundle(asset, tmp_path)
+    side = str(tmp_path / "sine.json")
+    own = render_preview(side)
+    ideal = render_preview(side, levels_path="ideal")
+    # independent: the levels of the stream's own codes, through the same scaling
+    from ladderpack.pack import unpack
+
+    codes = unpack(asset.packed.words, asset.packed.layout, asset.sample_count).codes
+    half = (volts[-1] - volts[0]) * 128 / 255
+    np.testing.assert_allclose(own.samples, (volts[codes] - volts[0] - half) / half)
+    assert not np.allclose(own.samples, ideal.samples)
+    lv.write_text(LevelSet(8, volts * 1.01, "model").to_json())
+    with pytest.raises(LadderpackError, match="--levels ideal"):
+        render_preview(side)
+
+
+def _iec_a_weighting_db(f: np.ndarray) -> np.ndarray:
+    # IEC 61672-1:2013 Annex E analytic A-weighting: R_A(f) with the pole frequencies
+    # 20.6, 107.7, 737.9 and 12194 Hz, normalised by +2.00 dB at 1 kHz (written here from
+    # the standard's formula, independently of ladderpack.shaping).
+    f2 = np.asarray(f, dtype=float) ** 2
+    ra = (
+        12194.0**2
+        * f2**2
+        / ((f2 + 20.6**2) * np.sqrt((f2 + 107.7**2) * (f2 + 737.9**2)) * (f2 + 12194.0**2))
+    )
+    return 20 * np.log10(ra) + 2.00
+
+
+def test_noise_is_measured_directly_when_distortion_dominates(rng: np.random.Generator) -> None:
+    # Known parts (IEEE Std 1241 definitions): a 997.3 Hz sine with 2nd and 3rd harmonics at
+    # -26 and -32 dBc and white noise 80 dB below the signal, not coherent with the record.
+    from ladderpack.measure import analyse
+
+    rate, n, a = 48000.0, 48000, 0.8
+    t = np.arange(n) / rate
+    h2, h3, sigma = a * 10 ** (-26 / 20), a * 10 ** (-32 / 20), a / math.sqrt(2) * 1e-4
+    y = (
+        a * np.sin(2 * np.pi * 997.3 * t)
+        + h2 * np.sin(2 * np.pi * 2 * 997.3 * t + 0.3)
+        + h3 * np.sin(2 * np.pi * 3 * 997.3 * t + 1.1)
+        + sigma * rng.standard_normal(n)
+    )
+    r = analyse(y, rate)
+    assert r["snr_db"] == pytest.approx(80.0, abs=0.3)
+    assert r["thd_db"] == pytest.approx(10 * math.log10((h2**2 + h3**2) / a**2), abs=0.02)
+    sig, harm, noise = a * a / 2, (h2 * h2 + h3 * h3) / 2, sigma * sigma
+    assert r["sinad_db"] == pytest.approx(10 * math.log10(sig / (harm + noise)), abs=0.02)
+
+
+def test_a_weighting_weighs_signal_harmonics_and_noise_alike(rng: np.random.Generator) -> None:
+    # A 3 kHz tone (A-weighting +1.2 dB there) with a -40 dBc 2nd harmonic and white noise:
+    # the weighted SNR is the signal times A(3 kHz) over the noise density times the
+    # A-weighting integrated over 0..fs/2 (IEC 61672-1 formula above, numerically).
+    from ladderpack.measure import analyse
+
+    rate, n, a, sigma = 48000.0, 1 << 16, 0.5, 1e-3
+    t = np.arange(n) / rate
+    f0 = 3000.7
+    y = a * np.sin(2 * np.pi * f0 * t) + a * 0.01 * np.sin(4 * np.pi * f0 * t)
+    y = y + sigma * rng.standard_normal(n)
+    r = analyse(y, rate, a_weighted=True)
+    f = np.linspace(1.0, rate / 2, 200001)
+    w = 10 ** (_iec_a_weighting_db(f) / 10)
+    noise_w = sigma**2 * float(np.trapezoid(w, f)) / (rate / 2)
+    sig_w = a * a / 2 * 10 ** (_iec_a_weighting_db(np.array([f0]))[0] / 10)
+    assert r["snr_db"] == pytest.approx(10 * math.log10(sig_w / noise_w), abs=0.3)
+    assert r["thd_n_db"] >= r["thd_db"]  # distortion plus noise is never below distortion
+    harm_w = (a * 0.01) ** 2 / 2 * 10 ** (_iec_a_weighting_db(np.array([2 * f0]))[0] / 10)
+    assert r["thd_db"] == pytest.approx(10 * math.log10(harm_w / sig_w), abs=0.05)
+
+
+def test_sfdr_reads_a_spur_between_bins_right() -> None:
+    # A spur half-way between two FFT bins (the Hann window's worst scalloping, 1.42 dB)
+    # 70 dB below the carrier: SFDR must read 70.0 dB.
+    from ladderpack.measure import analyse
+
+    rate, n = 48000.0, 1 << 14
+    t = np.arange(n) / rate
+    bin_hz = rate / n
+    y = 0.9 * np.sin(2 * np.pi * 1000.3 * t)
+    y = y + 0.9 * 10 ** (-70 / 20) * np.sin(2 * np.pi * (517.5 * bin_hz) * t + 0.4)
+    r = analyse(y, rate)
+    assert r["sfdr_db"] == pytest.approx(70.0, abs=0.05)

@@ -240,3 +240,64 @@ def test_designer_rejects_bad_arguments() -> None:
         design_shaper(44100, band_hz=20000, order=17)
     with pytest.raises(OptionError, match="ntf_max_db"):
         design_shaper(44100, band_hz=20000, max_gain_db=0)
+
+
+def test_published_shaper_on_a_narrow_ladder_warns() -> None:
+    # improved-e-9 raises the total noise 23.10 dB (the published-set table above): with
+    # TPDF (1/12 + 1/6 LSB^2) sigma^2 = 0.25 x 10^2.31 = 51.0 LSB^2, sigma = 7.14 LSB, so
+    # its 4-sigma peaks take 28.6 LSB = 22 % of the 128 LSB half-scale at 8 bits, and a
+    # full-scale sine keeps 10 log10(128^2 / 2 / 51.0) = 22.1 dB (worked by hand).
+    from ladderpack.stream import stream_tone
+
+    narrow = stream_tone("sine", bits=8, rate_hz=44100.0, shaping="improved-e-9", seconds=0.05)
+    (warning,) = narrow.summary()["warnings"]
+    assert "+23.1 dB" in warning and "28.6 LSB" in warning and "22 %" in warning
+    assert "22.1 dB SNR" in warning
+    wide = stream_tone("sine", bits=16, rate_hz=44100.0, shaping="improved-e-9", seconds=0.05)
+    assert wide.summary()["warnings"] == []
+    plain = stream_tone("sine", bits=3, rate_hz=44100.0, seconds=0.05)
+    assert plain.summary()["warnings"] == []  # no shaper, nothing to warn about
+
+
+@pytest.mark.parametrize(
+    ("rate", "band"), [(176400.0, 20000.0), (44100.0, 20000.0), (48000.0, 8000.0)]
+)
+def test_predicted_full_scale_sine_is_the_in_band_figure(rate: float, band: float) -> None:
+    # SNR = 6.02 N + 1.76 dB + 10 log10(fs / (2 BW)) (processing gain of oversampling:
+    # W. Kester, Analog Devices tutorial MT-001), less the dither's noise penalty: TPDF
+    # adds 2 LSB^2/12 to the 1/12 of plain quantising, 10 log10(3) = 4.77 dB (Lipshitz,
+    # Wannamaker & Vanderkooy 1992).
+    from ladderpack.stream import stream_tone
+
+    a = stream_tone("sine", bits=8, rate_hz=rate, band_hz=band, seconds=0.01)
+    got = a.summary()["predicted_full_scale_sine"]
+    want = 6.02 * 8 + 1.76 + 10 * math.log10(rate / (2 * band)) - 10 * math.log10(3)
+    assert got["sinad_db"] == pytest.approx(want, abs=0.02)
+
+
+def test_readme_oversampling_figures() -> None:
+    # The README quotes these for an order-8 design at 4x oversampling (160 kHz stream,
+    # 20 kHz band, 8 bits); the flat one is measured against the prediction above
+    # (test_oversampled_design_gains_20_db_in_band, within 1.5 dB).
+    import re
+    from pathlib import Path
+
+    from ladderpack.options import StreamOptions
+    from ladderpack.stream import _shaper_for
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    sentence = text[text.index("at 4x oversampling") :][:600]
+    quoted = [float(v) for v in re.findall(r"(\d+\.\d) dB", sentence)]
+    figures = []
+    for w in ("threshold", "flat"):
+        opts = StreamOptions(rate_hz=160000.0, shaping="designed", weighting=w, bits=8)
+        p = predict_noise(
+            _shaper_for(opts, 160000.0, 20000.0), 160000.0, band_hz=20000.0, weighting_kind=w
+        )
+        figures.append((w, p))
+    threshold, flat = figures[0][1], figures[1][1]
+    assert quoted[:3] == [
+        round(-threshold["weighted_db"], 1),
+        round(-threshold["in_band_db"], 1),
+        round(-flat["in_band_db"], 1),
+    ]
