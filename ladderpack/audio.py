@@ -17,7 +17,14 @@ import soundfile
 
 from ladderpack.errors import AudioFileError, OptionError, SignalError
 
-__all__ = ["Signal", "check_signal", "load_clip", "read_samples_csv", "sha256_file"]
+__all__ = [
+    "Signal",
+    "check_signal",
+    "load_clip",
+    "read_capture_csv",
+    "read_samples_csv",
+    "sha256_file",
+]
 
 
 @dataclass(frozen=True)
@@ -212,8 +219,40 @@ def sha256_file(path: str | os.PathLike[str]) -> str:
 def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:
     """Read captured samples from a CSV file: the last numeric column of each row.
 
-    A header row and ``#`` comment lines are skipped; a scope export with
-    ``time,value`` columns works as it is.
+    Header lines (any line with a cell that is not a number, before the first data
+    row) and ``#`` comment lines are skipped; a scope export with ``time,value``
+    columns works as it is. :func:`read_capture_csv` also reads the sample interval.
+
+    Raises
+    ------
+    AudioFileError
+        Naming the file and line of a value that is not a number.
+    """
+    return read_capture_csv(path)[0]
+
+
+def _seconds(text: str) -> float | None:
+    """'1e-06', '1 us', '2.5E-7 s', '10ns' -> seconds; None if it is not a time."""
+    import re
+
+    m = re.fullmatch(r"\s*([-+0-9.eE]+)\s*(s|ms|us|µs|ns|ps)?\s*", text)
+    if m is None:
+        return None
+    try:
+        v = float(m.group(1))
+    except ValueError:
+        return None
+    scale = {"s": 1.0, None: 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "ns": 1e-9, "ps": 1e-12}
+    return v * scale[m.group(2)]
+
+
+def read_capture_csv(path: str | os.PathLike[str]) -> tuple[np.ndarray, float | None, str]:
+    """Read a capture CSV: samples, the sample rate it states (or None), and how it knew.
+
+    The rate comes from a header line naming the sample interval or rate (a first cell
+    such as ``Sample Interval``, ``X increment``, ``dt``, ``Sample rate``; a value with
+    an optional unit s, ms, us, ns), or else from a first column of evenly rising times
+    when the rows hold two or more numbers. Header lines are never taken as samples.
 
     Raises
     ------
@@ -221,12 +260,17 @@ def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:
         Naming the file and line of a value that is not a number.
     """
     import csv
+    import re
 
     name = os.fspath(path)
     from ladderpack.reading import check_regular_file
 
     check_regular_file(name, what="capture CSV")
     values: list[float] = []
+    times: list[float] = []
+    interval: float | None = None
+    how = ""
+    started = False
     try:
         with open(name, encoding="utf-8-sig", newline="") as fh:
             for line, row in enumerate(csv.reader(fh), start=1):
@@ -234,17 +278,52 @@ def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:
                 if not cells or cells[0].startswith("#"):
                     continue
                 try:
-                    values.append(float(cells[-1]))
+                    nums = [float(c) for c in cells]
                 except ValueError:
-                    if not values and line == 1:
-                        continue  # header
-                    raise AudioFileError(
-                        f"expected a number, got {cells[-1]!r}", file=f"{name}:{line}"
-                    ) from None
+                    if started:
+                        bad = next(c for c in cells if not _is_number(c))
+                        raise AudioFileError(
+                            f"expected a number, got {bad!r}", file=f"{name}:{line}"
+                        ) from None
+                    key = cells[0].lower()
+                    if len(cells) >= 2 and re.search(
+                        r"sample ?interval|x ?increment|sample ?period|time ?per ?sample|^dt$",
+                        key,
+                    ):
+                        s = _seconds(cells[1])
+                        if s is not None and s > 0:
+                            interval, how = s, f"header line {line} ({cells[0]})"
+                    elif len(cells) >= 2 and re.search(r"sampl(e|ing) ?rate", key):
+                        try:
+                            r = float(re.sub(r"[^0-9.eE+-]", "", cells[1]))
+                        except ValueError:
+                            r = 0.0
+                        if r > 0:
+                            interval, how = 1.0 / r, f"header line {line} ({cells[0]})"
+                    continue  # a header line, never a sample
+                started = True
+                values.append(nums[-1])
+                if len(nums) >= 2:
+                    times.append(nums[0])
     except FileNotFoundError:
         raise AudioFileError("no such file", file=name) from None
     except (OSError, UnicodeDecodeError, csv.Error) as exc:
         raise AudioFileError(f"cannot read CSV ({exc})", file=name) from None
+    if interval is None and len(times) == len(values) and len(times) > 2:
+        tt = np.asarray(times)
+        d = np.diff(tt)
+        step = float(tt[-1] - tt[0]) / (tt.size - 1)  # over the whole record: precise
+        # evenly spaced, allowing for the rounding of printed times
+        if step > 0 and np.all(np.abs(d - step) <= 1e-3 * step):
+            interval, how = step, "the time column"
     x = np.asarray(values, dtype=np.float64)
     check_signal(Signal(x, 1.0), source=name, min_frames=8)
-    return x
+    return x, (None if interval is None else 1.0 / interval), how
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True

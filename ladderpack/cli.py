@@ -548,6 +548,19 @@ def _lsb(v: float) -> str:
     default=None,
     help="Write the nominal ladder's modelled levels as a LevelSet JSON file.",
 )
+@click.option(
+    "--mc-levels-out",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Write the levels of the Monte Carlo trial with the largest INL (or --mc-trial) "
+    "as a LevelSet JSON file, for stream --levels and preview --levels.",
+)
+@click.option(
+    "--mc-trial",
+    type=int,
+    default=None,
+    help="Monte Carlo trial (0-based) for --mc-levels-out  [default: the worst]",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
 def ladder(
     bits: int,
@@ -571,6 +584,8 @@ def ladder(
     spice_path: str | None,
     spice_code: int | None,
     levels_out: str | None,
+    mc_levels_out: str | None,
+    mc_trial: int | None,
     as_json: bool,
 ) -> None:
     """Model an R-2R ladder and check the design.
@@ -631,6 +646,31 @@ def ladder(
             },
         )
         written.append(_write_one(levels_out, lev.to_json()))
+    if mc_levels_out:
+        from ladderpack.errors import OptionError
+        from ladderpack.ladder import monte_carlo_trial
+
+        k = report["monte_carlo"]["worst_trial"] if mc_trial is None else mc_trial
+        if not 0 <= k < trials:
+            raise OptionError(f"must be 0..{trials - 1}, got {k}", field="mc-trial")
+        lad = monte_carlo_trial(
+            model, seed=seed, tolerance=tolerance_pct / 100, distribution=distribution, trial=k
+        )
+        lev = LevelSet(
+            bits,
+            lad.levels(),
+            "model",
+            {
+                "r_ohms": r_ohms,
+                "tolerance": tolerance_pct / 100,
+                "distribution": distribution,
+                "seed": seed,
+                "monte_carlo_trial": k,
+                "supply_volts": supply_volts,
+                "ideal_span_volts": supply_volts * ((1 << bits) - 1) / (1 << bits),
+            },
+        )
+        written.append(_write_one(mc_levels_out, lev.to_json()))
     if as_json:
         click.echo(json_text({**report, "files": written}))
         return
@@ -647,12 +687,28 @@ def ladder(
     click.echo(
         f"  nominal  INL {_lsb(nom['max_abs_inl_endpoint_lsb'])} endpoint, "
         f"{_lsb(nom['max_abs_inl_best_fit_lsb'])} best fit; DNL {nom['min_dnl_lsb']:+.3f}"
-        f"; {'monotonic' if nom['monotonic'] else 'NOT monotonic'}; no missing codes"
+        f"; {'monotonic' if nom['monotonic'] else 'NOT monotonic: the output falls at some steps'}"
     )
     click.echo(
         f"  worst    over +/-{tolerance_pct:g} %: INL {_lsb(wc['max_abs_inl_endpoint_lsb'])}"
         f", DNL down to {wc['min_dnl_lsb']:+.3f}; "
         f"{'monotonic' if wc['monotonic'] else 'may be non-monotonic'}"
+    )
+    mono_tol = wc["monotonic_tolerance"]
+    click.echo(
+        "  needs    "
+        + (
+            f"resistors within +/-{100 * mono_tol:.3g} % to stay monotonic in the worst case"
+            if mono_tol > 0
+            else "lower source resistance (stronger drive or a buffer): the nominal ladder "
+            "is not monotonic, whatever the tolerance"
+        )
+    )
+    sine = report["sine_through_levels"]
+    click.echo(
+        f"  sine     {sine['level_dbfs']:g} dBFS through the nominal levels: SINAD "
+        f"{sine['sinad_db']:.1f} dB, THD {sine['thd_db']:.1f} dB (an ideal {bits}-bit "
+        f"ladder: {sine['ideal_sinad_db']:.1f} dB, {sine['ideal_thd_db']:.1f} dB)"
     )
     inl, dnl = mc["max_abs_inl_best_fit_lsb"], mc["max_abs_dnl_lsb"]
     click.echo(
@@ -679,6 +735,7 @@ def ladder(
     rec = report["recommended_r_ohms"]
     click.echo(
         f"  R range  {series}: {rec[0]:g} to {rec[1]:g} ohm"
+        + ("" if report["r_in_recommended_range"] else f"; the chosen {r_ohms:g} ohm is outside it")
         if rec
         else f"  R range  no {series} value meets every check"
     )
@@ -1125,12 +1182,26 @@ def _band(rate: float, lo: float | None, hi: float | None) -> tuple[float, float
     help="Peak of a full-scale sine in the capture's units (1.0 for sound files; "
     "volts for a scope CSV).",
 )
+@click.option(
+    "--trim-start-s",
+    type=float,
+    default=None,
+    help="Seconds to drop at the start  [default: the steady part is found]",
+)
+@click.option(
+    "--trim-end-s",
+    type=float,
+    default=None,
+    help="Seconds to drop at the end  [default: the steady part is found]",
+)
 @_analyse_opts
 def measure(
     capture: str,
     rate_hz: float | None,
     channel: int,
     full_scale: float,
+    trim_start_s: float | None,
+    trim_end_s: float | None,
     freq_hz: float | None,
     harmonics: int,
     band_low_hz: float | None,
@@ -1143,19 +1214,40 @@ def measure(
 
     IEEE 1241 sine fit, SINAD, THD, THD+N, SFDR, ENOB and noise.
     """
-    from ladderpack.audio import load_clip, read_samples_csv
-    from ladderpack.measure import analyse
+    from ladderpack.audio import load_clip, read_capture_csv
+    from ladderpack.errors import OptionError
+    from ladderpack.measure import analyse, sine_share, steady_part
 
+    rate_note = "from the file"
     if capture.lower().endswith((".csv", ".txt")):
-        if rate_hz is None:
-            from ladderpack.errors import OptionError
-
-            raise OptionError("a CSV capture needs --rate-hz", field="rate_hz")
-        y = read_samples_csv(capture)
-        rate = rate_hz
+        y, stated, how = read_capture_csv(capture)
+        if rate_hz is not None:
+            rate, rate_note = rate_hz, "from --rate-hz"
+        elif stated is not None:
+            rate, rate_note = stated, f"from {how}"
+        else:
+            raise OptionError(
+                "a CSV capture without a sample interval in its header or a time column "
+                "needs --rate-hz",
+                field="rate_hz",
+            )
     else:
         sig = load_clip(capture, channel=channel)
         y, rate = sig.samples, sig.rate_hz
+    total = y.size
+    if trim_start_s is not None or trim_end_s is not None:
+        lo = round((trim_start_s or 0.0) * rate)
+        hi = total - round((trim_end_s or 0.0) * rate)
+        if not 0 <= lo < hi - 8:
+            raise OptionError(
+                f"the trims leave nothing of the {total / rate:.3f} s capture", field="trim"
+            )
+        part, part_note = slice(lo, hi), "as trimmed"
+    else:
+        part = steady_part(y, rate)
+        part_note = "the steady part, found" if part != slice(0, total) else "all of it"
+    y = y[part]
+    share = sine_share(y, rate)
     r: dict[str, Any] = dict(
         analyse(
             y,
@@ -1167,6 +1259,19 @@ def measure(
             a_weighted=a_weighting,
         )
     )
+    r["rate_hz"] = rate
+    r["rate_source"] = rate_note
+    r["analysed_samples"] = [part.start or 0, part.stop if part.stop is not None else total]
+    r["analysed_part"] = part_note
+    r["sine_share"] = share
+    r["warnings"] = (
+        [
+            f"the capture does not look like a sine: a fitted sine holds only "
+            f"{100 * share:.1f} % of its power, so these figures mean little"
+        ]
+        if share < 0.5
+        else []
+    )
     if plot_path:
         from ladderpack.plots import spectrum_png
 
@@ -1175,6 +1280,13 @@ def measure(
         click.echo(json_text(r))
     else:
         _print_analysis(r, os.path.basename(capture))
+        lo, hi = r["analysed_samples"]
+        click.echo(
+            f"  analysed samples {lo}..{hi} of {total} ({part_note}); rate {rate:g} Hz "
+            f"({rate_note})"
+        )
+        for warning in r["warnings"]:
+            click.echo(f"  warning  {warning}")
 
 
 def _write_bytes(path: str, data: bytes) -> str:

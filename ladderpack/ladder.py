@@ -348,6 +348,7 @@ class WorstCase(TypedDict):
     min_dnl_lsb: float
     max_abs_dnl_lsb: float
     monotonic: bool
+    monotonic_tolerance: float
 
 
 class Percentiles(TypedDict):
@@ -363,6 +364,7 @@ class MonteCarlo(TypedDict):
     """Spread of the linearity over random resistor draws."""
 
     trials: int
+    worst_trial: int
     max_abs_inl_best_fit_lsb: Percentiles
     max_abs_dnl_lsb: Percentiles
     monotonic_share: float
@@ -397,6 +399,8 @@ class DesignReport(TypedDict):
     settles_in_one_sample: bool
     recommended_r_ohms: list[float] | None
     recommended_series: str
+    sine_through_levels: dict[str, float]
+    r_in_recommended_range: bool
 
 
 def _summary(volts: np.ndarray) -> LinearityFigures:
@@ -538,9 +542,14 @@ def design_check(
         )
         if ok_inl and ok_current and ok_settle and ok_noise:
             recommended.append(r)
+    sine = sine_through_levels(volts)
     return {
         "bits": bits,
         "r_ohms": r_ohms,
+        "sine_through_levels": sine,
+        "r_in_recommended_range": bool(
+            recommended and min(recommended) <= r_ohms <= max(recommended)
+        ),
         "tolerance": tolerance,
         "distribution": distribution,
         "source_high_ohms": rs_high,
@@ -554,6 +563,9 @@ def design_check(
         "worst_case": worst,
         "monte_carlo": {
             "trials": trials,
+            "worst_trial": int(np.argmax([float(m["max_abs_inl_best_fit_lsb"]) for m in mc]))
+            if mc
+            else 0,
             "max_abs_inl_best_fit_lsb": pct("max_abs_inl_best_fit_lsb"),
             "max_abs_dnl_lsb": pct("max_abs_dnl_lsb"),
             "monotonic_share": float(np.mean([bool(m["monotonic"]) for m in mc])),
@@ -570,6 +582,57 @@ def design_check(
         "settles_in_one_sample": settle <= 1.0 / rate_hz,
         "recommended_r_ohms": ([min(recommended), max(recommended)] if recommended else None),
         "recommended_series": series,
+    }
+
+
+def monte_carlo_trial(
+    nominal: Ladder, *, seed: int, tolerance: float, distribution: str, trial: int
+) -> Ladder:
+    """Trial number `trial` (0-based) of :func:`design_check`'s Monte Carlo run.
+
+    Rebuilt from the same seed, so its levels can be written as a LevelSet.
+    """
+    rng = np.random.default_rng(seed)
+    lad = nominal
+    for _ in range(trial + 1):
+        lad = perturbed(nominal, rng, tolerance=tolerance, distribution=distribution)
+    return lad
+
+
+def sine_through_levels(volts: np.ndarray, *, level_dbfs: float = -0.5) -> dict[str, float]:
+    """SINAD and THD of a sine played through a level table, and of an ideal ladder.
+
+    A coherent sine (67 cycles in 4096 samples, IEEE Std 1241 practice) at `level_dbfs`
+    is rounded to the N-bit codes, given each code's level, and analysed with
+    :func:`ladderpack.measure.analyse`; the same codes through ideal levels give the
+    reference, so the difference is what the ladder's errors cost.
+
+    Parameters
+    ----------
+    volts : numpy.ndarray
+        Level of each code (2**N values), volts.
+    level_dbfs : float
+        Peak of the sine, dBFS.
+    """
+    from ladderpack.measure import analyse
+
+    count = int(np.asarray(volts).size)
+    bits = count.bit_length() - 1
+    n, cycles = 4096, 67
+    half = 1 << (bits - 1)
+    x = 10 ** (level_dbfs / 20) * np.sin(2 * np.pi * cycles * np.arange(n) / n)
+    codes = np.clip(np.floor(x * half + half + 0.5), 0, count - 1).astype(np.int64)
+    v = np.asarray(volts, dtype=np.float64)
+    real = analyse(v[codes], float(n), freq_hz=float(cycles), full_scale=(v[-1] - v[0]) / 2)
+    ideal = analyse(
+        codes.astype(np.float64), float(n), freq_hz=float(cycles), full_scale=(count - 1) / 2
+    )
+    return {
+        "level_dbfs": level_dbfs,
+        "sinad_db": real["sinad_db"],
+        "thd_db": real["thd_db"],
+        "ideal_sinad_db": ideal["sinad_db"],
+        "ideal_thd_db": ideal["thd_db"],
     }
 
 
@@ -609,8 +672,17 @@ def _worst_case(ladder: Ladder, tolerance: float) -> WorstCase:
         d_inl.append((inl(v) - inl0) / h)
         d_dnl.append((np.diff(v) / lsb - 1 - dnl0) / h)
     si = np.abs(np.array(d_inl)).sum(axis=0) * tolerance
-    sd = np.abs(np.array(d_dnl)).sum(axis=0) * tolerance
+    sd1 = np.abs(np.array(d_dnl)).sum(axis=0)  # worst DNL change per unit tolerance
+    sd = sd1 * tolerance
+    # The widest tolerance whose worst case keeps every step above -1 LSB (monotonic):
+    # the worst-case DNL is linear in the tolerance, dnl0 - sd1 x tol.
+    if np.any(dnl0 < -1.0):
+        mono_tol = 0.0
+    else:
+        with np.errstate(divide="ignore"):
+            mono_tol = float(np.min(np.where(sd1 > 0, (dnl0 + 1.0) / sd1, np.inf)))
     return {
+        "monotonic_tolerance": mono_tol,
         "max_abs_inl_endpoint_lsb": float(np.max(np.abs(inl0) + si)),
         "min_dnl_lsb": float(np.min(dnl0 - sd)),
         "max_abs_dnl_lsb": float(np.max(np.abs(dnl0) + sd)),

@@ -34,6 +34,8 @@ __all__ = [
     "fit_sine",
     "integrated_loudness",
     "k_weighting",
+    "sine_share",
+    "steady_part",
     "true_peak_dbtp",
 ]
 
@@ -305,3 +307,64 @@ def analyse(
         "window": "hann (power-corrected) for band-limited and weighted noise; harmonics and "
         "spurs by least-squares fits; time-domain residual otherwise",
     }
+
+
+def steady_part(y: np.ndarray, rate_hz: float, *, tolerance_db: float = 0.2) -> slice:
+    """The steady part of a capture: the longest run of blocks at the tone's level.
+
+    The capture is cut into blocks of 20 periods of its strongest tone (at least 5 ms
+    and 32 samples), so a block's RMS varies by well under `tolerance_db` for a steady
+    sine; the reference level is the median RMS of the blocks above half the loudest,
+    and the steady part is the longest run of consecutive blocks within `tolerance_db`
+    of it, less one block at each end that borders something else (our own rule: common
+    practice). Ramps, fades and silence at either end fall outside it.
+
+    Parameters
+    ----------
+    y : numpy.ndarray
+        Samples.
+    rate_hz : float
+        Sample rate, Hz.
+    tolerance_db : float
+        How far a block's RMS may stray from the reference, dB.
+    """
+    y = np.asarray(y, dtype=np.float64)
+    if y.size < 64:
+        return slice(0, y.size)
+    f0 = max(_peak_freq(y, rate_hz), 1.0)
+    size = max(32, round(max(0.005, 20.0 / f0) * rate_hz))
+    count = y.size // size
+    if count < 3:
+        return slice(0, y.size)
+    blocks = y[: count * size].reshape(count, size)
+    rms = np.sqrt(np.mean((blocks - blocks.mean(axis=1, keepdims=True)) ** 2, axis=1))
+    loud = rms[rms >= 0.5 * rms.max()]
+    ref = float(np.median(loud))
+    ok = np.abs(20 * np.log10(np.maximum(rms, 1e-300) / max(ref, 1e-300))) <= tolerance_db
+    best, run_start = (0, 0), -1
+    for i, good in enumerate([*ok, False]):
+        if good and run_start < 0:
+            run_start = i
+        elif not good and run_start >= 0:
+            if i - run_start > best[1] - best[0]:
+                best = (run_start, i)
+            run_start = -1
+    first, last = best
+    if first > 0:
+        first += 1  # the block next to a ramp or silence may hold a little of it
+    if last < count:
+        last -= 1
+    if last <= first:
+        return slice(0, y.size)
+    lo, hi = first * size, last * size
+    if last == count:
+        hi = y.size  # the last, partial block joins a steady end
+    return slice(lo, hi)
+
+
+def sine_share(y: np.ndarray, rate_hz: float) -> float:
+    """Share of a capture's AC power that a fitted sine explains (1.0 for a clean tone)."""
+    y = np.asarray(y, dtype=np.float64)
+    fit = fit_sine(y, rate_hz)
+    ac = float(np.mean((y - y.mean()) ** 2))
+    return min(1.0, (fit.amplitude**2 / 2) / ac) if ac > 0 else 0.0

@@ -235,3 +235,101 @@ def test_non_monotonic_levels_are_handled() -> None:
     err = lv[codes.codes] - (x * half + centre)
     gaps = np.diff(np.sort(lv))
     assert np.max(np.abs(err)) <= gaps.max() / 2 + 1e-9
+
+
+def test_monotonic_tolerance_against_every_corner() -> None:
+    # A 3-bit ladder with ideal sources has 6 resistors; pushing each to +tol or -tol
+    # (all 64 corners, solved by the nodal model) finds the true worst DNL. At the
+    # reported tolerance the worst corner sits at -1 LSB (to first order), below it every
+    # corner is monotonic and above it one is not.
+    import itertools
+    from dataclasses import replace
+
+    from ladderpack.ladder import design_check, ideal_ladder
+
+    rep = design_check(
+        3, 10_000.0, tolerance=0.01, source_high_ohms=0.0, source_low_ohms=0.0, trials=2
+    )
+    tol = rep["worst_case"]["monotonic_tolerance"]
+    nominal = ideal_ladder(3, 10_000.0, source_high_ohms=0.0, source_low_ohms=0.0)
+
+    def worst_dnl(t: float) -> float:
+        worst = np.inf
+        for signs in itertools.product((-1.0, 1.0), repeat=6):
+            legs = tuple(
+                (leg[0] * (1 + s * t), *leg[1:])
+                for leg, s in zip(nominal.legs, signs[:3], strict=True)
+            )
+            rungs = tuple(r * (1 + s * t) for r, s in zip(nominal.rungs, signs[3:5], strict=True))
+            lad = replace(
+                nominal,
+                legs=legs,
+                rungs=rungs,
+                termination_ohms=nominal.termination_ohms * (1 + signs[5] * t),
+            )
+            v = lad.levels()
+            lsb = (v[-1] - v[0]) / 7
+            worst = min(worst, float(np.min(np.diff(v) / lsb - 1)))
+        return worst
+
+    assert 0.01 < tol < 0.2
+    assert worst_dnl(tol) == pytest.approx(-1.0, abs=0.05)
+    assert worst_dnl(0.9 * tol) > -1.0
+    assert worst_dnl(1.1 * tol) < -1.0
+
+
+def test_sine_through_a_bowed_ladder_shows_its_second_harmonic() -> None:
+    # Levels v(x) = x + c x^2 (x in codes from mid-scale): a sine of amplitude A codes
+    # gives a 2nd harmonic of c A^2 / 2, so HD2 = 20 log10(c A / 2) dBc (trigonometry:
+    # sin^2 = (1 - cos 2wt) / 2). c is set for -60 dBc at -0.5 dBFS, 12 bits.
+    from ladderpack.ladder import sine_through_levels
+
+    bits = 12
+    half = 1 << (bits - 1)
+    amp = 10 ** (-0.5 / 20) * half
+    c = 2 * 10 ** (-60 / 20) / amp
+    x = np.arange(1 << bits) - half
+    r = sine_through_levels((x + c * x * x).astype(float))
+    assert r["thd_db"] == pytest.approx(-60.0, abs=0.3)
+    ideal = sine_through_levels(x.astype(float))
+    assert ideal["sinad_db"] == pytest.approx(ideal["ideal_sinad_db"], abs=1e-9)
+
+
+def test_ladder_report_wording_and_monte_carlo_levels(tmp_path: Path) -> None:
+    import json
+    import sys
+
+    out = tmp_path / "mc.json"
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "ladder",
+            "--bits",
+            "12",
+            "--trials",
+            "20",
+            "--mc-levels-out",
+            str(out),
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=Path(__file__).resolve().parents[1],
+    )
+    assert res.returncode == 0, res.stderr
+    rep = json.loads(res.stdout)
+    assert not rep["r_in_recommended_range"]  # 10 kohm at 12 bits on 4 mA pins
+    lev = json.loads(out.read_text())
+    # the worst trial's levels reproduce the Monte Carlo run's largest best-fit INL
+    worst = linearity(np.array(lev["volts"]))["max_abs_inl_best_fit"]
+    assert worst == pytest.approx(rep["monte_carlo"]["max_abs_inl_best_fit_lsb"]["max"], rel=1e-9)
+    text = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "ladder", "--bits", "12", "--trials", "5"],
+        capture_output=True,
+        text=True,
+        cwd=Path(__file__).resolve().parents[1],
+    ).stdout
+    assert "no missing codes" not in text
+    assert "is outside it" in text and "needs" in text and "sine" in text

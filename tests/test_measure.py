@@ -290,8 +290,18 @@ def test_measure_command_on_wav_and_csv(tmp_path: Path) -> None:
     r = json.loads(res.stdout)
     assert r["amplitude_dbfs"] == pytest.approx(0.0, abs=0.01)
     assert r["offset"] == pytest.approx(1.65, abs=1e-6)
+    # without --rate-hz the rate comes from the time column (1/48000 s steps)
+    own = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "measure", str(tmp_path / "scope.csv"), "--json"],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert own.returncode == 0, own.stderr
+    assert json.loads(own.stdout)["rate_hz"] == pytest.approx(48000.0, rel=1e-6)
+    (tmp_path / "bare.csv").write_text("\n".join(f"{v:.6f}" for v in y[:4000]) + "\n")
     bad = subprocess.run(
-        [sys.executable, "-m", "ladderpack", "measure", str(tmp_path / "scope.csv")],
+        [sys.executable, "-m", "ladderpack", "measure", str(tmp_path / "bare.csv")],
         capture_output=True,
         text=True,
         cwd=REPO,
@@ -448,3 +458,77 @@ def test_sfdr_reads_a_spur_between_bins_right() -> None:
     y = y + 0.9 * 10 ** (-70 / 20) * np.sin(2 * np.pi * (517.5 * bin_hz) * t + 0.4)
     r = analyse(y, rate)
     assert r["sfdr_db"] == pytest.approx(70.0, abs=0.05)
+
+
+def test_measure_finds_the_steady_part_of_a_ramped_capture(tmp_path: Path) -> None:
+    # A 1 kHz sine at -1 dBFS, 10-bit TPDF (theory: 6.02 x 10 + 1.76 - 4.77 - 1.0 dB at
+    # -1 dBFS = 56.2 dB, Lipshitz et al. 1992), with 50 ms raised-cosine ramps and 100 ms
+    # of silence at both ends: measured whole it reads far lower; the steady part found
+    # automatically gives the theory, and says what it used.
+    import soundfile
+
+    rate = 48000
+    rng = np.random.default_rng(4)
+    t = np.arange(rate) / rate
+    tone = 10 ** (-1 / 20) * np.sin(2 * np.pi * 1000 * t)
+    q = (np.round(tone * 512 + rng.triangular(-1, 0, 1, t.size)) / 512).astype(float)
+    ramp = 0.5 - 0.5 * np.cos(np.pi * np.arange(2400) / 2400)
+    env = np.concatenate(
+        [np.zeros(4800), ramp, np.ones(q.size - 2 * 2400), ramp[::-1], np.zeros(4800)]
+    )
+    capture = np.concatenate([np.zeros(4800), q, np.zeros(4800)]) * env
+    path = tmp_path / "ramped.wav"
+    soundfile.write(path, capture, rate, subtype="FLOAT")
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "measure", str(path), "--json"],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    theory = 6.0206 * 10 + 1.7609 - 4.77 - 1.0
+    assert r["sinad_db"] == pytest.approx(theory, abs=0.5)
+    lo, hi = r["analysed_samples"]
+    assert 4800 + 2400 <= lo <= 4800 + 2400 + 480 and capture.size - 7200 - 480 <= hi
+    assert r["warnings"] == []
+
+
+def test_measure_warns_on_a_capture_that_is_not_a_sine(tmp_path: Path) -> None:
+    import soundfile
+
+    speech = REPO / "demo_audio" / "frost_warning.flac"
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "measure", str(speech), "--json"],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    assert r["warnings"] and "does not look like a sine" in r["warnings"][0]
+    del soundfile
+
+
+def test_scope_csv_header_gives_the_sample_interval(tmp_path: Path) -> None:
+    # A scope-style export: header lines naming the record and the sample interval
+    # (1 us), then one value per line. The header lines are not samples, and the rate
+    # (1 MHz) comes from the interval: a 10 kHz tone measures at 10 kHz.
+    n = 5000
+    y = 0.3 * np.sin(2 * np.pi * 10_000 * np.arange(n) / 1e6)
+    lines = ["Record Length,5000", "Sample Interval,1.0E-06 s", "Units,V", "Volt"]
+    lines += [f"{v:.9f}" for v in y]
+    csv_path = tmp_path / "scope.csv"
+    csv_path.write_text("\n".join(lines) + "\n")
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "measure", str(csv_path), "--json"],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    assert r["rate_hz"] == pytest.approx(1e6)
+    assert r["freq_hz"] == pytest.approx(10_000.0, rel=1e-6)
+    assert "header line 2" in r["rate_source"]
+    assert r["analysed_samples"][1] <= n
