@@ -593,29 +593,42 @@ def ladder(
     Reports INL/DNL, tolerance spread, pin current, thermal noise, settling and a
     recommended R range.
     """
-    from ladderpack.ladder import DRIVE_SOURCE_OHMS, design_check, ideal_ladder, spice_netlist
+    from ladderpack.ladder import (
+        DRIVE_SOURCE_OHMS,
+        design_check,
+        design_steps,
+        ideal_ladder,
+        spice_netlist,
+    )
     from ladderpack.levels import LevelSet
 
-    report = design_check(
-        bits,
-        r_ohms,
-        tolerance=tolerance_pct / 100,
-        distribution=distribution,
-        source_high_ohms=source_high_ohms,
-        source_low_ohms=source_low_ohms,
-        drive_ma=int(drive_ma),
-        supply_volts=supply_volts,
-        load_ohms=load_ohms,
-        load_farads=load_pf * 1e-12,
-        rate_hz=rate_hz,
-        band_hz=band_hz,
-        temperature_k=temperature_k,
-        trials=trials,
-        seed=seed,
-        split_legs=split_legs,
-        series=series,
-        inl_share_lsb=inl_share_lsb,
+    bar_cm: contextlib.AbstractContextManager[Any] = (
+        click.progressbar(length=design_steps(trials, series), label="ladder", file=sys.stderr)
+        if sys.stderr.isatty()
+        else contextlib.nullcontext()
     )
+    with bar_cm as bar:
+        report = design_check(
+            bits,
+            r_ohms,
+            tolerance=tolerance_pct / 100,
+            distribution=distribution,
+            source_high_ohms=source_high_ohms,
+            source_low_ohms=source_low_ohms,
+            drive_ma=int(drive_ma),
+            supply_volts=supply_volts,
+            load_ohms=load_ohms,
+            load_farads=load_pf * 1e-12,
+            rate_hz=rate_hz,
+            band_hz=band_hz,
+            temperature_k=temperature_k,
+            trials=trials,
+            seed=seed,
+            split_legs=split_legs,
+            series=series,
+            inl_share_lsb=inl_share_lsb,
+            progress=None if bar is None else bar.update,
+        )
     bound = DRIVE_SOURCE_OHMS[int(drive_ma)]
     model = ideal_ladder(
         bits,

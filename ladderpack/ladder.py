@@ -15,6 +15,7 @@ approximated: with ideal values the model reproduces the textbook result
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import TypedDict
 
@@ -436,8 +437,12 @@ def design_check(
     split_legs: bool = False,
     series: str = "E96",
     inl_share_lsb: float = 0.5,
+    progress: Callable[[int], None] | None = None,
 ) -> DesignReport:
     """Check a ladder design: linearity, tolerance spread, pin current, noise, settling, R range.
+
+    `progress`, if given, is called with the number of steps just done (Monte Carlo
+    trials and candidate resistor values); :func:`design_steps` gives the total.
 
     Parameters
     ----------
@@ -509,10 +514,12 @@ def design_check(
     volts = nominal.levels()
     lsb = (volts[-1] - volts[0]) / ((1 << bits) - 1)
     rng = np.random.default_rng(seed)
-    mc = [
-        _summary(perturbed(nominal, rng, tolerance=tolerance, distribution=distribution).levels())
-        for _ in range(trials)
-    ]
+    mc = []
+    for _ in range(trials):
+        lad = perturbed(nominal, rng, tolerance=tolerance, distribution=distribution)
+        mc.append(_summary(lad.levels()))
+        if progress is not None:
+            progress(1)
 
     def pct(key: str) -> Percentiles:
         vals = np.array([float(m[key]) for m in mc])  # type: ignore[literal-required]
@@ -529,6 +536,8 @@ def design_check(
     settle = tau * math.log(2 ** (bits + 1))  # full-scale step to within 1/2 LSB
     recommended = []
     for r in e_series(series):
+        if progress is not None:
+            progress(1)
         lad = build(r, rs_high, rs_low)
         lin = _summary(lad.levels())
         ok_inl = lin["max_abs_inl_best_fit_lsb"] <= inl_share_lsb
@@ -583,6 +592,11 @@ def design_check(
         "recommended_r_ohms": ([min(recommended), max(recommended)] if recommended else None),
         "recommended_series": series,
     }
+
+
+def design_steps(trials: int, series: str = "E96") -> int:
+    """Steps :func:`design_check` reports to its `progress` callback."""
+    return trials + len(e_series(series))
 
 
 def monte_carlo_trial(

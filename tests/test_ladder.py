@@ -333,3 +333,20 @@ def test_ladder_report_wording_and_monte_carlo_levels(tmp_path: Path) -> None:
     ).stdout
     assert "no missing codes" not in text
     assert "is outside it" in text and "needs" in text and "sine" in text
+
+
+def test_ladder_progress_counts_every_step_and_stays_quiet_when_piped() -> None:
+    import sys
+
+    from ladderpack.ladder import design_check, design_steps
+
+    seen: list[int] = []
+    design_check(6, trials=7, progress=seen.append)
+    assert sum(seen) == design_steps(7)
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "ladder", "--bits", "6", "--trials", "5"],
+        capture_output=True,
+        text=True,
+        cwd=Path(__file__).resolve().parents[1],
+    )
+    assert res.returncode == 0 and res.stderr == ""
