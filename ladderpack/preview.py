@@ -17,7 +17,7 @@ import numpy as np
 
 from ladderpack.errors import LadderpackError, OptionError
 
-__all__ = ["Preview", "render_preview"]
+__all__ = ["Preview", "analog_output", "render_preview"]
 
 
 @dataclass(frozen=True)
@@ -98,6 +98,47 @@ def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
     return side, codes
 
 
+def analog_output(
+    levels: np.ndarray, rate_hz: float, oversample: int, corner_hz: float | None = None
+) -> np.ndarray:
+    """The ladder's analog output, sampled `oversample` times per sample period.
+
+    Each level is held for one whole period (the zero-order hold, transfer
+    ``T sinc(f T) exp(-j pi f T)``), optionally through a first-order RC filter
+    (``1 / (1 + j f / corner)``), computed exactly in the frequency domain: the levels
+    as an impulse train at ``oversample x rate_hz`` times those transfers, so the
+    result is the analog waveform band-limited to half that rate, at the right times
+    (no half-step offset) and with the hold's images at their true level. The record is
+    padded for the filter's tail and treated as periodic past it.
+
+    Parameters
+    ----------
+    levels : numpy.ndarray
+        One value per sample period.
+    rate_hz : float
+        Sample rate of the levels, Hz.
+    oversample : int
+        Output samples per sample period.
+    corner_hz : float, optional
+        Corner of the RC filter, Hz.
+    """
+    from scipy import fft as sfft
+
+    x = np.asarray(levels, dtype=np.float64)
+    edge = float(x[-1]) if x.size else 0.0
+    tail = 1 if corner_hz is None else math.ceil(14 * rate_hz / (2 * math.pi * corner_hz)) + 1
+    n = x.size + tail
+    m = sfft.next_fast_len(n * oversample, real=True)
+    train = np.zeros(m)
+    train[: x.size * oversample : oversample] = x - edge
+    f = np.fft.rfftfreq(m, 1.0 / (oversample * rate_hz))
+    h = oversample * np.sinc(f / rate_hz) * np.exp(-1j * np.pi * f / rate_hz)
+    if corner_hz is not None:
+        h = h / (1 + 1j * f / corner_hz)
+    y = sfft.irfft(sfft.rfft(train) * h, m)
+    return y[: x.size * oversample] + edge
+
+
 def _own_levels(side: dict[str, Any], sidecar_path: str) -> Any:
     """The LevelSet the stream was made with (``stream --levels``), or None.
 
@@ -172,16 +213,13 @@ def render_preview(
     if not (math.isfinite(out_rate) and out_rate > 0):
         raise OptionError(f"must be > 0 Hz, got {playback_rate_hz!r}", field="playback_rate_hz")
     hold = 1
+    if filter_corner_hz is not None and not (
+        math.isfinite(filter_corner_hz) and filter_corner_hz > 0
+    ):
+        raise OptionError(f"must be > 0 Hz, got {filter_corner_hz!r}", field="filter_corner_hz")
     if out_rate != rate or filter_corner_hz is not None:
         hold = max(1, math.ceil(4 * max(out_rate, rate) / rate))
-        x = np.repeat(x, hold)  # the ladder holds each level for a whole sample period
-    if filter_corner_hz is not None:
-        if not (math.isfinite(filter_corner_hz) and filter_corner_hz > 0):
-            raise OptionError(f"must be > 0 Hz, got {filter_corner_hz!r}", field="filter_corner_hz")
-        from scipy import signal as sps
-
-        a = math.exp(-2 * math.pi * filter_corner_hz / (hold * rate))  # exact for a held input
-        x = sps.lfilter([1 - a], [1, -a], x)
+        x = analog_output(x, rate, hold, filter_corner_hz)
     if hold > 1 or out_rate != rate:
         x = resample(Signal(x, hold * rate), out_rate, bits=16).samples
     stats = side.get("stats", {})

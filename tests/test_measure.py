@@ -532,3 +532,89 @@ def test_scope_csv_header_gives_the_sample_interval(tmp_path: Path) -> None:
     assert r["freq_hz"] == pytest.approx(10_000.0, rel=1e-6)
     assert "header line 2" in r["rate_source"]
     assert r["analysed_samples"][1] <= n
+
+
+def _line(y: np.ndarray, rate: float, f: float) -> complex:
+    """Complex amplitude of the component at f (least squares, DC included)."""
+    t = np.arange(y.size) / rate
+    d = np.column_stack([np.cos(2 * np.pi * f * t), np.sin(2 * np.pi * f * t), np.ones_like(t)])
+    (a, b, _c), *_ = np.linalg.lstsq(d, y, rcond=None)
+    return complex(a, -b)
+
+
+def test_preview_hold_is_the_exact_zero_order_hold() -> None:
+    # A zero-order hold of period T has the transfer T sinc(fT) exp(-j pi f T): its image
+    # of a tone f0 at fs - f0 sits 20 log10(f0 / (fs - f0)) below the tone (sin(pi(fs -
+    # f0)/fs) = sin(pi f0/fs)), and the tone lags by T/2 (textbook sampling theory). A
+    # 1 kHz tone at 48 kHz, heard at 192 kHz: image -33.44 dB, lag 10.42 us.
+    from ladderpack.preview import analog_output
+
+    fs, f0, n, over = 48000.0, 1000.0, 4800, 4
+    levels = np.sin(2 * np.pi * f0 * np.arange(n) / fs)
+    y = analog_output(levels, fs, over)
+    rate = over * fs
+    tone, image = _line(y, rate, f0), _line(y, rate, fs - f0)
+    assert 20 * np.log10(abs(image) / abs(tone)) == pytest.approx(
+        20 * np.log10(f0 / (fs - f0)), abs=0.01
+    )
+    lag = -np.angle(tone / _line(levels, fs, f0)) / (2 * np.pi * f0)
+    assert lag == pytest.approx(0.5 / fs, abs=2e-8)
+    # and the tone's magnitude carries the hold's droop, sinc(f0 / fs)
+    assert abs(tone) == pytest.approx(np.sinc(f0 / fs), rel=1e-4)
+
+
+def test_preview_rc_filter_is_exact() -> None:
+    # A first-order RC (corner 5 kHz) after the hold: the 1 kHz tone is further scaled by
+    # 1 / |1 + j f / fc| = 0.98058 and delayed by atan(f / fc) / (2 pi f) (RC network).
+    from ladderpack.preview import analog_output
+
+    fs, f0, n, over, fc = 48000.0, 1000.0, 9600, 4, 5000.0
+    levels = np.sin(2 * np.pi * f0 * np.arange(n) / fs)
+    plain = _line(analog_output(levels, fs, over)[over * 2400 :], over * fs, f0)
+    rc = _line(analog_output(levels, fs, over, fc)[over * 2400 :], over * fs, f0)
+    assert abs(rc) / abs(plain) == pytest.approx(1 / math.hypot(1, f0 / fc), rel=1e-5)
+    assert -np.angle(rc / plain) == pytest.approx(math.atan(f0 / fc), abs=1e-5)
+
+
+def test_preview_names_the_rendered_and_the_header_rate(tmp_path: Path) -> None:
+    # The stream's achieved rate is fractional (44099.97 Hz at 125 MHz); a WAV header
+    # holds whole hertz (RIFF/WAVE fmt chunk: a 32-bit integer rate), so the report gives
+    # both, and the header is the rounded one (read back with soundfile).
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "tone",
+            "sine",
+            "--rate-hz",
+            "44100",
+            "--seconds",
+            "0.05",
+            "-o",
+            str(tmp_path),
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "preview",
+            str(tmp_path / "sine.json"),
+            "--json",
+            "--no-measure",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=REPO,
+    )
+    assert res.returncode == 0, res.stderr
+    r = json.loads(res.stdout)
+    assert r["rate_hz"] != round(r["rate_hz"])
+    assert r["wav_header_rate_hz"] == round(r["rate_hz"])
+    assert soundfile.info(r["file"]).samplerate == r["wav_header_rate_hz"]

@@ -284,3 +284,33 @@ def test_tones_at_or_above_nyquist_are_refused(freq_hz: float) -> None:
         synthesise("sine", rate_hz=44100.0, samples=10, freq_hz=freq_hz)
     with pytest.raises(OptionError, match="Nyquist"):
         synthesise("multitone", rate_hz=44100.0, samples=10, tones=[(1000.0, 0.0), (freq_hz, 0)])
+
+
+@pytest.mark.parametrize(
+    ("args", "line"),
+    [
+        (["multitone", "--tones", "1000:0,3000:-6"], "tone     multitone of 1000, 3000 Hz"),
+        (["sweep", "--f-start-hz", "50", "--f-end-hz", "5000"], "exponential sweep 50 to 5000 Hz"),
+        (["impulse"], "tone     impulse at sample"),
+    ],
+)
+def test_tone_summary_for_kinds_without_one_frequency(
+    tmp_path: Path, args: list[str], line: str
+) -> None:
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "ladderpack",
+            "tone",
+            *args,
+            "--seconds",
+            "0.02",
+            "-o",
+            str(tmp_path),
+        ],
+        capture_output=True,
+        text=True,
+    )
+    assert res.returncode == 0, res.stderr
+    assert line in res.stdout and "requested" not in res.stdout.splitlines()[0]
