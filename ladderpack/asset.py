@@ -6,6 +6,7 @@ the emitters in :mod:`ladderpack.emit` render it, :mod:`ladderpack.bundle` write
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from typing import Any, TypedDict
 
@@ -103,6 +104,14 @@ class StreamAsset:
     outro: Packed | None = None
     budget: Budget | None = None
     levels_volts: np.ndarray | None = None
+
+    @functools.cached_property
+    def max_step(self) -> int:
+        """Largest step between consecutive codes the pins see (:func:`largest_step`).
+
+        Computed once, for every emitter that needs it.
+        """
+        return largest_step(self)
 
     @property
     def idle_pins(self) -> int:

@@ -495,8 +495,6 @@ def test_measure_finds_the_steady_part_of_a_ramped_capture(tmp_path: Path) -> No
 
 
 def test_measure_warns_on_a_capture_that_is_not_a_sine(tmp_path: Path) -> None:
-    import soundfile
-
     speech = REPO / "demo_audio" / "frost_warning.flac"
     res = subprocess.run(
         [sys.executable, "-m", "ladderpack", "measure", str(speech), "--json"],
@@ -507,7 +505,6 @@ def test_measure_warns_on_a_capture_that_is_not_a_sine(tmp_path: Path) -> None:
     assert res.returncode == 0, res.stderr
     r = json.loads(res.stdout)
     assert r["warnings"] and "does not look like a sine" in r["warnings"][0]
-    del soundfile
 
 
 def test_scope_csv_header_gives_the_sample_interval(tmp_path: Path) -> None:

@@ -13,7 +13,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from ladderpack._version import __version__
-from ladderpack.asset import StreamAsset, largest_step
+from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 
@@ -54,7 +54,7 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
         ("AUTOPULL", "1" if asset.program.autopull else "0", "program relies on autopull"),
         ("PROGRAM_KIND", _PROGRAM_KIND[asset.program.variant], "LP_PROGRAM_* of the player"),
-        ("MAX_STEP", f"{largest_step(asset)}u", "largest step between consecutive codes"),
+        ("MAX_STEP", f"{asset.max_step}u", "largest step between consecutive codes"),
         ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
         ("INTRO_WORD_COUNT", f"{_count(asset.intro)}u", "loops: ramp up from idle"),
         ("OUTRO_WORD_COUNT", f"{_count(asset.outro)}u", "loops: ramp down to idle"),

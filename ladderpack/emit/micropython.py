@@ -9,7 +9,7 @@ read in chunks; very short streams are embedded as a literal instead.
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.asset import StreamAsset, largest_step
+from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed
 from ladderpack.pio import Instruction
@@ -449,7 +449,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         shift_right=lay.shift_right,
         msb_high=lay.msb_high,
         invert_flag=lay.invert,
-        max_step=largest_step(asset),
+        max_step=asset.max_step,
         loop_program=prog.variant == "loop",
     )
 
