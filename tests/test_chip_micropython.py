@@ -171,6 +171,7 @@ def test_hold_code_and_clock_refusal(tmp_path: Path) -> None:
     steps = [
         {"code": "import dc\np = dc.Player()\np.hold_code(200)\n"},
         {"code": "p.hold_code(37)\n"},
+        {"code": "p.play()\n"},
         {"code": "import fast\ntry:\n    fast.Player()\nexcept ValueError as e:\n    print(e)\n"},
     ]
     r = run_micropython(files, steps, tmp_path)
@@ -179,6 +180,10 @@ def test_hold_code_and_clock_refusal(tmp_path: Path) -> None:
     assert codes[-1] == 200 and np.abs(np.diff(codes)).max() <= s.max_step
     codes, _t = played(r, s, 1)
     assert codes[-1] == 37
+    # playing after a held code ramps back to idle first, then plays every sample
+    codes, _t = played(r, s, 2)
+    assert np.abs(np.diff(codes)).max() <= s.max_step
+    np.testing.assert_array_equal(codes[codes.size - s.codes.size :], s.codes)
     assert "125000000" in r.output() and "150000000" in r.output()
     assert "--sys-clock-hz 125000000" in r.output()
 

@@ -235,6 +235,8 @@ class Player:
     def play(self, loop: bool = LOOP) -> None:
         """Play once, or repeat (loop=True) until stop() is called; blocks until the
         pins are back on the idle code."""
+        if self._code_on_pins() != IDLE_CODE:
+            self.hold_code(IDLE_CODE)  # after hold_code(): back to idle first, one ramp
         self.running = True
         self._restart()
         self.prev_word = IDLE_WORD
