@@ -1,0 +1,181 @@
+"""Whole-command speed and memory against the converter a user would otherwise run.
+
+Run:  python bench/speed.py [--runs 5] [--quick]
+
+Every figure is a whole process from a cold start (what a user or a firmware build pays),
+timed several times in one run beside its baseline, with medians and ratios:
+
+* ``ladderpack stream`` of a 60 s 44.1 kHz stereo clip to 8-bit 22.05 kHz, against
+  ``sox -q IN -r 22050 -c 1 -b 8 OUT rate -v dither`` (Debian's sox: very-high-quality
+  resampling plus dither);
+* the same for a 10-minute clip, and with ``--loudness-lufs -23`` (peak memory too);
+* a 2.3 s clip with designed shaping, with a warm kernel cache and a fresh one (a new
+  ``NUMBA_CACHE_DIR``, as on a CI runner or a new build container);
+* ``ladderpack --help`` against ``python3 -c pass``;
+* ``ladderpack ladder --bits 12``.
+
+Needs sox on PATH (Debian package ``sox``). Benchmarks only: the tests never time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import resource
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import soundfile
+
+PY = sys.executable
+
+
+def clip(path: Path, seconds: float, rate: int = 44100) -> Path:
+    """A deterministic stereo test clip: two tones and a little noise, as 16-bit WAV."""
+    rng = np.random.default_rng(1)
+    n = int(seconds * rate)
+    out = np.empty((n, 2), dtype=np.float32)
+    block = 1 << 20
+    for i in range(0, n, block):
+        t = np.arange(i, min(n, i + block)) / rate
+        left = 0.4 * np.sin(2 * np.pi * 440 * t) + 0.01 * rng.standard_normal(t.size)
+        out[i : i + t.size, 0] = left
+        out[i : i + t.size, 1] = 0.3 * np.sin(2 * np.pi * 660 * t)
+    soundfile.write(path, out, rate, subtype="PCM_16")
+    return path
+
+
+def run(argv: list[str], env: dict[str, str] | None = None) -> tuple[float, float]:
+    """Wall time (s) and the child's peak resident memory (MB) of one command."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    t0 = time.perf_counter()
+    subprocess.run(argv, check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
+    wall = time.perf_counter() - t0
+    # ru_maxrss of children is the largest so far (KiB on Linux): a lower bound when an
+    # earlier child was bigger, so memory rows run their command first.
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return wall, max(peak, before) / 1024
+
+
+def median_time(argv: list[str], runs: int, env: dict[str, str] | None = None) -> float:
+    return statistics.median(run(argv, env)[0] for _ in range(runs))
+
+
+def row(label: str, ours: float, base: float, base_label: str, goal: str) -> None:
+    print(f"| {label} | {ours:.3f} s | {base:.3f} s ({base_label}) | {ours / base:.1f}x | {goal} |")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--runs", type=int, default=5, help="runs per command (median)")
+    ap.add_argument("--quick", action="store_true", help="skip the 10-minute clips")
+    args = ap.parse_args()
+    sox = shutil.which("sox")
+    if sox is None:
+        sys.exit("bench/speed.py needs sox on PATH (Debian package sox)")
+    lp = [PY, "-m", "ladderpack"]
+    with tempfile.TemporaryDirectory() as tmp:
+        work = Path(tmp)
+        c60 = clip(work / "c60.wav", 60.0)
+        c2 = clip(work / "c2.wav", 2.3)
+        out = work / "out"
+        print(
+            f"ladderpack whole-command speed, {time.strftime('%Y-%m-%d')}, "
+            f"{os.cpu_count()} cores, medians of {args.runs} runs"
+        )
+        print("| job | ladderpack | baseline in the same run | ratio | goal |")
+        print("|---|---|---|---|---|")
+        ours = median_time(
+            [*lp, "stream", str(c60), "-o", str(out), "--rate-hz", "22050"], args.runs
+        )
+        base = median_time(
+            [
+                sox,
+                "-q",
+                str(c60),
+                "-r",
+                "22050",
+                "-c",
+                "1",
+                "-b",
+                "8",
+                str(work / "s.wav"),
+                "rate",
+                "-v",
+                "dither",
+            ],
+            args.runs,
+        )
+        row("stream 60 s 44.1 kHz stereo to 8-bit 22.05 kHz", ours, base, "sox", "within 2x")
+        warm = median_time(
+            [*lp, "stream", str(c2), "-o", str(out), "--shaping", "designed"], args.runs
+        )
+        cold_times = []
+        for _ in range(args.runs):
+            env = dict(os.environ, NUMBA_CACHE_DIR=tempfile.mkdtemp(dir=tmp))
+            cold_times.append(
+                run([*lp, "stream", str(c2), "-o", str(out), "--shaping", "designed"], env)[0]
+            )
+        cold = statistics.median(cold_times)
+        base2 = median_time(
+            [
+                sox,
+                "-q",
+                str(c2),
+                "-r",
+                "22050",
+                "-c",
+                "1",
+                "-b",
+                "8",
+                str(work / "s2.wav"),
+                "rate",
+                "-v",
+                "dither",
+            ],
+            args.runs,
+        )
+        row("stream 2.3 s, designed shaping, warm kernel cache", warm, base2, "sox", "0.6 s")
+        row("stream 2.3 s, designed shaping, fresh kernel cache", cold, base2, "sox", "2 s")
+        helpt = median_time([*lp, "--help"], args.runs)
+        passt = median_time([PY, "-c", "pass"], args.runs)
+        row("ladderpack --help", helpt, passt, "python3 -c pass", "under 3x")
+        lad = median_time([*lp, "ladder", "--bits", "12"], max(1, args.runs // 2))
+        print(f"| ladder --bits 12 | {lad:.3f} s | | | under 2 s |")
+        if not args.quick:
+            c600 = clip(work / "c600.wav", 600.0)
+            ours = median_time([*lp, "stream", str(c600), "-o", str(out)], 1)
+            base = median_time(
+                [
+                    sox,
+                    "-q",
+                    str(c600),
+                    "-r",
+                    "22050",
+                    "-c",
+                    "1",
+                    "-b",
+                    "8",
+                    str(work / "s6.wav"),
+                    "rate",
+                    "-v",
+                    "dither",
+                ],
+                1,
+            )
+            row("stream 10 min 44.1 kHz stereo", ours, base, "sox", "within 2x")
+            wall, peak = run([*lp, "stream", str(c600), "-o", str(out), "--loudness-lufs", "-23"])
+            print(
+                f"| stream 10 min with --loudness-lufs -23 | {wall:.3f} s, peak "
+                f"{peak:.0f} MB | | | under 300 MB |"
+            )
+
+
+if __name__ == "__main__":
+    main()
