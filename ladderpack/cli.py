@@ -9,7 +9,6 @@ from collections.abc import Callable, Iterator, Mapping
 from typing import Any
 
 import click
-import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.defaults import (
@@ -790,6 +789,8 @@ def levels(
     lev = read_sweep_csv(csv_path, bits, fill=fill, superposition=superposition)
     lin = linearity(lev.volts)
     written = _write_one(out_path, lev.to_json())
+    import numpy as np
+
     report = {k: v for k, v in lin.items() if not isinstance(v, np.ndarray)}
     report.update(notes=lev.notes, origin=lev.origin, file=written)
     if as_json:
@@ -1366,6 +1367,7 @@ def preview(
     """
     import io
 
+    import numpy as np
     import soundfile
 
     from ladderpack.measure import analyse
