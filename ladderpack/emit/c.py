@@ -193,14 +193,34 @@ def _array(values: list[int], digits: int) -> list[str]:
 
 
 def _array_lines(words: np.ndarray, digits: int, block: int = 1 << 16) -> Iterator[str]:
-    """Lines of `_WORDS_PER_LINE` hex literals, the last without a trailing comma."""
+    """Lines of `_WORDS_PER_LINE` hex literals, the last without a trailing comma.
+
+    Whole lines are laid out as bytes by numpy (a fixed template per line, the hex digits
+    written into their columns), so large streams cost no Python loop per word; a
+    yielded item may hold many lines. The last line is formatted on its own.
+    """
     n = int(words.shape[0])
     per = _WORDS_PER_LINE
+    if n == 0:
+        return
+    dtype = {8: ">u4", 4: ">u2"}[digits]
+    literal = "0x" + "0" * digits + "u"
+    template = np.frombuffer(("    " + ", ".join([literal] * per) + ",\n").encode(), np.uint8)
+    step = len(literal) + 2
+    cols = (6 + step * np.arange(per)[:, None] + np.arange(digits)[None, :]).ravel()
+    total = (n + per - 1) // per  # lines; all but the last are full
+    block -= block % per
     for start in range(0, n, block):
-        chunk = [int(w) for w in words[start : start + block]]
-        for i in range(0, len(chunk), per):
-            line = "    " + ", ".join(f"0x{v:0{digits}X}u" for v in chunk[i : i + per])
-            yield line if start + i + per >= n else line + ","
+        first = start // per
+        stop = min((start + block) // per, total - 1)
+        if stop > first:
+            chunk = np.asarray(words[first * per : stop * per]).astype(dtype)
+            digits_ = np.frombuffer(chunk.tobytes().hex().upper().encode(), np.uint8)
+            text = np.tile(template, (stop - first, 1))
+            text[:, cols] = digits_.reshape(stop - first, per * digits)
+            yield text.tobytes().decode()[:-1]
+    last = [int(w) for w in words[(total - 1) * per :]]
+    yield "    " + ", ".join(f"0x{v:0{digits}X}u" for v in last)
 
 
 def source_lines(asset: StreamAsset) -> Iterator[str]:
