@@ -534,23 +534,49 @@ def design_check(
     noise = johnson_noise_volts(float(r_out.max()), band_hz, temperature_k)
     tau = float(r_out.max()) * load_farads
     settle = tau * math.log(2 ** (bits + 1))  # full-scale step to within 1/2 LSB
-    recommended = []
-    for r in e_series(series):
-        if progress is not None:
-            progress(1)
+    # The recommended range: the source resistance's INL share and the pin current only
+    # get better as R grows (both go as 1/R), the settling time and the thermal noise only
+    # get worse (both grow with the output resistance, about R). So the values that pass
+    # form one run of the series, found by two bisections instead of a full scan.
+    values = e_series(series)
+    settle_factor = load_farads * math.log(2 ** (bits + 1))
+
+    def low_ok(r: float) -> bool:
         lad = build(r, rs_high, rs_low)
         lin = _summary(lad.levels())
-        ok_inl = lin["max_abs_inl_best_fit_lsb"] <= inl_share_lsb
-        ok_current = float(np.max(np.abs(lad.pin_currents()))) <= drive_ma * 1e-3
-        ok_settle = (
-            float(lad.output_ohms().max()) * load_farads * math.log(2 ** (bits + 1))
-            <= 1.0 / rate_hz
+        return (
+            lin["max_abs_inl_best_fit_lsb"] <= inl_share_lsb
+            and float(np.max(np.abs(lad.pin_currents()))) <= drive_ma * 1e-3
         )
-        ok_noise = (
-            johnson_noise_volts(float(lad.output_ohms().max()), band_hz, temperature_k) <= 0.1 * lsb
+
+    def high_ok(r: float) -> bool:
+        r_max = float(build(r, rs_high, rs_low).output_ohms().max())
+        return (
+            r_max * settle_factor <= 1.0 / rate_hz
+            and johnson_noise_volts(r_max, band_hz, temperature_k) <= 0.1 * lsb
         )
-        if ok_inl and ok_current and ok_settle and ok_noise:
-            recommended.append(r)
+
+    budget = scan_steps(series)
+
+    def first_true(pred: Callable[[float], bool], want: bool) -> int:
+        nonlocal budget
+        lo, hi = 0, len(values)
+        while lo < hi:
+            mid = (lo + hi) // 2
+            if progress is not None:
+                progress(1)
+            budget -= 1
+            if pred(values[mid]) == want:
+                hi = mid
+            else:
+                lo = mid + 1
+        return lo
+
+    first = first_true(low_ok, True)  # the smallest R passing INL and current
+    past = first_true(high_ok, False)  # the first R too slow or too noisy
+    if progress is not None and budget > 0:
+        progress(budget)
+    recommended = values[first:past]
     sine = sine_through_levels(volts)
     return {
         "bits": bits,
@@ -594,9 +620,14 @@ def design_check(
     }
 
 
+def scan_steps(series: str = "E96") -> int:
+    """Steps of the recommended-range search: two bisections over the series."""
+    return 2 * len(e_series(series)).bit_length()
+
+
 def design_steps(trials: int, series: str = "E96") -> int:
     """Steps :func:`design_check` reports to its `progress` callback."""
-    return trials + len(e_series(series))
+    return trials + scan_steps(series)
 
 
 def monte_carlo_trial(

@@ -350,3 +350,38 @@ def test_ladder_progress_counts_every_step_and_stays_quiet_when_piped() -> None:
         cwd=Path(__file__).resolve().parents[1],
     )
     assert res.returncode == 0 and res.stderr == ""
+
+
+@pytest.mark.parametrize(
+    ("bits", "rate_hz", "load_ohms"),
+    [(6, 22050.0, None), (8, 48000.0, 47_000.0), (10, 96000.0, None), (12, 22050.0, None)],
+)
+def test_recommended_range_equals_a_full_scan(
+    bits: int, rate_hz: float, load_ohms: float | None
+) -> None:
+    # The design check bisects the preferred-value series; a scan of every value with the
+    # same four criteria (written here again: best-fit INL share, pin current, settling to
+    # 1/2 LSB, thermal noise under 0.1 LSB) must find the same run.
+    import math
+
+    from ladderpack.ladder import DRIVE_SOURCE_OHMS, design_check, e_series, johnson_noise_volts
+
+    high, low = DRIVE_SOURCE_OHMS[4]
+    nominal = ideal_ladder(
+        bits, 10_000.0, source_high_ohms=high, source_low_ohms=low, load_ohms=load_ohms
+    )
+    v = nominal.levels()
+    lsb = (v[-1] - v[0]) / ((1 << bits) - 1)
+    passing = []
+    for r in e_series("E96"):
+        lad = ideal_ladder(bits, r, source_high_ohms=high, source_low_ohms=low, load_ohms=load_ohms)
+        r_out = float(lad.output_ohms().max())
+        if (
+            linearity(lad.levels())["max_abs_inl_best_fit"] <= 0.5
+            and float(np.max(np.abs(lad.pin_currents()))) <= 4e-3
+            and r_out * 20e-12 * math.log(2 ** (bits + 1)) <= 1 / rate_hz
+            and johnson_noise_volts(r_out, 20000.0, 300.0) <= 0.1 * lsb
+        ):
+            passing.append(r)
+    rep = design_check(bits, 10_000.0, trials=2, rate_hz=rate_hz, load_ohms=load_ohms)
+    assert rep["recommended_r_ohms"] == ([min(passing), max(passing)] if passing else None)
