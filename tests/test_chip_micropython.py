@@ -233,9 +233,4 @@ def test_stop_a_stream_ramps_down_at_once(tmp_path: Path, embed: bool) -> None:
     r = run_micropython(files, [{"code": code}], tmp_path)
     assert_ok(r)
     codes, _t = played(r, s, 0)
-    n = 0
-    while n < codes.size and n < s.codes.size and codes[n] == s.codes[n]:
-        n += 1
-    assert 0 < n < s.codes.size  # a prefix of the stream, cut short
-    assert np.abs(np.diff(codes)).max() <= s.max_step
-    assert codes[-1] == s.layout.idle_code
+    s.assert_cut_short(codes)

@@ -169,6 +169,16 @@ class Stream:
             lay.words_to_codes(c_array(src, f"{name}_outro_words")),
         )
 
+    def assert_cut_short(self, codes: np.ndarray) -> None:
+        """`codes` are a prefix of the stream, in order and cut short, then a ramp to the
+        idle code with no step larger than the stream's own largest."""
+        n = 0
+        while n < codes.size and n < self.codes.size and codes[n] == self.codes[n]:
+            n += 1
+        assert 0 < n < self.codes.size, (n, self.codes.size)
+        assert np.abs(np.diff(codes)).max() <= self.max_step
+        assert codes[-1] == self.layout.idle_code
+
     @property
     def max_step(self) -> int:
         seq = np.concatenate([[self.layout.idle_code], self.intro, self.codes, self.outro])
