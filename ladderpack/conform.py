@@ -1,39 +1,36 @@
 """Conform a signal to the stream: DC, sample rate, level and fades.
 
-Resampling uses a polyphase windowed-sinc filter designed from explicit
-specifications (see :func:`resampler_spec`): flat within 0.05 dB up to
-0.45 x the lower of the two rates, and from 0.5 x that rate an attenuation of
-at least ``max(90, 6.02 N + 12)`` dB for an N-bit output.  The prototype is a
-Kaiser-windowed sinc (Kaiser 1974; Oppenheim & Schafer, *Discrete-Time Signal
-Processing*, Kaiser design formulas), tabulated as a polyphase bank of 1024
-phases per input sample with linear interpolation between phases, so the
-exact, usually irrational-looking ratio of a clock plan is served directly.
+Resampling meets explicit specifications (see :func:`resampler_spec`): flat
+within 0.05 dB up to 0.45 x the lower of the two rates, and from 0.5 x that
+rate an attenuation of at least ``max(90, 6.02 N + 12)`` dB for an N-bit
+output.  The engine is libsoxr (through the ``soxr`` package) in its
+very-high-quality mode, whose linear-phase filters keep the pass band to
+0.4565 x the lower rate within 0.01 dB and stop from 0.5 x with about 170 dB;
+it serves any ratio, including the irrational-looking ones a fractional
+divider gives.  Its scalar double-precision engine is selected (not the SIMD
+one the CPU would pick), so the same clip gives the same bits on every x86-64
+machine.  Fed in blocks it gives exactly the samples of one whole call.
 """
 
 from __future__ import annotations
 
-import functools
 import math
 import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 
-from ladderpack import _kernels
 from ladderpack.audio import Signal, check_signal
 from ladderpack.errors import OptionError
 
 __all__ = [
     "ResamplerSpec",
-    "SincKernel",
     "StreamResampler",
     "apply_fades",
     "chunked_mean",
     "dbfs_to_amplitude",
-    "design_kernel",
-    "kaiser_beta",
     "loop_crossfade",
     "loop_rate",
     "normalise_peak",
@@ -42,8 +39,11 @@ __all__ = [
     "resampler_spec",
 ]
 
-#: Polyphase table rows per input sample.
-PHASES = 1024
+#: The soxr quality preset used (very high quality: 28-bit precision).
+SOXR_QUALITY = "VHQ"
+
+#: Working memory of one resampler, bytes (its filter banks and FIFOs; a generous bound).
+RESAMPLER_BYTES = 32 << 20
 
 
 @dataclass(frozen=True)
@@ -92,97 +92,92 @@ def resampler_spec(rate_in_hz: float, rate_out_hz: float, bits: int) -> Resample
     )
 
 
-@dataclass(frozen=True)
-class SincKernel:
-    """A Kaiser-windowed sinc tabulated as a polyphase filter bank.
+def _engine(rate_in_hz: float, rate_out_hz: float) -> Any:
+    """A soxr stream resampler with the scalar double-precision engine.
 
-    Row ``p`` of `table` holds the taps for an output that falls ``p / phases``
-    of an input sample after input sample ``i``; tap ``j`` multiplies input
-    ``i - half + 1 + j``.  Between rows the taps are interpolated linearly,
-    so any ratio, rational or not, is served from one table.
-
-    Attributes
-    ----------
-    table : numpy.ndarray
-        ``(phases + 1, 2 * half)`` taps; every row sums to 1 (unit DC gain).
-    phases : int
-        Number of table rows per input sample.
-    half : int
-        Taps on each side of the output instant.
-    spec : ResamplerSpec
-        The specification the kernel was designed for.
+    libsoxr picks a SIMD engine by CPU at creation unless ``SOXR_USE_SIMD`` is 0;
+    the SIMD and scalar engines round differently, so the variable is set for the
+    creation only (and restored), making the output the same on every machine.
     """
+    import soxr
 
-    table: np.ndarray
-    phases: int
-    half: int
-    spec: ResamplerSpec
-
-
-def kaiser_beta(attenuation_db: float) -> float:
-    """Kaiser window shape parameter for a stop-band attenuation in dB.
-
-    Kaiser's formulas (Kaiser 1974; Oppenheim & Schafer, *Discrete-Time Signal
-    Processing*): ``0.1102 (A - 8.7)`` above 50 dB, ``0.5842 (A - 21)^0.4 +
-    0.07886 (A - 21)`` from 21 to 50 dB, 0 below.
-    """
-    a = float(attenuation_db)
-    if a > 50:
-        return 0.1102 * (a - 8.7)
-    if a >= 21:
-        return 0.5842 * (a - 21) ** 0.4 + 0.07886 * (a - 21)
-    return 0.0
+    saved = os.environ.get("SOXR_USE_SIMD")
+    os.environ["SOXR_USE_SIMD"] = "0"
+    try:
+        return soxr.ResampleStream(
+            rate_in_hz, rate_out_hz, 1, dtype="float64", quality=SOXR_QUALITY
+        )
+    finally:
+        if saved is None:
+            del os.environ["SOXR_USE_SIMD"]
+        else:
+            os.environ["SOXR_USE_SIMD"] = saved
 
 
-def kernel_half(spec: ResamplerSpec, rate_in_hz: float, *, margin_db: float = 3.0) -> int:
-    """Taps on each side of the output instant of the kernel :func:`design_kernel` makes.
-
-    Cheap: lets a plan know the table's size (``(PHASES + 1) x 2 half`` doubles)
-    before designing it.
-    """
-    atten = spec.attenuation_db + margin_db
-    width = 2.0 * math.pi * (spec.stopband_hz - spec.passband_hz) / float(rate_in_hz)
-    return math.ceil(0.5 * (atten - 8.0) / (2.285 * width)) + 1
+def _step(rate_in_hz: float | Fraction, rate_out_hz: float | Fraction) -> Fraction:
+    """Input samples per output sample, exact."""
+    return Fraction(rate_in_hz) / Fraction(rate_out_hz)
 
 
-@functools.lru_cache(maxsize=16)
-def design_kernel(
-    spec: ResamplerSpec, rate_in_hz: float, *, phases: int = PHASES, margin_db: float = 3.0
-) -> SincKernel:
-    """Design the Kaiser-windowed sinc low-pass for a resampler.
+class StreamResampler:
+    """Resample a mono signal fed in blocks; the output does not depend on the blocks.
 
-    The length comes from Kaiser's order estimate ``M = (A - 8) / (2.285 dw)``
-    and the shape parameter from ``scipy.signal.kaiser_beta`` (Kaiser 1974;
-    Oppenheim & Schafer), with `margin_db` of attenuation beyond the spec.
+    Output sample ``n`` is the band-limited input at input time ``n * rate_in /
+    rate_out`` (the input is silent before its start and after its end), and
+    there are ``ceil(frames * rate_out / rate_in)`` of them, the last ones coming
+    with the last block.  Equal rates pass the samples through unchanged.
 
     Parameters
     ----------
-    spec : ResamplerSpec
-        Pass-band edge, stop-band edge and attenuation.
     rate_in_hz : float
-        Input sample rate in hertz; the kernel is laid out in input samples.
-    phases : int
-        Rows of the table per input sample (default 1024; linear
-        interpolation between rows then errs about -140 dB against a
-        16384-row table).
-    margin_db : float
-        Attenuation designed in beyond the specification, in dB.
+        Input rate, Hz.
+    rate_out_hz : float or Fraction
+        Output rate, Hz: pass a ClockPlan's exact ``achieved_rate_hz`` so the
+        stream's pitch and duration come out right.
+    frames : int
+        Total input frames.
+    bits : int
+        Output code width; the engine exceeds the stop band :func:`resampler_spec`
+        asks for at any width up to 16, so it only documents the requirement.
+
+    Examples
+    --------
+    >>> rs = StreamResampler(48000.0, 24000.0, 480)
+    >>> sum(rs.feed(b, last=i == 3).size for i, b in enumerate(np.split(np.ones(480), 4)))
+    240
     """
-    atten = spec.attenuation_db + margin_db
-    rate_in = float(rate_in_hz)
-    width = 2.0 * math.pi * (spec.stopband_hz - spec.passband_hz) / rate_in  # rad/sample
-    half_span = 0.5 * (atten - 8.0) / (2.285 * width)  # M / 2, in input samples
-    half = kernel_half(spec, rate_in, margin_db=margin_db)
-    beta = kaiser_beta(atten)
-    fc = 0.5 * (spec.passband_hz + spec.stopband_hz) / rate_in  # cycles per input sample
-    frac = np.arange(phases + 1)[:, None] / phases
-    tau = frac - (np.arange(2 * half)[None, :] - half + 1)  # output time minus input time
-    inside = np.abs(tau) < half_span
-    arg = np.sqrt(np.clip(1.0 - (tau / half_span) ** 2, 0.0, None))
-    window = np.where(inside, np.i0(beta * arg) / np.i0(beta), 0.0)
-    table = 2.0 * fc * np.sinc(2.0 * fc * tau) * window
-    table /= table.sum(axis=1, keepdims=True)
-    return SincKernel(np.ascontiguousarray(table), phases, half, spec)
+
+    def __init__(
+        self, rate_in_hz: float, rate_out_hz: float | Fraction, frames: int, *, bits: int = 16
+    ) -> None:
+        step = _step(rate_in_hz, rate_out_hz)
+        if step <= 0:
+            raise OptionError(f"rates must be > 0 Hz, got {rate_out_hz!r}", field="rate_hz")
+        self.step = step
+        self.bits = bits
+        self.identity = step == 1
+        self.frames = int(frames)
+        self.n_out = math.ceil(self.frames / step)
+        self.fed = 0
+        self.done = 0  # outputs emitted
+        # silence appended to the last block so the engine's flush covers n_out
+        self.tail = 2 * math.ceil(step) + 64
+        self._rs = None if self.identity else _engine(float(rate_in_hz), float(rate_out_hz))
+
+    def feed(self, x: np.ndarray, *, last: bool = False) -> np.ndarray:
+        """Add input samples; return every output that can now be computed."""
+        x = np.asarray(x, dtype=np.float64)
+        self.fed += x.size
+        if self._rs is None:
+            return np.array(x)
+        if last:
+            x = np.concatenate([x, np.zeros(self.tail)])
+        y = self._rs.resample_chunk(x, last=last)
+        y = np.asarray(y[: self.n_out - self.done], dtype=np.float64)
+        self.done += y.size
+        if last and self.done < self.n_out:  # never expected: the tail covers it
+            raise RuntimeError(f"resampler gave {self.done} of {self.n_out} samples")
+        return y
 
 
 def resample(
@@ -190,14 +185,13 @@ def resample(
     rate_out_hz: float | Fraction,
     *,
     bits: int = 16,
-    kernel: SincKernel | None = None,
     periodic: bool = False,
 ) -> Signal:
     """Resample a mono signal to a new rate, rational or not.
 
     Output sample ``n`` is the band-limited input evaluated at input time
-    ``n * rate_in / rate_out`` (exact rational arithmetic for the instant,
-    so long clips do not drift).
+    ``n * rate_in / rate_out``, so long clips do not drift; the result is
+    the same as feeding a :class:`StreamResampler` in blocks of any size.
 
     Parameters
     ----------
@@ -207,59 +201,50 @@ def resample(
         Target rate in hertz.  Pass a ClockPlan's exact ``achieved_rate_hz``
         so the stream's pitch and duration come out right.
     bits : int
-        Output code width, which sets the stop-band attenuation.
-    kernel : SincKernel, optional
-        A kernel from :func:`design_kernel` to reuse.
+        Output code width (the stop band it asks for, see :func:`resampler_spec`).
     periodic : bool
-        Treat the input as one period of a loop (the filter wraps around
-        the ends instead of seeing silence), for seamless repeating streams.
+        Treat the input as one period of a loop (the filter wraps around the
+        ends instead of seeing silence), for seamless repeating streams.  The
+        period must come out a whole number of output samples (choose the rate
+        with :func:`loop_rate`).
 
     Returns
     -------
     Signal
         ``ceil(frames * rate_out / rate_in)`` samples at `rate_out_hz`.
+
+    Examples
+    --------
+    >>> y = resample(Signal(np.zeros(441), 44100.0), 22050)
+    >>> y.frames, y.rate_hz
+    (221, 22050.0)
     """
     check_signal(sig)
     if sig.samples.ndim != 1:
         raise OptionError("resample expects a mono signal; downmix first", field="samples")
-    step = Fraction(sig.rate_hz) / Fraction(rate_out_hz)
-    if step.denominator > 1 << 40:  # keep the kernel's integer instants inside int64
-        step = step.limit_denominator(1 << 40)
     out_rate = float(Fraction(rate_out_hz))
-    n_out = math.ceil(sig.frames / step)
-    if step == 1:
-        return Signal(np.array(sig.samples, dtype=np.float64), out_rate)
-    if kernel is None:
-        kernel = design_kernel(resampler_spec(sig.rate_hz, out_rate, bits), sig.rate_hz)
-    half = kernel.half
     body = np.asarray(sig.samples, dtype=np.float64)
-    if periodic:
-        reps = -(-(half + 1) // body.size)
-        tiled = np.tile(body, reps)
-        x = np.concatenate([tiled[tiled.size - half :], body, tiled[: half + 1]])
-    else:
-        x = np.concatenate([np.zeros(half), body, np.zeros(half + 1)])
-    y = np.empty(n_out)
-    num, den = step.numerator, step.denominator
-    step_int, step_rem = divmod(num, den)
-    run = _kernels.compiled("sinc_resample")
-    # Outputs are independent, so split them across threads (the kernel releases the
-    # GIL); each part starts at its own exact instant, so the result does not depend
-    # on the split.
-    parts = min(os.cpu_count() or 1, 4) if n_out >= 1 << 17 else 1
-    bounds = [n_out * k // parts for k in range(parts + 1)]
-
-    def part(k: int) -> None:
-        lo, hi = bounds[k], bounds[k + 1]
-        base, rem = divmod(lo * num, den)
-        run(x, kernel.table, base, rem, step_int, step_rem, den, y[lo:hi])
-
-    if parts == 1:
-        part(0)
-    else:
-        with ThreadPoolExecutor(max_workers=parts) as pool:
-            list(pool.map(part, range(parts)))
-    return Signal(y, out_rate)
+    if not periodic:
+        rs = StreamResampler(sig.rate_hz, rate_out_hz, body.size, bits=bits)
+        return Signal(rs.feed(body, last=True), out_rate)
+    step = _step(sig.rate_hz, rate_out_hz)
+    period = body.size / step
+    if period.denominator != 1:
+        raise OptionError(
+            f"a period of {body.size} samples becomes {float(period):.6g} output samples, "
+            "not a whole number; choose the rate with loop_rate()",
+            field="rate_hz",
+        )
+    # The engine's impulse response spans a few hundred input samples per input or
+    # output sample, whichever is longer: whole periods on both sides cover it, and the
+    # middle period's outputs then start exactly on an output sample.
+    guard = 1024 * max(1, math.ceil(step)) + 2048
+    reps = -(-guard // max(1, body.size))
+    tiled = np.tile(body, 2 * reps + 1)
+    rs = StreamResampler(sig.rate_hz, rate_out_hz, tiled.size, bits=bits)
+    y = rs.feed(tiled, last=True)
+    n = int(period)
+    return Signal(np.array(y[reps * n : (reps + 1) * n]), out_rate)
 
 
 def loop_rate(frames: int, rate_in_hz: float, rate_out_hz: Fraction, multiple: int) -> Fraction:
@@ -314,111 +299,6 @@ def remove_dc(sig: Signal) -> Signal:
     if sig.samples.ndim == 1:
         return Signal(sig.samples - chunked_mean(sig.samples), sig.rate_hz)
     return Signal(sig.samples - sig.samples.mean(axis=0), sig.rate_hz)
-
-
-class StreamResampler:
-    """The same resampler as :func:`resample`, fed in blocks.
-
-    Output sample ``n`` is computed from exactly the inputs and with exactly the
-    arithmetic :func:`resample` uses, so the concatenated output is bit-identical
-    whatever the block sizes.  Only the input window still needed is kept.
-
-    Parameters
-    ----------
-    rate_in_hz : float
-        Input rate, Hz.
-    rate_out_hz : float or Fraction
-        Output rate, Hz.
-    frames : int
-        Total input frames (sets the output length, as in :func:`resample`).
-    bits : int
-        Output code width (sets the stop band).
-    """
-
-    def __init__(
-        self, rate_in_hz: float, rate_out_hz: float | Fraction, frames: int, *, bits: int = 16
-    ) -> None:
-        step = Fraction(rate_in_hz) / Fraction(rate_out_hz)
-        if step.denominator > 1 << 40:
-            step = step.limit_denominator(1 << 40)
-        self.step = step
-        self.identity = step == 1
-        self.n_out = math.ceil(frames / step)
-        self.frames = frames
-        if not self.identity:
-            self.kernel = design_kernel(
-                resampler_spec(rate_in_hz, float(Fraction(rate_out_hz)), bits), rate_in_hz
-            )
-            self.half = self.kernel.half
-            self.buf = np.zeros(self.half)  # the leading zero padding
-        self.buf_start = 0  # padded index of buf[0]
-        self.fed = 0
-        self.done = 0  # outputs emitted
-
-    def _base(self, n: int) -> tuple[int, int]:
-        return divmod(n * self.step.numerator, self.step.denominator)
-
-    def _run(self, out: np.ndarray) -> None:
-        """Compute outputs ``done .. done + out.size`` into `out`.
-
-        Outputs are independent, so a large block is split across threads (the
-        kernel releases the GIL); each part starts at its own exact instant, so the
-        result does not depend on the split.
-        """
-        step_int, step_rem = divmod(self.step.numerator, self.step.denominator)
-        run = _kernels.compiled("sinc_resample")
-        parts = min(os.cpu_count() or 1, 4) if out.size >= 1 << 17 else 1
-        bounds = [out.size * k // parts for k in range(parts + 1)]
-
-        def part(k: int) -> None:
-            lo, hi = bounds[k], bounds[k + 1]
-            base, rem = self._base(self.done + lo)
-            run(
-                self.buf,
-                self.kernel.table,
-                base - self.buf_start,
-                rem,
-                step_int,
-                step_rem,
-                self.step.denominator,
-                out[lo:hi],
-            )
-
-        if parts == 1:
-            part(0)
-        else:
-            with ThreadPoolExecutor(max_workers=parts) as pool:
-                list(pool.map(part, range(parts)))
-
-    def feed(self, x: np.ndarray, *, last: bool = False) -> np.ndarray:
-        """Add input samples; return every output that can now be computed."""
-        x = np.asarray(x, dtype=np.float64)
-        self.fed += x.size
-        if self.identity:
-            return np.array(x)
-        tail = np.zeros(self.half + 1) if last else np.zeros(0)
-        self.buf = np.concatenate([self.buf, x, tail])
-        avail = self.buf_start + self.buf.size  # padded samples held, up to this index
-        # Output n reads padded indices base(n) + 1 .. base(n) + 2 half.
-        hi = self.n_out if last else self.done
-        if not last:
-            lo_n, hi_n = self.done, self.n_out
-            while lo_n < hi_n:  # largest n with base(n) + 2 half < avail
-                mid = (lo_n + hi_n) // 2
-                if self._base(mid)[0] + 2 * self.half < avail:
-                    lo_n = mid + 1
-                else:
-                    hi_n = mid
-            hi = lo_n
-        out = np.empty(hi - self.done)
-        if out.size:
-            self._run(out)
-            self.done = hi
-        keep_from = self._base(self.done)[0] if self.done < self.n_out else avail
-        drop = max(0, keep_from - self.buf_start)
-        self.buf = self.buf[drop:]
-        self.buf_start += drop
-        return out
 
 
 def normalise_peak(sig: Signal, *, headroom_db: float = 1.0) -> tuple[Signal, float]:

@@ -6,7 +6,13 @@ nearest code in ``0 .. 2**N - 1``.  Dither is non-subtractive: TPDF (sum of
 two independent uniform variables, 2 LSB peak-to-peak) removes both
 distortion and noise modulation; RPDF (1 LSB peak-to-peak) only the
 distortion (Lipshitz, Wannamaker & Vanderkooy, "Quantization and Dither: A
-Theoretical Survey", JAES 40(5), 1992).
+Theoretical Survey", JAES 40(5), 1992).  The uniform draws come from numpy's
+PCG64 generator seeded with the stream's seed (O'Neill, "PCG: A Family of
+Simple Fast Space-Efficient Statistically Good Algorithms for Random Number
+Generation", 2014), taken in order, so blocks give the draws of one whole call.
+
+Without noise shaping and feedback every sample is independent and numpy
+rounds the whole block; with feedback the serial loop of :mod:`_kernels` runs.
 """
 
 from __future__ import annotations
@@ -31,10 +37,13 @@ __all__ = [
     "DITHERS",
     "BlockQuantizer",
     "Codes",
+    "DitherSource",
     "QuantizeReport",
     "check_bits",
     "idle_ramp",
+    "nearest_levels_block",
     "quantize",
+    "round_block",
     "signal_to_lsb",
     "with_idle_ramps",
 ]
@@ -155,7 +164,7 @@ def quantize(
     check_signal(sig)
     if sig.samples.ndim != 1:
         raise OptionError("quantize expects a mono signal", field="samples")
-    if dither not in _kernels.DITHER_DRAWS:
+    if dither not in DITHERS:
         raise OptionError(f"must be one of {', '.join(DITHERS)}; got {dither!r}", field="dither")
     if isinstance(shaper, str):
         if shaper not in CATALOGUE or CATALOGUE[shaper].design_rate_hz is not None:
@@ -164,39 +173,14 @@ def quantize(
                 field="shaping",
             )
         shaper = CATALOGUE[shaper]
-    v = signal_to_lsb(sig.samples, bits)
-    out = np.empty(v.shape[0], dtype=np.int64)
-    b = np.asarray(shaper.b, dtype=np.float64)
-    a = np.asarray(shaper.a, dtype=np.float64)
-    draws, state = _kernels.DITHER_DRAWS[dither], _kernels.seed_state(seed)
-    if levels is None:
-        overloads, resets = _kernels.compiled("shape_quantize")(
-            v, b, a, draws, state, 0, (1 << bits) - 1, np.zeros(b.size), np.zeros(b.size), out
+    if levels is not None and levels.bits != bits:
+        raise OptionError(
+            f"the levels are for {levels.bits} bits, the stream is {bits}", field="levels"
         )
-    else:
-        from ladderpack.levels import code_scale
-
-        if levels.bits != bits:
-            raise OptionError(
-                f"the levels are for {levels.bits} bits, the stream is {bits}", field="levels"
-            )
-        lv, centre, half = code_scale(levels)
-        v = np.asarray(sig.samples, dtype=np.float64) * half + centre
-        order = np.argsort(lv, kind="stable")
-        overloads, resets = _kernels.compiled("levels_quantize")(
-            v,
-            lv[order],
-            order.astype(np.int64),
-            b,
-            a,
-            draws,
-            state,
-            np.zeros(b.size),
-            np.zeros(b.size),
-            out,
-        )
-    report = QuantizeReport(dither, shaper.name, int(seed), int(overloads), int(resets))
-    return Codes(out.astype(np.uint16), bits), report
+    q = BlockQuantizer(bits=bits, dither=dither, shaper=shaper, seed=seed, levels=levels)
+    codes = q.feed(sig.samples)
+    report = QuantizeReport(dither, shaper.name, int(seed), q.overloads, q.resets)
+    return Codes(codes, bits), report
 
 
 def idle_ramp(idle_code: int, bits: int, n: int) -> np.ndarray:
@@ -225,6 +209,90 @@ def with_idle_ramps(audio: Codes, *, idle_code: int = 0, ramp_samples: int) -> C
     return Codes(np.concatenate([ramp, audio.codes, ramp[::-1]]), audio.bits)
 
 
+class DitherSource:
+    """Seeded dither values in LSB, drawn in order.
+
+    Drawing ``n1`` then ``n2`` values gives exactly the ``n1 + n2`` values of one
+    draw, so a stream quantised in blocks gets the dither of one whole call.
+
+    Parameters
+    ----------
+    kind : {'tpdf', 'rpdf', 'none'}
+        TPDF: the difference of two uniform draws on [0, 1) (triangular, 2 LSB
+        peak-to-peak); RPDF: one draw minus 1/2 (1 LSB peak-to-peak); none: zeros.
+    seed : int
+        Seed of numpy's PCG64 generator (0 .. 2**63 - 1).
+
+    Examples
+    --------
+    >>> d = DitherSource("tpdf", seed=0)
+    >>> bool(np.all(np.abs(d.draw(1000)) < 1.0))
+    True
+    """
+
+    def __init__(self, kind: str, seed: int) -> None:
+        if kind not in DITHERS:
+            raise OptionError(f"must be one of {', '.join(DITHERS)}; got {kind!r}", field="dither")
+        self.kind = kind
+        self._rng = np.random.Generator(np.random.PCG64(int(seed)))
+
+    def draw(self, n: int) -> np.ndarray:
+        """The next `n` dither values, float64 LSB."""
+        if self.kind == "none":
+            return np.zeros(n)
+        if self.kind == "rpdf":
+            return self._rng.random(n) - 0.5
+        r = self._rng.random(2 * n)
+        return r[0::2] - r[1::2]
+
+
+def round_block(v: np.ndarray, d: np.ndarray, lo: int, hi: int) -> tuple[np.ndarray, int]:
+    """Round dithered samples to codes without feedback, the whole block at once.
+
+    The same arithmetic as the feedback kernel with no filter
+    (``clip(floor(v + d + 0.5), lo, hi)``), so the codes are bit-identical.
+
+    Returns
+    -------
+    (numpy.ndarray, int)
+        int64 codes and the number of clipped samples.
+    """
+    q = np.floor(v + d + 0.5)
+    overloads = int(np.count_nonzero(q < lo) + np.count_nonzero(q > hi))
+    return np.clip(q, lo, hi).astype(np.int64), overloads
+
+
+def nearest_levels_block(
+    v: np.ndarray, d: np.ndarray, lv: np.ndarray, lc: np.ndarray
+) -> tuple[np.ndarray, int]:
+    """Nearest true level for each dithered sample without feedback, vectorised.
+
+    The same choice as the levels kernel with no filter (a tie goes up; targets
+    beyond the outer levels by more than half an LSB count as clipped).
+
+    Parameters
+    ----------
+    v, d : numpy.ndarray
+        Targets and dither, LSB.
+    lv, lc : numpy.ndarray
+        True levels sorted ascending (LSB) and their codes.
+
+    Returns
+    -------
+    (numpy.ndarray, int)
+        int64 codes and the number of clipped samples.
+    """
+    target = v + d
+    m = lv.size
+    hi = np.searchsorted(lv, target, side="left")  # first index with lv >= target
+    below = np.clip(hi - 1, 0, m - 1)
+    above = np.clip(hi, 0, m - 1)
+    take_below = (hi == m) | ((hi > 0) & (target - lv[below] < lv[above] - target))
+    j = np.where(take_below, below, above)
+    overloads = int(np.count_nonzero((target < lv[0] - 0.5) | (target > lv[m - 1] + 0.5)))
+    return lc[j], overloads
+
+
 class BlockQuantizer:
     """:func:`quantize` fed in blocks.
 
@@ -246,15 +314,10 @@ class BlockQuantizer:
         from ladderpack.shaping import CATALOGUE
 
         self.bits = check_bits(bits)
-        if dither not in _kernels.DITHER_DRAWS:
-            raise OptionError(
-                f"must be one of {', '.join(DITHERS)}; got {dither!r}", field="dither"
-            )
+        self.dither = DitherSource(dither, seed)
         self.shaper = CATALOGUE[shaper] if isinstance(shaper, str) else shaper
         self.b = np.asarray(self.shaper.b, dtype=np.float64)
         self.a = np.asarray(self.shaper.a, dtype=np.float64)
-        self.draws = _kernels.DITHER_DRAWS[dither]
-        self.state = _kernels.seed_state(seed)
         self.e_hist = np.zeros(self.b.size)
         self.f_hist = np.zeros(self.b.size)
         self.levels = levels
@@ -269,35 +332,28 @@ class BlockQuantizer:
 
     def feed(self, x: np.ndarray) -> np.ndarray:
         """Quantise the next block of float samples; return its uint16 codes."""
-        out = np.empty(x.shape[0], dtype=np.int64)
+        n = int(x.shape[0])
+        d = self.dither.draw(n)
+        r = 0
         if self.levels is None:
             v = signal_to_lsb(x, self.bits)
-            o, r = _kernels.compiled("shape_quantize")(
-                v,
-                self.b,
-                self.a,
-                self.draws,
-                self.state,
-                0,
-                (1 << self.bits) - 1,
-                self.e_hist,
-                self.f_hist,
-                out,
-            )
+            top = (1 << self.bits) - 1
+            if self.b.size == 0:
+                out, o = round_block(v, d, 0, top)
+            else:
+                out = np.empty(n, dtype=np.int64)
+                o, r = _kernels.kernel("shape_quantize", n)(
+                    v, d, self.b, self.a, 0, top, self.e_hist, self.f_hist, out
+                )
         else:
             v = np.asarray(x, dtype=np.float64) * self.half + self.centre
-            o, r = _kernels.compiled("levels_quantize")(
-                v,
-                self.lv,
-                self.lc,
-                self.b,
-                self.a,
-                self.draws,
-                self.state,
-                self.e_hist,
-                self.f_hist,
-                out,
-            )
+            if self.b.size == 0:
+                out, o = nearest_levels_block(v, d, self.lv, self.lc)
+            else:
+                out = np.empty(n, dtype=np.int64)
+                o, r = _kernels.kernel("levels_quantize", n)(
+                    v, d, self.lv, self.lc, self.b, self.a, self.e_hist, self.f_hist, out
+                )
         self.overloads += int(o)
         self.resets += int(r)
         return out.astype(np.uint16)

@@ -192,10 +192,7 @@ def _memory_bytes(
     if rate_in is None:  # synthesised: the samples, the codes, the int64 quantiser output
         return total + 26 * out_samples
     if rate_in != rate_out:
-        spec = conform.resampler_spec(rate_in, rate_out, opts.bits)
-        half = conform.kernel_half(spec, rate_in)
-        # the table and the design's temporaries of the same size
-        total += 6 * (conform.PHASES + 1) * 2 * half * 8
+        total += conform.RESAMPLER_BYTES
     block_out = math.ceil(block_frames * rate_out / rate_in) + 1
     one_block = block_frames >= in_frames
     # read buffer (all channels) and the mono mix; resampled, scaled and faded output;
@@ -573,10 +570,12 @@ def finish(
         "predicted_full_scale_sine": _predicted_sine(
             opts.bits, opts.dither, plan.predicted_noise_db, plan.band_hz, plan.rate_hz
         ),
-        **_shaper_warnings(
-            opts, str(plan.shaper.to_dict().get("name", "none")), plan.predicted_noise_db
-        ),
     }
+    warnings = _shaper_warnings(
+        opts, str(plan.shaper.to_dict().get("name", "none")), plan.predicted_noise_db
+    ) + _rate_warnings(opts.rate_hz, done.rate_in_hz)
+    if warnings:
+        stats["warnings"] = warnings
     if done.tone:
         stats["tone"] = done.tone
     return StreamAsset(
@@ -602,32 +601,43 @@ def finish(
 SHAPED_NOISE_WARN_SHARE = 0.10
 
 
-def _shaper_warnings(
-    opts: StreamOptions, shaper: str, predicted: dict[str, float]
-) -> dict[str, list[str]]:
+#: Below this stream rate a clip keeps too little of its band to be meant (common
+#: practice: telephone speech needs 300 to 3400 Hz, so rates under 1 kHz are a typo).
+LOW_RATE_WARN_HZ = 1000.0
+
+
+def _rate_warnings(rate_hz: float, rate_in_hz: float | None) -> list[str]:
+    """A warning when a clip is streamed at a rate too low to be meant (22.05 for 22050)."""
+    if rate_in_hz is None or rate_hz >= LOW_RATE_WARN_HZ:
+        return []
+    return [
+        f"a {rate_hz:g} Hz stream keeps only 0 to {rate_hz / 2:g} Hz of the clip "
+        f"(did you mean {rate_hz * 1000:g} Hz?)"
+    ]
+
+
+def _shaper_warnings(opts: StreamOptions, shaper: str, predicted: dict[str, float]) -> list[str]:
     """A warning when the shaper's total noise eats the headroom of a narrow ladder.
 
     sigma^2 = (1/12 + dither variance) x the shaper's total (full-band) noise gain, in
     LSB^2; the published sets were designed for 16-bit audio, where that is negligible.
     """
     if shaper == "none":
-        return {}
+        return []
     dither_var = {"tpdf": 1 / 6, "rpdf": 1 / 12}.get(opts.dither, 0.0)
     sigma = math.sqrt((1 / 12 + dither_var) * 10 ** (predicted["total_db"] / 10))
     share = 4 * sigma / (1 << (opts.bits - 1))
     if share <= SHAPED_NOISE_WARN_SHARE:
-        return {}
+        return []
     half = 1 << (opts.bits - 1)
     snr = 10 * math.log10(half * half / 2 / (sigma * sigma))
-    return {
-        "warnings": [
-            f"shaping {shaper} raises the total noise {predicted['total_db']:+.1f} dB: its "
-            f"peaks (4 sigma, {4 * sigma:.1f} LSB) take {100 * share:.0f} % of half-scale at "
-            f"{opts.bits} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
-            f"whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
-            "(first-order, second-order) or 'designed' with a lower --ntf-max-db"
-        ]
-    }
+    return [
+        f"shaping {shaper} raises the total noise {predicted['total_db']:+.1f} dB: its "
+        f"peaks (4 sigma, {4 * sigma:.1f} LSB) take {100 * share:.0f} % of half-scale at "
+        f"{opts.bits} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
+        f"whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
+        "(first-order, second-order) or 'designed' with a lower --ntf-max-db"
+    ]
 
 
 def _predicted_sine(

@@ -146,19 +146,20 @@ def test_rp2040_refuses_gpio_40() -> None:
 # -- plan before work
 
 
-def test_mistyped_rate_is_refused_before_any_work() -> None:
-    # 22.05 for 22.05 kHz: the resampling filter alone would take gigabytes.
+def test_mistyped_rate_is_named_in_a_warning() -> None:
+    # 22.05 for 22.05 kHz: cheap to make (the resampler's memory does not grow with the
+    # ratio), but the summary says what was probably meant.
     from ladderpack.stream import stream_clip
 
     tracemalloc.start()
     try:
-        with pytest.raises(OptionError, match="did you mean 22050 Hz") as info:
-            stream_clip(CHIME, rate_hz=22.05)
+        asset = stream_clip(CHIME, rate_hz=22.05)
         _, peak = tracemalloc.get_traced_memory()
     finally:
         tracemalloc.stop()
-    assert info.value.field == "rate_hz"
+    assert any("did you mean 22050 Hz" in w for w in asset.stats["warnings"])
     assert peak < 64 * 2**20
+    assert "warnings" not in stream_clip(CHIME).stats
 
 
 def test_flash_overflow_is_refused_before_processing(monkeypatch: pytest.MonkeyPatch) -> None:

@@ -12,8 +12,11 @@ from ladderpack.audio import Signal
 from ladderpack.errors import OptionError
 from ladderpack.quantize import (
     Codes,
+    DitherSource,
     idle_ramp,
+    nearest_levels_block,
     quantize,
+    round_block,
     signal_to_lsb,
     with_idle_ramps,
 )
@@ -103,34 +106,78 @@ def test_compiled_kernel_matches_reference_bit_for_bit(
 ) -> None:
     n = 3000
     v = rng.uniform(-20, 275, n)  # some samples clip, exercising overload and reset
+    d = DitherSource(dither, 42).draw(n)
     b = rng.normal(0, 0.3, order)
     a = rng.normal(0, 0.05, order) if iir else np.zeros(order)
     results = []
     for fn in (_kernels.shape_quantize_ref, _kernels.compiled("shape_quantize")):
-        state = _kernels.seed_state(42)
         eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
-        counts = fn(v, b, a, _kernels.DITHER_DRAWS[dither], state, 0, 255, eh, fh, out)
-        results.append((out, tuple(int(c) for c in counts), state.copy(), eh.copy(), fh.copy()))
-    (o1, c1, s1, e1, f1), (o2, c2, s2, e2, f2) = results
+        counts = fn(v, d, b, a, 0, 255, eh, fh, out)
+        results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
+    (o1, c1, e1, f1), (o2, c2, e2, f2) = results
     np.testing.assert_array_equal(o1, o2)
     assert c1 == c2 and c1[0] > 0
-    np.testing.assert_array_equal(s1, s2)
     np.testing.assert_array_equal(e1, e2)
     np.testing.assert_array_equal(f1, f2)
+    if order == 0:  # the numpy path without feedback gives the kernel's bits
+        got, overloads = round_block(v, d, 0, 255)
+        np.testing.assert_array_equal(got, o1)
+        assert overloads == c1[0]
+
+
+@pytest.mark.parametrize("order", [0, 1, 5, 16])
+@pytest.mark.parametrize("dither", ["none", "tpdf"])
+def test_levels_kernel_matches_reference_bit_for_bit(
+    order: int, dither: str, rng: np.random.Generator
+) -> None:
+    # A non-monotonic set of true levels (LSB), sorted as the quantiser keeps them.
+    levels = np.arange(64) + rng.normal(0, 0.6, 64)
+    sort = np.argsort(levels, kind="stable")
+    lv, lc = levels[sort], sort.astype(np.int64)
+    n = 3000
+    v = rng.uniform(-3, 66, n)
+    v[::97] = lv[5]  # exact ties with a level
+    d = DitherSource(dither, 7).draw(n)
+    b = rng.normal(0, 0.3, order)
+    a = np.zeros(order)
+    results = []
+    for fn in (_kernels.levels_quantize_ref, _kernels.compiled("levels_quantize")):
+        eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
+        counts = fn(v, d, lv, lc, b, a, eh, fh, out)
+        results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
+    (o1, c1, e1, f1), (o2, c2, e2, f2) = results
+    np.testing.assert_array_equal(o1, o2)
+    assert c1 == c2 and c1[0] > 0
+    np.testing.assert_array_equal(e1, e2)
+    np.testing.assert_array_equal(f1, f2)
+    if order == 0:
+        got, overloads = nearest_levels_block(v, d, lv, lc)
+        np.testing.assert_array_equal(got, o1)
+        assert overloads == c1[0]
 
 
 def test_block_processing_equals_whole(rng: np.random.Generator) -> None:
-    # Kernel state (generator, error and feedback history) carries across blocks.
+    # Kernel state (error and feedback history) carries across blocks; so do the draws.
     v = rng.uniform(10, 240, 4000)
     b, a = np.array([-1.6, 0.9, -0.1]), np.array([-0.3, 0.02, 0.0])
     k = _kernels.compiled("shape_quantize")
     whole = np.empty(4000, np.int64)
-    k(v, b, a, 2, _kernels.seed_state(1), 0, 255, np.zeros(3), np.zeros(3), whole)
+    k(v, DitherSource("tpdf", 1).draw(4000), b, a, 0, 255, np.zeros(3), np.zeros(3), whole)
     parts = np.empty(4000, np.int64)
-    st, eh, fh = _kernels.seed_state(1), np.zeros(3), np.zeros(3)
+    src, eh, fh = DitherSource("tpdf", 1), np.zeros(3), np.zeros(3)
     for lo, hi in ((0, 1000), (1000, 1001), (1001, 4000)):
-        k(v[lo:hi], b, a, 2, st, 0, 255, eh, fh, parts[lo:hi])
+        k(v[lo:hi], src.draw(hi - lo), b, a, 0, 255, eh, fh, parts[lo:hi])
     np.testing.assert_array_equal(whole, parts)
+
+
+def test_short_blocks_use_the_twin_until_numba_is_loaded() -> None:
+    # The choice only saves time; both give the same bits (tests above).
+    name = "shape_quantize"
+    if name not in _kernels._COMPILED:
+        small = _kernels.kernel(name, _kernels.PLAIN_MAX_SAMPLES)
+        assert small is _kernels.shape_quantize_ref
+    assert _kernels.kernel(name, _kernels.PLAIN_MAX_SAMPLES + 1) is _kernels.compiled(name)
+    assert _kernels.kernel(name, 10) is _kernels.compiled(name)
 
 
 @pytest.mark.parametrize(("kind", "peak"), [("tpdf", 1.5), ("rpdf", 1.0), ("none", 0.5)])
