@@ -684,6 +684,7 @@ def build(
     check: bool = False,
     depfile: str | None = None,
     echo: Callable[[str], None] = print,
+    progress: Callable[[int, int], None] | None = None,
 ) -> BuildResult:
     """Build (or, with `check`, verify) every asset of a manifest.
 
@@ -702,6 +703,8 @@ def build(
         Write a Make-format dependency file naming every input of every output.
     echo : callable
         Receives one line per asset and the budget line.
+    progress : callable, optional
+        Called with (assets made, assets to make) as each asset to build is made.
 
     Raises
     ------
@@ -715,10 +718,18 @@ def build(
     if depfile:
         _check_depfile_names(manifest, depfile)
     if check and not os.path.isdir(manifest.out_dir):  # nothing to lock, nothing to create
-        return _build_locked(manifest, jobs=jobs, only=only, check=check, depfile=None, echo=echo)
+        return _build_locked(
+            manifest, jobs=jobs, only=only, check=check, depfile=None, echo=echo, progress=None
+        )
     with folder_lock(manifest.out_dir, on_wait=echo):
         return _build_locked(
-            manifest, jobs=jobs, only=only, check=check, depfile=depfile, echo=echo
+            manifest,
+            jobs=jobs,
+            only=only,
+            check=check,
+            depfile=depfile,
+            echo=echo,
+            progress=progress,
         )
 
 
@@ -791,6 +802,7 @@ def _build_locked(
     check: bool,
     depfile: str | None,
     echo: Callable[[str], None],
+    progress: Callable[[int, int], None] | None,
 ) -> BuildResult:
     from ladderpack.emit import pending_journal
 
@@ -868,11 +880,18 @@ def _build_locked(
 
     new_assets = dict(old)
     rendered: list[tuple[dict[str, bytes], dict[str, Any]]] = []
+    specs = [s for s, _, _ in todo]
     if jobs > 1 and len(todo) > 1:
         with ProcessPoolExecutor(max_workers=jobs) as pool:
-            rendered = list(pool.map(_render, [s for s, _, _ in todo]))
+            for made in pool.map(_render, specs):
+                rendered.append(made)
+                if progress is not None:
+                    progress(len(rendered), len(specs))
     else:
-        rendered = [_render(s) for s, _, _ in todo]
+        for spec in specs:
+            rendered.append(_render(spec))
+            if progress is not None:
+                progress(len(rendered), len(specs))
     for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
         new_assets[spec.name] = {
             "fingerprint": fp,

@@ -89,17 +89,44 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
 
 
 @contextlib.contextmanager
-def _stage_progress(label: str) -> Iterator[Callable[[str], None] | None]:
-    """A progress bar over the pipeline stages on a terminal; nothing when piped."""
-    from ladderpack.defaults import STAGES
-
+def _stage_progress(label: str) -> Iterator[Callable[[str, float], None] | None]:
+    """A progress bar over a stream's job on a terminal (stage and share); none when piped."""
     if not sys.stderr.isatty():
         yield None
         return
     with click.progressbar(
-        length=len(STAGES), label=label, file=sys.stderr, item_show_func=lambda s: s
+        length=1000, label=label, file=sys.stderr, item_show_func=lambda s: s
     ) as bar:
-        yield lambda stage: bar.update(1, stage)
+
+        def update(stage: str, share: float) -> None:
+            target = min(1000, max(0, round(share * 1000)))
+            bar.update(max(0, target - bar.pos), stage)
+
+        yield update
+
+
+@contextlib.contextmanager
+def _count_progress(label: str) -> Iterator[Callable[[int, int], None] | None]:
+    """A progress bar counting finished items (done, total) on a terminal; none when piped.
+
+    The bar appears at the first report, once the total is known.
+    """
+    if not sys.stderr.isatty():
+        yield None
+        return
+    bars: list[Any] = []
+
+    def update(done: int, total: int) -> None:
+        if not bars:
+            bars.append(click.progressbar(length=total, label=label, file=sys.stderr))
+            bars[0].__enter__()
+        bars[0].update(max(0, done - bars[0].pos))
+
+    try:
+        yield update
+    finally:
+        if bars:
+            bars[0].__exit__(None, None, None)
 
 
 def _split_list(text: str, param: str, conv: Callable[[str], Any]) -> tuple[Any, ...]:
@@ -1087,14 +1114,16 @@ def build(
 
     if jobs < 1:
         raise OptionError(f"must be at least 1, got {jobs}", field="jobs")
-    result = run_build(
-        load_manifest(manifest, out_dir=out_dir),
-        jobs=jobs,
-        only=list(only) or None,
-        check=check,
-        depfile=depfile,
-        echo=click.echo,
-    )
+    with _count_progress("building") as progress:
+        result = run_build(
+            load_manifest(manifest, out_dir=out_dir),
+            jobs=jobs,
+            only=list(only) or None,
+            check=check,
+            depfile=depfile,
+            echo=click.echo,
+            progress=progress,
+        )
     if check and result.problems:
         click.echo(
             f"ladderpack: {len(result.problems)} asset(s) out of date: "

@@ -35,7 +35,7 @@ from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
-from ladderpack.loudness import normalise_loudness
+from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
 from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
@@ -66,7 +66,14 @@ __all__ = [
 #: Tone kinds whose codes must come out exact: quantised without dither or shaping.
 EXACT_KINDS = ("staircase", "dc")
 
-Progress = Callable[[str], None]
+#: Progress callback: the stage under way (one of :data:`STAGES`) and the share of the
+#: whole job done, 0..1 (long clips report after every block).
+Progress = Callable[[str, float], None]
+
+#: Share of a clip's job done after the first pass (reading, resampling, measuring) and
+#: after the second (scaling, quantising, packing); writing the files is the rest.
+_FIRST_PASS_SHARE = 0.55
+_PACKED_SHARE = 0.97
 
 
 @dataclass(frozen=True)
@@ -360,7 +367,9 @@ def plan_stream(
 # -- process -------------------------------------------------------------------------
 
 
-def _conformed(plan: StreamPlan, src: MonoSource, out: Processed) -> Iterator[np.ndarray]:
+def _conformed(
+    plan: StreamPlan, src: MonoSource, out: Processed, done: Progress
+) -> Iterator[np.ndarray]:
     """DC removal, resampling, level and fades, block by block (float samples)."""
     opts, rate_out = plan.options, plan.clock.achieved_rate_hz
     mean = src.mean(plan.block_frames)
@@ -375,49 +384,84 @@ def _conformed(plan: StreamPlan, src: MonoSource, out: Processed) -> Iterator[np
         yield x.samples
         return
     one_block = plan.block_frames >= src.frames
-    kept: list[np.ndarray] = []
-
-    def resampled() -> Iterator[np.ndarray]:
-        if kept:
-            yield from kept
-            return
-        rs = conform.StreamResampler(src.rate_hz, rate_out, src.frames, bits=opts.bits)
-        seen = 0
+    out_hz = float(Fraction(rate_out))
+    rs = conform.StreamResampler(src.rate_hz, rate_out, src.frames, bits=opts.bits)
+    meter = None if opts.loudness_lufs is None else LoudnessMeter(out_hz, rs.n_out)
+    peak, n_out, seen = 0.0, 0, 0
+    with _Spill(in_memory=one_block) as spill:
+        # One pass reads and resamples the clip, measures it and keeps the result (in a
+        # temporary file for long clips, so memory stays flat); the second scales it.
         for mono in src.blocks(plan.block_frames):
             seen += mono.size
             y = rs.feed(mono - mean, last=seen >= src.frames)
-            if one_block:
-                kept.append(y)
             if y.size:
-                yield y
+                peak = max(peak, float(np.max(np.abs(y))))
+                n_out += y.size
+                spill.write(y)
+                if meter is not None:
+                    meter.feed(y)
+            done("resample", _FIRST_PASS_SHARE * seen / src.frames)
+        if meter is not None:
+            gain_db, out.loudness = loudness_gain(
+                meter,
+                target_lufs=float(opts.loudness_lufs or 0.0),
+                true_peak_dbtp=opts.true_peak_dbtp,
+            )
+            gain: float | None = 10 ** (gain_db / 20)
+            out.gain_db = gain_db
+        else:
+            gain = conform.dbfs_to_amplitude(-opts.headroom_db) / peak if peak > 0 else None
+            out.gain_db = 20 * math.log10(gain) if gain is not None else 0.0
+        n_fade = min(round(opts.fade_ms * 1e-3 * out_hz), n_out // 2)
+        w = conform.raised_cosine(n_fade)
+        pos = 0
+        for y in spill.read():
+            y = y * gain if gain is not None else np.array(y)
+            lo, hi = pos, pos + y.size
+            if lo < n_fade:
+                y[: min(hi, n_fade) - lo] *= w[lo : min(hi, n_fade)]
+            if n_fade and hi > n_out - n_fade:
+                start = max(lo, n_out - n_fade)
+                y[start - lo :] *= w[::-1][start - (n_out - n_fade) : hi - (n_out - n_fade)]
+            pos = hi
+            yield y
+            done("quantise", _FIRST_PASS_SHARE + (_PACKED_SHARE - _FIRST_PASS_SHARE) * pos / n_out)
 
-    out_hz = float(Fraction(rate_out))
-    if opts.loudness_lufs is not None:  # loudness needs the whole clip: one block
-        x = Signal(np.concatenate(list(resampled())), out_hz)
-        x, out.gain_db, out.loudness = normalise_loudness(
-            x, target_lufs=opts.loudness_lufs, true_peak_dbtp=opts.true_peak_dbtp
-        )
-        yield conform.apply_fades(x, fade_ms=opts.fade_ms).samples
-        return
-    peak, n_out = 0.0, 0
-    for y in resampled():
-        peak = max(peak, float(np.max(np.abs(y))))
-        n_out += y.size
-    gain = conform.dbfs_to_amplitude(-opts.headroom_db) / peak if peak > 0 else None
-    out.gain_db = 20 * math.log10(gain) if gain is not None else 0.0
-    n_fade = min(round(opts.fade_ms * 1e-3 * out_hz), n_out // 2)
-    w = conform.raised_cosine(n_fade)
-    pos = 0
-    for y in resampled():
-        y = y * gain if gain is not None else np.array(y)
-        lo, hi = pos, pos + y.size
-        if lo < n_fade:
-            y[: min(hi, n_fade) - lo] *= w[lo : min(hi, n_fade)]
-        if n_fade and hi > n_out - n_fade:
-            start = max(lo, n_out - n_fade)
-            y[start - lo :] *= w[::-1][start - (n_out - n_fade) : hi - (n_out - n_fade)]
-        pos = hi
-        yield y
+
+class _Spill:
+    """Float64 blocks kept between two passes: in memory, or in a temporary file."""
+
+    def __init__(self, *, in_memory: bool) -> None:
+        self.in_memory = in_memory
+        self.blocks: list[np.ndarray] = []
+        self.sizes: list[int] = []
+        self.file: Any = None
+
+    def __enter__(self) -> _Spill:
+        if not self.in_memory:
+            import tempfile
+
+            self.file = tempfile.TemporaryFile(prefix="ladderpack-")
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self.file is not None:
+            self.file.close()
+
+    def write(self, y: np.ndarray) -> None:
+        if self.file is None:
+            self.blocks.append(y)
+        else:
+            np.ascontiguousarray(y, dtype=np.float64).tofile(self.file)
+            self.sizes.append(y.size)
+
+    def read(self) -> Iterator[np.ndarray]:
+        if self.file is None:
+            yield from self.blocks
+            return
+        self.file.seek(0)
+        for size in self.sizes:
+            yield np.fromfile(self.file, dtype=np.float64, count=size)
 
 
 def process(
@@ -437,20 +481,21 @@ def process(
         ``synth(rate_hz, samples_per_word) -> Signal`` whose samples, made at the
         stream rate, are quantised as they are.
     progress : callable, optional
-        Called with each stage name of :data:`STAGES` as it finishes.
+        Called with the stage under way (see :data:`STAGES`) and the share of the
+        job done (0..1), after every block of a long clip.
 
     Returns
     -------
     Processed
         The packed words (and the codes, when the input was one block).
     """
-    done = progress or (lambda stage: None)
+    done: Progress = progress or (lambda stage, share: None)
     opts, lay = plan.options, plan.layout
     out = Processed(Packed(np.zeros(0, np.uint32), lay, 0, opts.idle_code), None, None, None, 0)
     if isinstance(source, MonoSource):
         out.rate_in_hz = source.rate_hz
         keep = plan.block_frames >= source.frames
-        audio_blocks: Iterator[np.ndarray] = _conformed(plan, source, out)
+        audio_blocks: Iterator[np.ndarray] = _conformed(plan, source, out, done)
     else:
         sig = check_signal(source(plan.rate_hz, lay.samples_per_word))
         keep = True
@@ -464,13 +509,13 @@ def process(
     def quantised() -> Iterator[np.ndarray]:
         for i, block in enumerate(audio_blocks):
             if i == 0:
-                done("resample")
+                done("quantise", _FIRST_PASS_SHARE)
             c = q.feed(block)
             out.audio_samples += c.size
             if keep:
                 kept.append(c)
             yield c
-        done("quantise")
+        done("pack", _PACKED_SHARE)
 
     if opts.loop:
         out.codes = Codes(np.concatenate(list(quantised())), opts.bits)
@@ -487,7 +532,7 @@ def process(
         if keep:
             out.codes = Codes(np.concatenate([ramp, *kept, tail]), opts.bits)
     out.overloads, out.resets = q.overloads, q.resets
-    done("pack")
+    done("pack", 1.0)
     return out
 
 
@@ -714,7 +759,7 @@ def stream_signal(
     source : dict, optional
         Provenance recorded in the sidecar.
     progress : callable, optional
-        Called with the name of each stage as it finishes (see ``STAGES``).
+        Called with the stage under way (see ``STAGES``) and the share done, 0..1.
     **overrides
         Any field of :class:`~ladderpack.options.StreamOptions` (``bits=12``, ...),
         replacing the one in `options`.
@@ -767,7 +812,7 @@ def stream_clip(
     clip : ClipOptions, optional
         Channel and block size (or give `channel` and `block_frames`).
     progress : callable, optional
-        Called with each stage name as it finishes.
+        Called with the stage under way (see ``STAGES``) and the share done, 0..1.
     channel : int, optional
         Channel to use (0-based); default: mix all channels to mono.
     block_frames : int, optional
@@ -786,18 +831,17 @@ def stream_clip(
     opts = _options(options, overrides)
     copts = clip or ClipOptions(channel=channel, block_frames=block_frames)
     src = FileSource(path, channel=copts.channel)
-    whole = opts.loop or opts.loudness_lufs is not None
     blk = copts.block_frames
-    if blk is not None and whole and blk < src.frames:
+    if blk is not None and opts.loop and blk < src.frames:
         raise OptionError(
-            "loops and loudness normalisation need the whole clip at once; drop block_frames",
+            "a loop needs the whole clip at once (crossfade and wrap); drop block_frames",
             field="block_frames",
         )
     if blk is None:
         big = src.frames * src.channels > BLOCK_THRESHOLD
-        blk = BLOCK_FRAMES if big and not whole else src.frames
+        blk = BLOCK_FRAMES if big and not opts.loop else src.frames
     if progress:
-        progress("read")
+        progress("read", 0.0)
     stem = name if name is not None else os.path.splitext(os.path.basename(src.path))[0]
     plan = plan_stream(
         opts,
@@ -842,7 +886,7 @@ def stream_tone(
         crossfade) are refused.  Staircase and DC tones are quantised without
         dither or shaping so their codes come out exact.
     progress : callable, optional
-        Called with each stage name as it finishes.
+        Called with the stage under way (see ``STAGES``) and the share done, 0..1.
     **overrides
         Fields of :class:`~ladderpack.options.ToneSpec` or
         :class:`~ladderpack.options.StreamOptions`.

@@ -125,3 +125,74 @@ def test_write_bundle_streams_the_same_bytes(tmp_path: Path) -> None:
     write_bundle(asset, tmp_path)
     for name, data in bundle_files(asset).items():
         assert (tmp_path / name).read_bytes() == data, name
+
+
+@pytest.mark.parametrize("block", [997, 65536, 1 << 20])
+def test_loudness_normalised_blocks_equal_whole_clip(clip: Path, block: int) -> None:
+    # Loudness normalisation measures in the same pass as the peak (K-weighting state,
+    # 100 ms hop sums and the true-peak resampler all carried across blocks); the
+    # reference is the whole-array normalise_loudness applied to the whole clip.
+    from ladderpack.loudness import normalise_loudness
+
+    rate = plan_clock(22050).achieved_rate_hz
+    sig = load_clip(clip)
+    x = conform.resample(conform.remove_dc(sig), rate, bits=8)
+    x, gain_db, report = normalise_loudness(x, target_lufs=-20.0, true_peak_dbtp=-1.0)
+    whole, _ = quantize(conform.apply_fades(x, fade_ms=5.0), bits=8, seed=3)
+    asset = stream_clip(clip, bits=8, seed=3, ramp_ms=0.0, loudness_lufs=-20.0, block_frames=block)
+    got = unpack(asset.packed.words, asset.packed.layout, asset.sample_count).codes
+    np.testing.assert_array_equal(got[:-1], whole.codes)
+    assert asset.stats["gain_db"] == round(gain_db, 6)
+    assert asset.stats["loudness"]["lufs_in"] == round(report["lufs_in"], 4)
+
+
+def test_loudness_meter_blocks_equal_one_call(rng: np.random.Generator) -> None:
+    from ladderpack.loudness import LoudnessMeter
+
+    x = rng.standard_normal((48_017, 2)) * 0.1
+    whole = LoudnessMeter(48000.0, x.shape[0], 2)
+    whole.feed(x)
+    for block in (1000, 4800, 33_333):
+        m = LoudnessMeter(48000.0, x.shape[0], 2)
+        for i in range(0, x.shape[0], block):
+            m.feed(x[i : i + block])
+        assert m.integrated_lufs() == whole.integrated_lufs()
+        assert m.true_peak_dbtp() == whole.true_peak_dbtp()
+
+
+def test_memory_stays_flat_with_clip_length(tmp_path: Path) -> None:
+    # Peak traced memory of a blocked stream (loudness normalisation included, which
+    # needs the whole clip measured before any sample is scaled) grows only by the
+    # packed words it returns (4 bytes per word, plus one copy when they are joined),
+    # not with the clip.
+    import tracemalloc
+
+    peaks, words = [], []
+    for seconds in (20, 60):
+        n = seconds * 44100
+        t = np.arange(n) / 44100
+        path = tmp_path / f"c{seconds}.wav"
+        soundfile.write(path, np.stack([0.3 * np.sin(2 * np.pi * 440 * t)] * 2, 1), 44100)
+        del t
+        tracemalloc.start()
+        asset = stream_clip(path, loudness_lufs=-20.0, block_frames=65536)
+        peaks.append(tracemalloc.get_traced_memory()[1])
+        tracemalloc.stop()
+        words.append(asset.packed.words.nbytes)
+    grown = peaks[1] - peaks[0]
+    assert grown < 2 * (words[1] - words[0]) + (4 << 20), (peaks, words)
+
+
+def test_progress_reports_every_block_in_order(clip: Path) -> None:
+    seen: list[tuple[str, float]] = []
+    stream_clip(clip, block_frames=4096, progress=lambda stage, share: seen.append((stage, share)))
+    shares = [share for _, share in seen]
+    assert shares == sorted(shares) and shares[0] == 0.0 and shares[-1] == 1.0
+    stages = [stage for stage, _ in seen]
+    assert stages.count("resample") == -(-150_001 // 4096)  # one report per block read
+    assert [s for i, s in enumerate(stages) if i == 0 or s != stages[i - 1]] == [
+        "read",
+        "resample",
+        "quantise",
+        "pack",
+    ]

@@ -93,6 +93,17 @@ def test_incremental_builds(project: Path) -> None:
     assert built == ["chime", "tone"]
 
 
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_build_reports_progress_per_asset(project: Path, jobs: int) -> None:
+    seen: list[tuple[int, int]] = []
+    built, _ = _build(project, jobs=jobs, progress=lambda done, total: seen.append((done, total)))
+    assert len(built) == 4
+    assert seen == [(k, 4) for k in range(1, 5)]
+    seen.clear()
+    _build(project, jobs=jobs, progress=lambda done, total: seen.append((done, total)))
+    assert seen == []  # nothing to make, nothing reported
+
+
 def test_index_lists_every_asset(project: Path) -> None:
     _build(project)
     text = (project / "gen" / "assets.py").read_text()
