@@ -1,10 +1,11 @@
 """Serial inner loops (private).
 
 Each loop is written once as plain Python operating on numpy arrays.  The
-plain function is the reference; :func:`compiled` returns the same function
-compiled by numba (imported only when a kernel is first needed, so the
-command line starts fast).  Tests run both on seeded inputs and require
-bit-identical results.
+plain function (``*_ref``) is the reference; :func:`compiled` returns the same
+function compiled by numba (imported only when a kernel is first needed, so the
+command line starts fast).  A third version (``*_py``) does the same arithmetic
+on Python lists, for short blocks where loading numba would cost more than the
+loop.  Tests run all of them on seeded inputs and require bit-identical results.
 """
 
 from __future__ import annotations
@@ -19,14 +20,19 @@ __all__ = [
     "PLAIN_MAX_SAMPLES",
     "compiled",
     "kernel",
+    "levels_quantize_py",
     "levels_quantize_ref",
+    "shape_quantize_py",
     "shape_quantize_ref",
 ]
 
-#: Blocks up to this many samples run the plain-Python twin unless numba is already
-#: loaded: importing numba and loading a cached kernel costs about half a second, and
-#: compiling one with an empty cache about two, which the twin beats on short clips.
-PLAIN_MAX_SAMPLES = 60_000
+#: Blocks up to this many samples run the interpreter version (``*_py``) unless numba is
+#: already loaded: importing numba and loading a cached kernel costs about half a
+#: second, and compiling one with an empty kernel cache about two; the interpreter
+#: version takes about 1.5 us a sample at order 8, so it wins below about 300 000
+#: samples with a warm cache, and far beyond with a cold one (measured on the 2-core
+#: development machine; ``bench/quantize.py``).
+PLAIN_MAX_SAMPLES = 300_000
 
 
 def shape_quantize_ref(
@@ -176,18 +182,133 @@ def levels_quantize_ref(
     return overloads, resets
 
 
+def shape_quantize_py(
+    v: np.ndarray,
+    d: np.ndarray,
+    b: np.ndarray,
+    a: np.ndarray,
+    lo: int,
+    hi: int,
+    e_hist: np.ndarray,
+    f_hist: np.ndarray,
+    out: np.ndarray,
+) -> tuple[int, int]:
+    """:func:`shape_quantize_ref` written for the CPython interpreter (short blocks).
+
+    The same operations in the same order on Python floats (so the same bits, tested),
+    but over lists instead of numpy scalars, which makes it several times faster than
+    the reference when numba is not loaded.
+    """
+    order = b.shape[0]
+    ab = [float(a[k]) - float(b[k]) for k in range(order)]
+    al = [float(x) for x in a]
+    eh = [float(x) for x in e_hist]
+    fh = [float(x) for x in f_hist]
+    res = [0] * v.shape[0]
+    floor = math.floor
+    overloads = 0
+    resets = 0
+    for n, (x, dn) in enumerate(zip(v.tolist(), d.tolist(), strict=True)):
+        fb = 0.0
+        for ck, ak, ek, fk in zip(ab, al, eh, fh, strict=True):
+            fb += ck * ek - ak * fk
+        u = x - fb
+        q = floor(u + dn + 0.5)
+        if q < lo or q > hi:
+            q = lo if q < lo else hi
+            overloads += 1
+            if order > 0:
+                resets += 1
+                eh = [0.0] * order
+                fh = [0.0] * order
+        elif order > 0:
+            eh.insert(0, q - u)
+            eh.pop()
+            fh.insert(0, fb)
+            fh.pop()
+        res[n] = q
+    out[:] = res
+    e_hist[:] = eh
+    f_hist[:] = fh
+    return overloads, resets
+
+
+def levels_quantize_py(
+    v: np.ndarray,
+    d: np.ndarray,
+    lv: np.ndarray,
+    lc: np.ndarray,
+    b: np.ndarray,
+    a: np.ndarray,
+    e_hist: np.ndarray,
+    f_hist: np.ndarray,
+    out: np.ndarray,
+) -> tuple[int, int]:
+    """:func:`levels_quantize_ref` written for the CPython interpreter (short blocks).
+
+    The same arithmetic on Python floats over lists, with the level search done by
+    :func:`bisect.bisect_left` (the same first index at or above the target), so the
+    same bits (tested).
+    """
+    from bisect import bisect_left
+
+    order = b.shape[0]
+    levels = lv.tolist()
+    codes = lc.tolist()
+    m = len(levels)
+    ab = [float(a[k]) - float(b[k]) for k in range(order)]
+    al = [float(x) for x in a]
+    eh = [float(x) for x in e_hist]
+    fh = [float(x) for x in f_hist]
+    res = [0] * v.shape[0]
+    overloads = 0
+    resets = 0
+    for n, (x, dn) in enumerate(zip(v.tolist(), d.tolist(), strict=True)):
+        fb = 0.0
+        for ck, ak, ek, fk in zip(ab, al, eh, fh, strict=True):
+            fb += ck * ek - ak * fk
+        u = x - fb
+        target = u + dn
+        i = bisect_left(levels, target)
+        if i == 0:
+            j = 0
+        elif i == m:
+            j = m - 1
+        elif target - levels[i - 1] < levels[i] - target:
+            j = i - 1
+        else:
+            j = i
+        if target < levels[0] - 0.5 or target > levels[m - 1] + 0.5:
+            overloads += 1
+            if order > 0:
+                resets += 1
+                eh = [0.0] * order
+                fh = [0.0] * order
+        elif order > 0:
+            eh.insert(0, levels[j] - u)
+            eh.pop()
+            fh.insert(0, fb)
+            fh.pop()
+        res[n] = codes[j]
+    out[:] = res
+    e_hist[:] = eh
+    f_hist[:] = fh
+    return overloads, resets
+
+
 _COMPILED: dict[str, Callable[..., Any]] = {}
 
 
 def kernel(name: str, samples: int) -> Callable[..., Any]:
-    """The kernel called `name` for a block of `samples`: compiled, or its plain twin.
+    """The kernel called `name` for a block of `samples`: compiled, or for the interpreter.
 
-    The twin serves blocks of at most :data:`PLAIN_MAX_SAMPLES` while numba is not
-    yet loaded; both give the same bits (tested), so the choice is only about time.
+    The interpreter version (``name + "_py"``) serves blocks of at most
+    :data:`PLAIN_MAX_SAMPLES` while numba is not yet loaded; all versions give the
+    same bits (tested), so the choice is only about time.
     """
     if name in _COMPILED or samples > PLAIN_MAX_SAMPLES:
         return compiled(name)
-    return cast("Callable[..., Any]", globals()[name + "_ref"])
+    return cast("Callable[..., Any]", globals()[name + "_py"])
 
 
 def compiled(name: str) -> Callable[..., Any]:

@@ -20,6 +20,7 @@ peak from 4x oversampling (Annex 2).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TypedDict
 
@@ -119,6 +120,31 @@ def fit_sine(
     return SineFit(f, amp, phase, float(c), resid)
 
 
+#: 1 / golden ratio, the interval kept at each step of a golden-section search.
+_INV_PHI = (math.sqrt(5.0) - 1.0) / 2.0
+
+
+def _golden_min(func: Callable[[float], float], lo: float, hi: float, xtol: float) -> float:
+    """Smallest value of a unimodal `func` on [lo, hi], by golden-section search.
+
+    Kiefer's method (J. Kiefer, "Sequential minimax search for a maximum", Proc. AMS
+    4(3), 1953): the bracket shrinks by 1/phi per evaluation until it is under `xtol`.
+    """
+    a, b = lo, hi
+    c, d = b - _INV_PHI * (b - a), a + _INV_PHI * (b - a)
+    fc, fd = func(c), func(d)
+    while b - a > xtol:
+        if fc < fd:
+            b, d, fd = d, c, fc
+            c = b - _INV_PHI * (b - a)
+            fc = func(c)
+        else:
+            a, c, fc = c, d, fd
+            d = a + _INV_PHI * (b - a)
+            fd = func(d)
+    return min(fc, fd)
+
+
 def _largest_spur(
     resid: np.ndarray, t: np.ndarray, rate_hz: float, power: np.ndarray, inband: np.ndarray
 ) -> float:
@@ -129,8 +155,6 @@ def _largest_spur(
     (bounded search within one bin), so a spur between bins is not read low or high by
     the window's scalloping.
     """
-    from scipy.optimize import minimize_scalar
-
     n = resid.size
     bin_hz = rate_hz / n
     p = np.where(inband, power, 0.0)
@@ -145,10 +169,7 @@ def _largest_spur(
             return -math.hypot(coef[0], coef[1])
 
         lo_f, hi_f = max(f - bin_hz, 1e-3), min(f + bin_hz, rate_hz / 2)
-        res = minimize_scalar(
-            neg_amp, bounds=(lo_f, hi_f), method="bounded", options={"xatol": bin_hz * 1e-4}
-        )
-        best = max(best, -float(res.fun), -neg_amp(f))
+        best = max(best, -_golden_min(neg_amp, lo_f, hi_f, bin_hz * 1e-4), -neg_amp(f))
     return best
 
 

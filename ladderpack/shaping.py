@@ -249,10 +249,38 @@ def _lpc(spectrum: np.ndarray, order: int) -> np.ndarray:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
     r = (spectrum[None, :] * np.cos(k[:, None] * omega[None, :])).mean(axis=1)
     r[0] *= 1.0 + 1e-9  # white-noise floor keeps the Toeplitz system well conditioned
-    from scipy import linalg  # only the designer needs it
+    return levinson(r, order)
 
-    coef = linalg.solve_toeplitz(r[:order], -r[1 : order + 1])
-    return np.concatenate([[1.0], coef])
+
+def levinson(r: np.ndarray, order: int) -> np.ndarray:
+    """Prediction-error filter ``[1, a1..aK]`` from autocorrelation values, by recursion.
+
+    Solves the Toeplitz normal equations ``sum_j a_j r[|i - j|] = -r[i]``
+    (i = 1..K) with the Levinson-Durbin recursion (N. Levinson, J. Math. Phys. 25,
+    1947; J. Durbin, Rev. Int. Stat. Inst. 28, 1960) in O(K^2) operations.
+
+    Parameters
+    ----------
+    r : numpy.ndarray
+        Autocorrelation at lags 0..K (at least K + 1 values, r[0] > 0).
+    order : int
+        Filter order K.
+
+    Examples
+    --------
+    >>> levinson(np.array([1.0, 0.5]), 1).tolist()  # r[k] = 0.5**k: a first-order process
+    [1.0, -0.5]
+    """
+    a = np.zeros(order + 1)
+    a[0] = 1.0
+    err = float(r[0])
+    for m in range(1, order + 1):
+        acc = float(r[m] + np.dot(a[1:m], r[m - 1 : 0 : -1]))
+        k = -acc / err
+        a[1:m] = a[1:m] + k * a[m - 1 : 0 : -1]
+        a[m] = k
+        err *= 1.0 - k * k
+    return a
 
 
 def _peak_db(b: np.ndarray, a: np.ndarray) -> float:

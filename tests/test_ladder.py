@@ -385,3 +385,19 @@ def test_recommended_range_equals_a_full_scan(
             passing.append(r)
     rep = design_check(bits, 10_000.0, trials=2, rate_hz=rate_hz, load_ohms=load_ohms)
     assert rep["recommended_r_ohms"] == ([min(passing), max(passing)] if passing else None)
+
+
+@pytest.mark.parametrize("distribution", ["uniform", "normal"])
+@pytest.mark.parametrize("split", [False, True])
+def test_monte_carlo_batch_equals_one_ladder_at_a_time(distribution: str, split: bool) -> None:
+    # The batched solve must give each trial's levels exactly as perturbed().levels().
+    from ladderpack.ladder import _perturbed_levels
+
+    nominal = ideal_ladder(
+        7, 4990.0, source_high_ohms=30.0, source_low_ohms=20.0, load_ohms=1e5, split_legs=split
+    )
+    a, b = np.random.default_rng(4), np.random.default_rng(4)
+    batch = _perturbed_levels(nominal, a, 5, 0.01, distribution)
+    for row in batch:
+        one = perturbed(nominal, b, tolerance=0.01, distribution=distribution).levels()
+        np.testing.assert_array_equal(row, one)

@@ -110,15 +110,21 @@ def test_compiled_kernel_matches_reference_bit_for_bit(
     b = rng.normal(0, 0.3, order)
     a = rng.normal(0, 0.05, order) if iir else np.zeros(order)
     results = []
-    for fn in (_kernels.shape_quantize_ref, _kernels.compiled("shape_quantize")):
+    for fn in (
+        _kernels.shape_quantize_ref,
+        _kernels.compiled("shape_quantize"),
+        _kernels.shape_quantize_py,
+    ):
         eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
         counts = fn(v, d, b, a, 0, 255, eh, fh, out)
         results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
-    (o1, c1, e1, f1), (o2, c2, e2, f2) = results
-    np.testing.assert_array_equal(o1, o2)
-    assert c1 == c2 and c1[0] > 0
-    np.testing.assert_array_equal(e1, e2)
-    np.testing.assert_array_equal(f1, f2)
+    o1, c1, e1, f1 = results[0]
+    assert c1[0] > 0
+    for o2, c2, e2, f2 in results[1:]:
+        np.testing.assert_array_equal(o1, o2)
+        assert c1 == c2
+        np.testing.assert_array_equal(e1, e2)
+        np.testing.assert_array_equal(f1, f2)
     if order == 0:  # the numpy path without feedback gives the kernel's bits
         got, overloads = round_block(v, d, 0, 255)
         np.testing.assert_array_equal(got, o1)
@@ -141,15 +147,21 @@ def test_levels_kernel_matches_reference_bit_for_bit(
     b = rng.normal(0, 0.3, order)
     a = np.zeros(order)
     results = []
-    for fn in (_kernels.levels_quantize_ref, _kernels.compiled("levels_quantize")):
+    for fn in (
+        _kernels.levels_quantize_ref,
+        _kernels.compiled("levels_quantize"),
+        _kernels.levels_quantize_py,
+    ):
         eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
         counts = fn(v, d, lv, lc, b, a, eh, fh, out)
         results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
-    (o1, c1, e1, f1), (o2, c2, e2, f2) = results
-    np.testing.assert_array_equal(o1, o2)
-    assert c1 == c2 and c1[0] > 0
-    np.testing.assert_array_equal(e1, e2)
-    np.testing.assert_array_equal(f1, f2)
+    o1, c1, e1, f1 = results[0]
+    assert c1[0] > 0
+    for o2, c2, e2, f2 in results[1:]:
+        np.testing.assert_array_equal(o1, o2)
+        assert c1 == c2
+        np.testing.assert_array_equal(e1, e2)
+        np.testing.assert_array_equal(f1, f2)
     if order == 0:
         got, overloads = nearest_levels_block(v, d, lv, lc)
         np.testing.assert_array_equal(got, o1)
@@ -175,7 +187,7 @@ def test_short_blocks_use_the_twin_until_numba_is_loaded() -> None:
     name = "shape_quantize"
     if name not in _kernels._COMPILED:
         small = _kernels.kernel(name, _kernels.PLAIN_MAX_SAMPLES)
-        assert small is _kernels.shape_quantize_ref
+        assert small is _kernels.shape_quantize_py
     assert _kernels.kernel(name, _kernels.PLAIN_MAX_SAMPLES + 1) is _kernels.compiled(name)
     assert _kernels.kernel(name, 10) is _kernels.compiled(name)
 

@@ -301,3 +301,17 @@ def test_readme_oversampling_figures() -> None:
         round(-threshold["in_band_db"], 1),
         round(-flat["in_band_db"], 1),
     ]
+
+
+@pytest.mark.parametrize("order", [1, 2, 5, 8, 16])
+def test_levinson_agrees_with_scipy_solve_toeplitz(order: int) -> None:
+    # Reference: scipy.linalg.solve_toeplitz (PyPI) on the same normal equations.
+    from scipy import linalg
+
+    from ladderpack.shaping import levinson
+
+    rng = np.random.default_rng(order)
+    x = np.convolve(rng.standard_normal(4000), [1.0, 0.8, 0.3, -0.2])
+    r = np.array([x[: x.size - k] @ x[k:] for k in range(order + 1)]) / x.size
+    ref = linalg.solve_toeplitz(r[:order], -r[1 : order + 1])
+    np.testing.assert_allclose(levinson(r, order)[1:], ref, rtol=0, atol=1e-12)
