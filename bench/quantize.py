@@ -5,9 +5,9 @@ Run:  python bench/quantize.py
 Prints, in one process:
 * samples per second of the numba error-feedback kernel (TPDF dither in the loop) for
   filter orders 1, 5 and 9 on 10^7 samples;
-* baselines: the plain-Python twin, plain numpy rounding (dither drawn by numpy, no
-  feedback), and a straightforward C loop doing the same work (compiled with gcc -O2 and
-  called through ctypes);
+* baselines: the plain-Python reference, the interpreter version for short blocks,
+  plain numpy rounding (no feedback), and a straightforward C loop doing the same work
+  (compiled with gcc -O2 and called through ctypes);
 * the real-time factor of the stream pipeline on a 60 s, 44.1 kHz stereo clip, both
   in-process (warm) and as the `ladderpack stream` command (cold start included).
 """
@@ -26,29 +26,21 @@ import numpy as np
 import soundfile
 
 from ladderpack import _kernels
+from ladderpack.quantize import DitherSource
 from ladderpack.stream import stream_clip
 
 C_LOOP = r"""
 #include <math.h>
 #include <stdint.h>
-long shape(const double *v, long n, const double *b, int order, uint32_t *s,
+long shape(const double *v, const double *d, long n, const double *b, int order,
            long lo, long hi, long *out) {
     double eh[16] = {0}, fh[16] = {0};
-    uint32_t s0 = s[0], s1 = s[1], s2 = s[2], s3 = s[3];
     long over = 0;
     for (long i = 0; i < n; ++i) {
-        double d = 0.0;
-        for (int k = 0; k < 2; ++k) {
-            uint32_t t = s0 ^ (s0 << 11);
-            s0 = s1; s1 = s2; s2 = s3;
-            s3 = s3 ^ (s3 >> 19) ^ t ^ (t >> 8);
-            double r = (double)(s3 >> 8) * (1.0 / 16777216.0);
-            d += k == 0 ? r : -r;
-        }
         double fb = 0.0;
         for (int k = 0; k < order; ++k) fb += -b[k] * eh[k];
         double u = v[i] - fb;
-        double q = floor(u + d + 0.5);
+        double q = floor(u + d[i] + 0.5);
         if (q < lo || q > hi) {
             q = q < lo ? lo : hi;
             ++over;
@@ -59,7 +51,6 @@ long shape(const double *v, long n, const double *b, int order, uint32_t *s,
         }
         out[i] = (long)q;
     }
-    s[0] = s0; s[1] = s1; s[2] = s2; s[3] = s3;
     return over;
 }
 """
@@ -90,6 +81,7 @@ def main() -> None:
     n = 10_000_000
     rng = np.random.default_rng(0)
     v = rng.uniform(20, 235, n)
+    d = DitherSource("tpdf", 0).draw(n)
     out = np.empty(n, np.int64)
     k = _kernels.compiled("shape_quantize")
     print(f"error-feedback quantiser, TPDF in the loop, {n:.0e} samples")
@@ -97,43 +89,27 @@ def main() -> None:
     for order in (1, 5, 9):
         b = -np.linspace(1.0, 0.1, order)
         a = np.zeros(order)
-        k(
-            v[:10],
-            b,
-            a,
-            2,
-            _kernels.seed_state(0),
-            0,
-            255,
-            np.zeros(order),
-            np.zeros(order),
-            out[:10],
-        )
+        k(v[:10], d[:10], b, a, 0, 255, np.zeros(order), np.zeros(order), out[:10])
         t = best_of(
             lambda b=b, a=a, order=order: k(
-                v, b, a, 2, _kernels.seed_state(0), 0, 255, np.zeros(order), np.zeros(order), out
+                v, d, b, a, 0, 255, np.zeros(order), np.zeros(order), out
             )
         )
         rates[order] = n / t
         print(f"  numba kernel, order {order}: {n / t / 1e6:7.1f} M samples/s")
     m = 100_000
     b9 = -np.linspace(1.0, 0.1, 9)
-    t = best_of(
-        lambda: _kernels.shape_quantize_ref(
-            v[:m],
-            b9,
-            np.zeros(9),
-            2,
-            _kernels.seed_state(0),
-            0,
-            255,
-            np.zeros(9),
-            np.zeros(9),
-            out[:m],
-        ),
-        repeat=1,
-    )
-    print(f"  plain-Python twin, order 9: {m / t / 1e6:7.3f} M samples/s")
+    for label, fn in (
+        ("plain-Python reference", _kernels.shape_quantize_ref),
+        ("interpreter version (short blocks)", _kernels.shape_quantize_py),
+    ):
+        t = best_of(
+            lambda fn=fn: fn(
+                v[:m], d[:m], b9, np.zeros(9), 0, 255, np.zeros(9), np.zeros(9), out[:m]
+            ),
+            repeat=1,
+        )
+        print(f"  {label}, order 9: {m / t / 1e6:7.3f} M samples/s")
 
     def numpy_round() -> None:
         d = rng.random(n) - rng.random(n)
@@ -145,13 +121,12 @@ def main() -> None:
         shape = c_baseline(tmp)
         if shape is not None:
             dp = ctypes.POINTER(ctypes.c_double)
-            state = np.array(_kernels.seed_state(0), dtype=np.uint32)
             args = (
                 v.ctypes.data_as(dp),
+                d.ctypes.data_as(dp),
                 ctypes.c_long(n),
                 b9.ctypes.data_as(dp),
                 ctypes.c_int(9),
-                state.ctypes.data_as(ctypes.POINTER(ctypes.c_uint32)),
                 ctypes.c_long(0),
                 ctypes.c_long(255),
                 out.ctypes.data_as(ctypes.POINTER(ctypes.c_long)),

@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Iterator
+from typing import Any
 
 import numpy as np
 
@@ -17,13 +18,25 @@ from ladderpack.audio import Signal, check_signal, load_clip
 from ladderpack.conform import MEAN_CHUNK
 from ladderpack.errors import OptionError
 
-__all__ = ["BLOCK_FRAMES", "BLOCK_THRESHOLD", "ArraySource", "FileSource", "MonoSource"]
+__all__ = [
+    "BLOCK_FRAMES",
+    "BLOCK_THRESHOLD",
+    "ArraySource",
+    "FileSource",
+    "MonoSource",
+    "prefetch",
+]
 
 #: Clips with more samples (frames x channels) than this are processed in blocks.
 BLOCK_THRESHOLD = 1 << 23
 
 #: Frames per block for long clips.
 BLOCK_FRAMES = 1 << 16
+
+
+#: Containers and encodings whose samples are read by copying (no decoder to run twice).
+_RAW_FORMATS = frozenset({"WAV", "WAVEX", "RF64", "W64", "AIFF", "CAF", "RAW"})
+_RAW_SUBTYPES = frozenset({"PCM_U8", "PCM_S8", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE"})
 
 
 class MonoSource:
@@ -108,19 +121,73 @@ class FileSource(MonoSource):
                 "expected at least 1 sample frame(s), got 0", file=self.path, field="samples"
             )
         self._whole: np.ndarray | None = None
+        self._spill: Any = None
+        self._spill_block = 0
+        self._subtype = info.subtype
+        self._raw_pcm = info.format in _RAW_FORMATS and info.subtype in _RAW_SUBTYPES
 
     def blocks(self, block_frames: int) -> Iterator[np.ndarray]:
-        """Mono blocks of `block_frames` frames, each checked to be finite."""
+        """Mono blocks of `block_frames` frames, each checked to be finite.
+
+        A compressed clip (FLAC, Ogg, ...) read in several blocks is decoded once: the
+        mono samples go to a temporary file as they are read, and later passes with
+        the same block size read them back from there (:meth:`close` removes it).
+        Uncompressed PCM is simply read again.
+        """
         if block_frames >= self.frames:
             if self._whole is None:
                 self._whole = load_clip(self.path, channel=self.channel).samples
             yield self._whole
             return
+        if self._raw_pcm:  # decoding is a copy: cheaper than keeping a float64 copy
+            yield from self._decode(block_frames)
+            return
+        if self._spill is not None and self._spill_block == block_frames:
+            self._spill.seek(0)
+            for i in range(0, self.frames, block_frames):
+                yield np.fromfile(
+                    self._spill, dtype=np.float64, count=min(block_frames, self.frames - i)
+                )
+            return
+        import tempfile
+
+        spill = tempfile.TemporaryFile(prefix="ladderpack-")  # noqa: SIM115 - kept for later passes
+        try:
+            for mono in self._decode(block_frames):
+                mono.tofile(spill)
+                yield mono
+        except BaseException:
+            spill.close()
+            raise
+        self.close()
+        self._spill, self._spill_block = spill, block_frames
+
+    def _decode(self, block_frames: int) -> Iterator[np.ndarray]:
+        """Mono blocks decoded from the file."""
         import soundfile
 
+        pcm16 = self._subtype == "PCM_16"
         for block in soundfile.blocks(
-            self.path, blocksize=block_frames, dtype="float64", always_2d=True
+            self.path,
+            blocksize=block_frames,
+            dtype="int16" if pcm16 else "float64",
+            always_2d=True,
         ):
+            if pcm16:
+                # The integer sum is exact; scaled by 1 / 32768 (exact) and divided by the
+                # channel count it is the float path's value to the bit (libsndfile reads
+                # PCM_16 as x / 32768), at a quarter of the memory traffic.
+                if self.channel is None:
+                    isum = block[:, 0].astype(np.int32)
+                    for ch in range(1, block.shape[1]):
+                        isum += block[:, ch]
+                    total = isum.astype(np.float64)
+                    total *= 1.0 / 32768.0
+                    total /= block.shape[1]
+                    yield total
+                else:
+                    yield block[:, self.channel].astype(np.float64) * (1.0 / 32768.0)
+                continue
             if not np.all(np.isfinite(block)):
                 raise OptionError("samples must be finite", file=self.path, field="samples")
             if self.channel is None:
@@ -131,3 +198,62 @@ class FileSource(MonoSource):
             else:
                 mono = block[:, self.channel].copy()
             yield mono
+
+    def close(self) -> None:
+        """Remove the temporary copy of the mono samples, if any."""
+        if self._spill is not None:
+            self._spill.close()
+            self._spill = None
+
+
+def prefetch(blocks: Iterator[np.ndarray], depth: int = 2) -> Iterator[np.ndarray]:
+    """The same blocks, read ahead on a second thread while the caller works on the last.
+
+    Decoding and numpy's large-array work let go of the interpreter lock, so reading
+    the next block overlaps with (say) resampling this one on a second core.  An
+    exception raised while reading is raised here, at the block where it happened;
+    stopping early stops the reader.
+
+    Examples
+    --------
+    >>> [int(b[0]) for b in prefetch(iter([np.zeros(1), np.ones(1)]))]
+    [0, 1]
+    """
+    import queue
+    import threading
+
+    q: queue.Queue[tuple[str, Any]] = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def put(item: tuple[str, Any]) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def reader() -> None:
+        try:
+            for block in blocks:
+                if not put(("block", block)):
+                    return
+        except BaseException as exc:  # handed to the consumer, raised there
+            put(("error", exc))
+            return
+        put(("end", None))
+
+    thread = threading.Thread(target=reader, name="ladderpack-reader", daemon=True)
+    thread.start()
+    try:
+        while True:
+            kind, item = q.get()
+            if kind == "end":
+                return
+            if kind == "error":
+                raise item
+            yield item
+    finally:
+        stop.set()
+        thread.join()

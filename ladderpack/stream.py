@@ -48,7 +48,14 @@ from ladderpack.pio import (
 )
 from ladderpack.quantize import BlockQuantizer, Codes, idle_ramp
 from ladderpack.shaping import Shaper, design_shaper, get_shaper, predict_noise
-from ladderpack.sources import BLOCK_FRAMES, BLOCK_THRESHOLD, ArraySource, FileSource, MonoSource
+from ladderpack.sources import (
+    BLOCK_FRAMES,
+    BLOCK_THRESHOLD,
+    ArraySource,
+    FileSource,
+    MonoSource,
+    prefetch,
+)
 
 __all__ = [
     "BLOCK_THRESHOLD",
@@ -157,6 +164,7 @@ class Processed:
     loudness: dict[str, Any] | None = None
     rate_in_hz: float | None = None
     tone: dict[str, Any] = field(default_factory=dict)
+    max_step: int | None = None
 
 
 # -- plan ----------------------------------------------------------------------------
@@ -391,7 +399,8 @@ def _conformed(
     with _Spill(in_memory=one_block) as spill:
         # One pass reads and resamples the clip, measures it and keeps the result (in a
         # temporary file for long clips, so memory stays flat); the second scales it.
-        for mono in src.blocks(plan.block_frames):
+        blocks = src.blocks(plan.block_frames)
+        for mono in blocks if one_block else prefetch(blocks):
             seen += mono.size
             y = rs.feed(mono - mean, last=seen >= src.frames)
             if y.size:
@@ -525,7 +534,11 @@ def process(
         # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
         # sample closes it, a step no larger than the one from idle into its start.
         tail = ramp[::-1] if ramp.size else np.full(1, opts.idle_code, np.uint16)
-        words = list(pack_blocks(_chain(ramp, quantised(), tail), lay, pad_code=opts.idle_code))
+        steps = _StepTracker(opts.idle_code)
+        words = list(
+            pack_blocks(steps.watch(_chain(ramp, quantised(), tail)), lay, pad_code=opts.idle_code)
+        )
+        out.max_step = steps.largest()
         n = ramp.size + out.audio_samples + tail.size
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
         out.packed = Packed(flat, lay, n, opts.idle_code)
@@ -534,6 +547,33 @@ def process(
     out.overloads, out.resets = q.overloads, q.resets
     done("pack", 1.0)
     return out
+
+
+class _StepTracker:
+    """The largest step between consecutive codes of blocks passing through, from idle.
+
+    Equals :func:`ladderpack.asset.largest_step` of the packed stream (the padding
+    slots of the last word hold the idle code, and the pins return to it), without
+    unpacking the words again (tested).
+    """
+
+    def __init__(self, idle_code: int) -> None:
+        self.idle = int(idle_code)
+        self.prev = int(idle_code)
+        self.best = 0
+
+    def watch(self, blocks: Iterator[np.ndarray]) -> Iterator[np.ndarray]:
+        for block in blocks:
+            if block.size:
+                c = block.astype(np.int64)
+                self.best = max(self.best, abs(int(c[0]) - self.prev))
+                if c.size > 1:
+                    self.best = max(self.best, int(np.abs(np.diff(c)).max()))
+                self.prev = int(c[-1])
+            yield block
+
+    def largest(self) -> int:
+        return max(self.best, abs(self.prev - self.idle))
 
 
 def _chain(
@@ -623,7 +663,7 @@ def finish(
         stats["warnings"] = warnings
     if done.tone:
         stats["tone"] = done.tone
-    return StreamAsset(
+    asset = StreamAsset(
         plan.name,
         done.codes,
         done.packed,
@@ -639,6 +679,9 @@ def finish(
         budget=budget,
         levels_volts=None if plan.levels is None else plan.levels.volts,
     )
+    if done.max_step is not None:  # known from processing: fill the asset's cache
+        asset.__dict__["max_step"] = done.max_step
+    return asset
 
 
 #: Share of half-scale the shaped noise's peak (4 sigma) may take before the summary warns
@@ -851,15 +894,25 @@ def stream_clip(
         channels=src.channels,
         block_frames=blk,
     )
-    provenance = {
-        "file": os.path.basename(src.path),
-        "sha256": sha256_file(src.path),
-        "rate_hz": src.rate_hz,
-        "channels": src.channels,
-        "frames": src.frames,
-        "channel": "mix" if copts.channel is None else copts.channel,
-    }
-    return finish(plan, process(plan, src, progress=progress), name=stem, source=provenance)
+    from concurrent.futures import ThreadPoolExecutor
+
+    # The clip's digest is taken on a second core while it is processed (hashlib lets go
+    # of the interpreter lock on large reads).
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        digest = pool.submit(sha256_file, src.path)
+        try:
+            done = process(plan, src, progress=progress)
+        finally:
+            src.close()
+        provenance = {
+            "file": os.path.basename(src.path),
+            "sha256": digest.result(),
+            "rate_hz": src.rate_hz,
+            "channels": src.channels,
+            "frames": src.frames,
+            "channel": "mix" if copts.channel is None else copts.channel,
+        }
+    return finish(plan, done, name=stem, source=provenance)
 
 
 def stream_tone(

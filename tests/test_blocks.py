@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -196,3 +197,47 @@ def test_progress_reports_every_block_in_order(clip: Path) -> None:
         "quantise",
         "pack",
     ]
+
+
+@pytest.mark.parametrize(
+    "kw",
+    [
+        {"bits": 8},
+        {"bits": 10, "ramp_ms": 0.0, "idle_code": 700},
+        {"bits": 12, "pin_order": "msb-low", "invert": True, "idle_code": 4095},
+        {"bits": 3, "ramp_ms": 1.0, "dither": "none"},
+    ],
+)
+@pytest.mark.parametrize("block", [997, None])
+def test_largest_step_found_while_processing_equals_unpacking(
+    clip: Path, kw: dict[str, object], block: int | None
+) -> None:
+    # The step the players bound their ramps by is taken from the code blocks as they
+    # are packed; the reference unpacks the finished words (padding included).
+    from ladderpack.asset import largest_step
+
+    asset = stream_clip(clip, block_frames=block, **kw)  # type: ignore[arg-type]
+    assert "max_step" in asset.__dict__  # filled by processing, not computed again
+    assert asset.max_step == largest_step(asset)
+
+
+def test_prefetch_keeps_order_and_raises_where_reading_failed() -> None:
+    from ladderpack.errors import OptionError
+    from ladderpack.sources import prefetch
+
+    def blocks(fail_at: int | None) -> Iterator[np.ndarray]:
+        for i in range(20):
+            if i == fail_at:
+                raise OptionError("samples must be finite", field="samples")
+            yield np.full(3, i)
+
+    assert [int(b[0]) for b in prefetch(blocks(None))] == list(range(20))
+    got: list[int] = []
+    with pytest.raises(OptionError, match="finite"):
+        for b in prefetch(blocks(7)):
+            got.append(int(b[0]))
+    assert got == list(range(7))
+    # stopping early stops the reader (the generator's close joins its thread)
+    it = prefetch(blocks(None))
+    assert int(next(it)[0]) == 0
+    it.close()
