@@ -79,6 +79,13 @@ def main() -> None:
     if sox is None:
         sys.exit("bench/speed.py needs sox on PATH (Debian package sox)")
     lp = [PY, "-m", "ladderpack"]
+    # Byte-compile the package first, as installing it does: with PYTHONDONTWRITEBYTECODE
+    # set (some containers set it) every run would otherwise compile the sources again.
+    import compileall
+
+    import ladderpack
+
+    compileall.compile_dir(os.path.dirname(ladderpack.__file__), quiet=1)
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
         c60 = clip(work / "c60.wav", 60.0)

@@ -241,3 +241,17 @@ def test_prefetch_keeps_order_and_raises_where_reading_failed() -> None:
     it = prefetch(blocks(None))
     assert int(next(it)[0]) == 0
     it.close()
+
+
+def test_c_source_is_written_in_bounded_chunks() -> None:
+    # Each chunk handed to the writer stays near the requested size, however long the
+    # stream: multi-line items of hex literals must not pile up (the C text of a
+    # 10-minute stream is 45 MB).
+    from ladderpack.emit.c import render_source, render_source_chunks
+    from ladderpack.stream import stream_tone
+
+    asset = stream_tone("sine", seconds=40.0, flash_bytes=1 << 24)  # 220 500 words
+    chunks = list(render_source_chunks(asset, chunk_chars=20_000))
+    assert len(chunks) >= 4
+    assert max(len(c) for c in chunks) < 20_000 + 900_000  # one item of 64 Ki words at most
+    assert b"".join(chunks).decode() == render_source(asset)

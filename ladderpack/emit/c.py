@@ -259,14 +259,20 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
         yield "};"
 
 
-def render_source_chunks(asset: StreamAsset, lines_per_chunk: int = 8192) -> Iterator[bytes]:
-    """The C source as byte chunks (identical to :func:`render_source` joined)."""
+def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
+    """The C source as byte chunks of about `chunk_chars` (identical to :func:`render_source`).
+
+    An item of :func:`source_lines` may hold many lines, so the chunks are cut by size,
+    keeping memory bounded whatever the stream's length.
+    """
     buf: list[str] = []
+    size = 0
     for line in source_lines(asset):
         buf.append(line)
-        if len(buf) >= lines_per_chunk:
+        size += len(line) + 1
+        if size >= chunk_chars:
             yield ("\n".join(buf) + "\n").encode()
-            buf = []
+            buf, size = [], 0
     if buf:
         yield ("\n".join(buf) + "\n").encode()
 
