@@ -185,8 +185,11 @@ def pack(codes: Codes, layout: WordLayout, *, pad_code: int = 0) -> Packed:
     n_words = layout.words_for(n)
     slots = np.full(n_words * spw, int(layout.to_pins(np.array([pad_code]))[0]), dtype=np.uint64)
     slots[:n] = layout.to_pins(codes.codes)
-    grid = slots.reshape(n_words, spw) << _slot_shifts(layout)[None, :]
-    words = np.bitwise_or.reduce(grid, axis=1) if spw > 1 else grid[:, 0]
+    grid = slots.reshape(n_words, spw)
+    shifts = _slot_shifts(layout)
+    words = grid[:, 0] << shifts[0]
+    for j in range(1, spw):  # column by column: much faster than a reduce over short rows
+        words |= grid[:, j] << shifts[j]
     return Packed(words.astype(np.uint32), layout, n, int(pad_code))
 
 

@@ -192,6 +192,10 @@ def _array(values: list[int], digits: int) -> list[str]:
     return out
 
 
+#: ASCII of the upper-case hex digits, indexed by nibble.
+_HEX_DIGITS = np.frombuffer(b"0123456789ABCDEF", np.uint8)
+
+
 def _array_lines(words: np.ndarray, digits: int, block: int = 1 << 16) -> Iterator[str]:
     """Lines of `_WORDS_PER_LINE` hex literals, the last without a trailing comma.
 
@@ -215,7 +219,10 @@ def _array_lines(words: np.ndarray, digits: int, block: int = 1 << 16) -> Iterat
         stop = min((start + block) // per, total - 1)
         if stop > first:
             chunk = np.asarray(words[first * per : stop * per]).astype(dtype)
-            digits_ = np.frombuffer(chunk.tobytes().hex().upper().encode(), np.uint8)
+            raw = np.frombuffer(chunk.tobytes(), np.uint8)
+            digits_ = np.empty(raw.size * 2, np.uint8)
+            digits_[0::2] = _HEX_DIGITS[raw >> 4]
+            digits_[1::2] = _HEX_DIGITS[raw & 15]
             text = np.tile(template, (stop - first, 1))
             text[:, cols] = digits_.reshape(stop - first, per * digits)
             yield text.tobytes().decode()[:-1]
