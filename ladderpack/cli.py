@@ -375,13 +375,34 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 @cli.command()
 @click.argument("rate_hz", type=float)
 @_model_options_lazy("StreamOptions", only=("target", "sys_clock_hz", "rate_tolerance_ppm"))
+@click.option(
+    "--output",
+    type=click.Choice(["ladder", "pwm"]),
+    default="ladder",
+    show_default=True,
+    help="Output system to plan for: the ladder's state machine, or a hardware PWM slice.",
+)
+@click.option(
+    "--min-carrier-hz",
+    type=float,
+    default=None,
+    help="PWM: lowest carrier frequency, Hz  [default: 4 x the rate]",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the plan as JSON.")
-def clock(rate_hz: float, as_json: bool, **values: Any) -> None:
+def clock(
+    rate_hz: float, output: str, min_carrier_hz: float | None, as_json: bool, **values: Any
+) -> None:
     """Show the clock plan (divider, cycles per sample, achieved rate) for RATE_HZ."""
     from ladderpack.clock import plan_clock
+    from ladderpack.errors import OptionError
     from ladderpack.options import StreamOptions
 
     opts = StreamOptions(rate_hz=rate_hz, **model_values(StreamOptions, values))
+    if output == "pwm":
+        _print_pwm_plan(rate_hz, opts, min_carrier_hz, as_json)
+        return
+    if min_carrier_hz is not None:
+        raise OptionError("applies only with --output pwm", field="min-carrier-hz")
     plan = plan_clock(
         rate_hz, sys_clock_hz=int(opts.sys_clock_hz or 0), tolerance_ppm=opts.rate_tolerance_ppm
     )
@@ -395,6 +416,39 @@ def clock(rate_hz: float, as_json: bool, **values: Any) -> None:
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
     click.echo(f"cycles     {plan.cycles_per_sample} per sample")
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
+
+
+def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_json: bool) -> None:
+    from ladderpack.outputs.pwm import DREQ_DMA_TIMER0, DREQ_PWM_WRAP0, plan_pwm
+
+    plan = plan_pwm(
+        rate_hz,
+        sys_clock_hz=int(opts.sys_clock_hz or 0),
+        min_carrier_hz=min_carrier_hz,
+        tolerance_ppm=opts.rate_tolerance_ppm,
+    )
+    d = plan.to_dict()
+    chip = "rp2040" if opts.target == "rp2040" else "rp2350"
+    d["dreq"] = (DREQ_PWM_WRAP0 if plan.pacing == "wrap" else DREQ_DMA_TIMER0)[chip]
+    if as_json:
+        click.echo(json_text(d))
+        return
+    kind = "fractional (1 system clock of jitter)" if plan.fractional else "integer (no jitter)"
+    click.echo(f"requested  {rate_hz:g} Hz at {plan.sys_clock_hz} Hz system clock")
+    click.echo(f"achieved   {float(plan.achieved_rate_hz):.6f} Hz ({plan.error_ppm:+.3f} ppm)")
+    click.echo(f"carrier    {float(plan.carrier_hz):.3f} Hz, TOP {plan.top}")
+    click.echo(f"divider    {plan.div_int} + {plan.div_frac}/16, {kind}")
+    click.echo(
+        f"levels     {plan.levels} (compare 0..{plan.top + 1}), {plan.effective_bits:.2f} bits"
+    )
+    if plan.pacing == "wrap":
+        click.echo(f"pacing     one sample per PWM wrap (DREQ {d['dreq']})")
+    else:
+        x, y = plan.timer_xy or (0, 0)
+        click.echo(
+            f"pacing     {plan.periods_per_sample} PWM periods per sample: DMA timer "
+            f"X/Y = {x}/{y} (DREQ {d['dreq']})"
+        )
 
 
 @cli.command()

@@ -1,0 +1,166 @@
+"""PWM output plan against the slice's behaviour as the vendor SDK describes it."""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import subprocess
+import sys
+from fractions import Fraction
+from pathlib import Path
+
+import pytest
+
+from ladderpack.errors import ClockError, OptionError
+from ladderpack.outputs.pwm import (
+    DREQ_DMA_TIMER0,
+    DREQ_PWM_WRAP0,
+    PERIODS_MAX,
+    PwmPlan,
+    plan_pwm,
+)
+
+SDK = Path(__file__).resolve().parents[2] / "shared" / "vendor" / "pico-sdk"
+RATES = [8000, 11025, 16000, 22050, 32000, 44100, 48000, 96000]
+
+
+def _period_rate(plan: PwmPlan) -> Fraction:
+    # vendor SDK hardware/pwm.h: "the PWM counter runs at clk_sys / div" with div in 8.4
+    # fixed point (DIV_INT 1..255, DIV_FRAC 4 bits), counting "upward until the wrap
+    # value is reached, and then immediately wrap to 0": TOP + 1 counts a period.
+    div = Fraction(plan.div_int) + Fraction(plan.div_frac, 16)
+    return Fraction(plan.sys_clock_hz) / (div * (plan.top + 1))
+
+
+@pytest.mark.parametrize("sys_hz", [125_000_000, 150_000_000])
+@pytest.mark.parametrize("rate", RATES)
+def test_plan_obeys_the_slice_arithmetic(rate: int, sys_hz: int) -> None:
+    p = plan_pwm(rate, sys_clock_hz=sys_hz)
+    assert 1 <= p.div_int <= 255 and 0 <= p.div_frac <= 15 and 1 <= p.top <= 0xFFFF
+    carrier = _period_rate(p)
+    assert p.carrier_hz == carrier
+    assert p.achieved_rate_hz == carrier / p.periods_per_sample
+    assert carrier >= 4 * rate  # the default lowest carrier
+    # Compare values 0 (never high) .. TOP + 1 (always high): TOP + 2 levels.
+    assert p.levels == p.top + 2
+    assert p.effective_bits == pytest.approx(math.log2(p.top + 2))
+    assert p.error_ppm == pytest.approx(float((p.achieved_rate_hz / rate - 1) * 10**6))
+    if p.pacing == "timer":
+        # hardware/regs/dma.h TIMER0: TREQ at (X / Y) * sys_clk, X and Y 16 bits each.
+        x, y = p.timer_xy or (0, 0)
+        assert 1 <= x <= 0xFFFF and 1 <= y <= 0xFFFF
+        assert Fraction(sys_hz) * x / y == p.achieved_rate_hz
+        # a whole number of PWM periods between requests: every new value is latched
+        # at the same point of its period
+        assert Fraction(y, x) / (Fraction(sys_hz) / carrier) == p.periods_per_sample
+    else:
+        assert p.periods_per_sample == 1
+
+
+def _brute_force(rate: int, sys_hz: int) -> list[tuple[int, int, int]]:
+    """Every integer-divider (div, TOP + 1, K) meeting the default limits, exactly."""
+    found = []
+    for k in range(1, PERIODS_MAX + 1):
+        for div in range(1, 256):
+            exact = Fraction(sys_hz, div * k * rate)
+            for top1 in {math.floor(exact), math.ceil(exact)}:
+                if not 2 <= top1 <= 0x10000 or Fraction(sys_hz, div * top1) < 4 * rate:
+                    continue
+                if k > 1 and div * top1 * k > 0xFFFF:
+                    continue
+                found.append((div, top1, k))
+    return found
+
+
+@pytest.mark.parametrize("rate", [8000, 22050, 44100])
+def test_plan_keeps_the_best_resolution(rate: int) -> None:
+    # An independent exhaustive search with exact arithmetic: no integer setting meeting
+    # the carrier and pacing limits has more than 1/0.95 of the chosen levels, and when
+    # some setting near the best resolution is within the tolerance the choice is too.
+    sys_hz = 125_000_000
+    p = plan_pwm(rate, sys_clock_hz=sys_hz)
+    every = _brute_force(rate, sys_hz)
+    best_levels = max(top1 + 1 for _, top1, _ in every)
+    assert p.levels >= 0.95 * best_levels
+    near = [
+        (d, t, k)
+        for d, t, k in every
+        if t >= 0.95 * (best_levels - 1)
+        and abs(Fraction(sys_hz, d * t * k) / rate - 1) <= Fraction(100, 10**6)
+    ]
+    if near:
+        assert abs(p.error_ppm) <= 100
+        assert p.levels == max(t + 1 for _, t, _ in near)
+
+
+def test_dreq_numbers_match_the_sdk_headers() -> None:
+    # hardware/regs/dreq.h of each chip in the vendored SDK (REFERENCES.md section 13).
+    for chip in ("rp2040", "rp2350"):
+        text = (SDK / "src" / chip / "hardware_regs/include/hardware/regs/dreq.h").read_text()
+        wrap = int(re.search(r"#define DREQ_PWM_WRAP0 (\d+)", text).group(1))  # type: ignore[union-attr]
+        timer = int(re.search(r"#define DREQ_DMA_TIMER0 (\d+)", text).group(1))  # type: ignore[union-attr]
+        assert (DREQ_PWM_WRAP0[chip], DREQ_DMA_TIMER0[chip]) == (wrap, timer)
+
+
+def test_divider_field_widths_match_the_sdk_headers() -> None:
+    # hardware/regs/pwm.h: DIV_INT bits 11:4 (8 bits), DIV_FRAC bits 3:0, TOP 16 bits.
+    text = (SDK / "src/rp2040/hardware_regs/include/hardware/regs/pwm.h").read_text()
+    assert "#define PWM_CH0_DIV_INT_BITS   _u(0x00000ff0)" in text
+    assert "#define PWM_CH0_DIV_FRAC_BITS   _u(0x0000000f)" in text
+    assert "#define PWM_CH0_TOP_BITS   _u(0x0000ffff)" in text
+
+
+def test_one_period_per_sample_is_paced_by_the_wrap() -> None:
+    p = plan_pwm(1000, min_carrier_hz=1000)
+    assert p.pacing == "wrap" and p.timer_xy is None
+    assert p.achieved_rate_hz == p.carrier_hz == 1000
+    assert not p.fractional
+
+
+def test_low_rates_need_one_period_per_sample() -> None:
+    # Below f_sys / 65535 the pacing timer cannot span a sample: the error says what to do.
+    with pytest.raises(ClockError, match="carrier equal to the rate"):
+        plan_pwm(1000)
+
+
+@pytest.mark.parametrize(
+    ("kw", "field"),
+    [
+        ({"rate_hz": 0}, "rate_hz"),
+        ({"rate_hz": 22050, "sys_clock_hz": 0}, "sys_clock_hz"),
+        ({"rate_hz": 22050, "min_carrier_hz": -1.0}, "min_carrier_hz"),
+        ({"rate_hz": 22050, "tolerance_ppm": float("nan")}, "rate_tolerance_ppm"),
+    ],
+)
+def test_bad_arguments_name_their_field(kw: dict[str, object], field: str) -> None:
+    with pytest.raises(OptionError) as info:
+        plan_pwm(**kw)  # type: ignore[arg-type]
+    assert info.value.field == field
+
+
+def test_clock_command_shows_the_pwm_plan() -> None:
+    run = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "clock", "22050", "--output", "pwm", "--json"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    d = json.loads(run.stdout)
+    p = plan_pwm(22050)
+    assert (d["top"], d["periods_per_sample"], d["levels"]) == (p.top, p.periods_per_sample, 1418)
+    assert d["dreq"] == 59 and d["timer_xy"] == [1, 5668]
+    text = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "clock", "22050", "--output", "pwm"],
+        capture_output=True,
+        text=True,
+        check=True,
+    ).stdout
+    assert "carrier    88214.538 Hz, TOP 1416" in text
+    bad = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "clock", "22050", "--min-carrier-hz", "1e5"],
+        capture_output=True,
+        text=True,
+    )
+    assert bad.returncode == 2 and "only with --output pwm" in bad.stderr
+    assert "Traceback" not in bad.stderr
