@@ -427,9 +427,17 @@ def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_
         min_carrier_hz=min_carrier_hz,
         tolerance_ppm=opts.rate_tolerance_ppm,
     )
+    from ladderpack.defaults import default_band_hz
+    from ladderpack.quantize import CodeScale, predicted_full_scale_sine
+
     d = plan.to_dict()
     chip = "rp2040" if opts.target == "rp2040" else "rp2350"
     d["dreq"] = (DREQ_PWM_WRAP0 if plan.pacing == "wrap" else DREQ_DMA_TIMER0)[chip]
+    rate = float(plan.achieved_rate_hz)
+    band = default_band_hz(rate)
+    half = CodeScale.for_levels(plan.levels).half
+    plain = predicted_full_scale_sine(half, "tpdf", 0.0, band, rate)
+    d["predicted_full_scale_sine"] = {"band_hz": band, "dither": "tpdf", **plain}
     if as_json:
         click.echo(json_text(d))
         return
@@ -440,6 +448,10 @@ def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/16, {kind}")
     click.echo(
         f"levels     {plan.levels} (compare 0..{plan.top + 1}), {plan.effective_bits:.2f} bits"
+    )
+    click.echo(
+        f"predict    full-scale sine SINAD {plain['sinad_db']:.1f} dB, ENOB "
+        f"{plain['enob_bits']:.2f} bits in 0..{band:g} Hz (TPDF dither)"
     )
     if plan.pacing == "wrap":
         click.echo(f"pacing     one sample per PWM wrap (DREQ {d['dreq']})")

@@ -17,6 +17,7 @@ rounds the whole block; with feedback the serial loop of :mod:`_kernels` runs.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -36,12 +37,14 @@ if TYPE_CHECKING:
 __all__ = [
     "DITHERS",
     "BlockQuantizer",
+    "CodeScale",
     "Codes",
     "DitherSource",
     "QuantizeReport",
     "check_bits",
     "idle_ramp",
     "nearest_levels_block",
+    "predicted_full_scale_sine",
     "quantize",
     "round_block",
     "signal_to_lsb",
@@ -101,6 +104,51 @@ class QuantizeReport:
     seed: int
     overloads: int
     resets: int = 0
+
+
+@dataclass(frozen=True)
+class CodeScale:
+    """Where full scale and silence fall on the code scale.
+
+    A float sample ``x`` sits at ``x * half + half`` LSB and rounds to a code in
+    ``0 .. top``.
+
+    Attributes
+    ----------
+    top : int
+        Highest code (at most 65535: codes are 16-bit).
+    half : float
+        LSB from silence to full scale.
+    """
+
+    top: int
+    half: float
+
+    @classmethod
+    def for_bits(cls, bits: int) -> CodeScale:
+        """An N-bit ladder: codes 0..2^N - 1, silence at 2^(N-1) (+1.0 clips by one LSB)."""
+        bits = check_bits(bits)
+        return cls((1 << bits) - 1, float(1 << (bits - 1)))
+
+    @classmethod
+    def for_levels(cls, count: int) -> CodeScale:
+        """Any number of evenly spaced levels (a PWM slice's compare values 0..TOP+1, say).
+
+        Codes 0..count-1 with -1.0 and +1.0 on the outer levels and silence half way.
+
+        Examples
+        --------
+        >>> CodeScale.for_levels(1418)
+        CodeScale(top=1417, half=708.5)
+        """
+        if isinstance(count, bool) or not isinstance(count, int) or not 2 <= count <= 1 << 16:
+            raise OptionError(f"must be a whole number 2..65536, got {count!r}", field="levels")
+        return cls(count - 1, (count - 1) / 2)
+
+    @property
+    def levels(self) -> int:
+        """Number of codes."""
+        return self.top + 1
 
 
 def signal_to_lsb(x: np.ndarray, bits: int) -> np.ndarray:
@@ -209,6 +257,28 @@ def with_idle_ramps(audio: Codes, *, idle_code: int = 0, ramp_samples: int) -> C
     return Codes(np.concatenate([ramp, audio.codes, ramp[::-1]]), audio.bits)
 
 
+def predicted_full_scale_sine(
+    half_lsb: float, dither: str, in_band_gain_db: float, band_hz: float, rate_hz: float
+) -> dict[str, float]:
+    """SINAD and ENOB a full-scale sine would get from the quantiser, in the band.
+
+    Signal power ``half_lsb^2 / 2`` LSB^2 over the error power in 0..band_hz: the total
+    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992) is
+    white over 0..rate/2, so the band holds band / (rate / 2) of it, times the noise
+    shaper's mean power gain over the band (`in_band_gain_db`, 0 without shaping).
+
+    Examples
+    --------
+    >>> predicted_full_scale_sine(128.0, "none", 0.0, 11025.0, 22050.0)["sinad_db"]
+    49.926
+    """
+    sigma2 = 1 / 12 + {"none": 0.0, "rpdf": 1 / 12, "tpdf": 1 / 6}[dither]
+    share = min(1.0, band_hz / (rate_hz / 2))
+    noise = sigma2 * share * 10 ** (in_band_gain_db / 10)
+    sinad = 10 * math.log10(half_lsb**2 / 2 / noise)
+    return {"sinad_db": round(sinad, 3), "enob_bits": round((sinad - 1.76) / 6.02, 3)}
+
+
 class DitherSource:
     """Seeded dither values in LSB, drawn in order.
 
@@ -299,7 +369,9 @@ class BlockQuantizer:
     The dither generator and the error filter's state carry across calls, so the
     codes are bit-identical to one whole call.
 
-    Parameters are those of :func:`quantize` (without the signal).
+    Parameters are those of :func:`quantize` (without the signal), and `scale`: a
+    :class:`CodeScale` other than the N-bit ladder's (any number of evenly spaced
+    levels, as a PWM slice has); `bits` then only names the code width.
     """
 
     def __init__(
@@ -310,10 +382,14 @@ class BlockQuantizer:
         shaper: Shaper | str = "none",
         seed: int = 0,
         levels: LevelSet | None = None,
+        scale: CodeScale | None = None,
     ) -> None:
         from ladderpack.shaping import CATALOGUE
 
         self.bits = check_bits(bits)
+        if scale is not None and levels is not None:
+            raise OptionError("give a code scale or true levels, not both", field="levels")
+        self.scale = CodeScale.for_bits(self.bits) if scale is None else scale
         self.dither = DitherSource(dither, seed)
         self.shaper = CATALOGUE[shaper] if isinstance(shaper, str) else shaper
         self.b = np.asarray(self.shaper.b, dtype=np.float64)
@@ -336,8 +412,9 @@ class BlockQuantizer:
         d = self.dither.draw(n)
         r = 0
         if self.levels is None:
-            v = signal_to_lsb(x, self.bits)
-            top = (1 << self.bits) - 1
+            half = self.scale.half
+            v = np.asarray(x, dtype=np.float64) * half + half
+            top = self.scale.top
             if self.b.size == 0:
                 out, o = round_block(v, d, 0, top)
             else:

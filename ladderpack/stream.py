@@ -46,7 +46,7 @@ from ladderpack.pio import (
     min_cycles,
     state_machine_config,
 )
-from ladderpack.quantize import BlockQuantizer, Codes, idle_ramp
+from ladderpack.quantize import BlockQuantizer, Codes, idle_ramp, predicted_full_scale_sine
 from ladderpack.shaping import Shaper, design_shaper, get_shaper, predict_noise
 from ladderpack.sources import (
     BLOCK_FRAMES,
@@ -731,18 +731,10 @@ def _shaper_warnings(opts: StreamOptions, shaper: str, predicted: dict[str, floa
 def _predicted_sine(
     bits: int, dither: str, predicted: dict[str, float], band_hz: float, rate_hz: float
 ) -> dict[str, float]:
-    """SINAD and ENOB a full-scale sine would get from this quantiser, in the band.
-
-    Signal power (2^(N-1))^2 / 2 LSB^2 over the error power in 0..band_hz: the total
-    sigma^2 = 1/12 + dither variance (RPDF 1/12, TPDF 1/6: Lipshitz et al. 1992) is
-    white over 0..rate/2, so the band holds band / (rate / 2) of it, times the NTF's mean
-    power gain over the band.
-    """
-    sigma2 = 1 / 12 + {"none": 0.0, "rpdf": 1 / 12, "tpdf": 1 / 6}[dither]
-    share = min(1.0, band_hz / (rate_hz / 2))
-    noise = sigma2 * share * 10 ** (predicted["in_band_db"] / 10)
-    sinad = 10 * math.log10((1 << (bits - 1)) ** 2 / 2 / noise)
-    return {"sinad_db": round(sinad, 3), "enob_bits": round((sinad - 1.76) / 6.02, 3)}
+    """SINAD and ENOB a full-scale sine would get from this quantiser, in the band."""
+    return predicted_full_scale_sine(
+        float(1 << (bits - 1)), dither, predicted["in_band_db"], band_hz, rate_hz
+    )
 
 
 def _levels_stats(levelset: LevelSet) -> dict[str, Any]:

@@ -150,6 +150,10 @@ def test_clock_command_shows_the_pwm_plan() -> None:
     p = plan_pwm(22050)
     assert (d["top"], d["periods_per_sample"], d["levels"]) == (p.top, p.periods_per_sample, 1418)
     assert d["dreq"] == 59 and d["timer_xy"] == [1, 5668]
+    # A full-scale sine on 1418 levels (half-scale 708.5 LSB) over TPDF error power
+    # 1/12 + 1/6 LSB^2 (Lipshitz et al. 1992), the whole Nyquist band being the band.
+    want = 10 * math.log10(708.5**2 / 2 / 0.25)
+    assert d["predicted_full_scale_sine"]["sinad_db"] == pytest.approx(want, abs=0.001)
     text = subprocess.run(
         [sys.executable, "-m", "ladderpack", "clock", "22050", "--output", "pwm"],
         capture_output=True,

@@ -245,3 +245,43 @@ def test_ramps_bracket_audio() -> None:
     out = with_idle_ramps(audio, idle_code=3, ramp_samples=20)
     assert len(out) == 50
     assert out.codes[0] == 3 and out.codes[-1] == 3
+
+
+def test_code_scale_for_bits_is_the_ladder_path(rng: np.random.Generator) -> None:
+    from ladderpack.quantize import BlockQuantizer, CodeScale
+
+    x = rng.uniform(-1.0, 1.0, 5000)
+    plain = BlockQuantizer(bits=10, shaper="second-order", seed=2).feed(x)
+    scaled = BlockQuantizer(
+        bits=10, shaper="second-order", seed=2, scale=CodeScale.for_bits(10)
+    ).feed(x)
+    np.testing.assert_array_equal(plain, scaled)
+
+
+@pytest.mark.parametrize("count", [7, 1418, 62501])
+def test_any_number_of_levels_keeps_the_dither_theory(count: int) -> None:
+    # A PWM slice has TOP + 2 levels, rarely a power of two. TPDF error power stays
+    # 1/12 + 1/6 = 0.25 LSB^2 (Lipshitz, Wannamaker & Vanderkooy 1992) at any step, and
+    # +/-1.0 land on the outer levels.
+    from ladderpack.quantize import BlockQuantizer, CodeScale
+
+    scale = CodeScale.for_levels(count)
+    # keep dithered targets inside the code range: peak + 1.5 LSB below full scale
+    x = np.sin(2 * np.pi * 0.01234 * np.arange(N_REC)) * (scale.half - 1.5) / scale.half
+    codes = BlockQuantizer(bits=16, dither="tpdf", seed=1, scale=scale).feed(x)
+    err = codes - (x * scale.half + scale.half)
+    assert float(np.mean(err**2)) == pytest.approx(0.25, rel=0.05)
+    assert abs(float(np.mean(err))) < 0.01
+    ends = BlockQuantizer(bits=16, dither="none", scale=scale).feed(np.array([-1.0, 1.0, 0.0]))
+    assert ends[0] == 0 and ends[1] == count - 1
+    assert abs(int(ends[2]) - (count - 1) / 2) <= 0.5
+
+
+def test_predicted_sine_for_any_step() -> None:
+    # The ideal N-bit quantiser: 6.02 N + 1.76 dB (Kester, MT-001), here through the
+    # half-scale in LSB, which also serves level counts that are not powers of two.
+    from ladderpack.quantize import predicted_full_scale_sine
+
+    for n in (8, 10.47):
+        got = predicted_full_scale_sine(2 ** (n - 1), "none", 0.0, 1000.0, 2000.0)
+        assert got["sinad_db"] == pytest.approx(6.02 * n + 1.76, abs=0.01)
