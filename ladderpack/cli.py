@@ -377,10 +377,17 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 @_model_options_lazy("StreamOptions", only=("target", "sys_clock_hz", "rate_tolerance_ppm"))
 @click.option(
     "--output",
-    type=click.Choice(["ladder", "pwm"]),
+    type=click.Choice(["ladder", "pwm", "i2s"]),
     default="ladder",
     show_default=True,
-    help="Output system to plan for: the ladder's state machine, or a hardware PWM slice.",
+    help="Output system to plan for: the ladder's state machine, a hardware PWM slice, "
+    "or an I2S state machine.",
+)
+@click.option(
+    "--slot-bits",
+    type=click.Choice(["16", "32"]),
+    default=None,
+    help="I2S: bits per channel slot  [default: 32]",
 )
 @click.option(
     "--min-carrier-hz",
@@ -390,7 +397,12 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the plan as JSON.")
 def clock(
-    rate_hz: float, output: str, min_carrier_hz: float | None, as_json: bool, **values: Any
+    rate_hz: float,
+    output: str,
+    min_carrier_hz: float | None,
+    slot_bits: str | None,
+    as_json: bool,
+    **values: Any,
 ) -> None:
     """Show the clock plan (divider, cycles per sample, achieved rate) for RATE_HZ."""
     from ladderpack.clock import plan_clock
@@ -398,11 +410,16 @@ def clock(
     from ladderpack.options import StreamOptions
 
     opts = StreamOptions(rate_hz=rate_hz, **model_values(StreamOptions, values))
+    if min_carrier_hz is not None and output != "pwm":
+        raise OptionError("applies only with --output pwm", field="min-carrier-hz")
+    if slot_bits is not None and output != "i2s":
+        raise OptionError("applies only with --output i2s", field="slot-bits")
     if output == "pwm":
         _print_pwm_plan(rate_hz, opts, min_carrier_hz, as_json)
         return
-    if min_carrier_hz is not None:
-        raise OptionError("applies only with --output pwm", field="min-carrier-hz")
+    if output == "i2s":
+        _print_i2s_plan(rate_hz, opts, int(slot_bits or 32), as_json)
+        return
     plan = plan_clock(
         rate_hz, sys_clock_hz=int(opts.sys_clock_hz or 0), tolerance_ppm=opts.rate_tolerance_ppm
     )
@@ -416,6 +433,32 @@ def clock(
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
     click.echo(f"cycles     {plan.cycles_per_sample} per sample")
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
+
+
+def _print_i2s_plan(rate_hz: float, opts: Any, slot_bits: int, as_json: bool) -> None:
+    from ladderpack.outputs.i2s import CYCLES_PER_BIT, plan_i2s
+
+    plan = plan_i2s(
+        rate_hz,
+        sys_clock_hz=int(opts.sys_clock_hz or 0),
+        slot_bits=slot_bits,
+        tolerance_ppm=opts.rate_tolerance_ppm,
+    )
+    d = plan.to_dict()
+    if as_json:
+        click.echo(json_text(d))
+        return
+    c = plan.clock
+    kind = "fractional (1 system clock of bit-clock jitter)" if c.fractional else "integer"
+    click.echo(f"requested  {rate_hz:g} frames/s at {c.sys_clock_hz} Hz system clock")
+    click.echo(f"achieved   {float(plan.frame_rate_hz):.6f} frames/s ({c.error_ppm:+.3f} ppm)")
+    click.echo(f"divider    {c.div_int} + {c.div_frac}/256, {kind}")
+    click.echo(
+        f"frame      2 x {slot_bits}-bit slots, {CYCLES_PER_BIT} state-machine cycles per bit"
+        f" ({c.cycles_per_sample} per frame)"
+    )
+    click.echo(f"bit clock  {float(plan.bit_clock_hz):.3f} Hz")
+    click.echo(f"CLKDIV     0x{c.clkdiv_register:08X}")
 
 
 def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_json: bool) -> None:

@@ -7,4 +7,4 @@ and states the resolution that follows; the ladder's own plan lives in
 
 from __future__ import annotations
 
-__all__ = ["pwm"]
+__all__ = ["i2s", "pwm"]
