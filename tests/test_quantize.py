@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 import pytest
@@ -98,6 +100,30 @@ def test_first_order_shaping_follows_ntf(rng: np.random.Generator) -> None:
     assert low / high == pytest.approx(1.0, rel=0.25)
 
 
+def _run_all_versions(
+    name: str, order: int, n: int, call: Callable[..., Any]
+) -> tuple[np.ndarray, tuple[int, ...]]:
+    """Run the reference, the compiled and the interpreter version of kernel `name`;
+    require the same codes, counts and final filter state from all three."""
+    results = []
+    for fn in (
+        getattr(_kernels, name + "_ref"),
+        _kernels.compiled(name),
+        getattr(_kernels, name + "_py"),
+    ):
+        eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
+        counts = call(fn, eh, fh, out)
+        results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
+    o1, c1, e1, f1 = results[0]
+    assert c1[0] > 0
+    for o2, c2, e2, f2 in results[1:]:
+        np.testing.assert_array_equal(o1, o2)
+        assert c1 == c2
+        np.testing.assert_array_equal(e1, e2)
+        np.testing.assert_array_equal(f1, f2)
+    return o1, c1
+
+
 @pytest.mark.parametrize("order", range(0, 17))
 @pytest.mark.parametrize("dither", ["none", "rpdf", "tpdf"])
 @pytest.mark.parametrize("iir", [False, True])
@@ -109,22 +135,9 @@ def test_compiled_kernel_matches_reference_bit_for_bit(
     d = DitherSource(dither, 42).draw(n)
     b = rng.normal(0, 0.3, order)
     a = rng.normal(0, 0.05, order) if iir else np.zeros(order)
-    results = []
-    for fn in (
-        _kernels.shape_quantize_ref,
-        _kernels.compiled("shape_quantize"),
-        _kernels.shape_quantize_py,
-    ):
-        eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
-        counts = fn(v, d, b, a, 0, 255, eh, fh, out)
-        results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
-    o1, c1, e1, f1 = results[0]
-    assert c1[0] > 0
-    for o2, c2, e2, f2 in results[1:]:
-        np.testing.assert_array_equal(o1, o2)
-        assert c1 == c2
-        np.testing.assert_array_equal(e1, e2)
-        np.testing.assert_array_equal(f1, f2)
+    o1, c1 = _run_all_versions(
+        "shape_quantize", order, n, lambda fn, eh, fh, out: fn(v, d, b, a, 0, 255, eh, fh, out)
+    )
     if order == 0:  # the numpy path without feedback gives the kernel's bits
         got, overloads = round_block(v, d, 0, 255)
         np.testing.assert_array_equal(got, o1)
@@ -146,22 +159,9 @@ def test_levels_kernel_matches_reference_bit_for_bit(
     d = DitherSource(dither, 7).draw(n)
     b = rng.normal(0, 0.3, order)
     a = np.zeros(order)
-    results = []
-    for fn in (
-        _kernels.levels_quantize_ref,
-        _kernels.compiled("levels_quantize"),
-        _kernels.levels_quantize_py,
-    ):
-        eh, fh, out = np.zeros(order), np.zeros(order), np.empty(n, np.int64)
-        counts = fn(v, d, lv, lc, b, a, eh, fh, out)
-        results.append((out, tuple(int(c) for c in counts), eh.copy(), fh.copy()))
-    o1, c1, e1, f1 = results[0]
-    assert c1[0] > 0
-    for o2, c2, e2, f2 in results[1:]:
-        np.testing.assert_array_equal(o1, o2)
-        assert c1 == c2
-        np.testing.assert_array_equal(e1, e2)
-        np.testing.assert_array_equal(f1, f2)
+    o1, c1 = _run_all_versions(
+        "levels_quantize", order, n, lambda fn, eh, fh, out: fn(v, d, lv, lc, b, a, eh, fh, out)
+    )
     if order == 0:
         got, overloads = nearest_levels_block(v, d, lv, lc)
         np.testing.assert_array_equal(got, o1)
