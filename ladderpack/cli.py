@@ -462,7 +462,14 @@ def _print_i2s_plan(rate_hz: float, opts: Any, slot_bits: int, as_json: bool) ->
 
 
 def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_json: bool) -> None:
-    from ladderpack.outputs.pwm import DREQ_DMA_TIMER0, DREQ_PWM_WRAP0, plan_pwm
+    import math
+
+    from ladderpack.outputs.pwm import (
+        DREQ_DMA_TIMER0,
+        DREQ_PWM_WRAP0,
+        plan_pwm,
+        reconstruction_filter,
+    )
 
     plan = plan_pwm(
         rate_hz,
@@ -481,6 +488,22 @@ def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_
     half = CodeScale.for_levels(plan.levels).half
     plain = predicted_full_scale_sine(half, "tpdf", 0.0, band, rate)
     d["predicted_full_scale_sine"] = {"band_hz": band, "dither": "tpdf", **plain}
+    # The filter passes the resampler's flat band (0.45 x the rate, at most 20 kHz).
+    fband = min(20000.0, 0.45 * rate)
+    carrier = float(plan.carrier_hz)
+    filt = reconstruction_filter(plan, fband)
+    # fundamental of a 50 % square wave between 0 and V: 2 V / pi (Fourier series)
+    ripple = 2 * 3.3 / math.pi * 10 ** (filt.gain_db(carrier) / 20)
+    d["reconstruction_filter"] = {
+        "poles": filt.poles,
+        "r_ohms": filt.r_ohms,
+        "c_farads": filt.c_farads,
+        "corner_hz": filt.corner_hz,
+        "band_hz": fband,
+        "gain_at_band_db": filt.gain_db(fband),
+        "gain_at_carrier_db": filt.gain_db(carrier),
+        "carrier_ripple_volts_peak_at_3v3": ripple,
+    }
     if as_json:
         click.echo(json_text(d))
         return
@@ -495,6 +518,15 @@ def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_
     click.echo(
         f"predict    full-scale sine SINAD {plain['sinad_db']:.1f} dB, ENOB "
         f"{plain['enob_bits']:.2f} bits in 0..{band:g} Hz (TPDF dither)"
+    )
+    click.echo(
+        f"filter     {filt.poles} buffered RC sections of {filt.r_ohms / 1e3:g} kohm and "
+        f"{filt.c_farads * 1e12:g} pF: {filt.gain_db(fband):+.2f} dB at {fband:.0f} Hz, "
+        f"{filt.gain_db(carrier):+.1f} dB at the carrier"
+    )
+    click.echo(
+        f"           carrier left at 50 % duty from a 3.3 V pin: {ripple * 1e3:.0f} mV peak "
+        "(more poles, or the amplifier's own bandwidth, take it further)"
     )
     if plan.pacing == "wrap":
         click.echo(f"pacing     one sample per PWM wrap (DREQ {d['dreq']})")

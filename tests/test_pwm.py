@@ -154,6 +154,11 @@ def test_clock_command_shows_the_pwm_plan() -> None:
     # 1/12 + 1/6 LSB^2 (Lipshitz et al. 1992), the whole Nyquist band being the band.
     want = 10 * math.log10(708.5**2 / 2 / 0.25)
     assert d["predicted_full_scale_sine"]["sinad_db"] == pytest.approx(want, abs=0.001)
+    rc = d["reconstruction_filter"]
+    assert rc["c_farads"] == 5.6e-10 and rc["gain_at_band_db"] >= -1.0
+    # a 50 % square wave's fundamental is 2 V / pi (its Fourier series), then filtered
+    ripple = 2 * 3.3 / math.pi * 10 ** (rc["gain_at_carrier_db"] / 20)
+    assert rc["carrier_ripple_volts_peak_at_3v3"] == pytest.approx(ripple)
     text = subprocess.run(
         [sys.executable, "-m", "ladderpack", "clock", "22050", "--output", "pwm"],
         capture_output=True,
@@ -168,3 +173,39 @@ def test_clock_command_shows_the_pwm_plan() -> None:
     )
     assert bad.returncode == 2 and "only with --output pwm" in bad.stderr
     assert "Traceback" not in bad.stderr
+
+
+@pytest.mark.parametrize("poles", [1, 2, 3])
+@pytest.mark.parametrize("band", [4000.0, 9924.0, 20000.0])
+def test_reconstruction_filter_meets_its_droop_with_standard_parts(poles: int, band: float) -> None:
+    # Reference: scipy.signal.freqs (PyPI) on the analog transfer 1 / (1 + s / wc)^poles
+    # of buffered first-order sections; capacitors from the E12 series (IEC 60063).
+    import numpy as np
+    from scipy import signal as sps
+
+    from ladderpack.outputs.pwm import reconstruction_filter
+
+    plan = plan_pwm(44100, min_carrier_hz=176_400)
+    f = reconstruction_filter(plan, band, poles=poles)
+    wc = 2 * np.pi * f.corner_hz
+    den = np.poly1d([1 / wc, 1.0]) ** poles
+    for freq in (band, float(plan.carrier_hz)):
+        _, h = sps.freqs([1.0], den.coeffs, worN=[2 * np.pi * freq])
+        assert f.gain_db(freq) == pytest.approx(20 * np.log10(abs(h[0])), abs=1e-9)
+    assert -1.0 - 1e-9 <= f.gain_db(band) < 0
+    e12 = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]
+    mant = f.c_farads / 10 ** math.floor(math.log10(f.c_farads))
+    assert any(abs(mant - m) < 1e-9 for m in e12)
+    # the next larger E12 capacitor would droop more than 1 dB
+    i = next(k for k, m in enumerate(e12) if abs(mant - m) < 1e-9)
+    bigger = (e12[i + 1] if i + 1 < 12 else 10.0) / mant * f.c_farads
+    wider = type(f)(poles, f.r_ohms, bigger)
+    assert wider.gain_db(band) < -1.0
+
+
+def test_reconstruction_filter_refuses_a_band_above_the_carrier() -> None:
+    from ladderpack.outputs.pwm import reconstruction_filter
+
+    with pytest.raises(OptionError) as info:
+        reconstruction_filter(plan_pwm(22050), 1e6)
+    assert info.value.field == "band_hz"

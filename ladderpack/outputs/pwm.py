@@ -35,7 +35,14 @@ import numpy as np
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ
 from ladderpack.errors import ClockError, OptionError
 
-__all__ = ["DREQ_DMA_TIMER0", "DREQ_PWM_WRAP0", "PwmPlan", "plan_pwm"]
+__all__ = [
+    "DREQ_DMA_TIMER0",
+    "DREQ_PWM_WRAP0",
+    "PwmPlan",
+    "RcFilter",
+    "plan_pwm",
+    "reconstruction_filter",
+]
 
 #: DMA request numbers by chip (``hardware/regs/dreq.h``).
 DREQ_PWM_WRAP0 = {"rp2040": 24, "rp2350": 32}
@@ -262,3 +269,87 @@ def plan_pwm(
         )
     chosen = pick(*found)
     return chosen
+
+
+@dataclass(frozen=True)
+class RcFilter:
+    """Identical first-order RC low-pass sections, each buffered (no loading between them).
+
+    Attributes
+    ----------
+    poles : int
+        Number of sections.
+    r_ohms : float
+        Resistor of each section, ohms.
+    c_farads : float
+        Capacitor of each section, farads.
+    """
+
+    poles: int
+    r_ohms: float
+    c_farads: float
+
+    @property
+    def corner_hz(self) -> float:
+        """-3 dB frequency of one section, ``1 / (2 pi R C)``, Hz."""
+        return 1.0 / (2 * math.pi * self.r_ohms * self.c_farads)
+
+    def gain_db(self, freq_hz: float) -> float:
+        """Gain of the whole filter at `freq_hz`: ``-10 poles log10(1 + (f / fc)^2)`` dB."""
+        return -10 * self.poles * math.log10(1 + (freq_hz / self.corner_hz) ** 2)
+
+
+def reconstruction_filter(
+    plan: PwmPlan,
+    band_hz: float,
+    *,
+    poles: int = 2,
+    droop_db: float = 1.0,
+    r_ohms: float = 10_000.0,
+) -> RcFilter:
+    """RC sections that pass the band and take the carrier down, from standard parts.
+
+    Each section's corner is put where the whole filter loses `droop_db` at the band's
+    edge (first-order section: ``|H|^2 = 1 / (1 + (f / fc)^2)``), and the capacitor is the
+    largest E12 value (IEC 60063) at or below the one that corner needs, so the droop
+    stays within `droop_db`.  Buffer each section (an op-amp follower) so the next does
+    not load it; the PWM pin then drives only the first resistor.
+
+    Parameters
+    ----------
+    plan : PwmPlan
+        The slice's plan (for the carrier).
+    band_hz : float
+        Highest frequency to pass, Hz.
+    poles : int
+        Number of identical sections (default 2).
+    droop_db : float
+        Largest loss at `band_hz`, dB (default 1).
+    r_ohms : float
+        Resistor of each section, ohms (default 10 kohm: under 0.33 mA from a 3.3 V pin).
+
+    Examples
+    --------
+    >>> p = plan_pwm(22050)
+    >>> f = reconstruction_filter(p, 10000.0)
+    >>> f.c_farads, round(f.gain_db(10000.0), 2), round(f.gain_db(float(p.carrier_hz)), 1)
+    (4.7e-10, -0.73, -17.8)
+    """
+    from ladderpack.ladder import E_SERIES
+
+    if not (math.isfinite(band_hz) and 0 < band_hz < float(plan.carrier_hz)):
+        raise OptionError(
+            f"must be above 0 and below the carrier {float(plan.carrier_hz):g} Hz, got {band_hz!r}",
+            field="band_hz",
+        )
+    if isinstance(poles, bool) or not isinstance(poles, int) or not 1 <= poles <= 4:
+        raise OptionError(f"must be a whole number 1..4, got {poles!r}", field="poles")
+    if not (math.isfinite(droop_db) and droop_db > 0):
+        raise OptionError(f"must be > 0 dB, got {droop_db!r}", field="droop_db")
+    fc = band_hz / math.sqrt(10 ** (droop_db / poles / 10) - 1)
+    ideal = 1.0 / (2 * math.pi * r_ohms * fc)
+    e12 = E_SERIES["E24"][::2]  # E12 is every other E24 value (IEC 60063)
+    decade = 10 ** math.floor(math.log10(ideal))
+    values = [m * decade * k for k in (0.1, 1.0) for m in e12]
+    c = max(v for v in values if v <= ideal * (1 + 1e-9))
+    return RcFilter(poles, r_ohms, float(f"{c:.3g}"))
