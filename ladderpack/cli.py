@@ -529,12 +529,12 @@ def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_
         "(more poles, or the amplifier's own bandwidth, take it further)"
     )
     if plan.pacing == "wrap":
-        click.echo(f"pacing     one sample per PWM wrap (DREQ {d['dreq']})")
+        click.echo(f"pacing     one sample per PWM wrap (DREQ_PWM_WRAP0 + slice = {d['dreq']} + n)")
     else:
         x, y = plan.timer_xy or (0, 0)
         click.echo(
             f"pacing     {plan.periods_per_sample} PWM periods per sample: DMA timer "
-            f"X/Y = {x}/{y} (DREQ {d['dreq']})"
+            f"X/Y = {x}/{y} (DREQ_DMA_TIMER0 = {d['dreq']})"
         )
 
 
