@@ -29,9 +29,10 @@ __all__ = [
 #: Blocks up to this many samples run the interpreter version (``*_py``) unless numba is
 #: already loaded: importing numba and loading a cached kernel costs about half a
 #: second, and compiling one with an empty kernel cache about two; the interpreter
-#: version takes about 1.5 us a sample at order 8, so it wins below about 300 000
-#: samples with a warm cache, and far beyond with a cold one (measured on the 2-core
-#: development machine; ``bench/quantize.py``).
+#: version takes about 3 us a sample at order 8, so it wins below about 150 000
+#: samples with a warm cache and below about 650 000 with a cold one (measured on the
+#: 2-core development machine; ``bench/quantize.py``); the limit sits between the two,
+#: since fresh build containers and CI runners start cold.
 PLAIN_MAX_SAMPLES = 300_000
 
 

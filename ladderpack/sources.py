@@ -24,7 +24,6 @@ __all__ = [
     "ArraySource",
     "FileSource",
     "MonoSource",
-    "prefetch",
 ]
 
 #: Clips with more samples (frames x channels) than this are processed in blocks.
@@ -204,56 +203,3 @@ class FileSource(MonoSource):
         if self._spill is not None:
             self._spill.close()
             self._spill = None
-
-
-def prefetch(blocks: Iterator[np.ndarray], depth: int = 2) -> Iterator[np.ndarray]:
-    """The same blocks, read ahead on a second thread while the caller works on the last.
-
-    Decoding and numpy's large-array work let go of the interpreter lock, so reading
-    the next block overlaps with (say) resampling this one on a second core.  An
-    exception raised while reading is raised here, at the block where it happened;
-    stopping early stops the reader.
-
-    Examples
-    --------
-    >>> [int(b[0]) for b in prefetch(iter([np.zeros(1), np.ones(1)]))]
-    [0, 1]
-    """
-    import queue
-    import threading
-
-    q: queue.Queue[tuple[str, Any]] = queue.Queue(maxsize=depth)
-    stop = threading.Event()
-
-    def put(item: tuple[str, Any]) -> bool:
-        while not stop.is_set():
-            try:
-                q.put(item, timeout=0.1)
-                return True
-            except queue.Full:
-                continue
-        return False
-
-    def reader() -> None:
-        try:
-            for block in blocks:
-                if not put(("block", block)):
-                    return
-        except BaseException as exc:  # handed to the consumer, raised there
-            put(("error", exc))
-            return
-        put(("end", None))
-
-    thread = threading.Thread(target=reader, name="ladderpack-reader", daemon=True)
-    thread.start()
-    try:
-        while True:
-            kind, item = q.get()
-            if kind == "end":
-                return
-            if kind == "error":
-                raise item
-            yield item
-    finally:
-        stop.set()
-        thread.join()

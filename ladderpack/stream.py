@@ -54,7 +54,6 @@ from ladderpack.sources import (
     ArraySource,
     FileSource,
     MonoSource,
-    prefetch,
 )
 
 __all__ = [
@@ -399,8 +398,7 @@ def _conformed(
     with _Spill(in_memory=one_block) as spill:
         # One pass reads and resamples the clip, measures it and keeps the result (in a
         # temporary file for long clips, so memory stays flat); the second scales it.
-        blocks = src.blocks(plan.block_frames)
-        for mono in blocks if one_block else prefetch(blocks):
+        for mono in src.blocks(plan.block_frames):
             seen += mono.size
             y = rs.feed(mono - mean, last=seen >= src.frames)
             if y.size:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -219,28 +218,6 @@ def test_largest_step_found_while_processing_equals_unpacking(
     asset = stream_clip(clip, block_frames=block, **kw)  # type: ignore[arg-type]
     assert "max_step" in asset.__dict__  # filled by processing, not computed again
     assert asset.max_step == largest_step(asset)
-
-
-def test_prefetch_keeps_order_and_raises_where_reading_failed() -> None:
-    from ladderpack.errors import OptionError
-    from ladderpack.sources import prefetch
-
-    def blocks(fail_at: int | None) -> Iterator[np.ndarray]:
-        for i in range(20):
-            if i == fail_at:
-                raise OptionError("samples must be finite", field="samples")
-            yield np.full(3, i)
-
-    assert [int(b[0]) for b in prefetch(blocks(None))] == list(range(20))
-    got: list[int] = []
-    with pytest.raises(OptionError, match="finite"):
-        for b in prefetch(blocks(7)):
-            got.append(int(b[0]))
-    assert got == list(range(7))
-    # stopping early stops the reader (the generator's close joins its thread)
-    it = prefetch(blocks(None))
-    assert int(next(it)[0]) == 0
-    it.close()
 
 
 def test_c_source_is_written_in_bounded_chunks() -> None:
