@@ -60,8 +60,8 @@ class Budget:
         words themselves when embedded in the module).
     target : TargetProfile
         The target's memory.
-    samples_per_word : int
-        Samples per 32-bit word.
+    samples_per_word : int or Fraction
+        Samples (frames, for I2S) per 32-bit word: 1/2 for 24- and 32-bit I2S samples.
     rate_hz : fractions.Fraction
         Stream rate.
     """
@@ -69,7 +69,7 @@ class Budget:
     stream_bytes: int
     ram_bytes: int
     target: TargetProfile
-    samples_per_word: int
+    samples_per_word: int | Fraction
     rate_hz: Fraction
 
     @property
@@ -80,7 +80,7 @@ class Budget:
     @property
     def max_samples(self) -> int:
         """Most samples that fit in the available flash."""
-        return (self.target.flash_available_bytes // 4) * self.samples_per_word
+        return int((self.target.flash_available_bytes // 4) * self.samples_per_word)
 
     @property
     def max_duration_s(self) -> float:
@@ -113,7 +113,7 @@ class Budget:
 def stream_budget(
     stream_words: int,
     *,
-    samples_per_word: int,
+    samples_per_word: int | Fraction,
     rate_hz: Fraction,
     target: TargetProfile,
     player_chunk_words: int,

@@ -41,6 +41,10 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
+    if _is_i2s(asset):
+        files = {k: _bytes(v) for k, v in _i2s_parts(asset, embed_words_max).items()}
+        files[f"{n}.json"] = sidecar.render(asset, files).encode()
+        return files
     files: dict[str, bytes] = {
         f"{n}.bin": binary.render(asset.packed),
         f"{n}.h": c.render_header(asset).encode(),
@@ -68,6 +72,11 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
+    if _is_i2s(asset):
+        return {
+            **_i2s_parts(asset, embed_words_max),
+            f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
+        }
     return {
         f"{n}.bin": binary.render_chunks(asset.packed),
         f"{n}.h": c.render_header(asset).encode(),
@@ -77,6 +86,34 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
         player_c.HEADER_NAME: player_c.render_header().encode(),
         player_c.SOURCE_NAME: player_c.render_source().encode(),
         f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
+    }
+
+
+def _is_i2s(asset: StreamAsset) -> bool:
+    from ladderpack.outputs.i2s import I2sLayout
+
+    return isinstance(asset.packed.layout, I2sLayout)
+
+
+def _bytes(content: Any) -> bytes:
+    return content if isinstance(content, bytes) else b"".join(content)
+
+
+def _i2s_parts(asset: StreamAsset, embed_words_max: int) -> dict[str, Any]:
+    """The files of an I2S stream but its sidecar (large ones as byte chunks)."""
+    from ladderpack.emit import binary, i2s, micropython_i2s, player_i2s
+
+    n = asset.name
+    return {
+        f"{n}.bin": binary.render_chunks(asset.packed),
+        f"{n}.h": i2s.render_header(asset).encode(),
+        f"{n}.c": i2s.render_source_chunks(asset),
+        f"{n}.py": micropython_i2s.render(
+            asset, embed=asset.word_count <= embed_words_max
+        ).encode(),
+        f"{n}.pio": i2s.render_pio(asset).encode(),
+        player_i2s.HEADER_NAME: player_i2s.render_header().encode(),
+        player_i2s.SOURCE_NAME: player_i2s.render_source().encode(),
     }
 
 

@@ -9,7 +9,10 @@ __all__ = [
     "DEFAULT_SYS_CLOCK_HZ",
     "DITHERS",
     "EMBED_WORDS_MAX",
+    "FRAME_FORMATS",
+    "I2S_SAMPLE_BITS",
     "NTF_FORMS",
+    "OUTPUTS",
     "PIN_ORDERS",
     "PROGRAM_CHOICES",
     "SHAPER_NAMES",
@@ -71,6 +74,15 @@ PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
 
 #: OUT shift directions.
 SHIFTS = ("right", "left")
+
+#: Output systems a stream can be made for: an R-2R ladder on GPIOs, an I2S DAC or amplifier.
+OUTPUTS = ("ladder", "i2s")
+
+#: I2S frame formats (see :mod:`ladderpack.outputs.i2s`).
+FRAME_FORMATS = ("standard", "left-justified")
+
+#: I2S sample widths, each sent in a 32-bit slot.
+I2S_SAMPLE_BITS = (16, 24, 32)
 
 #: Pipeline stages reported to a ``progress`` callback, in order.
 STAGES = ("read", "resample", "quantise", "pack")

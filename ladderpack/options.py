@@ -16,7 +16,7 @@ Examples
 >>> StreamOptions(bits=20)
 Traceback (most recent call last):
 ...
-ladderpack.errors.OptionError: bits: must be a whole number 1..16, got 20
+ladderpack.errors.OptionError: bits: must be a whole number 1..16 for a ladder, got 20
 """
 
 from __future__ import annotations
@@ -32,7 +32,10 @@ from typing import Any, ClassVar
 from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
+    FRAME_FORMATS,
+    I2S_SAMPLE_BITS,
     NTF_FORMS,
+    OUTPUTS,
     PIN_ORDERS,
     PROGRAM_CHOICES,
     SHAPER_NAMES,
@@ -279,7 +282,20 @@ class StreamOptions(_Model):
         "Chip the bundle is for; sets the defaults of the system clock, GPIO count, flash and RAM.",
         choices=TARGET_NAMES,
     )
-    bits: int = _opt(8, "Ladder width N.", unit="bits", lo=1, hi=16)
+    output: str = _opt(
+        "ladder",
+        "How samples leave the chip: ladder (an R-2R ladder on N GPIOs) or i2s (an I2S "
+        "DAC or amplifier on three GPIOs).",
+        choices=OUTPUTS,
+    )
+    bits: int = _opt(
+        None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
+        "Sample width: the ladder's N (1..16), or the I2S sample (16, 24 or 32).",
+        unit="bits",
+        lo=1,
+        hi=32,
+        default_text="8 for a ladder, 16 for I2S",
+    )
     rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
     sys_clock_hz: int | None = _opt(
         None,
@@ -358,9 +374,23 @@ class StreamOptions(_Model):
     out_base: int = _opt(
         0,
         "Lowest GPIO of the ladder's N consecutive pins: the ladder's least significant "
-        "bit with --pin-order msb-high, its most significant bit with msb-low.",
+        "bit with --pin-order msb-high, its most significant bit with msb-low. For I2S, "
+        "the serial data pin.",
         unit="GPIO",
         lo=0,
+    )
+    clock_pin: int | None = _opt(
+        None,
+        "I2S only: GPIO of the bit clock; the word select (LR clock) is on the next GPIO.",
+        unit="GPIO",
+        lo=0,
+        default_text="out_base + 1",
+    )
+    frame_format: str = _opt(
+        "standard",
+        "I2S only: standard (MSB one bit clock after the word-select edge, Philips I2S) "
+        "or left-justified (MSB on the edge).",
+        choices=FRAME_FORMATS,
     )
     gpio_count: int | None = _opt(
         None,
@@ -441,7 +471,22 @@ class StreamOptions(_Model):
         "crossfade_ms",
     )
 
+    #: Options that only apply to a ladder, and to I2S.
+    LADDER_ONLY: ClassVar[tuple[str, ...]] = (
+        "levels",
+        "idle_code",
+        "ramp_ms",
+        "shift",
+        "pin_order",
+        "invert",
+        "program",
+        "samples_per_word",
+    )
+    I2S_ONLY: ClassVar[tuple[str, ...]] = ("clock_pin", "frame_format")
+
     def __post_init__(self) -> None:
+        if self.bits is None:
+            object.__setattr__(self, "bits", 16 if self.output == "i2s" else 8)
         self._check_fields()
         tgt = get_target(self.target)
         for name, value in (
@@ -452,6 +497,16 @@ class StreamOptions(_Model):
         ):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, value)
+        if self.output == "i2s":
+            self._check_i2s()
+            return
+        for name in self.I2S_ONLY:
+            if _flag_given(self, name):
+                raise OptionError("applies only to output i2s", field=name)
+        if self.bits > 16:
+            raise OptionError(
+                f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
+            )
         lv = self.levels
         if not (lv is None or isinstance(lv, str | os.PathLike) or hasattr(lv, "volts")):
             raise OptionError(
@@ -469,6 +524,33 @@ class StreamOptions(_Model):
                 f"32-bit word, got {self.samples_per_word}",
                 field="samples_per_word",
             )
+        self._check_common()
+        tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+
+    def _check_i2s(self) -> None:
+        """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
+        for name in self.LADDER_ONLY:
+            if _flag_given(self, name):
+                raise OptionError("applies only to output ladder", field=name)
+        if self.bits not in I2S_SAMPLE_BITS:
+            raise OptionError(
+                f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits"
+            )
+        if self.clock_pin is None:
+            object.__setattr__(self, "clock_pin", self.out_base + 1)
+        self._check_common()
+        pins = (self.out_base, int(self.clock_pin or 0), int(self.clock_pin or 0) + 1)
+        if self.out_base in pins[1:]:
+            raise OptionError(
+                f"the data pin GPIO {self.out_base} is also the bit clock or word select "
+                f"(GPIO {pins[1]} and {pins[2]})",
+                field="clock_pin",
+            )
+        lo, hi = min(pins), max(pins)
+        get_target(self.target).gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
+
+    def _check_common(self) -> None:
+        """Checks shared by every output."""
         if self.flash_reserve_bytes > int(self.flash_bytes or 0):
             raise OptionError(
                 f"reserve of {self.flash_reserve_bytes} bytes exceeds the flash size "
@@ -500,7 +582,6 @@ class StreamOptions(_Model):
                 f"applies only to the published sets {', '.join(PUBLISHED_SHAPERS)}",
                 field="force",
             )
-        tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
 
     @property
     def samples_per_word_max(self) -> int:
@@ -511,11 +592,25 @@ class StreamOptions(_Model):
     def gpio_base(self) -> int:
         """The PIO block's GPIO base that reaches the ladder's pins (0 or 16)."""
         tgt = get_target(self.target)
+        if self.output == "i2s":
+            pins = (self.out_base, int(self.clock_pin or 0), int(self.clock_pin or 0) + 1)
+            lo, hi = min(pins), max(pins)
+            return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
         return tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
 
     def to_dict(self) -> dict[str, Any]:
-        """Recorded options; a LevelSet or path is recorded by its file name only."""
+        """Recorded options; a LevelSet or path is recorded by its file name only.
+
+        A ladder stream records no output keys (its records are those of the versions
+        before other outputs existed); another output records its own and none of the
+        ladder's.
+        """
         out = super().to_dict()
+        drop = self.LADDER_ONLY if self.output != "ladder" else (*self.I2S_ONLY, "output")
+        for name in drop:
+            out.pop(name, None)
+        if self.output != "ladder":
+            return out
         lv = self.levels
         if lv is not None:
             if isinstance(lv, str | os.PathLike):

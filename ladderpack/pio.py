@@ -448,6 +448,10 @@ class StateMachineConfig:
     gpio_base : int
         The PIO block's GPIO base (0, or 16 for GPIO 32 and above on the
         RP2350B); PINCTRL's OUT_BASE is relative to it.
+    sideset_base : int, optional
+        First GPIO driven by side-set (None: the program has no side-set).
+    sideset_count : int
+        GPIOs driven by side-set.
     """
 
     clkdiv: int
@@ -458,6 +462,8 @@ class StateMachineConfig:
     out_count: int
     autopull: bool = True
     gpio_base: int = 0
+    sideset_base: int | None = None
+    sideset_count: int = 0
 
     def to_dict(self) -> dict[str, int | bool]:
         """Plain-data description."""
@@ -470,6 +476,11 @@ class StateMachineConfig:
             "out_count": self.out_count,
             "autopull": self.autopull,
             **({"gpio_base": self.gpio_base} if self.gpio_base else {}),
+            **(
+                {"sideset_base": self.sideset_base, "sideset_count": self.sideset_count}
+                if self.sideset_base is not None
+                else {}
+            ),
         }
 
 

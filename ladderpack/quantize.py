@@ -116,7 +116,7 @@ class CodeScale:
     Attributes
     ----------
     top : int
-        Highest code (at most 65535: codes are 16-bit).
+        Highest code (up to 65535 for a ladder or PWM; 2**32 - 1 for 32-bit I2S samples).
     half : float
         LSB from silence to full scale.
     """
@@ -126,9 +126,16 @@ class CodeScale:
 
     @classmethod
     def for_bits(cls, bits: int) -> CodeScale:
-        """An N-bit ladder: codes 0..2^N - 1, silence at 2^(N-1) (+1.0 clips by one LSB)."""
-        bits = check_bits(bits)
+        """N-bit codes (a ladder, 1..16, or an I2S sample, up to 32): codes 0..2^N - 1,
+        silence at 2^(N-1) (+1.0 clips by one LSB)."""
+        if isinstance(bits, bool) or not isinstance(bits, int) or not 1 <= bits <= 32:
+            raise OptionError(f"must be a whole number 1..32, got {bits!r}", field="bits")
         return cls((1 << bits) - 1, float(1 << (bits - 1)))
+
+    @property
+    def dtype(self) -> type[np.unsignedinteger]:
+        """The unsigned integer type that holds every code (uint16, or uint32 above)."""
+        return np.uint16 if self.top < 1 << 16 else np.uint32
 
     @classmethod
     def for_levels(cls, count: int) -> CodeScale:
@@ -386,10 +393,10 @@ class BlockQuantizer:
     ) -> None:
         from ladderpack.shaping import CATALOGUE
 
-        self.bits = check_bits(bits)
         if scale is not None and levels is not None:
             raise OptionError("give a code scale or true levels, not both", field="levels")
-        self.scale = CodeScale.for_bits(self.bits) if scale is None else scale
+        self.scale = CodeScale.for_bits(bits) if scale is None else scale
+        self.bits = check_bits(bits) if self.scale.top < 1 << 16 else int(bits)
         self.dither = DitherSource(dither, seed)
         self.shaper = CATALOGUE[shaper] if isinstance(shaper, str) else shaper
         self.b = np.asarray(self.shaper.b, dtype=np.float64)
@@ -407,7 +414,8 @@ class BlockQuantizer:
         self.resets = 0
 
     def feed(self, x: np.ndarray) -> np.ndarray:
-        """Quantise the next block of float samples; return its uint16 codes."""
+        """Quantise the next block of float samples; return its codes (uint16, or uint32
+        for codes wider than 16 bits)."""
         n = int(x.shape[0])
         d = self.dither.draw(n)
         r = 0
@@ -433,4 +441,4 @@ class BlockQuantizer:
                 )
         self.overloads += int(o)
         self.resets += int(r)
-        return out.astype(np.uint16)
+        return out.astype(self.scale.dtype)

@@ -37,6 +37,13 @@ from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
+from ladderpack.outputs.i2s import (
+    STREAM_SLOT_BITS,
+    I2sLayout,
+    i2s_program,
+    i2s_state_machine,
+    plan_i2s,
+)
 from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
     Program,
@@ -95,8 +102,9 @@ class StreamPlan:
     levels : LevelSet, optional
         The ladder's true levels, when quantising against them.
     clock : ClockPlan
-        Divider and cycles per sample; ``clock.achieved_rate_hz`` is the stream rate.
-    layout : WordLayout
+        Divider and cycles per sample (per frame, for I2S); ``clock.achieved_rate_hz``
+        is the stream rate.
+    layout : WordLayout or I2sLayout
         How codes pack into FIFO words.
     program : Program
         The state-machine program (its ``variant`` says which).
@@ -128,7 +136,7 @@ class StreamPlan:
     options: StreamOptions
     levels: LevelSet | None
     clock: ClockPlan
-    layout: WordLayout
+    layout: WordLayout | I2sLayout
     program: Program
     sm: StateMachineConfig
     shaper: Shaper
@@ -145,6 +153,20 @@ class StreamPlan:
     def rate_hz(self) -> float:
         """The stream's achieved rate, Hz."""
         return float(self.clock.achieved_rate_hz)
+
+    @property
+    def idle_code(self) -> int:
+        """The code held before and after the stream (silence, for I2S)."""
+        if isinstance(self.layout, I2sLayout):
+            return self.layout.mid_code
+        return self.options.idle_code
+
+    @property
+    def samples_per_word(self) -> int:
+        """Samples per word for whole-word lengths (1 for I2S: every frame is whole words)."""
+        if isinstance(self.layout, I2sLayout):
+            return 1
+        return self.layout.samples_per_word
 
 
 @dataclass
@@ -288,24 +310,37 @@ def plan_stream(
     opts = options
     ident = asset_identifier(name)
     levels = _plan_levels(opts)
-    layout = WordLayout(
-        opts.bits,
-        shift_right=opts.shift == "right",
-        per_word=opts.samples_per_word,
-        msb_high=opts.pin_order == "msb-high",
-        invert=opts.invert,
-    )
-    spw = layout.samples_per_word
-    variant = _program_variant(opts, spw)
-    clock = plan_clock(
-        opts.rate_hz,
-        sys_clock_hz=int(opts.sys_clock_hz or 0),
-        tolerance_ppm=opts.rate_tolerance_ppm,
-        min_cycles=min_cycles(variant),
-        max_cycles=max_cycles(variant, spw, opts.bits),
-    )
+    layout: WordLayout | I2sLayout
+    if opts.output == "i2s":
+        layout = I2sLayout(opts.bits)
+        spw, variant = 1, f"i2s-{opts.frame_format}"
+        clock = plan_i2s(
+            opts.rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            slot_bits=STREAM_SLOT_BITS,
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        ).clock
+        per_word: int | Fraction = Fraction(1, layout.words_per_frame)
+    else:
+        layout = WordLayout(
+            opts.bits,
+            shift_right=opts.shift == "right",
+            per_word=opts.samples_per_word,
+            msb_high=opts.pin_order == "msb-high",
+            invert=opts.invert,
+        )
+        spw = per_word = layout.samples_per_word
+        variant = _program_variant(opts, spw)
+        clock = plan_clock(
+            opts.rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            tolerance_ppm=opts.rate_tolerance_ppm,
+            min_cycles=min_cycles(variant),
+            max_cycles=max_cycles(variant, spw, opts.bits),
+        )
     rate = float(clock.achieved_rate_hz)
-    ramp = round(opts.ramp_ms * 1e-3 * rate)
+    # I2S idles at silence: the fades are the whole way in and out, no ramp from idle.
+    ramp = 0 if opts.output == "i2s" else round(opts.ramp_ms * 1e-3 * rate)
     if callable(frames):
         frames = frames(rate, spw)
     if rate_in_hz is None:
@@ -316,7 +351,7 @@ def plan_stream(
     words = layout.words_for(audio + 2 * max(ramp, 1)) + (3 if opts.loop else 0)
     budget = stream_budget(
         words,
-        samples_per_word=spw,
+        samples_per_word=per_word,
         rate_hz=clock.achieved_rate_hz,
         target=TargetProfile(
             int(opts.flash_bytes or 0), opts.flash_reserve_bytes, int(opts.ram_bytes or 0)
@@ -336,21 +371,33 @@ def plan_stream(
         )
     shaper = _shaper_for(opts, rate, band)
     predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=opts.weighting)
-    program = ladder_program(
-        opts.bits,
-        clock.cycles_per_sample,
-        variant=variant,
-        samples_per_word=spw,
-        name=f"{ident}_out",
-    )
-    sm = state_machine_config(
-        program,
-        layout,
-        clock,
-        out_base=opts.out_base,
-        gpio_count=int(opts.gpio_count or 0),
-        gpio_base=opts.gpio_base,
-    )
+    if isinstance(layout, I2sLayout):
+        program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
+        sm = i2s_state_machine(
+            program,
+            layout,
+            clock,
+            data_pin=opts.out_base,
+            clock_pin=int(opts.clock_pin or 0),
+            gpio_count=int(opts.gpio_count or 0),
+            gpio_base=opts.gpio_base,
+        )
+    else:
+        program = ladder_program(
+            opts.bits,
+            clock.cycles_per_sample,
+            variant=variant,
+            samples_per_word=spw,
+            name=f"{ident}_out",
+        )
+        sm = state_machine_config(
+            program,
+            layout,
+            clock,
+            out_base=opts.out_base,
+            gpio_count=int(opts.gpio_count or 0),
+            gpio_base=opts.gpio_base,
+        )
     return StreamPlan(
         ident,
         opts,
@@ -384,7 +431,7 @@ def _conformed(
         x = conform.loop_crossfade(
             Signal(src.whole() - mean, src.rate_hz), crossfade_ms=opts.crossfade_ms
         )
-        rate = conform.loop_rate(x.frames, x.rate_hz, rate_out, plan.layout.samples_per_word)
+        rate = conform.loop_rate(x.frames, x.rate_hz, rate_out, plan.samples_per_word)
         out.loop_rate_ppm = float((rate / rate_out - 1) * 1_000_000)
         x = conform.resample(x, rate, bits=opts.bits, periodic=True)
         x, out.gain_db = conform.normalise_peak(x, headroom_db=opts.headroom_db)
@@ -497,20 +544,20 @@ def process(
         The packed words (and the codes, when the input was one block).
     """
     done: Progress = progress or (lambda stage, share: None)
-    opts, lay = plan.options, plan.layout
-    out = Processed(Packed(np.zeros(0, np.uint32), lay, 0, opts.idle_code), None, None, None, 0)
+    opts, lay, idle = plan.options, plan.layout, plan.idle_code
+    out = Processed(Packed(np.zeros(0, np.uint32), lay, 0, idle), None, None, None, 0)  # type: ignore[arg-type]
     if isinstance(source, MonoSource):
         out.rate_in_hz = source.rate_hz
         keep = plan.block_frames >= source.frames
         audio_blocks: Iterator[np.ndarray] = _conformed(plan, source, out, done)
     else:
-        sig = check_signal(source(plan.rate_hz, lay.samples_per_word))
+        sig = check_signal(source(plan.rate_hz, plan.samples_per_word))
         keep = True
         audio_blocks = iter([np.asarray(sig.samples, dtype=np.float64)])
     q = BlockQuantizer(
         bits=opts.bits, dither=opts.dither, shaper=plan.shaper, seed=opts.seed, levels=plan.levels
     )
-    ramp = idle_ramp(opts.idle_code, opts.bits, plan.ramp_samples)
+    ramp = idle_ramp(idle, opts.bits, plan.ramp_samples).astype(q.scale.dtype)
     kept: list[np.ndarray] = []
 
     def quantised() -> Iterator[np.ndarray]:
@@ -526,20 +573,30 @@ def process(
 
     if opts.loop:
         out.codes = Codes(np.concatenate(list(quantised())), opts.bits)
-        out.packed = pack(out.codes, lay, pad_code=opts.idle_code)
-        out.intro, out.outro = _loop_ramps(ramp, lay, opts.idle_code)
+        if isinstance(lay, I2sLayout):
+            # I2S idles at silence, so a loop needs no ramps: no intro, and an outro of
+            # one silent frame for the state machine to end on.
+            out.packed = Packed(lay.pack_codes(out.codes.codes), lay, len(out.codes), idle)  # type: ignore[arg-type]
+            silent = lay.pack_codes(np.full(1, idle, q.scale.dtype))
+            out.intro = Packed(np.zeros(0, np.uint32), lay, 0, idle)  # type: ignore[arg-type]
+            out.outro = Packed(silent, lay, 1, idle)  # type: ignore[arg-type]
+        else:
+            out.packed = pack(out.codes, lay, pad_code=idle)
+            out.intro, out.outro = _loop_ramps(ramp, lay, idle)
     else:
         # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
         # sample closes it, a step no larger than the one from idle into its start.
-        tail = ramp[::-1] if ramp.size else np.full(1, opts.idle_code, np.uint16)
-        steps = _StepTracker(opts.idle_code)
-        words = list(
-            pack_blocks(steps.watch(_chain(ramp, quantised(), tail)), lay, pad_code=opts.idle_code)
-        )
+        tail = ramp[::-1] if ramp.size else np.full(1, idle, q.scale.dtype)
+        steps = _StepTracker(idle)
+        blocks = steps.watch(_chain(ramp, quantised(), tail))
+        if isinstance(lay, I2sLayout):  # every frame is whole words
+            words = [lay.pack_codes(b) for b in blocks]
+        else:
+            words = list(pack_blocks(blocks, lay, pad_code=idle))
         out.max_step = steps.largest()
         n = ramp.size + out.audio_samples + tail.size
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
-        out.packed = Packed(flat, lay, n, opts.idle_code)
+        out.packed = Packed(flat, lay, n, idle)  # type: ignore[arg-type]
         if keep:
             out.codes = Codes(np.concatenate([ramp, *kept, tail]), opts.bits)
     out.overloads, out.resets = q.overloads, q.resets
@@ -619,7 +676,7 @@ def finish(
     )
     budget = stream_budget(
         total,
-        samples_per_word=plan.layout.samples_per_word,
+        samples_per_word=plan.budget.samples_per_word,
         rate_hz=plan.clock.achieved_rate_hz,
         target=plan.budget.target,
         player_chunk_words=opts.chunk_words,
@@ -668,7 +725,7 @@ def finish(
         plan.clock,
         plan.program,
         plan.sm,
-        opts.idle_code,
+        plan.idle_code,
         source=dict(source or {}),
         options={"name": str(name), **opts.to_dict()},
         stats=stats,
