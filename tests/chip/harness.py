@@ -310,6 +310,7 @@ class Run:
     cycles: int
     ended: bool
     serial: list[tuple[int, str]] = field(default_factory=list)
+    changes: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
 
     def output(self) -> str:
         """Everything MicroPython printed."""
@@ -419,4 +420,5 @@ def run(
         cycles=d["cycles"],
         ended=d["ended"],
         serial=[tuple(s) for s in d.get("serial", [])],
+        changes=np.array(d.get("changes", []), dtype=np.int64).reshape(-1, 2),
     )

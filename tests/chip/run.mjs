@@ -95,7 +95,25 @@ function isOutPins(opcode) {
   return opcode >>> 13 === 0b011 && ((opcode >> 5) & 0x7) === 0;
 }
 
+// config.watch_pins: GPIOs whose every change is recorded as [cycle, value], bit k of
+// value the level of watch_pins[k] (serial outputs such as I2S); OUT PINS samples are
+// then not recorded.
+const watch = config.watch_pins || null;
+const changes = [];
+let watched = -1;
+function watchPins() {
+  let v = 0;
+  for (let k = 0; k < watch.length; k++) {
+    if (mcu.gpio[watch[k]].outputValue) v |= 1 << k;
+  }
+  if (v !== watched) {
+    watched = v;
+    changes.push(cycle, v);
+  }
+}
+
 function record(pioIndex, sm) {
+  if (watch) return;
   const key = `${pioIndex}.${sm.index}`;
   sm.pio.checkChangedPins();
   (samples[key] ||= []).push([cycle, pinWord()]);
@@ -163,6 +181,10 @@ function tickPIO() {
       if (cycle === sm.nextEnable) {
         clockMachine(p, sm);
         sm.nextEnable = cycle + divider(sm);
+        if (watch) {
+          pio.checkChangedPins();
+          watchPins();
+        }
       }
     }
   }
@@ -254,6 +276,7 @@ process.stdout.write(
     samples,
     final_pins: pinWord(),
     final_oe: oeWord(),
+    changes,
     cycles: cycle,
     ended: endedAt >= 0,
     serial,

@@ -1,0 +1,250 @@
+"""I2S streams on the emulated chip: the bundle's C player built with the real SDK.
+
+Firmware is compiled from the bundle's ``ladderpack_i2s.c`` and asset sources with CMake,
+arm-none-eabi-gcc and the vendor SDK 2.2.0 (warnings as errors on our files), and run on
+rp2040js with the state machines clocked by the harness's cycle-accurate schedule
+(``tests/chip/run.mjs``), which records every change of the data, bit-clock and
+word-select pins. The test's own decoder (below) samples data and word select on each
+rising bit-clock edge and cuts the bits into slots at the word-select edges, as a
+receiver does: in the standard format the slot's MSB is one bit clock after the edge
+(Philips Semiconductors, "I2S bus specification", 1986, revised 1996: from memory, as
+the module notes), in the left-justified format on it. Every sample of both slots is
+compared with the words of the ``.bin``, decoded here from the sidecar's description,
+and the frame period with the plan in system clocks (RP2040 datasheet 3.5.5: a state
+machine runs once every INT + FRAC/256 clocks; 128 state-machine cycles per frame).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from ladderpack.bundle import write_bundle
+from ladderpack.stream import stream_tone
+from tests.chip.harness import Firmware, run
+
+pytestmark = pytest.mark.slow
+
+DATA, CLOCK = 2, 3  # GPIO of the serial data and the bit clock (word select on 4)
+
+
+@pytest.fixture(scope="module")
+def fw(tmp_path_factory: pytest.TempPathFactory) -> Firmware:
+    return Firmware(tmp_path_factory.mktemp("fw_i2s"))
+
+
+@dataclass
+class Expected:
+    """What the bundle says should come out: both slots of every frame, and the clock."""
+
+    name: str
+    bits: int
+    left: np.ndarray  # two's complement sample values
+    right: np.ndarray
+    period_clocks: float
+    frame_format: str
+
+    @classmethod
+    def load(cls, folder: Path, name: str) -> Expected:
+        side = json.loads((folder / f"{name}.json").read_text())
+        bits, clk = side["layout"]["bits"], side["clock"]
+        w = np.frombuffer((folder / f"{name}.bin").read_bytes(), "<u4").astype(np.int64)
+        if bits == 16:  # left in bits 31:16, right in 15:0 (sidecar: sample_order)
+            left, right = w >> 16, w & 0xFFFF
+        else:  # a word a slot, the sample in the top bits
+            left, right = w[0::2] >> (32 - bits), w[1::2] >> (32 - bits)
+        sign = 1 << (bits - 1)
+        return cls(
+            name,
+            bits,
+            (left ^ sign) - sign,
+            (right ^ sign) - sign,
+            128 * (clk["div_int"] + clk["div_frac"] / 256),
+            side["options"]["frame_format"],
+        )
+
+
+def decode_i2s(changes: np.ndarray, frame_format: str) -> tuple[np.ndarray, np.ndarray]:
+    """Slots from the recorded pin changes: (values as 32-bit words, start cycles), with
+    the channel (0 left, 1 right) in the values' array's second column.
+
+    `changes` rows are (cycle, levels): bit 0 data, bit 1 bit clock, bit 2 word select.
+    """
+    cyc, v = changes[:, 0], changes[:, 1]
+    bclk = (v >> 1) & 1
+    rise = np.flatnonzero((bclk[1:] == 1) & (bclk[:-1] == 0)) + 1
+    if bclk[0] == 1:
+        rise = np.concatenate([[0], rise])
+    data, ws, t = v[rise] & 1, (v[rise] >> 2) & 1, cyc[rise]
+    # word-select edges; before the first bit the line is taken as the other channel in
+    # the standard format (the transmitter starts on an edge), else as the first level
+    before = 1 - ws[0] if frame_format == "standard" else ws[0]
+    edges = np.flatnonzero(np.diff(np.concatenate([[before], ws])) != 0)
+    starts = edges + (1 if frame_format == "standard" else 0)
+    slots, times = [], []
+    for s in starts:
+        if s + 32 > data.size:
+            break  # the clock stopped: an unfinished slot
+        word = 0
+        for b in data[s : s + 32]:
+            word = (word << 1) | int(b)
+        # the word select belongs to the slot from its MSB to the bit before its LSB
+        slots.append((word, int(ws[s])))
+        times.append(int(t[s]))
+    return np.array(slots, dtype=np.int64).reshape(-1, 2), np.array(times, dtype=np.int64)
+
+
+def frames_of(slots: np.ndarray, times: np.ndarray, bits: int) -> tuple[np.ndarray, ...]:
+    """(left, right, left-slot start cycles) of whole frames, samples as signed values."""
+    assert slots.shape[0] % 2 == 0 or slots[-1, 1] == 0
+    n = slots.shape[0] // 2
+    pairs = slots[: 2 * n].reshape(n, 2, 2)
+    assert np.all(pairs[:, 0, 1] == 0) and np.all(pairs[:, 1, 1] == 1), "left, then right"
+    words = pairs[:, :, 0]
+    pad = (1 << (32 - bits)) - 1
+    assert np.all(words & pad == 0), "bits below the sample are zero"
+    vals = words >> (32 - bits)
+    sign = 1 << (bits - 1)
+    vals = (vals ^ sign) - sign
+    return vals[:, 0], vals[:, 1], times[: 2 * n : 2]
+
+
+def app(name: str, ops: list[tuple[str, int]]) -> str:
+    """A main program playing the asset through the I2S player; each op's result is
+    written to the mailbox the harness watches (op << 24 | index << 8 | result)."""
+    codes = {"init": 1, "start": 2, "wait": 3, "delay": 4, "stop": 5, "deinit": 6, "request": 7}
+    body = []
+    for i, (op, arg) in enumerate(ops):
+        call = {
+            "init": "rc = lp_i2s_init(&player, &stream, pio0);",
+            "start": f"rc = lp_i2s_start(&player, {'true' if arg else 'false'});",
+            "wait": "while (lp_i2s_busy(&player)) { tight_loop_contents(); }",
+            "delay": f"busy_wait_at_least_cycles({arg}u);",
+            "stop": "rc = lp_i2s_stop(&player);",
+            "request": "rc = lp_i2s_request_stop(&player);",
+            "deinit": "lp_i2s_deinit(&player);",
+        }[op]
+        body.append(f"    rc = 0; {call} report({codes[op]}u, {i}u, rc);")
+    return f"""\
+#include <stdbool.h>
+#include <stdint.h>
+#include "hardware/pio.h"
+#include "pico/stdlib.h"
+#include "ladderpack_i2s.h"
+#include "{name}.h"
+
+volatile uint32_t lp_test_mailbox;
+static lp_i2s_player_t player;
+static const lp_i2s_stream_t stream = {name.upper()}_I2S_INIT;
+
+static void report(uint32_t op, uint32_t index, int rc) {{
+    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
+}}
+
+int main(void) {{
+    int rc;
+{chr(10).join(body)}
+    report(0x7Fu, 0u, 0);
+    for (;;) {{
+        tight_loop_contents();
+    }}
+}}
+"""
+
+
+def build_and_run(fw: Firmware, folder: Path, name: str, ops: list[tuple[str, int]], **kw):
+    image = fw.make(folder, [], [], app=app(name, ops))
+    return run(image, fw.mailbox(), extra={"watch_pins": [DATA, CLOCK, CLOCK + 1]}, **kw)
+
+
+def make(folder: Path, name: str, **opts: object) -> Expected:
+    base: dict[str, object] = {
+        "output": "i2s",
+        "freq_hz": 1000.0,
+        "seconds": 0.004,
+        "rate_hz": 22050.0,
+        "out_base": DATA,
+        "clock_pin": CLOCK,
+    }
+    base.update(opts)
+    if "cycles" in opts:
+        base.pop("seconds")
+    write_bundle(stream_tone("sine", name=name, **base), folder)
+    return Expected.load(folder, name)
+
+
+def assert_period(times: np.ndarray, exp: Expected) -> None:
+    gaps = np.diff(times)
+    if exp.period_clocks.is_integer():
+        assert np.all(gaps == exp.period_clocks), np.unique(gaps)
+    else:  # fractional divider: the frame period dithers by a clock, exact on average
+        assert gaps.min() >= np.floor(exp.period_clocks) - 1
+        assert gaps.max() <= np.ceil(exp.period_clocks) + 1
+        assert abs((times[-1] - times[0]) - exp.period_clocks * gaps.size) <= 1.0
+
+
+@pytest.mark.parametrize(
+    ("bits", "frame_format", "rate_hz"),
+    [
+        (16, "standard", 22050.0),
+        (24, "standard", 48828.125),  # 125 MHz / (20 x 128): an integer divider
+        (32, "left-justified", 22050.0),
+        (16, "left-justified", 48828.125),
+    ],
+)
+def test_every_frame_reaches_the_lines(
+    fw: Firmware, tmp_path: Path, bits: int, frame_format: str, rate_hz: float
+) -> None:
+    exp = make(tmp_path, "chirp", bits=bits, frame_format=frame_format, rate_hz=rate_hz)
+    r = build_and_run(fw, tmp_path, "chirp", [("init", 0), ("start", 0), ("wait", 0)])
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t = frames_of(slots, times, bits)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert np.array_equal(left, right)  # mono: the sample in both slots
+    assert_period(t, exp)
+    assert left[-1] == 0  # the stream ends on silence
+
+
+def test_a_stopped_stream_fades_out_to_silence(fw: Firmware, tmp_path: Path) -> None:
+    exp = make(tmp_path, "hum", bits=24, seconds=0.02, freq_hz=440.0)
+    # stop about a third of the way in: 150 frames of 5669 system clocks
+    ops = [("init", 0), ("start", 0), ("delay", 150 * 5669), ("stop", 0)]
+    r = build_and_run(fw, tmp_path, "hum", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, _t = frames_of(slots, times, 24)
+    n = 0
+    while n < left.size and left[n] == exp.left[n]:
+        n += 1
+    assert 100 < n < exp.left.size - 100, n  # cut short, well inside the stream
+    fade = left[n:]
+    assert fade.size <= 64 + 1 and fade[-1] == 0 and right[-1] == 0
+    assert np.all(np.abs(np.diff(np.abs(fade))) <= np.abs(exp.left[n - 1]) + 1)
+    assert np.all(np.abs(fade[1:]) <= np.abs(fade[:-1]) + 1)  # never grows
+
+
+def test_a_loop_repeats_until_stopped_then_ends_on_a_pass(fw: Firmware, tmp_path: Path) -> None:
+    exp = make(tmp_path, "drone", bits=16, loop=True, cycles=20, freq_hz=2205.0)
+    frames = exp.left.size
+    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * frames * 5669)), ("stop", 0)]
+    r = build_and_run(fw, tmp_path, "drone", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, _right, t = frames_of(slots, times, 16)
+    passes, rest = divmod(left.size - 1, frames)  # the outro: one silent frame
+    assert rest == 0 and passes >= 3, (left.size, frames)
+    assert np.array_equal(left[:-1], np.tile(exp.left, passes)) and left[-1] == 0
+    assert_period(t, exp)
+
+
+def test_the_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> None:
+    folder = tmp_path_factory.mktemp("i2s2350")
+    make(folder, "tick", bits=32, target="rp2350")
+    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_i2s"), platform="rp2350")
+    image = fw2350.make(folder, [], [], app=app("tick", [("init", 0), ("start", 0)]))
+    assert image.stat().st_size > 0
