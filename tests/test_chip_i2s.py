@@ -248,3 +248,72 @@ def test_the_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) 
     fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_i2s"), platform="rp2350")
     image = fw2350.make(folder, [], [], app=app("tick", [("init", 0), ("start", 0)]))
     assert image.stat().st_size > 0
+
+
+# --- the MicroPython player, on the vendored MicroPython image ----------------------------
+
+
+def board_files(folder: Path, name: str, *, embed: bool, **opts: object) -> tuple[Expected, dict]:
+    from ladderpack.bundle import bundle_files
+
+    base: dict[str, object] = {
+        "output": "i2s",
+        "freq_hz": 1000.0,
+        "seconds": 0.01,
+        "rate_hz": 22050.0,
+        "out_base": DATA,
+        "clock_pin": CLOCK,
+        "chunk_words": 64,  # several buffers; 64 frames last 2.9 ms at 22.05 kHz
+    }
+    base.update(opts)
+    files = bundle_files(
+        stream_tone("sine", name=name, **base), embed_words_max=100_000 if embed else 0
+    )
+    for fname, data in files.items():
+        (folder / fname).write_bytes(data)
+    board = {f"{name}.py": files[f"{name}.py"], f"{name}.bin": files[f"{name}.bin"]}
+    return Expected.load(folder, name), board
+
+
+@pytest.mark.parametrize("embed", [False, True], ids=["file", "embedded"])
+@pytest.mark.parametrize(("bits", "frame_format"), [(16, "standard"), (24, "left-justified")])
+def test_micropython_plays_every_frame(
+    tmp_path: Path, embed: bool, bits: int, frame_format: str
+) -> None:
+    from tests.chip.harness import run_micropython
+
+    exp, files = board_files(
+        tmp_path, "ping", embed=embed, bits=bits, frame_format=frame_format
+    )
+    r = run_micropython(
+        files,
+        [{"code": "import ping\nping.play()\n"}],
+        tmp_path,
+        watch_pins=[DATA, CLOCK, CLOCK + 1],
+    )
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t = frames_of(slots, times, bits)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert_period(t, exp)
+
+
+def test_micropython_interrupted_stream_fades_out(tmp_path: Path) -> None:
+    from tests.chip.harness import run_micropython
+
+    exp, files = board_files(tmp_path, "buzz", embed=False, bits=16, seconds=0.05)
+    steps = [
+        {"code": "import buzz\np = buzz.Player()\n"},
+        {"code": "p.play()\n", "interrupt_after": 2_500_000},  # 20 ms in
+    ]
+    r = run_micropython(files, steps, tmp_path, watch_pins=[DATA, CLOCK, CLOCK + 1])
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, _right, _t = frames_of(slots, times, 16)
+    n = 0
+    while n < left.size and left[n] == exp.left[n]:
+        n += 1
+    assert 0 < n < exp.left.size - 64, (n, exp.left.size)
+    fade = left[n:]
+    assert 0 < fade.size <= 64 + 1 and fade[-1] == 0
+    assert np.all(np.abs(fade[1:]) <= np.abs(fade[:-1]) + 1)

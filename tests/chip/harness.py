@@ -362,6 +362,7 @@ def run_micropython(
     folder: Path,
     *,
     max_cycles: int = 400_000_000,
+    watch_pins: list[int] | None = None,
 ) -> Run:
     """Boot the vendored MicroPython image with `files` on its filesystem and run each
     step's code through the raw REPL over USB CDC (``interrupt_after``: Ctrl-C that many
@@ -375,6 +376,7 @@ def run_micropython(
             "fs_image": str(fs_image(files, folder / "fs.img")),
             "fs_offset": FS_OFFSET,
             "repl": steps,
+            **({"watch_pins": watch_pins} if watch_pins else {}),
         },
         config_dir=folder,
     )
