@@ -42,9 +42,9 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
     if _is_i2s(asset):
-        files = {k: _bytes(v) for k, v in _i2s_parts(asset, embed_words_max).items()}
-        files[f"{n}.json"] = sidecar.render(asset, files).encode()
-        return files
+        made = {k: _bytes(v) for k, v in _i2s_parts(asset, embed_words_max).items()}
+        made[f"{n}.json"] = sidecar.render(asset, made).encode()
+        return made
     files: dict[str, bytes] = {
         f"{n}.bin": binary.render(asset.packed),
         f"{n}.h": c.render_header(asset).encode(),

@@ -292,8 +292,6 @@ class StreamOptions(_Model):
         None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
         "Sample width: the ladder's N (1..16), or the I2S sample (16, 24 or 32).",
         unit="bits",
-        lo=1,
-        hi=32,
         default_text="8 for a ladder, 16 for I2S",
     )
     rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
@@ -503,7 +501,7 @@ class StreamOptions(_Model):
         for name in self.I2S_ONLY:
             if _flag_given(self, name):
                 raise OptionError("applies only to output i2s", field=name)
-        if self.bits > 16:
+        if not 1 <= self.bits <= 16:
             raise OptionError(
                 f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
             )
@@ -533,9 +531,7 @@ class StreamOptions(_Model):
             if _flag_given(self, name):
                 raise OptionError("applies only to output ladder", field=name)
         if self.bits not in I2S_SAMPLE_BITS:
-            raise OptionError(
-                f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits"
-            )
+            raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits")
         if self.clock_pin is None:
             object.__setattr__(self, "clock_pin", self.out_base + 1)
         self._check_common()

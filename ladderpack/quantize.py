@@ -126,8 +126,10 @@ class CodeScale:
 
     @classmethod
     def for_bits(cls, bits: int) -> CodeScale:
-        """N-bit codes (a ladder, 1..16, or an I2S sample, up to 32): codes 0..2^N - 1,
-        silence at 2^(N-1) (+1.0 clips by one LSB)."""
+        """N-bit codes: codes 0..2^N - 1, silence at 2^(N-1) (+1.0 clips by one LSB).
+
+        A ladder is 1..16 bits wide, an I2S sample up to 32.
+        """
         if isinstance(bits, bool) or not isinstance(bits, int) or not 1 <= bits <= 32:
             raise OptionError(f"must be a whole number 1..32, got {bits!r}", field="bits")
         return cls((1 << bits) - 1, float(1 << (bits - 1)))
@@ -414,8 +416,10 @@ class BlockQuantizer:
         self.resets = 0
 
     def feed(self, x: np.ndarray) -> np.ndarray:
-        """Quantise the next block of float samples; return its codes (uint16, or uint32
-        for codes wider than 16 bits)."""
+        """Quantise the next block of float samples; return its codes.
+
+        The codes are uint16, or uint32 for codes wider than 16 bits.
+        """
         n = int(x.shape[0])
         d = self.dither.draw(n)
         r = 0

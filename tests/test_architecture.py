@@ -28,7 +28,8 @@ LAYERS: dict[int, set[str]] = {
     3: {"asset"},
     4: {
         "emit", "emit.binary", "emit.c", "emit.micropython", "emit.pioasm",
-        "emit.player_c", "emit.sidecar", "emit.sweep", "emit.table",
+        "emit.player_c", "emit.sidecar", "emit.sweep", "emit.table", "emit.i2s",
+        "emit.player_i2s", "emit.micropython_i2s",
     },
     5: {"bundle", "stream", "tables", "demo"},
     6: {"build"},

@@ -282,9 +282,7 @@ def test_micropython_plays_every_frame(
 ) -> None:
     from tests.chip.harness import run_micropython
 
-    exp, files = board_files(
-        tmp_path, "ping", embed=embed, bits=bits, frame_format=frame_format
-    )
+    exp, files = board_files(tmp_path, "ping", embed=embed, bits=bits, frame_format=frame_format)
     r = run_micropython(
         files,
         [{"code": "import ping\nping.play()\n"}],

@@ -118,9 +118,7 @@ def render_header(asset: StreamAsset) -> str:
         f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
     ]
     if asset.loop:
-        lines.append(
-            f"extern const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT];"
-        )
+        lines.append(f"extern const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT];")
     lines += ["", *_init_macro(asset), "", f"#endif /* {guard} */", ""]
     return "\n".join(lines)
 

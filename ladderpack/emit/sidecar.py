@@ -50,7 +50,9 @@ def render(
             "words": list(asset.program.words),
             "wrap_target": asset.program.wrap_target,
             "wrap": asset.program.wrap,
-            **({"entry": len(asset.program.words) - 1} if asset.sm.sideset_base is not None else {}),
+            **(
+                {"entry": len(asset.program.words) - 1} if asset.sm.sideset_base is not None else {}
+            ),
         },
         "state_machine": asset.sm.to_dict(),
         "stream": {
