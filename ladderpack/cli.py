@@ -31,14 +31,17 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         if summary["fractional_divider"]
         else "integer, no jitter"
     )
-    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {summary['bits']}-bit")
+    i2s = str(summary.get("program", "")).startswith("i2s")
+    unit = "frame" if i2s else "sample"  # an I2S frame: the sample in both channel slots
+    kind = " I2S, in both channels" if i2s else ""
+    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {summary['bits']}-bit{kind}")
     click.echo(f"  rate     {rate_line}")
     click.echo(
         f"  divider  {summary['divider']} ({jitter}), "
-        f"{summary['cycles_per_sample']} cycle(s) per sample"
+        f"{summary['cycles_per_sample']} cycle(s) per {unit}"
     )
     click.echo(
-        f"  stream   {summary['samples']} samples, {summary['words']} words, "
+        f"  stream   {summary['samples']} {unit}s, {summary['words']} words, "
         f"{summary['bytes']} bytes"
     )
     if "overloads" in summary:
