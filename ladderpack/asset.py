@@ -8,12 +8,13 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
-from typing import Any, TypedDict
+from typing import Any, NotRequired, TypedDict
 
 import numpy as np
 
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
+from ladderpack.outputs.pwm import PwmPlan, PwmSetup
 from ladderpack.pack import Packed, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
@@ -47,6 +48,7 @@ class StreamSummary(TypedDict):
     loop: bool
     flash_share: float | None
     max_duration_s: float | None
+    pwm: NotRequired[dict[str, Any]]
 
 
 @dataclass(frozen=True)
@@ -65,12 +67,12 @@ class StreamAsset:
         the codes).
     packed : Packed
         FIFO words.
-    plan : ClockPlan
-        Clock divider and cycles per sample.
-    program : Program
-        State-machine program.
-    sm : StateMachineConfig
-        State-machine register values.
+    plan : ClockPlan or PwmPlan
+        Clock divider and cycles per sample (a PWM slice's divider, TOP and periods).
+    program : Program or None
+        State-machine program (None for PWM).
+    sm : StateMachineConfig or None
+        State-machine register values (None for PWM).
     idle_code : int
         Code the pins hold before and after the stream.
     source : dict
@@ -88,14 +90,16 @@ class StreamAsset:
     levels_volts : numpy.ndarray, optional
         The level of every code (volts) of the LevelSet the stream was made with
         (``--levels``), embedded for the players' code-for-a-voltage calls.
+    pwm : PwmSetup, optional
+        A PWM stream's slice, pin and DMA pacing.
     """
 
     name: str
     codes: Codes | None
     packed: Packed
-    plan: ClockPlan
-    program: Program
-    sm: StateMachineConfig
+    plan: ClockPlan | PwmPlan
+    program: Program | None
+    sm: StateMachineConfig | None
     idle_code: int
     source: dict[str, Any] = field(default_factory=dict)
     options: dict[str, Any] = field(default_factory=dict)
@@ -104,6 +108,7 @@ class StreamAsset:
     outro: Packed | None = None
     budget: Budget | None = None
     levels_volts: np.ndarray | None = None
+    pwm: PwmSetup | None = None
 
     @functools.cached_property
     def max_step(self) -> int:
@@ -154,6 +159,11 @@ class StreamAsset:
         """Playing time at the achieved rate, in seconds."""
         return self.sample_count / float(self.plan.achieved_rate_hz)
 
+    @property
+    def _pwm_plan(self) -> PwmPlan:
+        assert isinstance(self.plan, PwmPlan)
+        return self.plan
+
     def summary(self) -> StreamSummary:
         """The short human summary as plain data (also the ``--json`` output)."""
         return {
@@ -163,9 +173,11 @@ class StreamAsset:
             "requested_rate_hz": float(self.plan.requested_rate_hz),
             "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
             "rate_error_ppm": round(self.plan.error_ppm, 3),
-            "divider": f"{self.plan.div_int}+{self.plan.div_frac}/256",
+            "divider": self.plan.divider_text,
             "fractional_divider": self.plan.fractional,
-            "cycles_per_sample": self.plan.cycles_per_sample,
+            "cycles_per_sample": (
+                self.plan.cycles_per_sample if isinstance(self.plan, ClockPlan) else 0
+            ),
             "samples": self.sample_count,
             "words": self.word_count,
             "bytes": self.byte_count,
@@ -176,10 +188,26 @@ class StreamAsset:
             "loudness": self.stats.get("loudness"),
             "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
             "warnings": list(self.stats.get("warnings", [])),
-            "program": self.program.variant,
+            "program": self.program.variant if self.program else f"pwm-{self._pwm_plan.pacing}",
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
+            **(
+                {
+                    "pwm": {
+                        "carrier_hz": round(float(self._pwm_plan.carrier_hz), 3),
+                        "levels": self._pwm_plan.levels,
+                        "effective_bits": round(self._pwm_plan.effective_bits, 3),
+                        "top": self._pwm_plan.top,
+                        "periods_per_sample": self._pwm_plan.periods_per_sample,
+                        "pacing": self._pwm_plan.pacing,
+                        "pin": self.pwm.pin,
+                        "slice": self.pwm.slice,
+                    }
+                }
+                if self.pwm is not None
+                else {}
+            ),
         }
 
 

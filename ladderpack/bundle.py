@@ -41,8 +41,8 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
-    if _is_i2s(asset):
-        made = {k: _bytes(v) for k, v in _i2s_parts(asset, embed_words_max).items()}
+    if _is_i2s(asset) or asset.pwm is not None:
+        made = {k: _bytes(v) for k, v in _output_parts(asset, embed_words_max).items()}
         made[f"{n}.json"] = sidecar.render(asset, made).encode()
         return made
     files: dict[str, bytes] = {
@@ -72,9 +72,9 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
-    if _is_i2s(asset):
+    if _is_i2s(asset) or asset.pwm is not None:
         return {
-            **_i2s_parts(asset, embed_words_max),
+            **_output_parts(asset, embed_words_max),
             f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
         }
     return {
@@ -99,18 +99,26 @@ def _bytes(content: Any) -> bytes:
     return content if isinstance(content, bytes) else b"".join(content)
 
 
-def _i2s_parts(asset: StreamAsset, embed_words_max: int) -> dict[str, Any]:
-    """The files of an I2S stream but its sidecar (large ones as byte chunks)."""
-    from ladderpack.emit import binary, i2s, micropython_i2s, player_i2s
+def _output_parts(asset: StreamAsset, embed_words_max: int) -> dict[str, Any]:
+    """The files of an I2S or PWM stream but its sidecar (large ones as byte chunks)."""
+    from ladderpack.emit import binary, i2s, micropython_i2s, player_i2s, player_pwm, pwm
 
     n = asset.name
+    embed = asset.word_count <= embed_words_max
+    if asset.pwm is not None:
+        return {
+            f"{n}.bin": binary.render_chunks(asset.packed),
+            f"{n}.h": pwm.render_header(asset).encode(),
+            f"{n}.c": pwm.render_source_chunks(asset),
+            f"{n}.py": pwm.render_micropython(asset, embed=embed).encode(),
+            player_pwm.HEADER_NAME: player_pwm.render_header().encode(),
+            player_pwm.SOURCE_NAME: player_pwm.render_source().encode(),
+        }
     return {
         f"{n}.bin": binary.render_chunks(asset.packed),
         f"{n}.h": i2s.render_header(asset).encode(),
         f"{n}.c": i2s.render_source_chunks(asset),
-        f"{n}.py": micropython_i2s.render(
-            asset, embed=asset.word_count <= embed_words_max
-        ).encode(),
+        f"{n}.py": micropython_i2s.render(asset, embed=embed).encode(),
         f"{n}.pio": i2s.render_pio(asset).encode(),
         player_i2s.HEADER_NAME: player_i2s.render_header().encode(),
         player_i2s.SOURCE_NAME: player_i2s.render_source().encode(),

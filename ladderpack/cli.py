@@ -32,14 +32,29 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         else "integer, no jitter"
     )
     i2s = str(summary.get("program", "")).startswith("i2s")
+    pwm = summary.get("pwm")
     unit = "frame" if i2s else "sample"  # an I2S frame: the sample in both channel slots
-    kind = " I2S, in both channels" if i2s else ""
-    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {summary['bits']}-bit{kind}")
+    if pwm:
+        kind = (
+            f"PWM on GPIO {pwm['pin']} (slice {pwm['slice']}), {pwm['levels']} levels "
+            f"({pwm['effective_bits']:.2f} bits)"
+        )
+    else:
+        kind = f"{summary['bits']}-bit" + (" I2S, in both channels" if i2s else "")
+    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {kind}")
     click.echo(f"  rate     {rate_line}")
-    click.echo(
-        f"  divider  {summary['divider']} ({jitter}), "
-        f"{summary['cycles_per_sample']} cycle(s) per {unit}"
-    )
+    if pwm:
+        pacing = "the slice's wrap" if pwm["pacing"] == "wrap" else "a DMA pacing timer"
+        click.echo(
+            f"  divider  {summary['divider']} ({jitter}), TOP {pwm['top']}, carrier "
+            f"{pwm['carrier_hz']:.0f} Hz, {pwm['periods_per_sample']} PWM period(s) per "
+            f"sample, paced by {pacing}"
+        )
+    else:
+        click.echo(
+            f"  divider  {summary['divider']} ({jitter}), "
+            f"{summary['cycles_per_sample']} cycle(s) per {unit}"
+        )
     click.echo(
         f"  stream   {summary['samples']} {unit}s, {summary['words']} words, "
         f"{summary['bytes']} bytes"

@@ -72,6 +72,11 @@ class ClockPlan:
         return self.sm_clock_hz / self.cycles_per_sample
 
     @property
+    def divider_text(self) -> str:
+        """The divider as the summary prints it, ``INT+FRAC/256``."""
+        return f"{self.div_int}+{self.div_frac}/256"
+
+    @property
     def error_ppm(self) -> float:
         """Achieved rate minus requested, in parts per million of the request."""
         return float(

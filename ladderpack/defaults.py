@@ -75,8 +75,9 @@ PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
 #: OUT shift directions.
 SHIFTS = ("right", "left")
 
-#: Output systems a stream can be made for: an R-2R ladder on GPIOs, an I2S DAC or amplifier.
-OUTPUTS = ("ladder", "i2s")
+#: Output systems a stream can be made for: an R-2R ladder on GPIOs, an I2S DAC or
+#: amplifier, a PWM slice on one pin.
+OUTPUTS = ("ladder", "i2s", "pwm")
 
 #: I2S frame formats (see :mod:`ladderpack.outputs.i2s`).
 FRAME_FORMATS = ("standard", "left-justified")

@@ -284,13 +284,14 @@ class StreamOptions(_Model):
     )
     output: str = _opt(
         "ladder",
-        "How samples leave the chip: ladder (an R-2R ladder on N GPIOs) or i2s (an I2S "
-        "DAC or amplifier on three GPIOs).",
+        "How samples leave the chip: ladder (an R-2R ladder on N GPIOs), i2s (an I2S DAC "
+        "or amplifier on three GPIOs) or pwm (a PWM slice on one GPIO, through an RC filter).",
         choices=OUTPUTS,
     )
     bits: int = _opt(
         None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
-        "Sample width: the ladder's N (1..16), or the I2S sample (16, 24 or 32).",
+        "Sample width: the ladder's N (1..16), or the I2S sample (16, 24 or 32); PWM's "
+        "resolution follows from its plan.",
         unit="bits",
         default_text="8 for a ladder, 16 for I2S",
     )
@@ -383,6 +384,14 @@ class StreamOptions(_Model):
         unit="GPIO",
         lo=0,
         default_text="out_base + 1",
+    )
+    min_carrier_hz: float | None = _opt(
+        None,
+        "PWM only: lowest acceptable PWM frequency (the carrier).",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="4 x the rate",
     )
     frame_format: str = _opt(
         "standard",
@@ -481,10 +490,16 @@ class StreamOptions(_Model):
         "samples_per_word",
     )
     I2S_ONLY: ClassVar[tuple[str, ...]] = ("clock_pin", "frame_format")
+    PWM_ONLY: ClassVar[tuple[str, ...]] = ("min_carrier_hz",)
 
     def __post_init__(self) -> None:
         if self.bits is None:
-            object.__setattr__(self, "bits", 16 if self.output == "i2s" else 8)
+            object.__setattr__(self, "bits", 8 if self.output == "ladder" else 16)
+        elif self.output == "pwm":
+            raise OptionError(
+                "does not apply to output pwm (its levels follow from the plan: TOP + 2)",
+                field="bits",
+            )
         self._check_fields()
         tgt = get_target(self.target)
         for name, value in (
@@ -495,12 +510,18 @@ class StreamOptions(_Model):
         ):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, value)
+        for name in self.PWM_ONLY if self.output != "pwm" else ():
+            if _flag_given(self, name):
+                raise OptionError("applies only to output pwm", field=name)
+        for name in self.I2S_ONLY if self.output != "i2s" else ():
+            if _flag_given(self, name):
+                raise OptionError("applies only to output i2s", field=name)
         if self.output == "i2s":
             self._check_i2s()
             return
-        for name in self.I2S_ONLY:
-            if _flag_given(self, name):
-                raise OptionError("applies only to output i2s", field=name)
+        if self.output == "pwm":
+            self._check_pwm()
+            return
         if not 1 <= self.bits <= 16:
             raise OptionError(
                 f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
@@ -524,6 +545,19 @@ class StreamOptions(_Model):
             )
         self._check_common()
         tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+
+    def _check_pwm(self) -> None:
+        """The checks of a PWM stream (its pin, and the ladder's options refused)."""
+        for name in ("levels", "shift", "pin_order", "invert", "program", "samples_per_word"):
+            if _flag_given(self, name):
+                raise OptionError("applies only to output ladder", field=name)
+        self._check_common()
+        if self.out_base >= int(self.gpio_count or 0):
+            raise OptionError(
+                f"the PWM pin GPIO {self.out_base} is not on the target (GPIO 0.."
+                f"{int(self.gpio_count or 0) - 1})",
+                field="out_base",
+            )
 
     def _check_i2s(self) -> None:
         """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
@@ -602,8 +636,18 @@ class StreamOptions(_Model):
         ladder's.
         """
         out = super().to_dict()
-        drop = self.LADDER_ONLY if self.output != "ladder" else (*self.I2S_ONLY, "output")
-        for name in drop:
+        own = {
+            "ladder": self.LADDER_ONLY,
+            "i2s": self.I2S_ONLY,
+            "pwm": (*self.PWM_ONLY, "idle_code", "ramp_ms"),
+        }[self.output]
+        others = {*self.LADDER_ONLY, *self.I2S_ONLY, *self.PWM_ONLY, "output"} - set(own)
+        if self.output != "ladder":
+            others.discard("output")
+        if self.output == "pwm":
+            others.discard("bits")
+            out.pop("bits", None)
+        for name in others:
             out.pop(name, None)
         if self.output != "ladder":
             return out

@@ -240,14 +240,15 @@ def quantize(
     return Codes(codes, bits), report
 
 
-def idle_ramp(idle_code: int, bits: int, n: int) -> np.ndarray:
+def idle_ramp(idle_code: int, bits: int, n: int, *, mid: float | None = None) -> np.ndarray:
     """Raised-cosine ramp of `n` codes from `idle_code` towards mid-scale.
 
     The first code is exactly `idle_code`; the curve would reach mid-scale one
-    sample after the end, where the (faded-in) audio starts.
+    sample after the end, where the (faded-in) audio starts.  `mid` is the level of
+    silence when it is not ``2**(bits-1)`` (a PWM slice's ``(levels - 1) / 2``).
     """
-    mid = 1 << (bits - 1)
-    ramp = idle_code + (mid - idle_code) * raised_cosine(n)
+    centre = float(1 << (bits - 1)) if mid is None else float(mid)
+    ramp = idle_code + (centre - idle_code) * raised_cosine(n)
     return np.floor(ramp + 0.5).astype(np.uint16)
 
 

@@ -37,6 +37,7 @@ from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
+from ladderpack.outputs.pwm import PwmPlan, PwmSetup, plan_pwm
 from ladderpack.outputs.i2s import (
     STREAM_SLOT_BITS,
     I2sLayout,
@@ -53,7 +54,13 @@ from ladderpack.pio import (
     min_cycles,
     state_machine_config,
 )
-from ladderpack.quantize import BlockQuantizer, Codes, idle_ramp, predicted_full_scale_sine
+from ladderpack.quantize import (
+    BlockQuantizer,
+    Codes,
+    CodeScale,
+    idle_ramp,
+    predicted_full_scale_sine,
+)
 from ladderpack.shaping import Shaper, design_shaper, get_shaper, predict_noise
 from ladderpack.sources import (
     BLOCK_FRAMES,
@@ -106,10 +113,10 @@ class StreamPlan:
         is the stream rate.
     layout : WordLayout or I2sLayout
         How codes pack into FIFO words.
-    program : Program
-        The state-machine program (its ``variant`` says which).
-    sm : StateMachineConfig
-        State-machine register values.
+    program : Program or None
+        The state-machine program (its ``variant`` says which); None for PWM.
+    sm : StateMachineConfig or None
+        State-machine register values; None for PWM.
     shaper : Shaper
         The error-feedback filter (``none`` included).
     band_hz : float
@@ -130,15 +137,19 @@ class StreamPlan:
         Estimated peak working memory of :func:`process`.
     block_frames : int
         Input frames per block (the whole input when it is one block).
+    scale : CodeScale, optional
+        The code scale when it is not the N-bit one (a PWM slice's TOP + 2 levels).
+    pwm : PwmSetup, optional
+        The slice, pin and DMA pacing of a PWM stream.
     """
 
     name: str
     options: StreamOptions
     levels: LevelSet | None
-    clock: ClockPlan
+    clock: ClockPlan | PwmPlan
     layout: WordLayout | I2sLayout
-    program: Program
-    sm: StateMachineConfig
+    program: Program | None
+    sm: StateMachineConfig | None
     shaper: Shaper
     band_hz: float
     predicted_noise_db: dict[str, float]
@@ -148,6 +159,13 @@ class StreamPlan:
     budget: Budget
     memory_bytes: int
     block_frames: int
+    scale: CodeScale | None = None
+    pwm: PwmSetup | None = None
+
+    @property
+    def code_scale(self) -> CodeScale:
+        """Where full scale and silence fall on the codes (a PWM slice's levels, or 2^N)."""
+        return self.scale if self.scale is not None else CodeScale.for_bits(self.options.bits)
 
     @property
     def rate_hz(self) -> float:
@@ -311,7 +329,36 @@ def plan_stream(
     ident = asset_identifier(name)
     levels = _plan_levels(opts)
     layout: WordLayout | I2sLayout
-    if opts.output == "i2s":
+    clock: ClockPlan | PwmPlan
+    scale, setup = None, None
+    if opts.output == "pwm":
+        pwm_plan = plan_pwm(
+            opts.rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            min_carrier_hz=opts.min_carrier_hz,
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        )
+        if pwm_plan.levels - 1 > 0xFFFF:
+            raise OptionError(
+                f"the plan's TOP {pwm_plan.top} leaves compare values above 65535; ask for "
+                "a higher --rate-hz or --min-carrier-hz",
+                field="min_carrier_hz",
+            )
+        scale = CodeScale.for_levels(pwm_plan.levels)
+        if opts.idle_code > scale.top:
+            raise OptionError(
+                f"must be 0..{scale.top} for this slice's {pwm_plan.levels} levels, got "
+                f"{opts.idle_code}",
+                field="idle_code",
+            )
+        setup = PwmSetup(pwm_plan, opts.out_base, chip=opts.target[:6])
+        clock = pwm_plan
+        # compare values are 16 bits: two to a word, the first in bits 15:0 (little-endian
+        # halfwords, the order 16-bit DMA transfers read them)
+        layout = WordLayout(16, shift_right=True, per_word=2)
+        spw = per_word = 2
+        variant = f"pwm-{pwm_plan.pacing}"
+    elif opts.output == "i2s":
         layout = I2sLayout(opts.bits)
         spw, variant = 1, f"i2s-{opts.frame_format}"
         clock = plan_i2s(
@@ -371,7 +418,11 @@ def plan_stream(
         )
     shaper = _shaper_for(opts, rate, band)
     predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=opts.weighting)
-    if isinstance(layout, I2sLayout):
+    program: Program | None
+    sm: StateMachineConfig | None
+    if setup is not None:
+        program, sm = None, None
+    elif isinstance(layout, I2sLayout):
         program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
         sm = i2s_state_machine(
             program,
@@ -415,6 +466,8 @@ def plan_stream(
         budget,
         memory,
         max(1, blk),
+        scale,
+        setup,
     )
 
 
@@ -555,9 +608,14 @@ def process(
         keep = True
         audio_blocks = iter([np.asarray(sig.samples, dtype=np.float64)])
     q = BlockQuantizer(
-        bits=opts.bits, dither=opts.dither, shaper=plan.shaper, seed=opts.seed, levels=plan.levels
+        bits=opts.bits,
+        dither=opts.dither,
+        shaper=plan.shaper,
+        seed=opts.seed,
+        levels=plan.levels,
+        scale=plan.scale,
     )
-    ramp = idle_ramp(idle, opts.bits, plan.ramp_samples).astype(q.scale.dtype)
+    ramp = idle_ramp(idle, opts.bits, plan.ramp_samples, mid=q.scale.half).astype(q.scale.dtype)
     kept: list[np.ndarray] = []
 
     def quantised() -> Iterator[np.ndarray]:
@@ -582,7 +640,7 @@ def process(
             out.outro = Packed(silent, lay, 1, idle)  # type: ignore[arg-type]
         else:
             out.packed = pack(out.codes, lay, pad_code=idle)
-            out.intro, out.outro = _loop_ramps(ramp, lay, idle)
+            out.intro, out.outro = _loop_ramps(ramp, lay, idle, q.scale)
     else:
         # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
         # sample closes it, a step no larger than the one from idle into its start.
@@ -639,10 +697,12 @@ def _chain(
     yield tail
 
 
-def _loop_ramps(ramp: np.ndarray, lay: WordLayout, idle_code: int) -> tuple[Packed, Packed]:
+def _loop_ramps(
+    ramp: np.ndarray, lay: WordLayout, idle_code: int, scale: CodeScale
+) -> tuple[Packed, Packed]:
     """The intro (idle up to mid-scale) and outro (down to idle) played around a loop."""
     spw, bits = lay.samples_per_word, lay.bits
-    mid = 1 << (bits - 1)
+    mid = int(np.floor(scale.half + 0.5))
     intro = pack(Codes(ramp, bits), lay, pad_code=mid if ramp.size else idle_code)
     # The outro ends with a whole word of idle codes: the loop program repeats the last
     # word once the FIFO is empty, so that word must be silent.
@@ -695,7 +755,7 @@ def finish(
         "audio_samples": done.audio_samples,
         "ramp_samples": plan.ramp_samples,
         "loop_rate_adjust_ppm": round(done.loop_rate_ppm, 6),
-        "program_variant": plan.program.variant,
+        "program_variant": plan.program.variant if plan.program else f"pwm-{plan.pwm.plan.pacing}",  # type: ignore[union-attr]
         "resampler": {
             "passband_hz": spec.passband_hz,
             "stopband_hz": spec.stopband_hz,
@@ -707,12 +767,21 @@ def finish(
         "loudness": None
         if done.loudness is None
         else {k: (round(v, 4) if isinstance(v, float) else v) for k, v in done.loudness.items()},
-        "predicted_full_scale_sine": _predicted_sine(
-            opts.bits, opts.dither, plan.predicted_noise_db, plan.band_hz, plan.rate_hz
+        "predicted_full_scale_sine": predicted_full_scale_sine(
+            plan.code_scale.half,
+            opts.dither,
+            plan.predicted_noise_db["in_band_db"],
+            plan.band_hz,
+            plan.rate_hz,
         ),
     }
+    if plan.pwm is not None:
+        stats["pwm"] = {**plan.pwm.plan.to_dict(), **plan.pwm.to_dict()}
     warnings = _shaper_warnings(
-        opts, str(plan.shaper.to_dict().get("name", "none")), plan.predicted_noise_db
+        opts,
+        str(plan.shaper.to_dict().get("name", "none")),
+        plan.predicted_noise_db,
+        plan.code_scale.half,
     ) + _rate_warnings(opts.rate_hz, done.rate_in_hz)
     if warnings:
         stats["warnings"] = warnings
@@ -733,6 +802,7 @@ def finish(
         outro=done.outro,
         budget=budget,
         levels_volts=None if plan.levels is None else plan.levels.volts,
+        pwm=plan.pwm,
     )
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step
@@ -759,7 +829,9 @@ def _rate_warnings(rate_hz: float, rate_in_hz: float | None) -> list[str]:
     ]
 
 
-def _shaper_warnings(opts: StreamOptions, shaper: str, predicted: dict[str, float]) -> list[str]:
+def _shaper_warnings(
+    opts: StreamOptions, shaper: str, predicted: dict[str, float], half: float
+) -> list[str]:
     """A warning when the shaper's total noise eats the headroom of a narrow ladder.
 
     sigma^2 = (1/12 + dither variance) x the shaper's total (full-band) noise gain, in
@@ -769,27 +841,17 @@ def _shaper_warnings(opts: StreamOptions, shaper: str, predicted: dict[str, floa
         return []
     dither_var = {"tpdf": 1 / 6, "rpdf": 1 / 12}.get(opts.dither, 0.0)
     sigma = math.sqrt((1 / 12 + dither_var) * 10 ** (predicted["total_db"] / 10))
-    share = 4 * sigma / (1 << (opts.bits - 1))
+    share = 4 * sigma / half
     if share <= SHAPED_NOISE_WARN_SHARE:
         return []
-    half = 1 << (opts.bits - 1)
     snr = 10 * math.log10(half * half / 2 / (sigma * sigma))
     return [
         f"shaping {shaper} raises the total noise {predicted['total_db']:+.1f} dB: its "
         f"peaks (4 sigma, {4 * sigma:.1f} LSB) take {100 * share:.0f} % of half-scale at "
-        f"{opts.bits} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
+        f"{math.log2(2 * half):.3g} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
         f"whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
         "(first-order, second-order) or 'designed' with a lower --ntf-max-db"
     ]
-
-
-def _predicted_sine(
-    bits: int, dither: str, predicted: dict[str, float], band_hz: float, rate_hz: float
-) -> dict[str, float]:
-    """SINAD and ENOB a full-scale sine would get from this quantiser, in the band."""
-    return predicted_full_scale_sine(
-        float(1 << (bits - 1)), dither, predicted["in_band_db"], band_hz, rate_hz
-    )
 
 
 def _levels_stats(levelset: LevelSet) -> dict[str, Any]:

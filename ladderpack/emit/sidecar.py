@@ -15,6 +15,25 @@ FORMAT = "ladderpack-stream"
 FORMAT_VERSION = 1
 
 
+def _program(asset: StreamAsset) -> dict[str, object]:
+    """The state machine's program and registers, or a PWM stream's slice."""
+    if asset.program is None or asset.sm is None:
+        return {"pwm": asset.pwm.to_dict() if asset.pwm is not None else None}
+    return {
+        "program": {
+            "name": asset.program.name,
+            "source": asset.program.source(),
+            "words": list(asset.program.words),
+            "wrap_target": asset.program.wrap_target,
+            "wrap": asset.program.wrap,
+            **(
+                {"entry": len(asset.program.words) - 1} if asset.sm.sideset_base is not None else {}
+            ),
+        },
+        "state_machine": asset.sm.to_dict(),
+    }
+
+
 def render(
     asset: StreamAsset,
     files: Mapping[str, bytes] | None = None,
@@ -44,17 +63,7 @@ def render(
         "options": asset.options,
         "clock": asset.plan.to_dict(),
         "layout": asset.packed.layout.to_dict(),
-        "program": {
-            "name": asset.program.name,
-            "source": asset.program.source(),
-            "words": list(asset.program.words),
-            "wrap_target": asset.program.wrap_target,
-            "wrap": asset.program.wrap,
-            **(
-                {"entry": len(asset.program.words) - 1} if asset.sm.sideset_base is not None else {}
-            ),
-        },
-        "state_machine": asset.sm.to_dict(),
+        **_program(asset),
         "stream": {
             "bits": asset.packed.layout.bits,
             "idle_code": asset.idle_code,

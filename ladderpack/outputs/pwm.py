@@ -39,8 +39,10 @@ __all__ = [
     "DREQ_DMA_TIMER0",
     "DREQ_PWM_WRAP0",
     "PwmPlan",
+    "PwmSetup",
     "RcFilter",
     "plan_pwm",
+    "pwm_slice",
     "reconstruction_filter",
 ]
 
@@ -118,6 +120,11 @@ class PwmPlan:
     def effective_bits(self) -> float:
         """Resolution in bits, ``log2(levels)``."""
         return math.log2(self.levels)
+
+    @property
+    def divider_text(self) -> str:
+        """The divider as the summary prints it, ``INT+FRAC/16``."""
+        return f"{self.div_int}+{self.div_frac}/16"
 
     @property
     def sys_clocks_per_sample(self) -> Fraction:
@@ -353,3 +360,63 @@ def reconstruction_filter(
     values = [m * decade * k for k in (0.1, 1.0) for m in e12]
     c = max(v for v in values if v <= ideal * (1 + 1e-9))
     return RcFilter(poles, r_ohms, float(f"{c:.3g}"))
+
+
+def pwm_slice(gpio: int) -> tuple[int, str]:
+    """The PWM slice and channel ('A' or 'B') of a GPIO.
+
+    GPIO 2n and 2n + 1 are channels A and B of slice n mod 8; on the RP2350B, GPIO 32
+    and above reach slices 8..11 (the SDK's ``pwm_gpio_to_slice_num``).
+    """
+    slice_ = (gpio >> 1) & 7 if gpio < 32 else 8 + ((gpio >> 1) & 3)
+    return slice_, "B" if gpio & 1 else "A"
+
+
+@dataclass(frozen=True)
+class PwmSetup:
+    """Where a PWM stream goes: the plan, the pin and how the DMA is paced.
+
+    Attributes
+    ----------
+    plan : PwmPlan
+        Divider, TOP and periods per sample.
+    pin : int
+        The PWM pin (for stereo, channel A's; channel B is the next GPIO).
+    stereo : bool
+        Both channels of the slice carry a channel of the stream.
+    chip : str
+        ``"rp2040"`` or ``"rp2350"`` (for the DMA request numbers).
+    """
+
+    plan: PwmPlan
+    pin: int
+    stereo: bool = False
+    chip: str = "rp2040"
+
+    @property
+    def slice(self) -> int:
+        """The pin's PWM slice."""
+        return pwm_slice(self.pin)[0]
+
+    @property
+    def channel(self) -> str:
+        """The pin's channel of the slice, ``"A"`` or ``"B"``."""
+        return pwm_slice(self.pin)[1]
+
+    @property
+    def dreq(self) -> int:
+        """The DMA request that paces the stream: the slice's wrap, or pacing timer 0."""
+        if self.plan.pacing == "wrap":
+            return DREQ_PWM_WRAP0[self.chip] + self.slice
+        return DREQ_DMA_TIMER0[self.chip]
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description (the sidecar's ``pwm``)."""
+        return {
+            "pin": self.pin,
+            "slice": self.slice,
+            "channel": "A and B" if self.stereo else self.channel,
+            "stereo": self.stereo,
+            "dreq": self.dreq,
+            "transfer_bits": 32 if self.stereo else 16,
+        }

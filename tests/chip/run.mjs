@@ -190,6 +190,91 @@ function tickPIO() {
   }
 }
 
+// --- PWM slices and DMA pacing: our own schedule ------------------------------------------
+// rp2040js runs the PWM counters from a timer of its own and leaves a slice's DMA request
+// raised once set, and paces DMA timers in floating-point microseconds. Here each enabled
+// slice counts every DIV system clocks (8.4 fixed point: the fraction stretches some
+// counts by one clock; RP2040 datasheet 4.5.2.4), wraps after TOP (one period is TOP + 1
+// counts), latches the compare register it was given at the wrap (double-buffered,
+// 4.5.2.3) and asks the DMA for one transfer (DREQ_PWM_WRAP0 + slice); a pacing timer
+// asks once every Y / X system clocks (2.5.3.3). config.pwm_slices: the slices whose
+// every period is recorded as [cycle of the wrap, slice, CC latched for the new period].
+const PWM_DREQ0 = 24;
+const TIMER_DREQ0 = 59;
+const pwmOn = Array.isArray(config.pwm_slices);
+const ownTreq = (t) =>
+  pwmOn && ((t >= PWM_DREQ0 && t < PWM_DREQ0 + 8) || (t >= TIMER_DREQ0 && t < TIMER_DREQ0 + 4));
+for (const ch of mcu.dma.channels) {
+  const orig = ch.scheduleTransfer.bind(ch);
+  ch.scheduleTransfer = function () {
+    if (!ownTreq(this.treqValue)) orig();
+  };
+}
+const origSetDREQ = mcu.dma.setDREQ.bind(mcu.dma);
+mcu.dma.setDREQ = (d) => {
+  if (pwmOn && d >= PWM_DREQ0 && d < PWM_DREQ0 + 8) return;
+  origSetDREQ(d);
+};
+function request(treq) {
+  for (const ch of mcu.dma.channels) {
+    if (ch.treqValue === treq && ch.active && ch.transCount > 0) ch.transfer();
+  }
+}
+const pwmWatch = new Set(config.pwm_slices || []);
+const periods = [];
+const slices = mcu.pwm.channels.map(() => ({ on: false, ctr: 0, next: 0, frac: 0, cc: 0 }));
+function pwmDiv(ch, st) {
+  const whole = (ch.div >> 4) & 0xff || 256;
+  st.frac += ch.div & 0xf;
+  if (st.frac >= 16) {
+    st.frac -= 16;
+    return whole + 1;
+  }
+  return whole;
+}
+const timerAcc = [0, 0, 0, 0];
+function tickPWM() {
+  const chans = mcu.pwm.channels;
+  for (let i = 0; i < chans.length; i++) {
+    const ch = chans[i];
+    const st = slices[i];
+    if (!(ch.csr & 1)) {
+      st.on = false;
+      continue;
+    }
+    if (!st.on) {
+      st.on = true; // enabled: counting starts from the counter's value
+      st.ctr = 0;
+      st.frac = 0;
+      st.next = cycle + pwmDiv(ch, st);
+      st.cc = ch.cc;
+      if (pwmWatch.has(i)) periods.push(cycle, i, st.cc);
+      continue;
+    }
+    if (cycle < st.next) continue;
+    st.next = cycle + pwmDiv(ch, st);
+    if (st.ctr >= (ch.top & 0xffff)) {
+      st.ctr = 0;
+      st.cc = ch.cc >>> 0;
+      if (pwmWatch.has(i)) periods.push(cycle, i, st.cc);
+      request(PWM_DREQ0 + i);
+    } else {
+      st.ctr++;
+    }
+  }
+  for (let t = 0; t < 4; t++) {
+    const reg = mcu.dma[`timer${t}`] >>> 0;
+    const x = reg >>> 16;
+    const y = reg & 0xffff;
+    if (!x || !y) continue;
+    timerAcc[t] += x;
+    if (timerAcc[t] >= y) {
+      timerAcc[t] -= y;
+      request(TIMER_DREQ0 + t);
+    }
+  }
+}
+
 // --- mailbox ---------------------------------------------------------------------------
 const events = [];
 let endedAt = -1;
@@ -267,6 +352,7 @@ while (cycle < maxCycles) {
     cycle++;
     mcu.clock.tick(NANOS_PER_CYCLE);
     tickPIO();
+    if (pwmOn) tickPWM();
   }
 }
 for (const pio of mcu.pio) pio.checkChangedPins();
@@ -277,6 +363,7 @@ process.stdout.write(
     final_pins: pinWord(),
     final_oe: oeWord(),
     changes,
+    periods,
     cycles: cycle,
     ended: endedAt >= 0,
     serial,
