@@ -160,13 +160,34 @@ class StreamAsset:
         return self.sample_count / float(self.plan.achieved_rate_hz)
 
     @property
+    def pio_program(self) -> Program:
+        """The state-machine program (ladder and I2S streams; a PWM stream has none)."""
+        if self.program is None:
+            raise TypeError(f"asset {self.name!r} has no state-machine program (PWM)")
+        return self.program
+
+    @property
+    def state_machine(self) -> StateMachineConfig:
+        """The state machine's registers (ladder and I2S streams)."""
+        if self.sm is None:
+            raise TypeError(f"asset {self.name!r} has no state machine (PWM)")
+        return self.sm
+
+    @property
+    def clock(self) -> ClockPlan:
+        """The state machine's clock plan (ladder and I2S streams)."""
+        if not isinstance(self.plan, ClockPlan):
+            raise TypeError(f"asset {self.name!r} is paced by a PWM slice, not a state machine")
+        return self.plan
+
+    @property
     def _pwm_plan(self) -> PwmPlan:
         assert isinstance(self.plan, PwmPlan)
         return self.plan
 
     def summary(self) -> StreamSummary:
         """The short human summary as plain data (also the ``--json`` output)."""
-        return {
+        out: StreamSummary = {
             "asset": self.name,
             "duration_s": round(self.duration_s, 6),
             "bits": self.packed.layout.bits,
@@ -192,23 +213,20 @@ class StreamAsset:
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
-            **(
-                {
-                    "pwm": {
-                        "carrier_hz": round(float(self._pwm_plan.carrier_hz), 3),
-                        "levels": self._pwm_plan.levels,
-                        "effective_bits": round(self._pwm_plan.effective_bits, 3),
-                        "top": self._pwm_plan.top,
-                        "periods_per_sample": self._pwm_plan.periods_per_sample,
-                        "pacing": self._pwm_plan.pacing,
-                        "pin": self.pwm.pin,
-                        "slice": self.pwm.slice,
-                    }
-                }
-                if self.pwm is not None
-                else {}
-            ),
         }
+        if self.pwm is not None:
+            p = self._pwm_plan
+            out["pwm"] = {
+                "carrier_hz": round(float(p.carrier_hz), 3),
+                "levels": p.levels,
+                "effective_bits": round(p.effective_bits, 3),
+                "top": p.top,
+                "periods_per_sample": p.periods_per_sample,
+                "pacing": p.pacing,
+                "pin": self.pwm.pin,
+                "slice": self.pwm.slice,
+            }
+        return out
 
 
 def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:

@@ -37,7 +37,6 @@ from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
-from ladderpack.outputs.pwm import PwmPlan, PwmSetup, plan_pwm
 from ladderpack.outputs.i2s import (
     STREAM_SLOT_BITS,
     I2sLayout,
@@ -45,6 +44,7 @@ from ladderpack.outputs.i2s import (
     i2s_state_machine,
     plan_i2s,
 )
+from ladderpack.outputs.pwm import PwmPlan, PwmSetup, plan_pwm
 from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
     Program,
@@ -330,6 +330,7 @@ def plan_stream(
     levels = _plan_levels(opts)
     layout: WordLayout | I2sLayout
     clock: ClockPlan | PwmPlan
+    per_word: int | Fraction
     scale, setup = None, None
     if opts.output == "pwm":
         pwm_plan = plan_pwm(
@@ -367,7 +368,7 @@ def plan_stream(
             slot_bits=STREAM_SLOT_BITS,
             tolerance_ppm=opts.rate_tolerance_ppm,
         ).clock
-        per_word: int | Fraction = Fraction(1, layout.words_per_frame)
+        per_word = Fraction(1, layout.words_per_frame)
     else:
         layout = WordLayout(
             opts.bits,
@@ -420,7 +421,7 @@ def plan_stream(
     predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=opts.weighting)
     program: Program | None
     sm: StateMachineConfig | None
-    if setup is not None:
+    if not isinstance(clock, ClockPlan):  # a PWM slice: no state machine
         program, sm = None, None
     elif isinstance(layout, I2sLayout):
         program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
@@ -848,8 +849,8 @@ def _shaper_warnings(
     return [
         f"shaping {shaper} raises the total noise {predicted['total_db']:+.1f} dB: its "
         f"peaks (4 sigma, {4 * sigma:.1f} LSB) take {100 * share:.0f} % of half-scale at "
-        f"{math.log2(2 * half):.3g} bits, and a full-scale sine keeps only {snr:.1f} dB SNR over the "
-        f"whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
+        f"{math.log2(2 * half):.3g} bits, and a full-scale sine keeps only {snr:.1f} dB SNR "
+        f"over the whole band (ENOB {(snr - 1.76) / 6.02:.1f}); use a gentler shaper "
         "(first-order, second-order) or 'designed' with a lower --ntf-max-db"
     ]
 

@@ -38,7 +38,7 @@ def _banner(asset: StreamAsset) -> str:
 
 
 def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
-    p, lay, sm = asset.plan, asset.packed.layout, asset.sm
+    p, lay, sm = asset.clock, asset.packed.layout, asset.state_machine
     rate = p.achieved_rate_hz
     return [
         ("BITS", f"{lay.bits}u", "ladder width, bits per sample"),
@@ -52,8 +52,8 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ("IDLE_WORD", f"0x{asset.idle_word:08X}u", "FIFO word of idle codes"),
         ("MSB_ON_HIGH_PIN", "1" if lay.msb_high else "0", "0: ladder MSB on OUT_BASE"),
         ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
-        ("AUTOPULL", "1" if asset.program.autopull else "0", "program relies on autopull"),
-        ("PROGRAM_KIND", _PROGRAM_KIND[asset.program.variant], "LP_PROGRAM_* of the player"),
+        ("AUTOPULL", "1" if asset.pio_program.autopull else "0", "program relies on autopull"),
+        ("PROGRAM_KIND", _PROGRAM_KIND[asset.pio_program.variant], "LP_PROGRAM_* of the player"),
         ("MAX_STEP", f"{asset.max_step}u", "largest step between consecutive codes"),
         ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
         ("INTRO_WORD_COUNT", f"{_count(asset.intro)}u", "loops: ramp up from idle"),
@@ -75,9 +75,9 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
         ),
         ("OUT_COUNT", f"{sm.out_count}u", "pins written by out"),
         ("GPIO_BASE", f"{sm.gpio_base}u", "PIO GPIO base (16 for GPIO 32 and above)"),
-        ("PROGRAM_LENGTH", f"{len(asset.program.instructions)}u", "instructions"),
-        ("PROGRAM_WRAP_TARGET", f"{asset.program.wrap_target}u", "relative to load offset"),
-        ("PROGRAM_WRAP", f"{asset.program.wrap}u", "relative to load offset"),
+        ("PROGRAM_LENGTH", f"{len(asset.pio_program.instructions)}u", "instructions"),
+        ("PROGRAM_WRAP_TARGET", f"{asset.pio_program.wrap_target}u", "relative to load offset"),
+        ("PROGRAM_WRAP", f"{asset.pio_program.wrap}u", "relative to load offset"),
         ("REG_CLKDIV", f"0x{sm.clkdiv:08X}u", "SMx_CLKDIV"),
         ("REG_EXECCTRL", f"0x{sm.execctrl:08X}u", "SMx_EXECCTRL, program at offset 0"),
         ("REG_SHIFTCTRL", f"0x{sm.shiftctrl:08X}u", "SMx_SHIFTCTRL"),
@@ -250,12 +250,12 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
             yield from _array_lines(packed.words, 8)
             yield "};"
     yield ""
-    yield f"/* State-machine program ({asset.program.variant}):"
-    for ins in asset.program.instructions:
+    yield f"/* State-machine program ({asset.pio_program.variant}):"
+    for ins in asset.pio_program.instructions:
         yield f" *   {ins.text()}"
     yield " */"
     yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
-    yield from _array_lines(np.array(asset.program.words), 4)
+    yield from _array_lines(np.array(asset.pio_program.words), 4)
     yield "};"
     if _embed_levels(asset) and asset.levels_volts is not None:
         yield ""

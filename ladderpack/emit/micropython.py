@@ -389,12 +389,12 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
     embed : bool
         Embed the words as an ``array('I', ...)`` literal (short streams only).
     """
-    lay, p = asset.packed.layout, asset.plan
+    lay, p = asset.packed.layout, asset.clock
     out_init = ", ".join(
         "rp2.PIO.OUT_HIGH" if (asset.idle_pins >> k) & 1 else "rp2.PIO.OUT_LOW"
         for k in range(lay.bits)
     )
-    prog = asset.program
+    prog = asset.pio_program
     body = []
     for addr, ins in enumerate(prog.instructions):
         if addr == prog.wrap_target:
@@ -403,9 +403,9 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         if addr == prog.wrap:
             body.append("    wrap()")
     order = (
-        f"GPIO {asset.sm.out_base} carries the ladder's least significant bit."
+        f"GPIO {asset.state_machine.out_base} carries the ladder's least significant bit."
         if lay.msb_high
-        else f"GPIO {asset.sm.out_base} carries the ladder's most significant bit."
+        else f"GPIO {asset.state_machine.out_base} carries the ladder's most significant bit."
     )
     words_literal = (
         ("WORDS = " + _literal(asset.packed))
@@ -415,8 +415,8 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
     return _TEMPLATE.format(
         version=__version__,
         source=comment_safe(asset.source.get("file", "generated signal")),
-        first=asset.sm.out_base,
-        last=asset.sm.out_base + lay.bits - 1,
+        first=asset.state_machine.out_base,
+        last=asset.state_machine.out_base + lay.bits - 1,
         order=order,
         inverted=" Bits are inverted for an inverting buffer." if lay.invert else "",
         name=asset.name,
@@ -432,11 +432,11 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         sys_clock=p.sys_clock_hz,
         div_int=p.div_int,
         div_frac=p.div_frac,
-        clkdiv=asset.sm.clkdiv,
+        clkdiv=asset.state_machine.clkdiv,
         cycles=p.cycles_per_sample,
         variant=prog.variant,
-        out_base=asset.sm.out_base,
-        gpio_base=asset.sm.gpio_base,
+        out_base=asset.state_machine.out_base,
+        gpio_base=asset.state_machine.gpio_base,
         loop=asset.loop,
         bin_file=f"{asset.name}.bin",
         chunk_words=int(asset.options.get("chunk_words", 1024)),

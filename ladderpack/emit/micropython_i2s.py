@@ -302,7 +302,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
     embed : bool
         Embed the words as an ``array('I', ...)`` literal (short streams only).
     """
-    lay, p, sm = asset.packed.layout, asset.plan, asset.sm
+    lay, p, sm = asset.packed.layout, asset.clock, asset.state_machine
     assert isinstance(lay, I2sLayout)
     clock_pin = int(sm.sideset_base or 0)
     words_literal = (
@@ -324,11 +324,11 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         clock_pin=clock_pin,
         ws_pin=clock_pin + 1,
         gpio_base=sm.gpio_base,
-        entry=i2s_entry(asset.program),
+        entry=i2s_entry(asset.pio_program),
         loop=asset.loop,
         bin_file=f"{asset.name}.bin",
         chunk_words=int(asset.options.get("chunk_words", 1024)),
         words_literal=words_literal,
         outro=_literal(asset.outro),
-        body="\n".join(_mp_program(asset.program)),
+        body="\n".join(_mp_program(asset.pio_program)),
     )

@@ -29,6 +29,9 @@ _HEADER = """\
  * outputs of the slice get it and only the stream's pin is switched to PWM. A stereo
  * stream writes 32-bit words, channel A (even GPIO) in bits 15:0 and B in 31:16.
  *
+ * Build: add ladderpack_pwm.c and the asset's .c to the target, and link hardware_pwm and
+ * hardware_dma (target_link_libraries in CMake).
+ *
  * Every way a playback ends leaves the pin on the idle code without a step larger than
  * the stream's largest (STREAM_MAX_STEP): a natural end plays the stream's own ramp, a
  * stopped stream ramps down at run time, a stopped loop finishes its pass and its outro.
@@ -86,7 +89,7 @@ typedef struct lp_pwm_stream {{
  * returns false: the DMA reads from it. */
 typedef struct lp_pwm_player {{
     const lp_pwm_stream_t *stream;
-    uint slice;
+    uint32_t slice;              /* the pin's PWM slice */
     int data_ch;                 /* stream values */
     int tail_ch;                 /* outro, closing idle value or a ramp made at run time */
     int intro_ch;                /* loops: intro */

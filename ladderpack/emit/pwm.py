@@ -255,7 +255,9 @@ def _ramp(a: int, b: int) -> "array.array[int]":
 
 
 class Player:
-    \"\"\"Plays the stream on the slice of PIN, fed by DMA from two buffers in turn.
+    \"\"\"Plays the stream on the slice of PIN, fed by two DMA channels chained to each
+    other: one plays a buffer while the other's is refilled, with no gap between them
+    (a PWM slice has no FIFO to cover one).
 
     A natural end plays the stream's closing ramp; stop() on a loop finishes the current
     pass and plays the outro; Ctrl-C or stop() on a stream ramps down at once.
@@ -280,20 +282,24 @@ class Player:
         mem32[_SLICE] = 1
         if TIMER_X:
             mem32[_TIMER0] = (TIMER_X << 16) | TIMER_Y
-        self.dma = rp2.DMA()
-        self.ctrl = self.dma.pack_ctrl(size=_SIZE, inc_read=True, inc_write=False,
-                                       treq_sel=DREQ)
+        self.dma = (rp2.DMA(), rp2.DMA())
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
 
-    def _send(self, buf, count: int) -> None:
-        while self.dma.active():
-            pass
-        self.dma.config(read=buf, write=_SLICE + 0x0C, count=count, ctrl=self.ctrl,
-                        trigger=True)
+    def _ctrl(self, k: int, chain: bool):
+        other = self.dma[1 - k].channel if chain else self.dma[k].channel
+        return self.dma[k].pack_ctrl(size=_SIZE, inc_read=True, inc_write=False,
+                                     treq_sel=DREQ, chain_to=other)
+
+    def _arm(self, k: int, buf, count: int, chain: bool, now: bool) -> None:
+        self.dma[k].config(read=buf, write=_SLICE + 0x0C, count=count,
+                           ctrl=self._ctrl(k, chain), trigger=now)
+
+    def _busy(self) -> bool:
+        return bool(self.dma[0].active() or self.dma[1].active())
 
     def _wait(self) -> None:
-        while self.dma.active():
+        while self._busy():
             pass
 
     def stop(self) -> None:
@@ -301,66 +307,82 @@ class Player:
         self.running = False
 
     def _ramp_down(self) -> None:
-        self.dma.active(0)
+        for d in self.dma:
+            d.active(0)
         cc = mem32[_SLICE + 0x0C]
         r = _ramp(cc & 0xFFFF, (cc >> 16) if STEREO else cc & 0xFFFF)
-        self._send(r, len(r))
+        self._arm(0, r, len(r), False, True)
         self._wait()
+
+    def _free(self, buf) -> None:
+        # wait until no running channel reads `buf`
+        while any(self.dma[j].active() and self.holds[j] is buf for j in (0, 1)):
+            pass
+
+    def _parts(self, loop: bool):
+        \"\"\"(buffer, transfers, last) in playing order: intro, the stream (once, or until
+        stop() for a loop), outro, a closing idle value; file chunks are read as they are
+        needed, into a buffer no channel is reading.\"\"\"
+        if INTRO is not None:
+            yield INTRO, INTRO_TRANSFERS, False
+        first = True
+        while first or (loop and self.running):
+            first = False
+            if WORDS is not None:
+                yield WORDS, TRANSFERS, False
+                continue
+            per_word = 1 if STEREO else 2
+            left = TRANSFERS
+            with open(self.path, "rb") as f:
+                which = 0
+                while left > 0:
+                    buf = self.bufs[which]
+                    self._free(buf)
+                    n = f.readinto(buf) // 4
+                    if n == 0:
+                        break
+                    count = min(n * per_word, left)
+                    left -= count
+                    yield buf, count, False
+                    which ^= 1
+        if OUTRO is not None:
+            yield OUTRO, OUTRO_TRANSFERS, False
+        # written once the last value has been latched, so the end is on the idle code
+        yield array.array("I", [_value(IDLE_CODE, IDLE_CODE)]), 1, True
 
     def play(self, loop: bool = LOOP) -> None:
         \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
         last value has been handed to the slice.\"\"\"
         self.running = True
+        self.holds = [None, None]
+        k = 0
+        started = False
         try:
-            if INTRO is not None:
-                self._send(INTRO, INTRO_TRANSFERS)
-            if WORDS is not None:
-                self._send(WORDS, TRANSFERS)
-                while loop and self.running:
-                    self._send(WORDS, TRANSFERS)  # a loop ends only on a pass boundary
-            else:
-                self._play_file(loop)
-            if not LOOP:
-                while self.dma.active():
-                    if not self.running:
+            for buf, count, last in self._parts(loop):
+                # wait until channel k is free, then arm it; the other channel starts it
+                # by its chain when its own part ends (CHUNK_WORDS sets how long that is)
+                while self.dma[k].active():
+                    if not self.running and not LOOP:
                         self._ramp_down()
                         return
-            if OUTRO is not None:
-                self._send(OUTRO, OUTRO_TRANSFERS)
-            idle = array.array("I", [_value(IDLE_CODE, IDLE_CODE)])
-            self._send(idle, 1)  # after the last value has been latched
-            self._wait()
+                self.holds[k] = buf
+                self._arm(k, buf, count, not last, not started)
+                started = True
+                k ^= 1
+            while self._busy():
+                if not self.running and not LOOP:
+                    self._ramp_down()
+                    return
         except KeyboardInterrupt:
             self._ramp_down()
             raise
         finally:
             self.running = False
 
-    def _play_file(self, loop: bool) -> None:
-        per_word = 1 if STEREO else 2
-        left = TRANSFERS
-        with open(self.path, "rb") as f:
-            which = 0
-            while True:
-                buf = self.bufs[which]
-                n = f.readinto(buf) // 4
-                if n == 0 or left <= 0:
-                    if not (loop and self.running):
-                        break
-                    f.seek(0)  # a loop ends only on a pass boundary
-                    left = TRANSFERS
-                    continue
-                count = min(n * per_word, left)
-                left -= count
-                if not self.running and not LOOP:
-                    self._ramp_down()  # a stream stops at once, ramping down
-                    return
-                self._send(buf, count)
-                which ^= 1
-
     def close(self) -> None:
-        \"\"\"Release the DMA channel (the slice keeps the idle code).\"\"\"
-        self.dma.close()
+        \"\"\"Release the DMA channels (the slice keeps the idle code).\"\"\"
+        for d in self.dma:
+            d.close()
 
 
 def play(loop: bool = LOOP) -> None:

@@ -311,6 +311,7 @@ class Run:
     ended: bool
     serial: list[tuple[int, str]] = field(default_factory=list)
     changes: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
+    periods: np.ndarray = field(default_factory=lambda: np.zeros((0, 3), np.int64))
 
     def output(self) -> str:
         """Everything MicroPython printed."""
@@ -363,6 +364,7 @@ def run_micropython(
     *,
     max_cycles: int = 400_000_000,
     watch_pins: list[int] | None = None,
+    pwm_slices: list[int] | None = None,
 ) -> Run:
     """Boot the vendored MicroPython image with `files` on its filesystem and run each
     step's code through the raw REPL over USB CDC (``interrupt_after``: Ctrl-C that many
@@ -377,6 +379,7 @@ def run_micropython(
             "fs_offset": FS_OFFSET,
             "repl": steps,
             **({"watch_pins": watch_pins} if watch_pins else {}),
+            **({"pwm_slices": pwm_slices} if pwm_slices is not None else {}),
         },
         config_dir=folder,
     )
@@ -423,4 +426,5 @@ def run(
         ended=d["ended"],
         serial=[tuple(s) for s in d.get("serial", [])],
         changes=np.array(d.get("changes", []), dtype=np.int64).reshape(-1, 2),
+        periods=np.array(d.get("periods", []), dtype=np.int64).reshape(-1, 3),
     )

@@ -215,10 +215,11 @@ mcu.dma.setDREQ = (d) => {
   if (pwmOn && d >= PWM_DREQ0 && d < PWM_DREQ0 + 8) return;
   origSetDREQ(d);
 };
+// One request, one transfer of each channel that was waiting for it: a channel started by
+// a chain inside this request waits for the next one.
 function request(treq) {
-  for (const ch of mcu.dma.channels) {
-    if (ch.treqValue === treq && ch.active && ch.transCount > 0) ch.transfer();
-  }
+  const ready = mcu.dma.channels.filter((ch) => ch.treqValue === treq && ch.active && ch.transCount > 0);
+  for (const ch of ready) ch.transfer();
 }
 const pwmWatch = new Set(config.pwm_slices || []);
 const periods = [];

@@ -1,0 +1,281 @@
+"""PWM streams on the emulated chip: the bundle's players on the real SDK and MicroPython.
+
+Firmware is compiled from the bundle's ``ladderpack_pwm.c`` and asset sources with CMake,
+arm-none-eabi-gcc and the vendor SDK 2.2.0 (warnings as errors on our files); the
+MicroPython module runs on the vendored MicroPython image. The harness
+(``tests/chip/run.mjs``) clocks every enabled PWM slice on its own exact schedule from the
+registers the player wrote (a count every DIV system clocks, 8.4 fixed point; a wrap
+after TOP; the compare register latched at the wrap: RP2040 datasheet 4.5.2) and paces
+the DMA by the slice's wrap request or by the DMA pacing timer (X / Y system clocks,
+datasheet 2.5.3.3), and records the compare value each PWM period starts with: the pin's
+duty for that period is that value / (TOP + 1). Every period is compared with the values
+decoded here from the ``.bin`` and the sidecar (each sample held for K periods), and the
+period with the plan in system clocks.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from ladderpack.bundle import bundle_files
+from ladderpack.stream import stream_tone
+from tests.chip.harness import Firmware, run, run_micropython
+
+pytestmark = pytest.mark.slow
+
+
+@pytest.fixture(scope="module")
+def fw(tmp_path_factory: pytest.TempPathFactory) -> Firmware:
+    return Firmware(tmp_path_factory.mktemp("fw_pwm"))
+
+
+@dataclass
+class Expected:
+    """The bundle's compare values and the slice's plan, as the sidecar gives them."""
+
+    codes: np.ndarray
+    intro: np.ndarray
+    outro: np.ndarray
+    idle: int
+    slice: int
+    channel: str
+    periods_per_sample: int
+    period_clocks: float
+
+    @classmethod
+    def load(cls, folder: Path, name: str) -> Expected:
+        side = json.loads((folder / f"{name}.json").read_text())
+        clk, pwm = side["clock"], side["pwm"]
+        n = side["stream"]["sample_count"]
+        # 16-bit values, little-endian, in playing order (sidecar layout: two a word,
+        # the first in bits 15:0)
+        codes = np.frombuffer((folder / f"{name}.bin").read_bytes(), "<u2")[:n].astype(int)
+        src = (folder / f"{name}.c").read_text()
+        head = (folder / f"{name}.h").read_text()
+
+        def part(which: str) -> np.ndarray:
+            import re
+
+            m = re.search(rf"{name}_{which}_words\[[^\]]*\]\s*=\s*\{{([^}}]*)\}}", src)
+            if m is None:
+                return np.zeros(0, int)
+            words = [int(v, 16) for v in re.findall(r"0x[0-9A-Fa-f]+", m.group(1))]
+            # the player sends TRANSFER_COUNT values: a last odd half-word is padding
+            count = re.search(rf"{name.upper()}_{which.upper()}_TRANSFER_COUNT\s+(\d+)u", head)
+            assert count is not None
+            values = [h for w in words for h in (w & 0xFFFF, w >> 16)]
+            return np.array(values[: int(count.group(1))], int)
+
+        return cls(
+            codes,
+            part("intro"),
+            part("outro"),
+            side["stream"]["idle_code"],
+            pwm["slice"],
+            pwm["channel"],
+            clk["periods_per_sample"],
+            (clk["div_int"] + clk["div_frac"] / 16) * (clk["top"] + 1),
+        )
+
+
+def per_period(periods: np.ndarray, exp: Expected) -> tuple[np.ndarray, np.ndarray]:
+    """(compare value of the stream's channel, wrap cycle) of every recorded period."""
+    rows = periods[periods[:, 1] == exp.slice]
+    cc = rows[:, 2]
+    value = (cc >> 16) & 0xFFFF if exp.channel == "B" else cc & 0xFFFF
+    return value, rows[:, 0]
+
+
+def find(seq: np.ndarray, part: np.ndarray) -> int:
+    """Where `part` starts in `seq` (it must be there)."""
+    for o in range(seq.size - part.size + 1):
+        if seq[o] == part[0] and np.array_equal(seq[o : o + part.size], part):
+            return o
+    raise AssertionError(f"{part.size} values not found in {seq.size} periods")
+
+
+def assert_periods(times: np.ndarray, exp: Expected) -> None:
+    gaps = np.diff(times)
+    if float(exp.period_clocks).is_integer():
+        assert np.all(gaps == exp.period_clocks), np.unique(gaps)
+    else:  # a fractional divider: counts of INT or INT + 1 clocks, exact on average
+        assert abs(gaps.mean() - exp.period_clocks) < 1.0
+
+
+def app(name: str, ops: list[tuple[str, int]]) -> str:
+    """A main program playing the asset through the PWM player; each op's result goes to
+    the mailbox the harness watches (op << 24 | index << 8 | result)."""
+    codes = {"init": 1, "start": 2, "wait": 3, "delay": 4, "stop": 5, "deinit": 6}
+    body = []
+    for i, (op, arg) in enumerate(ops):
+        call = {
+            "init": "rc = lp_pwm_init(&player, &stream);",
+            "start": f"rc = lp_pwm_start(&player, {'true' if arg else 'false'});",
+            "wait": "while (lp_pwm_busy(&player)) { tight_loop_contents(); }",
+            "delay": f"busy_wait_at_least_cycles({arg}u);",
+            "stop": "rc = lp_pwm_stop(&player);",
+            "deinit": "lp_pwm_deinit(&player);",
+        }[op]
+        body.append(f"    rc = 0; {call} report({codes[op]}u, {i}u, rc);")
+    return f"""\
+#include <stdbool.h>
+#include <stdint.h>
+#include "pico/stdlib.h"
+#include "ladderpack_pwm.h"
+#include "{name}.h"
+
+volatile uint32_t lp_test_mailbox;
+static lp_pwm_player_t player;
+static const lp_pwm_stream_t stream = {name.upper()}_PWM_INIT;
+
+static void report(uint32_t op, uint32_t index, int rc) {{
+    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
+}}
+
+int main(void) {{
+    int rc;
+{chr(10).join(body)}
+    busy_wait_at_least_cycles(20000u);
+    report(0x7Fu, 0u, 0);
+    for (;;) {{
+        tight_loop_contents();
+    }}
+}}
+"""
+
+
+def make(folder: Path, name: str, **opts: object) -> tuple[Expected, dict[str, bytes]]:
+    base: dict[str, object] = {
+        "output": "pwm",
+        "freq_hz": 1000.0,
+        "seconds": 0.004,
+        "rate_hz": 22050.0,
+        "ramp_ms": 0.5,
+        "out_base": 5,
+    }
+    base.update(opts)
+    if "cycles" in opts:
+        base.pop("seconds")
+    embed = bool(base.pop("embed", False))
+    files = bundle_files(
+        stream_tone("sine", name=name, **base), embed_words_max=100_000 if embed else 0
+    )
+    for fname, data in files.items():
+        (folder / fname).write_bytes(data)
+    return Expected.load(folder, name), files
+
+
+@pytest.mark.parametrize(
+    ("rate_hz", "min_carrier_hz", "pin"),
+    [
+        (22050.0, None, 5),  # four periods a sample, paced by a DMA timer; channel B
+        (44100.0, 44100.0, 8),  # one period a sample, paced by the slice's wrap; channel A
+    ],
+)
+def test_c_player_every_period_holds_its_sample(
+    fw: Firmware, tmp_path: Path, rate_hz: float, min_carrier_hz: float | None, pin: int
+) -> None:
+    exp, _files = make(
+        tmp_path, "chirp", rate_hz=rate_hz, min_carrier_hz=min_carrier_hz, out_base=pin
+    )
+    image = fw.make(tmp_path, [], [], app=app("chirp", [("init", 0), ("start", 0), ("wait", 0)]))
+    r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    values, times = per_period(r.periods, exp)
+    want = np.repeat(exp.codes, exp.periods_per_sample)
+    start = find(values, want)
+    assert np.all(values[:start] == exp.idle) and np.all(values[start + want.size :] == exp.idle)
+    assert_periods(times, exp)
+
+
+def test_c_player_stop_ramps_to_idle(fw: Firmware, tmp_path: Path) -> None:
+    exp, _files = make(tmp_path, "hum", seconds=0.02, freq_hz=440.0)
+    per_sample = exp.period_clocks * exp.periods_per_sample
+    ops = [("init", 0), ("start", 0), ("delay", int(150 * per_sample)), ("stop", 0)]
+    image = fw.make(tmp_path, [], [], app=app("hum", ops))
+    r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    values, _t = per_period(r.periods, exp)
+    want = np.repeat(exp.codes, exp.periods_per_sample)
+    start = find(values, want[:50])
+    played = values[start:]
+    n = 0
+    while n < played.size and n < want.size and played[n] == want[n]:
+        n += 1
+    assert 100 < n < want.size - 100, n  # cut short inside the stream
+    tail = played[n:]
+    assert tail[-1] == exp.idle
+    step = int(np.abs(np.diff(np.concatenate([[exp.idle], exp.codes, [exp.idle]]))).max())
+    assert np.abs(np.diff(played)).max() <= step
+
+
+def test_c_player_loop_and_rp2350_build(
+    fw: Firmware, tmp_path: Path, tmp_path_factory: pytest.TempPathFactory
+) -> None:
+    exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0)
+    per_pass = exp.codes.size * exp.period_clocks * exp.periods_per_sample
+    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * per_pass)), ("stop", 0)]
+    image = fw.make(tmp_path, [], [], app=app("drone", ops))
+    r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    values, _t = per_period(r.periods, exp)
+    k = exp.periods_per_sample
+    body = np.repeat(exp.codes, k)
+    start = find(values, np.repeat(exp.intro, k)) + exp.intro.size * k
+    passes = 0
+    while np.array_equal(values[start : start + body.size], body):
+        start += body.size
+        passes += 1
+    assert passes >= 3
+    outro = np.repeat(exp.outro, k)
+    assert np.array_equal(values[start : start + outro.size], outro)
+    assert np.all(values[start + outro.size :] == exp.idle)
+    # the same bundle builds for the RP2350 with its SDK platform
+    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_pwm"), platform="rp2350")
+    assert fw2350.make(tmp_path, [], [], app=app("drone", ops)).stat().st_size > 0
+
+
+@pytest.mark.parametrize(
+    ("rate_hz", "embed"), [(22050.0, False), (11025.0, False), (16000.0, True)]
+)
+def test_micropython_every_period_holds_its_sample(
+    tmp_path: Path, rate_hz: float, embed: bool
+) -> None:
+    exp, files = make(tmp_path, "ping", rate_hz=rate_hz, seconds=0.01, chunk_words=64, embed=embed)
+    board = {"ping.py": files["ping.py"], "ping.bin": files["ping.bin"]}
+    r = run_micropython(
+        board, [{"code": "import ping\nping.play()\n"}], tmp_path, pwm_slices=[exp.slice]
+    )
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    values, times = per_period(r.periods, exp)
+    want = np.repeat(exp.codes, exp.periods_per_sample)
+    start = find(values, want)
+    assert np.all(values[start + want.size :] == exp.idle)
+    assert_periods(times, exp)
+
+
+def test_micropython_interrupt_ramps_down_and_a_loop_ends_on_its_outro(tmp_path: Path) -> None:
+    exp, files = make(tmp_path, "buzz", seconds=0.05, chunk_words=64)
+    board = {"buzz.py": files["buzz.py"], "buzz.bin": files["buzz.bin"]}
+    steps = [
+        {"code": "import buzz\np = buzz.Player()\n"},
+        {"code": "p.play()\n", "interrupt_after": 2_500_000},  # 20 ms in
+    ]
+    r = run_micropython(board, steps, tmp_path, pwm_slices=[exp.slice])
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    values, _t = per_period(r.periods, exp)
+    want = np.repeat(exp.codes, exp.periods_per_sample)
+    start = find(values, want[:50])
+    played = values[start:]
+    n = 0
+    while n < played.size and n < want.size and played[n] == want[n]:
+        n += 1
+    assert 100 < n < want.size - 100, n
+    assert played[-1] == exp.idle
+    step = int(np.abs(np.diff(np.concatenate([[exp.idle], exp.codes, [exp.idle]]))).max())
+    assert np.abs(np.diff(played)).max() <= step
