@@ -117,6 +117,27 @@ SCENARIOS: dict[str, list[list[str]]] = {
             "10",
         ],
     ],
+    "pwm_loop": [
+        [
+            "tone",
+            "sine",
+            "-o",
+            ".",
+            "--name",
+            "buzzer",
+            "--output",
+            "pwm",
+            "--rate-hz",
+            "16000",
+            "--seconds",
+            "0.003",
+            "--loop",
+            "--out-base",
+            "13",
+            "--ramp-ms",
+            "0.5",
+        ],
+    ],
     "tone_shaped_levels": [
         [
             "ladder",

@@ -209,3 +209,102 @@ def test_reconstruction_filter_refuses_a_band_above_the_carrier() -> None:
     with pytest.raises(OptionError) as info:
         reconstruction_filter(plan_pwm(22050), 1e6)
     assert info.value.field == "band_hz"
+
+
+# --- PWM streams ---------------------------------------------------------------------------
+
+
+def test_stream_quantises_to_the_slice_levels() -> None:
+    import numpy as np
+
+    from ladderpack.outputs.pwm import plan_pwm
+    from ladderpack.stream import stream_tone
+
+    asset = stream_tone("sine", name="p", output="pwm", seconds=0.02, level_dbfs=0.0)
+    plan = plan_pwm(22050)
+    assert asset.plan == plan and asset.pwm is not None and asset.pwm.slice == 0
+    codes = asset.codes.codes.astype(int) if asset.codes is not None else None
+    assert codes is not None
+    # compare values 0..TOP+1 (duty 0 to 100 %, datasheet 4.5.2.2), two 16-bit values a
+    # word, the first in bits 15:0
+    assert codes.min() >= 0 and codes.max() <= plan.top + 1
+    words = asset.packed.words.astype(np.int64)
+    halves = np.stack([words & 0xFFFF, words >> 16], axis=1).reshape(-1)
+    assert np.array_equal(halves[: codes.size], codes)
+    # a full-scale sine reaches both ends of the scale (dither aside)
+    assert codes.max() >= plan.top and codes.min() <= 1
+    s = asset.summary()
+    assert s["pwm"]["levels"] == 1418 and s["divider"] == "1+0/16"
+
+
+def test_pwm_options_refuse_what_does_not_apply() -> None:
+    from ladderpack.options import StreamOptions
+    from ladderpack.stream import stream_tone
+
+    refused = [
+        ({"bits": 8}, "bits"),
+        ({"invert": True}, "invert"),
+        ({"clock_pin": 3}, "clock_pin"),
+        ({"out_base": 30}, "out_base"),
+    ]
+    for bad, field in refused:
+        with pytest.raises(OptionError) as info:
+            StreamOptions(output="pwm", **bad)
+        assert info.value.field == field
+    with pytest.raises(OptionError) as info:
+        StreamOptions(min_carrier_hz=100000.0)
+    assert info.value.field == "min_carrier_hz"
+    with pytest.raises(OptionError) as info:
+        stream_tone("sine", output="pwm", idle_code=5000, seconds=0.01)
+    assert info.value.field == "idle_code"
+
+
+@pytest.mark.slow
+def test_generated_c_compiles_pedantic_and_holds_the_bin(tmp_path) -> None:
+    import shutil
+
+    import numpy as np
+
+    from ladderpack.bundle import write_bundle
+    from ladderpack.stream import stream_tone
+
+    gcc = shutil.which("gcc")
+    assert gcc, ".ci/run installs gcc"
+    write_bundle(stream_tone("sine", name="pw", output="pwm", seconds=0.003), tmp_path)
+    main = tmp_path / "main.c"
+    main.write_text(
+        '#include <stdio.h>\n#include "pw.h"\n'
+        "int main(void) {\n    unsigned i;\n    for (i = 0; i < PW_WORD_COUNT; ++i) {\n"
+        '        printf("%08lx\\n", (unsigned long)pw_words[i]);\n    }\n'
+        '    printf("%u %u\\n", (unsigned)PW_TOP, (unsigned)PW_TRANSFER_COUNT);\n'
+        "    return 0;\n}\n"
+    )
+    exe = tmp_path / "dump"
+    subprocess.run(
+        [gcc, "-std=c99", "-pedantic", "-Wall", "-Wextra", "-Werror", "-o", str(exe),
+         str(main), str(tmp_path / "pw.c")],
+        check=True,
+    )  # fmt: skip
+    out = subprocess.run([str(exe)], check=True, capture_output=True, text=True).stdout.split()
+    words = np.frombuffer((tmp_path / "pw.bin").read_bytes(), "<u4")
+    assert [int(w, 16) for w in out[:-2]] == [int(w) for w in words]
+    side = json.loads((tmp_path / "pw.json").read_text())
+    assert int(out[-2]) == side["clock"]["top"] == 1416
+    assert int(out[-1]) == side["stream"]["sample_count"]
+    assert side["pwm"]["dreq"] == 59 and "program" not in side  # DREQ_DMA_TIMER0
+
+
+def test_a_manifest_builds_a_pwm_asset(tmp_path) -> None:
+    from click.testing import CliRunner
+
+    from ladderpack.cli import cli
+
+    (tmp_path / "ladderpack.toml").write_text(
+        '[project]\nout_dir = "gen"\n\n[[asset]]\nname = "beep"\ntone = "sine"\n'
+        'output = "pwm"\nseconds = 0.002\nout_base = 15\nmin_carrier_hz = 44100\n'
+    )
+    res = CliRunner().invoke(cli, ["build", str(tmp_path / "ladderpack.toml")])
+    assert res.exit_code == 0, res.output
+    side = json.loads((tmp_path / "gen" / "beep.json").read_text())
+    assert side["pwm"]["slice"] == 7 and side["pwm"]["channel"] == "B"
+    assert (tmp_path / "gen" / "ladderpack_pwm.c").is_file()
