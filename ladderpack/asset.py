@@ -49,6 +49,7 @@ class StreamSummary(TypedDict):
     flash_share: float | None
     max_duration_s: float | None
     pwm: NotRequired[dict[str, Any]]
+    stereo: NotRequired[bool]
 
 
 @dataclass(frozen=True)
@@ -214,6 +215,8 @@ class StreamAsset:
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
+        if self.program is None or self.program.variant.startswith("i2s"):
+            out["stereo"] = bool(self.options.get("stereo", False))
         if self.pwm is not None:
             p = self._pwm_plan
             out["pwm"] = {
@@ -248,6 +251,15 @@ def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:
     """
     lay = asset.packed.layout
     parts = [p for p in (asset.intro, asset.packed, asset.outro) if p is not None]
+    if hasattr(lay, "unpack_words"):  # I2S or stereo PWM: whole frames, channels apart
+        seqs = [np.asarray(lay.unpack_words(p.words), dtype=np.int64) for p in parts]
+        frames = np.concatenate(seqs, axis=0) if seqs else np.zeros((0, 2), np.int64)
+        seq = np.concatenate([[[asset.idle_code] * 2], frames, [[asset.idle_code] * 2]])
+        steps = np.abs(np.diff(seq, axis=0)).max() if seq.shape[0] > 1 else 0
+        if asset.loop and asset.packed.words.size:
+            body = np.asarray(lay.unpack_words(asset.packed.words), dtype=np.int64)
+            steps = max(int(steps), int(np.abs(body[-1] - body[0]).max()))
+        return int(steps)
     best = 0
     prev = asset.idle_code
     first_of_loop: int | None = None

@@ -34,13 +34,17 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
     i2s = str(summary.get("program", "")).startswith("i2s")
     pwm = summary.get("pwm")
     unit = "frame" if i2s else "sample"  # an I2S frame: the sample in both channel slots
+    stereo = bool(summary.get("stereo"))
     if pwm:
+        pins = f"GPIO {pwm['pin']} and {pwm['pin'] + 1}" if stereo else f"GPIO {pwm['pin']}"
         kind = (
-            f"PWM on GPIO {pwm['pin']} (slice {pwm['slice']}), {pwm['levels']} levels "
-            f"({pwm['effective_bits']:.2f} bits)"
+            f"{'stereo ' if stereo else ''}PWM on {pins} (slice {pwm['slice']}), "
+            f"{pwm['levels']} levels ({pwm['effective_bits']:.2f} bits)"
         )
     else:
-        kind = f"{summary['bits']}-bit" + (" I2S, in both channels" if i2s else "")
+        kind = f"{summary['bits']}-bit" + (
+            (", stereo I2S" if stereo else " I2S, mono in both channels") if i2s else ""
+        )
     click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {kind}")
     click.echo(f"  rate     {rate_line}")
     if pwm:

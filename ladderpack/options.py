@@ -385,6 +385,13 @@ class StreamOptions(_Model):
         lo=0,
         default_text="out_base + 1",
     )
+    stereo: bool = _opt(
+        False,
+        "I2S and PWM: two channels (a clip's first two; a tone in both): left and right "
+        "slots of I2S, channels A and B of the PWM slice. Mono sends one channel (I2S: in "
+        "both slots).",
+        flag="--stereo/--mono",
+    )
     min_carrier_hz: float | None = _opt(
         None,
         "PWM only: lowest acceptable PWM frequency (the carrier).",
@@ -491,6 +498,8 @@ class StreamOptions(_Model):
     )
     I2S_ONLY: ClassVar[tuple[str, ...]] = ("clock_pin", "frame_format")
     PWM_ONLY: ClassVar[tuple[str, ...]] = ("min_carrier_hz",)
+    #: Options of the outputs other than the ladder.
+    SERIAL_ONLY: ClassVar[tuple[str, ...]] = ("stereo",)
 
     def __post_init__(self) -> None:
         if self.bits is None:
@@ -516,6 +525,11 @@ class StreamOptions(_Model):
         for name in self.I2S_ONLY if self.output != "i2s" else ():
             if _flag_given(self, name):
                 raise OptionError("applies only to output i2s", field=name)
+        if self.output == "ladder" and self.stereo:
+            raise OptionError(
+                "applies only to outputs i2s and pwm (a stereo ladder is not made yet)",
+                field="stereo",
+            )
         if self.output == "i2s":
             self._check_i2s()
             return
@@ -552,7 +566,13 @@ class StreamOptions(_Model):
             if _flag_given(self, name):
                 raise OptionError("applies only to output ladder", field=name)
         self._check_common()
-        if self.out_base >= int(self.gpio_count or 0):
+        if self.stereo and self.out_base % 2:
+            raise OptionError(
+                f"a stereo PWM stream uses both channels of a slice: give its channel A "
+                f"(an even GPIO), got GPIO {self.out_base}",
+                field="out_base",
+            )
+        if self.out_base + int(self.stereo) >= int(self.gpio_count or 0):
             raise OptionError(
                 f"the PWM pin GPIO {self.out_base} is not on the target (GPIO 0.."
                 f"{int(self.gpio_count or 0) - 1})",
@@ -638,10 +658,16 @@ class StreamOptions(_Model):
         out = super().to_dict()
         own = {
             "ladder": self.LADDER_ONLY,
-            "i2s": self.I2S_ONLY,
-            "pwm": (*self.PWM_ONLY, "idle_code", "ramp_ms"),
+            "i2s": (*self.I2S_ONLY, *self.SERIAL_ONLY),
+            "pwm": (*self.PWM_ONLY, *self.SERIAL_ONLY, "idle_code", "ramp_ms"),
         }[self.output]
-        others = {*self.LADDER_ONLY, *self.I2S_ONLY, *self.PWM_ONLY, "output"} - set(own)
+        others = {
+            *self.LADDER_ONLY,
+            *self.I2S_ONLY,
+            *self.PWM_ONLY,
+            *self.SERIAL_ONLY,
+            "output",
+        } - set(own)
         if self.output != "ladder":
             others.discard("output")
         if self.output == "pwm":

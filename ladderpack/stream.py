@@ -17,6 +17,7 @@ result to :func:`ladderpack.bundle.write_bundle`).
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 from collections.abc import Callable, Iterator
@@ -44,7 +45,7 @@ from ladderpack.outputs.i2s import (
     i2s_state_machine,
     plan_i2s,
 )
-from ladderpack.outputs.pwm import PwmPlan, PwmSetup, plan_pwm
+from ladderpack.outputs.pwm import PwmPlan, PwmSetup, PwmStereoLayout, plan_pwm
 from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
     Program,
@@ -147,7 +148,7 @@ class StreamPlan:
     options: StreamOptions
     levels: LevelSet | None
     clock: ClockPlan | PwmPlan
-    layout: WordLayout | I2sLayout
+    layout: WordLayout | I2sLayout | PwmStereoLayout
     program: Program | None
     sm: StateMachineConfig | None
     shaper: Shaper
@@ -181,10 +182,18 @@ class StreamPlan:
 
     @property
     def samples_per_word(self) -> int:
-        """Samples per word for whole-word lengths (1 for I2S: every frame is whole words)."""
-        if isinstance(self.layout, I2sLayout):
-            return 1
-        return self.layout.samples_per_word
+        """Frames per word for whole-word lengths.
+
+        1 for I2S and stereo PWM, where every frame is whole words.
+        """
+        if isinstance(self.layout, WordLayout):
+            return self.layout.samples_per_word
+        return 1
+
+    @property
+    def channels(self) -> int:
+        """Channels of the stream: 2 for stereo I2S and PWM, else 1."""
+        return 2 if self.options.stereo else 1
 
 
 @dataclass
@@ -328,7 +337,7 @@ def plan_stream(
     opts = options
     ident = asset_identifier(name)
     levels = _plan_levels(opts)
-    layout: WordLayout | I2sLayout
+    layout: WordLayout | I2sLayout | PwmStereoLayout
     clock: ClockPlan | PwmPlan
     per_word: int | Fraction
     scale, setup = None, None
@@ -352,15 +361,19 @@ def plan_stream(
                 f"{opts.idle_code}",
                 field="idle_code",
             )
-        setup = PwmSetup(pwm_plan, opts.out_base, chip=opts.target[:6])
+        setup = PwmSetup(pwm_plan, opts.out_base, stereo=opts.stereo, chip=opts.target[:6])
         clock = pwm_plan
-        # compare values are 16 bits: two to a word, the first in bits 15:0 (little-endian
-        # halfwords, the order 16-bit DMA transfers read them)
-        layout = WordLayout(16, shift_right=True, per_word=2)
-        spw = per_word = 2
         variant = f"pwm-{pwm_plan.pacing}"
+        if opts.stereo:  # one word a frame: A in bits 15:0, B in 31:16
+            layout = PwmStereoLayout()
+            spw = per_word = 1
+        else:
+            # compare values are 16 bits: two to a word, the first in bits 15:0
+            # (little-endian halfwords, the order 16-bit DMA transfers read them)
+            layout = WordLayout(16, shift_right=True, per_word=2)
+            spw = per_word = 2
     elif opts.output == "i2s":
-        layout = I2sLayout(opts.bits)
+        layout = I2sLayout(opts.bits, stereo=opts.stereo)
         spw, variant = 1, f"i2s-{opts.frame_format}"
         clock = plan_i2s(
             opts.rate_hz,
@@ -435,6 +448,7 @@ def plan_stream(
             gpio_base=opts.gpio_base,
         )
     else:
+        assert isinstance(layout, WordLayout)
         program = ladder_program(
             opts.bits,
             clock.cycles_per_sample,
@@ -476,39 +490,66 @@ def plan_stream(
 
 
 def _conformed(
-    plan: StreamPlan, src: MonoSource, out: Processed, done: Progress
-) -> Iterator[np.ndarray]:
-    """DC removal, resampling, level and fades, block by block (float samples)."""
+    plan: StreamPlan, srcs: list[MonoSource], out: Processed, done: Progress
+) -> Iterator[list[np.ndarray]]:
+    """DC removal, resampling, level and fades, block by block (float samples).
+
+    Yields a list of one block per channel; the channels share the gain (their joint peak,
+    or their joint loudness: ITU-R BS.1770 sums the channels' mean squares).
+    """
     opts, rate_out = plan.options, plan.clock.achieved_rate_hz
-    mean = src.mean(plan.block_frames)
+    means = [src.mean(plan.block_frames) for src in srcs]
     if opts.loop:  # a loop is one block: the crossfade and the wrap need all of it
-        x = conform.loop_crossfade(
-            Signal(src.whole() - mean, src.rate_hz), crossfade_ms=opts.crossfade_ms
-        )
-        rate = conform.loop_rate(x.frames, x.rate_hz, rate_out, plan.samples_per_word)
+        xs = [
+            conform.loop_crossfade(
+                Signal(src.whole() - mean, src.rate_hz), crossfade_ms=opts.crossfade_ms
+            )
+            for src, mean in zip(srcs, means, strict=True)
+        ]
+        rate = conform.loop_rate(xs[0].frames, xs[0].rate_hz, rate_out, plan.samples_per_word)
         out.loop_rate_ppm = float((rate / rate_out - 1) * 1_000_000)
-        x = conform.resample(x, rate, bits=opts.bits, periodic=True)
-        x, out.gain_db = conform.normalise_peak(x, headroom_db=opts.headroom_db)
-        yield x.samples
+        sigs = [conform.resample(x, rate, bits=opts.bits, periodic=True) for x in xs]
+        if len(sigs) == 1:
+            one, out.gain_db = conform.normalise_peak(sigs[0], headroom_db=opts.headroom_db)
+            yield [one.samples]
+            return
+        # the same gain for every channel (normalise_peak's rule on the joint peak)
+        top = max(float(np.max(np.abs(x.samples))) if x.frames else 0.0 for x in sigs)
+        if top == 0.0:
+            yield [x.samples for x in sigs]
+            return
+        g = conform.dbfs_to_amplitude(-opts.headroom_db) / top
+        out.gain_db = 20.0 * math.log10(g)
+        yield [x.samples * g for x in sigs]
         return
-    one_block = plan.block_frames >= src.frames
+    first = srcs[0]
+    one_block = plan.block_frames >= first.frames
     out_hz = float(Fraction(rate_out))
-    rs = conform.StreamResampler(src.rate_hz, rate_out, src.frames, bits=opts.bits)
-    meter = None if opts.loudness_lufs is None else LoudnessMeter(out_hz, rs.n_out)
+    rss = [
+        conform.StreamResampler(src.rate_hz, rate_out, src.frames, bits=opts.bits) for src in srcs
+    ]
+    meter = (
+        None
+        if opts.loudness_lufs is None
+        else LoudnessMeter(out_hz, rss[0].n_out, channels=len(srcs))
+    )
     peak, n_out, seen = 0.0, 0, 0
-    with _Spill(in_memory=one_block) as spill:
+    with contextlib.ExitStack() as stack:
+        spills = [stack.enter_context(_Spill(in_memory=one_block)) for _ in srcs]
         # One pass reads and resamples the clip, measures it and keeps the result (in a
         # temporary file for long clips, so memory stays flat); the second scales it.
-        for mono in src.blocks(plan.block_frames):
-            seen += mono.size
-            y = rs.feed(mono - mean, last=seen >= src.frames)
-            if y.size:
-                peak = max(peak, float(np.max(np.abs(y))))
-                n_out += y.size
-                spill.write(y)
+        for blocks in zip(*(src.blocks(plan.block_frames) for src in srcs), strict=True):
+            seen += blocks[0].size
+            last = seen >= first.frames
+            ys = [rs.feed(b - m, last=last) for rs, b, m in zip(rss, blocks, means, strict=True)]
+            if ys[0].size:
+                for y, spill in zip(ys, spills, strict=True):
+                    peak = max(peak, float(np.max(np.abs(y))))
+                    spill.write(y)
+                n_out += ys[0].size
                 if meter is not None:
-                    meter.feed(y)
-            done("resample", _FIRST_PASS_SHARE * seen / src.frames)
+                    meter.feed(ys[0] if len(ys) == 1 else np.stack(ys, axis=1))
+            done("resample", _FIRST_PASS_SHARE * seen / first.frames)
         if meter is not None:
             gain_db, out.loudness = loudness_gain(
                 meter,
@@ -523,16 +564,20 @@ def _conformed(
         n_fade = min(round(opts.fade_ms * 1e-3 * out_hz), n_out // 2)
         w = conform.raised_cosine(n_fade)
         pos = 0
-        for y in spill.read():
-            y = y * gain if gain is not None else np.array(y)
-            lo, hi = pos, pos + y.size
-            if lo < n_fade:
-                y[: min(hi, n_fade) - lo] *= w[lo : min(hi, n_fade)]
-            if n_fade and hi > n_out - n_fade:
-                start = max(lo, n_out - n_fade)
-                y[start - lo :] *= w[::-1][start - (n_out - n_fade) : hi - (n_out - n_fade)]
+        for kept in zip(*(spill.read() for spill in spills), strict=True):
+            size = kept[0].size
+            lo, hi = pos, pos + size
+            scaled = []
+            for y in kept:
+                y = y * gain if gain is not None else np.array(y)
+                if lo < n_fade:
+                    y[: min(hi, n_fade) - lo] *= w[lo : min(hi, n_fade)]
+                if n_fade and hi > n_out - n_fade:
+                    start = max(lo, n_out - n_fade)
+                    y[start - lo :] *= w[::-1][start - (n_out - n_fade) : hi - (n_out - n_fade)]
+                scaled.append(y)
             pos = hi
-            yield y
+            yield scaled
             done("quantise", _FIRST_PASS_SHARE + (_PACKED_SHARE - _FIRST_PASS_SHARE) * pos / n_out)
 
 
@@ -574,7 +619,7 @@ class _Spill:
 
 def process(
     plan: StreamPlan,
-    source: MonoSource | Callable[[float, int], Signal],
+    source: MonoSource | list[MonoSource] | Callable[[float, int], Signal],
     *,
     progress: Progress | None = None,
 ) -> Processed:
@@ -584,10 +629,11 @@ def process(
     ----------
     plan : StreamPlan
         From :func:`plan_stream`.
-    source : MonoSource or callable
-        Mono samples in blocks (a clip or an in-memory signal), or a function
-        ``synth(rate_hz, samples_per_word) -> Signal`` whose samples, made at the
-        stream rate, are quantised as they are.
+    source : MonoSource, list of MonoSource, or callable
+        Mono samples in blocks (a clip or an in-memory signal), one source per channel
+        for a stereo stream, or a function ``synth(rate_hz, samples_per_word) -> Signal``
+        whose samples, made at the stream rate, are quantised as they are (in both
+        channels of a stereo stream).
     progress : callable, optional
         Called with the stage under way (see :data:`STAGES`) and the share of the
         job done (0..1), after every block of a long clip.
@@ -595,36 +641,51 @@ def process(
     Returns
     -------
     Processed
-        The packed words (and the codes, when the input was one block).
+        The packed words (and the codes, interleaved for stereo, when the input was
+        one block).
     """
     done: Progress = progress or (lambda stage, share: None)
-    opts, lay, idle = plan.options, plan.layout, plan.idle_code
+    opts, lay, idle, nch = plan.options, plan.layout, plan.idle_code, plan.channels
     out = Processed(Packed(np.zeros(0, np.uint32), lay, 0, idle), None, None, None, 0)  # type: ignore[arg-type]
-    if isinstance(source, MonoSource):
-        out.rate_in_hz = source.rate_hz
-        keep = plan.block_frames >= source.frames
-        audio_blocks: Iterator[np.ndarray] = _conformed(plan, source, out, done)
+    audio_blocks: Iterator[list[np.ndarray]]
+    if isinstance(source, MonoSource | list):
+        srcs = source if isinstance(source, list) else [source]
+        if len(srcs) != nch:
+            raise OptionError(
+                f"expected {nch} channel(s) of input, got {len(srcs)}", field="stereo"
+            )
+        out.rate_in_hz = srcs[0].rate_hz
+        keep = plan.block_frames >= srcs[0].frames
+        audio_blocks = _conformed(plan, srcs, out, done)
     else:
         sig = check_signal(source(plan.rate_hz, plan.samples_per_word))
         keep = True
-        audio_blocks = iter([np.asarray(sig.samples, dtype=np.float64)])
-    q = BlockQuantizer(
-        bits=opts.bits,
-        dither=opts.dither,
-        shaper=plan.shaper,
-        seed=opts.seed,
-        levels=plan.levels,
-        scale=plan.scale,
+        audio_blocks = iter([[np.asarray(sig.samples, dtype=np.float64)] * nch])
+    # one quantiser a channel; the first has the stream's seed (a mono stream's codes)
+    qs = [
+        BlockQuantizer(
+            bits=opts.bits,
+            dither=opts.dither,
+            shaper=plan.shaper,
+            seed=opts.seed + k,
+            levels=plan.levels,
+            scale=plan.scale,
+        )
+        for k in range(nch)
+    ]
+    scale = qs[0].scale
+    ramp = np.repeat(
+        idle_ramp(idle, opts.bits, plan.ramp_samples, mid=scale.half).astype(scale.dtype), nch
     )
-    ramp = idle_ramp(idle, opts.bits, plan.ramp_samples, mid=q.scale.half).astype(q.scale.dtype)
     kept: list[np.ndarray] = []
 
     def quantised() -> Iterator[np.ndarray]:
-        for i, block in enumerate(audio_blocks):
+        for i, blocks in enumerate(audio_blocks):
             if i == 0:
                 done("quantise", _FIRST_PASS_SHARE)
-            c = q.feed(block)
-            out.audio_samples += c.size
+            cs = [q.feed(b) for q, b in zip(qs, blocks, strict=True)]
+            c = cs[0] if nch == 1 else np.stack(cs, axis=1).reshape(-1)  # interleaved
+            out.audio_samples += cs[0].size
             if keep:
                 kept.append(c)
             yield c
@@ -635,30 +696,43 @@ def process(
         if isinstance(lay, I2sLayout):
             # I2S idles at silence, so a loop needs no ramps: no intro, and an outro of
             # one silent frame for the state machine to end on.
-            out.packed = Packed(lay.pack_codes(out.codes.codes), lay, len(out.codes), idle)  # type: ignore[arg-type]
-            silent = lay.pack_codes(np.full(1, idle, q.scale.dtype))
+            frames = len(out.codes) // nch
+            out.packed = Packed(lay.pack_codes(out.codes.codes), lay, frames, idle)  # type: ignore[arg-type]
+            silent = lay.pack_codes(np.full(nch, idle, scale.dtype))
             out.intro = Packed(np.zeros(0, np.uint32), lay, 0, idle)  # type: ignore[arg-type]
             out.outro = Packed(silent, lay, 1, idle)  # type: ignore[arg-type]
+        elif isinstance(lay, PwmStereoLayout):
+            frames = len(out.codes) // nch
+            out.packed = Packed(lay.pack_codes(out.codes.codes), lay, frames, idle)  # type: ignore[arg-type]
+            up = ramp.reshape(-1, nch)[:, 0]
+            down = np.concatenate([up[::-1], [idle]]).astype(scale.dtype)
+            out.intro = Packed(lay.pack_codes(np.repeat(up, nch)), lay, up.size, idle)  # type: ignore[arg-type]
+            out.outro = Packed(lay.pack_codes(np.repeat(down, nch)), lay, down.size, idle)  # type: ignore[arg-type]
         else:
             out.packed = pack(out.codes, lay, pad_code=idle)
-            out.intro, out.outro = _loop_ramps(ramp, lay, idle, q.scale)
+            out.intro, out.outro = _loop_ramps(ramp, lay, idle, scale)
     else:
         # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
         # sample closes it, a step no larger than the one from idle into its start.
-        tail = ramp[::-1] if ramp.size else np.full(1, idle, q.scale.dtype)
-        steps = _StepTracker(idle)
+        tail = (
+            ramp.reshape(-1, nch)[::-1].reshape(-1)
+            if ramp.size
+            else np.full(nch, idle, scale.dtype)
+        )
+        steps = _StepTracker(idle, nch)
         blocks = steps.watch(_chain(ramp, quantised(), tail))
-        if isinstance(lay, I2sLayout):  # every frame is whole words
-            words = [lay.pack_codes(b) for b in blocks]
-        else:
+        if isinstance(lay, WordLayout):
             words = list(pack_blocks(blocks, lay, pad_code=idle))
+        else:  # every frame is whole words
+            words = [lay.pack_codes(b) for b in blocks]
         out.max_step = steps.largest()
-        n = ramp.size + out.audio_samples + tail.size
+        n = (ramp.size + tail.size) // nch + out.audio_samples
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
         out.packed = Packed(flat, lay, n, idle)  # type: ignore[arg-type]
         if keep:
             out.codes = Codes(np.concatenate([ramp, *kept, tail]), opts.bits)
-    out.overloads, out.resets = q.overloads, q.resets
+    out.overloads = sum(q.overloads for q in qs)
+    out.resets = sum(q.resets for q in qs)
     done("pack", 1.0)
     return out
 
@@ -668,26 +742,27 @@ class _StepTracker:
 
     Equals :func:`ladderpack.asset.largest_step` of the packed stream (the padding
     slots of the last word hold the idle code, and the pins return to it), without
-    unpacking the words again (tested).
+    unpacking the words again (tested).  Interleaved channels are followed each on its
+    own.
     """
 
-    def __init__(self, idle_code: int) -> None:
+    def __init__(self, idle_code: int, channels: int = 1) -> None:
         self.idle = int(idle_code)
-        self.prev = int(idle_code)
+        self.prev = np.full(channels, int(idle_code), np.int64)
         self.best = 0
 
     def watch(self, blocks: Iterator[np.ndarray]) -> Iterator[np.ndarray]:
         for block in blocks:
             if block.size:
-                c = block.astype(np.int64)
-                self.best = max(self.best, abs(int(c[0]) - self.prev))
-                if c.size > 1:
-                    self.best = max(self.best, int(np.abs(np.diff(c)).max()))
-                self.prev = int(c[-1])
+                c = block.astype(np.int64).reshape(-1, self.prev.size)
+                self.best = max(self.best, int(np.abs(c[0] - self.prev).max()))
+                if c.shape[0] > 1:
+                    self.best = max(self.best, int(np.abs(np.diff(c, axis=0)).max()))
+                self.prev = c[-1].copy()
             yield block
 
     def largest(self) -> int:
-        return max(self.best, abs(self.prev - self.idle))
+        return max(self.best, int(np.abs(self.prev - self.idle).max()))
 
 
 def _chain(
@@ -932,13 +1007,21 @@ def stream_signal(
     if not isinstance(sig, Signal):
         raise OptionError("expected a Signal", field="samples")
     check_signal(sig, source=(source or {}).get("file"))
-    if sig.samples.ndim != 1:
+    x = np.asarray(sig.samples)
+    if opts.stereo:
+        if x.ndim != 2 or x.shape[1] < 2:
+            raise OptionError(
+                "a stereo stream needs a signal of frames x 2 channels", field="samples"
+            )
+        srcs: list[MonoSource] = [ArraySource(Signal(x[:, k], sig.rate_hz)) for k in (0, 1)]
+    elif x.ndim != 1:
         raise OptionError(
             "expected a mono signal; downmix or pick a channel first", field="samples"
         )
-    src = ArraySource(sig)
-    plan = plan_stream(opts, name=name, rate_in_hz=src.rate_hz, frames=src.frames)
-    return finish(plan, process(plan, src, progress=progress), name=name, source=source)
+    else:
+        srcs = [ArraySource(sig)]
+    plan = plan_stream(opts, name=name, rate_in_hz=srcs[0].rate_hz, frames=srcs[0].frames)
+    return finish(plan, process(plan, srcs, progress=progress), name=name, source=source)
 
 
 def stream_clip(
@@ -983,7 +1066,22 @@ def stream_clip(
     """
     opts = _options(options, overrides)
     copts = clip or ClipOptions(channel=channel, block_frames=block_frames)
-    src = FileSource(path, channel=copts.channel)
+    if opts.stereo and copts.channel is not None:
+        raise OptionError(
+            "a stereo stream takes the clip's first two channels; drop channel",
+            field="channel",
+        )
+    src = FileSource(path, channel=0 if opts.stereo else copts.channel)
+    srcs: list[MonoSource] = [src]
+    if opts.stereo:
+        if src.channels < 2:
+            raise OptionError(
+                f"a stereo stream needs a clip of 2 or more channels; this one has "
+                f"{src.channels} (use --mono)",
+                file=src.path,
+                field="stereo",
+            )
+        srcs.append(FileSource(path, channel=1))
     blk = copts.block_frames
     if blk is not None and opts.loop and blk < src.frames:
         raise OptionError(
@@ -1011,16 +1109,20 @@ def stream_clip(
     with ThreadPoolExecutor(max_workers=1) as pool:
         digest = pool.submit(sha256_file, src.path)
         try:
-            done = process(plan, src, progress=progress)
+            done = process(plan, srcs, progress=progress)
         finally:
-            src.close()
+            for one in srcs:
+                if isinstance(one, FileSource):
+                    one.close()
         provenance = {
             "file": os.path.basename(src.path),
             "sha256": digest.result(),
             "rate_hz": src.rate_hz,
             "channels": src.channels,
             "frames": src.frames,
-            "channel": "mix" if copts.channel is None else copts.channel,
+            "channel": "0 and 1"
+            if opts.stereo
+            else ("mix" if copts.channel is None else copts.channel),
         }
     return finish(plan, done, name=stem, source=provenance)
 

@@ -315,3 +315,67 @@ def test_micropython_interrupted_stream_fades_out(tmp_path: Path) -> None:
     fade = left[n:]
     assert 0 < fade.size <= 64 + 1 and fade[-1] == 0
     assert np.all(np.abs(fade[1:]) <= np.abs(fade[:-1]) + 1)
+
+
+@pytest.mark.parametrize("bits", [16, 24])
+def test_stereo_slots_carry_their_own_channel(fw: Firmware, tmp_path: Path, bits: int) -> None:
+    from ladderpack.audio import Signal
+    from ladderpack.stream import stream_signal
+
+    t = np.arange(1200) / 48000.0
+    x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
+    asset = stream_signal(
+        Signal(x, 48000.0),
+        name="duet",
+        output="i2s",
+        stereo=True,
+        bits=bits,
+        out_base=DATA,
+        clock_pin=CLOCK,
+    )
+    write_bundle(asset, tmp_path)
+    exp = Expected.load(tmp_path, "duet")
+    assert not np.array_equal(exp.left, exp.right)
+    r = build_and_run(fw, tmp_path, "duet", [("init", 0), ("start", 0), ("wait", 0)])
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t_ = frames_of(slots, times, bits)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert_period(t_, exp)
+
+
+def test_micropython_stereo(tmp_path: Path) -> None:
+    from ladderpack.audio import Signal
+    from ladderpack.bundle import bundle_files
+    from ladderpack.stream import stream_signal
+    from tests.chip.harness import run_micropython
+
+    t = np.arange(400) / 16000.0
+    x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
+    asset = stream_signal(
+        Signal(x, 16000.0),
+        name="duet",
+        output="i2s",
+        stereo=True,
+        bits=24,
+        rate_hz=16000.0,
+        out_base=DATA,
+        clock_pin=CLOCK,
+        chunk_words=64,
+    )
+    files = bundle_files(asset, embed_words_max=0)
+    for fname, data in files.items():
+        (tmp_path / fname).write_bytes(data)
+    exp = Expected.load(tmp_path, "duet")
+    board = {"duet.py": files["duet.py"], "duet.bin": files["duet.bin"]}
+    r = run_micropython(
+        board,
+        [{"code": "import duet\nduet.play()\n"}],
+        tmp_path,
+        watch_pins=[DATA, CLOCK, CLOCK + 1],
+    )
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t_ = frames_of(slots, times, 24)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert_period(t_, exp)

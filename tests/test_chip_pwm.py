@@ -279,3 +279,58 @@ def test_micropython_interrupt_ramps_down_and_a_loop_ends_on_its_outro(tmp_path:
     assert played[-1] == exp.idle
     step = int(np.abs(np.diff(np.concatenate([[exp.idle], exp.codes, [exp.idle]]))).max())
     assert np.abs(np.diff(played)).max() <= step
+
+
+def test_stereo_uses_both_channels_of_the_slice(fw: Firmware, tmp_path: Path) -> None:
+    from ladderpack.audio import Signal
+    from ladderpack.bundle import write_bundle
+    from ladderpack.stream import stream_signal
+
+    t = np.arange(2000) / 48000.0
+    x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
+    asset = stream_signal(
+        Signal(x, 48000.0), name="duet", output="pwm", stereo=True, out_base=6, ramp_ms=0.5
+    )
+    write_bundle(asset, tmp_path)
+    side = json.loads((tmp_path / "duet.json").read_text())
+    clk = side["clock"]
+    words = np.frombuffer((tmp_path / "duet.bin").read_bytes(), "<u4").astype(np.int64)
+    a_codes, b_codes = words & 0xFFFF, words >> 16  # channel A in bits 15:0, B in 31:16
+    assert not np.array_equal(a_codes, b_codes)
+    image = fw.make(tmp_path, [], [], app=app("duet", [("init", 0), ("start", 0), ("wait", 0)]))
+    r = run(image, fw.mailbox(), extra={"pwm_slices": [3]})  # GPIO 6 and 7: slice 3
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    rows = r.periods[r.periods[:, 1] == 3]
+    k = clk["periods_per_sample"]
+    for values, want in ((rows[:, 2] & 0xFFFF, a_codes), (rows[:, 2] >> 16, b_codes)):
+        start = find(values, np.repeat(want, k))
+        assert np.all(values[start + want.size * k :] == side["stream"]["idle_code"])
+
+
+def test_micropython_stereo(tmp_path: Path) -> None:
+    from ladderpack.audio import Signal
+    from ladderpack.stream import stream_signal
+
+    t = np.arange(800) / 16000.0
+    x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
+    asset = stream_signal(
+        Signal(x, 16000.0),
+        name="duet",
+        output="pwm",
+        stereo=True,
+        out_base=6,
+        ramp_ms=0.5,
+        rate_hz=16000.0,
+        chunk_words=64,
+    )
+    files = bundle_files(asset, embed_words_max=0)
+    side = json.loads(files["duet.json"])
+    words = np.frombuffer(files["duet.bin"], "<u4").astype(np.int64)
+    board = {"duet.py": files["duet.py"], "duet.bin": files["duet.bin"]}
+    r = run_micropython(board, [{"code": "import duet\nduet.play()\n"}], tmp_path, pwm_slices=[3])
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    rows = r.periods[r.periods[:, 1] == 3]
+    k = side["clock"]["periods_per_sample"]
+    for values, want in ((rows[:, 2] & 0xFFFF, words & 0xFFFF), (rows[:, 2] >> 16, words >> 16)):
+        start = find(values, np.repeat(want, k))
+        assert np.all(values[start + want.size * k :] == side["stream"]["idle_code"])

@@ -40,6 +40,7 @@ __all__ = [
     "DREQ_PWM_WRAP0",
     "PwmPlan",
     "PwmSetup",
+    "PwmStereoLayout",
     "RcFilter",
     "plan_pwm",
     "pwm_slice",
@@ -419,4 +420,54 @@ class PwmSetup:
             "stereo": self.stereo,
             "dreq": self.dreq,
             "transfer_bits": 32 if self.stereo else 16,
+        }
+
+
+@dataclass(frozen=True)
+class PwmStereoLayout:
+    """Compare values of a stereo PWM stream: one 32-bit word a frame.
+
+    Channel A is in bits 15:0 and B in bits 31:16 (the layout of the slice's CC
+    register, datasheet 4.5.3).  Codes come interleaved (A, B, A, B, ...); a mono
+    stream uses the ladder's :class:`~ladderpack.pack.WordLayout` of two 16-bit values
+    a word instead.
+    """
+
+    bits: int = 16
+    stereo: bool = True
+
+    @property
+    def channels(self) -> int:
+        """Codes per frame."""
+        return 2
+
+    @property
+    def words_per_frame(self) -> int:
+        """Words per frame: one."""
+        return 1
+
+    def words_for(self, frames: int) -> int:
+        """Words needed for `frames` frames."""
+        return frames
+
+    def pack_codes(self, codes: np.ndarray) -> np.ndarray:
+        """Interleaved codes (whole frames) -> uint32 words."""
+        c = np.asarray(codes, dtype=np.uint32)
+        if c.size % 2:
+            raise OptionError("a stereo stream needs whole A/B pairs", field="codes")
+        return c[0::2] | (c[1::2] << np.uint32(16))
+
+    def unpack_words(self, words: np.ndarray) -> np.ndarray:
+        """Words -> codes, shape (frames, 2): channel A and B of every frame."""
+        w = np.asarray(words, dtype=np.int64)
+        return np.stack([w & 0xFFFF, w >> 16], axis=1)
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description (the sidecar's ``layout``)."""
+        return {
+            "output": "pwm",
+            "bits": 16,
+            "channels": "stereo",
+            "words_per_frame": 1,
+            "sample_order": "channel A in bits 15:0, B in bits 31:16",
         }
