@@ -4,6 +4,10 @@
   ``frost_warning.flac`` (a spoken warning) at 22.05 kHz.
 * The bench variant, a 12-bit ladder on GPIO 0..11, loops a 1 kHz test sine
   at 48 kHz with TPDF dither (100 whole cycles, so the loop is seamless).
+* The I2S amplifier variant (folder ``i2s_amp``) sends both alerts as 16-bit I2S to a
+  class-D amplifier board: data on GPIO 26, bit clock on 27, word select on 28.
+* The PWM variant (folder ``pwm``) plays both alerts on GPIO 15 (PWM slice 7, channel
+  B) through an RC filter: the cheapest station, one pin and two resistors.
 """
 
 from __future__ import annotations
@@ -50,4 +54,12 @@ def run_demo(
         source={"file": "synthesised 1 kHz sine, 100 cycles"},
     )
     results.append((bench.summary(), write_bundle(bench, out_dir)))
+    variants: tuple[tuple[str, dict[str, object]], ...] = (
+        ("i2s_amp", {"output": "i2s", "bits": 16, "out_base": 26, "clock_pin": 27}),
+        ("pwm", {"output": "pwm", "out_base": 15}),
+    )
+    for folder, opts in variants:
+        for clip in ("door_chime.flac", "frost_warning.flac"):
+            asset = stream_clip(os.path.join(clips_dir, clip), rate_hz=22050, **opts)
+            results.append((asset.summary(), write_bundle(asset, os.path.join(out_dir, folder))))
     return results

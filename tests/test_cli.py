@@ -178,6 +178,12 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
             assert stem + ext in files
     chime = json.loads((tmp_path / "demo" / "door_chime.json").read_text())
     assert chime["state_machine"]["out_base"] == 16 and chime["stream"]["bits"] == 8
+    # the station's I2S amplifier and PWM variants, each a folder of its own
+    for folder, output in (("i2s_amp", "i2s"), ("pwm", "pwm")):
+        for stem in ("door_chime", "frost_warning"):
+            side = json.loads((tmp_path / "demo" / folder / f"{stem}.json").read_text())
+            assert side["options"]["output"] == output
+        assert (tmp_path / "demo" / folder / f"ladderpack_{output}.c").is_file()
     bench = json.loads((tmp_path / "demo" / "bench_sine_1khz_loop.json").read_text())
     assert bench["state_machine"]["out_base"] == 0 and bench["stream"]["bits"] == 12
     assert bench["options"]["loop"] and bench["stats"]["program_variant"] == "loop"
