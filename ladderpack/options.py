@@ -802,7 +802,18 @@ class WaveTableSpec(_Model):
         choices=("sine", "square", "sawtooth", "triangle"),
     )
     table_bits: int = _opt(8, "Table of 2^k entries: k.", unit="bits", lo=2, hi=16)
-    bits: int = _opt(8, "Ladder code width of the entries.", unit="bits", lo=1, hi=16)
+    output: str = _opt(
+        "ladder",
+        "What the entries drive: ladder codes, i2s samples (signed) or pwm compare values "
+        "(0..TOP+1 of the slice planned for the rate).",
+        choices=OUTPUTS,
+    )
+    bits: int = _opt(
+        None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
+        "Width of the entries: ladder codes 1..16, I2S samples 16, 24 or 32 (not for PWM).",
+        unit="bits",
+        default_text="8 for a ladder, 16 for I2S",
+    )
     level_dbfs: float = _opt(-1.0, "Peak level.", unit="dBFS", hi=0)
     freqs_hz: tuple[float, ...] = _opt(
         (440.0,),
@@ -831,13 +842,34 @@ class WaveTableSpec(_Model):
     )
 
     def __post_init__(self) -> None:
+        if self.bits is None:
+            object.__setattr__(self, "bits", 8 if self.output == "ladder" else 16)
+        elif self.output == "pwm":
+            raise OptionError(
+                "does not apply to output pwm (its levels follow from the plan)", field="bits"
+            )
         self._check_fields()
+        if self.output == "ladder" and not 1 <= self.bits <= 16:
+            raise OptionError(
+                f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
+            )
+        if self.output == "i2s" and self.bits not in I2S_SAMPLE_BITS:
+            raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits")
         if self.sys_clock_hz is None:
             object.__setattr__(self, "sys_clock_hz", get_target(self.target).sys_clock_hz)
         for f in self.freqs_hz:
             if isinstance(f, bool) or not isinstance(f, int | float) or not f > 0:
                 raise OptionError(f"expected frequencies > 0 Hz, got {f!r}", field="freqs_hz")
         object.__setattr__(self, "freqs_hz", tuple(float(f) for f in self.freqs_hz))
+
+    def to_dict(self) -> dict[str, Any]:
+        """Recorded options; a ladder table records no output key (as before outputs)."""
+        out = super().to_dict()
+        if self.output == "ladder":
+            out.pop("output", None)
+        elif self.output == "pwm":
+            out.pop("bits", None)
+        return out
 
 
 @dataclass(frozen=True)

@@ -59,8 +59,8 @@ class TableResult:
 
     @property
     def byte_count(self) -> int:
-        """Flash the table takes (one byte per entry up to 8 bits, else two)."""
-        return self.entries * (1 if self.bits <= 8 else 2)
+        """Flash the table takes (one byte per entry up to 8 bits, two up to 16, else four)."""
+        return self.entries * (1 if self.bits <= 8 else 2 if self.bits <= 16 else 4)
 
 
 def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
@@ -76,13 +76,32 @@ def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
     from ladderpack.clock import plan_clock
     from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
 
-    plan = plan_clock(
-        spec.rate_hz,
-        sys_clock_hz=int(spec.sys_clock_hz or 0),
-        tolerance_ppm=spec.rate_tolerance_ppm,
-    )
-    rate = float(plan.achieved_rate_hz)
-    tab = wavetable(spec.kind, spec.table_bits, bits=spec.bits, level_dbfs=spec.level_dbfs)
+    sys_hz = int(spec.sys_clock_hz or 0)
+    coding = "ladder"
+    if spec.output == "pwm":
+        from ladderpack.outputs.pwm import plan_pwm
+
+        pwm = plan_pwm(spec.rate_hz, sys_clock_hz=sys_hz, tolerance_ppm=spec.rate_tolerance_ppm)
+        rate = float(pwm.achieved_rate_hz)
+        tab = wavetable(
+            spec.kind, spec.table_bits, bits=16, level_dbfs=spec.level_dbfs, levels=pwm.levels
+        )
+        coding = f"pwm compare values 0..{pwm.top + 1} (TOP {pwm.top}, {pwm.levels} levels)"
+        width = 16
+    else:
+        cycles = 128 if spec.output == "i2s" else None  # an I2S frame: 128 machine cycles
+        plan = plan_clock(
+            spec.rate_hz,
+            sys_clock_hz=sys_hz,
+            tolerance_ppm=spec.rate_tolerance_ppm,
+            **({"min_cycles": cycles, "max_cycles": cycles} if cycles else {}),
+        )
+        rate = float(plan.achieved_rate_hz)
+        tab = wavetable(spec.kind, spec.table_bits, bits=spec.bits, level_dbfs=spec.level_dbfs)
+        width = spec.bits
+        if spec.output == "i2s":  # two's complement: the offset code less mid-scale
+            tab = tab.astype(np.int64) - (1 << (spec.bits - 1))
+            coding = f"i2s samples, signed {spec.bits}-bit"
     incs = phase_increments(list(spec.freqs_hz), rate)
     spur = truncation_spur_dbc(spec.table_bits)
     ident = asset_identifier(name)
@@ -91,15 +110,16 @@ def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
         tab,
         incs,
         table_bits=spec.table_bits,
-        bits=spec.bits,
+        bits=width,
         rate_hz=rate,
         spur_dbc=spur,
         kind=spec.kind,
+        coding=coding,
     )
     return TableResult(
         ident,
         files,
-        spec.bits,
+        width,
         int(tab.size),
         rate_hz=rate,
         distinct_codes=int(np.unique(tab).size),

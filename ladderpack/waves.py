@@ -259,10 +259,19 @@ def synthesise(
     raise OptionError(f"must be one of {', '.join(TONE_KINDS)}; got {kind!r}", field="kind")
 
 
-def wavetable(kind: str, table_bits: int, *, bits: int, level_dbfs: float = -1.0) -> np.ndarray:
+def wavetable(
+    kind: str,
+    table_bits: int,
+    *,
+    bits: int,
+    level_dbfs: float = -1.0,
+    levels: int | None = None,
+) -> np.ndarray:
     """One cycle of a waveform in ``2**table_bits`` entries, as ladder codes (no dither).
 
-    Codes are the nearest to ``2**(bits-1) (1 + x)``, mid-scale being silence.
+    Codes are the nearest to ``2**(bits-1) (1 + x)``, mid-scale being silence; with
+    `levels` (a PWM slice's compare values ``0..levels-1``) the nearest to
+    ``(levels - 1) (1 + x) / 2``.  Codes wider than 16 bits come as uint32.
     """
     if not 2 <= table_bits <= 16:
         raise OptionError(f"must be 2..16, got {table_bits}", field="table_bits")
@@ -279,8 +288,12 @@ def wavetable(kind: str, table_bits: int, *, bits: int, level_dbfs: float = -1.0
         if kind != "sine"
         else (10 ** (level_dbfs / 20) * np.sin(2 * np.pi * np.arange(size) / size))
     )
+    if levels is not None:
+        half_l = (levels - 1) / 2
+        return np.clip(np.floor(x * half_l + half_l + 0.5), 0, levels - 1).astype(np.uint16)
     half = 1 << (bits - 1)
-    return np.clip(np.floor(x * half + half + 0.5), 0, (1 << bits) - 1).astype(np.uint16)
+    dtype = np.uint16 if bits <= 16 else np.uint32
+    return np.clip(np.floor(x * half + half + 0.5), 0, (1 << bits) - 1).astype(dtype)
 
 
 def phase_increments(

@@ -215,3 +215,56 @@ def test_wave_table_files_compile_and_agree(tmp_path: Path) -> None:
     ns: dict[str, object] = {}
     exec(compile(ast.parse(py, feature_version=(3, 4)), "w.py", "exec"), ns)
     assert list(ns["TABLE"]) == out[:512]  # type: ignore[call-overload]
+
+
+def test_wave_tables_for_i2s_and_pwm() -> None:
+    import numpy as np
+
+    from ladderpack.errors import OptionError
+    from ladderpack.options import WaveTableSpec
+    from ladderpack.outputs.pwm import plan_pwm
+    from ladderpack.tables import wave_table_files
+
+    i2s = wave_table_files("t", WaveTableSpec(output="i2s", table_bits=4, level_dbfs=0.0))
+    src = i2s.files["t.c"].decode()
+    assert "const int16_t t_table" in src
+    vals = [int(v) for v in src.split("{")[1].split("}")[0].replace("\n", " ").split(",")]
+    # sin(2 pi k / 16) x 2^15, rounded half up (the ladder codes less mid-scale)
+    want = np.floor(np.sin(2 * np.pi * np.arange(16) / 16) * 32768 + 0.5).clip(-32768, 32767)
+    assert vals == [int(v) for v in want]
+    # the I2S frame clock: 128 state-machine cycles per frame at 125 MHz
+    assert i2s.rate_hz == pytest.approx(125e6 / (128 * (44 + 74 / 256)))
+    pwm = wave_table_files("p", WaveTableSpec(output="pwm", table_bits=4, level_dbfs=0.0))
+    plan = plan_pwm(22050)
+    assert pwm.rate_hz == pytest.approx(float(plan.achieved_rate_hz))
+    src = pwm.files["p.c"].decode()
+    vals = [int(v.strip().rstrip("u"), 16) for v in src.split("{")[1].split("}")[0].split(",")]
+    half = (plan.levels - 1) / 2  # compare values 0..TOP+1, silence half way
+    want = np.floor(np.sin(2 * np.pi * np.arange(16) / 16) * half + half + 0.5)
+    assert vals == [int(v) for v in want] and max(vals) == plan.top + 1
+    with pytest.raises(OptionError):
+        WaveTableSpec(output="pwm", bits=8)
+    with pytest.raises(OptionError):
+        WaveTableSpec(output="i2s", bits=12)
+
+
+def test_signed_32_bit_wave_table_compiles_and_holds_its_values(tmp_path: Path) -> None:
+    from ladderpack.options import WaveTableSpec
+    from ladderpack.tables import wave_table_files
+
+    res = wave_table_files(
+        "w32", WaveTableSpec(output="i2s", bits=32, table_bits=3, kind="square", level_dbfs=0.0)
+    )
+    for fname, data in res.files.items():
+        (tmp_path / fname).write_bytes(data)
+    main = tmp_path / "main.c"
+    main.write_text(
+        '#include <stdio.h>\n#include "w32.h"\nint main(void) {\n    unsigned i;\n'
+        "    for (i = 0; i < W32_LENGTH; ++i) {\n"
+        '        printf("%ld\\n", (long)w32_table[i]);\n    }\n    return 0;\n}\n'
+    )
+    exe = tmp_path / "dump"
+    cc_strict(exe, main, tmp_path / "w32.c")  # gcc -std=c99 -pedantic -Wall -Wextra -Werror
+    out = subprocess.run([str(exe)], check=True, capture_output=True, text=True).stdout.split()
+    # a full-scale square: +2^31 clips to the largest code, -1.0 is the most negative
+    assert {int(v) for v in out} == {2**31 - 1, -(2**31)}
