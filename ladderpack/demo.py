@@ -13,6 +13,7 @@
 from __future__ import annotations
 
 import os
+from typing import Any
 
 import numpy as np
 
@@ -54,7 +55,7 @@ def run_demo(
         source={"file": "synthesised 1 kHz sine, 100 cycles"},
     )
     results.append((bench.summary(), write_bundle(bench, out_dir)))
-    variants: tuple[tuple[str, dict[str, object]], ...] = (
+    variants: tuple[tuple[str, dict[str, Any]], ...] = (
         ("i2s_amp", {"output": "i2s", "bits": 16, "out_base": 26, "clock_pin": 27}),
         ("pwm", {"output": "pwm", "out_base": 15}),
     )
