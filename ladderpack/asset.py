@@ -15,7 +15,7 @@ import numpy as np
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
 from ladderpack.outputs.pwm import PwmPlan, PwmSetup
-from ladderpack.pack import Packed, pack, unpack
+from ladderpack.pack import Packed, StereoLadderLayout, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
@@ -191,7 +191,7 @@ class StreamAsset:
         out: StreamSummary = {
             "asset": self.name,
             "duration_s": round(self.duration_s, 6),
-            "bits": self.packed.layout.bits,
+            "bits": int(self.options.get("bits", self.packed.layout.bits)),
             "requested_rate_hz": float(self.plan.requested_rate_hz),
             "achieved_rate_hz": round(float(self.plan.achieved_rate_hz), 6),
             "rate_error_ppm": round(self.plan.error_ppm, 3),
@@ -215,7 +215,11 @@ class StreamAsset:
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
-        if self.program is None or self.program.variant.startswith("i2s"):
+        if (
+            self.program is None
+            or self.program.variant.startswith("i2s")
+            or self.options.get("stereo")
+        ):
             out["stereo"] = bool(self.options.get("stereo", False))
         if self.pwm is not None:
             p = self._pwm_plan
@@ -251,6 +255,15 @@ def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:
     """
     lay = asset.packed.layout
     parts = [p for p in (asset.intro, asset.packed, asset.outro) if p is not None]
+    if isinstance(lay, StereoLadderLayout):  # two ladders: each on its own
+        idle = int(lay.channels_of(np.array([asset.idle_code]))[0, 0])
+        pieces = [lay.channels_of(unpack(p.words, lay).codes) for p in parts]
+        seq = np.concatenate([[[idle, idle]], *pieces, [[idle, idle]]])
+        best = int(np.abs(np.diff(seq, axis=0)).max())
+        if asset.loop and asset.packed.words.size:
+            body = lay.channels_of(unpack(asset.packed.words, lay).codes)
+            best = max(best, int(np.abs(body[-1] - body[0]).max()))
+        return best
     if hasattr(lay, "unpack_words"):  # I2S or stereo PWM: whole frames, channels apart
         seqs = [np.asarray(lay.unpack_words(p.words), dtype=np.int64) for p in parts]
         frames = np.concatenate(seqs, axis=0) if seqs else np.zeros((0, 2), np.int64)

@@ -36,7 +36,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     dict of str to bytes
         File name to content, in writing order (the sidecar is last).
     """
-    from ladderpack.emit import binary, c, micropython, pioasm, player_c, sidecar
+    from ladderpack.emit import binary, c, micropython, pioasm, sidecar
 
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
@@ -51,8 +51,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
         f"{n}.c": c.render_source(asset).encode(),
         f"{n}.py": micropython.render(asset, embed=asset.word_count <= embed_words_max).encode(),
         f"{n}.pio": pioasm.render(asset).encode(),
-        player_c.HEADER_NAME: player_c.render_header().encode(),
-        player_c.SOURCE_NAME: player_c.render_source().encode(),
+        **_ladder_player(asset),
     }
     files[f"{n}.json"] = sidecar.render(asset, files).encode()
     return files
@@ -67,7 +66,7 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     For :func:`ladderpack.emit.write_files`; the bytes written are identical to
     :func:`bundle_files`.
     """
-    from ladderpack.emit import binary, c, micropython, pioasm, player_c, sidecar
+    from ladderpack.emit import binary, c, micropython, pioasm, sidecar
 
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
@@ -83,9 +82,24 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
         f"{n}.c": c.render_source_chunks(asset),
         f"{n}.py": micropython.render(asset, embed=asset.word_count <= embed_words_max).encode(),
         f"{n}.pio": pioasm.render(asset).encode(),
+        **_ladder_player(asset),
+        f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
+    }
+
+
+def _ladder_player(asset: StreamAsset) -> dict[str, bytes]:
+    """The ladder player's two files: one ladder's, or two ladders' (stereo)."""
+    from ladderpack.emit import player_c, player_stereo
+    from ladderpack.pack import StereoLadderLayout
+
+    if isinstance(asset.packed.layout, StereoLadderLayout):
+        return {
+            player_stereo.HEADER_NAME: player_stereo.render_header().encode(),
+            player_stereo.SOURCE_NAME: player_stereo.render_source().encode(),
+        }
+    return {
         player_c.HEADER_NAME: player_c.render_header().encode(),
         player_c.SOURCE_NAME: player_c.render_source().encode(),
-        f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
     }
 
 

@@ -43,7 +43,9 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         )
     else:
         kind = f"{summary['bits']}-bit" + (
-            (", stereo I2S" if stereo else " I2S, mono in both channels") if i2s else ""
+            (", stereo I2S" if stereo else " I2S, mono in both channels")
+            if i2s
+            else (", two ladders (stereo)" if stereo else "")
         )
     click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {kind}")
     click.echo(f"  rate     {rate_line}")

@@ -387,9 +387,9 @@ class StreamOptions(_Model):
     )
     stereo: bool = _opt(
         False,
-        "I2S and PWM: two channels (a clip's first two; a tone in both): left and right "
-        "slots of I2S, channels A and B of the PWM slice. Mono sends one channel (I2S: in "
-        "both slots).",
+        "Two channels (a clip's first two; a tone in both): two ladders on 2N pins, the "
+        "left and right slots of I2S, channels A and B of the PWM slice. Mono sends one "
+        "channel (I2S: in both slots).",
         flag="--stereo/--mono",
     )
     min_carrier_hz: float | None = _opt(
@@ -525,11 +525,6 @@ class StreamOptions(_Model):
         for name in self.I2S_ONLY if self.output != "i2s" else ():
             if _flag_given(self, name):
                 raise OptionError("applies only to output i2s", field=name)
-        if self.output == "ladder" and self.stereo:
-            raise OptionError(
-                "applies only to outputs i2s and pwm (a stereo ladder is not made yet)",
-                field="stereo",
-            )
         if self.output == "i2s":
             self._check_i2s()
             return
@@ -558,7 +553,21 @@ class StreamOptions(_Model):
                 field="samples_per_word",
             )
         self._check_common()
-        tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+        self._check_two_ladders()
+        tgt.gpio_window(self.out_base, self.pins, int(self.gpio_count or 0))
+
+    def _check_two_ladders(self) -> None:
+        if self.stereo and self.bits > 15:
+            raise OptionError(
+                f"two ladders of {self.bits} bits need {2 * self.bits} pins; a state machine "
+                "writes at most 30 here (two 15-bit ladders)",
+                field="bits",
+            )
+
+    @property
+    def pins(self) -> int:
+        """GPIOs the ladder output takes: N, or 2N for two ladders (stereo)."""
+        return self.bits * (2 if self.stereo else 1)
 
     def _check_pwm(self) -> None:
         """The checks of a PWM stream (its pin, and the ladder's options refused)."""
@@ -635,8 +644,8 @@ class StreamOptions(_Model):
 
     @property
     def samples_per_word_max(self) -> int:
-        """Most samples of this width in a 32-bit word."""
-        return 32 // self.bits
+        """Most samples (stereo: frames of two) of this width in a 32-bit word."""
+        return 32 // self.pins
 
     @property
     def gpio_base(self) -> int:
@@ -646,7 +655,7 @@ class StreamOptions(_Model):
             pins = (self.out_base, int(self.clock_pin or 0), int(self.clock_pin or 0) + 1)
             lo, hi = min(pins), max(pins)
             return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
-        return tgt.gpio_window(self.out_base, self.bits, int(self.gpio_count or 0))
+        return tgt.gpio_window(self.out_base, self.pins, int(self.gpio_count or 0))
 
     def to_dict(self) -> dict[str, Any]:
         """Recorded options; a LevelSet or path is recorded by its file name only.
@@ -675,6 +684,8 @@ class StreamOptions(_Model):
             out.pop("bits", None)
         for name in others:
             out.pop(name, None)
+        if self.output == "ladder" and self.stereo:
+            out["stereo"] = True
         if self.output != "ladder":
             return out
         lv = self.levels

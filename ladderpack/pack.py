@@ -19,7 +19,7 @@ import numpy as np
 from ladderpack.errors import OptionError
 from ladderpack.quantize import Codes, check_bits
 
-__all__ = ["Packed", "WordLayout", "pack", "pack_blocks", "unpack"]
+__all__ = ["Packed", "StereoLadderLayout", "WordLayout", "pack", "pack_blocks", "unpack"]
 
 
 @dataclass(frozen=True)
@@ -51,7 +51,7 @@ class WordLayout:
     invert: bool = False
 
     def __post_init__(self) -> None:
-        check_bits(self.bits)
+        self._check_width()
         most = 32 // self.bits
         if self.per_word is not None and (
             isinstance(self.per_word, bool)
@@ -62,6 +62,9 @@ class WordLayout:
                 f"must be 1..{most} for {self.bits}-bit samples, got {self.per_word!r}",
                 field="samples_per_word",
             )
+
+    def _check_width(self) -> None:
+        check_bits(self.bits)
 
     @property
     def samples_per_word(self) -> int:
@@ -110,6 +113,65 @@ class WordLayout:
             "pad_bits": self.pad_bits,
             "pin_order": "msb-high" if self.msb_high else "msb-low",
             "invert": self.invert,
+        }
+
+
+@dataclass(frozen=True)
+class StereoLadderLayout(WordLayout):
+    """Two N-bit ladders side by side on 2N pins, both written by one ``out pins, 2N``.
+
+    A code of this layout is a frame, ``left | right << N`` (`bits` is 2N); the left
+    ladder sits on ``out_base .. out_base + N - 1`` and the right one on the N pins
+    above.  Pin order and inversion apply to each ladder on its own, so either is wired
+    as a mono ladder would be.
+    """
+
+    def _check_width(self) -> None:
+        if self.bits % 2 or not 2 <= self.bits <= 32:
+            raise OptionError(
+                f"two ladders take an even number of pins 2..32, got {self.bits}", field="bits"
+            )
+
+    @property
+    def channel_bits(self) -> int:
+        """Width N of each ladder."""
+        return self.bits // 2
+
+    def _half(self) -> WordLayout:
+        return WordLayout(self.channel_bits, msb_high=self.msb_high, invert=self.invert)
+
+    def to_pins(self, codes: np.ndarray) -> np.ndarray:
+        """Frames ``left | right << N`` -> pin patterns, each ladder mapped on its own."""
+        x = np.asarray(codes, dtype=np.uint32)
+        n, half = np.uint32(self.channel_bits), self._half()
+        mask = np.uint32((1 << self.channel_bits) - 1)
+        return half.to_pins(x & mask) | (half.to_pins((x >> n) & mask) << n)
+
+    def from_pins(self, patterns: np.ndarray) -> np.ndarray:
+        """Inverse of :meth:`to_pins`."""
+        x = np.asarray(patterns, dtype=np.uint32)
+        n, half = np.uint32(self.channel_bits), self._half()
+        mask = np.uint32((1 << self.channel_bits) - 1)
+        return half.from_pins(x & mask) | (half.from_pins((x >> n) & mask) << n)
+
+    def frames(self, left: np.ndarray, right: np.ndarray) -> np.ndarray:
+        """The frame codes ``left | right << N`` of two channels' codes."""
+        n = np.uint32(self.channel_bits)
+        return np.asarray(left, np.uint32) | (np.asarray(right, np.uint32) << n)
+
+    def channels_of(self, frames: np.ndarray) -> np.ndarray:
+        """Frame codes -> (frames, 2) left and right codes."""
+        x = np.asarray(frames, dtype=np.int64)
+        mask = (1 << self.channel_bits) - 1
+        return np.stack([x & mask, (x >> self.channel_bits) & mask], axis=1)
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description: the mono ladder's, for two ladders."""
+        return {
+            **super().to_dict(),
+            "channels": "stereo",
+            "channel_bits": self.channel_bits,
+            "sample_order": "left ladder on the lower N pins, right on the N above",
         }
 
 
@@ -208,7 +270,7 @@ def unpack(words: np.ndarray, layout: WordLayout, sample_count: int | None = Non
     w = np.asarray(words, dtype=np.uint64)
     mask = np.uint64((1 << layout.bits) - 1)
     slots = (w[:, None] >> _slot_shifts(layout)[None, :]) & mask
-    flat = layout.from_pins(slots.reshape(-1)).astype(np.uint16)
+    flat = layout.from_pins(slots.reshape(-1)).astype(np.uint16 if layout.bits <= 16 else np.uint32)
     if sample_count is not None:
         flat = flat[:sample_count]
     return Codes(flat, layout.bits)
@@ -223,9 +285,10 @@ def pack_blocks(
     concatenated codes (the last word padded with `pad_code`).
     """
     spw = layout.samples_per_word
-    carry = np.zeros(0, dtype=np.uint16)
+    dtype = np.uint16 if layout.bits <= 16 else np.uint32
+    carry = np.zeros(0, dtype=dtype)
     for block in blocks:
-        codes = np.concatenate([carry, np.asarray(block, dtype=np.uint16)])
+        codes = np.concatenate([carry, np.asarray(block, dtype=dtype)])
         whole = codes.size - codes.size % spw
         carry = codes[whole:]
         if whole:

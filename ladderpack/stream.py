@@ -46,7 +46,7 @@ from ladderpack.outputs.i2s import (
     plan_i2s,
 )
 from ladderpack.outputs.pwm import PwmPlan, PwmSetup, PwmStereoLayout, plan_pwm
-from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
+from ladderpack.pack import Packed, StereoLadderLayout, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
     Program,
     StateMachineConfig,
@@ -178,6 +178,9 @@ class StreamPlan:
         """The code held before and after the stream (silence, for I2S)."""
         if isinstance(self.layout, I2sLayout):
             return self.layout.mid_code
+        if isinstance(self.layout, StereoLadderLayout):  # the frame of both idle codes
+            c = self.options.idle_code
+            return int(self.layout.frames(np.array([c]), np.array([c]))[0])
         return self.options.idle_code
 
     @property
@@ -221,7 +224,7 @@ class Processed:
 def _program_variant(opts: StreamOptions, spw: int) -> str:
     if opts.program != "auto":
         return opts.program
-    if opts.loop and max_cycles("loop", spw, opts.bits) >= min_cycles("loop"):
+    if opts.loop and max_cycles("loop", spw, opts.pins) >= min_cycles("loop"):
         return "loop"
     return "pull" if spw == 1 and opts.samples_per_word == 1 else "autopull"
 
@@ -382,9 +385,9 @@ def plan_stream(
             tolerance_ppm=opts.rate_tolerance_ppm,
         ).clock
         per_word = Fraction(1, layout.words_per_frame)
-    else:
-        layout = WordLayout(
-            opts.bits,
+    else:  # one ladder, or two side by side (stereo) written by one OUT
+        layout = (StereoLadderLayout if opts.stereo else WordLayout)(
+            opts.pins,
             shift_right=opts.shift == "right",
             per_word=opts.samples_per_word,
             msb_high=opts.pin_order == "msb-high",
@@ -397,7 +400,7 @@ def plan_stream(
             sys_clock_hz=int(opts.sys_clock_hz or 0),
             tolerance_ppm=opts.rate_tolerance_ppm,
             min_cycles=min_cycles(variant),
-            max_cycles=max_cycles(variant, spw, opts.bits),
+            max_cycles=max_cycles(variant, spw, opts.pins),
         )
     rate = float(clock.achieved_rate_hz)
     # I2S idles at silence: the fades are the whole way in and out, no ramp from idle.
@@ -450,7 +453,7 @@ def plan_stream(
     else:
         assert isinstance(layout, WordLayout)
         program = ladder_program(
-            opts.bits,
+            opts.pins,
             clock.cycles_per_sample,
             variant=variant,
             samples_per_word=spw,
@@ -674,9 +677,19 @@ def process(
         for k in range(nch)
     ]
     scale = qs[0].scale
-    ramp = np.repeat(
-        idle_ramp(idle, opts.bits, plan.ramp_samples, mid=scale.half).astype(scale.dtype), nch
-    )
+    idle1 = opts.idle_code if isinstance(lay, WordLayout) else idle  # one channel's
+
+    def merge(parts: list[np.ndarray]) -> np.ndarray:
+        """One channel's codes, or the channels' interleaved (frames for two ladders)."""
+        if nch == 1:
+            return parts[0]
+        if isinstance(lay, StereoLadderLayout):
+            return lay.frames(parts[0], parts[1])
+        return np.stack(parts, axis=1).reshape(-1)
+
+    ramp1 = idle_ramp(idle1, opts.bits, plan.ramp_samples, mid=scale.half).astype(scale.dtype)
+    ramp = merge([ramp1] * nch)
+    code_bits = lay.bits if isinstance(lay, WordLayout) else opts.bits
     kept: list[np.ndarray] = []
 
     def quantised() -> Iterator[np.ndarray]:
@@ -684,7 +697,7 @@ def process(
             if i == 0:
                 done("quantise", _FIRST_PASS_SHARE)
             cs = [q.feed(b) for q, b in zip(qs, blocks, strict=True)]
-            c = cs[0] if nch == 1 else np.stack(cs, axis=1).reshape(-1)  # interleaved
+            c = merge(cs)
             out.audio_samples += cs[0].size
             if keep:
                 kept.append(c)
@@ -692,7 +705,7 @@ def process(
         done("pack", _PACKED_SHARE)
 
     if opts.loop:
-        out.codes = Codes(np.concatenate(list(quantised())), opts.bits)
+        out.codes = Codes(np.concatenate(list(quantised())), code_bits)
         if isinstance(lay, I2sLayout):
             # I2S idles at silence, so a loop needs no ramps: no intro, and an outro of
             # one silent frame for the state machine to end on.
@@ -710,27 +723,25 @@ def process(
             out.outro = Packed(lay.pack_codes(np.repeat(down, nch)), lay, down.size, idle)  # type: ignore[arg-type]
         else:
             out.packed = pack(out.codes, lay, pad_code=idle)
-            out.intro, out.outro = _loop_ramps(ramp, lay, idle, scale)
+            out.intro, out.outro = _loop_ramps(ramp1, lay, idle1, scale, lambda c: merge([c] * nch))
     else:
         # A stream always ends on the idle code: without a ramp (--ramp-ms 0) one idle
         # sample closes it, a step no larger than the one from idle into its start.
-        tail = (
-            ramp.reshape(-1, nch)[::-1].reshape(-1)
-            if ramp.size
-            else np.full(nch, idle, scale.dtype)
-        )
-        steps = _StepTracker(idle, nch)
+        tail1 = ramp1[::-1] if ramp1.size else np.full(1, idle1, scale.dtype)
+        tail = merge([tail1] * nch)
+        split = lay.channels_of if isinstance(lay, StereoLadderLayout) else None
+        steps = _StepTracker(idle1, nch, split)
         blocks = steps.watch(_chain(ramp, quantised(), tail))
         if isinstance(lay, WordLayout):
             words = list(pack_blocks(blocks, lay, pad_code=idle))
         else:  # every frame is whole words
             words = [lay.pack_codes(b) for b in blocks]
         out.max_step = steps.largest()
-        n = (ramp.size + tail.size) // nch + out.audio_samples
+        n = ramp1.size + tail1.size + out.audio_samples
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
         out.packed = Packed(flat, lay, n, idle)  # type: ignore[arg-type]
         if keep:
-            out.codes = Codes(np.concatenate([ramp, *kept, tail]), opts.bits)
+            out.codes = Codes(np.concatenate([ramp, *kept, tail]), code_bits)
     out.overloads = sum(q.overloads for q in qs)
     out.resets = sum(q.resets for q in qs)
     done("pack", 1.0)
@@ -746,15 +757,25 @@ class _StepTracker:
     own.
     """
 
-    def __init__(self, idle_code: int, channels: int = 1) -> None:
+    def __init__(
+        self,
+        idle_code: int,
+        channels: int = 1,
+        split: Callable[[np.ndarray], np.ndarray] | None = None,
+    ) -> None:
         self.idle = int(idle_code)
         self.prev = np.full(channels, int(idle_code), np.int64)
         self.best = 0
+        self.split = split  # frames -> (frames, channels), for two ladders' frame codes
 
     def watch(self, blocks: Iterator[np.ndarray]) -> Iterator[np.ndarray]:
         for block in blocks:
             if block.size:
-                c = block.astype(np.int64).reshape(-1, self.prev.size)
+                c = (
+                    self.split(block)
+                    if self.split is not None
+                    else block.astype(np.int64).reshape(-1, self.prev.size)
+                )
                 self.best = max(self.best, int(np.abs(c[0] - self.prev).max()))
                 if c.shape[0] > 1:
                     self.best = max(self.best, int(np.abs(np.diff(c, axis=0)).max()))
@@ -774,15 +795,25 @@ def _chain(
 
 
 def _loop_ramps(
-    ramp: np.ndarray, lay: WordLayout, idle_code: int, scale: CodeScale
+    ramp1: np.ndarray,
+    lay: WordLayout,
+    idle1: int,
+    scale: CodeScale,
+    frame: Callable[[np.ndarray], np.ndarray],
 ) -> tuple[Packed, Packed]:
-    """The intro (idle up to mid-scale) and outro (down to idle) played around a loop."""
+    """The intro (idle up to mid-scale) and outro (down to idle) played around a loop.
+
+    `ramp1` and `idle1` are one channel's; `frame` makes the stream's codes of them (the
+    identity for one channel).
+    """
     spw, bits = lay.samples_per_word, lay.bits
-    mid = int(np.floor(scale.half + 0.5))
+    ramp = frame(ramp1)
+    idle_code = int(frame(np.array([idle1]))[0])
+    mid = int(frame(np.array([int(np.floor(scale.half + 0.5))]))[0])
     intro = pack(Codes(ramp, bits), lay, pad_code=mid if ramp.size else idle_code)
     # The outro ends with a whole word of idle codes: the loop program repeats the last
     # word once the FIFO is empty, so that word must be silent.
-    tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, np.uint16)
+    tail = np.full(2 * spw - (ramp.size % spw or spw), idle_code, ramp.dtype)
     outro = pack(Codes(np.concatenate([ramp[::-1], tail]), bits), lay, pad_code=idle_code)
     return intro, outro
 

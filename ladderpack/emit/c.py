@@ -9,13 +9,14 @@ name, passed through :func:`comment_safe` so it cannot end a comment.
 from __future__ import annotations
 
 from collections.abc import Iterator
+from typing import Any
 
 import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
-from ladderpack.pack import Packed
+from ladderpack.pack import Packed, StereoLadderLayout
 
 __all__ = ["render_header", "render_source"]
 
@@ -40,6 +41,19 @@ def _banner(asset: StreamAsset) -> str:
 def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
     p, lay, sm = asset.clock, asset.packed.layout, asset.state_machine
     rate = p.achieved_rate_hz
+    if isinstance(lay, StereoLadderLayout):
+        n = lay.channel_bits
+        return [
+            ("CHANNEL_BITS", f"{n}u", "width N of each ladder"),
+            ("STEREO", "1", f"left ladder on GPIO {sm.out_base}.., right on the {n} above"),
+            *_mono_defines(asset, p, lay, sm, rate),
+        ]
+    return _mono_defines(asset, p, lay, sm, rate)
+
+
+def _mono_defines(
+    asset: StreamAsset, p: Any, lay: Any, sm: Any, rate: Any
+) -> list[tuple[str, str, str]]:
     return [
         ("BITS", f"{lay.bits}u", "ladder width, bits per sample"),
         ("SAMPLE_COUNT", f"{asset.sample_count}u", "samples in the stream, ramps included"),
@@ -89,6 +103,10 @@ def _count(p: Packed | None) -> int:
     return 0 if p is None else int(p.words.size)
 
 
+def _stereo(asset: StreamAsset) -> bool:
+    return isinstance(asset.packed.layout, StereoLadderLayout)
+
+
 def _init_macro(asset: StreamAsset) -> list[str]:
     n, P = asset.name, asset.name.upper()
     intro = f"{n}_intro_words" if _count(asset.intro) else "NULL"
@@ -124,11 +142,18 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_MAX_STEP",
         f"{P}_PROGRAM_KIND",
     ]
-    lines = [
-        "/* Initialiser for lp_stream_t (ladderpack_player.h):",
-        f" *   static const lp_stream_t s = {P}_STREAM_INIT; */",
-        f"#define {P}_STREAM_INIT {{ \\",
-    ]
+    if _stereo(asset):
+        lines = [
+            "/* Initialiser for lp_stereo_stream_t (ladderpack_stereo.h):",
+            f" *   static const lp_stereo_stream_t s = {P}_STEREO_INIT; */",
+            f"#define {P}_STEREO_INIT {{ \\",
+        ]
+    else:
+        lines = [
+            "/* Initialiser for lp_stream_t (ladderpack_player.h):",
+            f" *   static const lp_stream_t s = {P}_STREAM_INIT; */",
+            f"#define {P}_STREAM_INIT {{ \\",
+        ]
     for i, f in enumerate(fields):
         lines.append(f"    {f}{',' if i < len(fields) - 1 else ''} \\")
     lines.append("}")

@@ -11,7 +11,7 @@ from __future__ import annotations
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
-from ladderpack.pack import Packed
+from ladderpack.pack import Packed, StereoLadderLayout
 from ladderpack.pio import Instruction
 
 __all__ = ["render"]
@@ -379,6 +379,89 @@ def _literal(packed: Packed | None) -> str:
     return 'array.array("I", [' + ", ".join(f"0x{int(w):08X}" for w in packed.words) + "])"
 
 
+#: Two ladders side by side (stereo): what replaces the mono module's code functions.
+#: A code is then a frame ``left | right << N``, each ladder mapped and ramped on its own.
+_STEREO_FUNCTIONS = """\
+def _half_pins(code: int) -> int:
+    n = BITS // 2
+    v = code
+    if not MSB_HIGH:
+        v = 0
+        for k in range(n):
+            if (code >> k) & 1:
+                v |= 1 << (n - 1 - k)
+    if INVERTED:
+        v = ~v & ((1 << n) - 1)
+    return v
+
+
+def _pins_of(code: int) -> int:
+    # frame -> pin bits: each ladder's pin order and inversion on its own
+    n = BITS // 2
+    m = (1 << n) - 1
+    return _half_pins(code & m) | (_half_pins((code >> n) & m) << n)
+
+
+def _code_of(pins: int) -> int:
+    return _pins_of(pins & ((1 << BITS) - 1))  # each half's mapping is its own inverse
+
+
+def _shift(k: int) -> int:
+    # OUT shifting right sends the least significant bits first, left the most significant.
+    return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
+
+
+def _ramp_words(start: int, end: int) -> "array.array[int]":
+    \"\"\"Raised-cosine ramps of both ladders from frame start (on the pins, not repeated)
+    to frame end, packed, neither stepping more than MAX_STEP; a closing word of end
+    frames for the loop program.\"\"\"
+    import math
+
+    n_bits = BITS // 2
+    m = (1 << n_bits) - 1
+    step = MAX_STEP or 1
+    s = (start & m, start >> n_bits)
+    e = (end & m, end >> n_bits)
+    delta = max(abs(s[0] - e[0]), abs(s[1] - e[1]))
+    n = 0 if delta == 0 else int(math.ceil(math.pi / 2 * delta / step)) + 1
+    codes = []
+    prev = list(s)
+    i = 1
+    while i <= n or tuple(prev) != e:
+        for ch in (0, 1):
+            c = e[ch]
+            if i < n:
+                w = (1 + math.cos(math.pi * i / n)) / 2
+                c = int(math.floor(e[ch] + (s[ch] - e[ch]) * w + 0.5))
+            prev[ch] = max(prev[ch] - step, min(prev[ch] + step, c))
+        codes.append(prev[0] | (prev[1] << n_bits))
+        i += 1
+    while len(codes) % SPW:
+        codes.append(end)
+    if LOOP_PROGRAM or not codes:
+        codes += [end] * SPW
+    out = array.array("I")
+    for w in range(0, len(codes), SPW):
+        word = 0
+        for k in range(SPW):
+            word |= _pins_of(codes[w + k]) << _shift(k)
+        out.append(word)
+    return out
+"""
+
+
+def _stereo_module(text: str) -> str:
+    """The module for two ladders: the code functions replaced, hold_volts on both."""
+    start = text.index("def _pins_of(code: int) -> int:")
+    end = text.index("class Player:")
+    text = text[:start] + _STEREO_FUNCTIONS + "\n\n" + text[end:]
+    old = "        self.hold_code(best)\n"
+    assert old in text
+    return text.replace(
+        old, "        self.hold_code(best | (best << (BITS // 2)))  # both ladders\n"
+    )
+
+
 def render(asset: StreamAsset, *, embed: bool = False) -> str:
     """Return the MicroPython module text.
 
@@ -412,7 +495,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         if embed
         else ("WORDS = None  # read from BIN_FILE in chunks")
     )
-    return _TEMPLATE.format(
+    text = _TEMPLATE.format(
         version=__version__,
         source=comment_safe(asset.source.get("file", "generated signal")),
         first=asset.state_machine.out_base,
@@ -454,6 +537,19 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         max_step=asset.max_step,
         loop_program=prog.variant == "loop",
     )
+    if isinstance(lay, StereoLadderLayout):
+        n, base = lay.channel_bits, asset.state_machine.out_base
+        end = "least" if lay.msb_high else "most"
+        wiring = (
+            f"# Wiring: two {n}-bit ladders, left on GPIO {base}..{base + n - 1} and right on "
+            f"GPIO {base + n}..{base + 2 * n - 1};\n# GPIO {base} and {base + n} carry each "
+            f"ladder's {end} significant bit{' (bits inverted)' if lay.invert else ''}.\n"
+            "# A code is a frame: left | right << N."
+        )
+        start = text.index("# Wiring:")
+        text = text[:start] + wiring + text[text.index("\n", start) :]
+        text = _stereo_module(text)
+    return text
 
 
 def _mp_instruction(ins: Instruction) -> str:
