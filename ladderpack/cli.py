@@ -1539,6 +1539,13 @@ def _write_bytes(path: str, data: bytes) -> str:
     default=None,
     help="Measure the result like a capture  [default: for sine tones]",
 )
+@click.option(
+    "--channel",
+    type=int,
+    default=0,
+    show_default=True,
+    help="Channel of a stereo bundle: 0 left (PWM channel A), 1 right (index).",
+)
 @_analyse_opts
 def preview(
     sidecar: str,
@@ -1547,6 +1554,7 @@ def preview(
     playback_rate_hz: float | None,
     filter_corner_hz: float | None,
     do_measure: bool | None,
+    channel: int,
     freq_hz: float | None,
     harmonics: int,
     band_low_hz: float | None,
@@ -1555,7 +1563,7 @@ def preview(
     plot_path: str | None,
     as_json: bool,
 ) -> None:
-    """Render what the ladder will put out for a bundle (its SIDECAR .json).
+    """Render what the ladder, I2S DAC or PWM pin will put out for a bundle (its SIDECAR).
 
     The result is a WAV file for listening, and is measured.
     """
@@ -1572,6 +1580,7 @@ def preview(
         levels_path=levels_path,
         playback_rate_hz=playback_rate_hz,
         filter_corner_hz=filter_corner_hz,
+        channel=channel,
     )
     name = pv.sidecar["asset"]
     target = out_path or os.path.join(os.path.dirname(sidecar), f"{name}_preview.wav")

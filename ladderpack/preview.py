@@ -1,4 +1,4 @@
-"""Predicted output: what the ladder will put out for a bundle, as audio.
+"""Predicted output: what the ladder (or I2S DAC, or PWM pin) will put out, as audio.
 
 The bundle's words are unpacked to codes, each code is given its level (ideal, or a
 measured or modelled LevelSet), held for one sample period (the ladder's zero-order
@@ -42,9 +42,54 @@ class Preview:
     sidecar: dict[str, Any]
 
 
-def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
+@dataclass(frozen=True)
+class _Bundle:
+    """What a bundle's words are, decoded: one channel's codes and their scale."""
+
+    side: dict[str, Any]
+    codes: np.ndarray  # one channel's codes, one per sample period
+    output: str  # "ladder", "i2s" or "pwm"
+    bits: int  # a ladder's N or an I2S sample's width (16 for PWM's compare values)
+    levels: int  # PWM: compare values 0..levels-1 (else 2**bits)
+
+
+def _layout_of(lay: dict[str, Any], side: dict[str, Any]) -> tuple[str, Any, int, int]:
+    """(output, layout object, code bits, channels) from a sidecar's ``layout``."""
+    from ladderpack.outputs.i2s import I2sLayout
+    from ladderpack.outputs.pwm import PwmStereoLayout
+    from ladderpack.pack import StereoLadderLayout, WordLayout
+
+    output = str(lay.get("output", "pwm" if side.get("pwm") else "ladder"))
+    stereo = lay.get("channels") == "stereo"
+    if output == "i2s":
+        bits = lay["bits"]
+        if bits not in (16, 24, 32):
+            raise ValueError(f"layout.bits: expected 16, 24 or 32 for I2S, got {bits!r}")
+        return output, I2sLayout(bits, stereo=stereo), bits, 2 if stereo else 1
+    if output == "pwm" and stereo:
+        return output, PwmStereoLayout(), 16, 2
+    if output not in ("ladder", "pwm"):
+        raise ValueError(f"layout.output: expected ladder, i2s or pwm, got {output!r}")
+    bits, spw = lay["bits"], lay["samples_per_word"]
+    hi = 30 if stereo else 16
+    for key, v, lo, top in (("layout.bits", bits, 1, hi), ("layout.samples_per_word", spw, 1, 32)):
+        if not isinstance(v, int) or isinstance(v, bool) or not lo <= v <= top:
+            raise ValueError(f"{key}: expected a whole number {lo}..{top}, got {v!r}")
+    if lay["shift"] not in ("left", "right"):
+        raise ValueError(f"layout.shift: expected 'left' or 'right', got {lay['shift']!r}")
+    layout = (StereoLadderLayout if stereo else WordLayout)(
+        bits,
+        shift_right=lay["shift"] == "right",
+        per_word=spw,
+        msb_high=lay.get("pin_order", "msb-high") == "msb-high",
+        invert=bool(lay.get("invert", False)),
+    )
+    return output, layout, bits // 2 if stereo else bits, 2 if stereo else 1
+
+
+def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
     from ladderpack.emit.names import asset_identifier
-    from ladderpack.pack import WordLayout, unpack
+    from ladderpack.pack import StereoLadderLayout, WordLayout, unpack
     from ladderpack.reading import read_json
 
     side = read_json(sidecar_path, what="bundle sidecar")
@@ -56,31 +101,23 @@ def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
         name = side["asset"]
         if not isinstance(name, str) or asset_identifier(name) != name:
             raise ValueError("asset: expected the bundle's identifier (letters, digits, _)")
-        lay = side["layout"]
-        bits, spw = lay["bits"], lay["samples_per_word"]
+        output, layout, bits, channels = _layout_of(side["layout"], side)
         count = side["stream"]["sample_count"]
-        for key, v, lo, hi in (
-            ("layout.bits", bits, 1, 16),
-            ("layout.samples_per_word", spw, 1, 32),
-            ("stream.sample_count", count, 0, 2**40),
-        ):
-            if not isinstance(v, int) or isinstance(v, bool) or not lo <= v <= hi:
-                raise ValueError(f"{key}: expected a whole number {lo}..{hi}, got {v!r}")
-        if lay["shift"] not in ("left", "right"):
-            raise ValueError(f"layout.shift: expected 'left' or 'right', got {lay['shift']!r}")
-        layout = WordLayout(
-            bits,
-            shift_right=lay["shift"] == "right",
-            per_word=spw,
-            msb_high=lay.get("pin_order", "msb-high") == "msb-high",
-            invert=bool(lay.get("invert", False)),
-        )
+        if not isinstance(count, int) or isinstance(count, bool) or not 0 <= count <= 2**40:
+            raise ValueError(f"stream.sample_count: expected a whole number, got {count!r}")
+        levels = int(side["clock"]["levels"]) if output == "pwm" else 1 << bits
     except (KeyError, TypeError) as exc:
         raise LadderpackError(
             f"not a complete bundle sidecar (missing or wrong {exc})", file=sidecar_path
         ) from None
     except (ValueError, LadderpackError) as exc:
         raise LadderpackError(str(exc), file=sidecar_path) from None
+    if channel not in range(channels):
+        raise OptionError(
+            f"must be 0..{channels - 1} for this {'stereo' if channels == 2 else 'mono'} "
+            f"bundle, got {channel}",
+            field="channel",
+        )
     bin_path = os.path.join(os.path.dirname(sidecar_path), f"{name}.bin")
     from ladderpack.reading import check_regular_file
 
@@ -94,8 +131,13 @@ def _read_bundle(sidecar_path: str) -> tuple[dict[str, Any], np.ndarray]:
             f"holds {words.size} words but the sidecar says {layout.words_for(count)}",
             file=bin_path,
         )
-    codes = unpack(words, layout, count).codes
-    return side, codes
+    if isinstance(layout, StereoLadderLayout):
+        codes = layout.channels_of(unpack(words, layout, count).codes)[:, channel]
+    elif isinstance(layout, WordLayout):
+        codes = unpack(words, layout, count).codes
+    else:  # I2S or stereo PWM: whole frames
+        codes = layout.unpack_words(words[: layout.words_for(count)])[:count, channel]
+    return _Bundle(side, np.asarray(codes, dtype=np.int64), output, bits, levels)
 
 
 def analog_output(
@@ -172,8 +214,13 @@ def render_preview(
     levels_path: str | None = None,
     playback_rate_hz: float | None = None,
     filter_corner_hz: float | None = None,
+    channel: int = 0,
 ) -> Preview:
-    """Render a bundle's predicted output.
+    """Render a bundle's predicted output (one channel of a stereo bundle).
+
+    A ladder's codes take their levels; an I2S stream is rendered as an ideal DAC; a PWM
+    stream as the pin's mean over each period (duty ``compare / (TOP + 1)``), that is
+    what a reconstruction filter passes of it (the carrier is not modelled).
 
     Parameters
     ----------
@@ -187,27 +234,41 @@ def render_preview(
         Output rate, Hz (default the stream rate: no hold or resampling).
     filter_corner_hz : float, optional
         Corner of a first-order RC output filter, Hz (default none).
+    channel : int
+        Channel of a stereo bundle: 0 left (PWM channel A), 1 right.
     """
     from ladderpack.audio import Signal
     from ladderpack.conform import resample
     from ladderpack.levels import ideal_levels, load_levels
 
-    side, codes = _read_bundle(sidecar_path)
-    bits = int(side["stream"]["bits"])
-    if levels_path == "ideal":
-        levels = ideal_levels(bits)
-    elif levels_path is not None:
-        levels = load_levels(levels_path)
+    b = _read_bundle(sidecar_path, channel)
+    side, codes, bits = b.side, b.codes, b.bits
+    if b.output != "ladder":
+        if levels_path not in (None, "ideal"):
+            raise OptionError(
+                f"a LevelSet describes a ladder; this bundle is for output {b.output}",
+                field="levels",
+            )
+        # an ideal DAC (I2S: two's complement about mid-scale) or a PWM pin's mean over a
+        # period, duty = compare value / (TOP + 1), about half the swing
+        half = b.levels / 2 if b.output == "i2s" else (b.levels - 1) / 2
+        x = (codes - half) / half
     else:
-        levels = _own_levels(side, sidecar_path) or ideal_levels(bits)
-    if levels.bits != bits:
-        raise OptionError(
-            f"the levels are for {levels.bits} bits, the bundle is {bits}-bit", field="levels"
-        )
-    v = levels.volts
-    ideal_half = (v[-1] - v[0]) * (1 << (bits - 1)) / ((1 << bits) - 1)
-    centre = v[0] + ideal_half
-    x = (v[codes] - centre) / ideal_half
+        if levels_path == "ideal":
+            levels = ideal_levels(bits)
+        elif levels_path is not None:
+            levels = load_levels(levels_path)
+        else:
+            levels = _own_levels(side, sidecar_path) or ideal_levels(bits)
+        if levels.bits != bits:
+            raise OptionError(
+                f"the levels are for {levels.bits} bits, the bundle is {bits}-bit",
+                field="levels",
+            )
+        v = levels.volts
+        ideal_half = (v[-1] - v[0]) * (1 << (bits - 1)) / ((1 << bits) - 1)
+        centre = v[0] + ideal_half
+        x = (v[codes] - centre) / ideal_half
     rate = float(side["clock"]["achieved_rate_hz"])
     out_rate = rate if playback_rate_hz is None else float(playback_rate_hz)
     if not (math.isfinite(out_rate) and out_rate > 0):
