@@ -49,6 +49,7 @@ class StreamSummary(TypedDict):
     flash_share: float | None
     max_duration_s: float | None
     pwm: NotRequired[dict[str, Any]]
+    i2s: NotRequired[dict[str, Any]]
     stereo: NotRequired[bool]
 
 
@@ -221,6 +222,15 @@ class StreamAsset:
             or self.options.get("stereo")
         ):
             out["stereo"] = bool(self.options.get("stereo", False))
+        if "i2s" in self.stats:
+            i2s = self.stats["i2s"]
+            out["i2s"] = {
+                "bit_clock_hz": i2s["bit_clock_hz"],
+                "bits_per_frame": i2s["bits_per_frame"],
+                "cycles_per_bit": i2s["cycles_per_bit"],
+                "frame_format": i2s["frame_format"],
+                "pins": [i2s["data_pin"], i2s["bit_clock_pin"], i2s["word_select_pin"]],
+            }
         if self.pwm is not None:
             p = self._pwm_plan
             out["pwm"] = {

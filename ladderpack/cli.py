@@ -61,6 +61,14 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
             f"  divider  {summary['divider']} ({jitter}), "
             f"{summary['cycles_per_sample']} cycle(s) per {unit}"
         )
+    i2s_line = summary.get("i2s")
+    if i2s_line:
+        d, b, w = i2s_line["pins"]
+        click.echo(
+            f"  i2s      {i2s_line['frame_format']} frame, {i2s_line['bits_per_frame']} bits "
+            f"({i2s_line['cycles_per_bit']} cycles each), bit clock "
+            f"{i2s_line['bit_clock_hz']:.1f} Hz; data GPIO {d}, bit clock {b}, word select {w}"
+        )
     click.echo(
         f"  stream   {summary['samples']} {unit}s, {summary['words']} words, "
         f"{summary['bytes']} bytes"

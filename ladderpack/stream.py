@@ -41,6 +41,7 @@ from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
 from ladderpack.outputs.i2s import (
     STREAM_SLOT_BITS,
     I2sLayout,
+    I2sPlan,
     i2s_program,
     i2s_state_machine,
     plan_i2s,
@@ -884,6 +885,14 @@ def finish(
     }
     if plan.pwm is not None:
         stats["pwm"] = {**plan.pwm.plan.to_dict(), **plan.pwm.to_dict()}
+    if isinstance(plan.layout, I2sLayout) and isinstance(plan.clock, ClockPlan):
+        stats["i2s"] = {
+            **I2sPlan(plan.clock, STREAM_SLOT_BITS).to_dict(),
+            "frame_format": opts.frame_format,
+            "data_pin": opts.out_base,
+            "bit_clock_pin": opts.clock_pin,
+            "word_select_pin": int(opts.clock_pin or 0) + 1,
+        }
     warnings = _shaper_warnings(
         opts,
         str(plan.shaper.to_dict().get("name", "none")),
