@@ -201,3 +201,41 @@ def test_micropython_plays_both_ladders(tmp_path: Path) -> None:
     left, right, _t = played(r, two)
     n = two.left.size
     assert np.array_equal(left[:n], two.left) and np.array_equal(right[:n], two.right)
+
+
+def test_stereo_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> None:
+    folder = tmp_path_factory.mktemp("stereo2350")
+    make(folder, "duet", bits=12, out_base=2, target="rp2350", loop=True)
+    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_stereo"), platform="rp2350")
+    image = fw2350.make(folder, [], [], app=app("duet", [("init", 0), ("start", 1)]))
+    assert image.stat().st_size > 0
+
+
+def test_stereo_loop_repeats_and_ends_on_its_outro(fw: Firmware, tmp_path: Path) -> None:
+    two, files = make(tmp_path, "drone", bits=8, out_base=8, loop=True)
+    side = json.loads(files["drone.json"])
+    frames = side["stream"]["sample_count"]
+    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * frames * two.period)), ("stop", 0)]
+    image = fw.make(tmp_path, [], [], app=app("drone", ops))
+    r = run(image, fw.mailbox())
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, _t = played(r, two)
+    # find the first pass after the intro, then whole passes to the end of the loop
+    start = next(
+        k
+        for k in range(left.size - frames)
+        if np.array_equal(left[k : k + frames], two.left)
+        and np.array_equal(right[k : k + frames], two.right)
+    )
+    passes = 0
+    while np.array_equal(left[start : start + frames], two.left):
+        assert np.array_equal(right[start : start + frames], two.right)
+        start += frames
+        passes += 1
+    assert passes >= 3
+    assert left[-1] == right[-1] == two.idle  # the outro ends both ladders on idle
+    import re
+
+    # no step larger than the stream's own largest (intro, seam and outro included)
+    bound = int(re.search(r"DRONE_MAX_STEP\s+(\d+)u", files["drone.h"].decode()).group(1))
+    assert np.abs(np.diff(left)).max() <= bound and np.abs(np.diff(right)).max() <= bound
