@@ -266,6 +266,8 @@ def board_files(folder: Path, name: str, *, embed: bool, **opts: object) -> tupl
         "chunk_words": 64,  # several buffers; 64 frames last 2.9 ms at 22.05 kHz
     }
     base.update(opts)
+    if "cycles" in opts:
+        base.pop("seconds")
     files = bundle_files(
         stream_tone("sine", name=name, **base), embed_words_max=100_000 if embed else 0
     )
@@ -379,3 +381,27 @@ def test_micropython_stereo(tmp_path: Path) -> None:
     left, right, t_ = frames_of(slots, times, 24)
     assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
     assert_period(t_, exp)
+
+
+def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path) -> None:
+    from tests.chip.harness import run_micropython
+
+    exp, files = board_files(
+        tmp_path, "drone", embed=True, bits=16, loop=True, cycles=20, freq_hz=2205.0
+    )
+    frames = exp.left.size
+    steps = [
+        {"code": "import drone\np = drone.Player()\n"},
+        {"code": "p.play(loop=True)\n", "interrupt_after": int(4.5 * frames * 5669)},
+    ]
+    r = run_micropython(files, steps, tmp_path, watch_pins=[DATA, CLOCK, CLOCK + 1])
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, _right, t = frames_of(slots, times, 16)
+    passes = 0
+    while np.array_equal(left[passes * frames : (passes + 1) * frames], exp.left):
+        passes += 1
+    assert passes >= 2, passes  # whole passes, back to back
+    fade = left[passes * frames :]
+    assert fade.size and fade[-1] == 0  # then a fade out to silence
+    assert_period(t[: passes * frames], exp)

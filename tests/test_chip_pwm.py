@@ -334,3 +334,25 @@ def test_micropython_stereo(tmp_path: Path) -> None:
     for values, want in ((rows[:, 2] & 0xFFFF, words & 0xFFFF), (rows[:, 2] >> 16, words >> 16)):
         start = find(values, np.repeat(want, k))
         assert np.all(values[start + want.size * k :] == side["stream"]["idle_code"])
+
+
+def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path) -> None:
+    exp, files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0, embed=True)
+    board = {"drone.py": files["drone.py"], "drone.bin": files["drone.bin"]}
+    k = exp.periods_per_sample
+    per_pass = exp.codes.size * exp.period_clocks * k
+    steps = [
+        {"code": "import drone\np = drone.Player()\n"},
+        {"code": "p.play(loop=True)\n", "interrupt_after": int(4.5 * per_pass)},
+    ]
+    r = run_micropython(board, steps, tmp_path, pwm_slices=[exp.slice])
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    values, _t = per_period(r.periods, exp)
+    body = np.repeat(exp.codes, k)
+    start = find(values, np.repeat(exp.intro, k)) + exp.intro.size * k
+    passes = 0
+    while np.array_equal(values[start : start + body.size], body):
+        start += body.size
+        passes += 1
+    assert passes >= 2, passes
+    assert values[-1] == exp.idle  # then a ramp down to the idle code
