@@ -427,12 +427,43 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
     default=None,
     help="PWM: lowest carrier frequency, Hz  [default: 4 x the rate]",
 )
+@click.option(
+    "--find-sys-clock",
+    is_flag=True,
+    help="Search the system clocks the PLL can make for those that give RATE_HZ exactly "
+    "with an integer divider for --output, nearest the current clock first.",
+)
+@click.option(
+    "--min-sys-clock-hz",
+    type=int,
+    default=48_000_000,
+    show_default=True,
+    help="--find-sys-clock: lowest system clock to consider (Hz).",
+)
+@click.option(
+    "--max-sys-clock-hz",
+    type=int,
+    default=None,
+    help="--find-sys-clock: highest system clock to consider (Hz)  [default: the chip's "
+    "rated clock, 133000000 on rp2040, 150000000 on rp2350]",
+)
+@click.option(
+    "--count",
+    type=click.IntRange(1, 100),
+    default=8,
+    show_default=True,
+    help="--find-sys-clock: clocks to list.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the plan as JSON.")
 def clock(
     rate_hz: float,
     output: str,
     min_carrier_hz: float | None,
     slot_bits: str | None,
+    find_sys_clock: bool,
+    min_sys_clock_hz: int,
+    max_sys_clock_hz: int | None,
+    count: int,
     as_json: bool,
     **values: Any,
 ) -> None:
@@ -446,6 +477,14 @@ def clock(
         raise OptionError("applies only with --output pwm", field="min-carrier-hz")
     if slot_bits is not None and output != "i2s":
         raise OptionError("applies only with --output i2s", field="slot-bits")
+    if find_sys_clock:
+        if slot_bits not in (None, "32"):
+            raise OptionError("streams use 32-bit slots; drop it", field="slot-bits")
+        _print_sys_clocks(
+            rate_hz, opts, output, min_carrier_hz, min_sys_clock_hz, max_sys_clock_hz, count,
+            as_json,
+        )  # fmt: skip
+        return
     if output == "pwm":
         _print_pwm_plan(rate_hz, opts, min_carrier_hz, as_json)
         return
@@ -465,6 +504,90 @@ def clock(
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
     click.echo(f"cycles     {plan.cycles_per_sample} per sample")
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
+
+
+def _print_sys_clocks(
+    rate_hz: float,
+    opts: Any,
+    output: str,
+    min_carrier_hz: float | None,
+    min_hz: int,
+    max_hz: int | None,
+    count: int,
+    as_json: bool,
+) -> None:
+    from ladderpack.clock import RATED_SYS_CLOCK_HZ, find_sys_clocks
+    from ladderpack.errors import OptionError
+
+    chip = "rp2040" if opts.target == "rp2040" else "rp2350"
+    rated = RATED_SYS_CLOCK_HZ[chip]
+    top = rated if max_hz is None else max_hz
+    if not 0 < min_hz <= top:
+        raise OptionError(
+            f"must be <= --max-sys-clock-hz ({top}) and > 0, got {min_hz}",
+            field="min-sys-clock-hz",
+        )
+    now = int(opts.sys_clock_hz or 0)
+    found = find_sys_clocks(
+        rate_hz,
+        output=output,
+        min_hz=min_hz,
+        max_hz=top,
+        near_hz=now,
+        min_carrier_hz=min_carrier_hz,
+        limit=count,
+    )
+    rows = []
+    for c in found:
+        p = c.plan
+        row: dict[str, Any] = {
+            "sys_clock_hz": c.sys_clock_hz,
+            "pll": c.pll.to_dict(),
+            "error_ppm": round(p.error_ppm, 6),
+            "exact": p.achieved_rate_hz == p.requested_rate_hz,
+            "above_rated": c.sys_clock_hz > rated,
+        }
+        if output == "pwm":
+            row.update(div_int=p.div_int, div_frac=p.div_frac, top=p.top,
+                       periods_per_sample=p.periods_per_sample, levels=p.levels)  # fmt: skip
+        else:
+            row.update(div_int=p.div_int, div_frac=p.div_frac, cycles=p.cycles_per_sample)
+        rows.append(row)
+    if as_json:
+        click.echo(json_text({"rate_hz": rate_hz, "output": output, "clocks": rows}))
+        return
+    exact = bool(rows) and rows[0]["exact"]
+    click.echo(
+        f"{output} at {rate_hz:g} Hz: system clocks {min_hz}..{top} Hz the PLL makes "
+        f"(12 MHz crystal, REFDIV 1) with an integer divider, "
+        + (
+            "exact, nearest the current clock first"
+            if exact
+            else "none exact: smallest error first"
+        )
+    )
+    for r in rows:
+        pll = r["pll"]
+        what = (
+            f"TOP {r['top']}, {r['periods_per_sample']} period(s) a sample, {r['levels']} levels"
+            if output == "pwm"
+            else f"divider {r['div_int']}, {r['cycles']} cycle(s) a "
+            + ("frame" if output == "i2s" else "sample")
+        )
+        flag = "  ABOVE THE RATED CLOCK" if r["above_rated"] else ""
+        vco = f"VCO {pll['vco_hz'] / 1e6:g} MHz (FBDIV {pll['fbdiv']})"
+        click.echo(
+            f"  {r['sys_clock_hz']:>11d} Hz  {vco} / {pll['postdiv1']} / {pll['postdiv2']}  "
+            f"{what}  {r['error_ppm']:+.3f} ppm{flag}"
+        )
+    if not rows:
+        click.echo("  none in this range")
+    click.echo(
+        "  set it with set_sys_clock_pll(VCO, POSTDIV1, POSTDIV2) (C SDK) or "
+        "machine.freq(HZ) (MicroPython), then make the bundle with --sys-clock-hz HZ; the "
+        "peripheral clock, UART and SPI rates follow clk_sys unless re-derived. Running "
+        "above the rated clock is at your own risk."
+    )
 
 
 def _print_i2s_plan(rate_hz: float, opts: Any, slot_bits: int, as_json: bool) -> None:

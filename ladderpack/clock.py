@@ -20,11 +20,21 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from fractions import Fraction
+from typing import Any
 
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ
 from ladderpack.errors import ClockError, OptionError
 
-__all__ = ["DEFAULT_SYS_CLOCK_HZ", "ClockPlan", "plan_clock"]
+__all__ = [
+    "DEFAULT_SYS_CLOCK_HZ",
+    "RATED_SYS_CLOCK_HZ",
+    "ClockChoice",
+    "ClockPlan",
+    "PllSetting",
+    "find_sys_clocks",
+    "plan_clock",
+    "pll_settings",
+]
 
 
 _DIV_MIN_256 = 1 * 256  # divider 1.0
@@ -229,3 +239,197 @@ def plan_clock(
     cycles, d256 = chosen[2], chosen[3]
     div_int, div_frac = divmod(d256, 256)
     return ClockPlan(sys_clock_hz, rate, div_int, div_frac, cycles)
+
+
+# -- system clocks from the PLL ---------------------------------------------------------
+
+#: Crystal of the common boards, Hz (SDK ``XOSC_HZ``, 12 MHz for RP2040 and RP2350).
+XOSC_HZ = 12_000_000
+#: VCO range, Hz (SDK 2.2.0 ``hardware/pll.h``: PICO_PLL_VCO_MIN/MAX_FREQ_HZ, from the
+#: datasheets' PLL chapter).
+VCO_MIN_HZ, VCO_MAX_HZ = 750_000_000, 1_600_000_000
+#: Feedback divider range (SDK ``pll_init``: 16..320).
+FBDIV_MIN, FBDIV_MAX = 16, 320
+#: Post dividers, each 1..7, POSTDIV1 >= POSTDIV2 (SDK ``pll_init``: "postdiv1 is
+#: designed to operate with a higher input frequency than postdiv2").
+POSTDIV_MAX = 7
+#: Highest system clock each chip is rated for at its default core voltage, Hz: RP2040
+#: 133 MHz (RP2040 datasheet, from memory; the SDK's 200 MHz mode raises the core
+#: voltage to 1.15 V, hardware/clocks.h), RP2350 150 MHz (RP2350 datasheet, the SDK's
+#: default clock).
+RATED_SYS_CLOCK_HZ = {"rp2040": 133_000_000, "rp2350": 150_000_000}
+
+
+@dataclass(frozen=True)
+class PllSetting:
+    """A system-PLL setting: ``f_sys = XOSC / REFDIV x FBDIV / (POSTDIV1 x POSTDIV2)``.
+
+    Attributes
+    ----------
+    refdiv, fbdiv, postdiv1, postdiv2 : int
+        The PLL's reference, feedback and two post dividers.
+    xosc_hz : int
+        Crystal frequency, Hz.
+    """
+
+    refdiv: int
+    fbdiv: int
+    postdiv1: int
+    postdiv2: int
+    xosc_hz: int = XOSC_HZ
+
+    @property
+    def vco_hz(self) -> Fraction:
+        """VCO frequency, Hz."""
+        return Fraction(self.xosc_hz, self.refdiv) * self.fbdiv
+
+    @property
+    def sys_clock_hz(self) -> Fraction:
+        """Output (system clock) frequency, Hz, exact."""
+        return self.vco_hz / (self.postdiv1 * self.postdiv2)
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description (the sidecar's ``pll``)."""
+        return {
+            "xosc_hz": self.xosc_hz,
+            "refdiv": self.refdiv,
+            "fbdiv": self.fbdiv,
+            "vco_hz": int(self.vco_hz),
+            "postdiv1": self.postdiv1,
+            "postdiv2": self.postdiv2,
+            "sys_clock_hz": int(self.sys_clock_hz),
+        }
+
+
+def pll_settings(min_hz: int, max_hz: int, *, xosc_hz: int = XOSC_HZ) -> dict[int, PllSetting]:
+    """Every whole-hertz system clock the PLL reaches in ``min_hz .. max_hz``.
+
+    With REFDIV 1 (the SDK's ``PLL_SYS_REFDIV`` and what ``set_sys_clock_pll`` and
+    MicroPython's ``machine.freq`` use), FBDIV 16..320 with the VCO in 750..1600 MHz, and
+    post dividers 1..7 with POSTDIV1 >= POSTDIV2.  Where several settings give one
+    clock, the one the SDK's ``check_sys_clock_hz`` would find is kept: the highest VCO,
+    then the largest POSTDIV1.
+
+    Examples
+    --------
+    >>> s = pll_settings(125_000_000, 125_000_000)[125_000_000]
+    >>> s.fbdiv, int(s.vco_hz), s.postdiv1, s.postdiv2
+    (125, 1500000000, 6, 2)
+    """
+    out: dict[int, PllSetting] = {}
+    for fbdiv in range(FBDIV_MAX, FBDIV_MIN - 1, -1):
+        vco = xosc_hz * fbdiv
+        if not VCO_MIN_HZ <= vco <= VCO_MAX_HZ:
+            continue
+        for pd1 in range(POSTDIV_MAX, 0, -1):
+            for pd2 in range(pd1, 0, -1):
+                if vco % (pd1 * pd2):
+                    continue
+                f = vco // (pd1 * pd2)
+                if min_hz <= f <= max_hz and f not in out:
+                    out[f] = PllSetting(1, fbdiv, pd1, pd2, xosc_hz)
+    return out
+
+
+@dataclass(frozen=True)
+class ClockChoice:
+    """A system clock that makes a rate exact, with its PLL setting and the rate plan.
+
+    Attributes
+    ----------
+    pll : PllSetting
+        How the PLL makes the clock.
+    plan : object
+        The output's plan at that clock (:class:`ClockPlan`, or a PWM plan).
+    """
+
+    pll: PllSetting
+    plan: Any
+
+    @property
+    def sys_clock_hz(self) -> int:
+        """The system clock, Hz."""
+        return int(self.pll.sys_clock_hz)
+
+
+def find_sys_clocks(
+    rate_hz: float | int | Fraction,
+    *,
+    output: str = "ladder",
+    min_hz: int = 48_000_000,
+    max_hz: int = 133_000_000,
+    near_hz: int = DEFAULT_SYS_CLOCK_HZ,
+    tolerance_ppm: float = 0.0,
+    min_cycles: int = 1,
+    max_cycles: int = 32,
+    min_carrier_hz: float | None = None,
+    limit: int = 10,
+) -> list[ClockChoice]:
+    """System clocks in a range that make `rate_hz` exact with an integer divider.
+
+    For each clock the PLL reaches (:func:`pll_settings`), the output's planner finds the
+    best integer (jitter-free) divider: the ladder's state-machine divider x cycles per
+    sample, the I2S frame's divider x 128 cycles, or the PWM slice's divider x (TOP + 1) x
+    periods per sample.  Clocks whose rate error is within `tolerance_ppm` (default 0:
+    exact) are ranked by their distance from `near_hz` (the clock the firmware runs at
+    now).  When no clock is that close, the clocks with the smallest error are returned
+    instead, best first (check ``choice.plan.error_ppm``): 44.1 kHz, for one, needs the
+    factors 3^2 x 7^2, which no divider of a 12 MHz crystal's PLL output has.
+
+    Parameters
+    ----------
+    rate_hz : float, int or Fraction
+        Sample (frame) rate wanted, Hz.
+    output : {'ladder', 'i2s', 'pwm'}
+        The output system.
+    min_hz, max_hz : int
+        Range of system clocks to search, Hz.
+    near_hz : int
+        Clock to rank by distance from, Hz.
+    tolerance_ppm : float
+        Rate error accepted as exact enough, ppm (default 0).
+    min_cycles, max_cycles : int
+        Ladder: the program's range of cycles per sample.
+    min_carrier_hz : float, optional
+        PWM: lowest acceptable carrier (default 4 x the rate).
+    limit : int
+        Most clocks returned.
+
+    Examples
+    --------
+    >>> [c.sys_clock_hz for c in find_sys_clocks(48000, output="i2s")]
+    [61440000]
+    """
+    rate = _as_fraction(rate_hz, "rate_hz")
+    if output not in ("ladder", "i2s", "pwm"):
+        raise OptionError(f"must be ladder, i2s or pwm, got {output!r}", field="output")
+    if not 0 < min_hz <= max_hz:
+        raise OptionError(
+            f"need 0 < min <= max, got {min_hz}..{max_hz} Hz", field="min_sys_clock_hz"
+        )
+    if not (math.isfinite(tolerance_ppm) and tolerance_ppm >= 0):
+        raise OptionError(f"must be >= 0, got {tolerance_ppm!r}", field="rate_tolerance_ppm")
+    every: list[ClockChoice] = []
+    for f, pll in sorted(pll_settings(min_hz, max_hz).items()):
+        try:
+            if output == "pwm":
+                from ladderpack.outputs.pwm import plan_pwm
+
+                plan: Any = plan_pwm(
+                    rate, sys_clock_hz=f, min_carrier_hz=min_carrier_hz, tolerance_ppm=1e9
+                )
+            else:
+                lo, hi = (128, 128) if output == "i2s" else (min_cycles, max_cycles)
+                plan = plan_clock(
+                    rate, sys_clock_hz=f, tolerance_ppm=1e9, min_cycles=lo, max_cycles=hi
+                )
+        except (ClockError, OptionError):
+            continue
+        if not plan.fractional:
+            every.append(ClockChoice(pll, plan))
+    close = [c for c in every if abs(c.plan.error_ppm) <= tolerance_ppm]
+    if close:
+        close.sort(key=lambda c: (abs(c.sys_clock_hz - near_hz), c.sys_clock_hz))
+        return close[:limit]
+    every.sort(key=lambda c: (abs(c.plan.error_ppm), abs(c.sys_clock_hz - near_hz)))
+    return every[:limit]

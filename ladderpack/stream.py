@@ -31,7 +31,7 @@ from ladderpack import conform
 from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
-from ladderpack.clock import ClockPlan, plan_clock
+from ladderpack.clock import RATED_SYS_CLOCK_HZ, ClockPlan, plan_clock, pll_settings
 from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
@@ -71,6 +71,7 @@ from ladderpack.sources import (
     FileSource,
     MonoSource,
 )
+from ladderpack.targets import get_target
 
 __all__ = [
     "BLOCK_THRESHOLD",
@@ -883,6 +884,24 @@ def finish(
             plan.rate_hz,
         ),
     }
+    sys_hz = int(opts.sys_clock_hz or 0)
+    if sys_hz != get_target(opts.target).sys_clock_hz:
+        # a clock of the user's choosing: how the PLL makes it, for the players
+        pll = pll_settings(sys_hz, sys_hz).get(sys_hz)
+        if pll is not None:
+            stats["pll"] = pll.to_dict()
+        else:
+            warnings_pll = (
+                f"the PLL cannot make {sys_hz} Hz from the 12 MHz crystal (REFDIV 1, VCO "
+                "750..1600 MHz): set the clock yourself, or pick one 'clock --find-sys-clock' "
+                "lists"
+            )
+            stats.setdefault("warnings", []).append(warnings_pll)
+        rated = RATED_SYS_CLOCK_HZ["rp2040" if opts.target == "rp2040" else "rp2350"]
+        if sys_hz > rated:
+            stats.setdefault("warnings", []).append(
+                f"{sys_hz} Hz is above the chip's rated {rated} Hz: at your own risk"
+            )
     if plan.pwm is not None:
         stats["pwm"] = {**plan.pwm.plan.to_dict(), **plan.pwm.to_dict()}
     if isinstance(plan.layout, I2sLayout) and isinstance(plan.clock, ClockPlan):
@@ -899,6 +918,7 @@ def finish(
         plan.predicted_noise_db,
         plan.code_scale.half,
     ) + _rate_warnings(opts.rate_hz, done.rate_in_hz)
+    warnings += stats.pop("warnings", [])
     if warnings:
         stats["warnings"] = warnings
     if done.tone:

@@ -405,3 +405,45 @@ def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path) -> None:
     fade = left[passes * frames :]
     assert fade.size and fade[-1] == 0  # then a fade out to silence
     assert_period(t[: passes * frames], exp)
+
+
+def test_a_system_clock_from_the_pll_makes_48k_exact(fw: Firmware, tmp_path: Path) -> None:
+    # 61.44 MHz = 12 MHz x 128 / 5 / 5 (clock --find-sys-clock): 48 kHz frames of 128
+    # state-machine cycles with the integer divider 10, no jitter
+    exp = make(tmp_path, "amp48", bits=16, rate_hz=48000.0, sys_clock_hz=61_440_000, seconds=0.002)
+    assert exp.period_clocks == 1280.0
+    header = (tmp_path / "amp48.h").read_text()
+    assert "#define AMP48_SET_SYS_CLOCK() set_sys_clock_pll(" in header
+    source = app("amp48", [("init", 0), ("start", 0), ("wait", 0)])
+    source = source.replace(
+        '#include "pico/stdlib.h"', '#include "pico/stdlib.h"\n#include "hardware/clocks.h"'
+    )
+    source = source.replace("    int rc;\n", "    int rc;\n    AMP48_SET_SYS_CLOCK();\n", 1)
+    image = fw.make(tmp_path, [], [], app=source)
+    r = run(
+        image,
+        fw.mailbox(),
+        extra={"watch_pins": [DATA, CLOCK, CLOCK + 1], "sys_clock_hz": 61_440_000},
+    )
+    # the player accepts the clock (clock_get_hz(clk_sys) is the planned one)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t = frames_of(slots, times, 16)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert np.all(np.diff(t) == 1280)  # every frame exactly 1280 system clocks
+
+
+def test_micropython_sets_the_planned_clock(tmp_path: Path) -> None:
+    from tests.chip.harness import run_micropython
+
+    exp, files = board_files(
+        tmp_path, "amp48", embed=True, bits=16, rate_hz=48000.0, sys_clock_hz=61_440_000,
+        seconds=0.004,
+    )  # fmt: skip
+    code = "import amp48\namp48.set_clock()\namp48.play()\n"
+    r = run_micropython(files, [{"code": code}], tmp_path, watch_pins=[DATA, CLOCK, CLOCK + 1])
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    slots, times = decode_i2s(r.changes, exp.frame_format)
+    left, right, t = frames_of(slots, times, 16)
+    assert np.array_equal(left, exp.left) and np.array_equal(right, exp.right)
+    assert np.all(np.diff(t) == 1280)

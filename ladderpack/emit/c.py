@@ -18,7 +18,7 @@ from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed, StereoLadderLayout
 
-__all__ = ["render_header", "render_source"]
+__all__ = ["pll_lines", "render_header", "render_source"]
 
 _WORDS_PER_LINE = 8
 _PROGRAM_KIND = {"autopull": "0u", "pull": "1u", "loop": "2u"}
@@ -96,6 +96,31 @@ def _mono_defines(
         ("REG_EXECCTRL", f"0x{sm.execctrl:08X}u", "SMx_EXECCTRL, program at offset 0"),
         ("REG_SHIFTCTRL", f"0x{sm.shiftctrl:08X}u", "SMx_SHIFTCTRL"),
         ("REG_PINCTRL", f"0x{sm.pinctrl:08X}u", "SMx_PINCTRL"),
+    ]
+
+
+def pll_lines(asset: StreamAsset) -> list[str]:
+    """Defines and a set-up macro for a system clock other than the chip's default.
+
+    Empty for the default clock (the SDK's start-up code sets that one).
+    """
+    pll = asset.stats.get("pll")
+    if not pll:
+        return []
+    p = asset.name.upper()
+    return [
+        "",
+        "/* The system clock this stream was planned for, made by the system PLL:",
+        f" * {pll['xosc_hz']} Hz crystal x FBDIV {pll['fbdiv']} = VCO {pll['vco_hz']} Hz, "
+        f"/ {pll['postdiv1']} / {pll['postdiv2']}.",
+        f" * {p}_SET_SYS_CLOCK() sets it (vendor SDK: include hardware/clocks.h); call it",
+        " * before the player's init. clk_peri follows clk_sys with the SDK's defaults, so UART",
+        " * and SPI baud rates change: initialise them after it. Mind the chip's rated clock. */",
+        f"#define {p}_PLL_VCO_HZ {pll['vco_hz']}u",
+        f"#define {p}_PLL_POSTDIV1 {pll['postdiv1']}u",
+        f"#define {p}_PLL_POSTDIV2 {pll['postdiv2']}u",
+        f"#define {p}_SET_SYS_CLOCK() "
+        f"set_sys_clock_pll({p}_PLL_VCO_HZ, {p}_PLL_POSTDIV1, {p}_PLL_POSTDIV2)",
     ]
 
 
@@ -178,6 +203,7 @@ def render_header(asset: StreamAsset) -> str:
         macro = f"{prefix}_{key}".ljust(width)
         comment = f" /* {note} */" if note else ""
         lines.append(f"#define {macro} {value}{comment}")
+    lines += pll_lines(asset)
     lines += [
         "",
         f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",

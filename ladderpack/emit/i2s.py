@@ -12,7 +12,7 @@ import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.c import _array_lines, _banner
+from ladderpack.emit.c import _array_lines, _banner, pll_lines
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2s import I2sLayout, i2s_entry
 
@@ -112,6 +112,7 @@ def render_header(asset: StreamAsset) -> str:
     for key, value, note in defs:
         comment = f" /* {note} */" if note else ""
         lines.append(f"#define {f'{prefix}_{key}'.ljust(width)} {value}{comment}")
+    lines += pll_lines(asset)
     lines += [
         "",
         f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",

@@ -462,6 +462,22 @@ def _stereo_module(text: str) -> str:
     )
 
 
+def set_clock_text(asset: StreamAsset) -> str:
+    """A ``set_clock()`` for a module whose stream needs a clock other than the default."""
+    pll = asset.stats.get("pll")
+    if not pll:
+        return ""
+    return (
+        "\n\ndef set_clock() -> None:\n"
+        '    """Set the system clock to SYS_CLOCK_HZ, which the PLL makes as '
+        f"{pll['xosc_hz']} Hz x {pll['fbdiv']}\n"
+        f"    / {pll['postdiv1']} / {pll['postdiv2']}. Call it before Player(); UART and SPI "
+        "rates change with\n    it (initialise them after), and mind the chip's rated "
+        'clock."""\n'
+        "    freq(SYS_CLOCK_HZ)\n"
+    )
+
+
 def render(asset: StreamAsset, *, embed: bool = False) -> str:
     """Return the MicroPython module text.
 
@@ -549,7 +565,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         start = text.index("# Wiring:")
         text = text[:start] + wiring + text[text.index("\n", start) :]
         text = _stereo_module(text)
-    return text
+    return text + set_clock_text(asset)
 
 
 def _mp_instruction(ins: Instruction) -> str:

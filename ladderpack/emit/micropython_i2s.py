@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.micropython import _literal
+from ladderpack.emit.micropython import _literal, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2s import I2sLayout, i2s_entry
 from ladderpack.pio import Instruction, Program
@@ -308,27 +308,35 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
     words_literal = (
         ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
     )
-    return _TEMPLATE.format(
-        version=__version__,
-        source=comment_safe(asset.source.get("file", "generated signal")),
-        name=asset.name,
-        bits=lay.bits,
-        frames=asset.sample_count,
-        words=asset.word_count,
-        wpf=lay.words_per_frame,
-        rate=float(p.achieved_rate_hz),
-        sys_clock=p.sys_clock_hz,
-        clkdiv=sm.clkdiv,
-        cycles=p.cycles_per_sample,
-        data_pin=sm.out_base,
-        clock_pin=clock_pin,
-        ws_pin=clock_pin + 1,
-        gpio_base=sm.gpio_base,
-        entry=i2s_entry(asset.pio_program),
-        loop=asset.loop,
-        bin_file=f"{asset.name}.bin",
-        chunk_words=int(asset.options.get("chunk_words", 1024)),
-        words_literal=words_literal,
-        outro=_literal(asset.outro),
-        body="\n".join(_mp_program(asset.pio_program)),
+    return set_clock_after(
+        _TEMPLATE.format(
+            version=__version__,
+            source=comment_safe(asset.source.get("file", "generated signal")),
+            name=asset.name,
+            bits=lay.bits,
+            frames=asset.sample_count,
+            words=asset.word_count,
+            wpf=lay.words_per_frame,
+            rate=float(p.achieved_rate_hz),
+            sys_clock=p.sys_clock_hz,
+            clkdiv=sm.clkdiv,
+            cycles=p.cycles_per_sample,
+            data_pin=sm.out_base,
+            clock_pin=clock_pin,
+            ws_pin=clock_pin + 1,
+            gpio_base=sm.gpio_base,
+            entry=i2s_entry(asset.pio_program),
+            loop=asset.loop,
+            bin_file=f"{asset.name}.bin",
+            chunk_words=int(asset.options.get("chunk_words", 1024)),
+            words_literal=words_literal,
+            outro=_literal(asset.outro),
+            body="\n".join(_mp_program(asset.pio_program)),
+        ),
+        asset,
     )
+
+
+def set_clock_after(text: str, asset: StreamAsset) -> str:
+    """`text` with a ``set_clock()`` when the stream needs a clock other than the default."""
+    return text + set_clock_text(asset)

@@ -12,8 +12,8 @@ from collections.abc import Iterator
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.c import _array_lines, _banner
-from ladderpack.emit.micropython import _literal
+from ladderpack.emit.c import _array_lines, _banner, pll_lines
+from ladderpack.emit.micropython import _literal, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.pwm import PwmPlan, PwmSetup
 from ladderpack.pack import Packed
@@ -123,6 +123,7 @@ def render_header(asset: StreamAsset) -> str:
     for key, value, note in defs:
         comment = f" /* {note} */" if note else ""
         lines.append(f"#define {f'{prefix}_{key}'.ljust(width)} {value}{comment}")
+    lines += pll_lines(asset)
     lines += ["", f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];"]
     for part in ("intro", "outro"):
         if _words(getattr(asset, part)):
@@ -410,7 +411,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
     words_literal = (
         ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
     )
-    return _MP_TEMPLATE.format(
+    text = _MP_TEMPLATE.format(
         version=__version__,
         source=comment_safe(asset.source.get("file", "generated signal")),
         name=asset.name,
@@ -443,3 +444,4 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         outro=_literal(asset.outro),
         outro_transfers=_transfers(asset, asset.outro),
     )
+    return text + set_clock_text(asset)
