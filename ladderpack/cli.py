@@ -205,7 +205,21 @@ _TEXT_PARSERS: dict[str, Callable[[str | None], Any]] = {
     "tones": _pairs,
     "codes": _code_list,
     "freqs_hz": lambda t: None if t is None else _split_list(t, "--freqs-hz", float),
+    "volts": lambda t: None if t is None else _split_list(t, "--volts", float),
+    "dac_address": lambda t: None if t is None else _address(t),
 }
+
+
+def _address(text: str) -> int:
+    """An I2C address in decimal or with a 0x prefix."""
+    from ladderpack.errors import OptionError
+
+    try:
+        return int(text, 0)
+    except ValueError:
+        raise OptionError(
+            f"expected an address such as 0x60, got {text!r}", field="dac_address"
+        ) from None
 
 
 def model_options(
@@ -1191,6 +1205,63 @@ def table_correction(
         f"{res.name}: {res.in_bits}-bit ideal level -> {res.bits}-bit code, {res.entries} "
         f"entries, {res.distinct_codes} distinct codes used"
     )
+    for path in written:
+        click.echo(f"  wrote    {path}")
+
+
+@table.command("i2c-dac")
+@_model_options_lazy("I2cDacTableSpec")
+@click.option(
+    "-o",
+    "--out-dir",
+    default="ladderpack_out",
+    show_default=True,
+    help="Folder the table files go to.",
+)
+@click.option(
+    "--name", default="dac_levels", show_default=True, help="Table name for files and symbols."
+)
+@click.option("--json", "as_json", is_flag=True, help="Print a summary as JSON.")
+def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None:
+    """The bytes of a 12-bit I2C DAC's updates for a list of voltages or a waveform.
+
+    Written as C and MicroPython arrays for firmware that writes them itself.
+    """
+    from ladderpack.emit import write_files
+    from ladderpack.options import I2cDacTableSpec
+    from ladderpack.outputs.i2c_dac import (
+        BUS_SPEEDS_HZ,
+        I2cDacFormat,
+        max_update_rate_hz,
+    )
+    from ladderpack.tables import i2c_dac_table_files
+
+    spec = I2cDacTableSpec(**model_values(I2cDacTableSpec, values))
+    res = i2c_dac_table_files(name, spec)
+    written = write_files(res.files, out_dir)
+    fmt = I2cDacFormat(spec.dac_address, spec.dac_command)
+    rates = {b: float(max_update_rate_hz(b, fmt)) for b in BUS_SPEEDS_HZ}
+    summary = {
+        "name": res.name,
+        "updates": res.entries,
+        "distinct_codes": res.distinct_codes,
+        "address": spec.dac_address,
+        "command": spec.dac_command,
+        "bytes_per_update": fmt.bytes_per_update,
+        "max_update_rate_hz": rates,
+        "files": written,
+    }
+    if as_json:
+        click.echo(json_text(summary))
+        return
+    click.echo(
+        f"{res.name}: {res.entries} updates of a 12-bit I2C DAC at 0x{spec.dac_address:02X} "
+        f"({spec.dac_command} write, {fmt.bytes_per_update} bytes on the bus each)"
+    )
+    click.echo(
+        "  at most " + ", ".join(f"{r:.0f} updates/s at {b // 1000} kHz" for b, r in rates.items())
+    )
+    click.echo("  bus: pull-ups on SDA and SCL to the DAC's supply; 3.3 V logic on this board")
     for path in written:
         click.echo(f"  wrote    {path}")
 

@@ -49,6 +49,7 @@ from ladderpack.targets import TARGET_NAMES, get_target
 __all__ = [
     "ClipOptions",
     "CorrectionTableSpec",
+    "I2cDacTableSpec",
     "OptionInfo",
     "StreamOptions",
     "ToneSpec",
@@ -881,6 +882,55 @@ class WaveTableSpec(_Model):
         elif self.output == "pwm":
             out.pop("bits", None)
         return out
+
+
+@dataclass(frozen=True)
+class I2cDacTableSpec(_Model):
+    """Update bytes of an I2C DAC for a list of voltages or one cycle of a waveform."""
+
+    volts: tuple[float, ...] | None = _opt(
+        None,
+        "Output voltages, comma-separated (instead of --wave).",
+        unit="V",
+        metavar="LIST",
+        default_text="none",
+    )
+    wave: str | None = _opt(
+        None,
+        "One cycle of a waveform, from 0 V to --vref-volts x --level (instead of --volts).",
+        choices=("sine", "square", "sawtooth", "triangle"),
+        default_text="none",
+    )
+    points: int = _opt(64, "--wave: points per cycle.", unit="points", lo=2, hi=65536)
+    level: float = _opt(
+        1.0, "--wave: peak-to-peak swing as a share of the DAC's range.", unit="FS", lo=0, hi=1
+    )
+    vref_volts: float = _opt(
+        3.3, "The DAC's reference (an MCP4725's: its supply).", unit="V", lo=0, lo_open=True
+    )
+    dac_address: int = _opt(
+        0x60,
+        "7-bit I2C address of the DAC, decimal or 0x.. (0x60: an MCP4725 with A0 low).",
+        unit="address",
+        default_text="0x60",
+    )
+    dac_command: str = _opt(
+        "fast",
+        "fast (2 data bytes) or register (write DAC register, 3 bytes).",
+        choices=("fast", "register"),
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        if (self.volts is None) == (self.wave is None):
+            raise OptionError("give --volts or --wave (one of them)", field="volts")
+        if self.volts is not None:
+            if not self.volts:
+                raise OptionError("expected at least one voltage", field="volts")
+            for v in self.volts:
+                if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+                    raise OptionError(f"expected numbers of volts, got {v!r}", field="volts")
+            object.__setattr__(self, "volts", tuple(float(v) for v in self.volts))
 
 
 @dataclass(frozen=True)

@@ -13,9 +13,9 @@ import numpy as np
 
 from ladderpack.emit import table as emit_table
 from ladderpack.emit.names import asset_identifier
-from ladderpack.options import CorrectionTableSpec, WaveTableSpec
+from ladderpack.options import CorrectionTableSpec, I2cDacTableSpec, WaveTableSpec
 
-__all__ = ["TableResult", "correction_table_files", "wave_table_files"]
+__all__ = ["TableResult", "correction_table_files", "i2c_dac_table_files", "wave_table_files"]
 
 
 @dataclass(frozen=True)
@@ -158,3 +158,40 @@ def correction_table_files(name: str, spec: CorrectionTableSpec) -> TableResult:
     return TableResult(
         ident, files, lev.bits, int(tab.size), in_bits=m, distinct_codes=int(np.unique(tab).size)
     )
+
+
+def i2c_dac_table_files(name: str, spec: I2cDacTableSpec) -> TableResult:
+    """The bytes of one I2C-DAC update per voltage (or per point of a waveform's cycle).
+
+    For firmware that writes them itself (``i2c_write_blocking`` in C, ``I2C.writeto`` in
+    MicroPython): the data bytes after the address byte, one row per update, with the
+    address and the highest update rate at each bus speed.
+
+    Parameters
+    ----------
+    name : str
+        Table name (sanitised into the identifier).
+    spec : I2cDacTableSpec
+        The voltages or waveform, the reference, the address and the command.
+    """
+    from ladderpack.outputs.i2c_dac import I2cDacFormat, codes_for_volts
+
+    fmt = I2cDacFormat(spec.dac_address, spec.dac_command)
+    if spec.volts is not None:
+        volts = np.asarray(spec.volts, dtype=np.float64)
+        what = f"{volts.size} voltages"
+    else:
+        # one cycle spanning the level's share of the range, about mid-scale
+        phase = np.arange(spec.points) / spec.points
+        shape = {
+            "sine": np.sin(2 * np.pi * phase),
+            "square": np.where(phase < 0.5, 1.0, -1.0),
+            "sawtooth": 2 * phase - 1,
+            "triangle": 1 - 4 * np.abs(phase - 0.5),
+        }[str(spec.wave)]
+        volts = spec.vref_volts * (0.5 + 0.5 * spec.level * shape)
+        what = f"one {spec.wave} cycle of {spec.points} points"
+    codes = codes_for_volts(volts, spec.vref_volts)
+    ident = asset_identifier(name)
+    files = emit_table.render_i2c_dac_files(ident, fmt, codes, volts, spec.vref_volts, what)
+    return TableResult(ident, files, 12, int(codes.size), distinct_codes=int(np.unique(codes).size))

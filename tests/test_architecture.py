@@ -23,7 +23,7 @@ LAYERS: dict[int, set[str]] = {
     2: {
         "audio", "conform", "loudness", "clock", "quantize", "pack", "pio", "shaping",
         "levels", "ladder", "waves", "measure", "budget", "sources", "preview", "plots",
-        "outputs", "outputs.pwm", "outputs.i2s",
+        "outputs", "outputs.pwm", "outputs.i2s", "outputs.i2c_dac",
     },
     3: {"asset"},
     4: {

@@ -208,6 +208,7 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
         "sweep",
         "table correction",
         "table wave",
+        "table i2c-dac",
         "tone",
     ],
 )
