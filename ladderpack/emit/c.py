@@ -8,7 +8,7 @@ name, passed through :func:`comment_safe` so it cannot end a comment.
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from typing import Any
 
 import numpy as np
@@ -18,7 +18,14 @@ from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
 from ladderpack.pack import Packed, StereoLadderLayout
 
-__all__ = ["pll_lines", "render_header", "render_source"]
+__all__ = [
+    "chunked",
+    "header_frame",
+    "init_macro",
+    "pll_lines",
+    "render_header",
+    "render_source",
+]
 
 _WORDS_PER_LINE = 8
 _PROGRAM_KIND = {"autopull": "0u", "pull": "1u", "loop": "2u"}
@@ -168,41 +175,15 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_PROGRAM_KIND",
     ]
     if _stereo(asset):
-        lines = [
-            "/* Initialiser for lp_stereo_stream_t (ladderpack_stereo.h):",
-            f" *   static const lp_stereo_stream_t s = {P}_STEREO_INIT; */",
-            f"#define {P}_STEREO_INIT {{ \\",
-        ]
-    else:
-        lines = [
-            "/* Initialiser for lp_stream_t (ladderpack_player.h):",
-            f" *   static const lp_stream_t s = {P}_STREAM_INIT; */",
-            f"#define {P}_STREAM_INIT {{ \\",
-        ]
-    for i, f in enumerate(fields):
-        lines.append(f"    {f}{',' if i < len(fields) - 1 else ''} \\")
-    lines.append("}")
-    return lines
+        return init_macro("lp_stereo_stream_t", "ladderpack_stereo.h", f"{P}_STEREO_INIT", fields)
+    return init_macro("lp_stream_t", "ladderpack_player.h", f"{P}_STREAM_INIT", fields)
 
 
 def render_header(asset: StreamAsset) -> str:
     """Return the C header text for a stream asset."""
     prefix = asset.name.upper()
     guard = f"LADDERPACK_{prefix}_H"
-    lines = [
-        _banner(asset),
-        f"#ifndef {guard}",
-        f"#define {guard}",
-        "",
-        "#include <stddef.h>",
-        "#include <stdint.h>",
-        "",
-    ]
-    width = max(len(k) for k, _, _ in _defines(asset)) + len(prefix) + 1
-    for key, value, note in _defines(asset):
-        macro = f"{prefix}_{key}".ljust(width)
-        comment = f" /* {note} */" if note else ""
-        lines.append(f"#define {macro} {value}{comment}")
+    lines = header_frame(asset, _defines(asset))
     lines += pll_lines(asset)
     lines += [
         "",
@@ -317,15 +298,15 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
         yield "};"
 
 
-def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
-    """The C source as byte chunks of about `chunk_chars` (identical to :func:`render_source`).
+def chunked(lines: Iterable[str], chunk_chars: int = 1 << 20) -> Iterator[bytes]:
+    """Lines joined with newlines, as byte chunks of about `chunk_chars`.
 
-    An item of :func:`source_lines` may hold many lines, so the chunks are cut by size,
-    keeping memory bounded whatever the stream's length.
+    An item may hold many lines, so the chunks are cut by size, keeping memory bounded
+    whatever the stream's length.
     """
     buf: list[str] = []
     size = 0
-    for line in source_lines(asset):
+    for line in lines:
         buf.append(line)
         size += len(line) + 1
         if size >= chunk_chars:
@@ -333,6 +314,43 @@ def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iter
             buf, size = [], 0
     if buf:
         yield ("\n".join(buf) + "\n").encode()
+
+
+def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
+    """The C source as byte chunks of about `chunk_chars` (identical to :func:`render_source`)."""
+    return chunked(source_lines(asset), chunk_chars)
+
+
+def init_macro(struct: str, header: str, macro: str, fields: list[str]) -> list[str]:
+    """The lines of a ``#define MACRO { field, ... }`` initialiser for a player's struct."""
+    lines = [
+        f"/* Initialiser for {struct} ({header}):",
+        f" *   static const {struct} s = {macro}; */",
+        f"#define {macro} {{ \\",
+    ]
+    for i, f in enumerate(fields):
+        lines.append(f"    {f}{',' if i < len(fields) - 1 else ''} \\")
+    lines.append("}")
+    return lines
+
+
+def header_frame(asset: StreamAsset, defines: list[tuple[str, str, str]]) -> list[str]:
+    """The opening of an asset header: banner, guard, includes and the aligned defines."""
+    prefix = asset.name.upper()
+    lines = [
+        _banner(asset),
+        f"#ifndef LADDERPACK_{prefix}_H",
+        f"#define LADDERPACK_{prefix}_H",
+        "",
+        "#include <stddef.h>",
+        "#include <stdint.h>",
+        "",
+    ]
+    width = max(len(k) for k, _, _ in defines) + len(prefix) + 1
+    for key, value, note in defines:
+        comment = f" /* {note} */" if note else ""
+        lines.append(f"#define {f'{prefix}_{key}'.ljust(width)} {value}{comment}")
+    return lines
 
 
 def render_source(asset: StreamAsset) -> str:

@@ -12,7 +12,7 @@ import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.c import _array_lines, _banner, pll_lines
+from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2s import I2sLayout, i2s_entry
 
@@ -83,35 +83,14 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_GPIO_BASE",
     ]
-    lines = [
-        "/* Initialiser for lp_i2s_stream_t (ladderpack_i2s.h):",
-        f" *   static const lp_i2s_stream_t s = {P}_I2S_INIT; */",
-        f"#define {P}_I2S_INIT {{ \\",
-    ]
-    for i, f in enumerate(fields):
-        lines.append(f"    {f}{',' if i < len(fields) - 1 else ''} \\")
-    lines.append("}")
-    return lines
+    return init_macro("lp_i2s_stream_t", "ladderpack_i2s.h", f"{P}_I2S_INIT", fields)
 
 
 def render_header(asset: StreamAsset) -> str:
     """Return the C header of an I2S stream."""
     prefix = asset.name.upper()
     guard = f"LADDERPACK_{prefix}_H"
-    lines = [
-        _banner(asset),
-        f"#ifndef {guard}",
-        f"#define {guard}",
-        "",
-        "#include <stddef.h>",
-        "#include <stdint.h>",
-        "",
-    ]
-    defs = _defines(asset)
-    width = max(len(k) for k, _, _ in defs) + len(prefix) + 1
-    for key, value, note in defs:
-        comment = f" /* {note} */" if note else ""
-        lines.append(f"#define {f'{prefix}_{key}'.ljust(width)} {value}{comment}")
+    lines = header_frame(asset, _defines(asset))
     lines += pll_lines(asset)
     lines += [
         "",
@@ -154,16 +133,7 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
 
 def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
     """The C source as byte chunks of about `chunk_chars`."""
-    buf: list[str] = []
-    size = 0
-    for line in source_lines(asset):
-        buf.append(line)
-        size += len(line) + 1
-        if size >= chunk_chars:
-            yield ("\n".join(buf) + "\n").encode()
-            buf, size = [], 0
-    if buf:
-        yield ("\n".join(buf) + "\n").encode()
+    return chunked(source_lines(asset), chunk_chars)
 
 
 def render_source(asset: StreamAsset) -> str:
