@@ -7,6 +7,7 @@ from collections.abc import Mapping
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
+from ladderpack.outputs.i2s import i2s_entry
 from ladderpack.reading import json_text
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "render"]
@@ -27,7 +28,9 @@ def _program(asset: StreamAsset) -> dict[str, object]:
             "wrap_target": asset.program.wrap_target,
             "wrap": asset.program.wrap,
             **(
-                {"entry": len(asset.program.words) - 1} if asset.sm.sideset_base is not None else {}
+                {"entry": i2s_entry(asset.program)}
+                if asset.program.variant.startswith("i2s")
+                else {}
             ),
         },
         "state_machine": asset.sm.to_dict(),
