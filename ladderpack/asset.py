@@ -33,7 +33,7 @@ class StreamSummary(TypedDict):
     rate_error_ppm: float
     divider: str
     fractional_divider: bool
-    cycles_per_sample: int
+    cycles_per_sample: int  # state-machine cycles per sample (frame); 0 for PWM: no machine
     samples: int
     words: int
     bytes: int
