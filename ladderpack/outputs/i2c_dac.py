@@ -28,14 +28,20 @@ from fractions import Fraction
 import numpy as np
 
 from ladderpack.errors import OptionError
+from ladderpack.pio import Instruction, Program, SideSet
 
 __all__ = [
     "BUS_SPEEDS_HZ",
     "COMMANDS",
     "I2cDacFormat",
+    "I2cDacPlan",
     "bus_bits_per_update",
     "codes_for_volts",
     "max_update_rate_hz",
+    "plan_writer",
+    "writer_cycles",
+    "writer_program",
+    "writer_words",
 ]
 
 #: Standard-mode, Fast-mode and Fast-mode Plus bus clocks (UM10204), Hz.
@@ -180,3 +186,176 @@ def codes_for_volts(volts: np.ndarray, vref_volts: float, bits: int = 12) -> np.
     v = np.asarray(volts, dtype=np.float64)
     top = (1 << bits) - 1
     return np.clip(np.floor(v / vref_volts * (1 << bits) + 0.5), 0, top).astype(np.int64)
+
+
+# -- the state-machine writer -----------------------------------------------------------
+
+#: State-machine cycles per bus bit: SCL low for two, high for two.
+CYCLES_PER_BIT = 4
+
+
+def writer_program(name: str = "i2c_dac_out") -> Program:
+    """A state-machine program that writes one DAC update (START, bytes, STOP) per tick.
+
+    The lines are open-drain: both pins' output values stay 0 and the program drives a
+    line low by making its pin an output and releases it (the pull-up takes it high) by
+    making it an input: side-set on pin directions drives SCL, ``out pindirs, 1`` and
+    ``set pindirs`` drive SDA.  Each FIFO word carries one byte, inverted (a 1 drives
+    SDA low) in bits 31:24, and in bit 23 a flag marking the update's last byte, after
+    which the STOP follows.  Each byte's acknowledge is sampled while SCL is high (``jmp
+    pin``, JMP_PIN = SDA); a missing one sets IRQ flag 0 for the player and the write
+    goes on.  After the STOP the machine counts Y + 1 cycles, so that every update starts
+    one sample period after the one before (:func:`writer_cycles`).  Four cycles a bit:
+    SDA changes while SCL is low, SCL is high for two cycles (UM10204's START, STOP,
+    setup and hold times are met at the bus clock the plan sets).
+    """
+    ins = [
+        Instruction("pull", (False, True), side=0),  # 0 start: wait for an update, bus idle
+        Instruction("set", ("pindirs", 1), delay=1, side=0),  # 1 START: SDA low, SCL high
+        Instruction("set", ("x", 7), side=1),  # 2 byte: SCL low
+        Instruction("out", ("pindirs", 1), side=1),  # 3 bit: SDA = the bit, SCL low
+        Instruction("nop", (), delay=1, side=0),  # 4 SCL high, two cycles
+        Instruction("jmp", ("x--", 3), side=1),  # 5 SCL low
+        Instruction("set", ("pindirs", 0), side=1),  # 6 release SDA for the acknowledge
+        Instruction("nop", (), side=0),  # 7 SCL high
+        Instruction("jmp", ("pin", 18), side=0),  # 8 SDA high: no acknowledge
+        Instruction("out", ("x", 1), side=1),  # 9 ack: SCL low; x = last-byte flag
+        Instruction("jmp", ("!x", 16), side=1),  # 10 more bytes
+        Instruction("set", ("pindirs", 1), delay=1, side=1),  # 11 STOP: SDA low, SCL low
+        Instruction("nop", (), delay=1, side=0),  # 12 SCL high
+        Instruction("set", ("pindirs", 0), delay=1, side=0),  # 13 SDA high: STOP
+        Instruction("mov", ("x", "y"), side=0),  # 14 the rest of the sample period
+        Instruction("jmp", ("x--", 15), side=0),  # 15 pad
+        Instruction("pull", (False, True), side=1),  # 16 next: the next byte
+        Instruction("jmp", ("", 2), side=1),  # 17
+        Instruction("irq", ("set", 0), side=0),  # 18 nack: report it
+        Instruction("jmp", ("", 9), side=0),  # 19
+    ]
+    return Program(
+        name,
+        tuple(ins),
+        wrap_target=0,
+        wrap=15,
+        sideset=SideSet(1, optional=True),
+        autopull=False,
+        variant="i2c-dac",
+    )
+
+
+def writer_cycles(bytes_per_update: int, pad: int) -> int:
+    """State-machine cycles from one update's start to the next's: ``40 B + 9 + Y``.
+
+    Per update: the pull and START (3), each byte (38: the counter, eight 4-cycle bits,
+    the acknowledge and the flag), the pull between bytes (2 each), the STOP and the copy
+    of Y (7), and the pad loop (Y + 1).
+    """
+    return 40 * bytes_per_update + 9 + pad
+
+
+def writer_words(fmt: I2cDacFormat, codes: np.ndarray) -> np.ndarray:
+    """FIFO words of the updates: one a byte, inverted in bits 31:24, the last flagged."""
+    data = fmt.data(codes).astype(np.uint32)
+    n = data.shape[0]
+    rows = np.concatenate([np.full((n, 1), fmt.address_byte, np.uint32), data], axis=1)
+    words = ((~rows) & np.uint32(0xFF)) << np.uint32(24)
+    words[:, -1] |= np.uint32(1 << 23)
+    return words.reshape(-1)
+
+
+@dataclass(frozen=True)
+class I2cDacPlan:
+    """The writer's clock: divider, bus clock, cycles per update and the pad count.
+
+    Attributes
+    ----------
+    sys_clock_hz : int
+        System clock, Hz.
+    requested_rate_hz : Fraction
+        Update rate asked for, Hz.
+    divider : int
+        State-machine clock divider (integer: no jitter).
+    cycles_per_update : int
+        State-machine cycles per update (sample).
+    bytes_per_update : int
+        Bytes on the bus per update.
+    """
+
+    sys_clock_hz: int
+    requested_rate_hz: Fraction
+    divider: int
+    cycles_per_update: int
+    bytes_per_update: int
+
+    @property
+    def bus_hz(self) -> Fraction:
+        """The SCL frequency, Hz."""
+        return Fraction(self.sys_clock_hz, self.divider * CYCLES_PER_BIT)
+
+    @property
+    def achieved_rate_hz(self) -> Fraction:
+        """Updates per second, exact."""
+        return Fraction(self.sys_clock_hz, self.divider * self.cycles_per_update)
+
+    @property
+    def error_ppm(self) -> float:
+        """Achieved minus requested rate, ppm."""
+        return float((self.achieved_rate_hz / self.requested_rate_hz - 1) * 1_000_000)
+
+    @property
+    def pad(self) -> int:
+        """The Y register's value: the pad loop's count."""
+        return self.cycles_per_update - writer_cycles(self.bytes_per_update, 0)
+
+
+def plan_writer(
+    rate_hz: float | int | Fraction,
+    fmt: I2cDacFormat,
+    *,
+    bus_hz: int = 400_000,
+    sys_clock_hz: int = 125_000_000,
+) -> I2cDacPlan:
+    """Clock the writer: the bus no faster than `bus_hz`, updates at `rate_hz`.
+
+    The divider is a whole number keeping SCL at or below `bus_hz` (four cycles a bit):
+    of those up to four times the smallest, the one whose whole number of cycles per
+    update (at least what one update takes) comes nearest the rate, then the fastest.
+
+    Raises
+    ------
+    OptionError
+        For a bus clock not in :data:`BUS_SPEEDS_HZ`, or a rate above what the bus allows.
+
+    Examples
+    --------
+    >>> p = plan_writer(6250, I2cDacFormat(command="fast"), bus_hz=400_000)
+    >>> p.divider, p.cycles_per_update, round(float(p.bus_hz)), p.error_ppm
+    (80, 250, 390625, 0.0)
+    """
+    if bus_hz not in BUS_SPEEDS_HZ:
+        raise OptionError(
+            f"must be one of {', '.join(str(b) for b in BUS_SPEEDS_HZ)} Hz, got {bus_hz!r}",
+            field="bus_hz",
+        )
+    rate = Fraction(rate_hz)
+    divider = -(-sys_clock_hz // (CYCLES_PER_BIT * bus_hz))
+    least = writer_cycles(fmt.bytes_per_update, 0)
+    fastest = Fraction(sys_clock_hz, divider * least)
+    if rate > fastest:
+        raise OptionError(
+            f"{float(rate):g} updates a second is more than the bus carries: at most "
+            f"{float(fastest):.0f} with {fmt.bytes_per_update} bytes an update at "
+            f"{float(Fraction(sys_clock_hz, divider * CYCLES_PER_BIT)):.0f} Hz SCL",
+            field="rate_hz",
+        )
+    # a slower bus (a larger divider, up to 4x) may divide the clock exactly: the best
+    # error wins, then the fastest bus
+    best: tuple[Fraction, int, int] | None = None
+    for d in range(divider, 4 * divider + 1):
+        c = max(least, round(Fraction(sys_clock_hz, d) / rate))
+        err = abs(Fraction(sys_clock_hz, d * c) - rate)
+        if best is None or err < best[0]:
+            best = (err, d, c)
+        if err == 0:
+            break
+    assert best is not None
+    return I2cDacPlan(sys_clock_hz, rate, best[1], best[2], fmt.bytes_per_update)
