@@ -312,6 +312,7 @@ class Run:
     serial: list[tuple[int, str]] = field(default_factory=list)
     changes: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
     periods: np.ndarray = field(default_factory=lambda: np.zeros((0, 3), np.int64))
+    wire: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
 
     def output(self) -> str:
         """Everything MicroPython printed."""
@@ -427,4 +428,5 @@ def run(
         serial=[tuple(s) for s in d.get("serial", [])],
         changes=np.array(d.get("changes", []), dtype=np.int64).reshape(-1, 2),
         periods=np.array(d.get("periods", []), dtype=np.int64).reshape(-1, 3),
+        wire=np.array(d.get("wire", []), dtype=np.int64).reshape(-1, 2),
     )

@@ -276,6 +276,60 @@ function tickPWM() {
   }
 }
 
+// --- an I2C bus with one device that acknowledges --------------------------------------
+// config.i2c = {sda, scl, address, ack}: both lines are open-drain with pull-ups, so a
+// line is low when the chip drives it low (an output at 0) or the device does. The device
+// follows START, STOP and the clock (UM10204) only as far as it must to acknowledge: after
+// the eighth bit of a byte it holds SDA low for the ninth clock, if `ack` is set and the
+// transaction's first byte is its address (7 bits, then R/W = 0). Every change of the
+// wire levels is recorded as [cycle, scl | sda << 1] for the test's own decoder.
+const bus = config.i2c || null;
+const wire = [];
+const dev = { scl: 1, sda: 1, low: false, bit: 0, byte: 0, first: true, acking: false, mine: false };
+function driven(pin) {
+  const g = mcu.gpio[pin];
+  return g.outputEnable && !g.outputValue;
+}
+function tickI2C() {
+  const scl = driven(bus.scl) ? 0 : 1;
+  const sda = driven(bus.sda) || dev.low ? 0 : 1;
+  if (scl === dev.scl && sda === dev.sda) return;
+  wire.push(cycle, scl | (sda << 1));
+  if (scl && dev.scl && sda !== dev.sda) {
+    // START (SDA falls) or STOP (SDA rises) while SCL is high
+    dev.bit = 0;
+    dev.byte = 0;
+    dev.first = true;
+    dev.acking = false;
+    dev.low = false;
+  } else if (scl && !dev.scl) {
+    if (dev.bit < 8) {
+      dev.byte = (dev.byte << 1) | sda;
+      dev.bit++;
+    }
+  } else if (!scl && dev.scl) {
+    if (dev.acking) {
+      dev.acking = false;
+      dev.low = false;
+      dev.bit = 0;
+      dev.byte = 0;
+    } else if (dev.bit === 8) {
+      if (dev.first) dev.mine = dev.byte === ((bus.address << 1) & 0xff);
+      dev.first = false;
+      dev.acking = true;
+      dev.low = !!bus.ack && dev.mine;
+    }
+  }
+  dev.scl = scl;
+  dev.sda = driven(bus.sda) || dev.low ? 0 : 1;
+  mcu.gpio[bus.scl].setInputValue(!!scl);
+  mcu.gpio[bus.sda].setInputValue(!!dev.sda);
+}
+if (bus) {
+  mcu.gpio[bus.scl].setInputValue(true);
+  mcu.gpio[bus.sda].setInputValue(true);
+}
+
 // --- mailbox ---------------------------------------------------------------------------
 const events = [];
 let endedAt = -1;
@@ -354,6 +408,7 @@ while (cycle < maxCycles) {
     mcu.clock.tick(NANOS_PER_CYCLE);
     tickPIO();
     if (pwmOn) tickPWM();
+    if (bus) tickI2C();
   }
 }
 for (const pio of mcu.pio) pio.checkChangedPins();
@@ -365,6 +420,7 @@ process.stdout.write(
     final_oe: oeWord(),
     changes,
     periods,
+    wire,
     cycles: cycle,
     ended: endedAt >= 0,
     serial,
