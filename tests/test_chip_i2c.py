@@ -72,7 +72,9 @@ static const uint16_t prog_words[] = {{{", ".join(f"0x{w:04X}u" for w in prog.wo
 static const uint32_t words[] = {{{", ".join(f"0x{int(w):08X}u" for w in words)}}};
 
 int main(void) {{
-    pio_program_t program = {{.instructions = prog_words, .length = {len(prog.words)}u, .origin = -1}};
+    pio_program_t program = {{
+        .instructions = prog_words, .length = {len(prog.words)}u, .origin = -1
+    }};
     PIO pio = pio0;
     uint sm = 0u;
     uint offset;
