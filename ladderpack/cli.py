@@ -423,11 +423,23 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 @_model_options_lazy("StreamOptions", only=("target", "sys_clock_hz", "rate_tolerance_ppm"))
 @click.option(
     "--output",
-    type=click.Choice(["ladder", "pwm", "i2s"]),
+    type=click.Choice(["ladder", "pwm", "i2s", "i2c-dac"]),
     default="ladder",
     show_default=True,
     help="Output system to plan for: the ladder's state machine, a hardware PWM slice, "
-    "or an I2S state machine.",
+    "an I2S state machine, or a state machine writing a 12-bit I2C DAC each sample.",
+)
+@click.option(
+    "--bus-hz",
+    type=click.Choice(["100000", "400000", "1000000"]),
+    default=None,
+    help="I2C DAC: bus clock, Hz  [default: 400000]",
+)
+@click.option(
+    "--dac-command",
+    type=click.Choice(["fast", "register"]),
+    default=None,
+    help="I2C DAC: fast write (2 data bytes) or write DAC register (3)  [default: fast]",
 )
 @click.option(
     "--slot-bits",
@@ -472,6 +484,8 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 def clock(
     rate_hz: float,
     output: str,
+    bus_hz: str | None,
+    dac_command: str | None,
     min_carrier_hz: float | None,
     slot_bits: str | None,
     find_sys_clock: bool,
@@ -491,6 +505,13 @@ def clock(
         raise OptionError("applies only with --output pwm", field="min-carrier-hz")
     if slot_bits is not None and output != "i2s":
         raise OptionError("applies only with --output i2s", field="slot-bits")
+    if (bus_hz is not None or dac_command is not None) and output != "i2c-dac":
+        raise OptionError("applies only with --output i2c-dac", field="bus-hz")
+    if output == "i2c-dac":
+        if find_sys_clock:
+            raise OptionError("the I2C writer's clock search is not made yet", field="output")
+        _print_i2c_plan(rate_hz, opts, int(bus_hz or 400000), dac_command or "fast", as_json)
+        return
     if find_sys_clock:
         if slot_bits not in (None, "32"):
             raise OptionError("streams use 32-bit slots; drop it", field="slot-bits")
@@ -518,6 +539,44 @@ def clock(
     click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
     click.echo(f"cycles     {plan.cycles_per_sample} per sample")
     click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
+
+
+def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_json: bool) -> None:
+    from ladderpack.outputs.i2c_dac import (
+        I2cDacFormat,
+        plan_writer,
+        writer_cycles,
+    )
+
+    fmt = I2cDacFormat(command=command)
+    plan = plan_writer(rate_hz, fmt, bus_hz=bus_hz, sys_clock_hz=int(opts.sys_clock_hz or 0))
+    least = writer_cycles(fmt.bytes_per_update, 0)
+    d = {
+        "requested_rate_hz": rate_hz,
+        "achieved_rate_hz": float(plan.achieved_rate_hz),
+        "error_ppm": round(plan.error_ppm, 6),
+        "sys_clock_hz": plan.sys_clock_hz,
+        "divider": plan.divider,
+        "bus_hz": float(plan.bus_hz),
+        "cycles_per_update": plan.cycles_per_update,
+        "pad": plan.pad,
+        "bytes_per_update": fmt.bytes_per_update,
+        "max_rate_hz": plan.sys_clock_hz / (plan.divider * least),
+    }
+    if as_json:
+        click.echo(json_text(d))
+        return
+    click.echo(f"requested  {rate_hz:g} updates/s at {plan.sys_clock_hz} Hz system clock")
+    click.echo(f"achieved   {d['achieved_rate_hz']:.6f} Hz ({plan.error_ppm:+.3f} ppm)")
+    click.echo(
+        f"bus        SCL {d['bus_hz']:.0f} Hz (asked at most {bus_hz}), divider {plan.divider} "
+        "(integer: no jitter), 4 cycles a bit"
+    )
+    click.echo(
+        f"update     {fmt.bytes_per_update} bytes ({command} write): {least} cycles of "
+        f"{plan.cycles_per_update} a sample (pad Y = {plan.pad}); at most "
+        f"{d['max_rate_hz']:.0f} updates/s here"
+    )
 
 
 def _print_sys_clocks(
