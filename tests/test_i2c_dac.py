@@ -102,3 +102,46 @@ def test_table_command_writes_c_and_micropython(tmp_path: Path) -> None:
     mod = ast.parse((tmp_path / "lv.py").read_text())
     names = {t.id for n in mod.body if isinstance(n, ast.Assign) for t in n.targets}
     assert {"ADDRESS", "UPDATES", "CODES", "VOLTS"} <= names
+
+
+def test_writer_program_words_and_plan() -> None:
+    import adafruit_pioasm
+
+    from ladderpack.outputs.i2c_dac import plan_writer, writer_cycles, writer_program, writer_words
+
+    prog = writer_program()
+    # adafruit-circuitpython-pioasm (PyPI) assembles the same source to the same words
+    assert list(adafruit_pioasm.Program(prog.source()).assembled) == list(prog.words)
+    fmt = I2cDacFormat(0x60, "fast")
+    words = writer_words(fmt, np.array([0xABC]))
+    # one byte a word, inverted (a 1 drives SDA low) in bits 31:24, the last flagged
+    assert [int(w) for w in words] == [
+        (~0xC0 & 0xFF) << 24, (~0x0A & 0xFF) << 24, ((~0xBC & 0xFF) << 24) | 1 << 23,
+    ]  # fmt: skip
+    for rate in (2000, 6250, 8000, 11025):
+        for bus in (100_000, 400_000, 1_000_000):
+            try:
+                p = plan_writer(rate, fmt, bus_hz=bus)
+            except OptionError:
+                assert Fraction(125_000_000, -(-125_000_000 // (4 * bus)) * 129) < rate
+                continue
+            # the datasheet's state-machine rate f_sys / divider over the cycles per update
+            assert p.achieved_rate_hz == Fraction(125_000_000, p.divider * p.cycles_per_update)
+            assert p.bus_hz <= bus and p.cycles_per_update >= writer_cycles(3, 0) == 129
+            assert abs(p.error_ppm) < 1000
+    assert plan_writer(6250, fmt).error_ppm == 0.0
+
+
+def test_clock_command_plans_the_writer() -> None:
+    import json as _json
+
+    from click.testing import CliRunner
+
+    from ladderpack.cli import cli
+
+    res = CliRunner().invoke(cli, ["clock", "6250", "--output", "i2c-dac", "--json"])
+    assert res.exit_code == 0, res.output
+    d = _json.loads(res.output)
+    assert d["divider"] == 80 and d["cycles_per_update"] == 250 and d["error_ppm"] == 0
+    res = CliRunner().invoke(cli, ["clock", "50000", "--output", "i2c-dac"])
+    assert res.exit_code != 0 and "more than the bus carries" in res.output
