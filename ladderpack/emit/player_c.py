@@ -341,27 +341,7 @@ static uint32_t lp_channel_mask(const lp_player_t *p) {
     return m;
 }
 
-/* Abort every channel of the player. RP2350-E5 (SDK dma_channel_abort): clear the enable
- * bit of the aborted channels and of any channel chained from them first, so no chain
- * can re-trigger one of them. */
-static void lp_abort_all(lp_player_t *p) {
-    uint32_t mask = lp_channel_mask(p);
-    uint ch;
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if (mask & (1u << ch)) {
-            dma_hw->ch[ch].al1_ctrl = dma_hw->ch[ch].al1_ctrl & ~DMA_CH0_CTRL_TRIG_EN_BITS;
-        }
-    }
-    dma_hw->abort = mask;
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if (mask & (1u << ch)) {
-            while (dma_hw->ch[ch].ctrl_trig & DMA_CH0_CTRL_TRIG_BUSY_BITS) {
-                tight_loop_contents();
-            }
-        }
-    }
-}
-
+{abort_all}
 static void lp_release(lp_player_t *p) {
     if (p->data_ch >= 0) dma_channel_unclaim((uint)p->data_ch);
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
@@ -693,6 +673,43 @@ def _cosine_table() -> str:
     return ",\n".join("    " + r for r in rows)
 
 
+def abort_all(prefix: str) -> str:
+    """C text of ``<prefix>_abort_all``: abort every DMA channel of a player.
+
+    Shared by the players (ladder, I2S, PWM), whose ``<prefix>_channel_mask`` names
+    their channels.
+    """
+    return (
+        "/* Abort every channel of the player. RP2350-E5 (SDK dma_channel_abort): clear the "
+        "enable\n"
+        " * bit of the aborted channels and of any channel chained from them first, so no "
+        "chain\n"
+        " * can re-trigger one of them. */\n"
+        f"static void {prefix}_abort_all({prefix}_player_t *p) {{\n"
+        f"    uint32_t mask = {prefix}_channel_mask(p);\n"
+        "    uint ch;\n"
+        "    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {\n"
+        "        if (mask & (1u << ch)) {\n"
+        "            dma_hw->ch[ch].al1_ctrl = dma_hw->ch[ch].al1_ctrl & "
+        "~DMA_CH0_CTRL_TRIG_EN_BITS;\n"
+        "        }\n"
+        "    }\n"
+        "    dma_hw->abort = mask;\n"
+        "    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {\n"
+        "        if (mask & (1u << ch)) {\n"
+        "            while (dma_hw->ch[ch].ctrl_trig & DMA_CH0_CTRL_TRIG_BUSY_BITS) {\n"
+        "                tight_loop_contents();\n"
+        "            }\n"
+        "        }\n"
+        "    }\n"
+        "}\n"
+    )
+
+
 def render_source() -> str:
     """Return ``ladderpack_player.c``."""
-    return _SOURCE.replace("{version}", __version__).replace("{table}", _cosine_table())
+    return (
+        _SOURCE.replace("{version}", __version__)
+        .replace("{table}", _cosine_table())
+        .replace("{abort_all}", abort_all("lp"))
+    )

@@ -8,7 +8,7 @@ The two files are the same for every I2S asset (``ladderpack_i2s.h`` and
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.emit.player_c import _cosine_table
+from ladderpack.emit.player_c import _cosine_table, abort_all
 
 __all__ = ["HEADER_NAME", "SOURCE_NAME", "render_header", "render_source"]
 
@@ -204,26 +204,7 @@ static uint32_t lp_i2s_channel_mask(const lp_i2s_player_t *p) {
     return m;
 }
 
-/* Abort every channel of the player; RP2350-E5 (SDK dma_channel_abort): clear the enable
- * bits first so no chain re-triggers one of them. */
-static void lp_i2s_abort_all(lp_i2s_player_t *p) {
-    uint32_t mask = lp_i2s_channel_mask(p);
-    uint ch;
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if (mask & (1u << ch)) {
-            dma_hw->ch[ch].al1_ctrl = dma_hw->ch[ch].al1_ctrl & ~DMA_CH0_CTRL_TRIG_EN_BITS;
-        }
-    }
-    dma_hw->abort = mask;
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if (mask & (1u << ch)) {
-            while (dma_hw->ch[ch].ctrl_trig & DMA_CH0_CTRL_TRIG_BUSY_BITS) {
-                tight_loop_contents();
-            }
-        }
-    }
-}
-
+{abort_all}
 static void lp_i2s_release(lp_i2s_player_t *p) {
     if (p->data_ch >= 0) dma_channel_unclaim((uint)p->data_ch);
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
@@ -451,4 +432,8 @@ def render_header() -> str:
 
 def render_source() -> str:
     """Return ``ladderpack_i2s.c``."""
-    return _SOURCE.replace("{version}", __version__).replace("{table}", _cosine_table())
+    return (
+        _SOURCE.replace("{version}", __version__)
+        .replace("{table}", _cosine_table())
+        .replace("{abort_all}", abort_all("lp_i2s"))
+    )

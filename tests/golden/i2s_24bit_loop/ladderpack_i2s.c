@@ -84,8 +84,9 @@ static uint32_t lp_i2s_channel_mask(const lp_i2s_player_t *p) {
     return m;
 }
 
-/* Abort every channel of the player; RP2350-E5 (SDK dma_channel_abort): clear the enable
- * bits first so no chain re-triggers one of them. */
+/* Abort every channel of the player. RP2350-E5 (SDK dma_channel_abort): clear the enable
+ * bit of the aborted channels and of any channel chained from them first, so no chain
+ * can re-trigger one of them. */
 static void lp_i2s_abort_all(lp_i2s_player_t *p) {
     uint32_t mask = lp_i2s_channel_mask(p);
     uint ch;

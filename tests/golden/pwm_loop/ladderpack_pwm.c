@@ -108,7 +108,9 @@ static uint32_t lp_pwm_channel_mask(const lp_pwm_player_t *p) {
     return m;
 }
 
-/* Abort every channel; RP2350-E5 (SDK dma_channel_abort): clear the enable bits first. */
+/* Abort every channel of the player. RP2350-E5 (SDK dma_channel_abort): clear the enable
+ * bit of the aborted channels and of any channel chained from them first, so no chain
+ * can re-trigger one of them. */
 static void lp_pwm_abort_all(lp_pwm_player_t *p) {
     uint32_t mask = lp_pwm_channel_mask(p);
     uint ch;
