@@ -135,7 +135,9 @@ def test_full_disk_leaves_earlier_outputs(tmp_path: Path, earlier: Path) -> None
 def test_killed_process_leaves_earlier_outputs(tmp_path: Path, earlier: Path) -> None:
     # Kill the process mid-run; the earlier bundle must be untouched, and the next run
     # removes any temporary files the killed one left.
-    clip = _wav(tmp_path / "long.wav", 0.3 * np.sin(np.arange(2_000_000) / 7.0))
+    # long enough that the signal, a second in (after the imports), lands mid-job: a
+    # signal during the interpreter's start or after main() returned cannot be handled
+    clip = _wav(tmp_path / "long.wav", 0.3 * np.sin(np.arange(8_000_000) / 7.0))
     before = _snapshot(earlier)
     proc = subprocess.Popen(
         [
@@ -178,7 +180,9 @@ def res_ok(res: subprocess.CompletedProcess[str]) -> bool:
 
 @pytest.mark.slow
 def test_ctrl_c_is_clean(tmp_path: Path, earlier: Path) -> None:
-    clip = _wav(tmp_path / "long.wav", 0.3 * np.sin(np.arange(2_000_000) / 7.0))
+    # long enough that the signal, a second in (after the imports), lands mid-job: a
+    # signal during the interpreter's start or after main() returned cannot be handled
+    clip = _wav(tmp_path / "long.wav", 0.3 * np.sin(np.arange(8_000_000) / 7.0))
     before = _snapshot(earlier)
     proc = subprocess.Popen(
         [
