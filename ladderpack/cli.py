@@ -507,9 +507,7 @@ def clock(
         raise OptionError("applies only with --output i2s", field="slot-bits")
     if (bus_hz is not None or dac_command is not None) and output != "i2c-dac":
         raise OptionError("applies only with --output i2c-dac", field="bus-hz")
-    if output == "i2c-dac":
-        if find_sys_clock:
-            raise OptionError("the I2C writer's clock search is not made yet", field="output")
+    if output == "i2c-dac" and not find_sys_clock:
         _print_i2c_plan(rate_hz, opts, int(bus_hz or 400000), dac_command or "fast", as_json)
         return
     if find_sys_clock:
@@ -517,7 +515,7 @@ def clock(
             raise OptionError("streams use 32-bit slots; drop it", field="slot-bits")
         _print_sys_clocks(
             rate_hz, opts, output, min_carrier_hz, min_sys_clock_hz, max_sys_clock_hz, count,
-            as_json,
+            as_json, int(bus_hz or 400000), dac_command or "fast",
         )  # fmt: skip
         return
     if output == "pwm":
@@ -588,6 +586,8 @@ def _print_sys_clocks(
     max_hz: int | None,
     count: int,
     as_json: bool,
+    bus_hz: int = 400_000,
+    dac_command: str = "fast",
 ) -> None:
     from ladderpack.clock import RATED_SYS_CLOCK_HZ, find_sys_clocks
     from ladderpack.errors import OptionError
@@ -608,6 +608,8 @@ def _print_sys_clocks(
         max_hz=top,
         near_hz=now,
         min_carrier_hz=min_carrier_hz,
+        bus_hz=bus_hz,
+        dac_command=dac_command,
         limit=count,
     )
     rows = []
@@ -623,6 +625,9 @@ def _print_sys_clocks(
         if output == "pwm":
             row.update(div_int=p.div_int, div_frac=p.div_frac, top=p.top,
                        periods_per_sample=p.periods_per_sample, levels=p.levels)  # fmt: skip
+        elif output == "i2c-dac":
+            row.update(div_int=p.divider, div_frac=0, cycles=p.cycles_per_update,
+                       bus_hz=float(p.bus_hz))  # fmt: skip
         else:
             row.update(div_int=p.div_int, div_frac=p.div_frac, cycles=p.cycles_per_sample)
         rows.append(row)
@@ -644,8 +649,8 @@ def _print_sys_clocks(
         what = (
             f"TOP {r['top']}, {r['periods_per_sample']} period(s) a sample, {r['levels']} levels"
             if output == "pwm"
-            else f"divider {r['div_int']}, {r['cycles']} cycle(s) a "
-            + ("frame" if output == "i2s" else "sample")
+            else f"divider {r['div_int']}, {r['cycles']} cycle(s) per "
+            + ("frame" if output == "i2s" else "update" if output == "i2c-dac" else "sample")
         )
         flag = "  ABOVE THE RATED CLOCK" if r["above_rated"] else ""
         vco = f"VCO {pll['vco_hz'] / 1e6:g} MHz (FBDIV {pll['fbdiv']})"

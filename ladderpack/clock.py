@@ -363,6 +363,8 @@ def find_sys_clocks(
     min_cycles: int = 1,
     max_cycles: int = 32,
     min_carrier_hz: float | None = None,
+    bus_hz: int = 400_000,
+    dac_command: str = "fast",
     limit: int = 10,
 ) -> list[ClockChoice]:
     """System clocks in a range that make `rate_hz` exact with an integer divider.
@@ -380,8 +382,9 @@ def find_sys_clocks(
     ----------
     rate_hz : float, int or Fraction
         Sample (frame) rate wanted, Hz.
-    output : {'ladder', 'i2s', 'pwm'}
-        The output system.
+    output : {'ladder', 'i2s', 'pwm', 'i2c-dac'}
+        The output system (``i2c-dac``: the state-machine I2C writer, whose divider is
+        always whole).
     min_hz, max_hz : int
         Range of system clocks to search, Hz.
     near_hz : int
@@ -392,6 +395,8 @@ def find_sys_clocks(
         Ladder: the program's range of cycles per sample.
     min_carrier_hz : float, optional
         PWM: lowest acceptable carrier (default 4 x the rate).
+    bus_hz, dac_command : int, str
+        I2C DAC: the bus clock and the command (see :mod:`ladderpack.outputs.i2c_dac`).
     limit : int
         Most clocks returned.
 
@@ -401,8 +406,8 @@ def find_sys_clocks(
     [61440000]
     """
     rate = _as_fraction(rate_hz, "rate_hz")
-    if output not in ("ladder", "i2s", "pwm"):
-        raise OptionError(f"must be ladder, i2s or pwm, got {output!r}", field="output")
+    if output not in ("ladder", "i2s", "pwm", "i2c-dac"):
+        raise OptionError(f"must be ladder, i2s, pwm or i2c-dac, got {output!r}", field="output")
     if not 0 < min_hz <= max_hz:
         raise OptionError(
             f"need 0 < min <= max, got {min_hz}..{max_hz} Hz", field="min_sys_clock_hz"
@@ -412,10 +417,18 @@ def find_sys_clocks(
     every: list[ClockChoice] = []
     for f, pll in sorted(pll_settings(min_hz, max_hz).items()):
         try:
+            if output == "i2c-dac":
+                from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
+
+                plan: Any = plan_writer(
+                    rate, I2cDacFormat(command=dac_command), bus_hz=bus_hz, sys_clock_hz=f
+                )
+                every.append(ClockChoice(pll, plan))
+                continue
             if output == "pwm":
                 from ladderpack.outputs.pwm import plan_pwm
 
-                plan: Any = plan_pwm(
+                plan = plan_pwm(
                     rate, sys_clock_hz=f, min_carrier_hz=min_carrier_hz, tolerance_ppm=1e9
                 )
             else:

@@ -110,3 +110,17 @@ def test_clock_command_lists_them() -> None:
         first["pll"]["postdiv1"],
         first["pll"]["postdiv2"],
     ) == (5, 5)
+
+
+@pytest.mark.parametrize("rate", [8000, 6250, 11025])
+def test_clocks_for_the_i2c_writer(rate: int) -> None:
+    found = find_sys_clocks(rate, output="i2c-dac", bus_hz=400_000, limit=4)
+    assert found
+    for c in found:
+        p = c.plan
+        # f_sys / (divider x cycles per update), the bus no faster than asked
+        assert p.achieved_rate_hz == Fraction(c.sys_clock_hz, p.divider * p.cycles_per_update)
+        assert p.bus_hz <= 400_000 and p.cycles_per_update >= 129
+    if found[0].plan.error_ppm == 0:
+        d = [abs(c.sys_clock_hz - 125_000_000) for c in found]
+        assert d == sorted(d)
