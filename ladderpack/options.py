@@ -606,8 +606,15 @@ class StreamOptions(_Model):
                 f"(GPIO {pins[1]} and {pins[2]})",
                 field="clock_pin",
             )
+        count = int(self.gpio_count or 0)
+        if max(pins) >= count:
+            raise OptionError(
+                f"the I2S lines need GPIO {pins[0]} (data), {pins[1]} (bit clock) and "
+                f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}",
+                field="clock_pin" if pins[2] >= count else "out_base",
+            )
         lo, hi = min(pins), max(pins)
-        get_target(self.target).gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
+        get_target(self.target).gpio_window(lo, hi - lo + 1, count)
 
     def _check_common(self) -> None:
         """Checks shared by every output."""

@@ -194,3 +194,11 @@ def test_a_manifest_builds_an_i2s_asset(tmp_path) -> None:
     side = json.loads((tmp_path / "gen" / "amp.json").read_text())
     assert side["options"]["output"] == "i2s" and side["state_machine"]["sideset_base"] == 10
     assert (tmp_path / "gen" / "ladderpack_i2s.c").is_file()
+
+
+def test_pins_the_target_lacks_are_named() -> None:
+    from ladderpack.options import StreamOptions
+
+    with pytest.raises(OptionError) as info:
+        StreamOptions(output="i2s", clock_pin=29)  # word select would be GPIO 30
+    assert info.value.field == "clock_pin" and "word select" in info.value.message
