@@ -577,6 +577,14 @@ def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_jso
     )
 
 
+def _i2c_planner(rate_hz: float, bus_hz: int, command: str) -> Callable[[int], Any]:
+    """The I2C writer's planner at a given system clock, for the clock search."""
+    from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
+
+    fmt = I2cDacFormat(command=command)
+    return lambda f: plan_writer(rate_hz, fmt, bus_hz=bus_hz, sys_clock_hz=f)
+
+
 def _print_sys_clocks(
     rate_hz: float,
     opts: Any,
@@ -608,8 +616,7 @@ def _print_sys_clocks(
         max_hz=top,
         near_hz=now,
         min_carrier_hz=min_carrier_hz,
-        bus_hz=bus_hz,
-        dac_command=dac_command,
+        planner=_i2c_planner(rate_hz, bus_hz, dac_command) if output == "i2c-dac" else None,
         limit=count,
     )
     rows = []

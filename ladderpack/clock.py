@@ -18,6 +18,7 @@ is within the user's tolerance.  The stream is then resampled to the
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any
@@ -363,8 +364,7 @@ def find_sys_clocks(
     min_cycles: int = 1,
     max_cycles: int = 32,
     min_carrier_hz: float | None = None,
-    bus_hz: int = 400_000,
-    dac_command: str = "fast",
+    planner: Callable[[int], Any] | None = None,
     limit: int = 10,
 ) -> list[ClockChoice]:
     """System clocks in a range that make `rate_hz` exact with an integer divider.
@@ -382,9 +382,8 @@ def find_sys_clocks(
     ----------
     rate_hz : float, int or Fraction
         Sample (frame) rate wanted, Hz.
-    output : {'ladder', 'i2s', 'pwm', 'i2c-dac'}
-        The output system (``i2c-dac``: the state-machine I2C writer, whose divider is
-        always whole).
+    output : {'ladder', 'i2s', 'pwm'}
+        The output system (see `planner` for others).
     min_hz, max_hz : int
         Range of system clocks to search, Hz.
     near_hz : int
@@ -395,8 +394,10 @@ def find_sys_clocks(
         Ladder: the program's range of cycles per sample.
     min_carrier_hz : float, optional
         PWM: lowest acceptable carrier (default 4 x the rate).
-    bus_hz, dac_command : int, str
-        I2C DAC: the bus clock and the command (see :mod:`ladderpack.outputs.i2c_dac`).
+    planner : callable, optional
+        Another output's planner, ``planner(sys_clock_hz) -> plan`` (a plan with
+        ``fractional``, ``error_ppm`` and ``achieved_rate_hz``; the I2C writer's, say),
+        used instead of `output`'s.
     limit : int
         Most clocks returned.
 
@@ -406,8 +407,8 @@ def find_sys_clocks(
     [61440000]
     """
     rate = _as_fraction(rate_hz, "rate_hz")
-    if output not in ("ladder", "i2s", "pwm", "i2c-dac"):
-        raise OptionError(f"must be ladder, i2s, pwm or i2c-dac, got {output!r}", field="output")
+    if output not in ("ladder", "i2s", "pwm") and planner is None:
+        raise OptionError(f"must be ladder, i2s or pwm, got {output!r}", field="output")
     if not 0 < min_hz <= max_hz:
         raise OptionError(
             f"need 0 < min <= max, got {min_hz}..{max_hz} Hz", field="min_sys_clock_hz"
@@ -417,15 +418,9 @@ def find_sys_clocks(
     every: list[ClockChoice] = []
     for f, pll in sorted(pll_settings(min_hz, max_hz).items()):
         try:
-            if output == "i2c-dac":
-                from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
-
-                plan: Any = plan_writer(
-                    rate, I2cDacFormat(command=dac_command), bus_hz=bus_hz, sys_clock_hz=f
-                )
-                every.append(ClockChoice(pll, plan))
-                continue
-            if output == "pwm":
+            if planner is not None:
+                plan: Any = planner(f)
+            elif output == "pwm":
                 from ladderpack.outputs.pwm import plan_pwm
 
                 plan = plan_pwm(

@@ -114,7 +114,12 @@ def test_clock_command_lists_them() -> None:
 
 @pytest.mark.parametrize("rate", [8000, 6250, 11025])
 def test_clocks_for_the_i2c_writer(rate: int) -> None:
-    found = find_sys_clocks(rate, output="i2c-dac", bus_hz=400_000, limit=4)
+    from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
+
+    fmt = I2cDacFormat(command="fast")
+    found = find_sys_clocks(
+        rate, planner=lambda f: plan_writer(rate, fmt, sys_clock_hz=f), output="i2c", limit=4
+    )
     assert found
     for c in found:
         p = c.plan

@@ -287,6 +287,11 @@ class I2cDacPlan:
     bytes_per_update: int
 
     @property
+    def fractional(self) -> bool:
+        """Always False: the writer's divider is a whole number (no jitter)."""
+        return False
+
+    @property
     def bus_hz(self) -> Fraction:
         """The SCL frequency, Hz."""
         return Fraction(self.sys_clock_hz, self.divider * CYCLES_PER_BIT)
