@@ -30,6 +30,7 @@ __all__ = [
     "min_cycles",
     "program_length",
     "state_machine_config",
+    "wrap_execctrl",
 ]
 
 _JMP_COND = {"": 0, "!x": 1, "x--": 2, "!y": 3, "y--": 4, "x!=y": 5, "pin": 6, "!osre": 7}
@@ -488,6 +489,14 @@ class StateMachineConfig:
 EXECCTRL_RESET = 0x0001F000
 
 
+def wrap_execctrl(program: Program) -> int:
+    """SMx_EXECCTRL at reset with the program's wrap points, loaded at address 0.
+
+    WRAP_TOP is bits 16:12 and WRAP_BOTTOM bits 11:7 (RP2040 datasheet, SMx_EXECCTRL).
+    """
+    return (EXECCTRL_RESET & ~0x1FF80) | (program.wrap << 12) | (program.wrap_target << 7)
+
+
 def state_machine_config(
     program: Program,
     layout: WordLayout,
@@ -522,7 +531,7 @@ def state_machine_config(
             f"{gpio_base}..{gpio_base + 31}",
             field="out_base",
         )
-    execctrl = (EXECCTRL_RESET & ~0x1FF80) | (program.wrap << 12) | (program.wrap_target << 7)
+    execctrl = wrap_execctrl(program)
     if program.sideset.optional:
         execctrl |= 1 << 30  # SIDE_EN
     shiftctrl = (

@@ -25,7 +25,7 @@ import pytest
 
 from ladderpack.bundle import write_bundle
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, run
+from tests.chip.harness import Firmware, player_app, run
 
 pytestmark = pytest.mark.slow
 
@@ -114,46 +114,16 @@ def frames_of(slots: np.ndarray, times: np.ndarray, bits: int) -> tuple[np.ndarr
 
 
 def app(name: str, ops: list[tuple[str, int]]) -> str:
-    """A main program playing the asset through the I2S player; each op's result is
-    written to the mailbox the harness watches (op << 24 | index << 8 | result)."""
-    codes = {"init": 1, "start": 2, "wait": 3, "delay": 4, "stop": 5, "deinit": 6, "request": 7}
-    body = []
-    for i, (op, arg) in enumerate(ops):
-        call = {
-            "init": "rc = lp_i2s_init(&player, &stream, pio0);",
-            "start": f"rc = lp_i2s_start(&player, {'true' if arg else 'false'});",
-            "wait": "while (lp_i2s_busy(&player)) { tight_loop_contents(); }",
-            "delay": f"busy_wait_at_least_cycles({arg}u);",
-            "stop": "rc = lp_i2s_stop(&player);",
-            "request": "rc = lp_i2s_request_stop(&player);",
-            "deinit": "lp_i2s_deinit(&player);",
-        }[op]
-        body.append(f"    rc = 0; {call} report({codes[op]}u, {i}u, rc);")
-    return f"""\
-#include <stdbool.h>
-#include <stdint.h>
-#include "hardware/pio.h"
-#include "pico/stdlib.h"
-#include "ladderpack_i2s.h"
-#include "{name}.h"
-
-volatile uint32_t lp_test_mailbox;
-static lp_i2s_player_t player;
-static const lp_i2s_stream_t stream = {name.upper()}_I2S_INIT;
-
-static void report(uint32_t op, uint32_t index, int rc) {{
-    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
-}}
-
-int main(void) {{
-    int rc;
-{chr(10).join(body)}
-    report(0x7Fu, 0u, 0);
-    for (;;) {{
-        tight_loop_contents();
-    }}
-}}
-"""
+    """A main program playing the asset through the I2S player (``request``: request_stop)."""
+    return player_app(
+        name,
+        [("request_stop" if op == "request" else op, arg) for op, arg in ops],
+        header="ladderpack_i2s.h",
+        fn="lp_i2s",
+        player_type="lp_i2s_player_t",
+        stream_type="lp_i2s_stream_t",
+        init_macro="I2S_INIT",
+    )
 
 
 def build_and_run(fw: Firmware, folder: Path, name: str, ops: list[tuple[str, int]], **kw):

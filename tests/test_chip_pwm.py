@@ -24,7 +24,7 @@ import pytest
 
 from ladderpack.bundle import bundle_files
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, run, run_micropython
+from tests.chip.harness import Firmware, player_app, run, run_micropython
 
 pytestmark = pytest.mark.slow
 
@@ -108,45 +108,19 @@ def assert_periods(times: np.ndarray, exp: Expected) -> None:
 
 
 def app(name: str, ops: list[tuple[str, int]]) -> str:
-    """A main program playing the asset through the PWM player; each op's result goes to
-    the mailbox the harness watches (op << 24 | index << 8 | result)."""
-    codes = {"init": 1, "start": 2, "wait": 3, "delay": 4, "stop": 5, "deinit": 6}
-    body = []
-    for i, (op, arg) in enumerate(ops):
-        call = {
-            "init": "rc = lp_pwm_init(&player, &stream);",
-            "start": f"rc = lp_pwm_start(&player, {'true' if arg else 'false'});",
-            "wait": "while (lp_pwm_busy(&player)) { tight_loop_contents(); }",
-            "delay": f"busy_wait_at_least_cycles({arg}u);",
-            "stop": "rc = lp_pwm_stop(&player);",
-            "deinit": "lp_pwm_deinit(&player);",
-        }[op]
-        body.append(f"    rc = 0; {call} report({codes[op]}u, {i}u, rc);")
-    return f"""\
-#include <stdbool.h>
-#include <stdint.h>
-#include "pico/stdlib.h"
-#include "ladderpack_pwm.h"
-#include "{name}.h"
-
-volatile uint32_t lp_test_mailbox;
-static lp_pwm_player_t player;
-static const lp_pwm_stream_t stream = {name.upper()}_PWM_INIT;
-
-static void report(uint32_t op, uint32_t index, int rc) {{
-    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
-}}
-
-int main(void) {{
-    int rc;
-{chr(10).join(body)}
-    busy_wait_at_least_cycles(20000u);
-    report(0x7Fu, 0u, 0);
-    for (;;) {{
-        tight_loop_contents();
-    }}
-}}
-"""
+    """A main program playing the asset through the PWM player, then a moment for the
+    last value to show."""
+    return player_app(
+        name,
+        ops,
+        header="ladderpack_pwm.h",
+        fn="lp_pwm",
+        player_type="lp_pwm_player_t",
+        stream_type="lp_pwm_stream_t",
+        init_macro="PWM_INIT",
+        init_args="&player, &stream",
+        tail="    busy_wait_at_least_cycles(20000u);\n",
+    )
 
 
 def make(folder: Path, name: str, **opts: object) -> tuple[Expected, dict[str, bytes]]:

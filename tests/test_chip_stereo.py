@@ -21,7 +21,7 @@ import pytest
 from ladderpack.audio import Signal
 from ladderpack.bundle import bundle_files
 from ladderpack.stream import stream_signal
-from tests.chip.harness import Firmware, run, run_micropython
+from tests.chip.harness import Firmware, player_app, run, run_micropython
 
 pytestmark = pytest.mark.slow
 
@@ -103,42 +103,15 @@ def make(folder: Path, name: str, **opts: object) -> tuple[Two, dict[str, bytes]
 
 
 def app(name: str, ops: list[tuple[str, int]]) -> str:
-    codes = {"init": 1, "start": 2, "wait": 3, "delay": 4, "stop": 5, "hold": 8}
-    body = []
-    for i, (op, arg) in enumerate(ops):
-        call = {
-            "init": "rc = lp_stereo_player_init(&player, &stream, pio0);",
-            "start": f"rc = lp_stereo_player_start(&player, {'true' if arg else 'false'});",
-            "wait": "while (lp_stereo_player_busy(&player)) { tight_loop_contents(); }",
-            "delay": f"busy_wait_at_least_cycles({arg}u);",
-            "stop": "rc = lp_stereo_player_stop(&player);",
-            "hold": f"rc = lp_stereo_player_hold_code(&player, {arg}u);",
-        }[op]
-        body.append(f"    rc = 0; {call} report({codes[op]}u, {i}u, rc);")
-    return f"""\
-#include <stdbool.h>
-#include <stdint.h>
-#include "pico/stdlib.h"
-#include "ladderpack_stereo.h"
-#include "{name}.h"
-
-volatile uint32_t lp_test_mailbox;
-static lp_stereo_player_t player;
-static const lp_stereo_stream_t stream = {name.upper()}_STEREO_INIT;
-
-static void report(uint32_t op, uint32_t index, int rc) {{
-    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
-}}
-
-int main(void) {{
-    int rc;
-{chr(10).join(body)}
-    report(0x7Fu, 0u, 0);
-    for (;;) {{
-        tight_loop_contents();
-    }}
-}}
-"""
+    return player_app(
+        name,
+        ops,
+        header="ladderpack_stereo.h",
+        fn="lp_stereo_player",
+        player_type="lp_stereo_player_t",
+        stream_type="lp_stereo_stream_t",
+        init_macro="STEREO_INIT",
+    )
 
 
 def played(r, two: Two) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -27,7 +27,7 @@ from ladderpack.clock import ClockPlan, plan_clock
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, I2S_SAMPLE_BITS
 from ladderpack.defaults import FRAME_FORMATS as _FRAME_FORMATS
 from ladderpack.errors import OptionError
-from ladderpack.pio import EXECCTRL_RESET, Instruction, Program, SideSet, StateMachineConfig
+from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
 
 __all__ = [
     "FRAME_FORMATS",
@@ -387,7 +387,7 @@ def i2s_state_machine(
             f"select (GPIO {clock_pin + 1})",
             field="data_pin",
         )
-    execctrl = (EXECCTRL_RESET & ~0x1FF80) | (program.wrap << 12) | (program.wrap_target << 7)
+    execctrl = wrap_execctrl(program)
     shiftctrl = (
         (1 << 30)  # FJOIN_TX: 8-deep TX FIFO
         | (0 << 25)  # PULL_THRESH 0 means 32

@@ -430,3 +430,63 @@ def run(
         periods=np.array(d.get("periods", []), dtype=np.int64).reshape(-1, 3),
         wire=np.array(d.get("wire", []), dtype=np.int64).reshape(-1, 2),
     )
+
+
+def player_app(
+    name: str,
+    ops: list[tuple[str, int]],
+    *,
+    header: str,
+    fn: str,
+    player_type: str,
+    stream_type: str,
+    init_macro: str,
+    init_args: str = "&player, &stream, pio0",
+    tail: str = "",
+) -> str:
+    """A main program driving one asset through a player's C API, op by op.
+
+    `fn` is the API's prefix (``lp_i2s`` gives ``lp_i2s_init``, ``lp_i2s_start``, ...);
+    each op's result goes to the mailbox the harness watches, as ``op << 24 | index << 8 |
+    result`` with the codes of :data:`OPS` (an op: init, start, wait, delay, stop,
+    request_stop, deinit, hold; the int is its argument).
+    """
+    calls = {
+        "init": f"rc = {fn}_init({init_args});",
+        "start": f"rc = {fn}_start(&player, {{b}});",
+        "wait": f"while ({fn}_busy(&player)) {{{{ tight_loop_contents(); }}}}",
+        "delay": "busy_wait_at_least_cycles({a}u);",
+        "stop": f"rc = {fn}_stop(&player);",
+        "request_stop": f"rc = {fn}_request_stop(&player);",
+        "deinit": f"{fn}_deinit(&player);",
+        "hold": f"rc = {fn}_hold_code(&player, {{a}}u);",
+    }
+    body = [
+        f"    rc = 0; {calls[op].format(a=arg, b='true' if arg else 'false')} "
+        f"report({OPS[op]}u, {i}u, rc);"
+        for i, (op, arg) in enumerate(ops)
+    ]
+    return f"""\
+#include <stdbool.h>
+#include <stdint.h>
+#include "pico/stdlib.h"
+#include "{header}"
+#include "{name}.h"
+
+volatile uint32_t lp_test_mailbox;
+static {player_type} player;
+static const {stream_type} stream = {name.upper()}_{init_macro};
+
+static void report(uint32_t op, uint32_t index, int rc) {{
+    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
+}}
+
+int main(void) {{
+    int rc;
+{chr(10).join(body)}
+{tail}    report(0x7Fu, 0u, 0);
+    for (;;) {{
+        tight_loop_contents();
+    }}
+}}
+"""
