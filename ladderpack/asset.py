@@ -50,6 +50,7 @@ class StreamSummary(TypedDict):
     max_duration_s: float | None
     pwm: NotRequired[dict[str, Any]]
     i2s: NotRequired[dict[str, Any]]
+    i2c_dac: NotRequired[dict[str, Any]]
     stereo: NotRequired[bool]
 
 
@@ -231,6 +232,16 @@ class StreamAsset:
                 "frame_format": i2s["frame_format"],
                 "pins": [i2s["data_pin"], i2s["bit_clock_pin"], i2s["word_select_pin"]],
             }
+        if "i2c_dac" in self.stats:
+            i2c = self.stats["i2c_dac"]
+            out["i2c_dac"] = {
+                "address": i2c["address"],
+                "command": i2c["command"],
+                "bytes_per_update": i2c["bytes_per_update"],
+                "bus_hz": i2c["bus_hz"],
+                "max_rate_hz": i2c["max_rate_hz"],
+                "pins": [i2c["sda_pin"], i2c["scl_pin"]],
+            }
         if self.pwm is not None:
             p = self._pwm_plan
             out["pwm"] = {
@@ -274,10 +285,11 @@ def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:
             body = lay.channels_of(unpack(asset.packed.words, lay).codes)
             best = max(best, int(np.abs(body[-1] - body[0]).max()))
         return best
-    if hasattr(lay, "unpack_words"):  # I2S or stereo PWM: whole frames, channels apart
+    if hasattr(lay, "unpack_words"):  # I2S, stereo PWM, an I2C DAC: whole frames
         seqs = [np.asarray(lay.unpack_words(p.words), dtype=np.int64) for p in parts]
         frames = np.concatenate(seqs, axis=0) if seqs else np.zeros((0, 2), np.int64)
-        seq = np.concatenate([[[asset.idle_code] * 2], frames, [[asset.idle_code] * 2]])
+        k = frames.shape[1] if seqs else 2  # channels (an I2C DAC's 1)
+        seq = np.concatenate([[[asset.idle_code] * k], frames, [[asset.idle_code] * k]])
         steps = np.abs(np.diff(seq, axis=0)).max() if seq.shape[0] > 1 else 0
         if asset.loop and asset.packed.words.size:
             body = np.asarray(lay.unpack_words(asset.packed.words), dtype=np.int64)

@@ -41,7 +41,7 @@ def bundle_files(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
-    if _is_i2s(asset) or asset.pwm is not None:
+    if _own_player(asset):
         made = {k: _bytes(v) for k, v in _output_parts(asset, embed_words_max).items()}
         made[f"{n}.json"] = sidecar.render(asset, made).encode()
         return made
@@ -71,7 +71,7 @@ def bundle_parts(asset: StreamAsset, *, embed_words_max: int | None = None) -> d
     if embed_words_max is None:
         embed_words_max = int(asset.options.get("embed_words_max", EMBED_WORDS_MAX))
     n = asset.name
-    if _is_i2s(asset) or asset.pwm is not None:
+    if _own_player(asset):
         return {
             **_output_parts(asset, embed_words_max),
             f"{n}.json": lambda digests: sidecar.render(asset, digests=digests).encode(),
@@ -109,16 +109,39 @@ def _is_i2s(asset: StreamAsset) -> bool:
     return isinstance(asset.packed.layout, I2sLayout)
 
 
+def _is_i2c(asset: StreamAsset) -> bool:
+    from ladderpack.outputs.i2c_dac import I2cDacLayout
+
+    return isinstance(asset.packed.layout, I2cDacLayout)
+
+
+def _own_player(asset: StreamAsset) -> bool:
+    """Whether the stream's files are another output's than the ladder's."""
+    return _is_i2s(asset) or _is_i2c(asset) or asset.pwm is not None
+
+
 def _bytes(content: Any) -> bytes:
     return content if isinstance(content, bytes) else b"".join(content)
 
 
 def _output_parts(asset: StreamAsset, embed_words_max: int) -> dict[str, Any]:
-    """The files of an I2S or PWM stream but its sidecar (large ones as byte chunks)."""
+    """The files of an I2S, PWM or I2C DAC stream but its sidecar (large ones as chunks)."""
     from ladderpack.emit import binary, i2s, micropython_i2s, player_i2s, player_pwm, pwm
 
     n = asset.name
     embed = asset.word_count <= embed_words_max
+    if _is_i2c(asset):
+        from ladderpack.emit import i2c_dac, player_i2c
+
+        return {
+            f"{n}.bin": binary.render_chunks(asset.packed),
+            f"{n}.h": i2c_dac.render_header(asset).encode(),
+            f"{n}.c": i2c_dac.render_source_chunks(asset),
+            f"{n}.py": i2c_dac.render_micropython(asset, embed=embed).encode(),
+            f"{n}.pio": i2c_dac.render_pio(asset).encode(),
+            player_i2c.HEADER_NAME: player_i2c.render_header().encode(),
+            player_i2c.SOURCE_NAME: player_i2c.render_source().encode(),
+        }
     if asset.pwm is not None:
         return {
             f"{n}.bin": binary.render_chunks(asset.packed),

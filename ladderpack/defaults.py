@@ -10,6 +10,8 @@ __all__ = [
     "DITHERS",
     "EMBED_WORDS_MAX",
     "FRAME_FORMATS",
+    "I2C_BUS_SPEEDS_HZ",
+    "I2C_DAC_COMMANDS",
     "I2S_SAMPLE_BITS",
     "NTF_FORMS",
     "OUTPUTS",
@@ -18,6 +20,7 @@ __all__ = [
     "SHAPER_NAMES",
     "SHIFTS",
     "STAGES",
+    "STREAM_OUTPUTS",
     "TONE_KINDS",
     "WEIGHTING_NAMES",
     "default_band_hz",
@@ -78,6 +81,16 @@ SHIFTS = ("right", "left")
 #: Output systems a stream can be made for: an R-2R ladder on GPIOs, an I2S DAC or
 #: amplifier, a PWM slice on one pin.
 OUTPUTS = ("ladder", "i2s", "pwm")
+
+#: Outputs a stream can be made for: those above and a 12-bit I2C DAC updated by a
+#: state-machine bus writer (its tables are ``table i2c-dac``, not ``table wave``).
+STREAM_OUTPUTS = (*OUTPUTS, "i2c-dac")
+
+#: I2C bus clocks: Standard-mode, Fast-mode and Fast-mode Plus (NXP UM10204), Hz.
+I2C_BUS_SPEEDS_HZ = (100_000, 400_000, 1_000_000)
+
+#: I2C DAC command kinds (see :mod:`ladderpack.outputs.i2c_dac`).
+I2C_DAC_COMMANDS = ("fast", "register")
 
 #: I2S frame formats (see :mod:`ladderpack.outputs.i2s`).
 FRAME_FORMATS = ("standard", "left-justified")

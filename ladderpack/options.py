@@ -33,6 +33,8 @@ from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
     FRAME_FORMATS,
+    I2C_BUS_SPEEDS_HZ,
+    I2C_DAC_COMMANDS,
     I2S_SAMPLE_BITS,
     NTF_FORMS,
     OUTPUTS,
@@ -40,6 +42,7 @@ from ladderpack.defaults import (
     PROGRAM_CHOICES,
     SHAPER_NAMES,
     SHIFTS,
+    STREAM_OUTPUTS,
     TONE_KINDS,
     WEIGHTING_NAMES,
 )
@@ -286,15 +289,16 @@ class StreamOptions(_Model):
     output: str = _opt(
         "ladder",
         "How samples leave the chip: ladder (an R-2R ladder on N GPIOs), i2s (an I2S DAC "
-        "or amplifier on three GPIOs) or pwm (a PWM slice on one GPIO, through an RC filter).",
-        choices=OUTPUTS,
+        "or amplifier on three GPIOs), pwm (a PWM slice on one GPIO, through an RC filter) "
+        "or i2c-dac (a 12-bit I2C DAC, one bus write per sample, on two GPIOs).",
+        choices=STREAM_OUTPUTS,
     )
     bits: int = _opt(
         None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
-        "Sample width: the ladder's N (1..16), or the I2S sample (16, 24 or 32); PWM's "
-        "resolution follows from its plan.",
+        "Sample width: the ladder's N (1..16), the I2S sample (16, 24 or 32), the I2C "
+        "DAC's 12; PWM's resolution follows from its plan.",
         unit="bits",
-        default_text="8 for a ladder, 16 for I2S",
+        default_text="8 for a ladder, 16 for I2S, 12 for an I2C DAC",
     )
     rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
     sys_clock_hz: int | None = _opt(
@@ -375,16 +379,34 @@ class StreamOptions(_Model):
         0,
         "Lowest GPIO of the ladder's N consecutive pins: the ladder's least significant "
         "bit with --pin-order msb-high, its most significant bit with msb-low. For I2S, "
-        "the serial data pin.",
+        "the serial data pin; for PWM, the pin; for an I2C DAC, SDA.",
         unit="GPIO",
         lo=0,
     )
     clock_pin: int | None = _opt(
         None,
-        "I2S only: GPIO of the bit clock; the word select (LR clock) is on the next GPIO.",
+        "I2S: GPIO of the bit clock, the word select (LR clock) on the next GPIO. I2C "
+        "DAC: GPIO of SCL.",
         unit="GPIO",
         lo=0,
         default_text="out_base + 1",
+    )
+    bus_hz: int = _opt(
+        400_000,
+        "I2C DAC only: highest bus clock (SCL): 100000, 400000 or 1000000 (Fast-mode "
+        "Plus, if the DAC has it). The sample rate is at most bus_hz / (9 x bytes + 3).",
+        unit="Hz",
+    )
+    dac_address: int = _opt(
+        0x60,
+        "I2C DAC only: the DAC's 7-bit address, decimal or 0x.. (0x60: an MCP4725 with A0 low).",
+        unit="address",
+        default_text="0x60",
+    )
+    dac_command: str = _opt(
+        "fast",
+        "I2C DAC only: fast (2 data bytes an update) or register (write DAC register, 3).",
+        choices=I2C_DAC_COMMANDS,
     )
     stereo: bool = _opt(
         False,
@@ -499,12 +521,13 @@ class StreamOptions(_Model):
     )
     I2S_ONLY: ClassVar[tuple[str, ...]] = ("clock_pin", "frame_format")
     PWM_ONLY: ClassVar[tuple[str, ...]] = ("min_carrier_hz",)
+    I2C_ONLY: ClassVar[tuple[str, ...]] = ("bus_hz", "dac_address", "dac_command")
     #: Options of the outputs other than the ladder.
     SERIAL_ONLY: ClassVar[tuple[str, ...]] = ("stereo",)
 
     def __post_init__(self) -> None:
         if self.bits is None:
-            object.__setattr__(self, "bits", 8 if self.output == "ladder" else 16)
+            object.__setattr__(self, "bits", {"ladder": 8, "i2c-dac": 12}.get(self.output, 16))
         elif self.output == "pwm":
             raise OptionError(
                 "does not apply to output pwm (its levels follow from the plan: TOP + 2)",
@@ -523,9 +546,15 @@ class StreamOptions(_Model):
         for name in self.PWM_ONLY if self.output != "pwm" else ():
             if _flag_given(self, name):
                 raise OptionError("applies only to output pwm", field=name)
-        for name in self.I2S_ONLY if self.output != "i2s" else ():
+        for name in self.I2C_ONLY if self.output != "i2c-dac" else ():
             if _flag_given(self, name):
-                raise OptionError("applies only to output i2s", field=name)
+                raise OptionError("applies only to output i2c-dac", field=name)
+        for name in self.I2S_ONLY if self.output not in ("i2s", "i2c-dac") else ():
+            if _flag_given(self, name):
+                raise OptionError("applies only to outputs i2s and i2c-dac", field=name)
+        if self.output == "i2c-dac":
+            self._check_i2c_dac()
+            return
         if self.output == "i2s":
             self._check_i2s()
             return
@@ -588,6 +617,59 @@ class StreamOptions(_Model):
                 f"{int(self.gpio_count or 0) - 1})",
                 field="out_base",
             )
+
+    def _check_i2c_dac(self) -> None:
+        """The checks of an I2C DAC stream: 12 bits, mono, a bus speed, two pins."""
+        for name in ("levels", "shift", "pin_order", "invert", "program", "samples_per_word"):
+            if _flag_given(self, name):
+                raise OptionError("applies only to output ladder", field=name)
+        if _flag_given(self, "frame_format"):
+            raise OptionError("applies only to output i2s", field="frame_format")
+        if self.bits != 12:
+            raise OptionError(
+                f"the I2C DAC command set is for 12-bit DACs, got {self.bits}", field="bits"
+            )
+        if self.stereo:
+            raise OptionError(
+                "an I2C DAC stream is mono (one DAC on the bus); make one stream a DAC",
+                field="stereo",
+            )
+        if self.bus_hz not in I2C_BUS_SPEEDS_HZ:
+            raise OptionError(
+                f"must be one of {', '.join(str(b) for b in I2C_BUS_SPEEDS_HZ)} Hz, got "
+                f"{self.bus_hz!r}",
+                field="bus_hz",
+            )
+        if self.dac_command not in I2C_DAC_COMMANDS:
+            raise OptionError(
+                f"must be one of {', '.join(I2C_DAC_COMMANDS)}, got {self.dac_command!r}",
+                field="dac_command",
+            )
+        a = self.dac_address
+        if isinstance(a, bool) or not isinstance(a, int) or not 0x08 <= a <= 0x77:
+            raise OptionError(
+                f"must be a 7-bit address 0x08..0x77 (the others are reserved), got {a!r}",
+                field="dac_address",
+            )
+        if self.idle_code > 4095:
+            raise OptionError(
+                f"must be 0..4095 for 12 bits, got {self.idle_code}", field="idle_code"
+            )
+        if self.clock_pin is None:
+            object.__setattr__(self, "clock_pin", self.out_base + 1)
+        self._check_common()
+        sda, scl = self.out_base, int(self.clock_pin or 0)
+        if sda == scl:
+            raise OptionError(f"SDA and SCL are both GPIO {sda}", field="clock_pin")
+        count = int(self.gpio_count or 0)
+        if max(sda, scl) >= count:
+            raise OptionError(
+                f"the I2C lines need GPIO {sda} (SDA) and {scl} (SCL), but the target has "
+                f"GPIO 0..{count - 1}",
+                field="clock_pin" if scl >= count else "out_base",
+            )
+        lo, hi = min(sda, scl), max(sda, scl)
+        get_target(self.target).gpio_window(lo, hi - lo + 1, count)
 
     def _check_i2s(self) -> None:
         """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
@@ -659,8 +741,10 @@ class StreamOptions(_Model):
     def gpio_base(self) -> int:
         """The PIO block's GPIO base that reaches the ladder's pins (0 or 16)."""
         tgt = get_target(self.target)
-        if self.output == "i2s":
-            pins = (self.out_base, int(self.clock_pin or 0), int(self.clock_pin or 0) + 1)
+        if self.output in ("i2s", "i2c-dac"):
+            pins: tuple[int, ...] = (self.out_base, int(self.clock_pin or 0))
+            if self.output == "i2s":  # the word select follows the bit clock
+                pins += (int(self.clock_pin or 0) + 1,)
             lo, hi = min(pins), max(pins)
             return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
         return tgt.gpio_window(self.out_base, self.pins, int(self.gpio_count or 0))
@@ -677,11 +761,13 @@ class StreamOptions(_Model):
             "ladder": self.LADDER_ONLY,
             "i2s": (*self.I2S_ONLY, *self.SERIAL_ONLY),
             "pwm": (*self.PWM_ONLY, *self.SERIAL_ONLY, "idle_code", "ramp_ms"),
+            "i2c-dac": (*self.I2C_ONLY, "clock_pin", "idle_code", "ramp_ms"),
         }[self.output]
         others = {
             *self.LADDER_ONLY,
             *self.I2S_ONLY,
             *self.PWM_ONLY,
+            *self.I2C_ONLY,
             *self.SERIAL_ONLY,
             "output",
         } - set(own)

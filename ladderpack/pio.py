@@ -108,10 +108,12 @@ def _nop(a: tuple[object, ...]) -> tuple[int, str]:
 
 
 def _irq(a: tuple[object, ...]) -> tuple[int, str]:
-    mode, index = a
+    mode, index, *more = a
     i = _number(index, 0, 7, "irq index")
+    rel = bool(more) and more[0] == "rel"  # index + state machine number, modulo 4
     text = f"{i}" if mode == "set" else f"{mode} {i}"  # plain "irq n" sets the flag
-    return (_field(_IRQ_MODE, mode, "irq mode") << 5) | i, text
+    text += " rel" if rel else ""
+    return (_field(_IRQ_MODE, mode, "irq mode") << 5) | (0x10 if rel else 0) | i, text
 
 
 def _set(a: tuple[object, ...]) -> tuple[int, str]:
@@ -138,7 +140,7 @@ INSTRUCTION_SET: dict[str, tuple[int, Callable[[tuple[object, ...]], tuple[int, 
 
 @dataclass(frozen=True)
 class SideSet:
-    """Side-set configuration of a program (``.side_set count [opt]``).
+    """Side-set configuration of a program (``.side_set count [opt] [pindirs]``).
 
     Attributes
     ----------
@@ -147,10 +149,13 @@ class SideSet:
     optional : bool
         Side-set is optional per instruction; costs one more bit (the enable
         bit, the field's most significant bit).
+    pindirs : bool
+        Side-set drives the pins' directions, not their values (EXECCTRL SIDE_PINDIR).
     """
 
     count: int = 0
     optional: bool = False
+    pindirs: bool = False
 
     @property
     def field_bits(self) -> int:
@@ -292,7 +297,9 @@ class Program:
         lines = [f".program {self.name}"]
         if self.sideset.count:
             lines.append(
-                f".side_set {self.sideset.count}" + (" opt" if self.sideset.optional else "")
+                f".side_set {self.sideset.count}"
+                + (" opt" if self.sideset.optional else "")
+                + (" pindirs" if self.sideset.pindirs else "")
             )
         for addr, ins in enumerate(self.instructions):
             if addr == self.wrap_target:

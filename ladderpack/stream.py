@@ -38,6 +38,14 @@ from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
+from ladderpack.outputs.i2c_dac import (
+    I2cDacFormat,
+    I2cDacLayout,
+    I2cDacPlan,
+    i2c_state_machine,
+    plan_writer,
+    writer_program,
+)
 from ladderpack.outputs.i2s import (
     STREAM_SLOT_BITS,
     I2sLayout,
@@ -144,13 +152,15 @@ class StreamPlan:
         The code scale when it is not the N-bit one (a PWM slice's TOP + 2 levels).
     pwm : PwmSetup, optional
         The slice, pin and DMA pacing of a PWM stream.
+    i2c : I2cDacPlan, optional
+        The bus writer's plan of an I2C DAC stream (its clock is `clock`).
     """
 
     name: str
     options: StreamOptions
     levels: LevelSet | None
     clock: ClockPlan | PwmPlan
-    layout: WordLayout | I2sLayout | PwmStereoLayout
+    layout: WordLayout | I2sLayout | PwmStereoLayout | I2cDacLayout
     program: Program | None
     sm: StateMachineConfig | None
     shaper: Shaper
@@ -164,6 +174,7 @@ class StreamPlan:
     block_frames: int
     scale: CodeScale | None = None
     pwm: PwmSetup | None = None
+    i2c: I2cDacPlan | None = None
 
     @property
     def code_scale(self) -> CodeScale:
@@ -342,11 +353,20 @@ def plan_stream(
     opts = options
     ident = asset_identifier(name)
     levels = _plan_levels(opts)
-    layout: WordLayout | I2sLayout | PwmStereoLayout
+    layout: WordLayout | I2sLayout | PwmStereoLayout | I2cDacLayout
     clock: ClockPlan | PwmPlan
     per_word: int | Fraction
-    scale, setup = None, None
-    if opts.output == "pwm":
+    scale, setup, writer = None, None, None
+    if opts.output == "i2c-dac":
+        fmt = I2cDacFormat(opts.dac_address, opts.dac_command)
+        writer = plan_writer(
+            opts.rate_hz, fmt, bus_hz=opts.bus_hz, sys_clock_hz=int(opts.sys_clock_hz or 0)
+        )
+        layout = I2cDacLayout(fmt)
+        clock = writer.clock
+        spw, variant = 1, "i2c-dac"
+        per_word = Fraction(1, layout.words_per_update)
+    elif opts.output == "pwm":
         pwm_plan = plan_pwm(
             opts.rate_hz,
             sys_clock_hz=int(opts.sys_clock_hz or 0),
@@ -441,6 +461,15 @@ def plan_stream(
     sm: StateMachineConfig | None
     if not isinstance(clock, ClockPlan):  # a PWM slice: no state machine
         program, sm = None, None
+    elif isinstance(layout, I2cDacLayout):
+        program = writer_program(name=f"{ident}_i2c")
+        sm = i2c_state_machine(
+            program,
+            clock,
+            sda_pin=opts.out_base,
+            scl_pin=int(opts.clock_pin or 0),
+            gpio_base=opts.gpio_base,
+        )
     elif isinstance(layout, I2sLayout):
         program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
         sm = i2s_state_machine(
@@ -488,6 +517,7 @@ def plan_stream(
         max(1, blk),
         scale,
         setup,
+        writer,
     )
 
 
@@ -716,7 +746,7 @@ def process(
             silent = lay.pack_codes(np.full(nch, idle, scale.dtype))
             out.intro = Packed(np.zeros(0, np.uint32), lay, 0, idle)  # type: ignore[arg-type]
             out.outro = Packed(silent, lay, 1, idle)  # type: ignore[arg-type]
-        elif isinstance(lay, PwmStereoLayout):
+        elif isinstance(lay, PwmStereoLayout | I2cDacLayout):
             frames = len(out.codes) // nch
             out.packed = Packed(lay.pack_codes(out.codes.codes), lay, frames, idle)  # type: ignore[arg-type]
             up = ramp.reshape(-1, nch)[:, 0]
@@ -904,6 +934,21 @@ def finish(
             )
     if plan.pwm is not None:
         stats["pwm"] = {**plan.pwm.plan.to_dict(), **plan.pwm.to_dict()}
+    if plan.i2c is not None:
+        lay_i2c = plan.layout
+        assert isinstance(lay_i2c, I2cDacLayout)
+        stats["i2c_dac"] = {
+            **plan.i2c.to_dict(),
+            **lay_i2c.fmt.to_dict(),
+            "sda_pin": opts.out_base,
+            "scl_pin": opts.clock_pin,
+        }
+        if abs(plan.i2c.error_ppm) > opts.rate_tolerance_ppm:  # the divider is always whole
+            stats.setdefault("warnings", []).append(
+                f"the I2C update rate is {plan.i2c.error_ppm:+.1f} ppm off the request (the "
+                "writer's divider is a whole number); 'clock --find-sys-clock --output "
+                "i2c-dac' finds system clocks where it is exact"
+            )
     if isinstance(plan.layout, I2sLayout) and isinstance(plan.clock, ClockPlan):
         stats["i2s"] = {
             **I2sPlan(plan.clock, STREAM_SLOT_BITS).to_dict(),

@@ -30,6 +30,7 @@ LAYERS: dict[int, set[str]] = {
         "emit", "emit.binary", "emit.c", "emit.micropython", "emit.pioasm",
         "emit.player_c", "emit.sidecar", "emit.sweep", "emit.table", "emit.i2s",
         "emit.player_i2s", "emit.micropython_i2s", "emit.pwm", "emit.player_pwm",
+        "emit.i2c_dac", "emit.player_i2c",
         "emit.player_stereo",
     },
     5: {"bundle", "stream", "tables", "demo"},

@@ -1,25 +1,30 @@
-"""The I2C DAC writer program on the emulated chip, driven through the vendor SDK.
+"""I2C DAC streams on the emulated chip: the writer program, the C player, MicroPython.
 
-The state-machine program of :mod:`ladderpack.outputs.i2c_dac` is loaded with the SDK's
-PIO functions and fed its FIFO words by DMA from a test firmware (the player proper is
-not built yet); rp2040js runs it with the state machines clocked by the harness's own
-schedule. The bus is open-drain with pull-ups and a device that acknowledges its address
-(``tests/chip/run.mjs``). The test's own decoder below reads the recorded SCL/SDA levels
-as a receiver does (NXP UM10204: START is SDA falling while SCL is high, STOP SDA rising
-while SCL is high, a bit is SDA at SCL's rising edge, the ninth bit of a byte the
-acknowledge) and compares every update's bytes with the DAC's command format and its
-start with the plan in system clocks.
+First the state-machine program of :mod:`ladderpack.outputs.i2c_dac` alone, loaded with
+the SDK's PIO functions and fed by DMA from a test firmware; then whole bundles through
+the bundle's C player (``ladderpack_i2c.c``, built with the vendor SDK 2.2.0, warnings as
+errors) and its MicroPython module (the vendored v1.27.0 image). rp2040js runs them with
+the state machines clocked by the harness's own schedule. The bus is open-drain with
+pull-ups and a device that acknowledges its address (``tests/chip/run.mjs``). The test's
+own decoder below reads the recorded SCL/SDA levels as a receiver does (NXP UM10204:
+START is SDA falling while SCL is high, STOP SDA rising while SCL is high, a bit is SDA
+at SCL's rising edge, the ninth bit of a byte the acknowledge) and compares every
+update's bytes with the DAC's command format and its start with the plan in system
+clocks.
 """
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+from ladderpack.bundle import bundle_files, write_bundle
 from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer, writer_program, writer_words
-from tests.chip.harness import Firmware, run
+from ladderpack.stream import stream_tone
+from tests.chip.harness import Firmware, player_app, run, run_micropython
 
 pytestmark = pytest.mark.slow
 
@@ -149,7 +154,258 @@ def test_a_missing_acknowledge_is_reported(fw: Firmware, tmp_path: Path) -> None
     (tmp_path / "empty").mkdir()
     image = fw.make(tmp_path / "empty", [], [], app=source)
     r = run(image, fw.mailbox(), extra={"i2c": {"sda": SDA, "scl": SCL, "address": 0x60, "ack": 1}})
-    assert r.ended and r.events[-1][1] & 0xFF == 1  # IRQ flag 0 set by the writer
+    assert r.ended and r.events[-1][1] & 0xFF == 1  # IRQ flag (0 + SM 0) set by the writer
     tx = decode(r.wire)
     assert [t[1] for t in tx] == [list(fmt.update_bytes(c)) for c in (100, 200)]
     assert all(a == [1] * fmt.bytes_per_update for _s, _b, a in tx)  # nobody answered
+
+
+# --- whole bundles through the players ---------------------------------------------------
+
+BUS = {"sda": SDA, "scl": SCL, "address": 0x60, "ack": 1}
+
+
+def updates_of(words: np.ndarray) -> list[list[int]]:
+    """The bus bytes of each update, read from FIFO words as the sidecar's ``layout.word``
+    describes them (the byte inverted in bits 31:24, bit 23 on an update's last)."""
+    out: list[list[int]] = []
+    cur: list[int] = []
+    for w in words.astype(np.int64):
+        cur.append(int(~w >> 24) & 0xFF)
+        if (w >> 23) & 1:
+            out.append(cur)
+            cur = []
+    assert not cur, "the words end mid-update"
+    return out
+
+
+def code_of(update: list[int]) -> int:
+    """The code of one update: MCP4725 fast write (address, 0 0 PD1 PD0 D11..D8, D7..D0)
+    or write DAC register (address, 0 1 0 x x PD1 PD0 x, D11..D4, D3..D0 0 0 0 0)."""
+    if len(update) == 3:
+        return ((update[1] & 0x0F) << 8) | update[2]
+    return (update[2] << 4) | (update[3] >> 4)
+
+
+class Bundle:
+    """What a bundle says should come out: its updates and the clocks between them."""
+
+    def __init__(self, folder: Path, name: str) -> None:
+        side = json.loads((folder / f"{name}.json").read_text())
+        self.name = name
+        self.words = np.frombuffer((folder / f"{name}.bin").read_bytes(), "<u4")
+        self.updates = updates_of(self.words)
+        self.codes = [code_of(u) for u in self.updates]
+        clk = side["clock"]
+        self.period = clk["div_int"] * clk["cycles_per_sample"]
+        self.idle = side["stream"]["idle_code"]
+        self.loop = bool(side["options"].get("loop"))
+        src = (folder / f"{name}.c").read_text()
+        self.intro = self._array(src, f"{name}_intro_words")
+        self.outro = self._array(src, f"{name}_outro_words")
+
+    @staticmethod
+    def _array(src: str, symbol: str) -> list[list[int]]:
+        if symbol not in src:
+            return []
+        body = src.split(f"{symbol}[", 1)[1].split("{", 1)[1].split("}", 1)[0]
+        words = [int(t.strip().rstrip("u"), 16) for t in body.split(",") if t.strip()]
+        return updates_of(np.array(words, dtype=np.uint32))
+
+
+def make(folder: Path, name: str, **opts: object) -> Bundle:
+    base: dict[str, object] = {
+        "output": "i2c-dac",
+        "out_base": SDA,
+        "clock_pin": SCL,
+        "rate_hz": 8000.0,
+        "freq_hz": 250.0,
+        "seconds": 0.02,
+        "ramp_ms": 2.0,
+    }
+    asset = stream_tone(str(opts.pop("kind", "sine")), name=name, **{**base, **opts})
+    write_bundle(asset, folder)
+    return Bundle(folder, name)
+
+
+def c_app(name: str, ops: list[tuple[str, int]], tail: str = "") -> str:
+    return player_app(
+        name,
+        ops,
+        header="ladderpack_i2c.h",
+        fn="lp_i2c",
+        player_type="lp_i2c_player_t",
+        stream_type="lp_i2c_stream_t",
+        init_macro="I2C_INIT",
+        tail=tail,
+    )
+
+
+def bus_run(fw: Firmware, folder: Path, name: str, ops: list[tuple[str, int]], **kw: object):
+    tail = str(kw.pop("tail", ""))
+    image = fw.make(folder, [], [], app=c_app(name, ops, tail))
+    return run(image, fw.mailbox(), extra={"i2c": {**BUS, **kw.pop("bus", {})}}, **kw)
+
+
+def assert_on_ticks(tx: list[tuple[int, list[int], list[int]]], period: int) -> None:
+    starts = np.array([t[0] for t in tx])
+    assert np.all(np.diff(starts) == period), np.unique(np.diff(starts))
+    assert all(a == [0] * len(b) for _s, b, a in tx)  # every byte acknowledged
+
+
+@pytest.mark.parametrize("command", ["fast", "register"])
+def test_player_writes_every_update_on_its_tick(fw: Firmware, tmp_path: Path, command: str) -> None:
+    b = make(tmp_path, "level", dac_command=command)
+    nack = "    report(11u, 0u, lp_i2c_nack_seen(&player) ? 1 : 0);\n"
+    r = bus_run(fw, tmp_path, "level", [("init", 0), ("start", 0), ("wait", 0)], tail=nack)
+    assert r.ended and r.results()[:2] == [0, 0]
+    assert [v & 0xFF for _c, v, _p in r.events if v >> 24 == 11] == [0]  # no missing ack
+    tx = decode(r.wire)
+    assert [t[1] for t in tx] == b.updates  # every update, byte for byte
+    assert_on_ticks(tx, b.period)  # each one sample period after the one before
+    assert b.codes[0] == b.idle and b.codes[-1] == b.idle  # from and back to idle
+
+
+def test_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path: Path) -> None:
+    b = make(tmp_path, "cut", seconds=0.05, ramp_ms=0.0, kind="dc", dc_value=0.9)
+    period = b.period
+    r = bus_run(
+        fw,
+        tmp_path,
+        "cut",
+        [("init", 0), ("start", 0), ("delay", 100 * period), ("stop", 0)],
+    )
+    assert r.ended and r.results()[:2] == [0, 0]
+    tx = decode(r.wire)
+    assert_on_ticks(tx, period)  # no gap where the stop came in
+    codes = [code_of(t[1]) for t in tx]
+    n = 0
+    while n < len(codes) and codes[n] == b.codes[n]:
+        n += 1
+    assert 90 < n < len(b.codes) - 64, n
+    ramp = codes[n:]
+    assert len(ramp) == 64 and ramp[-1] == b.idle  # LP_I2C_RAMP_UPDATES, down to idle
+    assert all(x >= y for x, y in zip([codes[n - 1], *ramp], ramp, strict=False))
+
+
+def test_player_loop_and_write_code(fw: Firmware, tmp_path: Path) -> None:
+    b = make(tmp_path, "wobble", loop=True, seconds=0.004)
+    period = len(b.updates) * b.period
+    tail = (
+        "    rc = lp_i2c_write_code(&player, 1234u); report(12u, 0u, rc);\n"
+        "    rc = lp_i2c_write_code(&player, 5000u); report(12u, 1u, rc);\n"
+    )
+    r = bus_run(
+        fw,
+        tmp_path,
+        "wobble",
+        [
+            ("init", 0),
+            ("start", 1),
+            ("delay", int(2.5 * period + 2 * b.period * len(b.intro))),
+            ("request_stop", 0),
+            ("wait", 0),
+        ],
+        tail=tail,
+    )
+    assert r.ended and r.results()[:2] == [0, 0]
+    assert [(v >> 8 & 0xFF, v & 0xFF) for _c, v, _p in r.events if v >> 24 == 12] == [
+        (0, 0),
+        (1, 0xF9),  # LP_I2C_ERR_CODE (-7)
+    ]
+    tx = decode(r.wire)
+    got = [t[1] for t in tx]
+    assert got[-1] == list(I2cDacFormat(0x60).update_bytes(1234))  # the DC level on demand
+    got = got[:-1]
+    assert_on_ticks(tx[:-1], b.period)
+    k = len(b.intro)
+    assert got[:k] == b.intro
+    body = got[k : len(got) - len(b.outro)]
+    assert got[len(got) - len(b.outro) :] == b.outro
+    passes, rest = divmod(len(body), len(b.updates))
+    assert rest == 0 and passes >= 2 and body == b.updates * passes  # whole passes
+
+
+def test_player_reports_a_missing_acknowledge(fw: Firmware, tmp_path: Path) -> None:
+    make(tmp_path, "lost", seconds=0.002, dac_address=0x62)
+    nack = "    report(11u, 0u, lp_i2c_nack_seen(&player) ? 1 : 0);\n"
+    r = bus_run(fw, tmp_path, "lost", [("init", 0), ("start", 0), ("wait", 0)], tail=nack)
+    assert r.ended and [v & 0xFF for _c, v, _p in r.events if v >> 24 == 11] == [1]
+    assert all(a == [1] * len(b) for _s, b, a in decode(r.wire))
+
+
+def test_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> None:
+    folder = tmp_path_factory.mktemp("i2c_2350")
+    make(folder, "level", target="rp2350b", out_base=34, clock_pin=35)
+    fw2 = Firmware(tmp_path_factory.mktemp("fw_i2c_2350"), platform="rp2350")
+    image = fw2.make(folder, [], [], app=c_app("level", [("init", 0), ("start", 0), ("wait", 0)]))
+    assert image.stat().st_size > 0
+
+
+def test_micropython_writes_every_update(tmp_path: Path) -> None:
+    asset = stream_tone(
+        "sine",
+        name="hum",
+        output="i2c-dac",
+        out_base=SDA,
+        clock_pin=SCL,
+        rate_hz=4000.0,
+        freq_hz=250.0,
+        seconds=0.02,
+        ramp_ms=2.0,
+        chunk_words=64,
+    )
+    files = bundle_files(asset, embed_words_max=0)
+    for fname, data in files.items():
+        (tmp_path / fname).write_bytes(data)
+    b = Bundle(tmp_path, "hum")
+    steps = [
+        {"code": "import hum\np = hum.Player()\np.play()\nprint('nack', p.nack_seen())\n"},
+        {"code": "p.write_code(3000)\nprint('nack', p.nack_seen())\n"},
+    ]
+    r = run_micropython(
+        {"hum.py": files["hum.py"], "hum.bin": files["hum.bin"]}, steps, tmp_path, i2c=BUS
+    )
+    assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
+    assert r.output().count("nack False") == 2, r.output()[-500:]
+    tx = decode(r.wire)
+    got = [t[1] for t in tx]
+    assert got[:-1] == b.updates and code_of(got[-1]) == 3000
+    assert_on_ticks(tx[:-1], b.period)
+
+
+def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
+    asset = stream_tone(
+        "dc",
+        name="hold",
+        output="i2c-dac",
+        out_base=SDA,
+        clock_pin=SCL,
+        rate_hz=4000.0,
+        dc_value=0.8,
+        seconds=0.1,
+        ramp_ms=0.0,
+    )
+    files = bundle_files(asset, embed_words_max=100_000)
+    for fname, data in files.items():
+        (tmp_path / fname).write_bytes(data)
+    b = Bundle(tmp_path, "hold")
+    steps = [
+        {"code": "import hold\np = hold.Player()\n"},
+        {"code": "p.play()\n", "interrupt_after": 5_000_000},  # 40 ms in
+    ]
+    r = run_micropython({"hold.py": files["hold.py"]}, steps, tmp_path, i2c=BUS)
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    tx = decode(r.wire)
+    codes = [code_of(t[1]) for t in tx]
+    n = 0
+    while n < len(codes) and codes[n] == b.codes[n]:
+        n += 1
+    assert 0 < n < len(b.codes) - 64, n
+    assert len(codes) - n == 64 and codes[-1] == b.idle
+    assert all(x >= y for x, y in zip(codes[n - 1 :], codes[n:], strict=False))
+    # the stream on its ticks up to the stop; the ramp, made once the bus has gone idle
+    # (the DAC holds its code meanwhile), on its own ticks
+    assert_on_ticks(tx[:n], b.period)
+    assert_on_ticks(tx[n:], b.period)
+    assert tx[n][0] - tx[n - 1][0] >= b.period

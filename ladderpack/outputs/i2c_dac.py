@@ -27,16 +27,19 @@ from fractions import Fraction
 
 import numpy as np
 
+from ladderpack.clock import ClockPlan
 from ladderpack.errors import OptionError
-from ladderpack.pio import Instruction, Program, SideSet
+from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
 
 __all__ = [
     "BUS_SPEEDS_HZ",
     "COMMANDS",
     "I2cDacFormat",
+    "I2cDacLayout",
     "I2cDacPlan",
     "bus_bits_per_update",
     "codes_for_volts",
+    "i2c_state_machine",
     "max_update_rate_hz",
     "plan_writer",
     "writer_cycles",
@@ -203,9 +206,10 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
     ``set pindirs`` drive SDA.  Each FIFO word carries one byte, inverted (a 1 drives
     SDA low) in bits 31:24, and in bit 23 a flag marking the update's last byte, after
     which the STOP follows.  Each byte's acknowledge is sampled while SCL is high (``jmp
-    pin``, JMP_PIN = SDA); a missing one sets IRQ flag 0 for the player and the write
-    goes on.  After the STOP the machine counts Y + 1 cycles, so that every update starts
-    one sample period after the one before (:func:`writer_cycles`).  Four cycles a bit:
+    pin``, JMP_PIN = SDA); a missing one sets an IRQ flag for the player (``irq 0 rel``:
+    flag N for state machine N of the block) and the write goes on.  After the STOP the
+    machine counts Y + 1 cycles, so that every update starts one sample period after the
+    one before (:func:`writer_cycles`).  Four cycles a bit:
     SDA changes while SCL is low, SCL is high for two cycles (UM10204's START, STOP,
     setup and hold times are met at the bus clock the plan sets).
     """
@@ -228,7 +232,7 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
         Instruction("jmp", ("x--", 15), side=0),  # 15 pad
         Instruction("pull", (False, True), side=1),  # 16 next: the next byte
         Instruction("jmp", ("", 2), side=1),  # 17
-        Instruction("irq", ("set", 0), side=0),  # 18 nack: report it
+        Instruction("irq", ("set", 0, "rel"), side=0),  # 18 nack: flag (0 + SM) mod 4
         Instruction("jmp", ("", 9), side=0),  # 19
     ]
     return Program(
@@ -236,7 +240,7 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
         tuple(ins),
         wrap_target=0,
         wrap=15,
-        sideset=SideSet(1, optional=True),
+        sideset=SideSet(1, optional=True, pindirs=True),
         autopull=False,
         variant="i2c-dac",
     )
@@ -311,6 +315,31 @@ class I2cDacPlan:
         """The Y register's value: the pad loop's count."""
         return self.cycles_per_update - writer_cycles(self.bytes_per_update, 0)
 
+    @property
+    def clock(self) -> ClockPlan:
+        """The same setting as a state-machine :class:`~ladderpack.clock.ClockPlan`."""
+        return ClockPlan(
+            self.sys_clock_hz, self.requested_rate_hz, self.divider, 0, self.cycles_per_update
+        )
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description (the sidecar's ``i2c_dac`` entry, with the format's)."""
+        return {
+            "bus_hz": round(float(self.bus_hz), 3),
+            "cycles_per_bit": CYCLES_PER_BIT,
+            "cycles_per_update": self.cycles_per_update,
+            "pad": self.pad,
+            "bytes_per_update": self.bytes_per_update,
+            "max_rate_hz": round(
+                float(
+                    Fraction(
+                        self.sys_clock_hz, self.divider * writer_cycles(self.bytes_per_update, 0)
+                    )
+                ),
+                3,
+            ),
+        }
+
 
 def plan_writer(
     rate_hz: float | int | Fraction,
@@ -364,3 +393,131 @@ def plan_writer(
             break
     assert best is not None
     return I2cDacPlan(sys_clock_hz, rate, best[1], best[2], fmt.bytes_per_update)
+
+
+@dataclass(frozen=True)
+class I2cDacLayout:
+    """How the updates of a 12-bit I2C DAC stream sit in FIFO words.
+
+    One word a bus byte (:func:`writer_words`): the byte inverted in bits 31:24 (a 1
+    drives SDA low), bit 23 set on an update's last byte; an update is the address byte
+    and the command's data bytes, so a sample takes :attr:`words_per_update` words.
+
+    Attributes
+    ----------
+    fmt : I2cDacFormat
+        Address and command format.
+
+    Examples
+    --------
+    >>> lay = I2cDacLayout(I2cDacFormat(0x60, "fast"))
+    >>> [hex(w) for w in lay.pack_codes(np.array([0xABC]))]
+    ['0x3f000000', '0xf5000000', '0x43800000']
+    >>> lay.unpack_words(lay.pack_codes(np.array([1, 4095]))).tolist()
+    [[1], [4095]]
+    """
+
+    fmt: I2cDacFormat
+
+    @property
+    def bits(self) -> int:
+        """Code width (12)."""
+        return self.fmt.bits
+
+    @property
+    def channels(self) -> int:
+        """Codes per sample (1)."""
+        return 1
+
+    @property
+    def words_per_update(self) -> int:
+        """FIFO words (bus bytes) per sample."""
+        return self.fmt.bytes_per_update
+
+    def words_for(self, samples: int) -> int:
+        """Words needed for `samples` samples."""
+        return samples * self.words_per_update
+
+    def pack_codes(self, codes: np.ndarray) -> np.ndarray:
+        """Codes -> uint32 FIFO words."""
+        return writer_words(self.fmt, codes)
+
+    def unpack_words(self, words: np.ndarray) -> np.ndarray:
+        """FIFO words -> codes, shape (samples, 1).
+
+        Raises
+        ------
+        OptionError
+            For words that are not whole updates of this format (another address, a
+            misplaced last-byte flag).
+        """
+        w = np.asarray(words, dtype=np.uint32)
+        b = self.words_per_update
+        if w.size % b:
+            raise OptionError(f"expected whole updates of {b} words, got {w.size}", field="words")
+        rows = w.reshape(-1, b)
+        data = ((~rows >> np.uint32(24)) & np.uint32(0xFF)).astype(np.int64)
+        flags = (rows >> np.uint32(23)) & np.uint32(1)
+        want = np.zeros(b, np.uint32)
+        want[-1] = 1
+        if rows.size and (np.any(data[:, 0] != self.fmt.address_byte) or np.any(flags != want)):
+            raise OptionError(
+                f"the words are not updates for address 0x{self.fmt.address:02X}", field="words"
+            )
+        if self.fmt.command == "fast":
+            codes = ((data[:, 1] & 0x0F) << 8) | data[:, 2]
+        else:
+            codes = (data[:, 2] << 4) | (data[:, 3] >> 4)
+        return codes.reshape(-1, 1)
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain-data description (the sidecar's ``layout``)."""
+        return {
+            "output": "i2c-dac",
+            "bits": self.bits,
+            "words_per_update": self.words_per_update,
+            "word": "one bus byte, inverted, in bits 31:24; bit 23 set on an update's last byte",
+            "shift": "left",
+            "dac": self.fmt.to_dict(),
+        }
+
+
+def i2c_state_machine(
+    program: Program,
+    clock: ClockPlan,
+    *,
+    sda_pin: int,
+    scl_pin: int,
+    gpio_base: int = 0,
+) -> StateMachineConfig:
+    """The state machine's registers for the writer (program loaded at address 0).
+
+    EXECCTRL: the wrap, side-set optional (SIDE_EN, bit 30) and on pin directions
+    (SIDE_PINDIR, bit 29), JMP_PIN = SDA (bits 28:24).  SHIFTCTRL: TX FIFO joined, out
+    shift left, no autopull (the program pulls).  PINCTRL: SIDESET_COUNT 2 (SCL and the
+    enable bit), SET_COUNT 1 and OUT_COUNT 1 on SDA, SIDESET_BASE SCL (RP2040 datasheet,
+    PIO registers).  The pins' pin checks are the options' (``StreamOptions``).
+    """
+    sda, scl = sda_pin - gpio_base, scl_pin - gpio_base
+    execctrl = wrap_execctrl(program) | (1 << 30) | (1 << 29) | (sda << 24)
+    shiftctrl = (1 << 30) | (1 << 18)  # FJOIN_TX; PULL_THRESH 0 = 32; OUT_SHIFTDIR left
+    pinctrl = (
+        (program.sideset.field_bits << 29)
+        | (1 << 26)  # SET_COUNT
+        | (1 << 20)  # OUT_COUNT
+        | (scl << 10)  # SIDESET_BASE
+        | (sda << 5)  # SET_BASE
+        | sda  # OUT_BASE
+    )
+    return StateMachineConfig(
+        clock.clkdiv_register,
+        execctrl,
+        shiftctrl,
+        pinctrl,
+        sda_pin,
+        1,
+        False,
+        gpio_base,
+        sideset_base=scl_pin,
+        sideset_count=1,
+    )

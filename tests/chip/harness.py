@@ -366,10 +366,12 @@ def run_micropython(
     max_cycles: int = 400_000_000,
     watch_pins: list[int] | None = None,
     pwm_slices: list[int] | None = None,
+    i2c: dict[str, int] | None = None,
 ) -> Run:
     """Boot the vendored MicroPython image with `files` on its filesystem and run each
     step's code through the raw REPL over USB CDC (``interrupt_after``: Ctrl-C that many
-    system clocks after the code was sent)."""
+    system clocks after the code was sent); `i2c` puts an acknowledging device on a bus
+    (see ``run.mjs``)."""
     return run(
         MICROPYTHON,
         0,
@@ -381,6 +383,7 @@ def run_micropython(
             "repl": steps,
             **({"watch_pins": watch_pins} if watch_pins else {}),
             **({"pwm_slices": pwm_slices} if pwm_slices is not None else {}),
+            **({"i2c": i2c} if i2c is not None else {}),
         },
         config_dir=folder,
     )
