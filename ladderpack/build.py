@@ -195,6 +195,7 @@ def load_manifest(
     table_types = {
         "wave": _types("WaveTableSpec"),
         "correction": _types("CorrectionTableSpec"),
+        "i2c-dac": _types("I2cDacTableSpec"),
     }
     all_types = {**stream_types, **tone_types, **clip_types}
     _check_types(mpath, None, defaults, all_types)
@@ -315,8 +316,8 @@ def option_objects(
 ) -> list[Any]:
     """The option-model objects of an asset.
 
-    ``[StreamOptions, ClipOptions or ToneSpec]`` for streams, ``[WaveTableSpec]`` or
-    ``[CorrectionTableSpec]`` for tables.
+    ``[StreamOptions, ClipOptions or ToneSpec]`` for streams, ``[WaveTableSpec]``,
+    ``[I2cDacTableSpec]`` or ``[CorrectionTableSpec]`` for tables.
 
     Each takes its own keys of `options`; errors name `file` and `where`.
     """
@@ -324,7 +325,12 @@ def option_objects(
 
     groups: list[type]
     if kind == "table":
-        groups = [model.WaveTableSpec if source == "wave" else model.CorrectionTableSpec]
+        groups = [
+            {
+                "wave": model.WaveTableSpec,
+                "i2c-dac": model.I2cDacTableSpec,
+            }.get(source, model.CorrectionTableSpec)
+        ]
     else:
         groups = [model.StreamOptions, model.ClipOptions if kind == "clip" else model.ToneSpec]
     out: list[Any] = []
@@ -418,9 +424,15 @@ def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
     """Build one asset in memory: its files and its index entry (runs in a worker)."""
     parts = option_objects(spec.kind, spec.source, spec.options)
     if spec.kind == "table":
-        from ladderpack.tables import correction_table_files, wave_table_files
+        from ladderpack.tables import (
+            correction_table_files,
+            i2c_dac_table_files,
+            wave_table_files,
+        )
 
-        make = wave_table_files if spec.source == "wave" else correction_table_files
+        make = {"wave": wave_table_files, "i2c-dac": i2c_dac_table_files}.get(
+            spec.source, correction_table_files
+        )
         res = make(spec.name, parts[0])
         entry = {
             "name": spec.name,

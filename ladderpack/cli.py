@@ -69,6 +69,15 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
             f"({i2s_line['cycles_per_bit']} cycles each), bit clock "
             f"{i2s_line['bit_clock_hz']:.1f} Hz; data GPIO {d}, bit clock {b}, word select {w}"
         )
+    i2c_line = summary.get("i2c_dac")
+    if i2c_line:
+        sda, scl = i2c_line["pins"]
+        click.echo(
+            f"  i2c      DAC at 0x{i2c_line['address']:02X}, {i2c_line['command']} writes of "
+            f"{i2c_line['bytes_per_update']} bytes, SCL {i2c_line['bus_hz']:.0f} Hz (at most "
+            f"{i2c_line['max_rate_hz']:.0f} updates/s); SDA GPIO {sda}, SCL GPIO {scl}, "
+            "pull-ups to 3.3 V needed"
+        )
     click.echo(
         f"  stream   {summary['samples']} {unit}s, {summary['words']} words, "
         f"{summary['bytes']} bytes"
@@ -559,7 +568,7 @@ def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_jso
         "cycles_per_update": plan.cycles_per_update,
         "pad": plan.pad,
         "bytes_per_update": fmt.bytes_per_update,
-        "max_rate_hz": plan.sys_clock_hz / (plan.divider * least),
+        "max_rate_hz": float(plan.max_rate_hz),
     }
     if as_json:
         click.echo(json_text(d))
@@ -573,7 +582,7 @@ def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_jso
     click.echo(
         f"update     {fmt.bytes_per_update} bytes ({command} write): {least} cycles of "
         f"{plan.cycles_per_update} a sample (pad Y = {plan.pad}); at most "
-        f"{d['max_rate_hz']:.0f} updates/s here"
+        f"{d['max_rate_hz']:.0f} updates/s at this bus speed"
     )
 
 

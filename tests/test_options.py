@@ -214,8 +214,12 @@ def test_readme_tables_agree_with_the_model(cls: type) -> None:
         elif isinstance(f.default, str):
             assert default == f"`{f.default}`", (flag, default)
         else:
-            number = re.match(r"-?[\d.]+", default)
-            assert number and float(number.group()) == f.default, (flag, default)
+            number = re.match(r"-?(0x[0-9a-fA-F]+|[\d.]+)", default.strip("`"))
+            assert (
+                number
+                and float(int(number.group(), 0) if "x" in number.group() else number.group())
+                == f.default
+            ), (flag, default)
         if info.choices:
             for choice in info.choices:
                 assert f"`{choice}`" in " ".join(row), (flag, choice)

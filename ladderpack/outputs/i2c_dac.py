@@ -282,6 +282,9 @@ class I2cDacPlan:
         State-machine cycles per update (sample).
     bytes_per_update : int
         Bytes on the bus per update.
+    fastest_divider : int
+        The smallest divider the bus speed allows (0: `divider`); it sets
+        :attr:`max_rate_hz`.
     """
 
     sys_clock_hz: int
@@ -289,6 +292,7 @@ class I2cDacPlan:
     divider: int
     cycles_per_update: int
     bytes_per_update: int
+    fastest_divider: int = 0
 
     @property
     def fractional(self) -> bool:
@@ -330,15 +334,14 @@ class I2cDacPlan:
             "cycles_per_update": self.cycles_per_update,
             "pad": self.pad,
             "bytes_per_update": self.bytes_per_update,
-            "max_rate_hz": round(
-                float(
-                    Fraction(
-                        self.sys_clock_hz, self.divider * writer_cycles(self.bytes_per_update, 0)
-                    )
-                ),
-                3,
-            ),
+            "max_rate_hz": round(float(self.max_rate_hz), 3),
         }
+
+    @property
+    def max_rate_hz(self) -> Fraction:
+        """The highest update rate at this bus speed: the fastest divider, no pad."""
+        d = self.fastest_divider or self.divider
+        return Fraction(self.sys_clock_hz, d * writer_cycles(self.bytes_per_update, 0))
 
 
 def plan_writer(
@@ -392,7 +395,7 @@ def plan_writer(
         if err == 0:
             break
     assert best is not None
-    return I2cDacPlan(sys_clock_hz, rate, best[1], best[2], fmt.bytes_per_update)
+    return I2cDacPlan(sys_clock_hz, rate, best[1], best[2], fmt.bytes_per_update, divider)
 
 
 @dataclass(frozen=True)
