@@ -425,14 +425,18 @@ def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
     parts = option_objects(spec.kind, spec.source, spec.options)
     if spec.kind == "table":
         from ladderpack.tables import (
+            TableResult,
             correction_table_files,
             i2c_dac_table_files,
             wave_table_files,
         )
 
-        make = {"wave": wave_table_files, "i2c-dac": i2c_dac_table_files}.get(
-            spec.source, correction_table_files
-        )
+        makers: dict[str, Callable[[str, Any], TableResult]] = {
+            "wave": wave_table_files,
+            "i2c-dac": i2c_dac_table_files,
+            "correction": correction_table_files,
+        }
+        make = makers[spec.source]
         res = make(spec.name, parts[0])
         entry = {
             "name": spec.name,

@@ -8,6 +8,10 @@
   class-D amplifier board: data on GPIO 26, bit clock on 27, word select on 28.
 * The PWM variant (folder ``pwm``) plays both alerts on GPIO 15 (PWM slice 7, channel
   B) through an RC filter: the cheapest station, one pin and two resistors.
+* The I2C bench variant (folder ``i2c_bench``) checks the station's sensor input: a
+  12-bit I2C DAC (an MCP4725 at 0x60, SDA on GPIO 4, SCL on GPIO 5) steps through six
+  test voltages, 0.5 V to 3.0 V, 100 ms each, one update per tick of a 1 kHz sample
+  clock, in a loop.
 """
 
 from __future__ import annotations
@@ -21,7 +25,7 @@ from ladderpack.asset import StreamSummary
 from ladderpack.audio import Signal
 from ladderpack.bundle import write_bundle
 from ladderpack.errors import AudioFileError
-from ladderpack.stream import stream_clip, stream_signal
+from ladderpack.stream import stream_clip, stream_signal, stream_tone
 
 __all__ = ["run_demo"]
 
@@ -63,4 +67,29 @@ def run_demo(
         for clip in ("door_chime.flac", "frost_warning.flac"):
             asset = stream_clip(os.path.join(clips_dir, clip), rate_hz=22050, **opts)
             results.append((asset.summary(), write_bundle(asset, os.path.join(out_dir, folder))))
+    steps = bench_volts()
+    volts = stream_tone(
+        "staircase",
+        name="bench_volts",
+        output="i2c-dac",
+        codes=[int(c) for c in steps],
+        dwell_ms=100.0,
+        rate_hz=1000.0,
+        ramp_ms=0.0,
+        out_base=4,
+        clock_pin=5,
+        loop=True,
+    )
+    results.append((volts.summary(), write_bundle(volts, os.path.join(out_dir, "i2c_bench"))))
     return results
+
+
+#: Test voltages of the I2C bench variant, V (the DAC's reference: its 3.3 V supply).
+BENCH_VOLTS = (0.5, 1.0, 1.5, 2.0, 2.5, 3.0)
+
+
+def bench_volts(vref_volts: float = 3.3) -> np.ndarray:
+    """The 12-bit codes of :data:`BENCH_VOLTS` (nearest: Vref x code / 4096)."""
+    from ladderpack.outputs.i2c_dac import codes_for_volts
+
+    return codes_for_volts(np.array(BENCH_VOLTS), vref_volts)

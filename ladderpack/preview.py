@@ -48,7 +48,7 @@ class _Bundle:
 
     side: dict[str, Any]
     codes: np.ndarray  # one channel's codes, one per sample period
-    output: str  # "ladder", "i2s" or "pwm"
+    output: str  # "ladder", "i2s", "pwm" or "i2c-dac"
     bits: int  # a ladder's N or an I2S sample's width (16 for PWM's compare values)
     levels: int  # PWM: compare values 0..levels-1 (else 2**bits)
 
@@ -68,8 +68,14 @@ def _layout_of(lay: dict[str, Any], side: dict[str, Any]) -> tuple[str, Any, int
         return output, I2sLayout(bits, stereo=stereo), bits, 2 if stereo else 1
     if output == "pwm" and stereo:
         return output, PwmStereoLayout(), 16, 2
+    if output == "i2c-dac":
+        from ladderpack.outputs.i2c_dac import I2cDacFormat, I2cDacLayout
+
+        dac = lay["dac"]
+        fmt = I2cDacFormat(int(dac["address"]), str(dac["command"]))
+        return output, I2cDacLayout(fmt), 12, 1
     if output not in ("ladder", "pwm"):
-        raise ValueError(f"layout.output: expected ladder, i2s or pwm, got {output!r}")
+        raise ValueError(f"layout.output: expected ladder, i2s, pwm or i2c-dac, got {output!r}")
     bits, spw = lay["bits"], lay["samples_per_word"]
     hi = 30 if stereo else 16
     for key, v, lo, top in (("layout.bits", bits, 1, hi), ("layout.samples_per_word", spw, 1, 32)):
@@ -135,7 +141,7 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         codes = layout.channels_of(unpack(words, layout, count).codes)[:, channel]
     elif isinstance(layout, WordLayout):
         codes = unpack(words, layout, count).codes
-    else:  # I2S or stereo PWM: whole frames
+    else:  # I2S, stereo PWM or an I2C DAC: whole frames
         codes = layout.unpack_words(words[: layout.words_for(count)])[:count, channel]
     return _Bundle(side, np.asarray(codes, dtype=np.int64), output, bits, levels)
 

@@ -195,6 +195,20 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
         side = json.loads((tmp_path / "demo" / f"{stem}.json").read_text())
         text = (tmp_path / "demo" / f"{stem}.pio").read_text()
         assert list(adafruit_pioasm.Program(text).assembled) == side["program"]["words"]
+    # the I2C bench: a 12-bit DAC stepping through the test voltages in a loop; its
+    # writer program (side-set on pin directions, irq rel) assembles identically too
+    folder = tmp_path / "demo" / "i2c_bench"
+    side = json.loads((folder / "bench_volts.json").read_text())
+    assert side["options"]["output"] == "i2c-dac" and side["options"]["loop"]
+    assert (folder / "ladderpack_i2c.c").is_file()
+    prog = adafruit_pioasm.Program((folder / "bench_volts.pio").read_text())
+    assert list(prog.assembled) == side["program"]["words"]
+    assert prog.pio_kwargs["sideset_pindirs"] and prog.pio_kwargs["sideset_enable"]
+    words = np.frombuffer((folder / "bench_volts.bin").read_bytes(), "<u4").astype(np.int64)
+    data = (~words >> 24) & 0xFF
+    codes = ((data[1::3] & 0x0F) << 8) | data[2::3]  # MCP4725 fast write
+    volts = 3.3 * np.unique(codes) / 4096  # datasheet: Vout = Vref x code / 4096
+    assert np.allclose(volts, [0.5, 1.0, 1.5, 2.0, 2.5, 3.0], atol=3.3 / 8192)
 
 
 @pytest.mark.parametrize(

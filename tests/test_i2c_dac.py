@@ -145,3 +145,126 @@ def test_clock_command_plans_the_writer() -> None:
     assert d["divider"] == 80 and d["cycles_per_update"] == 250 and d["error_ppm"] == 0
     res = CliRunner().invoke(cli, ["clock", "50000", "--output", "i2c-dac"])
     assert res.exit_code != 0 and "more than the bus carries" in str(res.exception)
+
+
+# -- streams ----------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("command", ["fast", "register"])
+def test_layout_words_round_trip_and_match_the_bytes(command: str) -> None:
+    from ladderpack.outputs.i2c_dac import I2cDacLayout
+
+    fmt = I2cDacFormat(0x62, command)
+    lay = I2cDacLayout(fmt)
+    codes = np.array([0, 1, 2048, 4095, 1234])
+    words = lay.pack_codes(codes)
+    assert words.size == lay.words_for(codes.size) == codes.size * fmt.bytes_per_update
+    assert lay.unpack_words(words)[:, 0].tolist() == codes.tolist()
+    # each word: the bus byte inverted in bits 31:24, bit 23 on an update's last byte
+    per = fmt.bytes_per_update
+    for k, c in enumerate(codes):
+        w = words[k * per : (k + 1) * per].astype(np.int64)
+        assert bytes(int(~x >> 24) & 0xFF for x in w) == fmt.update_bytes(int(c))
+        assert [int(x >> 23) & 1 for x in w] == [0] * (per - 1) + [1]
+        assert all(int(x) & 0x7FFFFF == 0 for x in w)
+    with pytest.raises(OptionError):
+        I2cDacLayout(I2cDacFormat(0x63, command)).unpack_words(words)  # another address
+
+
+def test_state_machine_registers_name_the_pins() -> None:
+    # Field positions from the RP2040 datasheet, PIO registers: EXECCTRL SIDE_EN 30,
+    # SIDE_PINDIR 29, JMP_PIN 28:24, WRAP_TOP 16:12, WRAP_BOTTOM 11:7; SHIFTCTRL FJOIN_TX
+    # 30, AUTOPULL 17, OUT_SHIFTDIR 19 (0: left); PINCTRL SIDESET_COUNT 31:29, SET_COUNT
+    # 28:26, OUT_COUNT 25:20, SIDESET_BASE 14:10, SET_BASE 9:5, OUT_BASE 4:0.
+    from ladderpack.outputs.i2c_dac import i2c_state_machine, plan_writer, writer_program
+
+    prog = writer_program()
+    plan = plan_writer(8000, I2cDacFormat(), bus_hz=400_000)
+    sm = i2c_state_machine(prog, plan.clock, sda_pin=36, scl_pin=37, gpio_base=16)
+    assert (sm.execctrl >> 30) & 1 and (sm.execctrl >> 29) & 1
+    assert (sm.execctrl >> 24) & 31 == 20
+    assert ((sm.execctrl >> 12) & 31, (sm.execctrl >> 7) & 31) == (prog.wrap, prog.wrap_target)
+    assert (sm.shiftctrl >> 30) & 1 and not (sm.shiftctrl >> 17) & 1
+    assert not (sm.shiftctrl >> 19) & 1
+    f = sm.pinctrl
+    assert (f >> 29, (f >> 26) & 7, (f >> 20) & 63) == (2, 1, 1)
+    assert ((f >> 10) & 31, (f >> 5) & 31, f & 31) == (21, 20, 20)
+    assert sm.clkdiv == plan.divider << 16
+
+
+def test_stream_options_for_an_i2c_dac() -> None:
+    from ladderpack.options import StreamOptions
+
+    o = StreamOptions(output="i2c-dac", out_base=4)
+    assert (o.bits, o.clock_pin, o.bus_hz, o.dac_address, o.dac_command) == (
+        12,
+        5,
+        400_000,
+        0x60,
+        "fast",
+    )
+    rec = o.to_dict()
+    assert {"bus_hz", "dac_address", "dac_command", "clock_pin"} <= set(rec)
+    assert "frame_format" not in rec and "stereo" not in rec and "levels" not in rec
+    # a ladder records none of the I2C keys (its records are unchanged)
+    assert not {"bus_hz", "dac_address", "dac_command"} & set(StreamOptions().to_dict())
+    bad = [
+        ({"bits": 16}, "bits"),
+        ({"stereo": True}, "stereo"),
+        ({"bus_hz": 3_400_000}, "bus_hz"),
+        ({"dac_address": 0x78}, "dac_address"),
+        ({"idle_code": 4096}, "idle_code"),
+        ({"clock_pin": 4}, "clock_pin"),
+        ({"clock_pin": 30}, "clock_pin"),
+        ({"frame_format": "left-justified"}, "frame_format"),
+        ({"pin_order": "msb-low"}, "pin_order"),
+    ]
+    for kw, field in bad:
+        with pytest.raises(OptionError) as e:
+            StreamOptions(**{"output": "i2c-dac", "out_base": 4, **kw})
+        assert e.value.field == field, kw
+    with pytest.raises(OptionError) as e:
+        StreamOptions(bus_hz=100_000)
+    assert e.value.field == "bus_hz"
+
+
+def test_stream_refuses_a_rate_the_bus_cannot_carry() -> None:
+    from ladderpack.stream import stream_tone
+
+    with pytest.raises(OptionError) as e:
+        stream_tone("sine", output="i2c-dac", rate_hz=13_000, seconds=0.01)
+    assert e.value.field == "rate_hz" and "12266" in e.value.message
+    a = stream_tone("sine", output="i2c-dac", rate_hz=13_000, bus_hz=1_000_000, seconds=0.01)
+    assert a.summary()["i2c_dac"]["max_rate_hz"] == pytest.approx(125e6 / (32 * 129), abs=1e-3)
+
+
+def test_staircase_codes_come_out_exact_and_on_whole_cycles() -> None:
+    from ladderpack.outputs.i2c_dac import writer_cycles
+    from ladderpack.stream import stream_tone
+
+    codes = codes_for_volts(np.array([0.5, 1.25, 3.0]), 3.3).tolist()
+    a = stream_tone(
+        "staircase", output="i2c-dac", codes=codes, dwell_ms=3.0, rate_hz=1000.0, ramp_ms=0.0
+    )
+    got = a.packed.layout.unpack_words(a.packed.words)[:, 0]
+    assert got.tolist() == [c for c in codes for _ in range(3)] + [0]  # then idle
+    p = a.clock
+    assert p.div_frac == 0 and p.sys_clock_hz == p.div_int * p.cycles_per_sample * 1000
+    side = a.stats["i2c_dac"]
+    assert side["pad"] == p.cycles_per_sample - writer_cycles(3, 0)
+    assert side["address"] == 0x60 and side["sda_pin"] == 0 and side["scl_pin"] == 1
+
+
+def test_manifest_builds_i2c_dac_streams_and_tables(tmp_path: Path) -> None:
+    from ladderpack.build import build, load_manifest
+
+    (tmp_path / "ladderpack.toml").write_text(
+        "[project]\nout_dir = 'gen'\n\n"
+        "[[asset]]\nname = 'volts'\ntone = 'staircase'\noutput = 'i2c-dac'\n"
+        "codes = [100, 200]\ndwell_ms = 2\nrate_hz = 1000\nramp_ms = 0\ndac_address = 0x61\n\n"
+        "[[asset]]\nname = 'levels'\ntable = 'i2c-dac'\nvolts = [0.5, 1.0]\n"
+    )
+    build(load_manifest(str(tmp_path / "ladderpack.toml")), echo=lambda _t: None)
+    gen = tmp_path / "gen"
+    assert (gen / "ladderpack_i2c.c").is_file() and (gen / "levels.c").is_file()
+    assert "0x61u" in (gen / "volts.h").read_text()
