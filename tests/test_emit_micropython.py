@@ -85,3 +85,19 @@ def test_player_is_micropython_syntax(bits: int) -> None:
     tree = ast.parse(src)
     assert not any(isinstance(n, ast.JoinedStr) for n in ast.walk(tree))
     assert "rp2.DMA()" in src and "treq_sel" in src
+
+
+@pytest.mark.parametrize("output", ["i2s", "pwm", "i2c-dac"])
+def test_other_outputs_type_check_and_parse_as_micropython(tmp_path: Path, output: str) -> None:
+    # The other outputs' modules: Python 3.4 syntax (as above) and mypy --strict against
+    # the PyPI stubs of MicroPython's rp2 port.
+    from ladderpack.stream import stream_tone
+
+    asset = stream_tone("sine", name="probe", output=output, rate_hz=8000, seconds=0.002, loop=True)
+    src = bundle_files(asset, embed_words_max=10**6)["probe.py"].decode()
+    ast.parse(src, feature_version=(3, 4))
+    assert not any(isinstance(n, ast.JoinedStr) for n in ast.walk(ast.parse(src)))
+    module = tmp_path / "probe.py"
+    module.write_text(src)
+    res = mypy_micropython(module, tmp_path)
+    assert res.returncode == 0, res.stdout + res.stderr

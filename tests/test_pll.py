@@ -112,20 +112,32 @@ def test_clock_command_lists_them() -> None:
     ) == (5, 5)
 
 
-@pytest.mark.parametrize("rate", [8000, 6250, 11025])
-def test_clocks_for_the_i2c_writer(rate: int) -> None:
+# The table's rates a fast write can carry: at 400 kHz up to about 12 k updates a second,
+# at 1 MHz (Fast-mode Plus) up to about 30 k.
+@pytest.mark.parametrize(
+    ("rate", "bus"),
+    [(8000, 400_000), (6250, 400_000), (11025, 400_000), (16000, 1_000_000),
+     (22050, 1_000_000)],
+)  # fmt: skip
+def test_clocks_for_the_i2c_writer(rate: int, bus: int) -> None:
     from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
 
     fmt = I2cDacFormat(command="fast")
     found = find_sys_clocks(
-        rate, planner=lambda f: plan_writer(rate, fmt, sys_clock_hz=f), output="i2c", limit=4
+        rate,
+        planner=lambda f: plan_writer(rate, fmt, bus_hz=bus, sys_clock_hz=f),
+        output="i2c",
+        limit=4,
     )
     assert found
     for c in found:
         p = c.plan
         # f_sys / (divider x cycles per update), the bus no faster than asked
         assert p.achieved_rate_hz == Fraction(c.sys_clock_hz, p.divider * p.cycles_per_update)
-        assert p.bus_hz <= 400_000 and p.cycles_per_update >= 129
+        assert p.bus_hz <= bus and p.cycles_per_update >= 129
+        assert Fraction(c.pll.xosc_hz) * c.pll.fbdiv / (c.pll.postdiv1 * c.pll.postdiv2) == (
+            c.sys_clock_hz
+        )
     if found[0].plan.error_ppm == 0:
         d = [abs(c.sys_clock_hz - 125_000_000) for c in found]
         assert d == sorted(d)

@@ -264,7 +264,7 @@ def i2c_program() -> None:
 {body}
 
 
-def _update(code: int) -> list:
+def _update(code: int) -> "list[int]":
     \"\"\"The FIFO words of one update of `code`.\"\"\"
     if COMMAND == "fast":
         data = [(POWER_DOWN << 4) | (code >> 8), code & 0xFF]
@@ -275,8 +275,8 @@ def _update(code: int) -> list:
     return out
 
 
-def _code_of(w: list) -> int:
-    b = [(~x >> 24) & 0xFF for x in w]
+def _code_of(w: "list[int]") -> int:
+    b = [int(~x >> 24) & 0xFF for x in w]
     if COMMAND == "fast":
         return ((b[1] & 0x0F) << 8) | b[2]
     return (b[2] << 4) | (b[3] >> 4)

@@ -168,6 +168,13 @@ import array
 import rp2
 from machine import Pin, freq, mem32
 
+try:
+    from typing import TYPE_CHECKING
+except ImportError:
+    TYPE_CHECKING = False  # type: ignore[misc]  # MicroPython has no typing module
+if TYPE_CHECKING:
+    from typing import Iterator
+
 NAME = {name!r}
 LEVELS = {levels}  # compare values 0..TOP+1
 SAMPLE_COUNT = {samples}
@@ -247,22 +254,24 @@ class Player:
         mem32[_SLICE + 0x10] = TOP
         mem32[_SLICE + 0x0C] = IDLE_CODE | (IDLE_CODE << 16)
         mem32[_SLICE + 0x08] = 0
-        Pin(PIN, Pin.ALT, alt=Pin.ALT_PWM)  # type: ignore[attr-defined]
+        Pin(PIN, Pin.ALT, alt=Pin.ALT_PWM)
         if STEREO:
-            Pin(PIN + 1, Pin.ALT, alt=Pin.ALT_PWM)  # type: ignore[attr-defined]
+            Pin(PIN + 1, Pin.ALT, alt=Pin.ALT_PWM)
         mem32[_SLICE] = 1
         if TIMER_X:
             mem32[_TIMER0] = (TIMER_X << 16) | TIMER_Y
         self.dma = (rp2.DMA(), rp2.DMA())
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
+        self.holds = [None, None]  # type: list[array.array[int] | None]
         self.running = False
 
-    def _ctrl(self, k: int, chain: bool):
-        other = self.dma[1 - k].channel if chain else self.dma[k].channel
+    def _ctrl(self, k: int, chain: bool) -> int:
+        # DMA.channel: MicroPython's attribute, missing from the stubs
+        other = (self.dma[1 - k] if chain else self.dma[k]).channel  # type: ignore[attr-defined]
         return self.dma[k].pack_ctrl(size=_SIZE, inc_read=True, inc_write=False,
                                      treq_sel=DREQ, chain_to=other)
 
-    def _arm(self, k: int, buf, count: int, chain: bool, now: bool) -> None:
+    def _arm(self, k: int, buf: "array.array[int]", count: int, chain: bool, now: bool) -> None:
         self.dma[k].config(read=buf, write=_SLICE + 0x0C, count=count,
                            ctrl=self._ctrl(k, chain), trigger=now)
 
@@ -285,12 +294,12 @@ class Player:
         self._arm(0, r, len(r), False, True)
         self._wait()
 
-    def _free(self, buf) -> None:
+    def _free(self, buf: "array.array[int]") -> None:
         # wait until no running channel reads `buf`
         while any(self.dma[j].active() and self.holds[j] is buf for j in (0, 1)):
             pass
 
-    def _parts(self, loop: bool):
+    def _parts(self, loop: bool) -> "Iterator[tuple[array.array[int], int, bool]]":
         \"\"\"(buffer, transfers, last) in playing order: intro, the stream (once, or until
         stop() for a loop), outro, a closing idle value; file chunks are read as they are
         needed, into a buffer no channel is reading.\"\"\"

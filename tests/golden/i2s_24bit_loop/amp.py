@@ -49,7 +49,7 @@ _PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
 
 @rp2.asm_pio(
     out_init=rp2.PIO.OUT_LOW,
-    sideset_init=(rp2.PIO.OUT_LOW, rp2.PIO.OUT_LOW),
+    sideset_init=[rp2.PIO.OUT_LOW, rp2.PIO.OUT_LOW],
     out_shiftdir=rp2.PIO.SHIFT_LEFT,
     autopull=True,
     pull_thresh=32,
@@ -121,6 +121,7 @@ class Player:
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
         self.sent = 0  # words handed to the DMA before the current transfer
+        self.cur_n = 0  # words of the current transfer
 
     def _send(self, buf: "array.array[int]", count: int) -> None:
         while self.dma.active():
