@@ -409,3 +409,38 @@ def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
     assert_on_ticks(tx[:n], b.period)
     assert_on_ticks(tx[n:], b.period)
     assert tx[n][0] - tx[n - 1][0] >= b.period
+
+
+def test_micropython_loop_runs_until_ctrl_c_and_ends_on_its_outro(tmp_path: Path) -> None:
+    asset = stream_tone(
+        "sine",
+        name="wave",
+        output="i2c-dac",
+        out_base=SDA,
+        clock_pin=SCL,
+        rate_hz=4000.0,
+        freq_hz=500.0,
+        seconds=0.004,
+        ramp_ms=1.0,
+        loop=True,
+    )
+    files = bundle_files(asset, embed_words_max=100_000)
+    for fname, data in files.items():
+        (tmp_path / fname).write_bytes(data)
+    b = Bundle(tmp_path, "wave")
+    one_pass = len(b.updates) * b.period
+    steps = [
+        {"code": "import wave\np = wave.Player()\n"},
+        {"code": "p.play(loop=True)\n", "interrupt_after": int(8.5 * one_pass)},
+    ]
+    r = run_micropython({"wave.py": files["wave.py"]}, steps, tmp_path, i2c=BUS)
+    assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
+    tx = decode(r.wire)
+    assert_on_ticks(tx, b.period)  # intro, passes and outro back to back
+    got = [t[1] for t in tx]
+    k = len(b.intro)
+    assert k and got[:k] == b.intro  # the ramp up from idle
+    assert got[len(got) - len(b.outro) :] == b.outro  # and down again, after a whole pass
+    body = got[k : len(got) - len(b.outro)]
+    passes, rest = divmod(len(body), len(b.updates))
+    assert rest == 0 and passes >= 2 and body == b.updates * passes
