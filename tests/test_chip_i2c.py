@@ -444,3 +444,28 @@ def test_micropython_loop_runs_until_ctrl_c_and_ends_on_its_outro(tmp_path: Path
     body = got[k : len(got) - len(b.outro)]
     passes, rest = divmod(len(body), len(b.updates))
     assert rest == 0 and passes >= 2 and body == b.updates * passes
+
+
+def test_a_system_clock_from_the_pll_makes_8k_updates_exact(fw: Firmware, tmp_path: Path) -> None:
+    # At 125 MHz 8 kHz fast writes are +64 ppm off (divider 84, 186 cycles); 124.8 MHz =
+    # 12 MHz x 104 / 5 / 2 (clock --find-sys-clock --output i2c-dac) makes them exact:
+    # 15600 system clocks an update.
+    from ladderpack.clock import pll_settings
+
+    assert 124_800_000 in pll_settings(124_000_000, 125_000_000)
+    b = make(tmp_path, "exact8k", sys_clock_hz=124_800_000, seconds=0.005)
+    assert b.period == 15_600
+    header = (tmp_path / "exact8k.h").read_text()
+    assert "#define EXACT8K_SET_SYS_CLOCK() set_sys_clock_pll(" in header
+    source = c_app("exact8k", [("init", 0), ("start", 0), ("wait", 0)])
+    source = source.replace(
+        '#include "pico/stdlib.h"', '#include "pico/stdlib.h"\n#include "hardware/clocks.h"'
+    )
+    source = source.replace("    int rc;\n", "    int rc;\n    EXACT8K_SET_SYS_CLOCK();\n", 1)
+    image = fw.make(tmp_path, [], [], app=source)
+    r = run(image, fw.mailbox(), extra={"i2c": BUS, "sys_clock_hz": 124_800_000})
+    # the player accepts the clock (clock_get_hz(clk_sys) is the planned one)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    tx = decode(r.wire)
+    assert [t[1] for t in tx] == b.updates
+    assert_on_ticks(tx, 15_600)
