@@ -15,10 +15,9 @@ import numpy as np
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
-from ladderpack.emit.micropython import _literal, set_clock_text
+from ladderpack.emit.micropython import _literal, mp_program_body, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2c_dac import I2cDacLayout
-from ladderpack.pio import Instruction, Program
 
 __all__ = [
     "render_header",
@@ -488,41 +487,6 @@ def play(sm_id: int = 0, loop: bool = LOOP) -> None:
 """
 
 
-def _mp_program(program: Program) -> list[str]:
-    """The program in MicroPython's rp2.asm_pio notation, with labels at jump targets."""
-    targets = {int(str(i.args[1])) for i in program.instructions if i.op == "jmp"}
-    body = []
-    for addr, ins in enumerate(program.instructions):
-        if addr == program.wrap_target:
-            body.append("    wrap_target()")
-        if addr in targets:
-            body.append(f'    label("a{addr}")')
-        body.append(f"    {_mp_instruction(ins)}")
-        if addr == program.wrap:
-            body.append("    wrap()")
-    return body
-
-
-def _mp_instruction(ins: Instruction) -> str:
-    a = ins.args
-    if ins.op == "pull":
-        text = "pull()"  # blocking
-    elif ins.op in ("out", "set", "mov"):
-        text = f"{ins.op}({a[0]}, {a[1]})"
-    elif ins.op == "nop":
-        text = "nop()"
-    elif ins.op == "irq":
-        text = "irq(rel(0))"
-    elif ins.op == "jmp":
-        cond = {"": "", "x--": "x_dec, ", "!x": "not_x, ", "pin": "pin, "}[str(a[0])]
-        text = f'jmp({cond}"a{a[1]}")'
-    else:
-        raise ValueError(f"the I2C DAC emitter cannot express {ins.text()!r}")
-    if ins.side is not None:
-        text += f".side({ins.side})"
-    return text + (f"[{ins.delay}]" if ins.delay else "")
-
-
 def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
     """Return the MicroPython module of an I2C DAC stream.
 
@@ -563,6 +527,6 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         words_literal=words_literal,
         intro=_literal(asset.intro),
         outro=_literal(asset.outro),
-        body="\n".join(_mp_program(asset.pio_program)),
+        body="\n".join(mp_program_body(asset.pio_program)),
     )
     return text + set_clock_text(asset)

@@ -8,10 +8,9 @@ from __future__ import annotations
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.micropython import _literal, set_clock_text
+from ladderpack.emit.micropython import _literal, mp_program_body, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2s import I2sLayout, i2s_entry
-from ladderpack.pio import Instruction, Program
 
 __all__ = ["render"]
 
@@ -260,39 +259,6 @@ def play(sm_id: int = 0, loop: bool = LOOP) -> None:
 """
 
 
-def _mp_program(program: Program) -> list[str]:
-    """The program in MicroPython's rp2.asm_pio notation, with labels at jump targets."""
-    targets = {int(str(i.args[1])) for i in program.instructions if i.op == "jmp"}
-    body = []
-    for addr, ins in enumerate(program.instructions):
-        if addr == program.wrap_target:
-            body.append("    wrap_target()")
-        if addr in targets:
-            body.append(f'    label("a{addr}")')
-        body.append(f"    {_mp_instruction(ins)}")
-        if addr == program.wrap:
-            body.append("    wrap()")
-    return body
-
-
-def _mp_instruction(ins: Instruction) -> str:
-    a = ins.args
-    if ins.op == "out":
-        text = f"out({a[0]}, {a[1]})"
-    elif ins.op == "mov":
-        text = f"mov({a[0]}, {a[1]})"
-    elif ins.op == "set":
-        text = f"set({a[0]}, {a[1]})"
-    elif ins.op == "jmp":
-        cond = {"x--": "x_dec", "y--": "y_dec"}[str(a[0])]
-        text = f'jmp({cond}, "a{a[1]}")'
-    else:
-        raise ValueError(f"the I2S emitter cannot express {ins.text()!r}")
-    if ins.side is not None:
-        text += f".side({ins.side})"
-    return text + (f"[{ins.delay}]" if ins.delay else "")
-
-
 def render(asset: StreamAsset, *, embed: bool = False) -> str:
     """Return the MicroPython module of an I2S stream.
 
@@ -332,7 +298,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
             chunk_words=int(asset.options.get("chunk_words", 1024)),
             words_literal=words_literal,
             outro=_literal(asset.outro),
-            body="\n".join(_mp_program(asset.pio_program)),
+            body="\n".join(mp_program_body(asset.pio_program)),
         ),
         asset,
     )

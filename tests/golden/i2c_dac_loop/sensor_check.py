@@ -66,7 +66,7 @@ _PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
 )
 def i2c_program() -> None:
     wrap_target()
-    pull().side(0)
+    pull(block).side(0)
     set(pindirs, 1).side(0)[1]
     label("a2")
     set(x, 7).side(1)
@@ -88,7 +88,7 @@ def i2c_program() -> None:
     jmp(x_dec, "a15").side(0)
     wrap()
     label("a16")
-    pull().side(1)
+    pull(block).side(1)
     jmp("a2").side(1)
     label("a18")
     irq(rel(0)).side(0)
