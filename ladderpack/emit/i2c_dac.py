@@ -15,7 +15,12 @@ import numpy as np
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
-from ladderpack.emit.micropython import _literal, mp_program_body, set_clock_text
+from ladderpack.emit.micropython import (
+    _literal,
+    feed_methods,
+    mp_program_body,
+    set_clock_text,
+)
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2c_dac import I2cDacLayout
 
@@ -443,34 +448,7 @@ class Player:
         finally:
             self.running = False
 
-    def _play_words(self, words: "array.array[int]", loop: bool) -> None:
-        self._send(words, WORD_COUNT)
-        self._go()
-        while loop and self.running:
-            self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
-            self.sent = 0
-
-    def _play_file(self, loop: bool) -> None:
-        with open(self.path, "rb") as f:
-            which = 0
-            n = f.readinto(self.bufs[0]) // 4  # read before the machine runs
-            self._send(self.bufs[0], n)
-            self._go()
-            while True:
-                which ^= 1
-                buf = self.bufs[which]
-                n = f.readinto(buf) // 4  # read the next chunk while this one plays
-                if n == 0:
-                    if not (loop and self.running):
-                        break
-                    f.seek(0)  # a loop ends only on a pass boundary
-                    n = f.readinto(buf) // 4
-                    self.sent = -self.cur_n
-                if not self.running and not LOOP:
-                    self._ramp_down()  # a stream stops at once, ramping down
-                    return
-                self._send(buf, n)
-
+{feed}
     def close(self) -> None:
         \"\"\"Release the DMA channel and the state machine (the lines stay released).\"\"\"
         self.dma.close()
@@ -528,5 +506,6 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         intro=_literal(asset.intro),
         outro=_literal(asset.outro),
         body="\n".join(mp_program_body(asset.pio_program)),
+        feed=feed_methods("self._ramp_down()  # a stream stops at once, ramping down"),
     )
     return text + set_clock_text(asset)
