@@ -342,30 +342,37 @@ def test_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> N
     assert image.stat().st_size > 0
 
 
-def test_micropython_writes_every_update(tmp_path: Path) -> None:
+def board(
+    folder: Path, kind: str, name: str, *, embed: bool, **opts: object
+) -> tuple[dict[str, bytes], Bundle]:
+    """A MicroPython board's files for a 4 kHz stream (the module, and the .bin unless
+    embedded), and what the bundle says should come out."""
     asset = stream_tone(
-        "sine",
-        name="hum",
+        kind,
+        name=name,
         output="i2c-dac",
         out_base=SDA,
         clock_pin=SCL,
         rate_hz=4000.0,
-        freq_hz=250.0,
-        seconds=0.02,
-        ramp_ms=2.0,
-        chunk_words=64,
+        **opts,
     )
-    files = bundle_files(asset, embed_words_max=0)
+    files = bundle_files(asset, embed_words_max=100_000 if embed else 0)
     for fname, data in files.items():
-        (tmp_path / fname).write_bytes(data)
-    b = Bundle(tmp_path, "hum")
+        (folder / fname).write_bytes(data)
+    keep = [f"{name}.py"] + ([] if embed else [f"{name}.bin"])
+    return {k: files[k] for k in keep}, Bundle(folder, name)
+
+
+def test_micropython_writes_every_update(tmp_path: Path) -> None:
+    files, b = board(
+        tmp_path, "sine", "hum", embed=False, freq_hz=250.0, seconds=0.02, ramp_ms=2.0,
+        chunk_words=64,
+    )  # fmt: skip
     steps = [
         {"code": "import hum\np = hum.Player()\np.play()\nprint('nack', p.nack_seen())\n"},
         {"code": "p.write_code(3000)\nprint('nack', p.nack_seen())\n"},
     ]
-    r = run_micropython(
-        {"hum.py": files["hum.py"], "hum.bin": files["hum.bin"]}, steps, tmp_path, i2c=BUS
-    )
+    r = run_micropython(files, steps, tmp_path, i2c=BUS)
     assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
     assert r.output().count("nack False") == 2, r.output()[-500:]
     tx = decode(r.wire)
@@ -375,26 +382,12 @@ def test_micropython_writes_every_update(tmp_path: Path) -> None:
 
 
 def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
-    asset = stream_tone(
-        "dc",
-        name="hold",
-        output="i2c-dac",
-        out_base=SDA,
-        clock_pin=SCL,
-        rate_hz=4000.0,
-        dc_value=0.8,
-        seconds=0.1,
-        ramp_ms=0.0,
-    )
-    files = bundle_files(asset, embed_words_max=100_000)
-    for fname, data in files.items():
-        (tmp_path / fname).write_bytes(data)
-    b = Bundle(tmp_path, "hold")
+    files, b = board(tmp_path, "dc", "hold", embed=True, dc_value=0.8, seconds=0.1, ramp_ms=0.0)
     steps = [
         {"code": "import hold\np = hold.Player()\n"},
         {"code": "p.play()\n", "interrupt_after": 5_000_000},  # 40 ms in
     ]
-    r = run_micropython({"hold.py": files["hold.py"]}, steps, tmp_path, i2c=BUS)
+    r = run_micropython(files, steps, tmp_path, i2c=BUS)
     assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
     tx = decode(r.wire)
     codes = [code_of(t[1]) for t in tx]
@@ -412,28 +405,16 @@ def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
 
 
 def test_micropython_loop_runs_until_ctrl_c_and_ends_on_its_outro(tmp_path: Path) -> None:
-    asset = stream_tone(
-        "sine",
-        name="wave",
-        output="i2c-dac",
-        out_base=SDA,
-        clock_pin=SCL,
-        rate_hz=4000.0,
-        freq_hz=500.0,
-        seconds=0.004,
-        ramp_ms=1.0,
+    files, b = board(
+        tmp_path, "sine", "wave", embed=True, freq_hz=500.0, seconds=0.004, ramp_ms=1.0,
         loop=True,
-    )
-    files = bundle_files(asset, embed_words_max=100_000)
-    for fname, data in files.items():
-        (tmp_path / fname).write_bytes(data)
-    b = Bundle(tmp_path, "wave")
+    )  # fmt: skip
     one_pass = len(b.updates) * b.period
     steps = [
         {"code": "import wave\np = wave.Player()\n"},
         {"code": "p.play(loop=True)\n", "interrupt_after": int(8.5 * one_pass)},
     ]
-    r = run_micropython({"wave.py": files["wave.py"]}, steps, tmp_path, i2c=BUS)
+    r = run_micropython(files, steps, tmp_path, i2c=BUS)
     assert r.ended and "KeyboardInterrupt" in r.output(), r.output()[-2000:]
     tx = decode(r.wire)
     assert_on_ticks(tx, b.period)  # intro, passes and outro back to back
