@@ -236,6 +236,11 @@ def test_stream_refuses_a_rate_the_bus_cannot_carry() -> None:
     assert e.value.field == "rate_hz" and "12266" in e.value.message
     a = stream_tone("sine", output="i2c-dac", rate_hz=13_000, bus_hz=1_000_000, seconds=0.01)
     assert a.summary()["i2c_dac"]["max_rate_hz"] == pytest.approx(125e6 / (32 * 129), abs=1e-3)
+    # 8 kHz at 125 MHz is +64 ppm (divider 84, 186 cycles): over a 10 ppm tolerance the
+    # summary points to the clock search
+    a = stream_tone("sine", output="i2c-dac", rate_hz=8000, seconds=0.01, rate_tolerance_ppm=10)
+    assert any("--find-sys-clock" in w for w in a.summary()["warnings"])
+    assert a.summary()["rate_error_ppm"] == pytest.approx(64.004, abs=1e-3)
 
 
 def test_staircase_codes_come_out_exact_and_on_whole_cycles() -> None:
