@@ -234,6 +234,7 @@ function pwmDiv(ch, st) {
   return whole;
 }
 const timerAcc = [0, 0, 0, 0];
+const TIMER_KEYS = ['timer0', 'timer1', 'timer2', 'timer3'];
 function tickPWM() {
   const chans = mcu.pwm.channels;
   for (let i = 0; i < chans.length; i++) {
@@ -263,8 +264,10 @@ function tickPWM() {
       st.ctr++;
     }
   }
+  const dma = mcu.dma;
+  if ((dma.timer0 | dma.timer1 | dma.timer2 | dma.timer3) === 0) return;
   for (let t = 0; t < 4; t++) {
-    const reg = mcu.dma[`timer${t}`] >>> 0;
+    const reg = dma[TIMER_KEYS[t]] >>> 0;
     const x = reg >>> 16;
     const y = reg & 0xffff;
     if (!x || !y) continue;
