@@ -214,8 +214,9 @@ def test_c_player_loop_and_rp2350_build(
     assert fw2350.make(tmp_path, [], [], app=app("drone", ops)).stat().st_size > 0
 
 
-# two rates, file and embedded (every rate here is paced by a DMA timer, K = 4)
-@pytest.mark.parametrize(("rate_hz", "embed"), [(22050.0, False), (16000.0, True)])
+@pytest.mark.parametrize(
+    ("rate_hz", "embed"), [(22050.0, False), (11025.0, False), (16000.0, True)]
+)
 def test_micropython_every_period_holds_its_sample(
     tmp_path: Path, rate_hz: float, embed: bool
 ) -> None:
