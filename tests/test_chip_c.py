@@ -296,9 +296,8 @@ def test_hold_code_puts_a_dc_level_on_the_pins(fw: Firmware, tmp_path: Path) -> 
     assert codes[-s.codes.size :].tolist() == s.codes.tolist()
 
 
-def test_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory, tmp_path: Path) -> None:
+def test_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
     # Compile only: the emulator is an RP2040. The same warnings, the RP2350's SDK.
-    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350"), platform="rp2350")
     streams = [
         make(tmp_path, "p2", target="rp2350", loop=True, cycles=3),
         make(tmp_path, "p3", target="rp2350", bits=12),

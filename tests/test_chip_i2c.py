@@ -334,11 +334,10 @@ def test_player_reports_a_missing_acknowledge(fw: Firmware, tmp_path: Path) -> N
     assert all(a == [1] * len(b) for _s, b, a in decode(r.wire))
 
 
-def test_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> None:
-    folder = tmp_path_factory.mktemp("i2c_2350")
-    make(folder, "level", target="rp2350b", out_base=34, clock_pin=35)
-    fw2 = Firmware(tmp_path_factory.mktemp("fw_i2c_2350"), platform="rp2350")
-    image = fw2.make(folder, [], [], app=c_app("level", [("init", 0), ("start", 0), ("wait", 0)]))
+def test_player_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
+    make(tmp_path, "level", target="rp2350b", out_base=34, clock_pin=35)
+    ops = [("init", 0), ("start", 0), ("wait", 0)]
+    image = fw2350.make(tmp_path, [], [], app=c_app("level", ops))
     assert image.stat().st_size > 0
 
 

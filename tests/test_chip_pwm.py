@@ -188,9 +188,7 @@ def test_c_player_stop_ramps_to_idle(fw: Firmware, tmp_path: Path) -> None:
     assert np.abs(np.diff(played)).max() <= step
 
 
-def test_c_player_loop_and_rp2350_build(
-    fw: Firmware, tmp_path: Path, tmp_path_factory: pytest.TempPathFactory
-) -> None:
+def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path: Path) -> None:
     exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0)
     per_pass = exp.codes.size * exp.period_clocks * exp.periods_per_sample
     ops = [("init", 0), ("start", 1), ("delay", int(2.5 * per_pass)), ("stop", 0)]
@@ -210,7 +208,6 @@ def test_c_player_loop_and_rp2350_build(
     assert np.array_equal(values[start : start + outro.size], outro)
     assert np.all(values[start + outro.size :] == exp.idle)
     # the same bundle builds for the RP2350 with its SDK platform
-    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_pwm"), platform="rp2350")
     assert fw2350.make(tmp_path, [], [], app=app("drone", ops)).stat().st_size > 0
 
 

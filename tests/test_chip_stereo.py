@@ -176,11 +176,9 @@ def test_micropython_plays_both_ladders(tmp_path: Path) -> None:
     assert np.array_equal(left[:n], two.left) and np.array_equal(right[:n], two.right)
 
 
-def test_stereo_player_builds_for_rp2350(tmp_path_factory: pytest.TempPathFactory) -> None:
-    folder = tmp_path_factory.mktemp("stereo2350")
-    make(folder, "duet", bits=12, out_base=2, target="rp2350", loop=True)
-    fw2350 = Firmware(tmp_path_factory.mktemp("fw2350_stereo"), platform="rp2350")
-    image = fw2350.make(folder, [], [], app=app("duet", [("init", 0), ("start", 1)]))
+def test_stereo_player_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
+    make(tmp_path, "duet", bits=12, out_base=2, target="rp2350", loop=True)
+    image = fw2350.make(tmp_path, [], [], app=app("duet", [("init", 0), ("start", 1)]))
     assert image.stat().st_size > 0
 
 
