@@ -713,3 +713,96 @@ def render_source() -> str:
         .replace("{table}", _cosine_table())
         .replace("{abort_all}", abort_all("lp"))
     )
+
+
+def _prefixed(text: str, prefix: str) -> str:
+    """C text written for ``lp_x`` with the player's prefix (and its upper case)."""
+    return text.replace("lp_x", prefix).replace("LP_X", prefix.upper())
+
+
+_FIFO_FEED = """\
+static void lp_x_feed(lp_x_player_t *p, int ch, const uint32_t *words, uint32_t count,
+                        int chain, bool now) {
+    dma_channel_config c = dma_channel_get_default_config((uint)ch);
+    channel_config_set_transfer_data_size(&c, DMA_SIZE_32);
+    channel_config_set_read_increment(&c, true);
+    channel_config_set_write_increment(&c, false);
+    channel_config_set_dreq(&c, pio_get_dreq(p->pio, p->sm, true));
+    channel_config_set_chain_to(&c, (uint)chain);
+    dma_channel_configure((uint)ch, &c, &p->pio->txf[p->sm], words, count, now);
+}
+"""
+
+_FIFO_BUSY = """\
+bool lp_x_busy(lp_x_player_t *p) {
+    uint32_t mask;
+    uint ch;
+
+    if (p->stream == NULL || p->state == LP_X_IDLE) {
+        return false;
+    }
+    mask = lp_x_channel_mask(p);
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
+            return true;
+        }
+    }
+    if (!pio_sm_is_tx_fifo_empty(p->pio, p->sm)) {
+        return true;
+    }
+{stall_comment}
+    if (!(p->pio->fdebug & (1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm)))) {
+        return true;
+    }
+    p->state = LP_X_IDLE;
+    return false;
+}
+"""
+
+_STOP_DEINIT = """\
+int lp_x_stop(lp_x_player_t *p) {
+    int rc = lp_x_request_stop(p);
+    while (rc == LP_X_OK && lp_x_busy(p)) {
+        tight_loop_contents();
+    }
+    return rc;
+}
+
+void lp_x_deinit(lp_x_player_t *p) {
+    if (p->stream == NULL) {
+        return;
+    }
+    lp_x_stop(p);
+    lp_x_abort_all(p);
+    pio_sm_set_enabled(p->pio, p->sm, false);
+    lp_x_release(p);
+    pio_remove_program(p->pio, &p->program, p->offset);
+    pio_sm_unclaim(p->pio, p->sm);
+    p->stream = NULL;
+}
+"""
+
+
+def fifo_feed(prefix: str) -> str:
+    """C text of ``<prefix>_feed``: a DMA channel into the state machine's TX FIFO.
+
+    Paced by the FIFO's request; the I2S and I2C players use it.
+    """
+    return _prefixed(_FIFO_FEED, prefix)
+
+
+def fifo_busy(prefix: str, stall_comment: str) -> str:
+    """C text of ``<prefix>_busy``.
+
+    Playing while a channel runs, the FIFO holds words or the state machine has not yet
+    stalled on the empty FIFO (TXSTALL); `stall_comment` says why that marks the end.
+    """
+    return _prefixed(_FIFO_BUSY, prefix).replace("{stall_comment}", stall_comment)
+
+
+def stop_and_deinit(prefix: str) -> str:
+    """C text of the blocking ``<prefix>_stop`` and of ``<prefix>_deinit``.
+
+    The deinit stops, aborts, and releases the channels, the program and the state machine.
+    """
+    return _prefixed(_STOP_DEINIT, prefix)

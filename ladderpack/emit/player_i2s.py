@@ -8,7 +8,13 @@ The two files are the same for every I2S asset (``ladderpack_i2s.h`` and
 from __future__ import annotations
 
 from ladderpack._version import __version__
-from ladderpack.emit.player_c import _cosine_table, abort_all
+from ladderpack.emit.player_c import (
+    _cosine_table,
+    abort_all,
+    fifo_busy,
+    fifo_feed,
+    stop_and_deinit,
+)
 
 __all__ = ["HEADER_NAME", "SOURCE_NAME", "render_header", "render_source"]
 
@@ -185,17 +191,7 @@ static __noinline uint32_t lp_i2s_build_fade(lp_i2s_player_t *p, uint32_t frame,
     return n;
 }
 
-static void lp_i2s_feed(lp_i2s_player_t *p, int ch, const uint32_t *words, uint32_t count,
-                        int chain, bool now) {
-    dma_channel_config c = dma_channel_get_default_config((uint)ch);
-    channel_config_set_transfer_data_size(&c, DMA_SIZE_32);
-    channel_config_set_read_increment(&c, true);
-    channel_config_set_write_increment(&c, false);
-    channel_config_set_dreq(&c, pio_get_dreq(p->pio, p->sm, true));
-    channel_config_set_chain_to(&c, (uint)chain);
-    dma_channel_configure((uint)ch, &c, &p->pio->txf[p->sm], words, count, now);
-}
-
+{feed}
 static uint32_t lp_i2s_channel_mask(const lp_i2s_player_t *p) {
     uint32_t m = 0u;
     if (p->data_ch >= 0) m |= 1u << (uint)p->data_ch;
@@ -329,30 +325,7 @@ int lp_i2s_start(lp_i2s_player_t *p, bool loop) {
     return LP_I2S_OK;
 }
 
-bool lp_i2s_busy(lp_i2s_player_t *p) {
-    uint32_t mask;
-    uint ch;
-
-    if (p->stream == NULL || p->state == LP_I2S_IDLE) {
-        return false;
-    }
-    mask = lp_i2s_channel_mask(p);
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
-            return true;
-        }
-    }
-    if (!pio_sm_is_tx_fifo_empty(p->pio, p->sm)) {
-        return true;
-    }
-    /* Autopull stalls on the empty FIFO once the last word has left the shift register. */
-    if (!(p->pio->fdebug & (1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm)))) {
-        return true;
-    }
-    p->state = LP_I2S_IDLE;
-    return false;
-}
-
+{busy}
 int lp_i2s_request_stop(lp_i2s_player_t *p) {
     const lp_i2s_stream_t *s = p->stream;
     uint32_t sent;
@@ -386,27 +359,7 @@ int lp_i2s_request_stop(lp_i2s_player_t *p) {
     return LP_I2S_OK;
 }
 
-int lp_i2s_stop(lp_i2s_player_t *p) {
-    int rc = lp_i2s_request_stop(p);
-    while (rc == LP_I2S_OK && lp_i2s_busy(p)) {
-        tight_loop_contents();
-    }
-    return rc;
-}
-
-void lp_i2s_deinit(lp_i2s_player_t *p) {
-    if (p->stream == NULL) {
-        return;
-    }
-    lp_i2s_stop(p);
-    lp_i2s_abort_all(p);
-    pio_sm_set_enabled(p->pio, p->sm, false);
-    lp_i2s_release(p);
-    pio_remove_program(p->pio, &p->program, p->offset);
-    pio_sm_unclaim(p->pio, p->sm);
-    p->stream = NULL;
-}
-
+{stop_deinit}
 const char *lp_i2s_strerror(int result) {
     switch (result) {
     case LP_I2S_OK: return "ok";
@@ -425,6 +378,11 @@ const char *lp_i2s_strerror(int result) {
 """
 
 
+#: Why TXSTALL marks the end of a playback, for `lp_i2s_busy`.
+_STALL_COMMENT = """\
+    /* Autopull stalls on the empty FIFO once the last word has left the shift register. */"""
+
+
 def render_header() -> str:
     """Return ``ladderpack_i2s.h``."""
     return _HEADER.format(version=__version__)
@@ -436,4 +394,7 @@ def render_source() -> str:
         _SOURCE.replace("{version}", __version__)
         .replace("{table}", _cosine_table())
         .replace("{abort_all}", abort_all("lp_i2s"))
+        .replace("{feed}", fifo_feed("lp_i2s"))
+        .replace("{busy}", fifo_busy("lp_i2s", _STALL_COMMENT))
+        .replace("{stop_deinit}", stop_and_deinit("lp_i2s"))
     )

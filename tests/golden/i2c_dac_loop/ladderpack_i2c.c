@@ -327,6 +327,19 @@ int lp_i2c_stop(lp_i2c_player_t *p) {
     return rc;
 }
 
+void lp_i2c_deinit(lp_i2c_player_t *p) {
+    if (p->stream == NULL) {
+        return;
+    }
+    lp_i2c_stop(p);
+    lp_i2c_abort_all(p);
+    pio_sm_set_enabled(p->pio, p->sm, false);
+    lp_i2c_release(p);
+    pio_remove_program(p->pio, &p->program, p->offset);
+    pio_sm_unclaim(p->pio, p->sm);
+    p->stream = NULL;
+}
+
 int lp_i2c_write_code(lp_i2c_player_t *p, uint16_t code) {
     uint32_t words[4];
     uint32_t n;
@@ -356,19 +369,6 @@ int lp_i2c_write_code(lp_i2c_player_t *p, uint16_t code) {
 
 bool lp_i2c_nack_seen(lp_i2c_player_t *p) {
     return p->stream != NULL && pio_interrupt_get(p->pio, p->sm);
-}
-
-void lp_i2c_deinit(lp_i2c_player_t *p) {
-    if (p->stream == NULL) {
-        return;
-    }
-    lp_i2c_stop(p);
-    lp_i2c_abort_all(p);
-    pio_sm_set_enabled(p->pio, p->sm, false);
-    lp_i2c_release(p);
-    pio_remove_program(p->pio, &p->program, p->offset);
-    pio_sm_unclaim(p->pio, p->sm);
-    p->stream = NULL;
 }
 
 const char *lp_i2c_strerror(int result) {
