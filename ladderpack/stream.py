@@ -364,7 +364,7 @@ def plan_stream(
         )
         layout = I2cDacLayout(fmt)
         clock = writer.clock
-        spw, variant = 1, "i2c-dac"
+        spw = 1
         per_word = Fraction(1, layout.words_per_update)
     elif opts.output == "pwm":
         pwm_plan = plan_pwm(
@@ -388,7 +388,6 @@ def plan_stream(
             )
         setup = PwmSetup(pwm_plan, opts.out_base, stereo=opts.stereo, chip=opts.target[:6])
         clock = pwm_plan
-        variant = f"pwm-{pwm_plan.pacing}"
         if opts.stereo:  # one word a frame: A in bits 15:0, B in 31:16
             layout = PwmStereoLayout()
             spw = per_word = 1
@@ -399,7 +398,7 @@ def plan_stream(
             spw = per_word = 2
     elif opts.output == "i2s":
         layout = I2sLayout(opts.bits, stereo=opts.stereo)
-        spw, variant = 1, f"i2s-{opts.frame_format}"
+        spw = 1
         clock = plan_i2s(
             opts.rate_hz,
             sys_clock_hz=int(opts.sys_clock_hz or 0),
