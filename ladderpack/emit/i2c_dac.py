@@ -14,7 +14,15 @@ import numpy as np
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
+from ladderpack.emit.c import (
+    _array_lines,
+    _banner,
+    _count,
+    chunked,
+    header_frame,
+    init_macro,
+    pll_lines,
+)
 from ladderpack.emit.micropython import (
     _literal,
     feed_methods,
@@ -41,10 +49,6 @@ def _layout(asset: StreamAsset) -> I2cDacLayout:
 
 def _i2c(asset: StreamAsset) -> dict[str, Any]:
     return dict(asset.stats["i2c_dac"])
-
-
-def _count(words: Any) -> int:
-    return 0 if words is None else int(words.words.size)
 
 
 def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
