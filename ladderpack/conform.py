@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 
+from ladderpack import portable
 from ladderpack.audio import Signal, check_signal
 from ladderpack.errors import OptionError
 
@@ -70,7 +71,7 @@ class ResamplerSpec:
 
 def dbfs_to_amplitude(dbfs: float) -> float:
     """Convert a level in dBFS to a linear peak amplitude (0 dBFS = 1.0)."""
-    return 10.0 ** (dbfs / 20.0)
+    return portable.db_to_amplitude(dbfs)
 
 
 def resampler_spec(rate_in_hz: float, rate_out_hz: float, bits: int) -> ResamplerSpec:
@@ -275,7 +276,7 @@ def loop_crossfade(sig: Signal, *, crossfade_ms: float) -> Signal:
         return sig
     x = np.array(sig.samples, dtype=np.float64)
     phase = (np.arange(k) + 0.5) / k * (np.pi / 2)
-    head = x[:k] * np.sin(phase) + x[-k:] * np.cos(phase)
+    head = x[:k] * portable.sin(phase) + x[-k:] * portable.cos(phase)
     return Signal(np.concatenate([head, x[k:-k]]), sig.rate_hz)
 
 
@@ -334,7 +335,7 @@ def raised_cosine(n: int) -> np.ndarray:
     """
     if n <= 0:
         return np.zeros(0)
-    return 0.5 - 0.5 * np.cos(np.pi * np.arange(n) / n)
+    return 0.5 - 0.5 * portable.cos(np.pi * np.arange(n) / n)
 
 
 def apply_fades(sig: Signal, *, fade_ms: float = 5.0) -> Signal:

@@ -191,6 +191,35 @@ def code_scale(levels: LevelSet) -> tuple[np.ndarray, float, float]:
     return lv, (lo + hi + 1) / 2, (hi - lo + 1) / 2
 
 
+def _least_squares(design: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Least-squares coefficients, the same bits on every machine.
+
+    The normal equations are summed with :func:`math.fsum` and solved by Gaussian
+    elimination with partial pivoting in plain floats (no BLAS or LAPACK kernel chosen
+    by CPU or thread count).
+    """
+    cols = design.T.tolist()
+    yl = y.tolist()
+    n = len(cols)
+    m = [
+        [math.fsum(a * b for a, b in zip(cols[i], cols[j], strict=True)) for j in range(n)]
+        + [math.fsum(a * b for a, b in zip(cols[i], yl, strict=True))]
+        for i in range(n)
+    ]
+    for c in range(n):
+        p = max(range(c, n), key=lambda r: abs(m[r][c]))
+        if m[p][c] == 0.0:
+            raise LadderpackError("the readings cannot determine every bit's weight", field="code")
+        m[c], m[p] = m[p], m[c]
+        for r in range(c + 1, n):
+            f = m[r][c] / m[c][c]
+            m[r] = [a - f * b for a, b in zip(m[r], m[c], strict=True)]
+    x = [0.0] * n
+    for r in reversed(range(n)):
+        x[r] = (m[r][n] - math.fsum(m[r][k] * x[k] for k in range(r + 1, n))) / m[r][r]
+    return np.array(x)
+
+
 def superpose(bits: int, zero_volts: float, bit_volts: np.ndarray) -> np.ndarray:
     """Every code's level from N + 1 readings, assuming superposition.
 
@@ -211,8 +240,11 @@ def superpose(bits: int, zero_volts: float, bit_volts: np.ndarray) -> np.ndarray
     """
     weights = np.asarray(bit_volts, dtype=np.float64) - zero_volts
     codes = np.arange(1 << bits)
-    bitmat = (codes[:, None] >> np.arange(bits)[None, :]) & 1
-    return zero_volts + bitmat @ weights
+    # bit by bit in a fixed order (no BLAS: the same bits on every machine)
+    acc = np.zeros(codes.size)
+    for k in range(bits):
+        acc = acc + ((codes >> k) & 1) * weights[k]
+    return zero_volts + acc
 
 
 _UNITS = {
@@ -398,9 +430,9 @@ def read_sweep_csv(
         design = np.column_stack(
             [np.ones(codes.size), (codes[:, None] >> np.arange(bits)[None, :]) & 1]
         )
-        coef, *_ = np.linalg.lstsq(design, np.array([means[c] for c in codes]), rcond=None)
+        coef = _least_squares(design, np.array([means[c] for c in codes]))
         miss = np.array(missing)
-        volts[miss] = coef[0] + ((miss[:, None] >> np.arange(bits)[None, :]) & 1) @ coef[1:]
+        volts[miss] = superpose(bits, coef[0], coef[0] + coef[1:])[miss]
         notes["codes_filled"] = len(missing)
     return LevelSet(bits, volts, "measured", notes)
 

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 
+from ladderpack import portable
 from ladderpack.audio import Signal
 from ladderpack.errors import OptionError
 
@@ -34,8 +35,8 @@ def k_weighting(rate_hz: float) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
     """The two K-weighting biquads ``((b, a), (b, a))`` for a sample rate."""
     f0, g, q = _SHELF
     k = math.tan(math.pi * f0 / rate_hz)
-    vh = 10 ** (g / 20)
-    vb = vh**0.4996667741545416
+    vh = portable.db_to_amplitude(g)
+    vb = float(portable.power(vh, 0.4996667741545416))
     a0 = 1 + k / q + k * k
     b_shelf = np.array(
         [(vh + vb * k / q + k * k) / a0, 2 * (k * k - vh) / a0, (vh - vb * k / q + k * k) / a0]
@@ -150,7 +151,7 @@ class LoudnessMeter:
         per_hop = hops.sum(axis=1)  # all channels weighted 1
         power = (per_hop[:-3] + per_hop[1:-2] + per_hop[2:-1] + per_hop[3:]) / (4 * self.hop)
         with np.errstate(divide="ignore"):
-            lk = -0.691 + 10 * np.log10(power)
+            lk = -0.691 + 10 * portable.log10(power)
         keep = lk > -70.0
         if not np.any(keep):
             return -math.inf
@@ -210,7 +211,7 @@ def normalise_loudness(
     m = LoudnessMeter(sig.rate_hz, sig.frames)
     m.feed(sig.samples)
     gain, report = loudness_gain(m, target_lufs=target_lufs, true_peak_dbtp=true_peak_dbtp)
-    return Signal(sig.samples * 10 ** (gain / 20), sig.rate_hz), gain, report
+    return Signal(sig.samples * portable.db_to_amplitude(gain), sig.rate_hz), gain, report
 
 
 def loudness_gain(

@@ -31,6 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ladderpack import portable
 from ladderpack.defaults import SHAPER_NAMES, WEIGHTING_NAMES
 from ladderpack.errors import OptionError
 
@@ -104,12 +105,51 @@ class Shaper:
         }
 
 
+def _poly_at(coeffs: np.ndarray, c: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Real and imaginary parts of ``sum_k coeffs[k] z^-k`` at ``z^-1 = c - i s``.
+
+    Horner's rule in real arithmetic, one IEEE operation per ufunc: the same bits on
+    every CPU.
+    """
+    pr = np.full_like(c, float(coeffs[-1]))
+    pi = np.zeros_like(c)
+    for coef in np.asarray(coeffs, dtype=np.float64)[-2::-1]:
+        pr, pi = pr * c + pi * s + float(coef), pi * c - pr * s
+    return pr, pi
+
+
 def _freqz(
     b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
 ) -> np.ndarray:
     """Frequency response of b(z)/a(z) at angular frequencies `omega` (rad/sample)."""
-    zinv = np.exp(-1j * np.asarray(omega))
-    return np.polyval(np.asarray(b)[::-1], zinv) / np.polyval(np.asarray(a)[::-1], zinv)
+    w = np.asarray(omega, dtype=np.float64)
+    c, s = portable.cos(w), portable.sin(w)
+    br, bi = _poly_at(np.asarray(b), c, s)
+    ar, ai = _poly_at(np.asarray(a), c, s)
+    den = ar * ar + ai * ai
+    out = np.empty(w.shape, dtype=np.complex128)
+    out.real = (br * ar + bi * ai) / den
+    out.imag = (bi * ar - br * ai) / den
+    return out
+
+
+def _power_response(
+    b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
+) -> np.ndarray:
+    """``|b(z)/a(z)|**2`` at `omega`, computed the same way on every machine."""
+    w = np.asarray(omega, dtype=np.float64)
+    c, s = portable.cos(w), portable.sin(w)
+    br, bi = _poly_at(np.asarray(b), c, s)
+    ar, ai = _poly_at(np.asarray(a), c, s)
+    return (br * br + bi * bi) / (ar * ar + ai * ai)
+
+
+def _on_grid(x: np.ndarray) -> np.ndarray:
+    """Coefficients rounded to multiples of 2**-40, with no negative zero.
+
+    A last-bit difference anywhere upstream cannot then reach the sidecar or the quantiser.
+    """
+    return np.rint(np.asarray(x, dtype=np.float64) * 2.0**40) / 2.0**40 + 0.0
 
 
 def _fir(name: str, taps: tuple[float, ...], rate: float | None, source: str) -> Shaper:
@@ -197,7 +237,7 @@ def a_weighting_db(freqs_hz: np.ndarray) -> np.ndarray:
     num = f4**2 * f2s**2
     den = (f2s + f1**2) * np.sqrt(f2s + f2**2) * np.sqrt(f2s + f3**2) * (f2s + f4**2)
     with np.errstate(divide="ignore"):
-        return 20 * np.log10(num / den) + 2.000
+        return 20 * portable.log10(num / den) + 2.000
 
 
 def threshold_db(freqs_hz: np.ndarray) -> np.ndarray:
@@ -208,7 +248,9 @@ def threshold_db(freqs_hz: np.ndarray) -> np.ndarray:
     Painter & Spanias, Proc. IEEE 88(4), 2000).
     """
     k = np.maximum(np.asarray(freqs_hz, dtype=np.float64), 10.0) / 1000.0
-    return 3.64 * k**-0.8 - 6.5 * np.exp(-0.6 * (k - 3.3) ** 2) + 1e-3 * k**4
+    k2 = k * k
+    d = k - 3.3
+    return 3.64 * portable.power(k, -0.8) - 6.5 * portable.exp(-0.6 * (d * d)) + 1e-3 * (k2 * k2)
 
 
 #: Noise weightings for the designer: power weights as a function of frequency.
@@ -224,9 +266,9 @@ def weighting(kind: str, freqs_hz: np.ndarray) -> np.ndarray:
     """
     f = np.asarray(freqs_hz, dtype=np.float64)
     if kind == "a-weighting":
-        w = 10 ** (a_weighting_db(np.maximum(f, 1.0)) / 10)
+        w = portable.power(10.0, a_weighting_db(np.maximum(f, 1.0)) / 10)
     elif kind == "threshold":
-        w = 10 ** (-threshold_db(f) / 10)
+        w = portable.power(10.0, -threshold_db(f) / 10)
     elif kind == "flat":
         w = np.ones_like(f)
     else:
@@ -247,7 +289,7 @@ def _lpc(spectrum: np.ndarray, order: int) -> np.ndarray:
     """
     k = np.arange(order + 1)
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
-    r = (spectrum[None, :] * np.cos(k[:, None] * omega[None, :])).mean(axis=1)
+    r = portable.row_means(spectrum[None, :] * portable.cos(k[:, None] * omega[None, :]))
     r[0] *= 1.0 + 1e-9  # white-noise floor keeps the Toeplitz system well conditioned
     return levinson(r, order)
 
@@ -275,7 +317,7 @@ def levinson(r: np.ndarray, order: int) -> np.ndarray:
     a[0] = 1.0
     err = float(r[0])
     for m in range(1, order + 1):
-        acc = float(r[m] + np.dot(a[1:m], r[m - 1 : 0 : -1]))
+        acc = float(r[m] + portable.dot(a[1:m], r[m - 1 : 0 : -1]))
         k = -acc / err
         a[1:m] = a[1:m] + k * a[m - 1 : 0 : -1]
         a[m] = k
@@ -285,8 +327,7 @@ def levinson(r: np.ndarray, order: int) -> np.ndarray:
 
 def _peak_db(b: np.ndarray, a: np.ndarray) -> float:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
-    h = _freqz(b, a, omega)
-    return float(20 * np.log10(np.max(np.abs(h))))
+    return float(10 * portable.log10(np.max(_power_response(b, a, omega))))
 
 
 def design_shaper(
@@ -339,7 +380,7 @@ def design_shaper(
     if form in ("auto", "iir"):
         candidates.append(_design_iir(w, order, max_gain_db))
     best = min(candidates, key=lambda ba: _weighted_power(ba, w))
-    b, a = best
+    b, a = _on_grid(best[0]), _on_grid(best[1])
     name = "designed"
     source = (
         f"designed for {rate_hz:.6g} Hz, band {band_hz:g} Hz, {weighting_kind} weighting, "
@@ -352,8 +393,7 @@ def design_shaper(
 
 def _weighted_power(ba: tuple[np.ndarray, np.ndarray], w: np.ndarray) -> float:
     omega = np.pi * (np.arange(_GRID) + 0.5) / _GRID
-    h = _freqz(ba[0], ba[1], omega)
-    return float(np.mean(w * np.abs(h) ** 2))
+    return float(portable.mean(w * _power_response(ba[0], ba[1], omega)))
 
 
 def _design_fir(w: np.ndarray, order: int, max_gain_db: float) -> tuple[np.ndarray, np.ndarray]:
@@ -365,11 +405,16 @@ def _design_fir(w: np.ndarray, order: int, max_gain_db: float) -> tuple[np.ndarr
     lo, hi = -12.0, 6.0  # log10 of the flat floor mixed into the weighting
     for _ in range(40):
         mid = 0.5 * (lo + hi)
-        if _peak_db(_lpc(w + 10**mid * np.mean(w), order), ones) <= max_gain_db:
+        if _peak_db(_lpc(w + _floor(mid, w), order), ones) <= max_gain_db:
             hi = mid
         else:
             lo = mid
-    return _lpc(w + 10**hi * np.mean(w), order), ones
+    return _lpc(w + _floor(hi, w), order), ones
+
+
+def _floor(log10_share: float, w: np.ndarray) -> float:
+    """The flat floor ``10**log10_share * mean(w)`` mixed into the weighting."""
+    return float(portable.power(10.0, log10_share)) * float(portable.mean(w))
 
 
 def _design_iir(w: np.ndarray, order: int, max_gain_db: float) -> tuple[np.ndarray, np.ndarray]:
@@ -405,13 +450,17 @@ def predict_noise(
         0 for a minimum-phase NTF by the Gerzon-Craven theorem).
     """
     f = _grid(rate_hz)
-    h2 = np.abs(shaper.response(f, rate_hz)) ** 2
+    h2 = _power_response([1.0, *shaper.b], [1.0, *shaper.a], 2 * np.pi * f / rate_hz)
     band = f <= band_hz
     w = weighting(weighting_kind, f) * band
+
+    def db(x: float) -> float:
+        return float(10 * portable.log10(np.array(x)))
+
     return {
-        "total_db": float(10 * np.log10(np.mean(h2))),
-        "in_band_db": float(10 * np.log10(np.mean(h2[band]))),
-        "weighted_db": float(10 * np.log10(np.sum(w * h2) / np.sum(w))),
-        "peak_db": float(10 * np.log10(np.max(h2))),
-        "log_integral_db": float(np.mean(10 * np.log10(h2))),
+        "total_db": db(portable.mean(h2)),
+        "in_band_db": db(portable.mean(h2[band])),
+        "weighted_db": db(portable.dot(w, h2) / math.fsum(w.tolist())),
+        "peak_db": db(float(np.max(h2))),
+        "log_integral_db": float(portable.mean(10 * portable.log10(h2))),
     }

@@ -27,7 +27,7 @@ from typing import Any
 
 import numpy as np
 
-from ladderpack import conform
+from ladderpack import conform, portable
 from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
@@ -590,7 +590,7 @@ def _conformed(
                 target_lufs=float(opts.loudness_lufs or 0.0),
                 true_peak_dbtp=opts.true_peak_dbtp,
             )
-            gain: float | None = 10 ** (gain_db / 20)
+            gain: float | None = portable.db_to_amplitude(gain_db)
             out.gain_db = gain_db
         else:
             gain = conform.dbfs_to_amplitude(-opts.headroom_db) / peak if peak > 0 else None

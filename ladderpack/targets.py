@@ -19,7 +19,98 @@ from dataclasses import dataclass
 
 from ladderpack.errors import OptionError
 
-__all__ = ["TARGETS", "TARGET_NAMES", "Target", "get_target"]
+__all__ = ["REGISTERS", "TARGETS", "TARGET_NAMES", "Target", "get_target", "target_of"]
+
+#: Every chip fact a generated file uses (peripheral base addresses, register offsets,
+#: bit positions, DMA request numbers), by SDK platform, under the exact names the vendor
+#: SDK's headers give them (``src/<platform>/hardware_regs/include/hardware/regs/``:
+#: ``addressmap.h``, ``pio.h``, ``pwm.h``, ``dma.h``, ``dreq.h``; ``platform_defs.h``),
+#: so ``tests/test_targets.py`` checks each one against its header.  Emitters read
+#: them through :meth:`Target.reg`, never as literals.
+REGISTERS: dict[str, dict[str, int]] = {
+    "rp2040": {
+        # addressmap.h
+        "PIO0_BASE": 0x50200000,
+        "PIO1_BASE": 0x50300000,
+        "PWM_BASE": 0x40050000,
+        "DMA_BASE": 0x50000000,
+        # pio.h
+        "PIO_FDEBUG_OFFSET": 0x008,
+        "PIO_FDEBUG_TXSTALL_LSB": 24,
+        "PIO_TXF0_OFFSET": 0x010,
+        "PIO_TXF1_OFFSET": 0x014,
+        "PIO_IRQ_OFFSET": 0x030,
+        "PIO_DBG_PADOUT_OFFSET": 0x03C,
+        "PIO_SM0_CLKDIV_OFFSET": 0x0C8,
+        "PIO_SM0_EXECCTRL_OFFSET": 0x0CC,
+        "PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB": 29,
+        "PIO_SM0_ADDR_OFFSET": 0x0D4,
+        "PIO_SM0_INSTR_OFFSET": 0x0D8,
+        "PIO_SM1_CLKDIV_OFFSET": 0x0E0,
+        # pwm.h
+        "PWM_CH0_CSR_OFFSET": 0x00,
+        "PWM_CH0_CSR_EN_LSB": 0,
+        "PWM_CH0_DIV_OFFSET": 0x04,
+        "PWM_CH0_CTR_OFFSET": 0x08,
+        "PWM_CH0_CC_OFFSET": 0x0C,
+        "PWM_CH0_CC_B_LSB": 16,
+        "PWM_CH0_TOP_OFFSET": 0x10,
+        "PWM_CH1_CSR_OFFSET": 0x14,
+        # dma.h
+        "DMA_TIMER0_OFFSET": 0x420,
+        "DMA_TIMER0_X_LSB": 16,
+        # dreq.h
+        "DREQ_PIO0_TX0": 0,
+        "DREQ_PIO1_TX0": 8,
+        "DREQ_PWM_WRAP0": 24,
+        "DREQ_DMA_TIMER0": 59,
+        # platform_defs.h
+        "NUM_PIOS": 2,
+        "NUM_PWM_SLICES": 8,
+    },
+    "rp2350": {
+        # addressmap.h: PLL_SYS sits at 0x40050000, where the RP2040's PWM was
+        "PIO0_BASE": 0x50200000,
+        "PIO1_BASE": 0x50300000,
+        "PIO2_BASE": 0x50400000,
+        "PWM_BASE": 0x400A8000,
+        "DMA_BASE": 0x50000000,
+        # pio.h
+        "PIO_FDEBUG_OFFSET": 0x008,
+        "PIO_FDEBUG_TXSTALL_LSB": 24,
+        "PIO_TXF0_OFFSET": 0x010,
+        "PIO_TXF1_OFFSET": 0x014,
+        "PIO_IRQ_OFFSET": 0x030,
+        "PIO_DBG_PADOUT_OFFSET": 0x03C,
+        "PIO_SM0_CLKDIV_OFFSET": 0x0C8,
+        "PIO_SM0_EXECCTRL_OFFSET": 0x0CC,
+        "PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB": 29,
+        "PIO_SM0_ADDR_OFFSET": 0x0D4,
+        "PIO_SM0_INSTR_OFFSET": 0x0D8,
+        "PIO_SM1_CLKDIV_OFFSET": 0x0E0,
+        # pwm.h
+        "PWM_CH0_CSR_OFFSET": 0x00,
+        "PWM_CH0_CSR_EN_LSB": 0,
+        "PWM_CH0_DIV_OFFSET": 0x04,
+        "PWM_CH0_CTR_OFFSET": 0x08,
+        "PWM_CH0_CC_OFFSET": 0x0C,
+        "PWM_CH0_CC_B_LSB": 16,
+        "PWM_CH0_TOP_OFFSET": 0x10,
+        "PWM_CH1_CSR_OFFSET": 0x14,
+        # dma.h: the pacing timers moved (0x420 on the RP2040)
+        "DMA_TIMER0_OFFSET": 0x440,
+        "DMA_TIMER0_X_LSB": 16,
+        # dreq.h
+        "DREQ_PIO0_TX0": 0,
+        "DREQ_PIO1_TX0": 8,
+        "DREQ_PIO2_TX0": 16,
+        "DREQ_PWM_WRAP0": 32,
+        "DREQ_DMA_TIMER0": 59,
+        # platform_defs.h
+        "NUM_PIOS": 3,
+        "NUM_PWM_SLICES": 12,
+    },
+}
 
 
 @dataclass(frozen=True)
@@ -43,6 +134,9 @@ class Target:
         Flash on the common boards (external QSPI, so board-dependent).
     gpio_bases : tuple of int
         GPIO numbers a PIO block's 32-pin window can start at (``GPIOBASE``).
+    platform : str
+        The vendor SDK's platform name (``PICO_PLATFORM``), which selects the register
+        facts in :data:`REGISTERS`.
     """
 
     name: str
@@ -52,6 +146,26 @@ class Target:
     ram_bytes: int
     flash_bytes: int
     gpio_bases: tuple[int, ...] = (0,)
+    platform: str = "rp2040"
+
+    def reg(self, name: str) -> int:
+        """A chip fact by its SDK name (an address, offset, bit position or DREQ).
+
+        Examples
+        --------
+        >>> hex(get_target("rp2350").reg("PWM_BASE"))
+        '0x400a8000'
+        >>> get_target("rp2040").reg("DREQ_PWM_WRAP0")
+        24
+        """
+        try:
+            return REGISTERS[self.platform][name]
+        except KeyError:
+            raise KeyError(f"{self.platform} has no register fact {name!r}") from None
+
+    def pio_bases(self) -> tuple[int, ...]:
+        """Base address of each PIO block (``PIO0_BASE``, ``PIO1_BASE``, ...)."""
+        return tuple(self.reg(f"PIO{k}_BASE") for k in range(self.pio_blocks))
 
     def gpio_window(self, first_gpio: int, pins: int, gpio_count: int | None = None) -> int:
         """The PIO GPIO base whose 32-pin window holds GPIO ``first_gpio`` .. ``+ pins - 1``.
@@ -106,16 +220,25 @@ RP2040 = Target("rp2040", 125_000_000, 30, 2, 0x42000, 2 * 1024 * 1024)
 #: = 520 KiB (.../regs/addressmap.h), 4 MiB flash on the common boards (from memory).
 #: PIO GPIOBASE (offset 0x168) takes 0 or 16 ("Only the values 0 and 16 are supported",
 #: .../regs/pio.h; RP2350 datasheet, PIO chapter, GPIOBASE).
-RP2350A = Target("rp2350", 150_000_000, 30, 3, 0x82000, 4 * 1024 * 1024, (0, 16))
+RP2350A = Target("rp2350", 150_000_000, 30, 3, 0x82000, 4 * 1024 * 1024, (0, 16), "rp2350")
 
 #: RP2350, QFN-80 "B" package: as the A package with NUM_BANK0_GPIOS 48 (same header).
-RP2350B = Target("rp2350b", 150_000_000, 48, 3, 0x82000, 4 * 1024 * 1024, (0, 16))
+RP2350B = Target("rp2350b", 150_000_000, 48, 3, 0x82000, 4 * 1024 * 1024, (0, 16), "rp2350")
 
 #: Every target by name.
 TARGETS: dict[str, Target] = {t.name: t for t in (RP2040, RP2350A, RP2350B)}
 
 #: Names accepted by ``--target``.
 TARGET_NAMES = tuple(TARGETS)
+
+
+def target_of(options: object) -> Target:
+    """The :class:`Target` an asset was made for, from its options mapping (``target``).
+
+    Assets from before targets existed, or without the field, are for the RP2040.
+    """
+    name = options.get("target", "rp2040") if isinstance(options, dict) else "rp2040"
+    return get_target(str(name or "rp2040"))
 
 
 def get_target(name: str) -> Target:

@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from ladderpack import portable
 from ladderpack.audio import Signal
 from ladderpack.defaults import TONE_KINDS
 from ladderpack.errors import OptionError
@@ -102,7 +103,7 @@ def _harmonics(kind: str, phase: np.ndarray, f0_hz: float, rate_hz: float) -> np
     amp = amp[: n.size]
     out = np.zeros_like(phase)
     for k, a in zip(n, amp, strict=True):
-        out += a * np.sin(k * phase)
+        out += a * portable.sin(k * phase)
     # Normalise to the series' own peak (the Gibbs overshoot of a square tends to
     # (2 / pi) Si(pi) = 1.179 of its amplitude), found on a fine grid over one period,
     # so the level asked for is the peak and nothing clips.
@@ -121,15 +122,15 @@ def _series_peak(n: np.ndarray, amp: np.ndarray) -> float:
     coarse = np.fft.irfft(spec, m)
     j = int(np.argmax(np.abs(coarse)))
     theta = 2 * np.pi * (j + np.linspace(-1.0, 1.0, 129)) / m
-    fine = np.sin(np.outer(theta, n)) @ amp
+    fine = np.array([portable.dot(row, amp) for row in portable.sin(np.outer(theta, n))])
     t = float(theta[int(np.argmax(np.abs(fine)))])
     for _ in range(4):  # Newton steps on the derivative, to the extremum itself
-        d1 = float(np.cos(n * t) @ (amp * n))
-        d2 = -float(np.sin(n * t) @ (amp * n * n))
+        d1 = portable.dot(portable.cos(n * t), amp * n)
+        d2 = -portable.dot(portable.sin(n * t), amp * n * n)
         if d2 == 0.0:
             break
         t -= d1 / d2
-    exact = abs(float(np.sin(n * t) @ amp))
+    exact = abs(portable.dot(portable.sin(n * t), amp))
     return float(max(np.abs(coarse[j]), np.max(np.abs(fine)), exact))
 
 
@@ -184,7 +185,7 @@ def synthesise(
         Noise seed.
     """
     n = np.arange(samples)
-    amp = 10 ** (level_dbfs / 20)
+    amp = portable.db_to_amplitude(level_dbfs)
     nyquist = rate_hz / 2
     if kind in ("sine", "square", "sawtooth", "triangle") and not 0 < freq_hz < nyquist:
         raise OptionError(
@@ -202,7 +203,7 @@ def synthesise(
             )
     phase = 2 * np.pi * freq_hz * n / rate_hz
     if kind == "sine":
-        return amp * np.sin(phase)
+        return amp * portable.sin(phase)
     if kind in ("square", "sawtooth", "triangle"):
         if band_limited:
             return amp * _harmonics(kind, phase, freq_hz, rate_hz)
@@ -216,7 +217,7 @@ def synthesise(
         if not tones:
             raise OptionError("give at least one frequency:level pair", field="tones")
         x = sum(
-            10 ** (db / 20) * np.sin(2 * np.pi * f * n / rate_hz + 0.7 * i * i)
+            portable.db_to_amplitude(db) * portable.sin(2 * np.pi * f * n / rate_hz + 0.7 * i * i)
             for i, (f, db) in enumerate(tones)
         )
         return amp * x / np.max(np.abs(x))
@@ -226,7 +227,8 @@ def synthesise(
         t = n / rate_hz
         big_t = samples / rate_hz
         k = math.log(f_end_hz / f_start_hz)
-        return amp * np.sin(2 * np.pi * f_start_hz * big_t / k * (np.exp(t * k / big_t) - 1))
+        sweep = portable.exp(t * k / big_t) - 1
+        return amp * portable.sin(2 * np.pi * f_start_hz * big_t / k * sweep)
     if kind in ("white", "pink"):
         rng = np.random.default_rng(seed)
         w = rng.standard_normal(samples)
@@ -286,7 +288,9 @@ def wavetable(
             band_limited=False,
         )
         if kind != "sine"
-        else (10 ** (level_dbfs / 20) * np.sin(2 * np.pi * np.arange(size) / size))
+        else (
+            portable.db_to_amplitude(level_dbfs) * portable.sin(2 * np.pi * np.arange(size) / size)
+        )
     )
     if levels is not None:
         half_l = (levels - 1) / 2

@@ -18,7 +18,10 @@ PKG = REPO / "ladderpack"
 
 #: Layer of each module; imports may only go to the same or a lower layer.
 LAYERS: dict[int, set[str]] = {
-    0: {"errors", "_version", "defaults", "targets", "_kernels", "emit.names", "reading"},
+    0: {
+        "errors", "_version", "defaults", "targets", "_kernels", "emit.names", "reading",
+        "portable",
+    },
     1: {"options"},
     2: {
         "audio", "conform", "loudness", "clock", "quantize", "pack", "pio", "shaping",

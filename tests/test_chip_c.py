@@ -15,10 +15,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from chip.harness import Firmware, Run, Step, Stream, run
 
 from ladderpack.bundle import write_bundle
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, Run, Step, Stream, run
 
 pytestmark = pytest.mark.slow
 

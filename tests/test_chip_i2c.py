@@ -20,11 +20,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from chip.harness import Firmware, player_app, run, run_micropython
 
 from ladderpack.bundle import bundle_files, write_bundle
 from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer, writer_program, writer_words
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, player_app, run, run_micropython
 
 pytestmark = pytest.mark.slow
 

@@ -22,10 +22,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from chip.harness import Firmware, player_app, run
 
 from ladderpack.bundle import write_bundle
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, player_app, run
 
 pytestmark = pytest.mark.slow
 
@@ -250,7 +250,7 @@ def board_files(folder: Path, name: str, *, embed: bool, **opts: object) -> tupl
 def test_micropython_plays_every_frame(
     tmp_path: Path, embed: bool, bits: int, frame_format: str
 ) -> None:
-    from tests.chip.harness import run_micropython
+    from chip.harness import run_micropython
 
     exp, files = board_files(tmp_path, "ping", embed=embed, bits=bits, frame_format=frame_format)
     r = run_micropython(
@@ -267,7 +267,7 @@ def test_micropython_plays_every_frame(
 
 
 def test_micropython_interrupted_stream_fades_out(tmp_path: Path) -> None:
-    from tests.chip.harness import run_micropython
+    from chip.harness import run_micropython
 
     exp, files = board_files(tmp_path, "buzz", embed=False, bits=16, seconds=0.05)
     steps = [
@@ -315,10 +315,11 @@ def test_stereo_slots_carry_their_own_channel(fw: Firmware, tmp_path: Path, bits
 
 
 def test_micropython_stereo(tmp_path: Path) -> None:
+    from chip.harness import run_micropython
+
     from ladderpack.audio import Signal
     from ladderpack.bundle import bundle_files
     from ladderpack.stream import stream_signal
-    from tests.chip.harness import run_micropython
 
     t = np.arange(400) / 16000.0
     x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
@@ -352,7 +353,7 @@ def test_micropython_stereo(tmp_path: Path) -> None:
 
 
 def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path) -> None:
-    from tests.chip.harness import run_micropython
+    from chip.harness import run_micropython
 
     exp, files = board_files(
         tmp_path, "drone", embed=True, bits=16, loop=True, cycles=20, freq_hz=2205.0
@@ -402,7 +403,7 @@ def test_a_system_clock_from_the_pll_makes_48k_exact(fw: Firmware, tmp_path: Pat
 
 
 def test_micropython_sets_the_planned_clock(tmp_path: Path) -> None:
-    from tests.chip.harness import run_micropython
+    from chip.harness import run_micropython
 
     exp, files = board_files(
         tmp_path, "amp48", embed=True, bits=16, rate_hz=48000.0, sys_clock_hz=61_440_000,

@@ -14,11 +14,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from chip.harness import Run, Stream, run_micropython
+from test_chip_c import assert_period, decompose_loop
 
 from ladderpack.bundle import bundle_files
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Run, Stream, run_micropython
-from tests.test_chip_c import assert_period, decompose_loop
 
 pytestmark = pytest.mark.slow
 

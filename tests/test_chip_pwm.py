@@ -21,10 +21,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from chip.harness import Firmware, player_app, run, run_micropython
 
 from ladderpack.bundle import bundle_files
 from ladderpack.stream import stream_tone
-from tests.chip.harness import Firmware, player_app, run, run_micropython
 
 pytestmark = pytest.mark.slow
 

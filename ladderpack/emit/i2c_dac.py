@@ -27,10 +27,12 @@ from ladderpack.emit.micropython import (
     _literal,
     feed_methods,
     mp_program_body,
+    pio_registers_text,
     set_clock_text,
 )
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2c_dac import I2cDacLayout
+from ladderpack.targets import target_of
 
 __all__ = [
     "render_header",
@@ -253,10 +255,7 @@ INTRO = {intro}
 OUTRO = {outro}
 RAMP_UPDATES = 64  # a stream stopped early ramps to IDLE_CODE over this many updates
 
-# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, SMx_EXECCTRL at 0xCC + 0x18 * x,
-# SMx_INSTR at 0xD8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG at 0x08 (TXSTALL of SM x: bit
-# 24 + x), IRQ at 0x30 (RP2040 datasheet, PIO registers). DREQ of SM x's TX FIFO: 8 * pio + x.
-_PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
+{registers}
 
 
 @rp2.asm_pio(
@@ -315,14 +314,15 @@ class Player:
                                    sideset_base=Pin(SCL_PIN), jmp_pin=Pin(SDA_PIN))
         self.pio = _PIO_BASE[sm_id // 4]
         self.idx = sm_id % 4
-        self.reg = self.pio + 0xC8 + 0x18 * self.idx
-        mem32[self.reg] = CLKDIV_REG  # the exact whole divider
-        mem32[self.reg + 0x04] |= 1 << 29  # EXECCTRL SIDE_PINDIR: side-set drives SCL's direction
-        self.origin = mem32[self.reg + 0x0C]  # SMx_ADDR: the program's load address
-        self.txf = self.pio + 0x10 + 4 * self.idx
+        self.reg = self.pio + _SM_STRIDE * self.idx  # add an SM0 offset
+        mem32[self.reg + _SM0_CLKDIV] = CLKDIV_REG  # the exact whole divider
+        # EXECCTRL SIDE_PINDIR: side-set drives SCL's direction
+        mem32[self.reg + _SM0_EXECCTRL] |= 1 << _SIDE_PINDIR_LSB
+        self.origin = mem32[self.reg + _SM0_ADDR]  # the program's load address
+        self.txf = self.pio + _TXF0 + _TXF_STRIDE * self.idx
         self.dma = rp2.DMA()
         self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
-                                       treq_sel=8 * (sm_id // 4) + self.idx)
+                                       treq_sel=_DREQ_PIO_TX0[sm_id // 4] + self.idx)
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
         self.sent, self.cur_n = 0, 0
@@ -341,31 +341,31 @@ class Player:
         if self.dma.active() or self.sm.tx_fifo():
             return False
         # the pull at the program's start stalls once the last update's period is over
-        return bool(mem32[self.pio + 0x08] & (1 << (24 + self.idx)))
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
 
     def _start(self) -> None:
         self.sm.active(0)
         self.sm.restart()
-        mem32[self.reg + 0x10] = self.origin  # SMx_INSTR: jmp to the program's start
+        mem32[self.reg + _SM0_INSTR] = self.origin  # jmp to the program's start
         self.sm.put(PAD)
         self.sm.exec("pull()")
         self.sm.exec("mov(y, osr)")
 
     def _go(self) -> None:
-        mem32[self.pio + 0x08] = 1 << (24 + self.idx)  # clear TXSTALL
-        mem32[self.pio + 0x30] = 1 << self.idx  # clear the acknowledge flag
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
+        mem32[self.pio + _IRQ] = 1 << self.idx  # clear the acknowledge flag
         self.sm.active(1)
 
     def nack_seen(self) -> bool:
         \"\"\"True when a byte went unacknowledged since the last play() or write_code().\"\"\"
-        return bool(mem32[self.pio + 0x30] & (1 << self.idx))
+        return bool(mem32[self.pio + _IRQ] & (1 << self.idx))
 
     def write_code(self, code: int) -> None:
         \"\"\"Write one code (0..4095) while nothing plays; returns after its update.\"\"\"
         if not 0 <= code <= 4095:
             raise ValueError("a 12-bit DAC takes codes 0..4095")
-        mem32[self.pio + 0x08] = 1 << (24 + self.idx)
-        mem32[self.pio + 0x30] = 1 << self.idx
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)
+        mem32[self.pio + _IRQ] = 1 << self.idx
         for w in _update(code):
             self.sm.put(w)
         while not self._drained():
@@ -484,6 +484,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
     )
     text = _MP_TEMPLATE.format(
+        registers=pio_registers_text(target_of(asset.options)),
         version=__version__,
         source=comment_safe(asset.source.get("file", "generated signal")),
         name=asset.name,

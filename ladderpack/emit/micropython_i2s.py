@@ -12,10 +12,12 @@ from ladderpack.emit.micropython import (
     _literal,
     feed_methods,
     mp_program_body,
+    pio_registers_text,
     set_clock_text,
 )
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.i2s import I2sLayout, i2s_entry
+from ladderpack.targets import target_of
 
 __all__ = ["render"]
 
@@ -63,10 +65,7 @@ CHUNK_WORDS = {chunk_words}
 OUTRO = {outro}
 FADE_FRAMES = 64  # a stream stopped early fades out over this many frames
 
-# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, SMx_ADDR at 0xD4 + 0x18 * x,
-# SMx_INSTR at 0xD8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG at 0x08 (TXSTALL of SM x: bit
-# 24 + x) (RP2040 datasheet, PIO registers). DREQ of SM x's TX FIFO: 8 * pio + x.
-_PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
+{registers}
 
 
 @rp2.asm_pio(
@@ -122,13 +121,13 @@ class Player:
                                    out_base=Pin(DATA_PIN), sideset_base=Pin(CLOCK_PIN))
         self.pio = _PIO_BASE[sm_id // 4]
         self.idx = sm_id % 4
-        self.reg = self.pio + 0xC8 + 0x18 * self.idx
-        mem32[self.reg] = CLKDIV_REG  # the exact 16.8 divider
-        self.origin = mem32[self.reg + 0x0C]  # SMx_ADDR: the program's load address
-        self.txf = self.pio + 0x10 + 4 * self.idx
+        self.reg = self.pio + _SM_STRIDE * self.idx  # add an SM0 offset
+        mem32[self.reg + _SM0_CLKDIV] = CLKDIV_REG  # the exact 16.8 divider
+        self.origin = mem32[self.reg + _SM0_ADDR]  # the program's load address
+        self.txf = self.pio + _TXF0 + _TXF_STRIDE * self.idx
         self.dma = rp2.DMA()
         self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
-                                       treq_sel=8 * (sm_id // 4) + self.idx)
+                                       treq_sel=_DREQ_PIO_TX0[sm_id // 4] + self.idx)
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
         self.sent = 0  # words handed to the DMA before the current transfer
@@ -146,15 +145,15 @@ class Player:
         if self.dma.active() or self.sm.tx_fifo():
             return False
         # autopull stalls on the empty FIFO once the last word has left the shift register
-        return bool(mem32[self.pio + 0x08] & (1 << (24 + self.idx)))
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
 
     def _start(self) -> None:
         self.sm.active(0)
         self.sm.restart()
-        mem32[self.reg + 0x10] = self.origin + ENTRY  # SMx_INSTR: jmp to the entry
+        mem32[self.reg + _SM0_INSTR] = self.origin + ENTRY  # jmp to the entry
 
     def _go(self) -> None:
-        mem32[self.pio + 0x08] = 1 << (24 + self.idx)  # clear TXSTALL
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
         self.sm.active(1)
 
     def stop(self) -> None:
@@ -255,6 +254,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
     )
     return set_clock_after(
         _TEMPLATE.format(
+            registers=pio_registers_text(target_of(asset.options)),
             version=__version__,
             source=comment_safe(asset.source.get("file", "generated signal")),
             name=asset.name,

@@ -13,10 +13,11 @@ from collections.abc import Iterator
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
-from ladderpack.emit.micropython import _literal, set_clock_text
+from ladderpack.emit.micropython import _literal, sdk_constants, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.outputs.pwm import PwmPlan, PwmSetup
 from ladderpack.pack import Packed
+from ladderpack.targets import target_of
 
 __all__ = ["render_header", "render_micropython", "render_source", "render_source_chunks"]
 
@@ -200,11 +201,10 @@ INTRO_TRANSFERS = {intro_transfers}
 OUTRO = {outro}
 OUTRO_TRANSFERS = {outro_transfers}
 
-# PWM slice n at 0x40050000 + 0x14 n: CSR +0 (EN bit 0), DIV +4, CTR +8, CC +0x0C, TOP +0x10
-# (RP2040 datasheet 4.5.3); DMA TIMER0 at 0x50000420 (X in bits 31:16, Y in 15:0). A mono
-# value is a 16-bit write: the bus repeats it in both halves of CC (datasheet 2.1.4).
-_SLICE = 0x40050000 + 0x14 * SLICE
-_TIMER0 = 0x50000420
+{registers}
+# Slice n's registers lie _SLICE_STRIDE * n above slice 0's. A mono value is a 16-bit
+# write: the bus repeats it in both halves of CC (RP2040 datasheet 2.1.4).
+_SLICE = _PWM_BASE + _SLICE_STRIDE * SLICE
 _SIZE = 2 if STEREO else 1
 
 
@@ -249,17 +249,17 @@ class Player:
                 % (freq(), SYS_CLOCK_HZ, freq(), SYS_CLOCK_HZ)
             )
         self.path = path
-        mem32[_SLICE] = 0  # stop the slice while it is set up
-        mem32[_SLICE + 0x04] = DIV_REG
-        mem32[_SLICE + 0x10] = TOP
-        mem32[_SLICE + 0x0C] = IDLE_CODE | (IDLE_CODE << 16)
-        mem32[_SLICE + 0x08] = 0
+        mem32[_SLICE + _CSR] = 0  # stop the slice while it is set up
+        mem32[_SLICE + _DIV] = DIV_REG
+        mem32[_SLICE + _TOP] = TOP
+        mem32[_SLICE + _CC] = IDLE_CODE | (IDLE_CODE << _CC_B_LSB)
+        mem32[_SLICE + _CTR] = 0
         Pin(PIN, Pin.ALT, alt=Pin.ALT_PWM)
         if STEREO:
             Pin(PIN + 1, Pin.ALT, alt=Pin.ALT_PWM)
-        mem32[_SLICE] = 1
+        mem32[_SLICE + _CSR] = 1 << _CSR_EN_LSB
         if TIMER_X:
-            mem32[_TIMER0] = (TIMER_X << 16) | TIMER_Y
+            mem32[_TIMER0] = (TIMER_X << _TIMER_X_LSB) | TIMER_Y
         self.dma = (rp2.DMA(), rp2.DMA())
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.holds = [None, None]  # type: list[array.array[int] | None]
@@ -272,7 +272,7 @@ class Player:
                                      treq_sel=DREQ, chain_to=other)
 
     def _arm(self, k: int, buf: "array.array[int]", count: int, chain: bool, now: bool) -> None:
-        self.dma[k].config(read=buf, write=_SLICE + 0x0C, count=count,
+        self.dma[k].config(read=buf, write=_SLICE + _CC, count=count,
                            ctrl=self._ctrl(k, chain), trigger=now)
 
     def _busy(self) -> bool:
@@ -289,7 +289,7 @@ class Player:
     def _ramp_down(self) -> None:
         for d in self.dma:
             d.active(0)
-        cc = mem32[_SLICE + 0x0C]
+        cc = mem32[_SLICE + _CC]
         r = _ramp(cc & 0xFFFF, (cc >> 16) if STEREO else cc & 0xFFFF)
         self._arm(0, r, len(r), False, True)
         self._wait()
@@ -390,7 +390,29 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
     words_literal = (
         ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
     )
+    target = target_of(asset.options)
+    registers = (
+        f"# {target.name.upper()} registers (vendor SDK hardware/regs: addressmap.h, pwm.h, "
+        "dma.h)\n"
+    )
+    registers += sdk_constants(
+        target,
+        [
+            ("_PWM_BASE", "PWM_BASE"),
+            ("_SLICE_STRIDE", "PWM_CH1_CSR_OFFSET - PWM_CH0_CSR_OFFSET"),
+            ("_CSR", "PWM_CH0_CSR_OFFSET"),
+            ("_CSR_EN_LSB", "PWM_CH0_CSR_EN_LSB"),
+            ("_DIV", "PWM_CH0_DIV_OFFSET"),
+            ("_CTR", "PWM_CH0_CTR_OFFSET"),
+            ("_CC", "PWM_CH0_CC_OFFSET"),
+            ("_CC_B_LSB", "PWM_CH0_CC_B_LSB"),
+            ("_TOP", "PWM_CH0_TOP_OFFSET"),
+            ("_TIMER0", "DMA_BASE + DMA_TIMER0_OFFSET"),
+            ("_TIMER_X_LSB", "DMA_TIMER0_X_LSB"),
+        ],
+    )
     text = _MP_TEMPLATE.format(
+        registers=registers,
         version=__version__,
         source=comment_safe(asset.source.get("file", "generated signal")),
         name=asset.name,

@@ -34,6 +34,7 @@ import numpy as np
 
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ
 from ladderpack.errors import ClockError, OptionError
+from ladderpack.targets import REGISTERS
 
 __all__ = [
     "DREQ_DMA_TIMER0",
@@ -47,9 +48,9 @@ __all__ = [
     "reconstruction_filter",
 ]
 
-#: DMA request numbers by chip (``hardware/regs/dreq.h``).
-DREQ_PWM_WRAP0 = {"rp2040": 24, "rp2350": 32}
-DREQ_DMA_TIMER0 = {"rp2040": 59, "rp2350": 59}
+#: DMA request numbers by SDK platform (``hardware/regs/dreq.h``), from the target data.
+DREQ_PWM_WRAP0 = {chip: regs["DREQ_PWM_WRAP0"] for chip, regs in REGISTERS.items()}
+DREQ_DMA_TIMER0 = {chip: regs["DREQ_DMA_TIMER0"] for chip, regs in REGISTERS.items()}
 
 _TOP_MAX = 0xFFFF
 _DIV_INT_MAX = 255

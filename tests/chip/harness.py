@@ -14,21 +14,70 @@ unpacker.
 from __future__ import annotations
 
 import json
+import os
 import re
 import shutil
 import subprocess
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import NoReturn
 
 import numpy as np
 import pytest
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parents[1]
+#: Where a development checkout keeps the vendored parts (beside the clone); a user's
+#: clone has none, and names them by environment variable instead.
 VENDOR = ROOT.parent / "shared" / "vendor"
-SDK = VENDOR / "pico-sdk"
-BOOTROM = VENDOR / "rp2040-bootrom" / "bootrom.mjs"
-MICROPYTHON = VENDOR / "micropython-rp2" / "RPI_PICO-v1.27.0.bin"
+
+#: The firmware tests' external parts: environment variable, fallback beside the clone,
+#: and what it is. ``PICO_SDK_PATH`` is the SDK's own convention (pico-sdk README).
+VENDOR_PARTS = {
+    "sdk": ("PICO_SDK_PATH", VENDOR / "pico-sdk", "an unpacked pico-sdk 2.x folder"),
+    "micropython": (
+        "LADDERPACK_MICROPYTHON_IMAGE",
+        VENDOR / "micropython-rp2" / "RPI_PICO-v1.27.0.bin",
+        "a MicroPython RPI_PICO flat flash image (.bin, v1.27)",
+    ),
+    "bootrom": (
+        "LADDERPACK_RP2040_BOOTROM",
+        VENDOR / "rp2040-bootrom" / "bootrom.mjs",
+        "the RP2040 B1 boot ROM as the rp2040js Uint32Array module (bootrom.mjs)",
+    ),
+}
+
+#: Set by CI (``.ci/run``): a firmware test that would skip for want of a part fails.
+REQUIRE_CHIP = os.environ.get("LADDERPACK_REQUIRE_CHIP", "") not in ("", "0")
+
+
+def chip_unavailable(reason: str) -> NoReturn:
+    """Skip a firmware test, with one line saying what it needs (fail in CI)."""
+    line = (
+        f"firmware tests need {reason}; set PICO_SDK_PATH (pico-sdk 2.x), "
+        "LADDERPACK_MICROPYTHON_IMAGE and LADDERPACK_RP2040_BOOTROM, and install "
+        "arm-none-eabi-gcc, cmake and Node.js (see README, Tests)"
+    )
+    if REQUIRE_CHIP:
+        pytest.fail(f"{line} (LADDERPACK_REQUIRE_CHIP is set: a skip is a failure)")
+    pytest.skip(line)
+
+
+def vendor_path(part: str) -> Path:
+    """The path of a vendored part: its environment variable, else beside the clone."""
+    var, fallback, what = VENDOR_PARTS[part]
+    value = os.environ.get(var)
+    path = Path(value) if value else fallback
+    if not path.exists():
+        chip_unavailable(f"{what} (${var} is {'unset' if not value else repr(value)})")
+    return path
+
+
+def sdk_path() -> Path:
+    """The pico-sdk folder (``PICO_SDK_PATH``, then ``../shared/vendor/pico-sdk``)."""
+    return vendor_path("sdk")
+
+
 # MicroPython's rp2 port keeps its filesystem at the end of flash: on the RPI_PICO board
 # 1408 KiB (MICROPY_HW_FLASH_STORAGE_BYTES) of the 2 MiB, from offset 0xA0000, in 4 KiB
 # blocks, mounted by its _boot.py as VfsLfs2 with progsize=256 (MicroPython sources).
@@ -53,7 +102,7 @@ OP_END = 0x7F
 def require(tool: str) -> str:
     path = shutil.which(tool)
     if path is None:
-        pytest.fail(f"{tool} is not installed; .ci/run installs it")
+        chip_unavailable(f"the program {tool}")
     return path
 
 
@@ -270,7 +319,7 @@ class Firmware:
                     str(self.build),
                     "-G",
                     "Ninja" if shutil.which("ninja") else "Unix Makefiles",
-                    f"-DPICO_SDK_PATH={SDK}",
+                    f"-DPICO_SDK_PATH={sdk_path()}",
                     "-DPICO_NO_PICOTOOL=1",
                     f"-DPICO_PLATFORM={self.platform}",
                     f"-DPICO_BOARD={board}",
@@ -373,7 +422,7 @@ def run_micropython(
     system clocks after the code was sent); `i2c` puts an acknowledging device on a bus
     (see ``run.mjs``)."""
     return run(
-        MICROPYTHON,
+        vendor_path("micropython"),
         0,
         max_cycles=max_cycles,
         tail=0,
@@ -406,7 +455,7 @@ def run(
         json.dumps(
             {
                 "image": str(image),
-                "bootrom": str(BOOTROM),
+                "bootrom": str(vendor_path("bootrom")),
                 "mailbox": mailbox,
                 "max_cycles": max_cycles,
                 "end_value_op": OP_END,

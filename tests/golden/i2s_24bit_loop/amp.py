@@ -41,10 +41,23 @@ WORDS = array.array("I", [0x00000000, 0x00000000, 0x0EE3F400, 0x0EE3F400, 0x1D86
 OUTRO = array.array("I", [0x00000000, 0x00000000])
 FADE_FRAMES = 64  # a stream stopped early fades out over this many frames
 
-# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, SMx_ADDR at 0xD4 + 0x18 * x,
-# SMx_INSTR at 0xD8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG at 0x08 (TXSTALL of SM x: bit
-# 24 + x) (RP2040 datasheet, PIO registers). DREQ of SM x's TX FIFO: 8 * pio + x.
-_PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
+# RP2040 registers (vendor SDK hardware/regs: addressmap.h, pio.h, dreq.h):
+# state machine x's registers lie _SM_STRIDE * x above SM0's, its TX FIFO _TXF_STRIDE * x above TXF0,
+# its TX FIFO's DMA request x above its block's.
+_PIO_BASE = (0x50200000, 0x50300000)  # sdk: PIO0_BASE, PIO1_BASE
+_DREQ_PIO_TX0 = (0, 8)  # sdk: DREQ_PIO0_TX0, DREQ_PIO1_TX0
+_SM0_CLKDIV = 0xC8  # sdk: PIO_SM0_CLKDIV_OFFSET
+_SM0_EXECCTRL = 0xCC  # sdk: PIO_SM0_EXECCTRL_OFFSET
+_SM0_ADDR = 0xD4  # sdk: PIO_SM0_ADDR_OFFSET
+_SM0_INSTR = 0xD8  # sdk: PIO_SM0_INSTR_OFFSET
+_SM_STRIDE = 0x18  # sdk: PIO_SM1_CLKDIV_OFFSET - PIO_SM0_CLKDIV_OFFSET
+_TXF0 = 0x10  # sdk: PIO_TXF0_OFFSET
+_TXF_STRIDE = 0x4  # sdk: PIO_TXF1_OFFSET - PIO_TXF0_OFFSET
+_FDEBUG = 0x8  # sdk: PIO_FDEBUG_OFFSET
+_TXSTALL_LSB = 24  # sdk: PIO_FDEBUG_TXSTALL_LSB
+_IRQ = 0x30  # sdk: PIO_IRQ_OFFSET
+_DBG_PADOUT = 0x3C  # sdk: PIO_DBG_PADOUT_OFFSET
+_SIDE_PINDIR_LSB = 29  # sdk: PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB
 
 
 @rp2.asm_pio(
@@ -111,13 +124,13 @@ class Player:
                                    out_base=Pin(DATA_PIN), sideset_base=Pin(CLOCK_PIN))
         self.pio = _PIO_BASE[sm_id // 4]
         self.idx = sm_id % 4
-        self.reg = self.pio + 0xC8 + 0x18 * self.idx
-        mem32[self.reg] = CLKDIV_REG  # the exact 16.8 divider
-        self.origin = mem32[self.reg + 0x0C]  # SMx_ADDR: the program's load address
-        self.txf = self.pio + 0x10 + 4 * self.idx
+        self.reg = self.pio + _SM_STRIDE * self.idx  # add an SM0 offset
+        mem32[self.reg + _SM0_CLKDIV] = CLKDIV_REG  # the exact 16.8 divider
+        self.origin = mem32[self.reg + _SM0_ADDR]  # the program's load address
+        self.txf = self.pio + _TXF0 + _TXF_STRIDE * self.idx
         self.dma = rp2.DMA()
         self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
-                                       treq_sel=8 * (sm_id // 4) + self.idx)
+                                       treq_sel=_DREQ_PIO_TX0[sm_id // 4] + self.idx)
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
         self.sent = 0  # words handed to the DMA before the current transfer
@@ -135,15 +148,15 @@ class Player:
         if self.dma.active() or self.sm.tx_fifo():
             return False
         # autopull stalls on the empty FIFO once the last word has left the shift register
-        return bool(mem32[self.pio + 0x08] & (1 << (24 + self.idx)))
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
 
     def _start(self) -> None:
         self.sm.active(0)
         self.sm.restart()
-        mem32[self.reg + 0x10] = self.origin + ENTRY  # SMx_INSTR: jmp to the entry
+        mem32[self.reg + _SM0_INSTR] = self.origin + ENTRY  # jmp to the entry
 
     def _go(self) -> None:
-        mem32[self.pio + 0x08] = 1 << (24 + self.idx)  # clear TXSTALL
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
         self.sm.active(1)
 
     def stop(self) -> None:

@@ -46,11 +46,21 @@ INTRO_TRANSFERS = 8
 OUTRO = array.array("I", [0x034103AB, 0x01E802A3, 0x008F012D, 0x00000025, 0x00000000])
 OUTRO_TRANSFERS = 10
 
-# PWM slice n at 0x40050000 + 0x14 n: CSR +0 (EN bit 0), DIV +4, CTR +8, CC +0x0C, TOP +0x10
-# (RP2040 datasheet 4.5.3); DMA TIMER0 at 0x50000420 (X in bits 31:16, Y in 15:0). A mono
-# value is a 16-bit write: the bus repeats it in both halves of CC (datasheet 2.1.4).
-_SLICE = 0x40050000 + 0x14 * SLICE
-_TIMER0 = 0x50000420
+# RP2040 registers (vendor SDK hardware/regs: addressmap.h, pwm.h, dma.h)
+_PWM_BASE = 0x40050000  # sdk: PWM_BASE
+_SLICE_STRIDE = 0x14  # sdk: PWM_CH1_CSR_OFFSET - PWM_CH0_CSR_OFFSET
+_CSR = 0x0  # sdk: PWM_CH0_CSR_OFFSET
+_CSR_EN_LSB = 0  # sdk: PWM_CH0_CSR_EN_LSB
+_DIV = 0x4  # sdk: PWM_CH0_DIV_OFFSET
+_CTR = 0x8  # sdk: PWM_CH0_CTR_OFFSET
+_CC = 0xC  # sdk: PWM_CH0_CC_OFFSET
+_CC_B_LSB = 16  # sdk: PWM_CH0_CC_B_LSB
+_TOP = 0x10  # sdk: PWM_CH0_TOP_OFFSET
+_TIMER0 = 0x50000420  # sdk: DMA_BASE + DMA_TIMER0_OFFSET
+_TIMER_X_LSB = 16  # sdk: DMA_TIMER0_X_LSB
+# Slice n's registers lie _SLICE_STRIDE * n above slice 0's. A mono value is a 16-bit
+# write: the bus repeats it in both halves of CC (RP2040 datasheet 2.1.4).
+_SLICE = _PWM_BASE + _SLICE_STRIDE * SLICE
 _SIZE = 2 if STEREO else 1
 
 
@@ -95,17 +105,17 @@ class Player:
                 % (freq(), SYS_CLOCK_HZ, freq(), SYS_CLOCK_HZ)
             )
         self.path = path
-        mem32[_SLICE] = 0  # stop the slice while it is set up
-        mem32[_SLICE + 0x04] = DIV_REG
-        mem32[_SLICE + 0x10] = TOP
-        mem32[_SLICE + 0x0C] = IDLE_CODE | (IDLE_CODE << 16)
-        mem32[_SLICE + 0x08] = 0
+        mem32[_SLICE + _CSR] = 0  # stop the slice while it is set up
+        mem32[_SLICE + _DIV] = DIV_REG
+        mem32[_SLICE + _TOP] = TOP
+        mem32[_SLICE + _CC] = IDLE_CODE | (IDLE_CODE << _CC_B_LSB)
+        mem32[_SLICE + _CTR] = 0
         Pin(PIN, Pin.ALT, alt=Pin.ALT_PWM)
         if STEREO:
             Pin(PIN + 1, Pin.ALT, alt=Pin.ALT_PWM)
-        mem32[_SLICE] = 1
+        mem32[_SLICE + _CSR] = 1 << _CSR_EN_LSB
         if TIMER_X:
-            mem32[_TIMER0] = (TIMER_X << 16) | TIMER_Y
+            mem32[_TIMER0] = (TIMER_X << _TIMER_X_LSB) | TIMER_Y
         self.dma = (rp2.DMA(), rp2.DMA())
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.holds = [None, None]  # type: list[array.array[int] | None]
@@ -118,7 +128,7 @@ class Player:
                                      treq_sel=DREQ, chain_to=other)
 
     def _arm(self, k: int, buf: "array.array[int]", count: int, chain: bool, now: bool) -> None:
-        self.dma[k].config(read=buf, write=_SLICE + 0x0C, count=count,
+        self.dma[k].config(read=buf, write=_SLICE + _CC, count=count,
                            ctrl=self._ctrl(k, chain), trigger=now)
 
     def _busy(self) -> bool:
@@ -135,7 +145,7 @@ class Player:
     def _ramp_down(self) -> None:
         for d in self.dma:
             d.active(0)
-        cc = mem32[_SLICE + 0x0C]
+        cc = mem32[_SLICE + _CC]
         r = _ramp(cc & 0xFFFF, (cc >> 16) if STEREO else cc & 0xFFFF)
         self._arm(0, r, len(r), False, True)
         self._wait()

@@ -47,11 +47,23 @@ OUTRO = None
 # Level of every code (volts) of the LevelSet the stream was made with, for hold_volts()
 LEVELS_V = array.array("f", [0, 0.051878266, 0.103595574, 0.15553175, 0.206789797, 0.258716614, 0.310501728, 0.362486524, 0.412743502, 0.464666484, 0.516438318, 0.568419264, 0.619771035, 0.671742621, 0.723582349, 0.77561197, 0.823841118, 0.875765466, 0.927534153, 0.979516464, 1.03084713, 1.08282008, 1.13465664, 1.18668762, 1.23710253, 1.28907164, 1.34089492, 1.39292206, 1.44434659, 1.49636436, 1.54825561, 1.60033147, 1.64473003, 1.69666794, 1.74844834, 1.80044422, 1.8517793, 1.90376582, 1.95561411, 2.00765868, 2.05804914, 2.11003182, 2.16186682, 2.21390754, 2.26533649, 2.31736783, 2.36927081, 2.42136026, 2.46995005, 2.52193412, 2.57376598, 2.62580807, 2.67721591, 2.72924863, 2.78114846, 2.83323928, 2.88378804, 2.93581692, 2.98770346, 3.03979043, 3.09129228, 3.14336988, 3.19532447, 3.24746022])
 
-# PIO0..PIO2 base addresses; SMx_CLKDIV at 0xC8 + 0x18 * x, TXFx at 0x10 + 4 * x, FDEBUG
-# at 0x08 (TXSTALL of SM x: bit 24 + x), DBG_PADOUT at 0x3C (RP2040 datasheet, PIO
-# registers). DREQ of SM x's TX FIFO: 8 * pio + x (RP2040 datasheet, DMA DREQ table;
-# RP2350 numbers PIO2 from 16 the same way).
-_PIO_BASE = (0x50200000, 0x50300000, 0x50400000)
+# RP2040 registers (vendor SDK hardware/regs: addressmap.h, pio.h, dreq.h):
+# state machine x's registers lie _SM_STRIDE * x above SM0's, its TX FIFO _TXF_STRIDE * x above TXF0,
+# its TX FIFO's DMA request x above its block's.
+_PIO_BASE = (0x50200000, 0x50300000)  # sdk: PIO0_BASE, PIO1_BASE
+_DREQ_PIO_TX0 = (0, 8)  # sdk: DREQ_PIO0_TX0, DREQ_PIO1_TX0
+_SM0_CLKDIV = 0xC8  # sdk: PIO_SM0_CLKDIV_OFFSET
+_SM0_EXECCTRL = 0xCC  # sdk: PIO_SM0_EXECCTRL_OFFSET
+_SM0_ADDR = 0xD4  # sdk: PIO_SM0_ADDR_OFFSET
+_SM0_INSTR = 0xD8  # sdk: PIO_SM0_INSTR_OFFSET
+_SM_STRIDE = 0x18  # sdk: PIO_SM1_CLKDIV_OFFSET - PIO_SM0_CLKDIV_OFFSET
+_TXF0 = 0x10  # sdk: PIO_TXF0_OFFSET
+_TXF_STRIDE = 0x4  # sdk: PIO_TXF1_OFFSET - PIO_TXF0_OFFSET
+_FDEBUG = 0x8  # sdk: PIO_FDEBUG_OFFSET
+_TXSTALL_LSB = 24  # sdk: PIO_FDEBUG_TXSTALL_LSB
+_IRQ = 0x30  # sdk: PIO_IRQ_OFFSET
+_DBG_PADOUT = 0x3C  # sdk: PIO_DBG_PADOUT_OFFSET
+_SIDE_PINDIR_LSB = 29  # sdk: PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB
 SPW = SAMPLES_PER_WORD
 SHIFT_RIGHT = True
 MSB_HIGH = True
@@ -160,17 +172,17 @@ class Player:
             CLKDIV_INT * 256 + CLKDIV_FRAC), out_base=Pin(OUT_BASE))
         self.pio = _PIO_BASE[sm_id // 4]
         self.idx = sm_id % 4
-        mem32[self.pio + 0xC8 + 0x18 * self.idx] = CLKDIV_REG  # the exact 16.8 divider
-        self.txf = self.pio + 0x10 + 4 * self.idx
+        mem32[self.pio + _SM0_CLKDIV + _SM_STRIDE * self.idx] = CLKDIV_REG  # the exact 16.8 divider
+        self.txf = self.pio + _TXF0 + _TXF_STRIDE * self.idx
         self.dma = rp2.DMA()
         self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
-                                       treq_sel=8 * (sm_id // 4) + self.idx)
+                                       treq_sel=_DREQ_PIO_TX0[sm_id // 4] + self.idx)
         self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
         self.running = False
         self.last_word = IDLE_WORD  # the last word handed to the state machine
 
     def _code_on_pins(self) -> int:
-        return _code_of(mem32[self.pio + 0x3C] >> (OUT_BASE - GPIO_BASE))
+        return _code_of(mem32[self.pio + _DBG_PADOUT] >> (OUT_BASE - GPIO_BASE))
 
     def _send(self, buf: "array.array[int]", count: int) -> None:
         while self.dma.active():
@@ -194,7 +206,7 @@ class Player:
             return self._code_on_pins() == code
         # autopull and pull stall on the empty FIFO only once the last word has left
         # the output shift register (FDEBUG.TXSTALL)
-        return bool(mem32[self.pio + 0x08] & (1 << (24 + self.idx)))
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
 
     def _drain(self, code: int = IDLE_CODE) -> None:
         while not self._drained(code):
@@ -205,7 +217,7 @@ class Player:
         self.sm.restart()
 
     def _go(self) -> None:
-        mem32[self.pio + 0x08] = 1 << (24 + self.idx)  # clear TXSTALL
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
         self.sm.active(1)
 
     def stop(self) -> None:
