@@ -8,9 +8,9 @@ import re
 import subprocess
 import sys
 from fractions import Fraction
-from pathlib import Path
 
 import pytest
+from chip.harness import sdk_path
 
 from ladderpack.errors import ClockError, OptionError
 from ladderpack.outputs.pwm import (
@@ -21,7 +21,6 @@ from ladderpack.outputs.pwm import (
     plan_pwm,
 )
 
-SDK = Path(__file__).resolve().parents[2] / "shared" / "vendor" / "pico-sdk"
 RATES = [8000, 11025, 16000, 22050, 32000, 44100, 48000, 96000]
 
 
@@ -97,7 +96,9 @@ def test_plan_keeps_the_best_resolution(rate: int) -> None:
 def test_dreq_numbers_match_the_sdk_headers() -> None:
     # hardware/regs/dreq.h of each chip in the vendored SDK (REFERENCES.md section 13).
     for chip in ("rp2040", "rp2350"):
-        text = (SDK / "src" / chip / "hardware_regs/include/hardware/regs/dreq.h").read_text()
+        text = (
+            sdk_path() / "src" / chip / "hardware_regs/include/hardware/regs/dreq.h"
+        ).read_text()
         wrap = int(re.search(r"#define DREQ_PWM_WRAP0 (\d+)", text).group(1))  # type: ignore[union-attr]
         timer = int(re.search(r"#define DREQ_DMA_TIMER0 (\d+)", text).group(1))  # type: ignore[union-attr]
         assert (DREQ_PWM_WRAP0[chip], DREQ_DMA_TIMER0[chip]) == (wrap, timer)
@@ -105,7 +106,7 @@ def test_dreq_numbers_match_the_sdk_headers() -> None:
 
 def test_divider_field_widths_match_the_sdk_headers() -> None:
     # hardware/regs/pwm.h: DIV_INT bits 11:4 (8 bits), DIV_FRAC bits 3:0, TOP 16 bits.
-    text = (SDK / "src/rp2040/hardware_regs/include/hardware/regs/pwm.h").read_text()
+    text = (sdk_path() / "src/rp2040/hardware_regs/include/hardware/regs/pwm.h").read_text()
     assert "#define PWM_CH0_DIV_INT_BITS   _u(0x00000ff0)" in text
     assert "#define PWM_CH0_DIV_FRAC_BITS   _u(0x0000000f)" in text
     assert "#define PWM_CH0_TOP_BITS   _u(0x0000ffff)" in text

@@ -63,13 +63,26 @@ def chip_unavailable(reason: str) -> NoReturn:
     pytest.skip(line)
 
 
-def vendor_path(part: str) -> Path:
-    """The path of a vendored part: its environment variable, else beside the clone."""
-    var, fallback, what = VENDOR_PARTS[part]
+def _part_path(part: str) -> Path:
+    var, fallback, _what = VENDOR_PARTS[part]
     value = os.environ.get(var)
-    path = Path(value) if value else fallback
+    return Path(value) if value else fallback
+
+
+def vendor_path(part: str) -> Path:
+    """The path of a vendored part: its environment variable, else beside the clone.
+
+    When it is missing the test skips (fails in CI) with a line naming every missing
+    part, the same line for every firmware test, so pytest reports it once.
+    """
+    path = _part_path(part)
     if not path.exists():
-        chip_unavailable(f"{what} (${var} is {'unset' if not value else repr(value)})")
+        missing = [
+            f"{what} (${var})"
+            for key, (var, _f, what) in VENDOR_PARTS.items()
+            if not _part_path(key).exists()
+        ]
+        chip_unavailable(", ".join(missing))
     return path
 
 
