@@ -188,6 +188,30 @@ def test_c_player_stop_ramps_to_idle(fw: Firmware, tmp_path: Path) -> None:
     assert np.abs(np.diff(played)).max() <= step
 
 
+@pytest.mark.parametrize("idle_code", [0, 200])
+def test_c_player_request_stop_ramps_every_period_to_idle(
+    fw: Firmware, tmp_path: Path, idle_code: int
+) -> None:
+    # A mono stream's DMA moves 16-bit transfers: the ramp made at run time must hold one
+    # value a halfword, or every other period plays 0 (issue 26, item 1).
+    exp, _files = make(tmp_path, "hush", seconds=0.02, freq_hz=440.0, idle_code=idle_code)
+    per_sample = exp.period_clocks * exp.periods_per_sample
+    ops = [("init", 0), ("start", 0), ("delay", int(150 * per_sample)), ("request_stop", 0)]
+    ops += [("wait", 0)]
+    image = fw.make(tmp_path, [], [], app=app("hush", ops))
+    r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    values, _t = per_period(r.periods, exp)
+    want = np.repeat(exp.codes, exp.periods_per_sample)
+    start = find(values, want[:50])
+    played = values[start:]
+    step = int(np.abs(np.diff(np.concatenate([[exp.idle], exp.codes, [exp.idle]]))).max())
+    assert np.abs(np.diff(played)).max() <= step
+    assert played[-1] == exp.idle == idle_code
+    if idle_code:
+        assert played.min() > 0  # no zero halves between the ramp's values
+
+
 def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path: Path) -> None:
     exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0)
     per_pass = exp.codes.size * exp.period_clocks * exp.periods_per_sample

@@ -29,6 +29,18 @@ static uint32_t lp_pwm_value(const lp_pwm_stream_t *s, uint32_t a, uint32_t b) {
     return s->stereo ? (a | (b << 16)) : a;
 }
 
+/* Store transfer i of a ramp made at run time: a word for stereo (32-bit transfers), a
+ * halfword for mono, whose 16-bit transfers read two values from each word, the lower
+ * address first (the chip is little-endian). */
+static void lp_pwm_ramp_put(lp_pwm_player_t *p, uint32_t i, uint32_t v) {
+    if (p->stream->stereo) {
+        p->ramp[i] = v;
+    } else {
+        uint32_t sh = (i & 1u) * 16u;
+        p->ramp[i >> 1] = (p->ramp[i >> 1] & ~(0xFFFFu << sh)) | ((v & 0xFFFFu) << sh);
+    }
+}
+
 /* A raised-cosine step from `from` to `to`, k of n (0 < k <= n), limited to `step` from
  * `prev`. */
 static uint32_t lp_pwm_ramp_at(uint32_t from, uint32_t to, uint32_t k, uint32_t n,
@@ -76,9 +88,9 @@ static __noinline uint32_t lp_pwm_build_ramp(lp_pwm_player_t *p, uint32_t a, uin
     for (k = 1u; k <= n; ++k) {
         pa = lp_pwm_ramp_at(a, to, k, n, pa, step);
         pb = lp_pwm_ramp_at(b, to, k, n, pb, step);
-        p->ramp[k - 1u] = lp_pwm_value(s, pa, pb);
+        lp_pwm_ramp_put(p, k - 1u, lp_pwm_value(s, pa, pb));
     }
-    p->ramp[n] = lp_pwm_value(s, to, to);
+    lp_pwm_ramp_put(p, n, lp_pwm_value(s, to, to));
     return n + 1u;
 }
 
@@ -200,7 +212,7 @@ int lp_pwm_start(lp_pwm_player_t *p, bool loop) {
     p->looping = loop && s->loop;
     /* The tail: the outro, or one more idle value, written at the wrap (or tick) after
      * the stream's last value has been latched. */
-    p->ramp[0] = lp_pwm_value(s, s->idle_code, s->idle_code);
+    lp_pwm_ramp_put(p, 0u, lp_pwm_value(s, s->idle_code, s->idle_code));
     if (s->outro != NULL) {
         lp_pwm_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     } else {
