@@ -223,7 +223,7 @@ int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {
     p->program.instructions = s->program;
     p->program.length = s->program_length;
     p->program.origin = -1;
-#if PICO_PIO_USE_GPIO_BASE
+#if defined(PICO_PIO_USE_GPIO_BASE) && PICO_PIO_USE_GPIO_BASE
     if (pio_get_gpio_base(pio) != s->gpio_base
         && pio_set_gpio_base(pio, s->gpio_base) != PICO_OK) {
         return LP_I2S_ERR_GPIO;

@@ -223,7 +223,7 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     p->program.instructions = s->program;
     p->program.length = s->program_length;
     p->program.origin = -1;
-#if PICO_PIO_USE_GPIO_BASE
+#if defined(PICO_PIO_USE_GPIO_BASE) && PICO_PIO_USE_GPIO_BASE
     /* GPIO 32 and above are reached through the block's GPIO base (RP2350B; only a
      * block with no program loaded can change it). */
     if (pio_get_gpio_base(pio) != s->gpio_base
