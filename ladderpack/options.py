@@ -425,8 +425,8 @@ class StreamOptions(_Model):
     )
     frame_format: str = _opt(
         "standard",
-        "I2S only: standard (MSB one bit clock after the word-select edge, Philips I2S) "
-        "or left-justified (MSB on the edge).",
+        "I2S only: standard (MSB one bit clock after the word-select edge, left while WS "
+        "is low: Philips I2S) or left-justified (MSB on the edge, left while LRCK is high).",
         choices=FRAME_FORMATS,
     )
     gpio_count: int | None = _opt(

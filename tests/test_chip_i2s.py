@@ -92,8 +92,12 @@ def decode_i2s(changes: np.ndarray, frame_format: str) -> tuple[np.ndarray, np.n
         word = 0
         for b in data[s : s + 32]:
             word = (word << 1) | int(b)
-        # the word select belongs to the slot from its MSB to the bit before its LSB
-        slots.append((word, int(ws[s])))
+        # the word select belongs to the slot from its MSB to the bit before its LSB; the
+        # I2S frame is left while WS is low (Philips I2S bus specification), a
+        # left-justified frame left while LRCK is high (codec datasheets; REFERENCES.md
+        # section 14, from memory)
+        channel = int(ws[s]) if frame_format == "standard" else 1 - int(ws[s])
+        slots.append((word, channel))
         times.append(int(t[s]))
     return np.array(slots, dtype=np.int64).reshape(-1, 2), np.array(times, dtype=np.int64)
 

@@ -273,6 +273,12 @@ def i2s_program(bits: int, frame_format: str = "standard", *, name: str = "i2s_o
     slot.  In the standard format the word select changes with that last bit, one bit
     clock before the next slot's MSB; left-justified changes it with the MSB.
 
+    The word select's level per channel follows each format's own convention: the I2S
+    frame sends the left channel while WS is low (Philips I2S bus specification, 1986,
+    rev. 1996), while left-justified DACs and codecs take the left channel while LRCK is
+    high (REFERENCES.md section 14, from memory of common codec datasheets: check the
+    part in hand, some offer both polarities).
+
     For 16-bit samples the program sends a slot's 16 data bits from the word, then 16
     zero bits (``mov pins, null``), so one word carries a frame.
 
@@ -297,7 +303,7 @@ def i2s_program(bits: int, frame_format: str = "standard", *, name: str = "i2s_o
         )
     lead = frame_format == "standard"
     ins: list[Instruction] = []
-    for ws in (0, 1):
+    for ws in (0, 1) if lead else (1, 0):  # WS of the left slot, then of the right
         nxt = 1 - ws if lead else ws  # word select during the slot's last bit
         top = len(ins)
         if bits == 16:

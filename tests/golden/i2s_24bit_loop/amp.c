@@ -37,15 +37,15 @@ const uint32_t amp_outro_words[AMP_OUTRO_WORD_COUNT] = {
 };
 
 /* State-machine program (i2s-left-justified; side-set: bit clock, word select):
- *   out pins, 1 side 0
- *   jmp x-- 0 side 1
- *   out pins, 1 side 0
- *   set x, 30 side 1
  *   out pins, 1 side 2
- *   jmp x-- 4 side 3
+ *   jmp x-- 0 side 3
  *   out pins, 1 side 2
  *   set x, 30 side 3
+ *   out pins, 1 side 0
+ *   jmp x-- 4 side 1
+ *   out pins, 1 side 0
+ *   set x, 30 side 1
  */
 const uint16_t amp_program[AMP_PROGRAM_LENGTH] = {
-    0x6001u, 0x0840u, 0x6001u, 0xE83Eu, 0x7001u, 0x1844u, 0x7001u, 0xF83Eu
+    0x7001u, 0x1840u, 0x7001u, 0xF83Eu, 0x6001u, 0x0844u, 0x6001u, 0xE83Eu
 };

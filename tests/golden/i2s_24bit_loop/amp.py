@@ -71,15 +71,15 @@ _SIDE_PINDIR_LSB = 29  # sdk: PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB
 def i2s_program() -> None:
     wrap_target()
     label("a0")
-    out(pins, 1).side(0)
-    jmp(x_dec, "a0").side(1)
-    out(pins, 1).side(0)
-    set(x, 30).side(1)
-    label("a4")
     out(pins, 1).side(2)
-    jmp(x_dec, "a4").side(3)
+    jmp(x_dec, "a0").side(3)
     out(pins, 1).side(2)
     set(x, 30).side(3)
+    label("a4")
+    out(pins, 1).side(0)
+    jmp(x_dec, "a4").side(1)
+    out(pins, 1).side(0)
+    set(x, 30).side(1)
     wrap()
 
 
