@@ -16,6 +16,7 @@ clocks.
 from __future__ import annotations
 
 import json
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
@@ -60,8 +61,10 @@ def decode(wire: np.ndarray) -> list[tuple[int, list[int], list[int]]]:
     return out
 
 
-def app(fmt: I2cDacFormat, codes: list[int], rate_hz: float) -> tuple[str, object]:
-    plan = plan_writer(rate_hz, fmt, bus_hz=400_000)
+def app(
+    fmt: I2cDacFormat, codes: list[int], rate_hz: float | Fraction, bus_hz: int = 400_000
+) -> tuple[str, object]:
+    plan = plan_writer(rate_hz, fmt, bus_hz=bus_hz)
     prog = writer_program()
     words = writer_words(fmt, np.array(codes))
     text = f"""\
@@ -148,16 +151,91 @@ def test_every_update_on_the_bus_at_its_tick(fw: Firmware, tmp_path: Path, comma
     assert np.all(np.diff(starts) == plan.divider * plan.cycles_per_update)  # one a tick
 
 
-def test_a_missing_acknowledge_is_reported(fw: Firmware, tmp_path: Path) -> None:
+def test_a_missing_acknowledge_ends_the_transfer_and_keeps_the_tick(
+    fw: Firmware, tmp_path: Path
+) -> None:
+    # UM10204: a master that sees no acknowledge generates a STOP (or a repeated START);
+    # the writer's branches take equal cycles, so every update still starts on its tick.
     fmt = I2cDacFormat(0x61, "fast")  # the device answers at 0x60 only
-    source, _plan = app(fmt, [100, 200], 6250.0)
+    source, plan = app(fmt, [100, 200, 300, 400], 6250.0)
     (tmp_path / "empty").mkdir()
     image = fw.make(tmp_path / "empty", [], [], app=source)
     r = run(image, fw.mailbox(), extra={"i2c": {"sda": SDA, "scl": SCL, "address": 0x60, "ack": 1}})
     assert r.ended and r.events[-1][1] & 0xFF == 1  # IRQ flag (0 + SM 0) set by the writer
     tx = decode(r.wire)
-    assert [t[1] for t in tx] == [list(fmt.update_bytes(c)) for c in (100, 200)]
-    assert all(a == [1] * fmt.bytes_per_update for _s, _b, a in tx)  # nobody answered
+    assert [t[1] for t in tx] == [[fmt.address_byte]] * 4  # a STOP right after the address
+    assert all(a == [1] for _s, _b, a in tx)  # nobody answered
+    starts = np.array([t[0] for t in tx])
+    assert np.all(np.diff(starts) == plan.divider * plan.cycles_per_update)  # exact period
+
+
+def bus_times(wire: np.ndarray) -> dict[str, int]:
+    """The shortest of each UM10204 Table 10 time on the recorded lines, system clocks.
+
+    `wire` rows are [cycle, scl | sda << 1] at each change. SCL low and high count only
+    inside transfers (between a START and its STOP); data set-up is an SDA change while
+    SCL is low to SCL's next rising edge.
+    """
+    out = {k: 1 << 62 for k in ("t_low", "t_high", "t_hd_sta", "t_su_sto", "t_su_dat", "t_buf")}
+    scl, sda, busy = 1, 1, False
+    scl_since, sda_change, start_at, stop_at = 0, None, None, None
+    for cycle, v in wire:
+        cyc, s, d = int(cycle), int(v & 1), int((v >> 1) & 1)
+        if s != scl:
+            if busy:
+                key = "t_low" if s else "t_high"  # the level that just ended
+                out[key] = min(out[key], cyc - scl_since)
+            if not s and start_at is not None:  # first SCL fall after a START
+                out["t_hd_sta"] = min(out["t_hd_sta"], cyc - start_at)
+                start_at = None
+            if s and sda_change is not None:
+                out["t_su_dat"] = min(out["t_su_dat"], cyc - sda_change)
+                sda_change = None
+            scl_since = cyc
+        if d != sda:
+            if s and scl and not d:  # START
+                if stop_at is not None:
+                    out["t_buf"] = min(out["t_buf"], cyc - stop_at)
+                busy, start_at = True, cyc
+            elif s and scl and d:  # STOP
+                out["t_su_sto"] = min(out["t_su_sto"], cyc - scl_since)
+                busy, stop_at = False, cyc
+            elif not s:
+                sda_change = cyc
+        scl, sda = s, d
+    return out
+
+
+@pytest.mark.parametrize("bus_hz", [100_000, 400_000, 1_000_000])
+def test_bus_times_meet_um10204_at_the_highest_rate(
+    fw: Firmware, tmp_path: Path, bus_hz: int
+) -> None:
+    # NXP UM10204 Table 10 minimums (REFERENCES.md section 14, from memory), in ns, for
+    # Standard-mode, Fast-mode and Fast-mode Plus; the writer at the highest update rate
+    # its plan allows (no pad: updates back to back), decoded from the lines.
+    table = {
+        100_000: {"t_low": 4700, "t_high": 4000, "t_hd_sta": 4000, "t_su_sto": 4000,
+                  "t_su_dat": 250, "t_buf": 4700},
+        400_000: {"t_low": 1300, "t_high": 600, "t_hd_sta": 600, "t_su_sto": 600,
+                  "t_su_dat": 100, "t_buf": 1300},
+        1_000_000: {"t_low": 500, "t_high": 260, "t_hd_sta": 260, "t_su_sto": 260,
+                    "t_su_dat": 50, "t_buf": 500},
+    }[bus_hz]  # fmt: skip
+    fmt = I2cDacFormat(0x60, "register")
+    top = plan_writer(1000.0, fmt, bus_hz=bus_hz).max_rate_hz
+    source, plan = app(fmt, [0, 4095, 2730, 1365], top, bus_hz=bus_hz)
+    assert plan.pad == 0 and plan.achieved_rate_hz == top
+    (tmp_path / "empty").mkdir()
+    image = fw.make(tmp_path / "empty", [], [], app=source)
+    r = run(image, fw.mailbox(), extra={"i2c": {"sda": SDA, "scl": SCL, "address": 0x60, "ack": 1}})
+    tx = decode(r.wire)
+    assert [t[1] for t in tx] == [list(fmt.update_bytes(c)) for c in (0, 4095, 2730, 1365)]
+    ns_per_clock = 10**9 / 125_000_000
+    got = {k: v * ns_per_clock for k, v in bus_times(r.wire).items()}
+    short = {k: (got[k], table[k]) for k in table if got[k] < table[k]}
+    assert not short, short
+    # SCL's fastest full period within a byte stays at or below the bus speed
+    assert (got["t_low"] + got["t_high"]) * 1e-9 >= 1 / bus_hz
 
 
 # --- whole bundles through the players ---------------------------------------------------

@@ -26,6 +26,7 @@ from ladderpack.outputs.i2c_dac import (
     bus_bits_per_update,
     codes_for_volts,
     max_update_rate_hz,
+    min_divider,
 )
 
 
@@ -51,10 +52,39 @@ def test_every_code_round_trips(command: str) -> None:
 def test_bus_budget() -> None:
     fast, reg = I2cDacFormat(command="fast"), I2cDacFormat(command="register")
     assert bus_bits_per_update(fast) == 9 * 3 + 3 and bus_bits_per_update(reg) == 9 * 4 + 3
-    assert max_update_rate_hz(400_000, fast) == Fraction(400_000, 30)
-    assert max_update_rate_hz(100_000, reg) == Fraction(100_000, 39)
+    # the bit-time budget bounds every writer: rate <= bus / (9 B + 3)
+    for bus in (100_000, 400_000, 1_000_000):
+        for fmt in (fast, reg):
+            assert max_update_rate_hz(bus, fmt) < Fraction(bus, bus_bits_per_update(fmt))
+    # and the state-machine writer's own: 40 B + 9 cycles an update at the divider that
+    # meets UM10204 Table 10 (fast mode: t_LOW >= 1.3 us over two cycles -> 82 at 125 MHz)
+    assert min_divider(400_000, 125_000_000) == 82  # 2 x 82 / 125 MHz = 1312 ns >= 1300 ns
+    assert min_divider(100_000, 125_000_000) == 313  # SCL <= 100 kHz; t_LOW 5008 >= 4700 ns
+    assert min_divider(1_000_000, 125_000_000) == 32  # SCL <= 1 MHz; t_LOW 512 >= 500 ns
+    assert max_update_rate_hz(400_000, fast) == Fraction(125_000_000, 82 * 129)
+    assert max_update_rate_hz(100_000, reg) == Fraction(125_000_000, 313 * 169)
     with pytest.raises(OptionError):
         max_update_rate_hz(3_400_000, fast)
+
+
+@pytest.mark.parametrize("bus_hz", [100_000, 400_000, 1_000_000])
+@pytest.mark.parametrize("sys_clock_hz", [48_000_000, 125_000_000, 133_000_000, 150_000_000])
+def test_min_divider_meets_every_table_10_time(bus_hz: int, sys_clock_hz: int) -> None:
+    # UM10204 Table 10 minimums (REFERENCES.md section 14, from memory), in ns
+    table = {
+        100_000: (4700, 4000, 4000, 4000, 250, 4700),
+        400_000: (1300, 600, 600, 600, 100, 1300),
+        1_000_000: (500, 260, 260, 260, 50, 500),
+    }[bus_hz]
+    cycles = (2, 2, 2, 2, 1, 5)  # the writer's t_LOW, t_HIGH, t_HD;STA, t_SU;STO, t_SU;DAT, t_BUF
+    d = min_divider(bus_hz, sys_clock_hz)
+    ns = Fraction(d * 10**9, sys_clock_hz)
+    assert all(c * ns >= t for c, t in zip(cycles, table, strict=True))
+    assert Fraction(sys_clock_hz, 4 * d) <= bus_hz
+    # and one less fails one of them
+    ns1 = Fraction((d - 1) * 10**9, sys_clock_hz)
+    fails = [c * ns1 < t for c, t in zip(cycles, table, strict=True)]
+    assert any(fails) or Fraction(sys_clock_hz, 4 * (d - 1)) > bus_hz
 
 
 def test_codes_for_volts_and_refusals() -> None:
@@ -142,7 +172,7 @@ def test_clock_command_plans_the_writer() -> None:
     res = CliRunner().invoke(cli, ["clock", "6250", "--output", "i2c-dac", "--json"])
     assert res.exit_code == 0, res.output
     d = _json.loads(res.output)
-    assert d["divider"] == 80 and d["cycles_per_update"] == 250 and d["error_ppm"] == 0
+    assert d["divider"] == 100 and d["cycles_per_update"] == 200 and d["error_ppm"] == 0
     res = CliRunner().invoke(cli, ["clock", "50000", "--output", "i2c-dac"])
     assert res.exit_code != 0 and "more than the bus carries" in str(res.exception)
 
@@ -233,7 +263,7 @@ def test_stream_refuses_a_rate_the_bus_cannot_carry() -> None:
 
     with pytest.raises(OptionError) as e:
         stream_tone("sine", output="i2c-dac", rate_hz=13_000, seconds=0.01)
-    assert e.value.field == "rate_hz" and "12266" in e.value.message
+    assert e.value.field == "rate_hz" and "11817" in e.value.message
     a = stream_tone("sine", output="i2c-dac", rate_hz=13_000, bus_hz=1_000_000, seconds=0.01)
     assert a.summary()["i2c_dac"]["max_rate_hz"] == pytest.approx(125e6 / (32 * 129), abs=1e-3)
     # 8 kHz at 125 MHz is +64 ppm (divider 84, 186 cycles): over a 10 ppm tolerance the

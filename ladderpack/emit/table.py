@@ -201,8 +201,8 @@ def render_i2c_dac_files(
     notes = [
         f"{what} as {fmt.command} writes to a 12-bit I2C DAC at 0x{fmt.address:02X}: the "
         f"data bytes after the address, {nb} a row;",
-        f"output = {vref_volts!r} V x code / 4096; at most {rates} (9 bit times a byte, "
-        "START, STOP and bus free).",
+        f"output = {vref_volts!r} V x code / 4096; at most {rates} (the state-machine "
+        "writer at 125 MHz, every UM10204 Table 10 time met).",
         "Mind the bus: pull-ups on SDA and SCL to the DAC's supply, logic levels the board "
         "tolerates (3.3 V here).",
     ]

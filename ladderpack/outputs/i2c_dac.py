@@ -12,11 +12,13 @@ PD1 PD0 = 00 is normal operation (the others power the output down into a load).
 output is ``Vref x code / 4096`` (the MCP4725's reference is its supply).
 
 Each byte on the bus is eight data bits and an acknowledge bit, and a write is framed by
-a START and a STOP condition (NXP UM10204, "I2C-bus specification and user manual"); we
-count one bit time each for START, STOP and the bus-free time before the next START, so
-an update of B bytes (the address included) takes ``9 B + 3`` bit times.  That bounds the
-update rate: ``rate <= bus_hz / (9 B + 3)``: 13.3 kHz for a fast write at 400 kHz,
-33.3 kHz at 1 MHz (Fast-mode Plus, if the DAC supports it; the MCP4725 also has a 3.4 MHz
+a START and a STOP condition (NXP UM10204, "I2C-bus specification and user manual"); an
+update of B bytes (the address included) takes at least ``9 B + 3`` bit times, so
+``rate <= bus_hz / (9 B + 3)``.  The state-machine writer takes four cycles a bit and
+must meet every minimum time of UM10204 Table 10 (SCL low and high, START hold, STOP
+set-up, data set-up, bus free), not only the SCL frequency (:func:`min_divider`): at
+125 MHz its fast writes reach 3096 updates a second at 100 kHz, 11817 at 400 kHz and
+30281 at 1 MHz (Fast-mode Plus, if the DAC supports it; the MCP4725 also has a 3.4 MHz
 high-speed mode not used here).
 """
 
@@ -33,6 +35,7 @@ from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wr
 
 __all__ = [
     "BUS_SPEEDS_HZ",
+    "BUS_TIMING_NS",
     "COMMANDS",
     "I2cDacFormat",
     "I2cDacLayout",
@@ -41,6 +44,7 @@ __all__ = [
     "codes_for_volts",
     "i2c_state_machine",
     "max_update_rate_hz",
+    "min_divider",
     "plan_writer",
     "writer_cycles",
     "writer_program",
@@ -163,20 +167,74 @@ def bus_bits_per_update(fmt: I2cDacFormat) -> int:
     return 9 * fmt.bytes_per_update + FRAME_BITS
 
 
-def max_update_rate_hz(bus_hz: int, fmt: I2cDacFormat) -> Fraction:
-    """Highest update (sample) rate at a bus clock, Hz.
+def max_update_rate_hz(bus_hz: int, fmt: I2cDacFormat, sys_clock_hz: int = 125_000_000) -> Fraction:
+    """Highest update (sample) rate the writer reaches at a bus speed, Hz.
+
+    That is one update every :func:`writer_cycles` (no pad) at the smallest divider
+    :func:`min_divider` allows: below the ``bus_hz / (9 B + 3)`` bit-time budget, because
+    the writer's bits take four cycles and its timing must meet every minimum of UM10204
+    Table 10, not only the SCL frequency.
 
     Examples
     --------
     >>> float(max_update_rate_hz(400_000, I2cDacFormat(command="fast")))
-    13333.333333333334
+    11816.978634902629
     """
+    _check_bus(bus_hz)
+    return Fraction(
+        sys_clock_hz, min_divider(bus_hz, sys_clock_hz) * writer_cycles(fmt.bytes_per_update, 0)
+    )
+
+
+def _check_bus(bus_hz: int) -> None:
     if bus_hz not in BUS_SPEEDS_HZ:
         raise OptionError(
             f"must be one of {', '.join(str(b) for b in BUS_SPEEDS_HZ)} Hz, got {bus_hz!r}",
             field="bus_hz",
         )
-    return Fraction(bus_hz, bus_bits_per_update(fmt))
+
+
+#: UM10204 (NXP, "I2C-bus specification and user manual", Table 10: characteristics of
+#: the SDA and SCL bus lines) minimum times in ns for Standard-mode, Fast-mode and
+#: Fast-mode Plus; REFERENCES.md section 14 (from memory, to confirm against the table).
+BUS_TIMING_NS: dict[int, dict[str, int]] = {
+    100_000: {"t_low": 4700, "t_high": 4000, "t_hd_sta": 4000, "t_su_sto": 4000,
+              "t_su_dat": 250, "t_buf": 4700},
+    400_000: {"t_low": 1300, "t_high": 600, "t_hd_sta": 600, "t_su_sto": 600,
+              "t_su_dat": 100, "t_buf": 1300},
+    1_000_000: {"t_low": 500, "t_high": 260, "t_hd_sta": 260, "t_su_sto": 260,
+                "t_su_dat": 50, "t_buf": 500},
+}  # fmt: skip
+
+#: The writer's shortest stretch of each of those times, in state-machine cycles (see
+#: :func:`writer_program`): SCL low and high two cycles each, START hold and STOP set-up
+#: two, data set-up one (SDA changes one cycle before SCL rises), bus free at least five
+#: (STOP, the copy of Y, one pad cycle and the pull before the next START).
+WRITER_TIMING_CYCLES = {
+    "t_low": 2, "t_high": 2, "t_hd_sta": 2, "t_su_sto": 2, "t_su_dat": 1, "t_buf": 5,
+}  # fmt: skip
+
+
+def min_divider(bus_hz: int, sys_clock_hz: int) -> int:
+    """The smallest whole clock divider at which the writer meets the bus speed's limits.
+
+    SCL at most `bus_hz` (four cycles a bit) and every minimum time of UM10204 Table 10
+    (:data:`BUS_TIMING_NS`) met by the writer's shortest stretch of it
+    (:data:`WRITER_TIMING_CYCLES`).
+
+    Examples
+    --------
+    >>> min_divider(400_000, 125_000_000)  # t_LOW: 2 cycles >= 1300 ns, not 79 (SCL 396 kHz)
+    82
+    >>> min_divider(100_000, 125_000_000), min_divider(1_000_000, 125_000_000)
+    (313, 32)
+    """
+    _check_bus(bus_hz)
+    least = -(-sys_clock_hz // (CYCLES_PER_BIT * bus_hz))
+    for key, ns in BUS_TIMING_NS[bus_hz].items():
+        need = Fraction(ns * sys_clock_hz, 10**9 * WRITER_TIMING_CYCLES[key])
+        least = max(least, -(-need.numerator // need.denominator))
+    return least
 
 
 def codes_for_volts(volts: np.ndarray, vref_volts: float, bits: int = 12) -> np.ndarray:
@@ -206,12 +264,17 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
     ``set pindirs`` drive SDA.  Each FIFO word carries one byte, inverted (a 1 drives
     SDA low) in bits 31:24, and in bit 23 a flag marking the update's last byte, after
     which the STOP follows.  Each byte's acknowledge is sampled while SCL is high (``jmp
-    pin``, JMP_PIN = SDA); a missing one sets an IRQ flag for the player (``irq 0 rel``:
-    flag N for state machine N of the block) and the write goes on.  After the STOP the
-    machine counts Y + 1 cycles, so that every update starts one sample period after the
-    one before (:func:`writer_cycles`).  Four cycles a bit:
-    SDA changes while SCL is low, SCL is high for two cycles (UM10204's START, STOP,
-    setup and hold times are met at the bus clock the plan sets).
+    pin``, JMP_PIN = SDA).  After the STOP the machine counts Y + 1 cycles, so that every
+    update starts one sample period after the one before (:func:`writer_cycles`).  Four
+    cycles a bit: SDA changes one cycle after SCL falls, SCL is low for two cycles and
+    high for two; :func:`min_divider` makes those cycles long enough for every time of
+    UM10204's Table 10 at the chosen bus speed.
+
+    A missing acknowledge sets an IRQ flag for the player (``irq 0 rel``: flag N for
+    state machine N of the block) and ends the transfer with a STOP at once, as UM10204
+    asks of a master that sees no acknowledge; the update's remaining bytes are taken
+    from the FIFO with the bus idle, each in the time it would have taken on the bus, so
+    the next update still starts on its tick (both branches take the same cycles).
     """
     ins = [
         Instruction("pull", (False, True), side=0),  # 0 start: wait for an update, bus idle
@@ -228,12 +291,22 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
         Instruction("set", ("pindirs", 1), delay=1, side=1),  # 11 STOP: SDA low, SCL low
         Instruction("nop", (), delay=1, side=0),  # 12 SCL high
         Instruction("set", ("pindirs", 0), delay=1, side=0),  # 13 SDA high: STOP
-        Instruction("mov", ("x", "y"), side=0),  # 14 the rest of the sample period
+        Instruction("mov", ("x", "y"), side=0),  # 14 tail: the rest of the sample period
         Instruction("jmp", ("x--", 15), side=0),  # 15 pad
         Instruction("pull", (False, True), side=1),  # 16 next: the next byte
         Instruction("jmp", ("", 2), side=1),  # 17
-        Instruction("irq", ("set", 0, "rel"), side=0),  # 18 nack: flag (0 + SM) mod 4
-        Instruction("jmp", ("", 9), side=0),  # 19
+        Instruction("irq", ("set", 0, "rel"), side=1),  # 18 nack: SCL low; flag (0 + SM) mod 4
+        Instruction("set", ("pindirs", 1), side=1),  # 19 SDA low while SCL is low
+        Instruction("nop", (), delay=1, side=0),  # 20 SCL high: STOP set-up
+        Instruction("set", ("pindirs", 0), side=0),  # 21 SDA high: STOP; the bus is idle
+        Instruction("out", ("x", 1), side=0),  # 22 flag: was this the update's last byte?
+        Instruction("jmp", ("!x", 25), side=0),  # 23 no: skip the next byte
+        Instruction("jmp", ("", 14), side=0),  # 24 yes: the tail, as after a STOP
+        Instruction("pull", (False, True), side=0),  # 25 skip: a byte not sent
+        Instruction("out", ("null", 8), side=0),  # 26
+        Instruction("set", ("x", SKIP_WAIT), side=0),  # 27 the byte's time on the bus
+        Instruction("jmp", ("x--", 28), delay=1, side=0),  # 28
+        Instruction("jmp", ("", 22), side=0),  # 29
     ]
     return Program(
         name,
@@ -244,6 +317,11 @@ def writer_program(name: str = "i2c_dac_out") -> Program:
         autopull=False,
         variant="i2c-dac",
     )
+
+
+#: The skip loop's count: a skipped byte takes 4 + 2 (SKIP_WAIT + 1) cycles from the
+#: flag test to the next, the 40 a sent byte takes (38 on the bus and the pull between).
+SKIP_WAIT = 16
 
 
 def writer_cycles(bytes_per_update: int, pad: int) -> int:
@@ -353,9 +431,10 @@ def plan_writer(
 ) -> I2cDacPlan:
     """Clock the writer: the bus no faster than `bus_hz`, updates at `rate_hz`.
 
-    The divider is a whole number keeping SCL at or below `bus_hz` (four cycles a bit):
-    of those up to four times the smallest, the one whose whole number of cycles per
-    update (at least what one update takes) comes nearest the rate, then the fastest.
+    The divider is a whole number at least :func:`min_divider` (SCL at or below `bus_hz`,
+    four cycles a bit, and every UM10204 Table 10 minimum met): of those up to four times
+    the smallest, the one whose whole number of cycles per update (at least what one
+    update takes) comes nearest the rate, then the fastest.
 
     Raises
     ------
@@ -366,22 +445,19 @@ def plan_writer(
     --------
     >>> p = plan_writer(6250, I2cDacFormat(command="fast"), bus_hz=400_000)
     >>> p.divider, p.cycles_per_update, round(float(p.bus_hz)), p.error_ppm
-    (80, 250, 390625, 0.0)
+    (100, 200, 312500, 0.0)
     """
-    if bus_hz not in BUS_SPEEDS_HZ:
-        raise OptionError(
-            f"must be one of {', '.join(str(b) for b in BUS_SPEEDS_HZ)} Hz, got {bus_hz!r}",
-            field="bus_hz",
-        )
+    _check_bus(bus_hz)
     rate = Fraction(rate_hz)
-    divider = -(-sys_clock_hz // (CYCLES_PER_BIT * bus_hz))
+    divider = min_divider(bus_hz, sys_clock_hz)
     least = writer_cycles(fmt.bytes_per_update, 0)
     fastest = Fraction(sys_clock_hz, divider * least)
     if rate > fastest:
         raise OptionError(
             f"{float(rate):g} updates a second is more than the bus carries: at most "
             f"{float(fastest):.0f} with {fmt.bytes_per_update} bytes an update at "
-            f"{float(Fraction(sys_clock_hz, divider * CYCLES_PER_BIT)):.0f} Hz SCL",
+            f"{float(Fraction(sys_clock_hz, divider * CYCLES_PER_BIT)):.0f} Hz SCL (the "
+            f"fastest clock meeting every UM10204 bus time at {bus_hz // 1000} kHz)",
             field="rate_hz",
         )
     # a slower bus (a larger divider, up to 4x) may divide the clock exactly: the best

@@ -6,8 +6,9 @@
  * sample period after the one before; DMA paced by its TX request feeds it one bus byte
  * per FIFO word from flash. A loop is re-armed by a control channel, without the CPU.
  * Each byte's acknowledge is checked: a missing one sets the state machine's IRQ flag
- * (lp_i2c_nack_seen) and the write goes on. Nothing here blocks unless its comment says
- * so.
+ * (lp_i2c_nack_seen) and ends that update's transfer with a STOP at once; its other
+ * bytes are skipped with the bus idle, in the time they would have taken, so the next
+ * update still starts on its tick. Nothing here blocks unless its comment says so.
  *
  * Every way a playback ends leaves the DAC on the idle code: a stream ends with its own
  * ramp, a stopped stream ramps down at run time from the code it was on (a raised

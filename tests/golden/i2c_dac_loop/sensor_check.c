@@ -44,11 +44,22 @@ const uint32_t sensor_check_outro_words[SENSOR_CHECK_OUTRO_WORD_COUNT] = {
  *   jmp x-- 15 side 0
  *   pull block side 1
  *   jmp 2 side 1
- *   irq 0 rel side 0
- *   jmp 9 side 0
+ *   irq 0 rel side 1
+ *   set pindirs, 1 side 1
+ *   nop side 0 [1]
+ *   set pindirs, 0 side 0
+ *   out x, 1 side 0
+ *   jmp !x 25 side 0
+ *   jmp 14 side 0
+ *   pull block side 0
+ *   out null, 8 side 0
+ *   set x, 16 side 0
+ *   jmp x-- 28 side 0 [1]
+ *   jmp 22 side 0
  */
 const uint16_t sensor_check_program[SENSOR_CHECK_PROGRAM_LENGTH] = {
     0x90A0u, 0xF181u, 0xF827u, 0x7881u, 0xB142u, 0x1843u, 0xF880u, 0xB042u,
     0x10D2u, 0x7821u, 0x1830u, 0xF981u, 0xB142u, 0xF180u, 0xB022u, 0x104Fu,
-    0x98A0u, 0x1802u, 0xD010u, 0x1009u
+    0x98A0u, 0x1802u, 0xD810u, 0xF881u, 0xB142u, 0xF080u, 0x7021u, 0x1039u,
+    0x100Eu, 0x90A0u, 0x7068u, 0xF030u, 0x115Cu, 0x1016u
 };

@@ -30,7 +30,7 @@
 #define SENSOR_CHECK_SDA_PIN             4u /* SDA GPIO (open drain) */
 #define SENSOR_CHECK_SCL_PIN             5u /* SCL GPIO (open drain) */
 #define SENSOR_CHECK_GPIO_BASE           0u /* PIO GPIO base (16 for GPIO 32 and above) */
-#define SENSOR_CHECK_PROGRAM_LENGTH      20u /* instructions */
+#define SENSOR_CHECK_PROGRAM_LENGTH      30u /* instructions */
 #define SENSOR_CHECK_PROGRAM_WRAP_TARGET 0u /* relative to load offset */
 #define SENSOR_CHECK_PROGRAM_WRAP        15u /* relative to load offset */
 #define SENSOR_CHECK_REG_CLKDIV          0x007D0000u /* SMx_CLKDIV */

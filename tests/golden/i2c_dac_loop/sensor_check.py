@@ -90,12 +90,12 @@ def i2c_program() -> None:
     set(pindirs, 0).side(1)
     nop().side(0)
     jmp(pin, "a18").side(0)
-    label("a9")
     out(x, 1).side(1)
     jmp(not_x, "a16").side(1)
     set(pindirs, 1).side(1)[1]
     nop().side(0)[1]
     set(pindirs, 0).side(0)[1]
+    label("a14")
     mov(x, y).side(0)
     label("a15")
     jmp(x_dec, "a15").side(0)
@@ -104,8 +104,21 @@ def i2c_program() -> None:
     pull(block).side(1)
     jmp("a2").side(1)
     label("a18")
-    irq(rel(0)).side(0)
-    jmp("a9").side(0)
+    irq(rel(0)).side(1)
+    set(pindirs, 1).side(1)
+    nop().side(0)[1]
+    set(pindirs, 0).side(0)
+    label("a22")
+    out(x, 1).side(0)
+    jmp(not_x, "a25").side(0)
+    jmp("a14").side(0)
+    label("a25")
+    pull(block).side(0)
+    out(null, 8).side(0)
+    set(x, 16).side(0)
+    label("a28")
+    jmp(x_dec, "a28").side(0)[1]
+    jmp("a22").side(0)
 
 
 def _update(code: int) -> "list[int]":
