@@ -313,14 +313,22 @@ def _model_options_lazy(cls_name: str, **kw: Any) -> Callable[[Any], Any]:
     return model_options(getattr(options, cls_name), **kw)
 
 
-def _stream_options(func: Callable[..., Any]) -> Callable[..., Any]:
-    """Options shared by every command that makes a stream bundle (from StreamOptions)."""
+def _stream_options(*, clip: bool) -> Callable[[Any], Any]:
+    """Options of every command that makes a stream bundle (from StreamOptions).
+
+    Without `clip`, none of the options only a clip takes (a tone is made at its own
+    level).
+    """
     from ladderpack.options import StreamOptions
 
-    func = click.option(
-        "--json", "as_json", is_flag=True, help="Print the summary as JSON instead of text."
-    )(func)
-    return model_options(StreamOptions)(func)
+    def apply(func: Callable[..., Any]) -> Callable[..., Any]:
+        func = click.option(
+            "--json", "as_json", is_flag=True, help="Print the summary as JSON instead of text."
+        )(func)
+        exclude = () if clip else StreamOptions.CLIP_ONLY
+        return model_options(StreamOptions, exclude=exclude)(func)
+
+    return apply
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -352,7 +360,7 @@ def cli(debug: bool) -> None:
     "--name", default=None, help="Asset name for files and symbols  [default: the clip's file name]"
 )
 @_model_options_lazy("ClipOptions")
-@_stream_options
+@_stream_options(clip=True)
 def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: Any) -> None:
     """Convert the sound file CLIP (WAV, FLAC, OGG, AIFF) into a stream bundle."""
     from ladderpack.bundle import write_bundle
@@ -383,7 +391,7 @@ def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: A
 )
 @click.option("--name", default=None, help="Asset name  [default: the kind]")
 @_model_options_lazy("ToneSpec")
-@_stream_options
+@_stream_options(clip=False)
 def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any) -> None:
     """Synthesise a test waveform KIND at the stream rate into a bundle.
 

@@ -793,10 +793,17 @@ class StreamOptions(_Model):
 
     def check_for_tone(self) -> None:
         """Refuse the clip-only options (a tone is synthesised at its own level)."""
+        why = {
+            "fade_ms": "a tone starts and ends on whole samples of its own; --ramp-ms sets "
+            "the ramps from and to the idle code",
+            "crossfade_ms": "a looped tone is made of whole cycles, so its seam needs no crossfade",
+        }
         for name in self.CLIP_ONLY:
             if _flag_given(self, name):
                 raise OptionError(
-                    "does not apply to a synthesised tone (set its level with level_dbfs)",
+                    "does not apply to a synthesised tone ("
+                    + why.get(name, "set its level with level_dbfs")
+                    + ")",
                     field=name,
                 )
 

@@ -274,3 +274,19 @@ def test_help_does_not_load_numba_or_scipy() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True).stdout
     assert out.split() == ["False", "False"]
+
+
+def test_tone_help_shows_only_the_options_a_tone_takes() -> None:
+    # a tone refuses the clip-only options, so its --help must not offer them
+    from click.testing import CliRunner
+
+    from ladderpack.cli import cli
+    from ladderpack.options import StreamOptions
+
+    flags = ["--" + n.replace("_", "-") for n in StreamOptions.CLIP_ONLY]
+    tone_help = CliRunner().invoke(cli, ["tone", "--help"]).output
+    stream_help = CliRunner().invoke(cli, ["stream", "--help"]).output
+    assert not [f for f in flags if f + " " in tone_help]
+    assert all(f + " " in stream_help for f in flags)
+    res = CliRunner().invoke(cli, ["tone", "sine", "--crossfade-ms", "5"])
+    assert res.exit_code == 2 and "No such option" in res.output
