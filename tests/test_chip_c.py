@@ -296,6 +296,20 @@ def test_hold_code_puts_a_dc_level_on_the_pins(fw: Firmware, tmp_path: Path) -> 
     assert codes[-s.codes.size :].tolist() == s.codes.tolist()
 
 
+def test_deinit_after_hold_code_ramps_back_to_the_idle_code(fw: Firmware, tmp_path: Path) -> None:
+    # the header's promise: after deinit the pins keep the idle code (issue 26, item 8)
+    s = make(tmp_path, "dcoff", bits=8, idle_code=10)
+    steps = [Step("init", 0, 0), Step("hold", 0, 200), Step("wait"), Step("deinit")]
+    r = run(fw.make(tmp_path, [s.name], steps), fw.mailbox())
+    assert r.results() == [0] * 4
+    code_at = [s.layout.pins_to_code(np.array([e[2]]))[0] for e in r.events]
+    assert code_at[2] == 200 and code_at[3] == 10
+    assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == 10
+    codes, _t = played(r, s, 2, 3)  # up to the held code and, at deinit, back down
+    assert 200 in codes and codes[-1] == 10
+    assert np.abs(np.diff(codes)).max() <= s.max_step
+
+
 def test_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
     # Compile only: the emulator is an RP2040. The same warnings, the RP2350's SDK.
     streams = [

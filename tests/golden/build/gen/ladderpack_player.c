@@ -490,6 +490,14 @@ void lp_player_deinit(lp_player_t *p) {
         return;
     }
     lp_player_stop(p);
+    if (p->started && lp_code_on_pins(p) != p->stream->idle_code) {
+        /* a code held by lp_player_hold_code: ramp back to the idle code first, so a
+         * released player never leaves a DC level on the pins */
+        lp_player_hold_code(p, p->stream->idle_code);
+        while (lp_player_busy(p)) {
+            tight_loop_contents();
+        }
+    }
     lp_abort_all(p);
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_release(p);

@@ -139,9 +139,10 @@ int lp_player_hold_code(lp_player_t *p, uint16_t code);
  * from the bundle's level table or your own), for lp_player_hold_code. */
 uint16_t lp_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts);
 
-/* Stop (blocking, as lp_player_stop) if playing, then release the state machine, the DMA
+/* Stop (blocking, as lp_player_stop) if playing, ramp a held code (lp_player_hold_code)
+ * back to the idle code (blocking, one ramp), then release the state machine, the DMA
  * channels (aborted first, chains broken) and the program memory. The pins keep the idle
- * code. */
+ * code: a released player never leaves a DC level behind (to keep one, keep the player). */
 void lp_player_deinit(lp_player_t *p);
 
 /* Text of an LP_ERR_* result. */
