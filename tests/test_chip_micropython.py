@@ -144,9 +144,14 @@ def test_loop_stop_ends_on_a_pass_boundary(tmp_path: Path, program: str, embed: 
         assert np.abs(np.diff(codes)).max() <= s.max_step
 
 
-@pytest.mark.parametrize("loop", [False, True], ids=["stream", "loop"])
-def test_ctrl_c_ramps_down_from_where_it_is(tmp_path: Path, loop: bool) -> None:
+@pytest.mark.parametrize(
+    ("loop", "ramp_ms"),
+    [(False, 0.2), (True, 0.2), (True, 30.0)],
+    ids=["stream", "loop", "loop-in-its-intro"],  # the last: Ctrl-C 12 ms into a 30 ms intro
+)
+def test_ctrl_c_ramps_down_from_where_it_is(tmp_path: Path, loop: bool, ramp_ms: float) -> None:
     opts: dict[str, object] = {"loop": True, "cycles": 8} if loop else {"seconds": 0.04}
+    opts["ramp_ms"] = ramp_ms
     s, files = make(tmp_path, "cc", level_dbfs=-0.5, **opts)
     steps = [
         {"code": "import cc\np = cc.Player()\n"},

@@ -195,8 +195,7 @@ class Player:
             pass
         for w in words:
             self.sm.put(w)
-        if len(words):
-            self.last_word = words[-1]
+            self.last_word = w
 
     def _drained(self, code: int) -> bool:
         if self.dma.active() or self.sm.tx_fifo():
@@ -281,10 +280,11 @@ class Player:
         head = min(len(INTRO), 8)
         for w in INTRO[:head]:
             self.sm.put(w)
+        self.last_word = INTRO[head - 1]
         self._go()
         for w in INTRO[head:]:
-            self.sm.put(w)
-        self.last_word = INTRO[len(INTRO) - 1]
+            self.sm.put(w)  # blocks while the FIFO is full: Ctrl-C may land here
+            self.last_word = w  # so an abort ramps from where the pins are going
 
     def _play_words(self, words: "array.array[int]", loop: bool) -> None:
         self._intro()
