@@ -125,7 +125,8 @@ def test_loop_stop_ends_on_a_pass_boundary(tmp_path: Path, program: str, embed: 
     s, files = make(tmp_path, "lp", loop=True, cycles=4, program=program, embed=embed)
     pass_ms = s.codes.size / 48.0  # at 48 kHz
     steps = []
-    for k, frac in enumerate((0.3, 1.6, 2.9)):
+    fracs = (0.3, 1.5, 2.5)  # a stop this far into the passes: the current pass finishes
+    for k, frac in enumerate(fracs):
         stop_ms = max(1, round(pass_ms * frac))
         steps.append(
             {
@@ -140,7 +141,8 @@ def test_loop_stop_ends_on_a_pass_boundary(tmp_path: Path, program: str, embed: 
     assert_ok(r)
     for k in range(3):
         codes, _t = played(r, s, k)
-        assert decompose_loop(codes, s) >= 1
+        # "finishes the current pass": never one more (issue 26, item 7)
+        assert decompose_loop(codes, s) == int(fracs[k]) + 1, k
         assert np.abs(np.diff(codes)).max() <= s.max_step
 
 

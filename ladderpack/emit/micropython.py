@@ -301,7 +301,11 @@ class Player:
         self._send(words, WORD_COUNT)
         if INTRO is None:
             self._go()
-        while loop and self.running:
+        while loop:
+            while self.dma.active():  # the current pass (the FIFO covers the re-arm)
+                pass
+            if not self.running:
+                break  # stop() during that pass: it was the last one
             self.prev_word = words[WORD_COUNT - 1]
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
 
@@ -707,7 +711,11 @@ _FEED_METHODS = """\
     def _play_words(self, words: "array.array[int]", loop: bool) -> None:
         self._send(words, WORD_COUNT)
         self._go()
-        while loop and self.running:
+        while loop:
+            while self.dma.active():  # the current pass (the FIFO covers the re-arm)
+                pass
+            if not self.running:
+                break  # stop() during that pass: it was the last one
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
             self.sent = 0
 

@@ -225,7 +225,11 @@ class Player:
     def _play_words(self, words: "array.array[int]", loop: bool) -> None:
         self._send(words, WORD_COUNT)
         self._go()
-        while loop and self.running:
+        while loop:
+            while self.dma.active():  # the current pass (the FIFO covers the re-arm)
+                pass
+            if not self.running:
+                break  # stop() during that pass: it was the last one
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
             self.sent = 0
 

@@ -292,7 +292,11 @@ class Player:
         self._send(words, WORD_COUNT)
         if INTRO is None:
             self._go()
-        while loop and self.running:
+        while loop:
+            while self.dma.active():  # the current pass (the FIFO covers the re-arm)
+                pass
+            if not self.running:
+                break  # stop() during that pass: it was the last one
             self.prev_word = words[WORD_COUNT - 1]
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
 
