@@ -103,7 +103,15 @@ def test_stream_plays_every_sample(
     assert_ok(r)
     codes, times = played(r, s, 0)
     idle = s.layout.idle_code
-    np.testing.assert_array_equal(strip_idle(codes, idle), strip_idle(s.codes, idle))
+    if program == "loop":
+        # the loop program repeats its closing word of idle codes: every sample before
+        # the final code is exact, and nothing but the final code follows
+        np.testing.assert_array_equal(strip_idle(codes, idle), strip_idle(s.codes, idle))
+        assert np.all(codes[strip_idle(codes, idle).size :] == idle)
+    else:
+        # autopull and pull stall once the last word has left the output shift register:
+        # every sample, the stream's trailing idle codes included, and not one more
+        np.testing.assert_array_equal(codes, s.codes)
     assert_period(times[: s.codes.size], s)
     assert s.layout.pins_to_code(np.array([r.final_pins]))[0] == idle
 
