@@ -435,7 +435,8 @@ def test_bad_manifest_values_exit_2(tmp_path: Path, body: str, field: str) -> No
 
 
 def test_huge_headroom_on_the_command_line(tmp_path: Path) -> None:
-    res = _cli("tone", "sine", "--headroom-db", "1e300", "-o", str(tmp_path / "o"), cwd=tmp_path)
+    clip = str(REPO / "demo_audio" / "door_chime.flac")  # a clip option: tone has none
+    res = _cli("stream", clip, "--headroom-db", "1e300", "-o", str(tmp_path / "o"), cwd=tmp_path)
     _one_line_exit_2(res)
 
 

@@ -8,6 +8,9 @@ read in chunks; very short streams are embedded as a literal instead.
 
 from __future__ import annotations
 
+import numpy as np
+
+from ladderpack import portable
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.emit.names import comment_safe
@@ -16,6 +19,7 @@ from ladderpack.pio import Instruction, Program
 from ladderpack.targets import Target, target_of
 
 __all__ = [
+    "cosine_q15",
     "feed_methods",
     "mp_instruction",
     "mp_program_body",
@@ -46,6 +50,8 @@ try:
 except ImportError:
     TYPE_CHECKING = False  # type: ignore[misc]  # MicroPython has no typing module
 if TYPE_CHECKING:
+    from typing import Iterator
+
     from rp2.asm_pio import *  # noqa: F403  (names the assembler provides)
 
 NAME = {name!r}
@@ -81,6 +87,8 @@ SHIFT_RIGHT = {shift_right}
 MSB_HIGH = {msb_high}
 INVERTED = {invert_flag}
 MAX_STEP = {max_step}  # largest step between consecutive codes of the stream
+# (1 + cos(pi k / 64)) / 2 in Q15, k = 0..64: the shape of the ramps made at run time
+_COS_Q15 = ({cos_q15})
 LOOP_PROGRAM = {loop_program}  # the program repeats its last word when the FIFO runs dry
 
 
@@ -125,36 +133,57 @@ def _shift(k: int) -> int:
     return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
 
 
-def _ramp_words(start: int, end: int) -> "array.array[int]":
-    \"\"\"Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
-    no step larger than MAX_STEP; a closing word of end codes for the loop program.\"\"\"
-    import math
+def _ramp_code(frm: int, to: int, k: int, n: int) -> int:
+    # step k of n of a raised cosine from `frm` to `to`, in integers (no floating point,
+    # so a stop's ramp starts at once): (1 + cos(pi k / n)) / 2 from the Q15 table,
+    # interpolated linearly, as the C player does
+    pos = (k << 14) // n
+    idx = pos >> 8
+    c0 = _COS_Q15[idx]
+    w = c0 + (((_COS_Q15[idx + 1 if idx < 64 else 64] - c0) * (pos & 255)) >> 8)
+    x = (frm - to) * w
+    return to + ((x + 16384) >> 15 if x >= 0 else -((16384 - x) >> 15))
 
+
+def _ramp_iter(start: int, end: int) -> "Iterator[int]":
+    \"\"\"Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
+    no step larger than MAX_STEP; a closing word of end codes for the loop program.
+    Made word by word, so a player sends each word as soon as it exists: the ramp starts
+    one word's computation after a stop instead of the whole ramp's.\"\"\"
     step = MAX_STEP or 1
     delta = abs(start - end)
-    n = 0 if delta == 0 else int(math.ceil(math.pi / 2 * delta / step)) + 1
-    codes = [start] * 0  # list of ints
+    n = 0 if delta == 0 else (355 * delta + 226 * step - 1) // (226 * step) + 1  # > pi/2
     prev = start
     i = 1
+    word, k, made = 0, 0, False
     while i <= n or prev != end:
         c = end
         if i < n:
-            c = int(math.floor(end + (start - end) * (1 + math.cos(math.pi * i / n)) / 2 + 0.5))
+            c = _ramp_code(start, end, i, n)
         c = max(prev - step, min(prev + step, c))
-        codes.append(c)
+        word |= _pins_of(c) << _shift(k)
+        k += 1
+        if k == SPW:
+            yield word
+            word, k, made = 0, 0, True
         prev = c
         i += 1
-    while len(codes) % SPW:
-        codes.append(end)
-    if LOOP_PROGRAM or not codes:
-        codes += [end] * SPW
-    out = array.array("I")
-    for w in range(0, len(codes), SPW):
+    if k:
+        while k < SPW:
+            word |= _pins_of(end) << _shift(k)
+            k += 1
+        yield word
+        made = True
+    if LOOP_PROGRAM or not made:
         word = 0
         for k in range(SPW):
-            word |= _pins_of(codes[w + k]) << _shift(k)
-        out.append(word)
-    return out
+            word |= _pins_of(end) << _shift(k)
+        yield word
+
+
+def _ramp_words(start: int, end: int) -> "array.array[int]":
+    \"\"\"The whole ramp of :func:`_ramp_iter`, packed.\"\"\"
+    return array.array("I", _ramp_iter(start, end))
 
 
 class Player:
@@ -247,7 +276,17 @@ class Player:
         for k in range(SPW):
             hold |= _pins_of(start) << _shift(k)
         self.sm.put(hold)
-        self._put(_ramp_words(start, code))
+        self.last_word = hold
+        if LOOP_PROGRAM:
+            # the loop program repeats its last word when the FIFO runs dry, so the ramp
+            # is made whole first, behind the hold word, then sent
+            self._put(_ramp_words(start, code))
+        else:
+            # autopull and pull stall, holding the pins, on an empty FIFO: each word is
+            # sent as soon as it is made, so the ramp starts after its first word
+            for w in _ramp_iter(start, code):
+                self.sm.put(w)
+                self.last_word = w
         self._drain(code)
 
     def play(self, loop: bool = LOOP) -> None:
@@ -420,42 +459,49 @@ def _shift(k: int) -> int:
     return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
 
 
-def _ramp_words(start: int, end: int) -> "array.array[int]":
+def _ramp_iter(start: int, end: int) -> "Iterator[int]":
     \"\"\"Raised-cosine ramps of both ladders from frame start (on the pins, not repeated)
     to frame end, packed, neither stepping more than MAX_STEP; a closing word of end
-    frames for the loop program.\"\"\"
-    import math
-
+    frames for the loop program. Made word by word, so a player sends each word as soon
+    as it exists.\"\"\"
     n_bits = BITS // 2
     m = (1 << n_bits) - 1
     step = MAX_STEP or 1
     s = (start & m, start >> n_bits)
     e = (end & m, end >> n_bits)
     delta = max(abs(s[0] - e[0]), abs(s[1] - e[1]))
-    n = 0 if delta == 0 else int(math.ceil(math.pi / 2 * delta / step)) + 1
-    codes = []
+    n = 0 if delta == 0 else (355 * delta + 226 * step - 1) // (226 * step) + 1  # > pi/2
     prev = list(s)
     i = 1
+    word, k, made = 0, 0, False
     while i <= n or tuple(prev) != e:
         for ch in (0, 1):
             c = e[ch]
             if i < n:
-                w = (1 + math.cos(math.pi * i / n)) / 2
-                c = int(math.floor(e[ch] + (s[ch] - e[ch]) * w + 0.5))
+                c = _ramp_code(s[ch], e[ch], i, n)
             prev[ch] = max(prev[ch] - step, min(prev[ch] + step, c))
-        codes.append(prev[0] | (prev[1] << n_bits))
+        word |= _pins_of(prev[0] | (prev[1] << n_bits)) << _shift(k)
+        k += 1
+        if k == SPW:
+            yield word
+            word, k, made = 0, 0, True
         i += 1
-    while len(codes) % SPW:
-        codes.append(end)
-    if LOOP_PROGRAM or not codes:
-        codes += [end] * SPW
-    out = array.array("I")
-    for w in range(0, len(codes), SPW):
+    if k:
+        while k < SPW:
+            word |= _pins_of(end) << _shift(k)
+            k += 1
+        yield word
+        made = True
+    if LOOP_PROGRAM or not made:
         word = 0
         for k in range(SPW):
-            word |= _pins_of(codes[w + k]) << _shift(k)
-        out.append(word)
-    return out
+            word |= _pins_of(end) << _shift(k)
+        yield word
+
+
+def _ramp_words(start: int, end: int) -> "array.array[int]":
+    \"\"\"The whole ramp of :func:`_ramp_iter`, packed.\"\"\"
+    return array.array("I", _ramp_iter(start, end))
 """
 
 
@@ -469,6 +515,16 @@ def _stereo_module(text: str) -> str:
     return text.replace(
         old, "        self.hold_code(best | (best << (BITS // 2)))  # both ladders\n"
     )
+
+
+def cosine_q15() -> list[int]:
+    """``(1 + cos(pi k / 64)) / 2`` in Q15 for k = 0..64, at most 32767.
+
+    The shape of the ramps the players make at run time, computed the same way on every
+    machine (:mod:`ladderpack.portable`).
+    """
+    c = portable.cos(np.pi * np.arange(65) / 64)
+    return [min(int(v), 32767) for v in np.rint(32768 * (1 + c) / 2)]
 
 
 def _sdk_eval(target: Target, expr: str) -> int:
@@ -633,6 +689,7 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         max_step=asset.max_step,
         loop_program=prog.variant == "loop",
         registers=pio_registers_text(target_of(asset.options)),
+        cos_q15=", ".join(str(v) for v in cosine_q15()),
     )
     if isinstance(lay, StereoLadderLayout):
         n, base = lay.channel_bits, asset.state_machine.out_base

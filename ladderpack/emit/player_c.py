@@ -7,8 +7,6 @@ The two files are the same for every asset (``ladderpack_player.h`` and
 
 from __future__ import annotations
 
-import math
-
 from ladderpack._version import __version__
 
 __all__ = ["HEADER_NAME", "SOURCE_NAME", "render_header", "render_source"]
@@ -676,8 +674,9 @@ def render_header() -> str:
 
 def _cosine_table() -> str:
     """(1 + cos(pi k / 64)) / 2 in Q15 for k = 0..64, eight to a line."""
-    vals = [round(32768 * (1 + math.cos(math.pi * k / 64)) / 2) for k in range(65)]
-    vals = [min(v, 32767) for v in vals]
+    from ladderpack.emit.micropython import cosine_q15
+
+    vals = cosine_q15()
     rows = [", ".join(f"{v}u" for v in vals[i : i + 8]) for i in range(0, 65, 8)]
     return ",\n".join("    " + r for r in rows)
 

@@ -18,6 +18,8 @@ try:
 except ImportError:
     TYPE_CHECKING = False  # type: ignore[misc]  # MicroPython has no typing module
 if TYPE_CHECKING:
+    from typing import Iterator
+
     from rp2.asm_pio import *  # noqa: F403  (names the assembler provides)
 
 NAME = 'beep'
@@ -69,6 +71,8 @@ SHIFT_RIGHT = True
 MSB_HIGH = True
 INVERTED = False
 MAX_STEP = 45  # largest step between consecutive codes of the stream
+# (1 + cos(pi k / 64)) / 2 in Q15, k = 0..64: the shape of the ramps made at run time
+_COS_Q15 = (32767, 32748, 32689, 32591, 32453, 32277, 32063, 31810, 31521, 31195, 30833, 30437, 30007, 29544, 29049, 28524, 27969, 27387, 26778, 26144, 25486, 24807, 24107, 23389, 22654, 21904, 21140, 20365, 19580, 18788, 17990, 17188, 16384, 15580, 14778, 13980, 13188, 12403, 11628, 10864, 10114, 9379, 8661, 7961, 7282, 6624, 5990, 5381, 4799, 4244, 3719, 3224, 2761, 2331, 1935, 1573, 1247, 958, 705, 491, 315, 177, 79, 20, 0)
 LOOP_PROGRAM = False  # the program repeats its last word when the FIFO runs dry
 
 
@@ -115,36 +119,57 @@ def _shift(k: int) -> int:
     return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
 
 
-def _ramp_words(start: int, end: int) -> "array.array[int]":
-    """Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
-    no step larger than MAX_STEP; a closing word of end codes for the loop program."""
-    import math
+def _ramp_code(frm: int, to: int, k: int, n: int) -> int:
+    # step k of n of a raised cosine from `frm` to `to`, in integers (no floating point,
+    # so a stop's ramp starts at once): (1 + cos(pi k / n)) / 2 from the Q15 table,
+    # interpolated linearly, as the C player does
+    pos = (k << 14) // n
+    idx = pos >> 8
+    c0 = _COS_Q15[idx]
+    w = c0 + (((_COS_Q15[idx + 1 if idx < 64 else 64] - c0) * (pos & 255)) >> 8)
+    x = (frm - to) * w
+    return to + ((x + 16384) >> 15 if x >= 0 else -((16384 - x) >> 15))
 
+
+def _ramp_iter(start: int, end: int) -> "Iterator[int]":
+    """Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
+    no step larger than MAX_STEP; a closing word of end codes for the loop program.
+    Made word by word, so a player sends each word as soon as it exists: the ramp starts
+    one word's computation after a stop instead of the whole ramp's."""
     step = MAX_STEP or 1
     delta = abs(start - end)
-    n = 0 if delta == 0 else int(math.ceil(math.pi / 2 * delta / step)) + 1
-    codes = [start] * 0  # list of ints
+    n = 0 if delta == 0 else (355 * delta + 226 * step - 1) // (226 * step) + 1  # > pi/2
     prev = start
     i = 1
+    word, k, made = 0, 0, False
     while i <= n or prev != end:
         c = end
         if i < n:
-            c = int(math.floor(end + (start - end) * (1 + math.cos(math.pi * i / n)) / 2 + 0.5))
+            c = _ramp_code(start, end, i, n)
         c = max(prev - step, min(prev + step, c))
-        codes.append(c)
+        word |= _pins_of(c) << _shift(k)
+        k += 1
+        if k == SPW:
+            yield word
+            word, k, made = 0, 0, True
         prev = c
         i += 1
-    while len(codes) % SPW:
-        codes.append(end)
-    if LOOP_PROGRAM or not codes:
-        codes += [end] * SPW
-    out = array.array("I")
-    for w in range(0, len(codes), SPW):
+    if k:
+        while k < SPW:
+            word |= _pins_of(end) << _shift(k)
+            k += 1
+        yield word
+        made = True
+    if LOOP_PROGRAM or not made:
         word = 0
         for k in range(SPW):
-            word |= _pins_of(codes[w + k]) << _shift(k)
-        out.append(word)
-    return out
+            word |= _pins_of(end) << _shift(k)
+        yield word
+
+
+def _ramp_words(start: int, end: int) -> "array.array[int]":
+    """The whole ramp of :func:`_ramp_iter`, packed."""
+    return array.array("I", _ramp_iter(start, end))
 
 
 class Player:
@@ -237,7 +262,17 @@ class Player:
         for k in range(SPW):
             hold |= _pins_of(start) << _shift(k)
         self.sm.put(hold)
-        self._put(_ramp_words(start, code))
+        self.last_word = hold
+        if LOOP_PROGRAM:
+            # the loop program repeats its last word when the FIFO runs dry, so the ramp
+            # is made whole first, behind the hold word, then sent
+            self._put(_ramp_words(start, code))
+        else:
+            # autopull and pull stall, holding the pins, on an empty FIFO: each word is
+            # sent as soon as it is made, so the ramp starts after its first word
+            for w in _ramp_iter(start, code):
+                self.sm.put(w)
+                self.last_word = w
         self._drain(code)
 
     def play(self, loop: bool = LOOP) -> None:
