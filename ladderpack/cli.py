@@ -2029,13 +2029,40 @@ def demo(out_dir: str, clips_dir: str, as_json: bool) -> None:
     click.echo(f"demo bundles are in {os.path.abspath(out_dir)}")
 
 
+#: The signal that ended the run, when one did (0: none, or Ctrl-C).
+_signalled = 0
+
+
+def signals_as_interrupt() -> None:
+    """End the run on SIGTERM or SIGHUP as on Ctrl-C.
+
+    ``timeout``, CI cancellation and ``kill`` send SIGTERM, a closed terminal SIGHUP: the
+    handler raises :class:`KeyboardInterrupt` where the program is, so a write in
+    progress completes or rolls back as it does for Ctrl-C (never ``.part`` files or a
+    pending journal left behind), and the exit status is 128 + the signal's number.
+    """
+    import signal
+
+    def handler(signum: int, frame: object) -> None:
+        global _signalled
+        _signalled = signum
+        raise KeyboardInterrupt
+
+    for name in ("SIGTERM", "SIGHUP"):
+        sig = getattr(signal, name, None)
+        if sig is not None:
+            signal.signal(sig, handler)
+
+
 def main(argv: list[str] | None = None) -> None:
     """Entry point.
 
     User mistakes (:class:`LadderpackError`, bad options) print one line naming the
-    file and field and exit with status 2; Ctrl-C exits 130; anything else is an
+    file and field and exit with status 2; Ctrl-C exits 130, SIGTERM 143 and SIGHUP 129
+    (each handled as Ctrl-C: see :func:`signals_as_interrupt`); anything else is an
     internal fault: a one-line message and status 1, or the traceback with --debug.
     """
+    signals_as_interrupt()
     args = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args[: args.index("--")] if "--" in args else "--debug" in args
     try:
@@ -2048,7 +2075,7 @@ def main(argv: list[str] | None = None) -> None:
         sys.exit(exc.exit_code)
     except (click.exceptions.Abort, KeyboardInterrupt):
         click.echo("ladderpack: interrupted; each output set is whole, old or new", err=True)
-        sys.exit(130)
+        sys.exit(128 + (_signalled or 2))
     except Exception as exc:  # an internal fault, not the user's mistake
         if debug:
             raise

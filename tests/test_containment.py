@@ -485,3 +485,99 @@ def test_csv_with_semicolons_is_named_as_such(tmp_path: Path) -> None:
     res = _sweep(tmp_path, "code;volts\n0;0.0\n1;0.8\n2;1.6\n3;2.4\n")
     _one_line_exit_2(res)
     assert "';'" in res.stderr and "comma" in res.stderr
+
+
+# -- hostile input on the newer surfaces (each test is an issue's repro) --------------------
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["--output", "i2s", "--name", "ladderpack_i2s"],
+        ["--output", "pwm", "--name", "ladderpack_pwm"],
+        ["--output", "i2c-dac", "--rate-hz", "4000", "--name", "ladderpack_i2c"],
+        ["--stereo", "--name", "ladderpack_stereo"],
+        ["--name", "ladderpack_pwm"],  # a ladder asset beside a PWM asset's player
+    ],
+)
+def test_player_file_names_are_reserved(tmp_path: Path, args: list[str]) -> None:
+    res = _cli("tone", "sine", "--seconds", "0.05", "-o", "b", *args, cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "reserved" in res.stderr and not (tmp_path / "b").exists()
+
+
+def test_every_shared_file_of_every_output_is_a_reserved_name(tmp_path: Path) -> None:
+    # the reserved list comes from the registry the players take their names from: a
+    # bundle's files are the asset's own or a registered player's, for every output
+    from ladderpack.bundle import bundle_files
+    from ladderpack.emit.names import RESERVED_NAMES
+    from ladderpack.stream import stream_tone
+
+    kinds = [
+        {}, {"stereo": True}, {"output": "i2s"}, {"output": "pwm"},
+        {"output": "i2c-dac", "rate_hz": 4000.0},
+    ]  # fmt: skip
+    for opts in kinds:
+        files = bundle_files(stream_tone("sine", name="t", seconds=0.01, **opts))
+        shared = {Path(n).stem for n in files if Path(n).stem != "t"}
+        assert shared and shared <= set(RESERVED_NAMES), (opts, shared)
+
+
+_TERMINATOR = textwrap.dedent(
+    """
+    import os, signal, sys
+    import ladderpack.emit as emit
+    from ladderpack.cli import signals_as_interrupt
+    signals_as_interrupt()  # what main() does first
+    target = sys.argv[2]
+    def hook(step):
+        if step == target:
+            os.kill(os.getpid(), getattr(signal, sys.argv[3]))
+    emit._step_hook = hook
+    try:
+        emit.write_files({n: (n + "-new").encode() for n in ("a.bin", "a.c", "a.json")},
+                         sys.argv[1])
+    except KeyboardInterrupt:
+        sys.exit(143)
+    """
+)
+
+
+@pytest.mark.parametrize("sig", ["SIGTERM", "SIGHUP"])
+@pytest.mark.parametrize("step", _STEPS[:-1])
+def test_sigterm_and_sighup_at_any_step_leave_a_whole_set(
+    tmp_path: Path, step: str, sig: str
+) -> None:
+    # as Ctrl-C: no .part file, no pending journal, the old set or the whole new one,
+    # without a next run to finish anything
+    names = ("a.bin", "a.c", "a.json")
+    emit.write_files({n: (n + "-old").encode() for n in names}, tmp_path)
+    res = subprocess.run(
+        [sys.executable, "-c", _TERMINATOR, str(tmp_path), step, sig],
+        capture_output=True, text=True,
+    )  # fmt: skip
+    assert res.returncode == 143, res.stderr
+    got = {n: (tmp_path / n).read_bytes() for n in names}
+    committed = _STEPS.index(step) >= _STEPS.index("journal committed")
+    assert got == {n: (n + ("-new" if committed else "-old")).encode() for n in names}
+    assert not [p for p in os.listdir(tmp_path) if p.endswith(".part")]
+    assert not emit.pending_journal(tmp_path)
+
+
+def test_sigterm_exit_status_and_message(tmp_path: Path) -> None:
+    import signal
+    import time
+
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "ladderpack", "tone", "white", "--seconds", "600",
+         "--rate-hz", "48000", "--flash-bytes", "67108864", "-o", "o"],
+        cwd=tmp_path, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    time.sleep(1.5)  # after the imports, in the job
+    proc.send_signal(signal.SIGTERM)
+    _out, err = proc.communicate(timeout=60)
+    if proc.returncode == 143:
+        assert "interrupted" in err and "Traceback" not in err
+    else:  # finished first on a fast machine: a whole bundle
+        assert proc.returncode == 0
+    assert not list(tmp_path.rglob("*.part"))

@@ -366,6 +366,7 @@ def _replace(
         moves = [[t, f or RECORD_NAME] for t, f in temps]
         journal = json.dumps({"moves": moves, "remove": sorted(gone)}).encode()
         jtmp = _write_temp(folder, JOURNAL_NAME, journal, {}, umask)
+        temps.append((jtmp, ""))  # removed with the others if the commit never happens
         _step("journal written")
         os.replace(os.path.join(folder, jtmp), os.path.join(folder, JOURNAL_NAME))
         _fsync_dir(folder)

@@ -8,7 +8,15 @@ import unicodedata
 
 from ladderpack.errors import OptionError
 
-__all__ = ["C_KEYWORDS", "RESERVED_NAMES", "asset_identifier", "c_symbols", "comment_safe"]
+__all__ = [
+    "C_KEYWORDS",
+    "PLAYER_FILES",
+    "RESERVED_NAMES",
+    "asset_identifier",
+    "c_symbols",
+    "comment_safe",
+    "player_files",
+]
 
 #: C99 keywords plus names the generated code must not shadow.
 C_KEYWORDS = frozenset(
@@ -69,9 +77,34 @@ C_KEYWORDS = frozenset(
 #: Identifiers an asset may not have, and why: fixed output names of the tool, and
 #: modules a bundle's MicroPython file would shadow on the board (the modules the
 #: generated code imports, and the two files MicroPython runs at start-up).
+#: The registry of files a bundle shares among its assets (the C players), by stem. A
+#: player module takes its file names from :func:`player_files`, which accepts only stems
+#: registered here, so every shared file's stem is a reserved asset name.
+PLAYER_FILES: dict[str, str] = {
+    "ladderpack_player": "the ladder's C player",
+    "ladderpack_stereo": "the two-ladder C player",
+    "ladderpack_i2s": "the I2S C player",
+    "ladderpack_pwm": "the PWM C player",
+    "ladderpack_i2c": "the I2C DAC C player",
+}
+
+
+def player_files(stem: str) -> tuple[str, str]:
+    """The header and source file names of a registered player.
+
+    Examples
+    --------
+    >>> player_files("ladderpack_pwm")
+    ('ladderpack_pwm.h', 'ladderpack_pwm.c')
+    """
+    if stem not in PLAYER_FILES:
+        raise KeyError(f"{stem!r} is not in PLAYER_FILES: register the player's files there")
+    return f"{stem}.h", f"{stem}.c"
+
+
 RESERVED_NAMES: dict[str, str] = {
     "assets": "the build's index files (assets.h, assets.c, assets.py)",
-    "ladderpack_player": "the shared C player files (ladderpack_player.h, .c)",
+    **{stem: f"{what} ({stem}.h, {stem}.c)" for stem, what in PLAYER_FILES.items()},
     **{
         m: f"MicroPython's {m} module, which {m}.py would shadow on the board"
         for m in ("rp2", "machine", "array", "time", "micropython", "gc", "os", "sys")

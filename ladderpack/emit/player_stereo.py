@@ -13,11 +13,11 @@ from __future__ import annotations
 import re
 
 from ladderpack.emit import player_c
+from ladderpack.emit.names import player_files
 
 __all__ = ["HEADER_NAME", "SOURCE_NAME", "render_header", "render_source"]
 
-HEADER_NAME = "ladderpack_stereo.h"
-SOURCE_NAME = "ladderpack_stereo.c"
+HEADER_NAME, SOURCE_NAME = player_files("ladderpack_stereo")
 
 _PINS_OF = """\
 /* Frame code (left | right << N) -> the bits OUT writes to the 2N pins: pin order and
