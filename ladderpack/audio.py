@@ -8,6 +8,7 @@ come back as float64 with nominal full scale +/-1.0.
 from __future__ import annotations
 
 import hashlib
+import math
 import os
 import struct
 from dataclasses import dataclass
@@ -148,14 +149,17 @@ def load_clip(
     if os.path.isdir(name):
         raise AudioFileError("is a folder, expected a sound file", file=name)
     check_regular_file(name, what="sound file")
-    cut = truncation(name)
-    if cut:
-        raise AudioFileError(cut, file=name)
     try:
+        cut = truncation(name)
+        if cut:
+            raise AudioFileError(cut, file=name)
         data, rate = soundfile.read(name, dtype="float64", always_2d=True, frames=frames)
+    except OSError as exc:  # a device, a failing disk, a file that vanished
+        raise AudioFileError(f"cannot read it ({exc.strerror or exc})", file=name) from None
     except (soundfile.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
         detail = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise AudioFileError(f"not a readable sound file ({detail})", file=name) from None
+    check_rate(rate, name)
     n_ch = data.shape[1]
     if channel is None:
         mono = data[:, 0].copy()  # column sums: much faster than mean(axis=1) on 2-D data
@@ -208,12 +212,46 @@ def truncation(path: str | os.PathLike[str]) -> str | None:
 
 
 def sha256_file(path: str | os.PathLike[str]) -> str:
-    """Return the hex SHA-256 digest of a file's bytes."""
+    """Return the hex SHA-256 digest of a file's bytes.
+
+    Raises
+    ------
+    AudioFileError
+        Naming the file, when it cannot be read.
+    """
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
+    try:
+        with open(path, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    except OSError as exc:
+        raise AudioFileError(
+            f"cannot read it ({exc.strerror or exc})", file=os.fspath(path)
+        ) from None
     return h.hexdigest()
+
+
+#: Sample rates a clip may declare, Hz: below 1 Hz or above 1.5 MHz a header is broken or
+#: hostile, not audio (common practice: audio interfaces stop at 768 kHz, measurement
+#: recorders near 1 MHz).
+CLIP_RATE_RANGE_HZ = (1.0, 1_500_000.0)
+
+
+def check_rate(rate_hz: float, name: str) -> None:
+    """Refuse a clip whose header declares a rate outside :data:`CLIP_RATE_RANGE_HZ`.
+
+    Raises
+    ------
+    AudioFileError
+        Naming the file and the rate.
+    """
+    lo, hi = CLIP_RATE_RANGE_HZ
+    if not (math.isfinite(rate_hz) and lo <= rate_hz <= hi):
+        raise AudioFileError(
+            f"its header declares a sample rate of {rate_hz!r} Hz; a sound clip's rate lies "
+            f"within {lo:g}..{hi:g} Hz (a broken or hostile header)",
+            file=name,
+        )
 
 
 def read_samples_csv(path: str | os.PathLike[str]) -> np.ndarray:

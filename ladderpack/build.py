@@ -357,11 +357,9 @@ def _validated(
 
 
 def _sha256(path: str) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
+    from ladderpack.audio import sha256_file  # a read error names the file
+
+    return sha256_file(path)
 
 
 def _rel(p: str, root: str) -> str:

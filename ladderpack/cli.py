@@ -197,15 +197,26 @@ def _pairs(text: str | None) -> tuple[tuple[float, float], ...] | None:
 def _code_list(text: str | None) -> tuple[int, ...] | None:
     if not text:
         return None
+    from ladderpack.errors import OptionError
+
+    top = (1 << 16) - 1  # the widest code, 16 bits; the stream's own width is checked later
     out: list[int] = []
     for item in text.split(","):
         try:
             lo, sep, hi = item.partition("-")
-            out.extend(range(int(lo), int(hi) + 1) if sep else [int(lo)])
+            first, last = int(lo), int(hi) if sep else int(lo)
         except ValueError:
-            raise click.BadParameter(
-                f"expected codes like 0-15,32,64, got {item!r}", param_hint="--codes"
+            raise OptionError(
+                f"expected codes like 0-15,32,64, got {item!r}", field="codes"
             ) from None
+        # bounds first: a range is expanded only once it is known to be small
+        if not (0 <= first <= top and 0 <= last <= top):
+            raise OptionError(
+                f"codes are 0..{top} at most (16 bits), got {item.strip()!r}", field="codes"
+            )
+        out.extend(range(first, last + 1))
+        if len(out) > 1 << 20:
+            raise OptionError("at most 1048576 codes in a staircase", field="codes")
     return tuple(out)
 
 

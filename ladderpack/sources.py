@@ -16,7 +16,7 @@ import numpy as np
 
 from ladderpack.audio import Signal, check_signal, load_clip
 from ladderpack.conform import MEAN_CHUNK
-from ladderpack.errors import OptionError
+from ladderpack.errors import AudioFileError, OptionError
 
 __all__ = [
     "BLOCK_FRAMES",
@@ -162,7 +162,15 @@ class FileSource(MonoSource):
         self._spill, self._spill_block = spill, block_frames
 
     def _decode(self, block_frames: int) -> Iterator[np.ndarray]:
-        """Mono blocks decoded from the file."""
+        """Mono blocks decoded from the file (a read error names the file)."""
+        try:
+            yield from self._decode_blocks(block_frames)
+        except OSError as exc:  # a failing disk or device mid-clip
+            raise AudioFileError(
+                f"cannot read it ({exc.strerror or exc})", file=self.path
+            ) from None
+
+    def _decode_blocks(self, block_frames: int) -> Iterator[np.ndarray]:
         import soundfile
 
         pcm16 = self._subtype == "PCM_16"

@@ -17,6 +17,7 @@ import sys
 import textwrap
 from pathlib import Path
 
+import numpy as np
 import pytest
 from helpers import cc_strict, require_tool
 
@@ -581,3 +582,64 @@ def test_sigterm_exit_status_and_message(tmp_path: Path) -> None:
     else:  # finished first on a fast machine: a whole bundle
         assert proc.returncode == 0
     assert not list(tmp_path.rglob("*.part"))
+
+
+def test_staircase_range_is_bounded_before_it_is_expanded(tmp_path: Path) -> None:
+    # expanding 0-4000000000 first ran out of memory
+    res = _cli("tone", "staircase", "--bits", "16", "--codes", "0-4000000000", "-o", "s",
+               cwd=tmp_path)  # fmt: skip
+    _one_line_exit_2(res)
+    assert "codes" in res.stderr and not (tmp_path / "s").exists()
+
+
+def test_a_read_error_on_a_clip_names_the_file(tmp_path: Path) -> None:
+    if not Path("/proc/self/mem").exists():
+        pytest.skip("no /proc/self/mem here (Linux only)")
+    res = _cli("stream", "/proc/self/mem", "-o", "s", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "/proc/self/mem" in res.stderr
+    mf = _manifest(tmp_path, '[[asset]]\nname = "m"\nclip = "/proc/self/mem"\n')
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "/proc/self/mem" in res.stderr
+
+
+def _wav_with_rate(path: Path, rate: int) -> Path:
+    # RIFF/WAVE: the fmt chunk's sample rate is the little-endian uint32 at byte 24
+    # (Microsoft RIFF specification), written here by hand over a valid file
+    import soundfile
+
+    soundfile.write(path, np.zeros(800), 8000, subtype="PCM_16")
+    data = bytearray(path.read_bytes())
+    data[24:28] = rate.to_bytes(4, "little")
+    path.write_bytes(bytes(data))
+    return path
+
+
+def _aiff_with_rate(path: Path, exponent: int, mantissa: int) -> Path:
+    # AIFF COMM chunk: the sample rate is an 80-bit IEEE 754 extended float (Apple AIFF
+    # 1.3) after channels (2 bytes), frames (4) and sample size (2)
+    import soundfile
+
+    soundfile.write(path, np.zeros(800), 8000, format="AIFF", subtype="PCM_16")
+    data = bytearray(path.read_bytes())
+    at = data.index(b"COMM") + 8 + 8
+    data[at : at + 10] = exponent.to_bytes(2, "big") + mantissa.to_bytes(8, "big")
+    path.write_bytes(bytes(data))
+    return path
+
+
+@pytest.mark.parametrize(
+    "make",
+    [
+        lambda p: _wav_with_rate(p / "huge.wav", 2147483647),
+        lambda p: _aiff_with_rate(p / "inf.aiff", 0x7FFF, 1 << 63),  # infinity
+        lambda p: _aiff_with_rate(p / "big.aiff", 0x7FFE, 1 << 63),  # about 1e4932
+    ],
+    ids=["wav-2147483647", "aiff-inf", "aiff-1e4932"],
+)
+def test_absurd_header_rates_are_refused(tmp_path: Path, make: object) -> None:
+    clip = make(tmp_path)  # type: ignore[operator]
+    res = _cli("stream", str(clip), "-o", "s", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert clip.name in res.stderr and "sample rate" in res.stderr
