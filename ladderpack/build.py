@@ -727,7 +727,7 @@ def build(
         names a depfile cannot carry, or files in the way that ladderpack did
         not write.
     """
-    from ladderpack.emit import folder_lock
+    from ladderpack.emit import LockUnavailableError, folder_lock
 
     if depfile:
         _check_depfile_names(manifest, depfile)
@@ -735,6 +735,20 @@ def build(
         return _build_locked(
             manifest, jobs=jobs, only=only, check=check, depfile=None, echo=echo, progress=None
         )
+    if check:
+        # a check only reads: on a read-only checkout (CI caches, mounted sources) it
+        # goes on without the lock, which it could not create
+        try:
+            with folder_lock(manifest.out_dir, on_wait=echo):
+                return _build_locked(
+                    manifest, jobs=jobs, only=only, check=True, depfile=depfile, echo=echo,
+                    progress=progress,
+                )  # fmt: skip
+        except LockUnavailableError:
+            return _build_locked(
+                manifest, jobs=jobs, only=only, check=True, depfile=None, echo=echo,
+                progress=None,
+            )  # fmt: skip
     with folder_lock(manifest.out_dir, on_wait=echo):
         return _build_locked(
             manifest,

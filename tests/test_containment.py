@@ -643,3 +643,27 @@ def test_absurd_header_rates_are_refused(tmp_path: Path, make: object) -> None:
     res = _cli("stream", str(clip), "-o", "s", cwd=tmp_path)
     _one_line_exit_2(res)
     assert clip.name in res.stderr and "sample rate" in res.stderr
+
+
+def test_check_works_on_a_read_only_tree(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # A read-only file system refuses to create the lock (EROFS); root ignores chmod, so
+    # the refusal is made where the lock is opened. A check only reads: it goes on.
+    import errno
+
+    from ladderpack.build import build, load_manifest
+
+    mf = _manifest(tmp_path, _asset("beep"))
+    assert build(load_manifest(mf), echo=lambda _s: None).problems == []
+    real_open = os.open
+
+    def read_only(path: str, *args: object, **kw: object) -> int:
+        if str(path).endswith(emit.LOCK_NAME):
+            raise OSError(errno.EROFS, "Read-only file system", path)
+        return real_open(path, *args, **kw)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(emit.os, "open", read_only)
+    before = _hashes(tmp_path)
+    res = build(load_manifest(mf), check=True, echo=lambda _s: None)
+    assert res.problems == [] and _hashes(tmp_path) == before
+    with pytest.raises(emit.OutputError, match="Read-only"):
+        build(load_manifest(mf), echo=lambda _s: None)  # a build must write: refused

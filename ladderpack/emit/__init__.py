@@ -42,6 +42,7 @@ __all__ = [
     "LOCK_NAME",
     "RECORD_NAME",
     "Content",
+    "LockUnavailableError",
     "folder_lock",
     "owned_files",
     "pending_journal",
@@ -86,6 +87,16 @@ _held: dict[str, tuple[int, int]] = {}  # real folder path -> (fd, depth)
 _held_guard = threading.Lock()
 
 
+class LockUnavailableError(OutputError):
+    """The folder's lock cannot be made: a read-only file system or folder.
+
+    A run that only reads (``build --check``) goes on without it.
+    """
+
+
+_READ_ONLY_ERRNOS = (errno.EROFS, errno.EACCES, errno.EPERM)
+
+
 @contextlib.contextmanager
 def folder_lock(
     out_dir: str | os.PathLike[str],
@@ -123,7 +134,8 @@ def folder_lock(
         try:
             fd = os.open(lock_path, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | os.O_CLOEXEC, 0o666)
         except OSError as exc:
-            raise OutputError(f"cannot open lock ({exc.strerror})", file=lock_path) from None
+            err = LockUnavailableError if exc.errno in _READ_ONLY_ERRNOS else OutputError
+            raise err(f"cannot open lock ({exc.strerror})", file=lock_path) from None
         deadline = time.monotonic() + wait_s
         told = False
         while True:
