@@ -603,11 +603,14 @@ def _load_state(out_dir: str) -> dict[str, Any]:
     }
 
 
-def _write_changed(files: dict[str, bytes], out_dir: str, *, touch: bool = False) -> None:
+def _write_changed(
+    files: dict[str, bytes], out_dir: str, *, touch: bool = False, untouched: tuple[str, ...] = ()
+) -> None:
     """Write only the files whose bytes differ, atomically, in order (sidecar last).
 
-    With `touch`, files that are already right get a new modification time, so a
-    rebuilt asset's outputs are newer than its inputs for Make and Ninja.
+    With `touch`, files that are already right (but those in `untouched`) get a new
+    modification time, so a rebuilt asset's outputs are newer than its inputs for Make
+    and Ninja.
     """
     from ladderpack.emit import write_files
 
@@ -618,7 +621,8 @@ def _write_changed(files: dict[str, bytes], out_dir: str, *, touch: bool = False
         try:
             with open(path, "rb") as fh:
                 if fh.read() == data:
-                    same.append(path)
+                    if name not in untouched:
+                        same.append(path)
                     continue
         except OSError:
             pass
@@ -940,22 +944,25 @@ def _build_locked(
         {s.name: files for (s, _, _), (files, _) in zip(todo, rendered, strict=True)},
         index,
     )
+    # One replace for the whole build: every changed output, the index and the state, so
+    # the folder's record is read and written once however many assets there are (a
+    # build is linear in its size) and the set is whole, old or new, if it is cut short.
+    outputs: dict[str, bytes] = {}
     for (spec, _fp, _inputs), (files, entry) in zip(todo, rendered, strict=True):
-        _write_changed(files, out, touch=True)
+        outputs.update(files)
         result.built.append(spec.name)
         lines[spec.name] = f"{spec.name}: built ({entry['bytes']} bytes)"
-    for spec in manifest.assets:
-        echo(lines[spec.name])
-    _write_changed(index, out, touch=True)
+    outputs.update(index)
     result.total_bytes = sum(int(e["bytes"]) for e in entries)
     new_state = {
         "tool": __version__,
         "assets": {k: new_assets[k] for k in sorted(new_assets)},
         "index": {n: hashlib.sha256(d).hexdigest() for n, d in sorted(index.items())},
     }
-    _write_changed(
-        {STATE_NAME: (json.dumps(new_state, indent=1, sort_keys=True) + "\n").encode()}, out
-    )
+    outputs[STATE_NAME] = (json.dumps(new_state, indent=1, sort_keys=True) + "\n").encode()
+    _write_changed(outputs, out, touch=True, untouched=(STATE_NAME,))
+    for spec in manifest.assets:
+        echo(lines[spec.name])
     avail = manifest.flash_bytes - manifest.flash_reserve_bytes
     echo(
         f"flash: {result.total_bytes} of {avail} bytes available "

@@ -16,6 +16,7 @@ import subprocess
 import sys
 import textwrap
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -667,3 +668,31 @@ def test_check_works_on_a_read_only_tree(tmp_path: Path, monkeypatch: pytest.Mon
     assert res.problems == [] and _hashes(tmp_path) == before
     with pytest.raises(emit.OutputError, match="Read-only"):
         build(load_manifest(mf), echo=lambda _s: None)  # a build must write: refused
+
+
+def test_a_build_updates_the_folder_record_once(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Each asset used to be its own replace: the record re-read and rewritten and the
+    # folder listed once per asset, so a build's cost grew with the square of its size.
+    # Now one replace takes every output, the index and the state: constant work per
+    # build besides the files themselves, so a build is linear in its number of assets.
+    from ladderpack.build import build, load_manifest
+
+    mf = _manifest(tmp_path, "".join(_asset(f"a{k}") for k in range(24)))
+    calls = {"replace": 0, "listdir": 0, "record": 0}
+    real_replace, real_listdir, real_owned = emit._replace, emit.os.listdir, emit.owned_files
+
+    def count(key: str, fn: Any) -> Any:
+        def wrapped(*a: Any, **kw: Any) -> Any:
+            calls[key] += 1
+            return fn(*a, **kw)
+
+        return wrapped
+
+    monkeypatch.setattr(emit, "_replace", count("replace", real_replace))
+    monkeypatch.setattr(emit.os, "listdir", count("listdir", real_listdir))
+    monkeypatch.setattr(emit, "owned_files", count("record", real_owned))
+    res = build(load_manifest(mf), echo=lambda _s: None)
+    assert len(res.built) == 24
+    assert calls == {"replace": 1, "listdir": 1, "record": 1}, calls
