@@ -1894,7 +1894,8 @@ def preview(
         subtype="FLOAT",
     )
     written = _write_bytes(target, buf.getvalue())
-    tone_kind = (pv.sidecar.get("stats", {}).get("tone") or {}).get("kind")
+    tone = pv.sidecar["stats"].get("tone") if isinstance(pv.sidecar.get("stats"), dict) else None
+    tone_kind = tone.get("kind") if isinstance(tone, dict) else None
     result: dict[str, Any] = {
         "file": written,
         "rate_hz": pv.rate_hz,
@@ -1902,7 +1903,10 @@ def preview(
     }
     if do_measure or (do_measure is None and tone_kind == "sine"):
         y = pv.samples[pv.audio_slice]
-        known = freq_hz or (pv.sidecar.get("stats", {}).get("tone") or {}).get("freq_hz")
+        told = tone.get("freq_hz") if isinstance(tone, dict) else None
+        if not (isinstance(told, (int, float)) and 0 < told < pv.rate_hz / 2):
+            told = None  # a damaged sidecar's frequency: let the fit find the tone
+        known = freq_hz or told
         r = analyse(
             y,
             pv.rate_hz,

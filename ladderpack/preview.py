@@ -103,6 +103,8 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         raise LadderpackError(
             "expected a ladderpack stream sidecar (.json)", file=sidecar_path, field="format"
         )
+    for key in ("options", "stats", "clock", "stream", "layout"):
+        _section(side, sidecar_path, key)  # each an object, before anything reads it
     try:
         name = side["asset"]
         if not isinstance(name, str) or asset_identifier(name) != name:
@@ -214,6 +216,36 @@ def _own_levels(side: dict[str, Any], sidecar_path: str) -> Any:
     )
 
 
+def _section(side: dict[str, Any], path: str, key: str) -> dict[str, Any]:
+    """A sidecar section preview reads: a JSON object (absent reads as empty)."""
+    sec = side.get(key, {})
+    if sec is None:
+        return {}
+    if not isinstance(sec, dict):
+        raise LadderpackError(f"expected an object, got {type(sec).__name__}", file=path, field=key)
+    return sec
+
+
+def _number(
+    side: dict[str, Any],
+    path: str,
+    section: str,
+    key: str,
+    default: float | None = None,
+    *,
+    lo: float = 0.0,
+    hi: float,
+) -> float:
+    """A finite number within lo..hi from a sidecar section, or the error naming it."""
+    v = _section(side, path, section).get(key, default)
+    ok = isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+    if not ok or not lo <= v <= hi:
+        raise LadderpackError(
+            f"expected a number {lo:g}..{hi:g}, got {v!r}", file=path, field=f"{section}.{key}"
+        )
+    return float(v)
+
+
 def render_preview(
     sidecar_path: str,
     *,
@@ -275,7 +307,7 @@ def render_preview(
         ideal_half = (v[-1] - v[0]) * (1 << (bits - 1)) / ((1 << bits) - 1)
         centre = v[0] + ideal_half
         x = (v[codes] - centre) / ideal_half
-    rate = float(side["clock"]["achieved_rate_hz"])
+    rate = _number(side, sidecar_path, "clock", "achieved_rate_hz", lo=1.0, hi=1.5e6)
     out_rate = rate if playback_rate_hz is None else float(playback_rate_hz)
     if not (math.isfinite(out_rate) and out_rate > 0):
         raise OptionError(f"must be > 0 Hz, got {playback_rate_hz!r}", field="playback_rate_hz")
@@ -289,11 +321,10 @@ def render_preview(
         x = analog_output(x, rate, hold, filter_corner_hz)
     if hold > 1 or out_rate != rate:
         x = resample(Signal(x, hold * rate), out_rate, bits=16).samples
-    stats = side.get("stats", {})
-    ramp = int(stats.get("ramp_samples", 0))
-    audio = int(stats.get("audio_samples", codes.size))
-    fade = round(float(side.get("options", {}).get("fade_ms", 0)) * 1e-3 * rate)
-    if side.get("options", {}).get("loop"):
+    ramp = int(_number(side, sidecar_path, "stats", "ramp_samples", 0, hi=codes.size))
+    audio = int(_number(side, sidecar_path, "stats", "audio_samples", codes.size, hi=codes.size))
+    fade = round(_number(side, sidecar_path, "options", "fade_ms", 0.0, hi=1e7) * 1e-3 * rate)
+    if _section(side, sidecar_path, "options").get("loop"):
         ramp = fade = 0
     lo = (ramp + fade) * out_rate / rate
     hi = (ramp + audio - fade) * out_rate / rate

@@ -696,3 +696,34 @@ def test_a_build_updates_the_folder_record_once(
     res = build(load_manifest(mf), echo=lambda _s: None)
     assert len(res.built) == 24
     assert calls == {"replace": 1, "listdir": 1, "record": 1}, calls
+
+
+@pytest.mark.parametrize(
+    ("where", "value"),
+    [
+        (("stats",), "not an object"),
+        (("options", "fade_ms"), "nan"),
+        (("clock", "achieved_rate_hz"), 1e-300),
+        (("stats", "ramp_samples"), -5),
+        (("options",), [1, 2]),
+    ],
+    ids=["stats-string", "fade-nan-text", "rate-1e-300", "ramp-negative", "options-list"],
+)
+def test_preview_validates_every_field_it_reads(
+    tmp_path: Path, where: tuple[str, ...], value: object
+) -> None:
+    import json
+
+    res = _cli("tone", "sine", "--seconds", "0.01", "-o", "b", "--name", "t", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    side_path = tmp_path / "b" / "t.json"
+    side = json.loads(side_path.read_text())
+    node = side
+    for k in where[:-1]:
+        node = node[k]
+    node[where[-1]] = value
+    side_path.write_text(json.dumps(side))
+    res = _cli("preview", str(side_path), "-o", str(tmp_path / "p.wav"), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "t.json" in res.stderr and where[0] in res.stderr
+    assert not (tmp_path / "p.wav").exists()
