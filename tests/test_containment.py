@@ -727,3 +727,13 @@ def test_preview_validates_every_field_it_reads(
     _one_line_exit_2(res)
     assert "t.json" in res.stderr and where[0] in res.stderr
     assert not (tmp_path / "p.wav").exists()
+
+
+def test_an_asset_name_too_long_for_a_file_name_is_refused(tmp_path: Path) -> None:
+    res = _cli("tone", "sine", "--seconds", "0.01", "-o", "n", "--name", "x" * 300, cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "255" in res.stderr and not (tmp_path / "n").exists()
+    mf = _manifest(tmp_path, _asset("y" * 300))
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "ladderpack.toml" in res.stderr

@@ -113,6 +113,12 @@ RESERVED_NAMES: dict[str, str] = {
 }
 
 
+#: Longest asset identifier: the stem of every output file name, which gets suffixes
+#: (``_preview.wav``, ``.json``) and, while written, ``.NAME.XXXXXXXX.part``: 255 bytes is
+#: the usual file-name limit (NAME_MAX of ext4, XFS, APFS, NTFS), leaving room for those.
+MAX_IDENTIFIER_LENGTH = 200
+
+
 def asset_identifier(name: str) -> str:
     """Turn an asset name into an identifier valid in C and Python.
 
@@ -141,6 +147,13 @@ def asset_identifier(name: str) -> str:
         ident = "a_" + ident
     if ident in C_KEYWORDS or keyword.iskeyword(ident) or keyword.issoftkeyword(ident):
         ident += "_"
+    if len(ident) > MAX_IDENTIFIER_LENGTH:
+        raise OptionError(
+            f"{name[:40]!r}... becomes an identifier of {len(ident)} characters; file names "
+            f"derived from it (with suffixes and temporary-file decorations) must stay within "
+            f"the file system's 255-byte limit: at most {MAX_IDENTIFIER_LENGTH} characters",
+            field="name",
+        )
     if ident in RESERVED_NAMES:
         raise OptionError(
             f"{name!r} becomes {ident!r}, which is reserved for {RESERVED_NAMES[ident]}; "
