@@ -1326,11 +1326,14 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
 
     Written as C and MicroPython arrays for firmware that writes them itself.
     """
+    import numpy as np
+
     from ladderpack.emit import write_files
     from ladderpack.options import I2cDacTableSpec
     from ladderpack.outputs.i2c_dac import (
         BUS_SPEEDS_HZ,
         I2cDacFormat,
+        codes_for_volts,
         max_update_rate_hz,
     )
     from ladderpack.tables import i2c_dac_table_files
@@ -1350,6 +1353,17 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
         "max_update_rate_hz": rates,
         "files": written,
     }
+    if spec.volts is not None:
+        codes = codes_for_volts(np.array(spec.volts), spec.vref_volts)
+        summary["entries"] = [
+            {
+                "volts": v,
+                "code": int(c),
+                "actual_volts": spec.vref_volts * int(c) / 4096,
+                "error_volts": spec.vref_volts * int(c) / 4096 - v,
+            }
+            for v, c in zip(spec.volts, codes, strict=True)
+        ]
     if as_json:
         click.echo(json_text(summary))
         return
@@ -1357,6 +1371,11 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
         f"{res.name}: {res.entries} updates of a 12-bit I2C DAC at 0x{spec.dac_address:02X} "
         f"({spec.dac_command} write, {fmt.bytes_per_update} bytes on the bus each)"
     )
+    for e in summary.get("entries", []):
+        click.echo(
+            f"  {e['volts']:.4f} V -> code {e['code']:4d} = {e['actual_volts']:.4f} V "
+            f"({1000 * e['error_volts']:+.2f} mV)"
+        )
     click.echo(
         "  at most " + ", ".join(f"{r:.0f} updates/s at {b // 1000} kHz" for b, r in rates.items())
     )

@@ -491,9 +491,12 @@ def code_for_volts(levels: LevelSet, volts: float) -> dict[str, Any]:
     v = float(volts)
     if not np.isfinite(v):
         raise OptionError(f"must be a finite voltage, got {volts!r}", field="volts")
-    err = levels.volts - v
-    code = int(np.argmin(np.abs(err)))
     lo, hi = float(levels.volts.min()), float(levels.volts.max())
+    # search with the wish clamped to the ladder's reach: far outside it, every level's
+    # distance rounds to the same float and the search would pick code 0 (1e17 V)
+    near = min(max(v, lo), hi)
+    code = int(np.argmin(np.abs(levels.volts - near)))
+    err = levels.volts - v
     lsb = (hi - lo) / ((1 << levels.bits) - 1) if hi > lo else 1.0
     return {
         "code": code,

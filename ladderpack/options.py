@@ -47,7 +47,7 @@ from ladderpack.defaults import (
     WEIGHTING_NAMES,
 )
 from ladderpack.errors import LadderpackError, OptionError
-from ladderpack.targets import TARGET_NAMES, get_target
+from ladderpack.targets import MAX_SYS_CLOCK_HZ, TARGET_NAMES, get_target
 
 __all__ = [
     "ClipOptions",
@@ -303,9 +303,10 @@ class StreamOptions(_Model):
     rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
     sys_clock_hz: int | None = _opt(
         None,
-        "System clock feeding the PIO block.",
+        "System clock feeding the PIO block (at most what the PLL can make, 1.6 GHz).",
         unit="Hz",
         lo=1,
+        hi=MAX_SYS_CLOCK_HZ,
         default_text="the target's: 125000000 on rp2040, 150000000 on rp2350",
     )
     rate_tolerance_ppm: float = _opt(
@@ -544,6 +545,12 @@ class StreamOptions(_Model):
         ):
             if getattr(self, name) is None:
                 object.__setattr__(self, name, value)
+        if int(self.gpio_count or 0) > tgt.gpio_count:
+            raise OptionError(
+                f"the {tgt.name} has {tgt.gpio_count} user GPIOs; a board may expose fewer, "
+                f"never more: got {self.gpio_count}",
+                field="gpio_count",
+            )
         for name in self.PWM_ONLY if self.output != "pwm" else ():
             if _flag_given(self, name):
                 raise OptionError("applies only to output pwm", field=name)
@@ -945,9 +952,10 @@ class WaveTableSpec(_Model):
     target: str = _opt("rp2040", "Chip the table is for.", choices=TARGET_NAMES)
     sys_clock_hz: int | None = _opt(
         None,
-        "System clock.",
+        "System clock (at most what the PLL can make, 1.6 GHz).",
         unit="Hz",
         lo=1,
+        hi=MAX_SYS_CLOCK_HZ,
         default_text="the target's: 125000000 on rp2040, 150000000 on rp2350",
     )
     rate_tolerance_ppm: float = _opt(
@@ -1007,7 +1015,7 @@ class I2cDacTableSpec(_Model):
         1.0, "--wave: peak-to-peak swing as a share of the DAC's range.", unit="FS", lo=0, hi=1
     )
     vref_volts: float = _opt(
-        3.3, "The DAC's reference (an MCP4725's: its supply).", unit="V", lo=0, lo_open=True
+        3.3, "The DAC's reference (an MCP4725's: its supply).", unit="V", lo=0.1, hi=60
     )
     dac_address: int = _opt(
         0x60,
@@ -1028,9 +1036,18 @@ class I2cDacTableSpec(_Model):
         if self.volts is not None:
             if not self.volts:
                 raise OptionError("expected at least one voltage", field="volts")
+            # the DAC reaches 0 .. Vref x 4095/4096; a value within half a step of the top
+            # still has a nearest code
+            top = self.vref_volts * 4095.5 / 4096
             for v in self.volts:
                 if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
                     raise OptionError(f"expected numbers of volts, got {v!r}", field="volts")
+                if not 0 <= v <= top:
+                    raise OptionError(
+                        f"{v!r} V is outside what the DAC reaches with a {self.vref_volts:g} V "
+                        f"reference: 0..{self.vref_volts * 4095 / 4096:.4f} V",
+                        field="volts",
+                    )
             object.__setattr__(self, "volts", tuple(float(v) for v in self.volts))
 
 

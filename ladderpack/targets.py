@@ -19,7 +19,9 @@ from dataclasses import dataclass
 
 from ladderpack.errors import OptionError
 
-__all__ = ["REGISTERS", "TARGETS", "TARGET_NAMES", "Target", "get_target", "target_of"]
+__all__ = [
+    "MAX_SYS_CLOCK_HZ",
+    "REGISTERS", "TARGETS", "TARGET_NAMES", "Target", "get_target", "target_of"]
 
 #: Every chip fact a generated file uses (peripheral base addresses, register offsets,
 #: bit positions, DMA request numbers), by SDK platform, under the exact names the vendor
@@ -224,6 +226,12 @@ RP2350A = Target("rp2350", 150_000_000, 30, 3, 0x82000, 4 * 1024 * 1024, (0, 16)
 
 #: RP2350, QFN-80 "B" package: as the A package with NUM_BANK0_GPIOS 48 (same header).
 RP2350B = Target("rp2350b", 150_000_000, 48, 3, 0x82000, 4 * 1024 * 1024, (0, 16), "rp2350")
+
+#: The highest system clock either chip can have: the PLL's VCO maximum with both post
+#: dividers at 1 (SDK 2.2.0 ``hardware/pll.h``: PICO_PLL_VCO_MAX_FREQ_HZ 1600 MHz; RP2040
+#: datasheet 2.18, RP2350 datasheet 8.6). Far beyond what either is rated for; a clock
+#: above it cannot exist (and would overflow the players' 32-bit clock constants).
+MAX_SYS_CLOCK_HZ = 1_600_000_000
 
 #: Every target by name.
 TARGETS: dict[str, Target] = {t.name: t for t in (RP2040, RP2350A, RP2350B)}

@@ -737,3 +737,51 @@ def test_an_asset_name_too_long_for_a_file_name_is_refused(tmp_path: Path) -> No
     res = _cli("build", str(mf), cwd=tmp_path)
     _one_line_exit_2(res)
     assert "ladderpack.toml" in res.stderr
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["--volts", "0.5,4,-1"],  # 4 V and -1 V are outside 0..Vref (3.3 V)
+        ["--volts", "0.5", "--vref-volts", "1e-320"],
+    ],
+    ids=["volts-out-of-range", "vref-tiny"],
+)
+def test_i2c_dac_table_refuses_what_the_dac_cannot_give(tmp_path: Path, args: list[str]) -> None:
+    res = _cli("table", "i2c-dac", *args, "-o", "t", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert not (tmp_path / "t").exists()
+
+
+def test_i2c_dac_table_prints_each_code_and_its_error(tmp_path: Path) -> None:
+    # output = Vref x code / 4096 (MCP4725 datasheet): 1.0 V at 3.3 V is code 1241
+    res = _cli("table", "i2c-dac", "--volts", "1.0", "-o", "t", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert "1.0000 V -> code 1241 = 0.9998 V (-0.17 mV)" in res.stdout
+
+
+@pytest.mark.parametrize(("volts", "code"), [("1e17", 255), ("1e15", 255), ("-1e17", 0)])
+def test_code_far_outside_the_ladder_takes_the_nearest_end(
+    tmp_path: Path, volts: str, code: int
+) -> None:
+    res = _cli("code", "--volts", volts, "--json", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    import json
+
+    d = json.loads(res.stdout)
+    assert d["code"] == code and d["in_range"] is False
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["--target", "rp2040", "--gpio-count", "2000", "--output", "pwm", "--out-base", "1999"],
+        ["--target", "rp2350", "--gpio-count", "48", "--out-base", "40"],
+        ["--sys-clock-hz", "10000000000"],  # beyond the PLL; overflowed uint32_t in C
+    ],
+    ids=["gpio-2000", "rp2350-48-gpios", "clock-10GHz"],
+)
+def test_chip_facts_are_not_free_options(tmp_path: Path, args: list[str]) -> None:
+    res = _cli("tone", "sine", "--seconds", "0.01", "-o", "g", *args, cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert not (tmp_path / "g").exists()
