@@ -99,6 +99,9 @@ class Manifest:
     assets: tuple[AssetSpec, ...]
     flash_bytes: int
     flash_reserve_bytes: int
+    #: ``[project] over_flash = "warn"``: assets that together exceed the flash build
+    #: with a warning instead of failing.
+    over_flash_ok: bool = False
 
 
 @dataclass
@@ -185,7 +188,10 @@ def load_manifest(
         {"project": (dict,), "defaults": (dict,), "asset": (list,)},
     )
     project = doc.get("project", {})
-    _check_types(mpath, None, project, {"out_dir": (str,)})
+    _check_types(mpath, None, project, {"out_dir": (str,), "over_flash": (str,)})
+    over_flash = project.get("over_flash", "error")
+    if over_flash not in ("error", "warn"):
+        _err(mpath, f"expected 'error' or 'warn', got {over_flash!r}", None, "project.over_flash")
     defaults = doc.get("defaults", {})
     stream_types, tone_types, clip_types = (
         _types("StreamOptions"),
@@ -277,7 +283,7 @@ def load_manifest(
         where="defaults",
     )
     flash, reserve = int(whole.flash_bytes or 0), whole.flash_reserve_bytes
-    return Manifest(mpath, root, out, tuple(assets), flash, reserve)
+    return Manifest(mpath, root, out, tuple(assets), flash, reserve, over_flash == "warn")
 
 
 def _not_regular(path: str) -> str | None:
@@ -944,6 +950,18 @@ def _build_locked(
         {s.name: files for (s, _, _), (files, _) in zip(todo, rendered, strict=True)},
         index,
     )
+    # The flash budget of the whole set, before anything is written.
+    total = sum(int(e["bytes"]) for e in entries)
+    avail = manifest.flash_bytes - manifest.flash_reserve_bytes
+    if total > avail and not manifest.over_flash_ok:
+        raise LadderpackError(
+            f"the assets need {total} bytes of flash together but {avail} are available "
+            f"({manifest.flash_bytes} less {manifest.flash_reserve_bytes} reserved, "
+            f"{100 * total / max(avail, 1):.1f} %); shorten or drop assets, raise "
+            'flash_bytes, or set over_flash = "warn" in [project]',
+            file=manifest.path,
+            field="flash_bytes",
+        )
     # One replace for the whole build: every changed output, the index and the state, so
     # the folder's record is read and written once however many assets there are (a
     # build is linear in its size) and the set is whole, old or new, if it is cut short.
@@ -963,10 +981,10 @@ def _build_locked(
     _write_changed(outputs, out, touch=True, untouched=(STATE_NAME,))
     for spec in manifest.assets:
         echo(lines[spec.name])
-    avail = manifest.flash_bytes - manifest.flash_reserve_bytes
     echo(
         f"flash: {result.total_bytes} of {avail} bytes available "
         f"({100 * result.total_bytes / max(avail, 1):.1f} %) for {len(entries)} asset(s)"
+        + ('; OVER the flash (over_flash = "warn")' if result.total_bytes > avail else "")
     )
     if depfile:
         _write_depfile(manifest, new_assets, index, depfile)

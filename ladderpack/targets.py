@@ -21,7 +21,13 @@ from ladderpack.errors import OptionError
 
 __all__ = [
     "MAX_SYS_CLOCK_HZ",
-    "REGISTERS", "TARGETS", "TARGET_NAMES", "Target", "get_target", "target_of"]
+    "REGISTERS",
+    "TARGETS",
+    "TARGET_NAMES",
+    "Target",
+    "get_target",
+    "target_of",
+]
 
 #: Every chip fact a generated file uses (peripheral base addresses, register offsets,
 #: bit positions, DMA request numbers), by SDK platform, under the exact names the vendor

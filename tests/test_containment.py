@@ -785,3 +785,23 @@ def test_chip_facts_are_not_free_options(tmp_path: Path, args: list[str]) -> Non
     res = _cli("tone", "sine", "--seconds", "0.01", "-o", "g", *args, cwd=tmp_path)
     _one_line_exit_2(res)
     assert not (tmp_path / "g").exists()
+
+
+def test_a_build_over_the_flash_fails_before_writing(tmp_path: Path) -> None:
+    # two assets that each fit, together over a 64 KiB flash less 32 KiB reserved
+    body = "flash_bytes = 65536\nflash_reserve_bytes = 32768\n\n"
+    long_tone = 'tone = "sine"\nfreq_hz = 1000\nseconds = 1.5\nramp_ms = 1.0\n'
+    text = (
+        '[project]\nout_dir = "gen"\n\n[defaults]\nbits = 8\nrate_hz = 16000\n' + body
+        + "".join(f'[[asset]]\nname = "a{k}"\n{long_tone}\n' for k in range(2))
+    )  # fmt: skip
+    (tmp_path / "ladderpack.toml").write_text(text)
+    res = _cli("build", "ladderpack.toml", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "ladderpack.toml" in res.stderr and "flash" in res.stderr
+    assert not (tmp_path / "gen").exists() or not list((tmp_path / "gen").glob("a*"))
+    (tmp_path / "ladderpack.toml").write_text(
+        text.replace('out_dir = "gen"', 'out_dir = "gen"\nover_flash = "warn"')
+    )
+    res = _cli("build", "ladderpack.toml", cwd=tmp_path)
+    assert res.returncode == 0 and "OVER the flash" in res.stdout
