@@ -424,6 +424,17 @@ def fingerprint(spec: AssetSpec, root: str, hashes: dict[str, str] | None = None
     return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()
 
 
+def _in_manifest(exc: LadderpackError, manifest: Manifest, spec: AssetSpec) -> LadderpackError:
+    """A plan-time error of an asset, said as parse-time errors are.
+
+    The manifest, the asset and the key; an input file the error names stays in its
+    message.
+    """
+    message = exc.message if exc.file in (None, manifest.path) else f"{exc.file}: {exc.message}"
+    where = f"asset {spec.name!r}" + (f".{exc.field}" if exc.field else "")
+    return LadderpackError(message, file=manifest.path, field=where)
+
+
 def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
     """Build one asset in memory: its files and its index entry (runs in a worker)."""
     parts = option_objects(spec.kind, spec.source, spec.options)
@@ -868,7 +879,10 @@ def _build_locked(
         if rec is None and check:
             # No record (a fresh clone of a project that commits its generated files, say):
             # decide by content, rendering the asset in memory and comparing bytes.
-            files, entry = _render(spec)
+            try:
+                files, entry = _render(spec)
+            except LadderpackError as exc:
+                raise _in_manifest(exc, manifest, spec) from None
             why = _files_match(out, files)
             check_entries[spec.name] = entry
         elif rec is None:
@@ -919,17 +933,20 @@ def _build_locked(
     new_assets = dict(old)
     rendered: list[tuple[dict[str, bytes], dict[str, Any]]] = []
     specs = [s for s, _, _ in todo]
-    if jobs > 1 and len(todo) > 1:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
-            for made in pool.map(_render, specs):
-                rendered.append(made)
+    try:
+        if jobs > 1 and len(todo) > 1:
+            with ProcessPoolExecutor(max_workers=jobs) as pool:
+                for made in pool.map(_render, specs):
+                    rendered.append(made)
+                    if progress is not None:
+                        progress(len(rendered), len(specs))
+        else:
+            for spec in specs:
+                rendered.append(_render(spec))
                 if progress is not None:
                     progress(len(rendered), len(specs))
-    else:
-        for spec in specs:
-            rendered.append(_render(spec))
-            if progress is not None:
-                progress(len(rendered), len(specs))
+    except LadderpackError as exc:  # the asset being made when it failed
+        raise _in_manifest(exc, manifest, specs[len(rendered)]) from None
     for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):
         new_assets[spec.name] = {
             "fingerprint": fp,

@@ -575,7 +575,13 @@ def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_jso
     )
 
     fmt = I2cDacFormat(command=command)
-    plan = plan_writer(rate_hz, fmt, bus_hz=bus_hz, sys_clock_hz=int(opts.sys_clock_hz or 0))
+    plan = plan_writer(
+        rate_hz,
+        fmt,
+        bus_hz=bus_hz,
+        sys_clock_hz=int(opts.sys_clock_hz or 0),
+        rate_tolerance_ppm=opts.rate_tolerance_ppm,
+    )
     least = writer_cycles(fmt.bytes_per_update, 0)
     d = {
         "requested_rate_hz": rate_hz,

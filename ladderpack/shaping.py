@@ -37,6 +37,7 @@ from ladderpack.errors import OptionError
 
 __all__ = [
     "CATALOGUE",
+    "NOISE_GRID_POINTS",
     "WEIGHTINGS",
     "Shaper",
     "a_weighting_db",
@@ -48,6 +49,10 @@ __all__ = [
 ]
 
 _GRID = 4096  # frequency points over 0..fs/2 for integrals
+
+#: Frequency points over 0..fs/2 of the designer's and the noise figures' integrals: an
+#: audio band narrower than fs / 2 / this holds none of them.
+NOISE_GRID_POINTS = _GRID
 
 
 @dataclass(frozen=True)

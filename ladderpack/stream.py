@@ -71,7 +71,13 @@ from ladderpack.quantize import (
     idle_ramp,
     predicted_full_scale_sine,
 )
-from ladderpack.shaping import Shaper, design_shaper, get_shaper, predict_noise
+from ladderpack.shaping import (
+    NOISE_GRID_POINTS,
+    Shaper,
+    design_shaper,
+    get_shaper,
+    predict_noise,
+)
 from ladderpack.sources import (
     BLOCK_FRAMES,
     BLOCK_THRESHOLD,
@@ -360,7 +366,11 @@ def plan_stream(
     if opts.output == "i2c-dac":
         fmt = I2cDacFormat(opts.dac_address, opts.dac_command)
         writer = plan_writer(
-            opts.rate_hz, fmt, bus_hz=opts.bus_hz, sys_clock_hz=int(opts.sys_clock_hz or 0)
+            opts.rate_hz,
+            fmt,
+            bus_hz=opts.bus_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            rate_tolerance_ppm=opts.rate_tolerance_ppm,
         )
         layout = I2cDacLayout(fmt)
         clock = writer.clock
@@ -452,6 +462,13 @@ def plan_stream(
     if not band <= rate / 2:
         raise OptionError(
             f"must be at most the stream's Nyquist {rate / 2:.6g} Hz, got {opts.band_hz!r}",
+            field="band_hz",
+        )
+    least = max(20.0, rate / 2 / NOISE_GRID_POINTS)  # the noise figures' resolution
+    if band < least:
+        raise OptionError(
+            f"must be at least {least:.6g} Hz (the lowest audio band the noise figures "
+            f"resolve at {rate:.6g} Hz), got {opts.band_hz!r}",
             field="band_hz",
         )
     shaper = _shaper_for(opts, rate, band)

@@ -805,3 +805,48 @@ def test_a_build_over_the_flash_fails_before_writing(tmp_path: Path) -> None:
     )
     res = _cli("build", "ladderpack.toml", cwd=tmp_path)
     assert res.returncode == 0 and "OVER the flash" in res.stdout
+
+
+@pytest.mark.parametrize(
+    "body",
+    [
+        'tone = "sine"\nseconds = 0.01\noutput = "i2c-dac"\nrate_hz = 22050\n',  # bus
+        'tone = "sine"\nseconds = 0.01\nrate_hz = 0.5\n',  # unreachable rate
+        'tone = "sine"\nseconds = 60\nrate_hz = 48000\n',  # flash
+        'tone = "sine"\nseconds = 0.01\noutput = "pwm"\nmin_carrier_hz = 100000000\n',
+        'table = "wave"\ntable_bits = 8\nfreqs_hz = [440]\nrate_hz = 0.5\n',  # table rate
+    ],
+    ids=["i2c-rate", "unreachable-rate", "flash", "pwm-carrier", "table-rate"],
+)
+def test_plan_time_errors_in_a_build_name_the_manifest_and_asset(tmp_path: Path, body: str) -> None:
+    mf = _manifest(tmp_path, _asset("fine") + f'[[asset]]\nname = "second"\n{body}\n')
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "ladderpack.toml: asset 'second'" in res.stderr, res.stderr
+
+
+def test_a_band_too_narrow_to_measure_is_refused(tmp_path: Path) -> None:
+    res = _cli("tone", "sine", "--shaping", "designed", "--band-hz", "1e-300", "--seconds",
+               "0.01", "-o", "b", cwd=tmp_path)  # fmt: skip
+    _one_line_exit_2(res)
+    assert "band_hz" in res.stderr and "nan" not in res.stderr.lower()
+
+
+@pytest.mark.parametrize(
+    ("rate", "bus", "ok"),
+    [
+        ("11817", "400000", True),  # the highest rate, rounded up: within 100 ppm
+        ("3096", "100000", True),
+        ("12266", "400000", False),  # beyond: the message gives a different maximum
+    ],
+)
+def test_the_highest_i2c_rate_rounded_is_accepted(
+    tmp_path: Path, rate: str, bus: str, ok: bool
+) -> None:
+    res = _cli("clock", rate, "--output", "i2c-dac", "--bus-hz", bus, cwd=tmp_path)
+    if ok:
+        assert res.returncode == 0, res.stderr
+    else:
+        _one_line_exit_2(res)
+        said = res.stderr.split("at most ")[1].split(" ")[0]
+        assert float(said) != float(rate)  # never "more than X: at most X"

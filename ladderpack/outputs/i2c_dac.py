@@ -428,6 +428,7 @@ def plan_writer(
     *,
     bus_hz: int = 400_000,
     sys_clock_hz: int = 125_000_000,
+    rate_tolerance_ppm: float = 100.0,
 ) -> I2cDacPlan:
     """Clock the writer: the bus no faster than `bus_hz`, updates at `rate_hz`.
 
@@ -435,6 +436,9 @@ def plan_writer(
     four cycles a bit, and every UM10204 Table 10 minimum met): of those up to four times
     the smallest, the one whose whole number of cycles per update (at least what one
     update takes) comes nearest the rate, then the fastest.
+
+    A rate up to `rate_tolerance_ppm` above the highest the bus allows is planned at
+    that highest rate (its error then within the tolerance).
 
     Raises
     ------
@@ -452,10 +456,10 @@ def plan_writer(
     divider = min_divider(bus_hz, sys_clock_hz)
     least = writer_cycles(fmt.bytes_per_update, 0)
     fastest = Fraction(sys_clock_hz, divider * least)
-    if rate > fastest:
+    if rate > fastest * (1 + Fraction(rate_tolerance_ppm) / 1_000_000):
         raise OptionError(
-            f"{float(rate):g} updates a second is more than the bus carries: at most "
-            f"{float(fastest):.0f} with {fmt.bytes_per_update} bytes an update at "
+            f"{float(rate):.6g} updates a second is more than the bus carries: at most "
+            f"{float(fastest):.3f} with {fmt.bytes_per_update} bytes an update at "
             f"{float(Fraction(sys_clock_hz, divider * CYCLES_PER_BIT)):.0f} Hz SCL (the "
             f"fastest clock meeting every UM10204 bus time at {bus_hz // 1000} kHz)",
             field="rate_hz",
