@@ -592,7 +592,9 @@ class StreamOptions(_Model):
             )
         self._check_common()
         self._check_two_ladders()
-        tgt.gpio_window(self.out_base, self.pins, int(self.gpio_count or 0))
+        tgt.gpio_window(
+            self.out_base, self.pins, int(self.gpio_count or 0), what=self._ladder_lines()
+        )
 
     def _check_two_ladders(self) -> None:
         if self.stereo and self.bits > 15:
@@ -677,7 +679,9 @@ class StreamOptions(_Model):
                 field="clock_pin" if scl >= count else "out_base",
             )
         lo, hi = min(sda, scl), max(sda, scl)
-        get_target(self.target).gpio_window(lo, hi - lo + 1, count)
+        get_target(self.target).gpio_window(
+            lo, hi - lo + 1, count, what=f"the I2C lines (SDA GPIO {sda}, SCL GPIO {scl})"
+        )
 
     def _check_i2s(self) -> None:
         """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
@@ -704,7 +708,20 @@ class StreamOptions(_Model):
                 field="clock_pin" if pins[2] >= count else "out_base",
             )
         lo, hi = min(pins), max(pins)
-        get_target(self.target).gpio_window(lo, hi - lo + 1, count)
+        get_target(self.target).gpio_window(lo, hi - lo + 1, count, what=self._i2s_lines(pins))
+
+    @staticmethod
+    def _i2s_lines(pins: tuple[int, ...]) -> str:
+        return (
+            f"the I2S lines (data GPIO {pins[0]}, bit clock GPIO {pins[1]}, word select GPIO "
+            f"{pins[2]})"
+        )
+
+    def _ladder_lines(self) -> str:
+        if self.stereo:
+            n = self.bits
+            return f"two {n}-bit ladders ({2 * n} pins)"
+        return f"a {self.bits}-bit ladder"
 
     def _check_common(self) -> None:
         """Checks shared by every output."""
@@ -754,8 +771,15 @@ class StreamOptions(_Model):
             if self.output == "i2s":  # the word select follows the bit clock
                 pins += (int(self.clock_pin or 0) + 1,)
             lo, hi = min(pins), max(pins)
-            return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0))
-        return tgt.gpio_window(self.out_base, self.pins, int(self.gpio_count or 0))
+            lines = (
+                self._i2s_lines(pins)
+                if self.output == "i2s"
+                else f"the I2C lines (SDA GPIO {pins[0]}, SCL GPIO {pins[1]})"
+            )
+            return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0), what=lines)
+        return tgt.gpio_window(
+            self.out_base, self.pins, int(self.gpio_count or 0), what=self._ladder_lines()
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """Recorded options; a LevelSet or path is recorded by its file name only.

@@ -175,7 +175,9 @@ class Target:
         """Base address of each PIO block (``PIO0_BASE``, ``PIO1_BASE``, ...)."""
         return tuple(self.reg(f"PIO{k}_BASE") for k in range(self.pio_blocks))
 
-    def gpio_window(self, first_gpio: int, pins: int, gpio_count: int | None = None) -> int:
+    def gpio_window(
+        self, first_gpio: int, pins: int, gpio_count: int | None = None, *, what: str = ""
+    ) -> int:
         """The PIO GPIO base whose 32-pin window holds GPIO ``first_gpio`` .. ``+ pins - 1``.
 
         Parameters
@@ -186,6 +188,9 @@ class Target:
             Consecutive pins used.
         gpio_count : int, optional
             GPIOs on the part, when not the target's own count.
+        what : str, optional
+            What the pins carry, for the messages (default ``"a N-bit ladder"``), e.g.
+            ``"the I2S lines (data, bit clock, word select)"``.
 
         Returns
         -------
@@ -200,9 +205,10 @@ class Target:
         """
         last = first_gpio + pins - 1
         count = self.gpio_count if gpio_count is None else gpio_count
+        what = what or f"a {pins}-bit ladder"
         if first_gpio < 0 or last >= count:
             raise OptionError(
-                f"a {pins}-bit ladder from GPIO {first_gpio} needs GPIO {first_gpio}..{last}, "
+                f"{what} from GPIO {first_gpio} needs GPIO {first_gpio}..{last}, "
                 f"but the target has GPIO 0..{count - 1}",
                 field="out_base",
             )
@@ -211,8 +217,8 @@ class Target:
                 return base
         windows = " or ".join(f"{b}..{b + 31}" for b in self.gpio_bases)
         raise OptionError(
-            f"GPIO {first_gpio}..{last} straddle the PIO block's 32-pin window (a state "
-            f"machine reaches GPIO {windows}); move the ladder inside one window",
+            f"{what} on GPIO {first_gpio}..{last} straddle the PIO block's 32-pin window (a "
+            f"state machine reaches GPIO {windows}); move them inside one window",
             field="out_base",
         )
 

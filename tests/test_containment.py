@@ -850,3 +850,37 @@ def test_the_highest_i2c_rate_rounded_is_accepted(
         _one_line_exit_2(res)
         said = res.stderr.split("at most ")[1].split(" ")[0]
         assert float(said) != float(rate)  # never "more than X: at most X"
+
+
+@pytest.mark.parametrize(
+    ("args", "said"),
+    [
+        (["--output", "i2s", "--out-base", "15", "--clock-pin", "46"], "the I2S lines"),
+        (["--stereo", "--bits", "12", "--out-base", "10"], "two 12-bit ladders"),
+        (
+            [
+                "--output",
+                "i2c-dac",
+                "--rate-hz",
+                "1000",
+                "--freq-hz",
+                "100",
+                "--out-base",
+                "10",
+                "--clock-pin",
+                "40",
+            ],
+            "the I2C lines",
+        ),
+    ],
+    ids=["i2s", "stereo", "i2c"],
+)
+def test_pin_window_errors_name_the_output_and_its_lines(
+    tmp_path: Path, args: list[str], said: str
+) -> None:
+    # RP2350B: a state machine reaches GPIO 0..31 or 16..47 (PIO GPIOBASE)
+    res = _cli("tone", "sine", "--target", "rp2350b", "--seconds", "0.01", "-o", "w", *args,
+               cwd=tmp_path)  # fmt: skip
+    _one_line_exit_2(res)
+    rest = res.stderr.split("error: ", 1)[1]
+    assert said in rest and "-bit ladder from" not in rest
