@@ -465,7 +465,7 @@ def plan_stream(
             field="band_hz",
         )
     least = max(20.0, rate / 2 / NOISE_GRID_POINTS)  # the noise figures' resolution
-    if band < least:
+    if opts.band_hz is not None and band < least:
         raise OptionError(
             f"must be at least {least:.6g} Hz (the lowest audio band the noise figures "
             f"resolve at {rate:.6g} Hz), got {opts.band_hz!r}",

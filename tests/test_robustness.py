@@ -256,7 +256,7 @@ HOSTILE = [
     "NULL",
     "_Bool",
     "__init__",
-    "x" * 300,
+    "x" * 200,  # the longest identifier (longer ones are refused: file-name limits)
 ]
 
 
