@@ -61,13 +61,24 @@ class LevelSet:
     def __post_init__(self) -> None:
         check_bits(self.bits)
         v = np.asarray(self.volts, dtype=np.float64)
-        if v.shape != (1 << self.bits,):
+        n = 1 << self.bits
+        if v.ndim != 1:
             raise OptionError(
-                f"expected {1 << self.bits} levels for {self.bits} bits, got {v.shape[0]}",
+                f"expected a list of {n} numbers (one level per code) for {self.bits} bits, "
+                f"got nested lists of shape {v.shape}",
                 field="volts",
+            )
+        if v.shape != (n,):
+            raise OptionError(
+                f"expected {n} levels for {self.bits} bits, got {v.shape[0]}", field="volts"
             )
         if not np.all(np.isfinite(v)):
             raise OptionError("levels must be finite", field="volts")
+        if v.max() == v.min():
+            raise OptionError(
+                f"all {n} levels are {float(v[0])!r} V: a ladder's levels must span a range",
+                field="volts",
+            )
         object.__setattr__(self, "volts", v)
 
     def to_json(self) -> str:
@@ -116,8 +127,10 @@ def load_levels(path: str | os.PathLike[str]) -> LevelSet:
         )
     except KeyError as exc:
         raise LadderpackError("missing key", file=name, field=str(exc.args[0])) from None
-    except (TypeError, ValueError, OptionError) as exc:
-        raise LadderpackError(str(exc), file=name, field="volts") from None
+    except OptionError as exc:  # its own field, named once
+        raise LadderpackError(exc.message, file=name, field=exc.field or "volts") from None
+    except (TypeError, ValueError) as exc:
+        raise LadderpackError(f"expected numbers ({exc})", file=name, field="volts") from None
 
 
 class Linearity(TypedDict):

@@ -884,3 +884,29 @@ def test_pin_window_errors_name_the_output_and_its_lines(
     _one_line_exit_2(res)
     rest = res.stderr.split("error: ", 1)[1]
     assert said in rest and "-bit ladder from" not in rest
+
+
+@pytest.mark.parametrize(
+    ("volts", "bits", "said"),
+    [
+        ([0, 1, 2], 2, "volts: expected 4 levels for 2 bits, got 3"),
+        ([1.0] * 256, 8, "must span a range"),
+        ([[0]] * 256, 8, "got nested lists of shape (256, 1)"),
+    ],
+    ids=["too-few", "all-equal", "nested"],
+)
+def test_malformed_levels_say_what_is_wrong_once(
+    tmp_path: Path, volts: list[object], bits: int, said: str
+) -> None:
+    import json
+
+    doc = {"format": "ladderpack-levels", "format_version": 1, "bits": bits, "volts": volts}
+    (tmp_path / "lv.json").write_text(json.dumps(doc))
+    res = subprocess.run(
+        [sys.executable, "-W", "error::RuntimeWarning", "-m", "ladderpack", "code", "--volts",
+         "1", "--levels", "lv.json"],
+        cwd=tmp_path, capture_output=True, text=True,
+    )  # fmt: skip
+    _one_line_exit_2(res)
+    assert "lv.json" in res.stderr and said in res.stderr
+    assert "volts: volts" not in res.stderr
