@@ -1359,9 +1359,10 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
         "max_update_rate_hz": rates,
         "files": written,
     }
+    entries: list[dict[str, Any]] = []
     if spec.volts is not None:
         codes = codes_for_volts(np.array(spec.volts), spec.vref_volts)
-        summary["entries"] = [
+        entries = [
             {
                 "volts": v,
                 "code": int(c),
@@ -1370,6 +1371,7 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
             }
             for v, c in zip(spec.volts, codes, strict=True)
         ]
+        summary["entries"] = entries
     if as_json:
         click.echo(json_text(summary))
         return
@@ -1377,7 +1379,7 @@ def table_i2c_dac(out_dir: str, name: str, as_json: bool, **values: Any) -> None
         f"{res.name}: {res.entries} updates of a 12-bit I2C DAC at 0x{spec.dac_address:02X} "
         f"({spec.dac_command} write, {fmt.bytes_per_update} bytes on the bus each)"
     )
-    for e in summary.get("entries", []):
+    for e in entries:
         click.echo(
             f"  {e['volts']:.4f} V -> code {e['code']:4d} = {e['actual_volts']:.4f} V "
             f"({1000 * e['error_volts']:+.2f} mV)"

@@ -238,12 +238,16 @@ def _number(
 ) -> float:
     """A finite number within lo..hi from a sidecar section, or the error naming it."""
     v = _section(side, path, section).get(key, default)
-    ok = isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-    if not ok or not lo <= v <= hi:
-        raise LadderpackError(
-            f"expected a number {lo:g}..{hi:g}, got {v!r}", file=path, field=f"{section}.{key}"
-        )
-    return float(v)
+    if (
+        isinstance(v, (int, float))
+        and not isinstance(v, bool)
+        and math.isfinite(v)
+        and lo <= v <= hi
+    ):
+        return float(v)
+    raise LadderpackError(
+        f"expected a number {lo:g}..{hi:g}, got {v!r}", file=path, field=f"{section}.{key}"
+    )
 
 
 def render_preview(

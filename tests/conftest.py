@@ -18,6 +18,10 @@ REPO = Path(__file__).resolve().parent.parent
 # safe-path mode leaves the working folder off sys.path (the README's test command
 # starts pytest with -P for the same reason).
 os.environ["PYTHONSAFEPATH"] = "1"
+# No RuntimeWarning may reach a user's terminal from any command: every command the tests
+# run in a subprocess (the CLI suite) treats one as an error, so it fails as an internal
+# error instead of printing (pytest's own filterwarnings does the same in-process).
+os.environ["PYTHONWARNINGS"] = "error::RuntimeWarning"
 
 
 def pytest_report_header() -> str:
