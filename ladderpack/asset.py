@@ -43,6 +43,7 @@ class StreamSummary(TypedDict):
     levels: dict[str, Any] | None
     loudness: dict[str, Any] | None
     predicted_full_scale_sine: dict[str, float] | None
+    band_hz: float | None
     warnings: list[str]
     program: str
     loop: bool
@@ -211,6 +212,7 @@ class StreamAsset:
             "levels": self.stats.get("levels"),
             "loudness": self.stats.get("loudness"),
             "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
+            "band_hz": self.stats.get("band_hz"),
             "warnings": list(self.stats.get("warnings", [])),
             "program": self.program.variant if self.program else f"pwm-{self._pwm_plan.pacing}",
             "loop": self.loop,

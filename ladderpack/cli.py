@@ -93,9 +93,11 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         )
     ps = summary.get("predicted_full_scale_sine")
     if ps:
+        band = summary.get("band_hz") or ps.get("band_hz")
+        where = f"in the 0..{band:g} Hz band" if band else "in band"
         click.echo(
             f"  predict  a full-scale sine would reach SINAD {ps['sinad_db']:.1f} dB, "
-            f"ENOB {ps['enob_bits']:.2f} bits (in band)"
+            f"ENOB {ps['enob_bits']:.2f} bits ({where})"
         )
     for warning in summary.get("warnings") or []:
         click.echo(f"  warning  {warning}")
@@ -1640,6 +1642,8 @@ def _print_analysis(r: Mapping[str, Any], label: str) -> None:
         f"  ENOB {r['enob_bits']:.3f} bits (IEEE), {r['enob_sine_bits']:.3f} bits "
         f"((SINAD - 1.76) / 6.02); noise {r['noise_dbfs']:.2f} dBFS"
     )
+    for warning in r.get("warnings") or []:
+        click.echo(f"  warning  {warning}")
 
 
 def _analyse_opts(func: Callable[..., Any]) -> Callable[..., Any]:
@@ -1689,6 +1693,14 @@ def _analyse_opts(func: Callable[..., Any]) -> Callable[..., Any]:
     return func
 
 
+def _stream_band(side: Mapping[str, Any], rate: float) -> tuple[float, float] | None:
+    """The audio band the stream's own prediction used (its sidecar), for preview."""
+    band = (side.get("stats") or {}).get("band_hz")
+    if isinstance(band, (int, float)) and not isinstance(band, bool) and 0 < band < rate / 2:
+        return (0.0, float(band))
+    return None
+
+
 def _band(rate: float, lo: float | None, hi: float | None) -> tuple[float, float] | None:
     if lo is None and hi is None:
         return None
@@ -1701,7 +1713,10 @@ def _band(rate: float, lo: float | None, hi: float | None) -> tuple[float, float
     "--rate-hz",
     type=float,
     default=None,
-    help="Sample rate of a CSV capture, Hz (sound files carry their own).",
+    help=(
+        "Sample rate of the capture, Hz: a CSV's when its header gives none; for a sound "
+        "file it overrides the header (whose rate is whole hertz)  [default: from the file]"
+    ),
 )
 @click.option(
     "--channel",
@@ -1770,6 +1785,9 @@ def measure(
     else:
         sig = load_clip(capture, channel=channel)
         y, rate = sig.samples, sig.rate_hz
+        if rate_hz is not None:  # the user knows better than the header (a rounded rate)
+            rate_note = f"from --rate-hz, over the file's header ({rate:g} Hz)"
+            rate = float(rate_hz)
     total = y.size
     if trim_start_s is not None or trim_end_s is not None:
         lo = round((trim_start_s or 0.0) * rate)
@@ -1800,7 +1818,7 @@ def measure(
     r["analysed_samples"] = [part.start or 0, part.stop if part.stop is not None else total]
     r["analysed_part"] = part_note
     r["sine_share"] = share
-    r["warnings"] = (
+    r["warnings"] = list(r.get("warnings") or []) + (
         [
             f"the capture does not look like a sine: a fitted sine holds only "
             f"{100 * share:.1f} % of its power, so these figures mean little"
@@ -1821,8 +1839,6 @@ def measure(
             f"  analysed samples {lo}..{hi} of {total} ({part_note}); rate {rate:g} Hz "
             f"({rate_note})"
         )
-        for warning in r["warnings"]:
-            click.echo(f"  warning  {warning}")
 
 
 def _write_bytes(path: str, data: bytes) -> str:
@@ -1939,7 +1955,8 @@ def preview(
             pv.rate_hz,
             freq_hz=known,
             harmonics=harmonics,
-            band_hz=_band(pv.rate_hz, band_low_hz, band_high_hz),
+            band_hz=_band(pv.rate_hz, band_low_hz, band_high_hz)
+            or _stream_band(pv.sidecar, pv.rate_hz),
             a_weighted=a_weighting,
         )
         result["analysis"] = r

@@ -205,6 +205,9 @@ class ToneAnalysis(TypedDict):
     band_hz: list[float]
     a_weighted: bool
     window: str
+    merged_harmonics: list[list[int]]
+    hidden_harmonics: dict[str, list[int]]
+    warnings: list[str]
 
 
 def analyse(
@@ -251,24 +254,78 @@ def analyse(
     # Harmonics fitted jointly (cos and sin of each, least squares) on the fit residual;
     # what remains after removing them is the noise, measured directly rather than as
     # the difference of two large powers.
+    # Harmonics that fold onto the same frequency (within the record's resolution) are
+    # one column, not two that split the power arbitrarily; those that fold onto DC,
+    # Nyquist or the fundamental itself cannot be told from them and are not fitted.
+    resolution = rate_hz / y.size
     cols: list[np.ndarray] = []
     kept: list[float] = []
+    groups: list[list[int]] = []
+    hidden: dict[str, list[int]] = {"dc": [], "nyquist": [], "fundamental": []}
     for k in range(2, harmonics + 1):
         fk = _fold(k * f0, rate_hz)
-        if fk < 1.0 or abs(fk - rate_hz / 2) < 1.0 or any(abs(fk - g) < 1e-9 for g in kept):
+        if fk < resolution:
+            hidden["dc"].append(k)
             continue
-        w = 2 * np.pi * fk * t
-        cols += [np.cos(w), np.sin(w)]
-        kept.append(fk)
+        if abs(fk - rate_hz / 2) < resolution:
+            hidden["nyquist"].append(k)
+            continue
+        if abs(fk - f0) < resolution:
+            hidden["fundamental"].append(k)
+            continue
+        for gi, g in enumerate(kept):
+            if abs(fk - g) < resolution:
+                groups[gi].append(k)
+                break
+        else:
+            w = 2 * np.pi * fk * t
+            cols += [np.cos(w), np.sin(w)]
+            kept.append(fk)
+            groups.append([k])
     harm_amp = [0.0] * (harmonics - 1)
     noise_resid = fit.residual
     if cols:
         d = np.column_stack(cols)
         coef, *_ = np.linalg.lstsq(d, fit.residual, rcond=None)
         noise_resid = fit.residual - d @ coef
-        amp_at = {f: math.hypot(coef[2 * i], coef[2 * i + 1]) for i, f in enumerate(kept)}
-        for k in range(2, harmonics + 1):
-            harm_amp[k - 2] = amp_at.get(_fold(k * f0, rate_hz), 0.0)
+        for i, group in enumerate(groups):  # a merged group's line is its lowest's
+            harm_amp[group[0] - 2] = math.hypot(coef[2 * i], coef[2 * i + 1])
+    warnings: list[str] = []
+    if freq_hz is not None:
+        # a given frequency the tone does not have: the fit at it leaks the tone into the
+        # residual (a WAV header's whole-hertz rate does this to a tone at its exact rate)
+        free = fit_sine(y, rate_hz)
+        cost = 10 * math.log10(
+            max(float(np.mean(fit.residual**2)), 1e-300)
+            / max(float(np.mean(free.residual**2)), 1e-300)
+        )
+        if cost > 0.1:  # the given frequency leaves more than 2 % more residual power
+            warnings.append(
+                f"the tone is at {free.freq_hz:.6f} Hz by a free fit, "
+                f"{free.freq_hz - freq_hz:+.6f} Hz from --freq-hz {freq_hz:g}, which costs "
+                f"{cost:.2f} dB of SINAD: drop --freq-hz, or give the capture's exact rate "
+                "with --rate-hz"
+            )
+    merged = [g for g in groups if len(g) > 1]
+    if merged or any(hidden.values()):
+        said = [
+            f"harmonics {', '.join(map(str, g))} fall together at "
+            f"{_fold(g[0] * f0, rate_hz):.6g} Hz (one line, counted as harmonic {g[0]})"
+            for g in merged
+        ] + [
+            f"harmonic{'s' if len(ks) > 1 else ''} {', '.join(map(str, ks))} "
+            f"fall{'' if len(ks) > 1 else 's'} on "
+            f"{ {'dc': 'DC', 'nyquist': 'Nyquist'}.get(where, 'the fundamental') } "
+            "and cannot be measured"
+            for where, ks in hidden.items()
+            if ks
+        ]
+        warnings.append(
+            "the tone is a simple fraction of the sample rate: "
+            + "; ".join(said)
+            + ". Distortion hides there: use a tone whose cycle count in the record is "
+            "relatively prime to its length (IEEE Std 1241, coherent sampling)"
+        )
     n = y.size
     win = np.hanning(n)
     freqs = np.fft.rfftfreq(n, 1 / rate_hz)
@@ -292,7 +349,7 @@ def analyse(
     # own frequency, the noise spectrum bin by bin.
     sig_power = fit.amplitude**2 / 2 * weight_at(f0)
     harm_power = 0.0
-    for k, a in enumerate(harm_amp, start=2):
+    for k, a in enumerate(harm_amp, start=2):  # each line once (merged ones are 0)
         fk = _fold(k * f0, rate_hz)
         if a > 0 and lo <= fk <= hi:
             harm_power += a * a / 2 * weight_at(fk)
@@ -325,6 +382,9 @@ def analyse(
         "harmonics_dbc": [20 * math.log10(max(a, 1e-300) / fit.amplitude) for a in harm_amp],
         "band_hz": [lo, hi],
         "a_weighted": a_weighted,
+        "merged_harmonics": merged,
+        "hidden_harmonics": {k: v for k, v in hidden.items() if v},
+        "warnings": warnings,
         "window": "hann (power-corrected) for band-limited and weighted noise; harmonics and "
         "spurs by least-squares fits; time-domain residual otherwise",
     }

@@ -162,7 +162,10 @@ def test_preview_of_ideal_bundle_matches_theory(
     assert res.returncode == 0, res.stderr
     r = json.loads(res.stdout)["analysis"]
     theory = 6.0206 * bits + 1.7609 - penalty_db - 1.0
-    assert r["sinad_db"] == pytest.approx(theory, abs=0.5)
+    # preview measures in the stream's own 20 kHz band by default: the full-band theory
+    # gains 10 log10(24 / 20) dB there (processing gain, MT-001)
+    assert r["band_hz"] == [0.0, 20000.0]
+    assert r["sinad_db"] == pytest.approx(theory + 10 * math.log10(24 / 20), abs=0.5)
     summary_pred = json.loads((tmp_path / "sine.json").read_text())["stats"][
         "predicted_full_scale_sine"
     ]["sinad_db"]
@@ -615,3 +618,72 @@ def test_preview_names_the_rendered_and_the_header_rate(tmp_path: Path) -> None:
     assert r["rate_hz"] != round(r["rate_hz"])
     assert r["wav_header_rate_hz"] == round(r["rate_hz"])
     assert soundfile.info(r["file"]).samplerate == r["wav_header_rate_hz"]
+
+
+@pytest.mark.parametrize("f0", [3000.0, 4000.0, 6000.0, 8000.0, 12000.0])
+def test_harmonics_folding_together_are_one_line(f0: float) -> None:
+    # A bench tone at a simple fraction of 48 kHz whose only distortion is a second
+    # harmonic at -60 dBc (known by construction): THD must read -60 dB. Before, the
+    # folded harmonics were duplicate columns and THD read +4.36 dB at 6 kHz.
+    rate, n = 48000.0, 48000
+    t = np.arange(n) / rate
+    y = 0.9 * np.sin(2 * np.pi * f0 * t) + 0.9e-3 * np.sin(2 * np.pi * 2 * f0 * t + 0.3)
+    r = analyse(y, rate)
+    if 2 * f0 % rate == 0 or (2 * f0) % (rate / 2) == 0:  # 2 f0 on DC or Nyquist: hidden
+        assert r["hidden_harmonics"]
+    else:
+        assert abs(r["thd_db"] - -60.0) < 0.01, r["thd_db"]
+    assert r["warnings"] and "relatively prime" in r["warnings"][0]
+
+
+def test_a_relatively_prime_tone_has_no_folding_warning() -> None:
+    rate, n = 48000.0, 48000
+    t = np.arange(n) / rate
+    y = np.sin(2 * np.pi * 997.0 * t) + 1e-3 * np.sin(2 * np.pi * 1994.0 * t)
+    r = analyse(y, rate)
+    assert not r["warnings"] and not r["merged_harmonics"] and not r["hidden_harmonics"]
+    assert abs(r["thd_db"] - -60.0) < 0.01
+
+
+def test_a_given_frequency_off_the_tone_is_warned(tmp_path: Path) -> None:
+    # the tool's own preview: a stream at 22049.7 Hz in a WAV that says 22050 Hz
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "tone", "sine", "--seconds", "0.5", "-o", "o"],
+        cwd=tmp_path, capture_output=True, text=True,
+    )  # fmt: skip
+    assert res.returncode == 0, res.stderr
+    subprocess.run(
+        [sys.executable, "-m", "ladderpack", "preview", "o/sine.json"],
+        cwd=tmp_path, capture_output=True, check=True,
+    )  # fmt: skip
+
+    def measure(*extra: str) -> dict:
+        out = subprocess.run(
+            [sys.executable, "-m", "ladderpack", "measure", "o/sine_preview.wav", "--json",
+             *extra],
+            cwd=tmp_path, capture_output=True, text=True,
+        )  # fmt: skip
+        assert out.returncode == 0, out.stderr
+        return json.loads(out.stdout)
+
+    side = json.loads((tmp_path / "o" / "sine.json").read_text())
+    exact_rate = side["clock"]["achieved_rate_hz"]
+    off = measure("--freq-hz", "1000")  # the tone's frequency, at the header's 22050 Hz
+    assert any("free fit" in w for w in off["warnings"])
+    # --rate-hz overrides the header's whole hertz, and says so
+    right = measure("--rate-hz", repr(exact_rate))
+    assert right["rate_hz"] == exact_rate and "--rate-hz" in right["rate_source"]
+
+
+def test_preview_measures_in_the_streams_band(tmp_path: Path) -> None:
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "tone", "sine", "--rate-hz", "48000",
+         "--seconds", "0.5", "-o", "o"],
+        cwd=tmp_path, capture_output=True, text=True,
+    )  # fmt: skip
+    assert "in the 0..20000 Hz band" in res.stdout
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "preview", "o/sine.json", "--json"],
+        cwd=tmp_path, capture_output=True, text=True,
+    )  # fmt: skip
+    assert json.loads(res.stdout)["analysis"]["band_hz"] == [0.0, 20000.0]
