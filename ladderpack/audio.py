@@ -309,6 +309,7 @@ def read_capture_csv(path: str | os.PathLike[str]) -> tuple[np.ndarray, float | 
     interval: float | None = None
     how = ""
     started = False
+    increment_col: int | None = None  # a header row naming an "Increment" column
     try:
         with open(name, encoding="utf-8-sig", newline="") as fh:
             for line, row in enumerate(csv.reader(fh), start=1):
@@ -323,6 +324,19 @@ def read_capture_csv(path: str | os.PathLike[str]) -> tuple[np.ndarray, float | 
                         raise AudioFileError(
                             f"expected a number, got {bad!r}", file=f"{name}:{line}"
                         ) from None
+                    raw = [c.strip() for c in row]
+                    # a scope's column layout: "X,CH1,Start,Increment," names the columns,
+                    # and the next header row holds their values ("Sequence,Volt,-6e-3,2e-6")
+                    if increment_col is not None and increment_col < len(raw):
+                        s = _seconds(raw[increment_col])
+                        if s is not None and s > 0:
+                            interval = s
+                            how = f"header line {line} (the Increment column)"
+                        increment_col = None
+                    lowered = [c.lower() for c in raw]
+                    if "increment" in lowered and interval is None:
+                        increment_col = lowered.index("increment")
+                        continue
                     key = cells[0].lower()
                     if len(cells) >= 2 and re.search(
                         r"sample ?interval|x ?increment|sample ?period|time ?per ?sample|^dt$",
@@ -351,8 +365,10 @@ def read_capture_csv(path: str | os.PathLike[str]) -> tuple[np.ndarray, float | 
         tt = np.asarray(times)
         d = np.diff(tt)
         step = float(tt[-1] - tt[0]) / (tt.size - 1)  # over the whole record: precise
+        # a column counting 0, 1, 2, ... (or from 1) numbers the samples: it is no time
+        counting = bool(np.all(d == 1.0)) and tt[0] in (0.0, 1.0)
         # evenly spaced, allowing for the rounding of printed times
-        if step > 0 and np.all(np.abs(d - step) <= 1e-3 * step):
+        if not counting and step > 0 and np.all(np.abs(d - step) <= 1e-3 * step):
             interval, how = step, "the time column"
     x = np.asarray(values, dtype=np.float64)
     check_signal(Signal(x, 1.0), source=name, min_frames=8)

@@ -1818,6 +1818,14 @@ def measure(
     r["analysed_samples"] = [part.start or 0, part.stop if part.stop is not None else total]
     r["analysed_part"] = part_note
     r["sine_share"] = share
+    cycles = r["freq_hz"] * y.size / rate
+    if cycles < 2:
+        r["warnings"] = [
+            *(r.get("warnings") or []),
+            f"the record holds {cycles:.3g} cycles of a {r['freq_hz']:.4g} Hz tone at "
+            f"{rate:g} Hz ({rate_note}): an implausible rate; give the capture's rate with "
+            "--rate-hz",
+        ]
     r["warnings"] = list(r.get("warnings") or []) + (
         [
             f"the capture does not look like a sine: a fitted sine holds only "

@@ -687,3 +687,24 @@ def test_preview_measures_in_the_streams_band(tmp_path: Path) -> None:
         cwd=tmp_path, capture_output=True, text=True,
     )  # fmt: skip
     assert json.loads(res.stdout)["analysis"]["band_hz"] == [0.0, 20000.0]
+
+
+def _scope_csv(path: Path, layout: str) -> Path:
+    # 1 kHz at a 2 us sample interval (500 kHz), 6000 samples, in a common scope layout:
+    # a header naming the columns "X,CH1,Start,Increment," and a row of their values, then
+    # a sample-number column (not time) and the channel's values
+    lines = ["X,CH1,Start,Increment,", "Sequence,Volt,-6.000000e-03,2.000000e-06"]
+    if layout == "no-interval":
+        lines = ["X,CH1"]
+    lines += [f"{k},{math.sin(2 * math.pi * 1000 * k * 2e-6):.6e}," for k in range(6000)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_a_scope_csv_reads_its_increment_not_the_sequence_column(tmp_path: Path) -> None:
+    from ladderpack.audio import read_capture_csv
+
+    x, rate, how = read_capture_csv(_scope_csv(tmp_path / "s.csv", "increment"))
+    assert x.size == 6000 and rate == pytest.approx(500_000.0) and "Increment" in how
+    _x, rate, _how = read_capture_csv(_scope_csv(tmp_path / "q.csv", "no-interval"))
+    assert rate is None  # a column counting 0, 1, 2 ... is no time: --rate-hz is needed
