@@ -1631,7 +1631,11 @@ def build(
 def _print_analysis(r: Mapping[str, Any], label: str) -> None:
     click.echo(
         f"{label}: {r['freq_hz']:.4f} Hz at {r['amplitude_dbfs']:.2f} dBFS"
-        + (", A-weighted" if r["a_weighted"] else "")
+        + (
+            (", A-weighted (tone too)" if r.get("tone_weighted") else ", A-weighted noise")
+            if r["a_weighted"]
+            else ""
+        )
         + f", band {r['band_hz'][0]:g}..{r['band_hz'][1]:g} Hz"
     )
     click.echo(
@@ -1677,7 +1681,16 @@ def _analyse_opts(func: Callable[..., Any]) -> Callable[..., Any]:
             "--a-weighting/--no-a-weighting",
             default=False,
             show_default=True,
-            help="Weight noise and distortion by IEC 61672-1 A-weighting.",
+            help=(
+                "Weight noise and distortion by IEC 61672-1 A-weighting; the tone stays "
+                "unweighted (usual practice, as in AES17)."
+            ),
+        ),
+        click.option(
+            "--weight-tone/--no-weight-tone",
+            default=False,
+            show_default=True,
+            help="With --a-weighting, weight the tone too (a ratio of weighted powers).",
         ),
         click.option(
             "--plot",
@@ -1758,6 +1771,7 @@ def measure(
     band_low_hz: float | None,
     band_high_hz: float | None,
     a_weighting: bool,
+    weight_tone: bool,
     plot_path: str | None,
     as_json: bool,
 ) -> None:
@@ -1811,6 +1825,7 @@ def measure(
             harmonics=harmonics,
             band_hz=_band(rate, band_low_hz, band_high_hz),
             a_weighted=a_weighting,
+            weight_tone=weight_tone,
         )
     )
     r["rate_hz"] = rate
@@ -1912,6 +1927,7 @@ def preview(
     band_low_hz: float | None,
     band_high_hz: float | None,
     a_weighting: bool,
+    weight_tone: bool,
     plot_path: str | None,
     as_json: bool,
 ) -> None:
@@ -1966,6 +1982,7 @@ def preview(
             band_hz=_band(pv.rate_hz, band_low_hz, band_high_hz)
             or _stream_band(pv.sidecar, pv.rate_hz),
             a_weighted=a_weighting,
+            weight_tone=weight_tone,
         )
         result["analysis"] = r
         if plot_path:

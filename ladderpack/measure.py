@@ -204,6 +204,7 @@ class ToneAnalysis(TypedDict):
     harmonics_dbc: list[float]
     band_hz: list[float]
     a_weighted: bool
+    tone_weighted: bool
     window: str
     merged_harmonics: list[list[int]]
     hidden_harmonics: dict[str, list[int]]
@@ -219,6 +220,7 @@ def analyse(
     harmonics: int = 10,
     band_hz: tuple[float, float] | None = None,
     a_weighted: bool = False,
+    weight_tone: bool = False,
 ) -> ToneAnalysis:
     """Dynamic metrics of a captured test tone.
 
@@ -238,7 +240,12 @@ def analyse(
     band_hz : (float, float), optional
         Band for noise and distortion, Hz (default 0..fs/2, DC excluded).
     a_weighted : bool
-        Weight noise and distortion by IEC 61672-1 A-weighting.
+        Weight noise and distortion by IEC 61672-1 A-weighting.  The tone itself is
+        not weighted (the usual practice, as in AES17: weighted noise against the
+        unweighted signal), unless `weight_tone`.
+    weight_tone : bool
+        With `a_weighted`, weight the tone too: the ratio of weighted powers (a 100 Hz
+        tone then reads 19.1 dB lower, its A-weighting).
 
     Returns
     -------
@@ -347,7 +354,7 @@ def analyse(
 
     # Signal, harmonics and noise weighted the same way: each line by the weighting at its
     # own frequency, the noise spectrum bin by bin.
-    sig_power = fit.amplitude**2 / 2 * weight_at(f0)
+    sig_power = fit.amplitude**2 / 2 * (weight_at(f0) if weight_tone else 1.0)
     harm_power = 0.0
     for k, a in enumerate(harm_amp, start=2):  # each line once (merged ones are 0)
         fk = _fold(k * f0, rate_hz)
@@ -382,6 +389,7 @@ def analyse(
         "harmonics_dbc": [20 * math.log10(max(a, 1e-300) / fit.amplitude) for a in harm_amp],
         "band_hz": [lo, hi],
         "a_weighted": a_weighted,
+        "tone_weighted": bool(a_weighted and weight_tone),
         "merged_harmonics": merged,
         "hidden_harmonics": {k: v for k, v in hidden.items() if v},
         "warnings": warnings,

@@ -438,7 +438,7 @@ def test_a_weighting_weighs_signal_harmonics_and_noise_alike(rng: np.random.Gene
     f0 = 3000.7
     y = a * np.sin(2 * np.pi * f0 * t) + a * 0.01 * np.sin(4 * np.pi * f0 * t)
     y = y + sigma * rng.standard_normal(n)
-    r = analyse(y, rate, a_weighted=True)
+    r = analyse(y, rate, a_weighted=True, weight_tone=True)  # the tone weighted too
     f = np.linspace(1.0, rate / 2, 200001)
     w = 10 ** (_iec_a_weighting_db(f) / 10)
     noise_w = sigma**2 * float(np.trapezoid(w, f)) / (rate / 2)
@@ -708,3 +708,15 @@ def test_a_scope_csv_reads_its_increment_not_the_sequence_column(tmp_path: Path)
     assert x.size == 6000 and rate == pytest.approx(500_000.0) and "Increment" in how
     _x, rate, _how = read_capture_csv(_scope_csv(tmp_path / "q.csv", "no-interval"))
     assert rate is None  # a column counting 0, 1, 2 ... is no time: --rate-hz is needed
+
+
+def test_a_weighted_snr_weights_the_noise_not_the_tone(rng: np.random.Generator) -> None:
+    # AES17 practice: A-weighted noise against the unweighted tone. IEC 61672-1 Table 3:
+    # A-weighting at 100 Hz is -19.1 dB, so weighting the tone too reads 19.1 dB lower.
+    rate, n = 48000.0, 48000
+    t = np.arange(n) / rate
+    y = 0.5 * np.sin(2 * np.pi * 100.0 * t) + 1e-4 * rng.standard_normal(n)
+    usual = analyse(y, rate, a_weighted=True)
+    both = analyse(y, rate, a_weighted=True, weight_tone=True)
+    assert usual["snr_db"] - both["snr_db"] == pytest.approx(19.1, abs=0.1)
+    assert not usual["tone_weighted"] and both["tone_weighted"]
