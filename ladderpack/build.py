@@ -345,7 +345,13 @@ def option_objects(
         values = {k: v for k, v in options.items() if k in keys}
         if cls is model.ToneSpec:
             values["kind"] = source
-        out.append(model.from_mapping(cls, values, file=file, where=where))
+        try:
+            out.append(model.from_mapping(cls, values, file=file, where=where))
+        except LadderpackError as exc:
+            # the manifest says tone = "sine", not kind: name the key the user wrote
+            if exc.field is not None and exc.field.split(".")[-1] == "kind":
+                exc = type(exc)(exc.message, file=exc.file, field=exc.field[:-4] + "tone")
+            raise exc from None
     return out
 
 

@@ -358,6 +358,51 @@ def cli(debug: bool) -> None:
     Safety: never drive a speaker or headphones from the ladder directly, keep
     listening levels low, and leave mains-powered gear to qualified people.
     """
+    ctx = click.get_current_context()
+    sub = ctx.invoked_subcommand
+    command = cli.commands.get(sub) if sub else None
+    if isinstance(command, click.Group):  # plot, table: the subcommand's own options
+        rest = _argv
+        after = rest[rest.index(sub) + 1 :] if sub in rest else []
+        command = command.commands.get(after[0]) if after else None
+    global _invoked
+    _invoked = command
+
+
+#: The command being run, so that an error names its options as the user typed them.
+_invoked: click.Command | None = None
+#: The arguments main() was given.
+_argv: list[str] = []
+
+
+def _as_typed(exc: LadderpackError) -> str:
+    """The error's text with option names as the command line spells them.
+
+    The library names fields as a manifest does (``loudness_lufs``); on the command
+    line the user typed ``--loudness-lufs``. A manifest's own errors keep its spelling.
+    """
+    import re
+
+    command = _invoked
+    if command is None or command.name == "build":
+        return str(exc)
+    flags = {
+        p.name: max(p.opts, key=len)
+        for p in command.params
+        if isinstance(p, click.Option) and p.name and max(p.opts, key=len).startswith("--")
+    }
+    if not flags:
+        return str(exc)
+    # in the message only the snake_case names (one-word names are also plain words)
+    named = sorted((n for n in flags if "_" in n), key=len)[::-1]
+    if not named:
+        return str(
+            LadderpackError(exc.message, file=exc.file, field=flags.get(exc.field or "", exc.field))
+        )
+    pattern = re.compile(r"\b(" + "|".join(map(re.escape, named)) + r")\b")
+    field = flags.get(exc.field or "", exc.field)
+    message = pattern.sub(lambda m: flags[m.group(1)], exc.message)
+    return str(LadderpackError(message, file=exc.file, field=field))
 
 
 @cli.command()
@@ -2148,11 +2193,13 @@ def main(argv: list[str] | None = None) -> None:
     """
     signals_as_interrupt()
     args = list(sys.argv[1:] if argv is None else argv)
+    global _argv
+    _argv = args
     debug = "--debug" in args[: args.index("--")] if "--" in args else "--debug" in args
     try:
         rc = cli.main(args=args, prog_name="ladderpack", standalone_mode=False)
     except LadderpackError as exc:
-        click.echo(f"ladderpack: error: {exc}", err=True)
+        click.echo(f"ladderpack: error: {_as_typed(exc)}", err=True)
         sys.exit(exc.exit_code)
     except click.ClickException as exc:
         exc.show()

@@ -147,7 +147,12 @@ class LoudnessMeter:
         """
         hops = np.concatenate(self._hops) if self._hops else np.zeros((0, self.channels))
         if hops.shape[0] < 4:
-            raise OptionError("need at least 400 ms for integrated loudness", field="samples")
+            raise OptionError(
+                "the audio is under 400 ms long; "
+                "integrated loudness needs at least 400 ms (ITU-R BS.1770-4 gating blocks): "
+                "set the level with headroom_db instead",
+                field="loudness_lufs",
+            )
         per_hop = hops.sum(axis=1)  # all channels weighted 1
         power = (per_hop[:-3] + per_hop[1:-2] + per_hop[2:-1] + per_hop[3:]) / (4 * self.hop)
         with np.errstate(divide="ignore"):

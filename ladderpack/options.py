@@ -163,7 +163,14 @@ def _check_items(name: str, value: Any, hint: Any, depth: int = 0) -> None:
     for item, h in zip(value, item_hints, strict=True):
         if typing.get_origin(h) is tuple:
             if not isinstance(item, list | tuple) or depth > 2:
-                raise OptionError(f"each item must be a list, got {item!r}", field=name)
+                n = len(typing.get_args(h))
+                raise OptionError(
+                    f"each item must be a list of {n} numbers (e.g. [1000, -6] for a "
+                    f"frequency in Hz and a level in dB), got {item!r}"
+                    if n == 2
+                    else f"each item must be a list of {n} values, got {item!r}",
+                    field=name,
+                )
             _check_items(name, item, h, depth + 1)
             continue
         number = isinstance(item, int | float) and not isinstance(item, bool)
@@ -732,7 +739,10 @@ class StreamOptions(_Model):
                 field="flash_reserve_bytes",
             )
         if self.crossfade_ms > 0 and not self.loop:
-            raise OptionError("applies only to loops; add loop or drop it", field="crossfade_ms")
+            raise OptionError(
+                "applies only to loops; make the stream a loop or drop this option",
+                field="crossfade_ms",
+            )
         if self.loop and _flag_given(self, "fade_ms"):
             raise OptionError(
                 "does not apply to loops (a loop has no ends to fade); use crossfade_ms",

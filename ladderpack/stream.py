@@ -602,11 +602,16 @@ def _conformed(
                     meter.feed(ys[0] if len(ys) == 1 else np.stack(ys, axis=1))
             done("resample", _FIRST_PASS_SHARE * seen / first.frames)
         if meter is not None:
-            gain_db, out.loudness = loudness_gain(
-                meter,
-                target_lufs=float(opts.loudness_lufs or 0.0),
-                true_peak_dbtp=opts.true_peak_dbtp,
-            )
+            try:
+                gain_db, out.loudness = loudness_gain(
+                    meter,
+                    target_lufs=float(opts.loudness_lufs or 0.0),
+                    true_peak_dbtp=opts.true_peak_dbtp,
+                )
+            except OptionError as exc:  # name the clip the loudness is of
+                raise OptionError(
+                    exc.message, file=_source_name(srcs[0]), field=exc.field
+                ) from None
             gain: float | None = portable.db_to_amplitude(gain_db)
             out.gain_db = gain_db
         else:
@@ -1143,6 +1148,12 @@ def stream_signal(
         srcs = [ArraySource(sig)]
     plan = plan_stream(opts, name=name, rate_in_hz=srcs[0].rate_hz, frames=srcs[0].frames)
     return finish(plan, process(plan, srcs, progress=progress), name=name, source=source)
+
+
+def _source_name(src: object) -> str | None:
+    """The file a source reads, when it reads one."""
+    path = getattr(src, "path", None)
+    return os.fspath(path) if path is not None else None
 
 
 def stream_clip(

@@ -65,10 +65,10 @@ CASES = {
     "nan samples": (lambda p, c: [str(_bad_wav_nan(p))], "frame 37"),
     "bits 0": (lambda p, c: [str(c), "--bits", "0"], "bits: must be a whole number 1..16"),
     "bits 17": (lambda p, c: [str(c), "--bits", "17"], "bits: must be a whole number 1..16"),
-    "unreachable rate": (lambda p, c: [str(c), "--rate-hz", "1"], "rate_hz: 1 Hz cannot"),
+    "unreachable rate": (lambda p, c: [str(c), "--rate-hz", "1"], "--rate-hz: 1 Hz cannot"),
     "bad channel": (lambda p, c: [str(c), "--channel", "3"], "channel: file has 1 channel"),
     "pins off the chip": (lambda p, c: [str(c), "--bits", "12", "--out-base", "20"], "GPIO 20..31"),
-    "idle code too big": (lambda p, c: [str(c), "--bits", "4", "--idle-code", "16"], "idle_code"),
+    "idle code too big": (lambda p, c: [str(c), "--bits", "4", "--idle-code", "16"], "--idle-code"),
 }
 
 
@@ -290,3 +290,12 @@ def test_tone_help_shows_only_the_options_a_tone_takes() -> None:
     assert all(f + " " in stream_help for f in flags)
     res = CliRunner().invoke(cli, ["tone", "sine", "--crossfade-ms", "5"])
     assert res.exit_code == 2 and "No such option" in res.output
+
+
+def test_command_line_errors_name_options_as_typed(tmp_path: Path) -> None:
+    # the library's field names are the manifest's (loudness_lufs); on the command line
+    # the error names the flag the user typed, and a build keeps the manifest's spelling
+    res = run("tone", "sine", "--bits", "40", "-o", str(tmp_path / "o"))
+    assert "error: --bits: " in res.stderr
+    res = run("table", "i2c-dac", "--volts", "9", "-o", str(tmp_path / "t"))
+    assert "error: --volts: " in res.stderr

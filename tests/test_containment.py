@@ -829,7 +829,7 @@ def test_a_band_too_narrow_to_measure_is_refused(tmp_path: Path) -> None:
     res = _cli("tone", "sine", "--shaping", "designed", "--band-hz", "1e-300", "--seconds",
                "0.01", "-o", "b", cwd=tmp_path)  # fmt: skip
     _one_line_exit_2(res)
-    assert "band_hz" in res.stderr and "nan" not in res.stderr.lower()
+    assert "--band-hz" in res.stderr and "nan" not in res.stderr.lower()
 
 
 @pytest.mark.parametrize(
@@ -910,3 +910,31 @@ def test_malformed_levels_say_what_is_wrong_once(
     _one_line_exit_2(res)
     assert "lv.json" in res.stderr and said in res.stderr
     assert "volts: volts" not in res.stderr
+
+
+@pytest.mark.parametrize(
+    ("extra", "said"),
+    [
+        ('tone = "sin"\n', "asset 'a'.tone: must be one of"),
+        ('tone = "multitone"\ntones = [1000, 2000]\n', "list of 2 numbers (e.g. [1000, -6]"),
+    ],
+    ids=["tone-kind", "tones-format"],
+)
+def test_manifest_errors_name_what_the_user_wrote(tmp_path: Path, extra: str, said: str) -> None:
+    mf = _manifest(tmp_path, f'[[asset]]\nname = "a"\n{extra}\n')
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert said in res.stderr and ".kind" not in res.stderr
+
+
+def test_a_loudness_target_on_a_short_clip_names_the_clip_and_option(tmp_path: Path) -> None:
+    import soundfile
+
+    soundfile.write(tmp_path / "short.wav", 0.3 * np.sin(np.arange(8000) * 0.1), 44100)
+    res = _cli("stream", "short.wav", "--loudness-lufs", "-23", "-o", "s", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "short.wav: --loudness-lufs:" in res.stderr and "400 ms" in res.stderr
+    mf = _manifest(tmp_path, '[[asset]]\nname = "b"\nclip = "short.wav"\nloudness_lufs = -23\n')
+    res = _cli("build", str(mf), cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "asset 'b'" in res.stderr and "loudness_lufs" in res.stderr
