@@ -631,7 +631,8 @@ class StreamOptions(_Model):
         if self.out_base + int(self.stereo) >= int(self.gpio_count or 0):
             raise OptionError(
                 f"the PWM pin GPIO {self.out_base} is not on the target (GPIO 0.."
-                f"{int(self.gpio_count or 0) - 1})",
+                f"{int(self.gpio_count or 0) - 1})"
+                + get_target(self.target).more_pins_hint(self.out_base + int(self.stereo)),
                 field="out_base",
             )
 
@@ -682,7 +683,7 @@ class StreamOptions(_Model):
         if max(sda, scl) >= count:
             raise OptionError(
                 f"the I2C lines need GPIO {sda} (SDA) and {scl} (SCL), but the target has "
-                f"GPIO 0..{count - 1}",
+                f"GPIO 0..{count - 1}" + get_target(self.target).more_pins_hint(max(sda, scl)),
                 field="clock_pin" if scl >= count else "out_base",
             )
         lo, hi = min(sda, scl), max(sda, scl)
@@ -711,7 +712,8 @@ class StreamOptions(_Model):
         if max(pins) >= count:
             raise OptionError(
                 f"the I2S lines need GPIO {pins[0]} (data), {pins[1]} (bit clock) and "
-                f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}",
+                f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}"
+                + get_target(self.target).more_pins_hint(max(pins)),
                 field="clock_pin" if pins[2] >= count else "out_base",
             )
         lo, hi = min(pins), max(pins)
@@ -728,7 +730,7 @@ class StreamOptions(_Model):
         if self.stereo:
             n = self.bits
             return f"two {n}-bit ladders ({2 * n} pins)"
-        return f"a {self.bits}-bit ladder"
+        return f"{'an' if self.bits in (8, 11, 18) else 'a'} {self.bits}-bit ladder"
 
     def _check_common(self) -> None:
         """Checks shared by every output."""

@@ -171,6 +171,26 @@ class Target:
         except KeyError:
             raise KeyError(f"{self.platform} has no register fact {name!r}") from None
 
+    def more_pins_hint(self, last_gpio: int) -> str:
+        """A hint when a larger package of the same chip has GPIO `last_gpio` (else "").
+
+        Examples
+        --------
+        >>> get_target("rp2350").more_pins_hint(40)
+        '; the RP2350B (QFN-80 package) has GPIO 0..47: --target rp2350b'
+        """
+        for t in TARGETS.values():
+            if (
+                t.platform == self.platform
+                and t.gpio_count > self.gpio_count
+                and last_gpio < t.gpio_count
+            ):
+                return (
+                    f"; the {t.name.upper()} (QFN-80 package) has GPIO 0..{t.gpio_count - 1}: "
+                    f"--target {t.name}"
+                )
+        return ""
+
     def pio_bases(self) -> tuple[int, ...]:
         """Base address of each PIO block (``PIO0_BASE``, ``PIO1_BASE``, ...)."""
         return tuple(self.reg(f"PIO{k}_BASE") for k in range(self.pio_blocks))
@@ -205,11 +225,11 @@ class Target:
         """
         last = first_gpio + pins - 1
         count = self.gpio_count if gpio_count is None else gpio_count
-        what = what or f"a {pins}-bit ladder"
+        what = what or f"{'an' if pins in (8, 11, 18) else 'a'} {pins}-bit ladder"
         if first_gpio < 0 or last >= count:
             raise OptionError(
                 f"{what} from GPIO {first_gpio} needs GPIO {first_gpio}..{last}, "
-                f"but the target has GPIO 0..{count - 1}",
+                f"but the target has GPIO 0..{count - 1}" + self.more_pins_hint(last),
                 field="out_base",
             )
         for base in self.gpio_bases:

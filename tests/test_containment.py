@@ -938,3 +938,11 @@ def test_a_loudness_target_on_a_short_clip_names_the_clip_and_option(tmp_path: P
     res = _cli("build", str(mf), cwd=tmp_path)
     _one_line_exit_2(res)
     assert "asset 'b'" in res.stderr and "loudness_lufs" in res.stderr
+
+
+@pytest.mark.parametrize("args", [["--out-base", "36"], ["--output", "pwm", "--out-base", "36"]])
+def test_pins_beyond_the_rp2350a_point_to_the_rp2350b(tmp_path: Path, args: list[str]) -> None:
+    # RP2350 datasheet: the QFN-60 package has GPIO 0..29, the QFN-80 (RP2350B) 0..47
+    res = _cli("tone", "sine", "--target", "rp2350", "-o", "x", *args, cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "--target rp2350b" in res.stderr
