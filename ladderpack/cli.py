@@ -326,6 +326,19 @@ def _model_options_lazy(cls_name: str, **kw: Any) -> Callable[[Any], Any]:
     return model_options(getattr(options, cls_name), **kw)
 
 
+def _warn_out_dir_named_as_output(out_dir: str, output: str) -> None:
+    """Warn (stderr) when ``-o i2s`` looks meant as ``--output i2s``: -o is the folder."""
+    from ladderpack.defaults import STREAM_OUTPUTS
+
+    folder = os.path.basename(os.path.normpath(out_dir))
+    if folder in STREAM_OUTPUTS and folder != output:
+        click.echo(
+            f"ladderpack: warning: the output folder is named {folder!r} but the stream is "
+            f"for output {output}: -o names the folder; --output {folder} chooses the output",
+            err=True,
+        )
+
+
 def _stream_options(*, clip: bool) -> Callable[[Any], Any]:
     """Options of every command that makes a stream bundle (from StreamOptions).
 
@@ -427,6 +440,7 @@ def stream(clip: str, out_dir: str, name: str | None, as_json: bool, **values: A
 
     copts = ClipOptions(**model_values(ClipOptions, values))
     opts = StreamOptions(**model_values(StreamOptions, values))
+    _warn_out_dir_named_as_output(out_dir, opts.output)
     with _stage_progress(f"streaming {os.path.basename(clip)}") as progress:
         asset = stream_clip(clip, name=name, options=opts, clip=copts, progress=progress)
     written = write_bundle(asset, out_dir)
@@ -461,6 +475,7 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 
     spec = ToneSpec(kind=kind, **model_values(ToneSpec, values))
     opts = StreamOptions(**model_values(StreamOptions, values))
+    _warn_out_dir_named_as_output(out_dir, opts.output)
     asset = stream_tone(kind, name=name, tone=spec, options=opts)
     written = write_bundle(asset, out_dir)
     summary: dict[str, Any] = dict(asset.summary())

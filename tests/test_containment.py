@@ -946,3 +946,10 @@ def test_pins_beyond_the_rp2350a_point_to_the_rp2350b(tmp_path: Path, args: list
     res = _cli("tone", "sine", "--target", "rp2350", "-o", "x", *args, cwd=tmp_path)
     _one_line_exit_2(res)
     assert "--target rp2350b" in res.stderr
+
+
+def test_an_output_folder_named_as_an_output_kind_is_warned(tmp_path: Path) -> None:
+    res = _cli("tone", "sine", "--seconds", "0.01", "-o", "i2s", cwd=tmp_path)
+    assert res.returncode == 0 and "--output i2s" in res.stderr
+    res = _cli("tone", "sine", "--seconds", "0.01", "--output", "i2s", "-o", "i2s", cwd=tmp_path)
+    assert res.returncode == 0 and "warning" not in res.stderr
