@@ -1686,6 +1686,8 @@ def build(
             err=True,
         )
         sys.exit(1)
+    if check:
+        click.echo(f"{len(result.up_to_date)} asset(s) up to date, and their index")
 
 
 def _print_analysis(r: Mapping[str, Any], label: str) -> None:

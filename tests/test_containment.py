@@ -953,3 +953,14 @@ def test_an_output_folder_named_as_an_output_kind_is_warned(tmp_path: Path) -> N
     assert res.returncode == 0 and "--output i2s" in res.stderr
     res = _cli("tone", "sine", "--seconds", "0.01", "--output", "i2s", "-o", "i2s", cwd=tmp_path)
     assert res.returncode == 0 and "warning" not in res.stderr
+
+
+def test_a_clean_check_says_so_and_the_index_names_each_output(tmp_path: Path) -> None:
+    i2s = '[[asset]]\nname = "amp"\ntone = "sine"\nseconds = 0.01\noutput = "i2s"\nbits = 16\n\n'
+    mf = _manifest(tmp_path, _asset("beep") + i2s)
+    assert _cli("build", str(mf), cwd=tmp_path).returncode == 0
+    res = _cli("build", str(mf), "--check", cwd=tmp_path)
+    assert res.returncode == 0 and "2 asset(s) up to date" in res.stdout
+    c = (tmp_path / "gen" / "assets.c").read_text()
+    assert '{"amp", "tone", "i2s", ' in c and '{"beep", "tone", "ladder", ' in c
+    assert "const char *output;" in (tmp_path / "gen" / "assets.h").read_text()

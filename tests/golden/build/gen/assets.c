@@ -5,7 +5,7 @@
 #include "saw_table.h"
 
 const ladderpack_asset_t ladderpack_assets[LADDERPACK_ASSET_COUNT] = {
-    {"beep", "tone", 15998.976065531806, 8u, 192ul, 48ul, 192ul, beep_words},
-    {"fix", "table", 0.0, 8u, 64ul, 0ul, 64ul, 0},
-    {"saw_table", "table", 22049.744222967012, 8u, 16ul, 0ul, 16ul, 0}
+    {"beep", "tone", "ladder", 15998.976065531806, 8u, 192ul, 48ul, 192ul, beep_words},
+    {"fix", "table", "", 0.0, 8u, 64ul, 0ul, 64ul, 0},
+    {"saw_table", "table", "", 22049.744222967012, 8u, 16ul, 0ul, 16ul, 0}
 };

@@ -7,6 +7,7 @@
 typedef struct ladderpack_asset {
     const char *name;
     const char *kind;      /* clip, tone or table */
+    const char *output;    /* ladder, i2s, pwm or i2c-dac; "" for a table */
     double rate_hz;        /* achieved stream rate (0 for correction tables) */
     unsigned bits;
     unsigned long samples; /* samples or table entries */
