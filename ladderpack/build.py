@@ -582,8 +582,10 @@ def _valid_record(name: str, rec: Any) -> bool:
     e = rec.get("entry")
     return (
         isinstance(e, dict)
-        and set(e) == {"name", "kind", "rate_hz", "bits", "samples", "words", "bytes", "data"}
+        and set(e)
+        == {"name", "kind", "output", "rate_hz", "bits", "samples", "words", "bytes", "data"}
         and e["name"] == name
+        and e["output"] in ("", "ladder", "i2s", "pwm", "i2c-dac")
         and e["kind"] in _KIND_KEYS
         and isinstance(e["rate_hz"], int | float)
         and not isinstance(e["rate_hz"], bool)
