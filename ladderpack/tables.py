@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ladderpack import portable
 from ladderpack.emit import table as emit_table
 from ladderpack.emit.names import asset_identifier
 from ladderpack.options import CorrectionTableSpec, I2cDacTableSpec, WaveTableSpec
@@ -184,14 +185,20 @@ def i2c_dac_table_files(name: str, spec: I2cDacTableSpec) -> TableResult:
         # one cycle spanning the level's share of the range, about mid-scale
         phase = np.arange(spec.points) / spec.points
         shape = {
-            "sine": np.sin(2 * np.pi * phase),
+            "sine": portable.sin(2 * np.pi * phase),
             "square": np.where(phase < 0.5, 1.0, -1.0),
             "sawtooth": 2 * phase - 1,
             "triangle": 1 - 4 * np.abs(phase - 0.5),
         }[str(spec.wave)]
-        volts = spec.vref_volts * (0.5 + 0.5 * spec.level * shape)
+        # symmetric about mid-scale 2048: 2048 +/- 2047 x level reaches codes 1..4095 at
+        # full level, never a clipped peak (4096 is no code)
+        codes = np.floor(2048 + 2047 * spec.level * shape + 0.5).astype(np.int64)
+        volts = spec.vref_volts * codes / 4096
         what = f"one {spec.wave} cycle of {spec.points} points"
-    codes = codes_for_volts(volts, spec.vref_volts)
+    if spec.volts is not None:
+        codes = codes_for_volts(volts, spec.vref_volts)
+    # what the DAC really outputs for each code (Vref x code / 4096), not what was asked
+    volts = spec.vref_volts * codes / 4096
     ident = asset_identifier(name)
     files = emit_table.render_i2c_dac_files(ident, fmt, codes, volts, spec.vref_volts, what)
     return TableResult(ident, files, 12, int(codes.size), distinct_codes=int(np.unique(codes).size))

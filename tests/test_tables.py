@@ -268,3 +268,15 @@ def test_signed_32_bit_wave_table_compiles_and_holds_its_values(tmp_path: Path) 
     out = subprocess.run([str(exe)], check=True, capture_output=True, text=True).stdout.split()
     # a full-scale square: +2^31 clips to the largest code, -1.0 is the most negative
     assert {int(v) for v in out} == {2**31 - 1, -(2**31)}
+
+
+def test_i2c_dac_wave_is_symmetric_and_lists_what_the_dac_gives() -> None:
+    # a full-level sine about mid-scale 2048: 2048 +/- 2047 reaches 1..4095 (4096 is no
+    # code), and VOLTS are Vref x code / 4096 (MCP4725 datasheet), 3.2992 V at the top
+    from ladderpack.options import I2cDacTableSpec
+    from ladderpack.tables import i2c_dac_table_files
+
+    res = i2c_dac_table_files("w", I2cDacTableSpec(wave="sine", level=1.0, points=4))
+    py = res.files["w.py"].decode()
+    assert "VOLTS = [1.65, 3.29919, 1.65, 0.000805664]" in py
+    assert "b'\\x0f\\xff'" in py and "b'\\x00\\x01'" in py  # codes 4095 and 1

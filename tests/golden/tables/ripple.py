@@ -5,9 +5,9 @@
 
 ADDRESS = 0x60
 # the bytes after the address byte, one entry per update: i2c.writeto(ADDRESS, b)
-UPDATES = [b'@\x00\x00', b'@@\x00', b'@\x80\x00', b'@\xc0\x00', b'@\xff\xf0', b'@\xc0\x00', b'@\x80\x00', b'@@\x00']
-CODES = [0, 1024, 2048, 3072, 4095, 3072, 2048, 1024]
-VOLTS = [0, 0.825, 1.65, 2.475, 3.3, 2.475, 1.65, 0.825]
+UPDATES = [b'@\x00\x10', b'@@\x10', b'@\x80\x00', b'@\xc0\x00', b'@\xff\xf0', b'@\xc0\x00', b'@\x80\x00', b'@@\x10']
+CODES = [1, 1025, 2048, 3072, 4095, 3072, 2048, 1025]
+VOLTS = [0.000805664, 0.825806, 1.65, 2.475, 3.29919, 2.475, 1.65, 0.825806]
 
 
 def write(i2c, k: int) -> None:

@@ -7,7 +7,7 @@ ADDRESS = 0x60
 # the bytes after the address byte, one entry per update: i2c.writeto(ADDRESS, b)
 UPDATES = [b'\x016', b'\x08\x00', b'\x0f\x84']
 CODES = [310, 2048, 3972]
-VOLTS = [0.25, 1.65, 3.2]
+VOLTS = [0.249756, 1.65, 3.2001]
 
 
 def write(i2c, k: int) -> None:
