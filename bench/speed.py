@@ -74,6 +74,75 @@ def row(label: str, ours: float, base: float, base_label: str, goal: str) -> Non
     print(f"| {label} | {ours:.3f} s | {base:.3f} s ({base_label}) | {ours / base:.1f}x | {goal} |")
 
 
+def bank_rows(work: Path, lp: list[str], sox: str, runs: int) -> None:
+    """The sound bank: 20 clips (5 s, 44.1 kHz stereo, 16-bit) to 8-bit 22.05 kHz ladder
+    streams, `build --jobs 2` from an empty folder against `make -j2` running sox per clip;
+    the no-op build of the same bank; and the cost per asset beyond its samples."""
+    bank = work / "bank"
+    bank.mkdir()
+    names = [f"clip{k:02d}" for k in range(20)]
+    for n in names:
+        clip(bank / f"{n}.wav", 5.0)
+    (bank / "ladderpack.toml").write_text(
+        '[project]\nout_dir = "gen"\n\n[defaults]\nbits = 8\nrate_hz = 22050\n'
+        "flash_bytes = 16777216\n\n"  # a 16 MiB board: the bank is 2.2 MB
+        + "".join(f'[[asset]]\nname = "{n}"\nclip = "{n}.wav"\n\n' for n in names)
+    )
+    rule = (
+        f"sox/%.wav: %.wav\n\t@mkdir -p sox && {sox} -q $< -r 22050 -c 1 -b 8 $@ rate -v dither\n"
+    )
+    (bank / "Makefile").write_text("all: " + " ".join(f"sox/{n}.wav" for n in names) + "\n" + rule)
+
+    def fresh_build() -> float:
+        shutil.rmtree(bank / "gen", ignore_errors=True)
+        t0 = time.perf_counter()
+        subprocess.run([*lp, "build", "--jobs", "2"], cwd=bank, check=True, capture_output=True)
+        return time.perf_counter() - t0
+
+    def fresh_make() -> float:
+        shutil.rmtree(bank / "sox", ignore_errors=True)
+        t0 = time.perf_counter()
+        subprocess.run(["make", "-j2", "-s"], cwd=bank, check=True, capture_output=True)
+        return time.perf_counter() - t0
+
+    ours = statistics.median(fresh_build() for _ in range(runs))
+    base = statistics.median(fresh_make() for _ in range(runs))
+    row("sound bank: 20 clips of 5 s, build --jobs 2, empty folder", ours, base,
+        "make -j2 with sox", "within 2x")  # fmt: skip
+
+    def noop(argv: list[str]) -> float:
+        t0 = time.perf_counter()
+        subprocess.run(argv, cwd=bank, check=True, capture_output=True)
+        return time.perf_counter() - t0
+
+    ours = statistics.median(noop([*lp, "build"]) for _ in range(runs))
+    base = statistics.median(noop(["make", "-j2", "-s"]) for _ in range(runs))
+    row("the same bank, nothing changed (no-op build)", ours, base, "make no-op", "under 0.2 s")
+    # cost per asset beyond its samples: 50 assets of 2 ms tones less the start-up
+    tiny = work / "tiny"
+    tiny.mkdir()
+    (tiny / "ladderpack.toml").write_text(
+        '[project]\nout_dir = "gen"\n\n'
+        + "".join(
+            f'[[asset]]\nname = "t{k}"\ntone = "sine"\nseconds = 0.002\nramp_ms = 0.5\n\n'
+            for k in range(50)
+        )
+    )
+
+    def tiny_build() -> float:
+        shutil.rmtree(tiny / "gen", ignore_errors=True)
+        t0 = time.perf_counter()
+        subprocess.run([*lp, "build"], cwd=tiny, check=True, capture_output=True)
+        return time.perf_counter() - t0
+
+    whole = statistics.median(tiny_build() for _ in range(runs))
+    start = median_time([*lp, "--help"], runs)
+    print(
+        f"| cost per asset beyond its samples (50 assets of 2 ms, less the start-up "
+        f"{start:.3f} s) | {1000 * (whole - start) / 50:.1f} ms | | | under 10 ms |"
+    )
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--runs", type=int, default=5, help="runs per command (median)")
@@ -153,6 +222,7 @@ def main() -> None:
         )
         row("stream 2.3 s, designed shaping, warm kernel cache", warm, base2, "sox", "0.6 s")
         row("stream 2.3 s, designed shaping, fresh kernel cache", cold, base2, "sox", "2 s")
+        bank_rows(work, lp, sox, args.runs)
         helpt = median_time([*lp, "--help"], args.runs)
         passt = median_time([PY, "-c", "pass"], args.runs)
         row("ladderpack --help", helpt, passt, "python3 -c pass", "under 3x")
