@@ -2197,7 +2197,10 @@ def signals_as_interrupt() -> None:
     for name in ("SIGTERM", "SIGHUP"):
         sig = getattr(signal, name, None)
         if sig is not None:
-            signal.signal(sig, handler)
+            # only the main thread may set handlers: elsewhere (main() called from a
+            # worker thread by a host program) the host's own handling stays
+            with contextlib.suppress(ValueError):
+                signal.signal(sig, handler)
 
 
 def main(argv: list[str] | None = None) -> None:
