@@ -707,7 +707,14 @@ class StreamOptions(_Model):
         """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
         for name in self.LADDER_ONLY:
             if _flag_given(self, name):
-                raise OptionError("applies only to output ladder", field=name)
+                # the ramps and the idle code are also a PWM pin's and an I2C DAC's; an
+                # I2S line idles at silence
+                takers = (
+                    "outputs ladder, pwm and i2c-dac"
+                    if name in ("idle_code", "ramp_ms")
+                    else "output ladder"
+                )
+                raise OptionError(f"applies to {takers}, not to output i2s", field=name)
         if self.bits not in I2S_SAMPLE_BITS:
             raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits")
         if self.clock_pin is None:

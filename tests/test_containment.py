@@ -964,3 +964,15 @@ def test_a_clean_check_says_so_and_the_index_names_each_output(tmp_path: Path) -
     c = (tmp_path / "gen" / "assets.c").read_text()
     assert '{"amp", "tone", "i2s", ' in c and '{"beep", "tone", "ladder", ' in c
     assert "const char *output;" in (tmp_path / "gen" / "assets.h").read_text()
+
+
+def test_option_refusals_and_player_comments_say_the_truth(tmp_path: Path) -> None:
+    # --ramp-ms is a ladder's, a PWM pin's and an I2C DAC's, not only a ladder's
+    res = _cli("tone", "sine", "--output", "i2s", "--ramp-ms", "3", "-o", "x", cwd=tmp_path)
+    _one_line_exit_2(res)
+    assert "ladder, pwm and i2c-dac" in res.stderr
+    # the stereo player's header names the stereo macro
+    from ladderpack.emit import player_stereo
+
+    header = player_stereo.render_header()
+    assert "<NAME>_STEREO_INIT" in header and "<NAME>_STREAM_INIT" not in header
