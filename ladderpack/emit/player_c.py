@@ -7,6 +7,8 @@ The two files are the same for every asset (``ladderpack_player.h`` and
 
 from __future__ import annotations
 
+import functools
+
 from ladderpack._version import __version__
 from ladderpack.emit.names import player_files
 
@@ -667,6 +669,7 @@ const char *lp_strerror(int result) {
 """
 
 
+@functools.cache
 def render_header() -> str:
     """Return ``ladderpack_player.h``."""
     return _HEADER.format(version=__version__)
@@ -714,6 +717,7 @@ def abort_all(prefix: str) -> str:
     )
 
 
+@functools.cache
 def render_source() -> str:
     """Return ``ladderpack_player.c``."""
     return (

@@ -7,6 +7,8 @@ The two files are the same for every I2C DAC asset (``ladderpack_i2c.h`` and
 
 from __future__ import annotations
 
+import functools
+
 from ladderpack._version import __version__
 from ladderpack.emit.names import player_files
 from ladderpack.emit.player_c import (
@@ -473,11 +475,13 @@ _STALL_COMMENT = """\
      * update and its sample period are done. */"""
 
 
+@functools.cache
 def render_header() -> str:
     """Return ``ladderpack_i2c.h``."""
     return _HEADER.format(version=__version__)
 
 
+@functools.cache
 def render_source() -> str:
     """Return ``ladderpack_i2c.c``."""
     return (

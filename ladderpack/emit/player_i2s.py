@@ -7,6 +7,8 @@ The two files are the same for every I2S asset (``ladderpack_i2s.h`` and
 
 from __future__ import annotations
 
+import functools
+
 from ladderpack._version import __version__
 from ladderpack.emit.names import player_files
 from ladderpack.emit.player_c import (
@@ -383,11 +385,13 @@ _STALL_COMMENT = """\
     /* Autopull stalls on the empty FIFO once the last word has left the shift register. */"""
 
 
+@functools.cache
 def render_header() -> str:
     """Return ``ladderpack_i2s.h``."""
     return _HEADER.format(version=__version__)
 
 
+@functools.cache
 def render_source() -> str:
     """Return ``ladderpack_i2s.c``."""
     return (

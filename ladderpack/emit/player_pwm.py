@@ -7,6 +7,8 @@ The two files are the same for every PWM asset (``ladderpack_pwm.h`` and
 
 from __future__ import annotations
 
+import functools
+
 from ladderpack._version import __version__
 from ladderpack.emit.names import player_files
 from ladderpack.emit.player_c import _cosine_table, abort_all
@@ -424,11 +426,13 @@ const char *lp_pwm_strerror(int result) {
 """
 
 
+@functools.cache
 def render_header() -> str:
     """Return ``ladderpack_pwm.h``."""
     return _HEADER.format(version=__version__)
 
 
+@functools.cache
 def render_source() -> str:
     """Return ``ladderpack_pwm.c``."""
     return (

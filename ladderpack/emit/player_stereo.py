@@ -10,6 +10,7 @@ player's files stay byte for byte what they were.
 
 from __future__ import annotations
 
+import functools
 import re
 
 from ladderpack.emit import player_c
@@ -159,6 +160,7 @@ def _replace_function(text: str, name: str, new: str) -> str:
     return text[:head] + new + text[end:]
 
 
+@functools.cache
 def render_header() -> str:
     """Return ``ladderpack_stereo.h``."""
     text = _renamed(player_c.render_header())
@@ -185,6 +187,7 @@ def render_header() -> str:
     return text
 
 
+@functools.cache
 def render_source() -> str:
     """Return ``ladderpack_stereo.c``."""
     text = _renamed(player_c.render_source())
