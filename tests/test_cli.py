@@ -224,6 +224,12 @@ def test_demo_runs_end_to_end(tmp_path: Path) -> None:
         "table wave",
         "table i2c-dac",
         "tone",
+        "measure",
+        "preview",
+        "build",
+        "code",
+        "plot ntf",
+        "plot levels",
     ],
 )
 def test_every_option_documented_in_help_and_readme(command: str) -> None:
