@@ -123,16 +123,22 @@ def _poly_at(coeffs: np.ndarray, c: np.ndarray, s: np.ndarray) -> tuple[np.ndarr
     return pr, pi
 
 
+def _num_den(
+    b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Real and imaginary parts of b(z) and a(z) at `omega`, the same on every machine."""
+    w = np.asarray(omega, dtype=np.float64)
+    c, s = portable.cos(w), portable.sin(w)
+    return (*_poly_at(np.asarray(b), c, s), *_poly_at(np.asarray(a), c, s))
+
+
 def _freqz(
     b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
 ) -> np.ndarray:
     """Frequency response of b(z)/a(z) at angular frequencies `omega` (rad/sample)."""
-    w = np.asarray(omega, dtype=np.float64)
-    c, s = portable.cos(w), portable.sin(w)
-    br, bi = _poly_at(np.asarray(b), c, s)
-    ar, ai = _poly_at(np.asarray(a), c, s)
+    br, bi, ar, ai = _num_den(b, a, omega)
     den = ar * ar + ai * ai
-    out = np.empty(w.shape, dtype=np.complex128)
+    out = np.empty(br.shape, dtype=np.complex128)
     out.real = (br * ar + bi * ai) / den
     out.imag = (bi * ar - br * ai) / den
     return out
@@ -142,10 +148,7 @@ def _power_response(
     b: np.ndarray | list[float], a: np.ndarray | list[float], omega: np.ndarray
 ) -> np.ndarray:
     """``|b(z)/a(z)|**2`` at `omega`, computed the same way on every machine."""
-    w = np.asarray(omega, dtype=np.float64)
-    c, s = portable.cos(w), portable.sin(w)
-    br, bi = _poly_at(np.asarray(b), c, s)
-    ar, ai = _poly_at(np.asarray(a), c, s)
+    br, bi, ar, ai = _num_den(b, a, omega)
     return (br * br + bi * bi) / (ar * ar + ai * ai)
 
 

@@ -35,87 +35,60 @@ __all__ = [
 #: ``addressmap.h``, ``pio.h``, ``pwm.h``, ``dma.h``, ``dreq.h``; ``platform_defs.h``),
 #: so ``tests/test_targets.py`` checks each one against its header.  Emitters read
 #: them through :meth:`Target.reg`, never as literals.
+#: The facts both chips share (same SDK names, same values).
+_COMMON_REGISTERS: dict[str, int] = {
+    # addressmap.h
+    "PIO0_BASE": 0x50200000,
+    "PIO1_BASE": 0x50300000,
+    "DMA_BASE": 0x50000000,
+    # pio.h
+    "PIO_FDEBUG_OFFSET": 0x008,
+    "PIO_FDEBUG_TXSTALL_LSB": 24,
+    "PIO_TXF0_OFFSET": 0x010,
+    "PIO_TXF1_OFFSET": 0x014,
+    "PIO_IRQ_OFFSET": 0x030,
+    "PIO_DBG_PADOUT_OFFSET": 0x03C,
+    "PIO_SM0_CLKDIV_OFFSET": 0x0C8,
+    "PIO_SM0_EXECCTRL_OFFSET": 0x0CC,
+    "PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB": 29,
+    "PIO_SM0_ADDR_OFFSET": 0x0D4,
+    "PIO_SM0_INSTR_OFFSET": 0x0D8,
+    "PIO_SM1_CLKDIV_OFFSET": 0x0E0,
+    # pwm.h
+    "PWM_CH0_CSR_OFFSET": 0x00,
+    "PWM_CH0_CSR_EN_LSB": 0,
+    "PWM_CH0_DIV_OFFSET": 0x04,
+    "PWM_CH0_CTR_OFFSET": 0x08,
+    "PWM_CH0_CC_OFFSET": 0x0C,
+    "PWM_CH0_CC_B_LSB": 16,
+    "PWM_CH0_TOP_OFFSET": 0x10,
+    "PWM_CH1_CSR_OFFSET": 0x14,
+    # dma.h
+    "DMA_TIMER0_X_LSB": 16,
+    # dreq.h
+    "DREQ_PIO0_TX0": 0,
+    "DREQ_PIO1_TX0": 8,
+    "DREQ_DMA_TIMER0": 59,
+}
+
 REGISTERS: dict[str, dict[str, int]] = {
     "rp2040": {
-        # addressmap.h
-        "PIO0_BASE": 0x50200000,
-        "PIO1_BASE": 0x50300000,
-        "PWM_BASE": 0x40050000,
-        "DMA_BASE": 0x50000000,
-        # pio.h
-        "PIO_FDEBUG_OFFSET": 0x008,
-        "PIO_FDEBUG_TXSTALL_LSB": 24,
-        "PIO_TXF0_OFFSET": 0x010,
-        "PIO_TXF1_OFFSET": 0x014,
-        "PIO_IRQ_OFFSET": 0x030,
-        "PIO_DBG_PADOUT_OFFSET": 0x03C,
-        "PIO_SM0_CLKDIV_OFFSET": 0x0C8,
-        "PIO_SM0_EXECCTRL_OFFSET": 0x0CC,
-        "PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB": 29,
-        "PIO_SM0_ADDR_OFFSET": 0x0D4,
-        "PIO_SM0_INSTR_OFFSET": 0x0D8,
-        "PIO_SM1_CLKDIV_OFFSET": 0x0E0,
-        # pwm.h
-        "PWM_CH0_CSR_OFFSET": 0x00,
-        "PWM_CH0_CSR_EN_LSB": 0,
-        "PWM_CH0_DIV_OFFSET": 0x04,
-        "PWM_CH0_CTR_OFFSET": 0x08,
-        "PWM_CH0_CC_OFFSET": 0x0C,
-        "PWM_CH0_CC_B_LSB": 16,
-        "PWM_CH0_TOP_OFFSET": 0x10,
-        "PWM_CH1_CSR_OFFSET": 0x14,
-        # dma.h
-        "DMA_TIMER0_OFFSET": 0x420,
-        "DMA_TIMER0_X_LSB": 16,
-        # dreq.h
-        "DREQ_PIO0_TX0": 0,
-        "DREQ_PIO1_TX0": 8,
-        "DREQ_PWM_WRAP0": 24,
-        "DREQ_DMA_TIMER0": 59,
-        # platform_defs.h
-        "NUM_PIOS": 2,
+        **_COMMON_REGISTERS,
+        "PWM_BASE": 0x40050000,  # addressmap.h
+        "DMA_TIMER0_OFFSET": 0x420,  # dma.h
+        "DREQ_PWM_WRAP0": 24,  # dreq.h
+        "NUM_PIOS": 2,  # platform_defs.h
         "NUM_PWM_SLICES": 8,
     },
     "rp2350": {
+        **_COMMON_REGISTERS,
         # addressmap.h: PLL_SYS sits at 0x40050000, where the RP2040's PWM was
-        "PIO0_BASE": 0x50200000,
-        "PIO1_BASE": 0x50300000,
         "PIO2_BASE": 0x50400000,
         "PWM_BASE": 0x400A8000,
-        "DMA_BASE": 0x50000000,
-        # pio.h
-        "PIO_FDEBUG_OFFSET": 0x008,
-        "PIO_FDEBUG_TXSTALL_LSB": 24,
-        "PIO_TXF0_OFFSET": 0x010,
-        "PIO_TXF1_OFFSET": 0x014,
-        "PIO_IRQ_OFFSET": 0x030,
-        "PIO_DBG_PADOUT_OFFSET": 0x03C,
-        "PIO_SM0_CLKDIV_OFFSET": 0x0C8,
-        "PIO_SM0_EXECCTRL_OFFSET": 0x0CC,
-        "PIO_SM0_EXECCTRL_SIDE_PINDIR_LSB": 29,
-        "PIO_SM0_ADDR_OFFSET": 0x0D4,
-        "PIO_SM0_INSTR_OFFSET": 0x0D8,
-        "PIO_SM1_CLKDIV_OFFSET": 0x0E0,
-        # pwm.h
-        "PWM_CH0_CSR_OFFSET": 0x00,
-        "PWM_CH0_CSR_EN_LSB": 0,
-        "PWM_CH0_DIV_OFFSET": 0x04,
-        "PWM_CH0_CTR_OFFSET": 0x08,
-        "PWM_CH0_CC_OFFSET": 0x0C,
-        "PWM_CH0_CC_B_LSB": 16,
-        "PWM_CH0_TOP_OFFSET": 0x10,
-        "PWM_CH1_CSR_OFFSET": 0x14,
-        # dma.h: the pacing timers moved (0x420 on the RP2040)
-        "DMA_TIMER0_OFFSET": 0x440,
-        "DMA_TIMER0_X_LSB": 16,
-        # dreq.h
-        "DREQ_PIO0_TX0": 0,
-        "DREQ_PIO1_TX0": 8,
-        "DREQ_PIO2_TX0": 16,
+        "DMA_TIMER0_OFFSET": 0x440,  # dma.h: the pacing timers moved
+        "DREQ_PIO2_TX0": 16,  # dreq.h
         "DREQ_PWM_WRAP0": 32,
-        "DREQ_DMA_TIMER0": 59,
-        # platform_defs.h
-        "NUM_PIOS": 3,
+        "NUM_PIOS": 3,  # platform_defs.h
         "NUM_PWM_SLICES": 12,
     },
 }
