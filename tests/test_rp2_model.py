@@ -12,6 +12,7 @@ The RP2040 runs too, as a cross-check of the model against the emulated chip.
 
 from __future__ import annotations
 
+import itertools
 import re
 from pathlib import Path
 
@@ -99,3 +100,33 @@ def test_pwm_players_touch_only_their_slice_and_timer0(
     # PWM: "GPIO to PWM slice" tables)
     pin = int(re.search(r"^PIN = (\d+)", (folder / "t.py").read_text(), re.M).group(1))  # type: ignore[union-attr]
     assert n == (pin >> 1) & 7
+
+
+@pytest.mark.parametrize("output", ["ladder", "ladder-stereo"])
+def test_run_time_ramps_reach_their_end_within_max_step(tmp_path: Path, output: str) -> None:
+    # The ramps a stop or a hold makes on the board, from every start code (every frame's
+    # two ladders for stereo) to the idle code and to full scale: each step within the
+    # stream's MAX_STEP, ending on the target. The stereo module once lacked _ramp_code
+    # (it replaced the mono module's ramp functions wholesale) and raised NameError here.
+    folder = make_bundle(tmp_path / "b", "rp2040", output)
+    mod = run_module(folder / "t.py", _chip("rp2040"))
+    n = mod.BITS // 2 if output == "ladder-stereo" else mod.BITS
+    top = (1 << mod.BITS) - 1
+
+    def halves(code: int) -> tuple[int, ...]:
+        if output == "ladder":
+            return (code,)
+        return (code & ((1 << n) - 1), code >> n)
+
+    for start in range(0, top + 1, max(1, top // 40)):
+        for end in (mod.IDLE_CODE, top):
+            codes = [
+                mod._code_of(w >> mod._shift(k))
+                for w in mod._ramp_words(start, end)
+                for k in range(mod.SPW)
+            ]
+            seq = [halves(c) for c in [start, *codes]]
+            pairs = itertools.pairwise(seq)
+            steps = [abs(a[j] - b[j]) for a, b in pairs for j in range(len(a))]
+            assert max(steps) <= max(mod.MAX_STEP, 1), (start, end)
+            assert codes[-1] == end

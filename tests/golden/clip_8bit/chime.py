@@ -89,6 +89,25 @@ def ladder_program() -> None:
     wrap()
 
 
+def _ramp_code(frm: int, to: int, k: int, n: int) -> int:
+    # step k of n of a raised cosine from `frm` to `to`, in integers (no floating point,
+    # so a stop's ramp starts at once): (1 + cos(pi k / n)) / 2 from the Q15 table,
+    # interpolated linearly, as the C player does
+    pos = (k << 14) // n
+    idx = pos >> 8
+    c0 = _COS_Q15[idx]
+    w = c0 + (((_COS_Q15[idx + 1 if idx < 64 else 64] - c0) * (pos & 255)) >> 8)
+    x = (frm - to) * w
+    return to + ((x + 16384) >> 15 if x >= 0 else -((16384 - x) >> 15))
+
+
+def _ramp_length(delta: int) -> int:
+    # steps of a ramp over `delta` codes whose steepest step, (pi / 2) delta / n, stays
+    # within MAX_STEP (355 / 226 > pi / 2)
+    step = MAX_STEP or 1
+    return 0 if delta == 0 else (355 * delta + 226 * step - 1) // (226 * step) + 1
+
+
 def _pins_of(code: int) -> int:
     v = code
     if not MSB_HIGH:
@@ -119,18 +138,6 @@ def _shift(k: int) -> int:
     return k * BITS if SHIFT_RIGHT else 32 - (k + 1) * BITS
 
 
-def _ramp_code(frm: int, to: int, k: int, n: int) -> int:
-    # step k of n of a raised cosine from `frm` to `to`, in integers (no floating point,
-    # so a stop's ramp starts at once): (1 + cos(pi k / n)) / 2 from the Q15 table,
-    # interpolated linearly, as the C player does
-    pos = (k << 14) // n
-    idx = pos >> 8
-    c0 = _COS_Q15[idx]
-    w = c0 + (((_COS_Q15[idx + 1 if idx < 64 else 64] - c0) * (pos & 255)) >> 8)
-    x = (frm - to) * w
-    return to + ((x + 16384) >> 15 if x >= 0 else -((16384 - x) >> 15))
-
-
 def _ramp_iter(start: int, end: int) -> "Iterator[int]":
     """Raised-cosine ramp from code start (on the pins, not repeated) to end, packed, with
     no step larger than MAX_STEP; a closing word of end codes for the loop program.
@@ -138,7 +145,7 @@ def _ramp_iter(start: int, end: int) -> "Iterator[int]":
     one word's computation after a stop instead of the whole ramp's."""
     step = MAX_STEP or 1
     delta = abs(start - end)
-    n = 0 if delta == 0 else (355 * delta + 226 * step - 1) // (226 * step) + 1  # > pi/2
+    n = _ramp_length(delta)
     prev = start
     i = 1
     word, k, made = 0, 0, False
