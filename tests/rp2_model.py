@@ -75,7 +75,6 @@ class Chip:
     platform: str
     sys_clock_hz: int
     writes: list[tuple[str, int]] = field(default_factory=list)
-    reads: list[str] = field(default_factory=list)
     dma_configs: list[dict[str, Any]] = field(default_factory=list)
     values: dict[str, int] = field(default_factory=dict)
     budget: int = 2_000_000
@@ -97,7 +96,6 @@ class Chip:
     def read(self, addr: int) -> int:
         self._spend()
         reg = self.name(addr)
-        self.reads.append(reg)
         if reg.endswith(".FDEBUG"):
             return 0xFF000000  # every TXSTALL: each FIFO drains at once
         return self.values.get(reg, 0)
@@ -139,7 +137,7 @@ def install(chip: Chip) -> None:
     machine.freq = freq  # type: ignore[attr-defined]
     machine.mem32 = _Mem32(chip)  # type: ignore[attr-defined]
 
-    pio_bases = [a for a, n in register_map(chip.platform).items() if re.match(r"PIO\d\.CTRL$", n)]
+    blocks = sum(1 for n in register_map(chip.platform).values() if re.match(r"PIO\d\.CTRL$", n))
     txf0 = {n: a for a, n in register_map(chip.platform).items() if n.endswith(".TXF0")}
 
     class PIO:
@@ -147,7 +145,7 @@ def install(chip: Chip) -> None:
         IN_LOW, IN_HIGH, JOIN_RX = 0, 1, 2
 
         def __init__(self, n: int) -> None:
-            assert n < len(pio_bases), f"PIO{n} does not exist on the {chip.platform}"
+            assert n < blocks, f"PIO{n} does not exist on the {chip.platform}"
             self.n = n
 
         def gpio_base(self, pin: object) -> None:
@@ -156,7 +154,7 @@ def install(chip: Chip) -> None:
     class StateMachine:
         def __init__(self, sm_id: int, program: object, **kwargs: object) -> None:
             self.block, self.idx = divmod(sm_id, 4)
-            assert self.block < len(pio_bases), f"state machine {sm_id} does not exist"
+            assert self.block < blocks, f"state machine {sm_id} does not exist"
             self.txf = txf0[f"PIO{self.block}.TXF0"] + 4 * self.idx
 
         def put(self, value: int, shift: int = 0) -> None:

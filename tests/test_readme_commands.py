@@ -64,8 +64,8 @@ def test_the_library_block_runs(tmp_path: Path) -> None:
     assert (tmp_path / "out" / "door_chime.bin").exists()
 
 
-#: Complete commands written inline in the README's text (placeholders in capitals are
-#: not commands); each must run as the text says.
+#: Complete commands written inline in the README's text (a word in capitals there stands
+#: for an argument, so such a span is no command); each must run as the text says.
 INLINE = [
     "ladderpack code --volts 1.0",
     "ladderpack --help",

@@ -114,7 +114,7 @@ RESERVED_NAMES: dict[str, str] = {
 
 
 #: Longest asset identifier: the stem of every output file name, which gets suffixes
-#: (``_preview.wav``, ``.json``) and, while written, ``.NAME.XXXXXXXX.part``: 255 bytes is
+#: (``_preview.wav``, ``.json``) and, while written, ``.NAME.<random>.part``: 255 bytes is
 #: the usual file-name limit (NAME_MAX of ext4, XFS, APFS, NTFS), leaving room for those.
 MAX_IDENTIFIER_LENGTH = 200
 
