@@ -33,6 +33,7 @@ a no-op build is quick.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -765,34 +766,18 @@ def build(
 
     if depfile:
         _check_depfile_names(manifest, depfile)
+    run = functools.partial(_build_locked, manifest, jobs=jobs, only=only, check=check, echo=echo)
     if check and not os.path.isdir(manifest.out_dir):  # nothing to lock, nothing to create
-        return _build_locked(
-            manifest, jobs=jobs, only=only, check=check, depfile=None, echo=echo, progress=None
-        )
-    if check:
-        # a check only reads: on a read-only checkout (CI caches, mounted sources) it
-        # goes on without the lock, which it could not create
-        try:
-            with folder_lock(manifest.out_dir, on_wait=echo):
-                return _build_locked(
-                    manifest, jobs=jobs, only=only, check=True, depfile=depfile, echo=echo,
-                    progress=progress,
-                )  # fmt: skip
-        except LockUnavailableError:
-            return _build_locked(
-                manifest, jobs=jobs, only=only, check=True, depfile=None, echo=echo,
-                progress=None,
-            )  # fmt: skip
-    with folder_lock(manifest.out_dir, on_wait=echo):
-        return _build_locked(
-            manifest,
-            jobs=jobs,
-            only=only,
-            check=check,
-            depfile=depfile,
-            echo=echo,
-            progress=progress,
-        )
+        return run(depfile=None, progress=None)
+    try:
+        with folder_lock(manifest.out_dir, on_wait=echo):
+            return run(depfile=depfile, progress=progress)
+    except LockUnavailableError:
+        if not check:
+            raise
+        # a check only reads: on a read-only checkout (CI caches, mounted sources) it goes
+        # on without the lock, which it could not create
+        return run(depfile=None, progress=None)
 
 
 def _check_depfile_names(manifest: Manifest, depfile: str) -> None:
