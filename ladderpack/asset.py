@@ -14,8 +14,7 @@ import numpy as np
 
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
-from ladderpack.outputs.pwm import PwmPlan, PwmSetup
-from ladderpack.pack import Packed, StereoLadderLayout, pack, unpack
+from ladderpack.pack import Packed, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
 
@@ -26,6 +25,7 @@ class StreamSummary(TypedDict):
     """The short summary of a stream (also the ``--json`` output); units in the names."""
 
     asset: str
+    output: str
     duration_s: float
     bits: int
     requested_rate_hz: float
@@ -94,14 +94,15 @@ class StreamAsset:
     levels_volts : numpy.ndarray, optional
         The level of every code (volts) of the LevelSet the stream was made with
         (``--levels``), embedded for the players' code-for-a-voltage calls.
-    pwm : PwmSetup, optional
-        A PWM stream's slice, pin and DMA pacing.
+    setup : object, optional
+        The output's own plan besides the clock (a PWM stream's slice, pin and DMA
+        pacing; an I2C bus writer's timing).
     """
 
     name: str
     codes: Codes | None
     packed: Packed
-    plan: ClockPlan | PwmPlan
+    plan: Any  # a ClockPlan, or the output's own rate plan (a PWM slice's)
     program: Program | None
     sm: StateMachineConfig | None
     idle_code: int
@@ -112,7 +113,7 @@ class StreamAsset:
     outro: Packed | None = None
     budget: Budget | None = None
     levels_volts: np.ndarray | None = None
-    pwm: PwmSetup | None = None
+    setup: Any = None
 
     @functools.cached_property
     def max_step(self) -> int:
@@ -185,14 +186,15 @@ class StreamAsset:
         return self.plan
 
     @property
-    def _pwm_plan(self) -> PwmPlan:
-        assert isinstance(self.plan, PwmPlan)
-        return self.plan
+    def output(self) -> str:
+        """The output system's name (a record without one is a ladder's)."""
+        return str(self.options.get("output", "ladder"))
 
     def summary(self) -> StreamSummary:
         """The short human summary as plain data (also the ``--json`` output)."""
         out: StreamSummary = {
             "asset": self.name,
+            "output": self.output,
             "duration_s": round(self.duration_s, 6),
             "bits": int(self.options.get("bits", self.packed.layout.bits)),
             "requested_rate_hz": float(self.plan.requested_rate_hz),
@@ -200,9 +202,7 @@ class StreamAsset:
             "rate_error_ppm": round(self.plan.error_ppm, 3),
             "divider": self.plan.divider_text,
             "fractional_divider": self.plan.fractional,
-            "cycles_per_sample": (
-                self.plan.cycles_per_sample if isinstance(self.plan, ClockPlan) else 0
-            ),
+            "cycles_per_sample": int(getattr(self.plan, "cycles_per_sample", 0)),
             "samples": self.sample_count,
             "words": self.word_count,
             "bytes": self.byte_count,
@@ -214,48 +214,18 @@ class StreamAsset:
             "predicted_full_scale_sine": self.stats.get("predicted_full_scale_sine"),
             "band_hz": self.stats.get("band_hz"),
             "warnings": list(self.stats.get("warnings", [])),
-            "program": self.program.variant if self.program else f"pwm-{self._pwm_plan.pacing}",
+            "program": (
+                self.program.variant
+                if self.program is not None
+                else str(self.stats.get("program_variant", ""))
+            ),
             "loop": self.loop,
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
-        if (
-            self.program is None
-            or self.program.variant.startswith("i2s")
-            or self.options.get("stereo")
-        ):
-            out["stereo"] = bool(self.options.get("stereo", False))
-        if "i2s" in self.stats:
-            i2s = self.stats["i2s"]
-            out["i2s"] = {
-                "bit_clock_hz": i2s["bit_clock_hz"],
-                "bits_per_frame": i2s["bits_per_frame"],
-                "cycles_per_bit": i2s["cycles_per_bit"],
-                "frame_format": i2s["frame_format"],
-                "pins": [i2s["data_pin"], i2s["bit_clock_pin"], i2s["word_select_pin"]],
-            }
-        if "i2c_dac" in self.stats:
-            i2c = self.stats["i2c_dac"]
-            out["i2c_dac"] = {
-                "address": i2c["address"],
-                "command": i2c["command"],
-                "bytes_per_update": i2c["bytes_per_update"],
-                "bus_hz": i2c["bus_hz"],
-                "max_rate_hz": i2c["max_rate_hz"],
-                "pins": [i2c["sda_pin"], i2c["scl_pin"]],
-            }
-        if self.pwm is not None:
-            p = self._pwm_plan
-            out["pwm"] = {
-                "carrier_hz": round(float(p.carrier_hz), 3),
-                "levels": p.levels,
-                "effective_bits": round(p.effective_bits, 3),
-                "top": p.top,
-                "periods_per_sample": p.periods_per_sample,
-                "pacing": p.pacing,
-                "pin": self.pwm.pin,
-                "slice": self.pwm.slice,
-            }
+        from ladderpack.outputs import get_output
+
+        out.update(get_output(self.output).summary(self))  # type: ignore[typeddict-item]
         return out
 
 
@@ -278,7 +248,7 @@ def largest_step(asset: StreamAsset, *, chunk_words: int = 1 << 16) -> int:
     """
     lay = asset.packed.layout
     parts = [p for p in (asset.intro, asset.packed, asset.outro) if p is not None]
-    if isinstance(lay, StereoLadderLayout):  # two ladders: each on its own
+    if hasattr(lay, "channels_of"):  # two ladders: each on its own
         idle = int(lay.channels_of(np.array([asset.idle_code]))[0, 0])
         pieces = [lay.channels_of(unpack(p.words, lay).codes) for p in parts]
         seq = np.concatenate([[[idle, idle]], *pieces, [[idle, idle]]])

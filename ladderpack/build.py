@@ -45,6 +45,7 @@ from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
+from ladderpack import outputs
 from ladderpack._version import __version__
 from ladderpack.errors import LadderpackError
 
@@ -586,7 +587,7 @@ def _valid_record(name: str, rec: Any) -> bool:
         and set(e)
         == {"name", "kind", "output", "rate_hz", "bits", "samples", "words", "bytes", "data"}
         and e["name"] == name
-        and e["output"] in ("", "ladder", "i2s", "pwm", "i2c-dac")
+        and (e["output"] == "" or e["output"] in outputs.REGISTRY_BY_NAME)
         and e["kind"] in _KIND_KEYS
         and isinstance(e["rate_hz"], int | float)
         and not isinstance(e["rate_hz"], bool)

@@ -10,6 +10,7 @@ from typing import Any
 
 import click
 
+from ladderpack import outputs
 from ladderpack._version import __version__
 from ladderpack.defaults import (
     SHAPER_NAMES,
@@ -26,58 +27,16 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         f"{summary['achieved_rate_hz']:.6f} Hz achieved "
         f"({summary['rate_error_ppm']:+.3f} ppm)"
     )
-    jitter = (
-        "fractional, 1 system clock of jitter"
-        if summary["fractional_divider"]
-        else "integer, no jitter"
-    )
-    i2s = str(summary.get("program", "")).startswith("i2s")
-    pwm = summary.get("pwm")
-    unit = "frame" if i2s else "sample"  # an I2S frame: the sample in both channel slots
-    stereo = bool(summary.get("stereo"))
-    if pwm:
-        pins = f"GPIO {pwm['pin']} and {pwm['pin'] + 1}" if stereo else f"GPIO {pwm['pin']}"
-        kind = (
-            f"{'stereo ' if stereo else ''}PWM on {pins} (slice {pwm['slice']}), "
-            f"{pwm['levels']} levels ({pwm['effective_bits']:.2f} bits)"
-        )
-    else:
-        kind = f"{summary['bits']}-bit" + (
-            (", stereo I2S" if stereo else " I2S, mono in both channels")
-            if i2s
-            else (", two ladders (stereo)" if stereo else "")
-        )
-    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {kind}")
+    from ladderpack.outputs import get_output
+
+    # a summary without an output is a ladder's (records made before other outputs)
+    own = get_output(str(summary.get("output", "ladder"))).summary_lines(summary)
+    unit = own.unit
+    click.echo(f"{summary['asset']}: {summary['duration_s']:.3f} s, {own.kind}")
     click.echo(f"  rate     {rate_line}")
-    if pwm:
-        pacing = "the slice's wrap" if pwm["pacing"] == "wrap" else "a DMA pacing timer"
-        click.echo(
-            f"  divider  {summary['divider']} ({jitter}), TOP {pwm['top']}, carrier "
-            f"{pwm['carrier_hz']:.0f} Hz, {pwm['periods_per_sample']} PWM period(s) per "
-            f"sample, paced by {pacing}"
-        )
-    else:
-        click.echo(
-            f"  divider  {summary['divider']} ({jitter}), "
-            f"{summary['cycles_per_sample']} cycle(s) per {unit}"
-        )
-    i2s_line = summary.get("i2s")
-    if i2s_line:
-        d, b, w = i2s_line["pins"]
-        click.echo(
-            f"  i2s      {i2s_line['frame_format']} frame, {i2s_line['bits_per_frame']} bits "
-            f"({i2s_line['cycles_per_bit']} cycles each), bit clock "
-            f"{i2s_line['bit_clock_hz']:.1f} Hz; data GPIO {d}, bit clock {b}, word select {w}"
-        )
-    i2c_line = summary.get("i2c_dac")
-    if i2c_line:
-        sda, scl = i2c_line["pins"]
-        click.echo(
-            f"  i2c      DAC at 0x{i2c_line['address']:02X}, {i2c_line['command']} writes of "
-            f"{i2c_line['bytes_per_update']} bytes, SCL {i2c_line['bus_hz']:.0f} Hz (at most "
-            f"{i2c_line['max_rate_hz']:.0f} updates/s); SDA GPIO {sda}, SCL GPIO {scl}, "
-            "pull-ups to 3.3 V needed"
-        )
+    click.echo(f"  divider  {own.divider}")
+    for label, text in own.lines:
+        click.echo(f"  {label:<8} {text}")
     click.echo(
         f"  stream   {summary['samples']} {unit}s, {summary['words']} words, "
         f"{summary['bytes']} bytes"
@@ -328,10 +287,8 @@ def _model_options_lazy(cls_name: str, **kw: Any) -> Callable[[Any], Any]:
 
 def _warn_out_dir_named_as_output(out_dir: str, output: str) -> None:
     """Warn (stderr) when ``-o i2s`` looks meant as ``--output i2s``: -o is the folder."""
-    from ladderpack.defaults import STREAM_OUTPUTS
-
     folder = os.path.basename(os.path.normpath(out_dir))
-    if folder in STREAM_OUTPUTS and folder != output:
+    if folder in outputs.REGISTRY_BY_NAME and folder != output:
         click.echo(
             f"ladderpack: warning: the output folder is named {folder!r} but the stream is "
             f"for output {output}: -o names the folder; --output {folder} chooses the output",
@@ -513,11 +470,12 @@ def tone(kind: str, out_dir: str, name: str | None, as_json: bool, **values: Any
 @_model_options_lazy("StreamOptions", only=("target", "sys_clock_hz", "rate_tolerance_ppm"))
 @click.option(
     "--output",
-    type=click.Choice(["ladder", "pwm", "i2s", "i2c-dac"]),
+    type=click.Choice(outputs.names()),
     default="ladder",
     show_default=True,
-    help="Output system to plan for: the ladder's state machine, a hardware PWM slice, "
-    "an I2S state machine, or a state machine writing a 12-bit I2C DAC each sample.",
+    help="Output system to plan for: "
+    + "; ".join(f"{e.name}, {e.summary}" for e in outputs.REGISTRY)
+    + ".",
 )
 @click.option(
     "--bus-hz",
@@ -586,115 +544,61 @@ def clock(
     **values: Any,
 ) -> None:
     """Show the clock plan (divider, cycles per sample, achieved rate) for RATE_HZ."""
-    from ladderpack.clock import plan_clock
     from ladderpack.errors import OptionError
     from ladderpack.options import StreamOptions
+    from ladderpack.outputs import entry, get_output, takers
 
     opts = StreamOptions(rate_hz=rate_hz, **model_values(StreamOptions, values))
-    if min_carrier_hz is not None and output != "pwm":
-        raise OptionError("applies only with --output pwm", field="min-carrier-hz")
-    if slot_bits is not None and output != "i2s":
-        raise OptionError("applies only with --output i2s", field="slot-bits")
-    if (bus_hz is not None or dac_command is not None) and output != "i2c-dac":
-        raise OptionError("applies only with --output i2c-dac", field="bus-hz")
-    if output == "i2c-dac" and not find_sys_clock:
-        _print_i2c_plan(rate_hz, opts, int(bus_hz or 400000), dac_command or "fast", as_json)
-        return
-    if find_sys_clock:
-        if slot_bits not in (None, "32"):
-            raise OptionError("streams use 32-bit slots; drop it", field="slot-bits")
-        _print_sys_clocks(
-            rate_hz, opts, output, min_carrier_hz, min_sys_clock_hz, max_sys_clock_hz, count,
-            as_json, int(bus_hz or 400000), dac_command or "fast",
-        )  # fmt: skip
-        return
-    if output == "pwm":
-        _print_pwm_plan(rate_hz, opts, min_carrier_hz, as_json)
-        return
-    if output == "i2s":
-        _print_i2s_plan(rate_hz, opts, int(slot_bits or 32), as_json)
-        return
-    plan = plan_clock(
-        rate_hz, sys_clock_hz=int(opts.sys_clock_hz or 0), tolerance_ppm=opts.rate_tolerance_ppm
-    )
-    d = plan.to_dict()
-    if as_json:
-        click.echo(json_text(d))
-        return
-    kind = "fractional (1 system clock of jitter)" if plan.fractional else "integer (no jitter)"
-    click.echo(f"requested  {d['requested_rate_hz']:g} Hz at {plan.sys_clock_hz} Hz system clock")
-    click.echo(f"achieved   {float(plan.achieved_rate_hz):.6f} Hz ({plan.error_ppm:+.3f} ppm)")
-    click.echo(f"divider    {plan.div_int} + {plan.div_frac}/256, {kind}")
-    click.echo(f"cycles     {plan.cycles_per_sample} per sample")
-    click.echo(f"CLKDIV     0x{plan.clkdiv_register:08X}")
-
-
-def _print_i2c_plan(rate_hz: float, opts: Any, bus_hz: int, command: str, as_json: bool) -> None:
-    from ladderpack.outputs.i2c_dac import (
-        I2cDacFormat,
-        plan_writer,
-        writer_cycles,
-    )
-
-    fmt = I2cDacFormat(command=command)
-    plan = plan_writer(
-        rate_hz,
-        fmt,
-        bus_hz=bus_hz,
-        sys_clock_hz=int(opts.sys_clock_hz or 0),
-        rate_tolerance_ppm=opts.rate_tolerance_ppm,
-    )
-    least = writer_cycles(fmt.bytes_per_update, 0)
-    d = {
-        "requested_rate_hz": rate_hz,
-        "achieved_rate_hz": float(plan.achieved_rate_hz),
-        "error_ppm": round(plan.error_ppm, 6),
-        "sys_clock_hz": plan.sys_clock_hz,
-        "divider": plan.divider,
-        "bus_hz": float(plan.bus_hz),
-        "cycles_per_update": plan.cycles_per_update,
-        "pad": plan.pad,
-        "bytes_per_update": fmt.bytes_per_update,
-        "max_rate_hz": float(plan.max_rate_hz),
+    settings = {
+        "min_carrier_hz": min_carrier_hz,
+        "slot_bits": int(slot_bits) if slot_bits is not None else None,
+        "bus_hz": int(bus_hz) if bus_hz is not None else None,
+        "dac_command": dac_command,
     }
-    if as_json:
-        click.echo(json_text(d))
+    takes = entry(output).takes
+    for name, value in settings.items():
+        group = _CLOCK_SETTING_GROUPS[name]
+        if value is not None and group not in takes:
+            raise OptionError(
+                f"applies only with --output {' or '.join(takers(group))}",
+                field=name.replace("_", "-"),
+            )
+    out = get_output(output)
+    if find_sys_clock:
+        _print_sys_clocks(
+            rate_hz, opts, output, settings, min_sys_clock_hz, max_sys_clock_hz, count, as_json
+        )
         return
-    click.echo(f"requested  {rate_hz:g} updates/s at {plan.sys_clock_hz} Hz system clock")
-    click.echo(f"achieved   {d['achieved_rate_hz']:.6f} Hz ({plan.error_ppm:+.3f} ppm)")
-    click.echo(
-        f"bus        SCL {d['bus_hz']:.0f} Hz (asked at most {bus_hz}), divider {plan.divider} "
-        "(integer: no jitter), 4 cycles a bit"
-    )
-    click.echo(
-        f"update     {fmt.bytes_per_update} bytes ({command} write): {least} cycles of "
-        f"{plan.cycles_per_update} a sample (pad Y = {plan.pad}); at most "
-        f"{d['max_rate_hz']:.0f} updates/s at this bus speed"
-    )
+    report = out.clock_report(rate_hz, opts, settings)
+    if as_json:
+        click.echo(json_text(report.data))
+        return
+    for line in report.lines:
+        click.echo(line)
 
 
-def _i2c_planner(rate_hz: float, bus_hz: int, command: str) -> Callable[[int], Any]:
-    """The I2C writer's planner at a given system clock, for the clock search."""
-    from ladderpack.outputs.i2c_dac import I2cDacFormat, plan_writer
-
-    fmt = I2cDacFormat(command=command)
-    return lambda f: plan_writer(rate_hz, fmt, bus_hz=bus_hz, sys_clock_hz=f)
+#: The option group of each of the clock command's output settings.
+_CLOCK_SETTING_GROUPS = {
+    "min_carrier_hz": "pwm",
+    "slot_bits": "i2s",
+    "bus_hz": "i2c",
+    "dac_command": "i2c",
+}
 
 
 def _print_sys_clocks(
     rate_hz: float,
     opts: Any,
     output: str,
-    min_carrier_hz: float | None,
+    settings: Mapping[str, Any],
     min_hz: int,
     max_hz: int | None,
     count: int,
     as_json: bool,
-    bus_hz: int = 400_000,
-    dac_command: str = "fast",
 ) -> None:
     from ladderpack.clock import RATED_SYS_CLOCK_HZ, find_sys_clocks
     from ladderpack.errors import OptionError
+    from ladderpack.outputs import get_output
 
     chip = "rp2040" if opts.target == "rp2040" else "rp2350"
     rated = RATED_SYS_CLOCK_HZ[chip]
@@ -705,17 +609,16 @@ def _print_sys_clocks(
             field="min-sys-clock-hz",
         )
     now = int(opts.sys_clock_hz or 0)
+    out = get_output(output)
     found = find_sys_clocks(
         rate_hz,
-        output=output,
         min_hz=min_hz,
         max_hz=top,
         near_hz=now,
-        min_carrier_hz=min_carrier_hz,
-        planner=_i2c_planner(rate_hz, bus_hz, dac_command) if output == "i2c-dac" else None,
+        planner=out.clock_planner(rate_hz, settings),
         limit=count,
     )
-    rows = []
+    rows, texts = [], []
     for c in found:
         p = c.plan
         row: dict[str, Any] = {
@@ -725,15 +628,10 @@ def _print_sys_clocks(
             "exact": p.achieved_rate_hz == p.requested_rate_hz,
             "above_rated": c.sys_clock_hz > rated,
         }
-        if output == "pwm":
-            row.update(div_int=p.div_int, div_frac=p.div_frac, top=p.top,
-                       periods_per_sample=p.periods_per_sample, levels=p.levels)  # fmt: skip
-        elif output == "i2c-dac":
-            row.update(div_int=p.divider, div_frac=0, cycles=p.cycles_per_update,
-                       bus_hz=float(p.bus_hz))  # fmt: skip
-        else:
-            row.update(div_int=p.div_int, div_frac=p.div_frac, cycles=p.cycles_per_sample)
+        own, text = out.clock_row(p)
+        row.update(own)
         rows.append(row)
+        texts.append(text)
     if as_json:
         click.echo(json_text({"rate_hz": rate_hz, "output": output, "clocks": rows}))
         return
@@ -747,14 +645,8 @@ def _print_sys_clocks(
             else "none exact: smallest error first"
         )
     )
-    for r in rows:
+    for r, what in zip(rows, texts, strict=True):
         pll = r["pll"]
-        what = (
-            f"TOP {r['top']}, {r['periods_per_sample']} period(s) a sample, {r['levels']} levels"
-            if output == "pwm"
-            else f"divider {r['div_int']}, {r['cycles']} cycle(s) per "
-            + ("frame" if output == "i2s" else "update" if output == "i2c-dac" else "sample")
-        )
         flag = "  ABOVE THE RATED CLOCK" if r["above_rated"] else ""
         vco = f"VCO {pll['vco_hz'] / 1e6:g} MHz (FBDIV {pll['fbdiv']})"
         click.echo(
@@ -769,109 +661,6 @@ def _print_sys_clocks(
         "peripheral clock, UART and SPI rates follow clk_sys unless re-derived. Running "
         "above the rated clock is at your own risk."
     )
-
-
-def _print_i2s_plan(rate_hz: float, opts: Any, slot_bits: int, as_json: bool) -> None:
-    from ladderpack.outputs.i2s import CYCLES_PER_BIT, plan_i2s
-
-    plan = plan_i2s(
-        rate_hz,
-        sys_clock_hz=int(opts.sys_clock_hz or 0),
-        slot_bits=slot_bits,
-        tolerance_ppm=opts.rate_tolerance_ppm,
-    )
-    d = plan.to_dict()
-    if as_json:
-        click.echo(json_text(d))
-        return
-    c = plan.clock
-    kind = "fractional (1 system clock of bit-clock jitter)" if c.fractional else "integer"
-    click.echo(f"requested  {rate_hz:g} frames/s at {c.sys_clock_hz} Hz system clock")
-    click.echo(f"achieved   {float(plan.frame_rate_hz):.6f} frames/s ({c.error_ppm:+.3f} ppm)")
-    click.echo(f"divider    {c.div_int} + {c.div_frac}/256, {kind}")
-    click.echo(
-        f"frame      2 x {slot_bits}-bit slots, {CYCLES_PER_BIT} state-machine cycles per bit"
-        f" ({c.cycles_per_sample} per frame)"
-    )
-    click.echo(f"bit clock  {float(plan.bit_clock_hz):.3f} Hz")
-    click.echo(f"CLKDIV     0x{c.clkdiv_register:08X}")
-
-
-def _print_pwm_plan(rate_hz: float, opts: Any, min_carrier_hz: float | None, as_json: bool) -> None:
-    import math
-
-    from ladderpack.outputs.pwm import (
-        DREQ_DMA_TIMER0,
-        DREQ_PWM_WRAP0,
-        plan_pwm,
-        reconstruction_filter,
-    )
-
-    plan = plan_pwm(
-        rate_hz,
-        sys_clock_hz=int(opts.sys_clock_hz or 0),
-        min_carrier_hz=min_carrier_hz,
-        tolerance_ppm=opts.rate_tolerance_ppm,
-    )
-    from ladderpack.defaults import default_band_hz
-    from ladderpack.quantize import CodeScale, predicted_full_scale_sine
-
-    d = plan.to_dict()
-    chip = "rp2040" if opts.target == "rp2040" else "rp2350"
-    d["dreq"] = (DREQ_PWM_WRAP0 if plan.pacing == "wrap" else DREQ_DMA_TIMER0)[chip]
-    rate = float(plan.achieved_rate_hz)
-    band = default_band_hz(rate)
-    half = CodeScale.for_levels(plan.levels).half
-    plain = predicted_full_scale_sine(half, "tpdf", 0.0, band, rate)
-    d["predicted_full_scale_sine"] = {"band_hz": band, "dither": "tpdf", **plain}
-    # The filter passes the resampler's flat band (0.45 x the rate, at most 20 kHz).
-    fband = min(20000.0, 0.45 * rate)
-    carrier = float(plan.carrier_hz)
-    filt = reconstruction_filter(plan, fband)
-    # fundamental of a 50 % square wave between 0 and V: 2 V / pi (Fourier series)
-    ripple = 2 * 3.3 / math.pi * 10 ** (filt.gain_db(carrier) / 20)
-    d["reconstruction_filter"] = {
-        "poles": filt.poles,
-        "r_ohms": filt.r_ohms,
-        "c_farads": filt.c_farads,
-        "corner_hz": filt.corner_hz,
-        "band_hz": fband,
-        "gain_at_band_db": filt.gain_db(fband),
-        "gain_at_carrier_db": filt.gain_db(carrier),
-        "carrier_ripple_volts_peak_at_3v3": ripple,
-    }
-    if as_json:
-        click.echo(json_text(d))
-        return
-    kind = "fractional (1 system clock of jitter)" if plan.fractional else "integer (no jitter)"
-    click.echo(f"requested  {rate_hz:g} Hz at {plan.sys_clock_hz} Hz system clock")
-    click.echo(f"achieved   {float(plan.achieved_rate_hz):.6f} Hz ({plan.error_ppm:+.3f} ppm)")
-    click.echo(f"carrier    {float(plan.carrier_hz):.3f} Hz, TOP {plan.top}")
-    click.echo(f"divider    {plan.div_int} + {plan.div_frac}/16, {kind}")
-    click.echo(
-        f"levels     {plan.levels} (compare 0..{plan.top + 1}), {plan.effective_bits:.2f} bits"
-    )
-    click.echo(
-        f"predict    full-scale sine SINAD {plain['sinad_db']:.1f} dB, ENOB "
-        f"{plain['enob_bits']:.2f} bits in 0..{band:g} Hz (TPDF dither)"
-    )
-    click.echo(
-        f"filter     {filt.poles} buffered RC sections of {filt.r_ohms / 1e3:g} kohm and "
-        f"{filt.c_farads * 1e12:g} pF: {filt.gain_db(fband):+.2f} dB at {fband:.0f} Hz, "
-        f"{filt.gain_db(carrier):+.1f} dB at the carrier"
-    )
-    click.echo(
-        f"           carrier left at 50 % duty from a 3.3 V pin: {ripple * 1e3:.0f} mV peak "
-        "(more poles, or the amplifier's own bandwidth, take it further)"
-    )
-    if plan.pacing == "wrap":
-        click.echo(f"pacing     one sample per PWM wrap (DREQ_PWM_WRAP0 + slice = {d['dreq']} + n)")
-    else:
-        x, y = plan.timer_xy or (0, 0)
-        click.echo(
-            f"pacing     {plan.periods_per_sample} PWM periods per sample: DMA timer "
-            f"X/Y = {x}/{y} (DREQ_DMA_TIMER0 = {d['dreq']})"
-        )
 
 
 @cli.command()

@@ -356,34 +356,32 @@ class ClockChoice:
 def find_sys_clocks(
     rate_hz: float | int | Fraction,
     *,
-    output: str = "ladder",
     min_hz: int = 48_000_000,
     max_hz: int = 133_000_000,
     near_hz: int = DEFAULT_SYS_CLOCK_HZ,
     tolerance_ppm: float = 0.0,
     min_cycles: int = 1,
     max_cycles: int = 32,
-    min_carrier_hz: float | None = None,
     planner: Callable[[int], Any] | None = None,
     limit: int = 10,
 ) -> list[ClockChoice]:
     """System clocks in a range that make `rate_hz` exact with an integer divider.
 
     For each clock the PLL reaches (:func:`pll_settings`), the output's planner finds the
-    best integer (jitter-free) divider: the ladder's state-machine divider x cycles per
-    sample, the I2S frame's divider x 128 cycles, or the PWM slice's divider x (TOP + 1) x
-    periods per sample.  Clocks whose rate error is within `tolerance_ppm` (default 0:
-    exact) are ranked by their distance from `near_hz` (the clock the firmware runs at
-    now).  When no clock is that close, the clocks with the smallest error are returned
-    instead, best first (check ``choice.plan.error_ppm``): 44.1 kHz, for one, needs the
-    factors 3^2 x 7^2, which no divider of a 12 MHz crystal's PLL output has.
+    best integer (jitter-free) divider: by default a state machine's divider x cycles per
+    sample (the ladder's); an output's own planner comes from its object
+    (``Output.clock_planner``: the I2S frame's divider x 128 cycles, the PWM slice's
+    divider x (TOP + 1) x periods per sample, the I2C writer's).  Clocks whose rate
+    error is within `tolerance_ppm` (default 0: exact) are ranked by their distance from
+    `near_hz` (the clock the firmware runs at now).  When no clock is that close, the
+    clocks with the smallest error are returned instead, best first (check
+    ``choice.plan.error_ppm``): 44.1 kHz, for one, needs the factors 3^2 x 7^2, which no
+    divider of a 12 MHz crystal's PLL output has.
 
     Parameters
     ----------
     rate_hz : float, int or Fraction
         Sample (frame) rate wanted, Hz.
-    output : {'ladder', 'i2s', 'pwm'}
-        The output system (see `planner` for others).
     min_hz, max_hz : int
         Range of system clocks to search, Hz.
     near_hz : int
@@ -391,24 +389,21 @@ def find_sys_clocks(
     tolerance_ppm : float
         Rate error accepted as exact enough, ppm (default 0).
     min_cycles, max_cycles : int
-        Ladder: the program's range of cycles per sample.
-    min_carrier_hz : float, optional
-        PWM: lowest acceptable carrier (default 4 x the rate).
+        The default planner's range of state-machine cycles per sample.
     planner : callable, optional
-        Another output's planner, ``planner(sys_clock_hz) -> plan`` (a plan with
-        ``fractional``, ``error_ppm`` and ``achieved_rate_hz``; the I2C writer's, say),
-        used instead of `output`'s.
+        An output's planner, ``planner(sys_clock_hz) -> plan`` (a plan with
+        ``fractional``, ``error_ppm`` and ``achieved_rate_hz``), used instead of the
+        default.
     limit : int
         Most clocks returned.
 
     Examples
     --------
-    >>> [c.sys_clock_hz for c in find_sys_clocks(48000, output="i2s")]
+    >>> frame = lambda f: plan_clock(48000, sys_clock_hz=f, min_cycles=128, max_cycles=128)
+    >>> [c.sys_clock_hz for c in find_sys_clocks(48000, planner=frame)]
     [61440000]
     """
     rate = _as_fraction(rate_hz, "rate_hz")
-    if output not in ("ladder", "i2s", "pwm") and planner is None:
-        raise OptionError(f"must be ladder, i2s or pwm, got {output!r}", field="output")
     if not 0 < min_hz <= max_hz:
         raise OptionError(
             f"need 0 < min <= max, got {min_hz}..{max_hz} Hz", field="min_sys_clock_hz"
@@ -420,16 +415,13 @@ def find_sys_clocks(
         try:
             if planner is not None:
                 plan: Any = planner(f)
-            elif output == "pwm":
-                from ladderpack.outputs.pwm import plan_pwm
-
-                plan = plan_pwm(
-                    rate, sys_clock_hz=f, min_carrier_hz=min_carrier_hz, tolerance_ppm=1e9
-                )
             else:
-                lo, hi = (128, 128) if output == "i2s" else (min_cycles, max_cycles)
                 plan = plan_clock(
-                    rate, sys_clock_hz=f, tolerance_ppm=1e9, min_cycles=lo, max_cycles=hi
+                    rate,
+                    sys_clock_hz=f,
+                    tolerance_ppm=1e9,
+                    min_cycles=min_cycles,
+                    max_cycles=max_cycles,
                 )
         except (ClockError, OptionError):
             continue

@@ -14,13 +14,11 @@ __all__ = [
     "I2C_DAC_COMMANDS",
     "I2S_SAMPLE_BITS",
     "NTF_FORMS",
-    "OUTPUTS",
     "PIN_ORDERS",
     "PROGRAM_CHOICES",
     "SHAPER_NAMES",
     "SHIFTS",
     "STAGES",
-    "STREAM_OUTPUTS",
     "TONE_KINDS",
     "WEIGHTING_NAMES",
     "default_band_hz",
@@ -77,14 +75,6 @@ PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
 
 #: OUT shift directions.
 SHIFTS = ("right", "left")
-
-#: Output systems a stream can be made for: an R-2R ladder on GPIOs, an I2S DAC or
-#: amplifier, a PWM slice on one pin.
-OUTPUTS = ("ladder", "i2s", "pwm")
-
-#: Outputs a stream can be made for: those above and a 12-bit I2C DAC updated by a
-#: state-machine bus writer (its tables are ``table i2c-dac``, not ``table wave``).
-STREAM_OUTPUTS = (*OUTPUTS, "i2c-dac")
 
 #: I2C bus clocks: Standard-mode, Fast-mode and Fast-mode Plus (NXP UM10204), Hz.
 I2C_BUS_SPEEDS_HZ = (100_000, 400_000, 1_000_000)

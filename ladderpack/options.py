@@ -23,26 +23,22 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import os
 import typing
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
+from ladderpack import outputs
 from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
     FRAME_FORMATS,
-    I2C_BUS_SPEEDS_HZ,
     I2C_DAC_COMMANDS,
-    I2S_SAMPLE_BITS,
     NTF_FORMS,
-    OUTPUTS,
     PIN_ORDERS,
     PROGRAM_CHOICES,
     SHAPER_NAMES,
     SHIFTS,
-    STREAM_OUTPUTS,
     TONE_KINDS,
     WEIGHTING_NAMES,
 )
@@ -93,6 +89,10 @@ class OptionInfo:
     recorded : bool
         Whether the option goes into the sidecar and the build fingerprint
         (False for options that cannot change an output).
+    group : str, optional
+        For a stream option that only some outputs take, the group it belongs to; the
+        registry lists the groups each output takes (:data:`ladderpack.outputs.REGISTRY`).
+        None: every output takes it.
     """
 
     help: str
@@ -106,6 +106,7 @@ class OptionInfo:
     metavar: str | None = None
     cli: bool = True
     recorded: bool = True
+    group: str | None = None
 
 
 def _opt(default: Any, help: str, **info: Any) -> Any:
@@ -278,6 +279,45 @@ class _Model:
         }
 
 
+def _and(names: tuple[str, ...]) -> str:
+    """``a``, ``a and b``, ``a, b and c``."""
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
+
+
+def _check_groups(obj: Any) -> outputs.Entry | None:
+    """Refuse an option given for an output that does not take its group.
+
+    Returns the output's registry entry (None for an unknown output, which the field
+    checks then refuse).
+    """
+    out = outputs.REGISTRY_BY_NAME.get(obj.output) if isinstance(obj.output, str) else None
+    if out is None:
+        return None
+    for f, info, _hint in option_fields(type(obj)):
+        if info.group and info.group not in out.takes and _flag_given(obj, f.name):
+            who = outputs.takers(info.group)
+            raise OptionError(
+                f"applies to output{'s' if len(who) > 1 else ''} {_and(who)}, not to "
+                f"output {obj.output}",
+                field=f.name,
+            )
+    return out
+
+
+def _recorded(obj: Any, record: dict[str, Any]) -> dict[str, Any]:
+    """A record without the options of groups the output does not take.
+
+    Nor, for an output not named in records (the ladder), the ``output`` key.
+    """
+    out = outputs.entry(obj.output)
+    for f, info, _hint in option_fields(type(obj)):
+        if info.group and info.group not in out.takes:
+            record.pop(f.name, None)
+    if not out.named_in_records:
+        record.pop("output", None)
+    return record
+
+
 def _flag_given(obj: Any, name: str) -> bool:
     f = {x.name: x for x in dataclasses.fields(obj)}[name]
     return bool(getattr(obj, name) != f.default)
@@ -307,10 +347,10 @@ class StreamOptions(_Model):
     )
     output: str = _opt(
         "ladder",
-        "How samples leave the chip: ladder (an R-2R ladder on N GPIOs), i2s (an I2S DAC "
-        "or amplifier on three GPIOs), pwm (a PWM slice on one GPIO, through an RC filter) "
-        "or i2c-dac (a 12-bit I2C DAC, one bus write per sample, on two GPIOs).",
-        choices=STREAM_OUTPUTS,
+        "How samples leave the chip: "
+        + "; ".join(f"{e.name}, {e.summary}" for e in outputs.REGISTRY)
+        + ".",
+        choices=outputs.names(),
     )
     bits: int = _opt(
         None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
@@ -318,6 +358,7 @@ class StreamOptions(_Model):
         "DAC's 12; PWM's resolution follows from its plan.",
         unit="bits",
         default_text="8 for a ladder, 16 for I2S, 12 for an I2C DAC",
+        group="width",
     )
     rate_hz: float = _opt(22050.0, "Requested stream sample rate.", unit="Hz", lo=0, lo_open=True)
     sys_clock_hz: int | None = _opt(
@@ -336,9 +377,15 @@ class StreamOptions(_Model):
     )
     fade_ms: float = _opt(5.0, "Raised-cosine fade at each end of the audio.", unit="ms", lo=0)
     ramp_ms: float = _opt(
-        50.0, "Ramp between the idle code and mid-scale at start and end.", unit="ms", lo=0
+        50.0,
+        "Ramp between the idle code and mid-scale at start and end.",
+        unit="ms",
+        lo=0,
+        group="level",
     )
-    idle_code: int = _opt(0, "Code the pins hold when nothing plays.", unit="code", lo=0)
+    idle_code: int = _opt(
+        0, "Code the pins hold when nothing plays.", unit="code", lo=0, group="level"
+    )
     dither: str = _opt("tpdf", "Dither before rounding.", choices=DITHERS)
     shaping: str = _opt(
         "none",
@@ -385,6 +432,7 @@ class StreamOptions(_Model):
         unit="file",
         default_text="ideal levels",
         metavar="FILE",
+        group="ladder",
     )
     force: bool = _opt(
         False,
@@ -393,7 +441,10 @@ class StreamOptions(_Model):
     )
     seed: int = _opt(0, "Dither seed; the same seed gives identical output.", lo=0, hi=2**63 - 1)
     shift: str = _opt(
-        "right", "OUT shift direction: right puts the first sample in the LSBs.", choices=SHIFTS
+        "right",
+        "OUT shift direction: right puts the first sample in the LSBs.",
+        choices=SHIFTS,
+        group="ladder",
     )
     out_base: int = _opt(
         0,
@@ -410,6 +461,7 @@ class StreamOptions(_Model):
         unit="GPIO",
         lo=0,
         default_text="out_base + 1",
+        group="serial-clock",
     )
     bus_hz: int = _opt(
         400_000,
@@ -417,17 +469,20 @@ class StreamOptions(_Model):
         "Plus, if the DAC has it), with every UM10204 bus time of that mode met; at "
         "125 MHz fast writes reach 3096, 11817 or 30281 updates/s.",
         unit="Hz",
+        group="i2c",
     )
     dac_address: int = _opt(
         0x60,
         "I2C DAC only: the DAC's 7-bit address, decimal or 0x.. (0x60: an MCP4725 with A0 low).",
         unit="address",
         default_text="0x60",
+        group="i2c",
     )
     dac_command: str = _opt(
         "fast",
         "I2C DAC only: fast (2 data bytes an update) or register (write DAC register, 3).",
         choices=I2C_DAC_COMMANDS,
+        group="i2c",
     )
     stereo: bool = _opt(
         False,
@@ -435,6 +490,7 @@ class StreamOptions(_Model):
         "left and right slots of I2S, channels A and B of the PWM slice. Mono sends one "
         "channel (I2S: in both slots).",
         flag="--stereo/--mono",
+        group="stereo",
     )
     min_carrier_hz: float | None = _opt(
         None,
@@ -443,12 +499,14 @@ class StreamOptions(_Model):
         lo=0,
         lo_open=True,
         default_text="4 x the rate",
+        group="pwm",
     )
     frame_format: str = _opt(
         "standard",
         "I2S only: standard (MSB one bit clock after the word-select edge, left while WS "
         "is low: Philips I2S) or left-justified (MSB on the edge, left while LRCK is high).",
         choices=FRAME_FORMATS,
+        group="i2s",
     )
     gpio_count: int | None = _opt(
         None,
@@ -461,16 +519,19 @@ class StreamOptions(_Model):
         "msb-high",
         "msb-high: ladder MSB on the highest GPIO; msb-low: on the lowest (bits reversed).",
         choices=PIN_ORDERS,
+        group="ladder",
     )
     invert: bool = _opt(
         False,
         "Invert every bit, for an inverting buffer between pins and ladder.",
         flag="--invert/--no-invert",
+        group="ladder",
     )
     program: str = _opt(
         "auto",
         "State-machine program; auto picks loop for loops when it fits, else autopull.",
         choices=PROGRAM_CHOICES,
+        group="ladder",
     )
     samples_per_word: int | None = _opt(
         None,
@@ -479,6 +540,7 @@ class StreamOptions(_Model):
         lo=1,
         hi=32,
         default_text="as many as fit",
+        group="ladder",
     )
     loop: bool = _opt(
         False,
@@ -529,32 +591,13 @@ class StreamOptions(_Model):
         "crossfade_ms",
     )
 
-    #: Options that only apply to a ladder, and to I2S.
-    LADDER_ONLY: ClassVar[tuple[str, ...]] = (
-        "levels",
-        "idle_code",
-        "ramp_ms",
-        "shift",
-        "pin_order",
-        "invert",
-        "program",
-        "samples_per_word",
-    )
-    I2S_ONLY: ClassVar[tuple[str, ...]] = ("clock_pin", "frame_format")
-    PWM_ONLY: ClassVar[tuple[str, ...]] = ("min_carrier_hz",)
-    I2C_ONLY: ClassVar[tuple[str, ...]] = ("bus_hz", "dac_address", "dac_command")
-    #: Options of the outputs other than the ladder.
-    SERIAL_ONLY: ClassVar[tuple[str, ...]] = ("stereo",)
-
     def __post_init__(self) -> None:
-        if self.bits is None:
-            object.__setattr__(self, "bits", {"ladder": 8, "i2c-dac": 12}.get(self.output, 16))
-        elif self.output == "pwm":
-            raise OptionError(
-                "does not apply to output pwm (its levels follow from the plan: TOP + 2)",
-                field="bits",
-            )
+        out = _check_groups(self)
+        output = outputs.get_output(self.output) if out is not None else None
+        if self.bits is None and output is not None:
+            object.__setattr__(self, "bits", output.default_bits())
         self._check_fields()
+        assert output is not None  # _check_fields refuses an unknown output
         tgt = get_target(self.target)
         for name, value in (
             ("sys_clock_hz", tgt.sys_clock_hz),
@@ -570,186 +613,13 @@ class StreamOptions(_Model):
                 f"never more: got {self.gpio_count}",
                 field="gpio_count",
             )
-        for name in self.PWM_ONLY if self.output != "pwm" else ():
-            if _flag_given(self, name):
-                raise OptionError("applies only to output pwm", field=name)
-        for name in self.I2C_ONLY if self.output != "i2c-dac" else ():
-            if _flag_given(self, name):
-                raise OptionError("applies only to output i2c-dac", field=name)
-        for name in self.I2S_ONLY if self.output not in ("i2s", "i2c-dac") else ():
-            if _flag_given(self, name):
-                raise OptionError("applies only to outputs i2s and i2c-dac", field=name)
-        if self.output == "i2c-dac":
-            self._check_i2c_dac()
-            return
-        if self.output == "i2s":
-            self._check_i2s()
-            return
-        if self.output == "pwm":
-            self._check_pwm()
-            return
-        if not 1 <= self.bits <= 16:
-            raise OptionError(
-                f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
-            )
-        lv = self.levels
-        if not (lv is None or isinstance(lv, str | os.PathLike) or hasattr(lv, "volts")):
-            raise OptionError(
-                f"must be a LevelSet or the path of its JSON file, got {type(lv).__name__}",
-                field="levels",
-            )
-        top = (1 << self.bits) - 1
-        if self.idle_code > top:
-            raise OptionError(
-                f"must be 0..{top} for {self.bits} bits, got {self.idle_code}", field="idle_code"
-            )
-        if self.samples_per_word is not None and self.samples_per_word > self.samples_per_word_max:
-            raise OptionError(
-                f"must be 1..{self.samples_per_word_max} for {self.bits}-bit samples in a "
-                f"32-bit word, got {self.samples_per_word}",
-                field="samples_per_word",
-            )
+        output.check_options(self)
         self._check_common()
-        self._check_two_ladders()
-        tgt.gpio_window(
-            self.out_base, self.pins, int(self.gpio_count or 0), what=self._ladder_lines()
-        )
-
-    def _check_two_ladders(self) -> None:
-        if self.stereo and self.bits > 15:
-            raise OptionError(
-                f"two ladders of {self.bits} bits need {2 * self.bits} pins; a state machine "
-                "writes at most 30 here (two 15-bit ladders)",
-                field="bits",
-            )
 
     @property
     def pins(self) -> int:
         """GPIOs the ladder output takes: N, or 2N for two ladders (stereo)."""
         return self.bits * (2 if self.stereo else 1)
-
-    def _check_pwm(self) -> None:
-        """The checks of a PWM stream (its pin, and the ladder's options refused)."""
-        for name in ("levels", "shift", "pin_order", "invert", "program", "samples_per_word"):
-            if _flag_given(self, name):
-                raise OptionError("applies only to output ladder", field=name)
-        self._check_common()
-        if self.stereo and self.out_base % 2:
-            raise OptionError(
-                f"a stereo PWM stream uses both channels of a slice: give its channel A "
-                f"(an even GPIO), got GPIO {self.out_base}",
-                field="out_base",
-            )
-        if self.out_base + int(self.stereo) >= int(self.gpio_count or 0):
-            raise OptionError(
-                f"the PWM pin GPIO {self.out_base} is not on the target (GPIO 0.."
-                f"{int(self.gpio_count or 0) - 1})"
-                + get_target(self.target).more_pins_hint(self.out_base + int(self.stereo)),
-                field="out_base",
-            )
-
-    def _check_i2c_dac(self) -> None:
-        """The checks of an I2C DAC stream: 12 bits, mono, a bus speed, two pins."""
-        for name in ("levels", "shift", "pin_order", "invert", "program", "samples_per_word"):
-            if _flag_given(self, name):
-                raise OptionError("applies only to output ladder", field=name)
-        if _flag_given(self, "frame_format"):
-            raise OptionError("applies only to output i2s", field="frame_format")
-        if self.bits != 12:
-            raise OptionError(
-                f"the I2C DAC command set is for 12-bit DACs, got {self.bits}", field="bits"
-            )
-        if self.stereo:
-            raise OptionError(
-                "an I2C DAC stream is mono (one DAC on the bus); make one stream a DAC",
-                field="stereo",
-            )
-        if self.bus_hz not in I2C_BUS_SPEEDS_HZ:
-            raise OptionError(
-                f"must be one of {', '.join(str(b) for b in I2C_BUS_SPEEDS_HZ)} Hz, got "
-                f"{self.bus_hz!r}",
-                field="bus_hz",
-            )
-        if self.dac_command not in I2C_DAC_COMMANDS:
-            raise OptionError(
-                f"must be one of {', '.join(I2C_DAC_COMMANDS)}, got {self.dac_command!r}",
-                field="dac_command",
-            )
-        a = self.dac_address
-        if isinstance(a, bool) or not isinstance(a, int) or not 0x08 <= a <= 0x77:
-            raise OptionError(
-                f"must be a 7-bit address 0x08..0x77 (the others are reserved), got {a!r}",
-                field="dac_address",
-            )
-        if self.idle_code > 4095:
-            raise OptionError(
-                f"must be 0..4095 for 12 bits, got {self.idle_code}", field="idle_code"
-            )
-        if self.clock_pin is None:
-            object.__setattr__(self, "clock_pin", self.out_base + 1)
-        self._check_common()
-        sda, scl = self.out_base, int(self.clock_pin or 0)
-        if sda == scl:
-            raise OptionError(f"SDA and SCL are both GPIO {sda}", field="clock_pin")
-        count = int(self.gpio_count or 0)
-        if max(sda, scl) >= count:
-            raise OptionError(
-                f"the I2C lines need GPIO {sda} (SDA) and {scl} (SCL), but the target has "
-                f"GPIO 0..{count - 1}" + get_target(self.target).more_pins_hint(max(sda, scl)),
-                field="clock_pin" if scl >= count else "out_base",
-            )
-        lo, hi = min(sda, scl), max(sda, scl)
-        get_target(self.target).gpio_window(
-            lo, hi - lo + 1, count, what=f"the I2C lines (SDA GPIO {sda}, SCL GPIO {scl})"
-        )
-
-    def _check_i2s(self) -> None:
-        """The checks of an I2S stream (the ladder's pins, layout and levels do not apply)."""
-        for name in self.LADDER_ONLY:
-            if _flag_given(self, name):
-                # the ramps and the idle code are also a PWM pin's and an I2C DAC's; an
-                # I2S line idles at silence
-                takers = (
-                    "outputs ladder, pwm and i2c-dac"
-                    if name in ("idle_code", "ramp_ms")
-                    else "output ladder"
-                )
-                raise OptionError(f"applies to {takers}, not to output i2s", field=name)
-        if self.bits not in I2S_SAMPLE_BITS:
-            raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits")
-        if self.clock_pin is None:
-            object.__setattr__(self, "clock_pin", self.out_base + 1)
-        self._check_common()
-        pins = (self.out_base, int(self.clock_pin or 0), int(self.clock_pin or 0) + 1)
-        if self.out_base in pins[1:]:
-            raise OptionError(
-                f"the data pin GPIO {self.out_base} is also the bit clock or word select "
-                f"(GPIO {pins[1]} and {pins[2]})",
-                field="clock_pin",
-            )
-        count = int(self.gpio_count or 0)
-        if max(pins) >= count:
-            raise OptionError(
-                f"the I2S lines need GPIO {pins[0]} (data), {pins[1]} (bit clock) and "
-                f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}"
-                + get_target(self.target).more_pins_hint(max(pins)),
-                field="clock_pin" if pins[2] >= count else "out_base",
-            )
-        lo, hi = min(pins), max(pins)
-        get_target(self.target).gpio_window(lo, hi - lo + 1, count, what=self._i2s_lines(pins))
-
-    @staticmethod
-    def _i2s_lines(pins: tuple[int, ...]) -> str:
-        return (
-            f"the I2S lines (data GPIO {pins[0]}, bit clock GPIO {pins[1]}, word select GPIO "
-            f"{pins[2]})"
-        )
-
-    def _ladder_lines(self) -> str:
-        if self.stereo:
-            n = self.bits
-            return f"two {n}-bit ladders ({2 * n} pins)"
-        return f"{'an' if self.bits in (8, 11, 18) else 'a'} {self.bits}-bit ladder"
 
     def _check_common(self) -> None:
         """Checks shared by every output."""
@@ -795,63 +665,17 @@ class StreamOptions(_Model):
 
     @property
     def gpio_base(self) -> int:
-        """The PIO block's GPIO base that reaches the ladder's pins (0 or 16)."""
-        tgt = get_target(self.target)
-        if self.output in ("i2s", "i2c-dac"):
-            pins: tuple[int, ...] = (self.out_base, int(self.clock_pin or 0))
-            if self.output == "i2s":  # the word select follows the bit clock
-                pins += (int(self.clock_pin or 0) + 1,)
-            lo, hi = min(pins), max(pins)
-            lines = (
-                self._i2s_lines(pins)
-                if self.output == "i2s"
-                else f"the I2C lines (SDA GPIO {pins[0]}, SCL GPIO {pins[1]})"
-            )
-            return tgt.gpio_window(lo, hi - lo + 1, int(self.gpio_count or 0), what=lines)
-        return tgt.gpio_window(
-            self.out_base, self.pins, int(self.gpio_count or 0), what=self._ladder_lines()
-        )
+        """The PIO block's GPIO base that reaches the output's pins (0 or 16)."""
+        return outputs.get_output(self.output).gpio_base(self)
 
     def to_dict(self) -> dict[str, Any]:
-        """Recorded options; a LevelSet or path is recorded by its file name only.
+        """Recorded options: those every output takes and the output's own groups.
 
-        A ladder stream records no output keys (its records are those of the versions
-        before other outputs existed); another output records its own and none of the
-        ladder's.
+        The output may adjust the record (a ladder stream records no ``output`` key: its
+        records are those of the versions before other outputs existed).
         """
-        out = super().to_dict()
-        own = {
-            "ladder": self.LADDER_ONLY,
-            "i2s": (*self.I2S_ONLY, *self.SERIAL_ONLY),
-            "pwm": (*self.PWM_ONLY, *self.SERIAL_ONLY, "idle_code", "ramp_ms"),
-            "i2c-dac": (*self.I2C_ONLY, "clock_pin", "idle_code", "ramp_ms"),
-        }[self.output]
-        others = {
-            *self.LADDER_ONLY,
-            *self.I2S_ONLY,
-            *self.PWM_ONLY,
-            *self.I2C_ONLY,
-            *self.SERIAL_ONLY,
-            "output",
-        } - set(own)
-        if self.output != "ladder":
-            others.discard("output")
-        if self.output == "pwm":
-            others.discard("bits")
-            out.pop("bits", None)
-        for name in others:
-            out.pop(name, None)
-        if self.output == "ladder" and self.stereo:
-            out["stereo"] = True
-        if self.output != "ladder":
-            return out
-        lv = self.levels
-        if lv is not None:
-            if isinstance(lv, str | os.PathLike):
-                out["levels"] = os.path.basename(os.fspath(lv))
-            else:
-                out["levels"] = lv.notes.get("file", "LevelSet")
-        return out
+        out = _recorded(self, super().to_dict())
+        return outputs.get_output(self.output).recorded_options(self, out)
 
     def check_for_tone(self) -> None:
         """Refuse the clip-only options (a tone is synthesised at its own level)."""
@@ -981,13 +805,14 @@ class WaveTableSpec(_Model):
         "ladder",
         "What the entries drive: ladder codes, i2s samples (signed) or pwm compare values "
         "(0..TOP+1 of the slice planned for the rate).",
-        choices=OUTPUTS,
+        choices=outputs.wave_table_outputs(),
     )
     bits: int = _opt(
         None,  # type: ignore[arg-type]  # resolved by the output in __post_init__
         "Width of the entries: ladder codes 1..16, I2S samples 16, 24 or 32 (not for PWM).",
         unit="bits",
         default_text="8 for a ladder, 16 for I2S",
+        group="width",
     )
     level_dbfs: float = _opt(-1.0, "Peak level.", unit="dBFS", hi=0)
     freqs_hz: tuple[float, ...] = _opt(
@@ -1018,19 +843,12 @@ class WaveTableSpec(_Model):
     )
 
     def __post_init__(self) -> None:
-        if self.bits is None:
-            object.__setattr__(self, "bits", 8 if self.output == "ladder" else 16)
-        elif self.output == "pwm":
-            raise OptionError(
-                "does not apply to output pwm (its levels follow from the plan)", field="bits"
-            )
+        out = _check_groups(self)
+        if out is not None and self.bits is None:
+            object.__setattr__(self, "bits", outputs.get_output(self.output).default_bits())
         self._check_fields()
-        if self.output == "ladder" and not 1 <= self.bits <= 16:
-            raise OptionError(
-                f"must be a whole number 1..16 for a ladder, got {self.bits}", field="bits"
-            )
-        if self.output == "i2s" and self.bits not in I2S_SAMPLE_BITS:
-            raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {self.bits}", field="bits")
+        if out is not None and "width" in out.takes:
+            outputs.get_output(self.output).check_bits(self.bits)
         if self.sys_clock_hz is None:
             object.__setattr__(self, "sys_clock_hz", get_target(self.target).sys_clock_hz)
         for f in self.freqs_hz:
@@ -1040,12 +858,7 @@ class WaveTableSpec(_Model):
 
     def to_dict(self) -> dict[str, Any]:
         """Recorded options; a ladder table records no output key (as before outputs)."""
-        out = super().to_dict()
-        if self.output == "ladder":
-            out.pop("output", None)
-        elif self.output == "pwm":
-            out.pop("bits", None)
-        return out
+        return _recorded(self, super().to_dict())
 
 
 @dataclass(frozen=True)

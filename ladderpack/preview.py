@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from ladderpack.errors import LadderpackError, OptionError
+from ladderpack.outputs.base import PreviewModel
 
 __all__ = ["Preview", "analog_output", "render_preview"]
 
@@ -48,54 +49,18 @@ class _Bundle:
 
     side: dict[str, Any]
     codes: np.ndarray  # one channel's codes, one per sample period
-    output: str  # "ladder", "i2s", "pwm" or "i2c-dac"
-    bits: int  # a ladder's N or an I2S sample's width (16 for PWM's compare values)
-    levels: int  # PWM: compare values 0..levels-1 (else 2**bits)
+    output: str  # the output system's name
+    model: PreviewModel  # how the output's codes become a level
 
-
-def _layout_of(lay: dict[str, Any], side: dict[str, Any]) -> tuple[str, Any, int, int]:
-    """(output, layout object, code bits, channels) from a sidecar's ``layout``."""
-    from ladderpack.outputs.i2s import I2sLayout
-    from ladderpack.outputs.pwm import PwmStereoLayout
-    from ladderpack.pack import StereoLadderLayout, WordLayout
-
-    output = str(lay.get("output", "pwm" if side.get("pwm") else "ladder"))
-    stereo = lay.get("channels") == "stereo"
-    if output == "i2s":
-        bits = lay["bits"]
-        if bits not in (16, 24, 32):
-            raise ValueError(f"layout.bits: expected 16, 24 or 32 for I2S, got {bits!r}")
-        return output, I2sLayout(bits, stereo=stereo), bits, 2 if stereo else 1
-    if output == "pwm" and stereo:
-        return output, PwmStereoLayout(), 16, 2
-    if output == "i2c-dac":
-        from ladderpack.outputs.i2c_dac import I2cDacFormat, I2cDacLayout
-
-        dac = lay["dac"]
-        fmt = I2cDacFormat(int(dac["address"]), str(dac["command"]))
-        return output, I2cDacLayout(fmt), 12, 1
-    if output not in ("ladder", "pwm"):
-        raise ValueError(f"layout.output: expected ladder, i2s, pwm or i2c-dac, got {output!r}")
-    bits, spw = lay["bits"], lay["samples_per_word"]
-    hi = 30 if stereo else 16
-    for key, v, lo, top in (("layout.bits", bits, 1, hi), ("layout.samples_per_word", spw, 1, 32)):
-        if not isinstance(v, int) or isinstance(v, bool) or not lo <= v <= top:
-            raise ValueError(f"{key}: expected a whole number {lo}..{top}, got {v!r}")
-    if lay["shift"] not in ("left", "right"):
-        raise ValueError(f"layout.shift: expected 'left' or 'right', got {lay['shift']!r}")
-    layout = (StereoLadderLayout if stereo else WordLayout)(
-        bits,
-        shift_right=lay["shift"] == "right",
-        per_word=spw,
-        msb_high=lay.get("pin_order", "msb-high") == "msb-high",
-        invert=bool(lay.get("invert", False)),
-    )
-    return output, layout, bits // 2 if stereo else bits, 2 if stereo else 1
+    @property
+    def bits(self) -> int:
+        """Width of one channel's codes."""
+        return self.model.code_bits
 
 
 def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
     from ladderpack.emit.names import asset_identifier
-    from ladderpack.pack import StereoLadderLayout, WordLayout, unpack
+    from ladderpack.outputs import REGISTRY_BY_NAME, get_output, names
     from ladderpack.reading import read_json
 
     side = read_json(sidecar_path, what="bundle sidecar")
@@ -109,11 +74,16 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         name = side["asset"]
         if not isinstance(name, str) or asset_identifier(name) != name:
             raise ValueError("asset: expected the bundle's identifier (letters, digits, _)")
-        output, layout, bits, channels = _layout_of(side["layout"], side)
+        lay = side["layout"]
+        # a layout without an output is a ladder's, or a PWM stream's of the first version
+        output = str(lay.get("output", "pwm" if side.get("pwm") else "ladder"))
+        if output not in REGISTRY_BY_NAME:
+            raise ValueError(f"layout.output: expected {', '.join(names())}, got {output!r}")
+        model = get_output(output).preview_model(lay, side)
+        channels = model.channels
         count = side["stream"]["sample_count"]
         if not isinstance(count, int) or isinstance(count, bool) or not 0 <= count <= 2**40:
             raise ValueError(f"stream.sample_count: expected a whole number, got {count!r}")
-        levels = int(side["clock"]["levels"]) if output == "pwm" else 1 << bits
     except (KeyError, TypeError) as exc:
         raise LadderpackError(
             f"not a complete bundle sidecar (missing or wrong {exc})", file=sidecar_path
@@ -134,18 +104,13 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         words = np.fromfile(bin_path, dtype="<u4")
     except OSError:
         raise LadderpackError("the bundle's .bin file is unreadable", file=bin_path) from None
-    if words.size < layout.words_for(count):
+    if words.size < model.layout.words_for(count):
         raise LadderpackError(
-            f"holds {words.size} words but the sidecar says {layout.words_for(count)}",
+            f"holds {words.size} words but the sidecar says {model.layout.words_for(count)}",
             file=bin_path,
         )
-    if isinstance(layout, StereoLadderLayout):
-        codes = layout.channels_of(unpack(words, layout, count).codes)[:, channel]
-    elif isinstance(layout, WordLayout):
-        codes = unpack(words, layout, count).codes
-    else:  # I2S, stereo PWM or an I2C DAC: whole frames
-        codes = layout.unpack_words(words[: layout.words_for(count)])[:count, channel]
-    return _Bundle(side, np.asarray(codes, dtype=np.int64), output, bits, levels)
+    codes = model.decode(words, count, channel)
+    return _Bundle(side, np.asarray(codes, dtype=np.int64), output, model)
 
 
 def analog_output(
@@ -285,7 +250,7 @@ def render_preview(
 
     b = _read_bundle(sidecar_path, channel)
     side, codes, bits = b.side, b.codes, b.bits
-    if b.output != "ladder":
+    if not b.model.ladder:
         if levels_path not in (None, "ideal"):
             raise OptionError(
                 f"a LevelSet describes a ladder; this bundle is for output {b.output}",
@@ -293,7 +258,7 @@ def render_preview(
             )
         # an ideal DAC (I2S: two's complement about mid-scale) or a PWM pin's mean over a
         # period, duty = compare value / (TOP + 1), about half the swing
-        half = b.levels / 2 if b.output == "i2s" else (b.levels - 1) / 2
+        half = b.model.half
         x = (codes - half) / half
     else:
         if levels_path == "ideal":

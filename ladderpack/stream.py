@@ -31,38 +31,19 @@ from ladderpack import conform, portable
 from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
-from ladderpack.clock import RATED_SYS_CLOCK_HZ, ClockPlan, plan_clock, pll_settings
+from ladderpack.clock import RATED_SYS_CLOCK_HZ, pll_settings
 from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
 from ladderpack.levels import LevelSet, linearity, load_levels
 from ladderpack.loudness import LoudnessMeter, loudness_gain
 from ladderpack.options import ClipOptions, StreamOptions, ToneSpec
-from ladderpack.outputs.i2c_dac import (
-    I2cDacFormat,
-    I2cDacLayout,
-    I2cDacPlan,
-    i2c_state_machine,
-    plan_writer,
-    writer_program,
-)
-from ladderpack.outputs.i2s import (
-    STREAM_SLOT_BITS,
-    I2sLayout,
-    I2sPlan,
-    i2s_program,
-    i2s_state_machine,
-    plan_i2s,
-)
-from ladderpack.outputs.pwm import PwmPlan, PwmSetup, PwmStereoLayout, plan_pwm
-from ladderpack.pack import Packed, StereoLadderLayout, WordLayout, pack, pack_blocks
+from ladderpack.outputs import get_output
+from ladderpack.outputs.base import Output, OutputPlan
+from ladderpack.pack import Packed, WordLayout, pack, pack_blocks
 from ladderpack.pio import (
     Program,
     StateMachineConfig,
-    ladder_program,
-    max_cycles,
-    min_cycles,
-    state_machine_config,
 )
 from ladderpack.quantize import (
     BlockQuantizer,
@@ -156,17 +137,18 @@ class StreamPlan:
         Input frames per block (the whole input when it is one block).
     scale : CodeScale, optional
         The code scale when it is not the N-bit one (a PWM slice's TOP + 2 levels).
-    pwm : PwmSetup, optional
-        The slice, pin and DMA pacing of a PWM stream.
-    i2c : I2cDacPlan, optional
-        The bus writer's plan of an I2C DAC stream (its clock is `clock`).
+    setup : object, optional
+        The output's own plan besides the clock (a PWM slice's pin and pacing, an I2C
+        bus writer's timing).
+    part : OutputPlan
+        The output's whole plan (:meth:`ladderpack.outputs.base.Output.plan`).
     """
 
     name: str
     options: StreamOptions
     levels: LevelSet | None
-    clock: ClockPlan | PwmPlan
-    layout: WordLayout | I2sLayout | PwmStereoLayout | I2cDacLayout
+    clock: Any  # a ClockPlan, or the output's own rate plan (a PWM slice's)
+    layout: Any  # the output's word layout
     program: Program | None
     sm: StateMachineConfig | None
     shaper: Shaper
@@ -179,8 +161,13 @@ class StreamPlan:
     memory_bytes: int
     block_frames: int
     scale: CodeScale | None = None
-    pwm: PwmSetup | None = None
-    i2c: I2cDacPlan | None = None
+    setup: Any = None
+    part: OutputPlan | None = None
+
+    @property
+    def output(self) -> Output:
+        """The output system's object (the registry's, by ``options.output``)."""
+        return get_output(self.options.output)
 
     @property
     def code_scale(self) -> CodeScale:
@@ -195,12 +182,8 @@ class StreamPlan:
     @property
     def idle_code(self) -> int:
         """The code held before and after the stream (silence, for I2S)."""
-        if isinstance(self.layout, I2sLayout):
-            return self.layout.mid_code
-        if isinstance(self.layout, StereoLadderLayout):  # the frame of both idle codes
-            c = self.options.idle_code
-            return int(self.layout.frames(np.array([c]), np.array([c]))[0])
-        return self.options.idle_code
+        assert self.part is not None
+        return self.part.idle_code
 
     @property
     def samples_per_word(self) -> int:
@@ -208,9 +191,8 @@ class StreamPlan:
 
         1 for I2S and stereo PWM, where every frame is whole words.
         """
-        if isinstance(self.layout, WordLayout):
-            return self.layout.samples_per_word
-        return 1
+        assert self.part is not None
+        return self.part.samples_per_word
 
     @property
     def channels(self) -> int:
@@ -238,14 +220,6 @@ class Processed:
 
 
 # -- plan ----------------------------------------------------------------------------
-
-
-def _program_variant(opts: StreamOptions, spw: int) -> str:
-    if opts.program != "auto":
-        return opts.program
-    if opts.loop and max_cycles("loop", spw, opts.pins) >= min_cycles("loop"):
-        return "loop"
-    return "pull" if spw == 1 and opts.samples_per_word == 1 else "autopull"
 
 
 def _shaper_for(opts: StreamOptions, rate: float, band: float) -> Shaper:
@@ -359,83 +333,12 @@ def plan_stream(
     opts = options
     ident = asset_identifier(name)
     levels = _plan_levels(opts)
-    layout: WordLayout | I2sLayout | PwmStereoLayout | I2cDacLayout
-    clock: ClockPlan | PwmPlan
-    per_word: int | Fraction
-    scale, setup, writer = None, None, None
-    if opts.output == "i2c-dac":
-        fmt = I2cDacFormat(opts.dac_address, opts.dac_command)
-        writer = plan_writer(
-            opts.rate_hz,
-            fmt,
-            bus_hz=opts.bus_hz,
-            sys_clock_hz=int(opts.sys_clock_hz or 0),
-            rate_tolerance_ppm=opts.rate_tolerance_ppm,
-        )
-        layout = I2cDacLayout(fmt)
-        clock = writer.clock
-        spw = 1
-        per_word = Fraction(1, layout.words_per_update)
-    elif opts.output == "pwm":
-        pwm_plan = plan_pwm(
-            opts.rate_hz,
-            sys_clock_hz=int(opts.sys_clock_hz or 0),
-            min_carrier_hz=opts.min_carrier_hz,
-            tolerance_ppm=opts.rate_tolerance_ppm,
-        )
-        if pwm_plan.levels - 1 > 0xFFFF:
-            raise OptionError(
-                f"the plan's TOP {pwm_plan.top} leaves compare values above 65535; ask for "
-                "a higher --rate-hz or --min-carrier-hz",
-                field="min_carrier_hz",
-            )
-        scale = CodeScale.for_levels(pwm_plan.levels)
-        if opts.idle_code > scale.top:
-            raise OptionError(
-                f"must be 0..{scale.top} for this slice's {pwm_plan.levels} levels, got "
-                f"{opts.idle_code}",
-                field="idle_code",
-            )
-        setup = PwmSetup(pwm_plan, opts.out_base, stereo=opts.stereo, chip=opts.target[:6])
-        clock = pwm_plan
-        if opts.stereo:  # one word a frame: A in bits 15:0, B in 31:16
-            layout = PwmStereoLayout()
-            spw = per_word = 1
-        else:
-            # compare values are 16 bits: two to a word, the first in bits 15:0
-            # (little-endian halfwords, the order 16-bit DMA transfers read them)
-            layout = WordLayout(16, shift_right=True, per_word=2)
-            spw = per_word = 2
-    elif opts.output == "i2s":
-        layout = I2sLayout(opts.bits, stereo=opts.stereo)
-        spw = 1
-        clock = plan_i2s(
-            opts.rate_hz,
-            sys_clock_hz=int(opts.sys_clock_hz or 0),
-            slot_bits=STREAM_SLOT_BITS,
-            tolerance_ppm=opts.rate_tolerance_ppm,
-        ).clock
-        per_word = Fraction(1, layout.words_per_frame)
-    else:  # one ladder, or two side by side (stereo) written by one OUT
-        layout = (StereoLadderLayout if opts.stereo else WordLayout)(
-            opts.pins,
-            shift_right=opts.shift == "right",
-            per_word=opts.samples_per_word,
-            msb_high=opts.pin_order == "msb-high",
-            invert=opts.invert,
-        )
-        spw = per_word = layout.samples_per_word
-        variant = _program_variant(opts, spw)
-        clock = plan_clock(
-            opts.rate_hz,
-            sys_clock_hz=int(opts.sys_clock_hz or 0),
-            tolerance_ppm=opts.rate_tolerance_ppm,
-            min_cycles=min_cycles(variant),
-            max_cycles=max_cycles(variant, spw, opts.pins),
-        )
+    part = get_output(opts.output).plan(opts, ident)
+    layout, clock, spw, per_word = part.layout, part.clock, part.samples_per_word, part.per_word
     rate = float(clock.achieved_rate_hz)
-    # I2S idles at silence: the fades are the whole way in and out, no ramp from idle.
-    ramp = 0 if opts.output == "i2s" else round(opts.ramp_ms * 1e-3 * rate)
+    # An output that idles at silence (I2S) has no ramp from idle: its fades are the whole
+    # way in and out.
+    ramp = round(opts.ramp_ms * 1e-3 * rate) if part.ramps else 0
     if callable(frames):
         frames = frames(rate, spw)
     if rate_in_hz is None:
@@ -473,55 +376,14 @@ def plan_stream(
         )
     shaper = _shaper_for(opts, rate, band)
     predicted = predict_noise(shaper, rate, band_hz=band, weighting_kind=opts.weighting)
-    program: Program | None
-    sm: StateMachineConfig | None
-    if not isinstance(clock, ClockPlan):  # a PWM slice: no state machine
-        program, sm = None, None
-    elif isinstance(layout, I2cDacLayout):
-        program = writer_program(name=f"{ident}_i2c")
-        sm = i2c_state_machine(
-            program,
-            clock,
-            sda_pin=opts.out_base,
-            scl_pin=int(opts.clock_pin or 0),
-            gpio_base=opts.gpio_base,
-        )
-    elif isinstance(layout, I2sLayout):
-        program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
-        sm = i2s_state_machine(
-            program,
-            layout,
-            clock,
-            data_pin=opts.out_base,
-            clock_pin=int(opts.clock_pin or 0),
-            gpio_count=int(opts.gpio_count or 0),
-            gpio_base=opts.gpio_base,
-        )
-    else:
-        assert isinstance(layout, WordLayout)
-        program = ladder_program(
-            opts.pins,
-            clock.cycles_per_sample,
-            variant=variant,
-            samples_per_word=spw,
-            name=f"{ident}_out",
-        )
-        sm = state_machine_config(
-            program,
-            layout,
-            clock,
-            out_base=opts.out_base,
-            gpio_count=int(opts.gpio_count or 0),
-            gpio_base=opts.gpio_base,
-        )
     return StreamPlan(
         ident,
         opts,
         levels,
         clock,
         layout,
-        program,
-        sm,
+        part.program,
+        part.sm,
         shaper,
         band,
         predicted,
@@ -531,9 +393,9 @@ def plan_stream(
         budget,
         memory,
         max(1, blk),
-        scale,
-        setup,
-        writer,
+        part.scale,
+        part.setup,
+        part,
     )
 
 
@@ -730,19 +592,21 @@ def process(
         for k in range(nch)
     ]
     scale = qs[0].scale
-    idle1 = opts.idle_code if isinstance(lay, WordLayout) else idle  # one channel's
+    part = plan.part
+    assert part is not None
+    idle1 = part.channel_idle
 
     def merge(parts: list[np.ndarray]) -> np.ndarray:
-        """One channel's codes, or the channels' interleaved (frames for two ladders)."""
+        """One channel's codes, or the channels' interleaved (the output's frames)."""
         if nch == 1:
             return parts[0]
-        if isinstance(lay, StereoLadderLayout):
-            return lay.frames(parts[0], parts[1])
+        if part.interleave is not None:
+            return part.interleave(parts)
         return np.stack(parts, axis=1).reshape(-1)
 
     ramp1 = idle_ramp(idle1, opts.bits, plan.ramp_samples, mid=scale.half).astype(scale.dtype)
     ramp = merge([ramp1] * nch)
-    code_bits = lay.bits if isinstance(lay, WordLayout) else opts.bits
+    code_bits = part.code_bits
     kept: list[np.ndarray] = []
 
     def quantised() -> Iterator[np.ndarray]:
@@ -759,15 +623,15 @@ def process(
 
     if opts.loop:
         out.codes = Codes(np.concatenate(list(quantised())), code_bits)
-        if isinstance(lay, I2sLayout):
-            # I2S idles at silence, so a loop needs no ramps: no intro, and an outro of
-            # one silent frame for the state machine to end on.
+        if not part.ramps:
+            # An output idling at silence (I2S) needs no ramps around a loop: no intro,
+            # and an outro of one silent frame for the state machine to end on.
             frames = len(out.codes) // nch
             out.packed = Packed(lay.pack_codes(out.codes.codes), lay, frames, idle)  # type: ignore[arg-type]
             silent = lay.pack_codes(np.full(nch, idle, scale.dtype))
             out.intro = Packed(np.zeros(0, np.uint32), lay, 0, idle)  # type: ignore[arg-type]
             out.outro = Packed(silent, lay, 1, idle)  # type: ignore[arg-type]
-        elif isinstance(lay, PwmStereoLayout | I2cDacLayout):
+        elif part.whole_frames:
             frames = len(out.codes) // nch
             out.packed = Packed(lay.pack_codes(out.codes.codes), lay, frames, idle)  # type: ignore[arg-type]
             up = ramp.reshape(-1, nch)[:, 0]
@@ -782,13 +646,12 @@ def process(
         # sample closes it, a step no larger than the one from idle into its start.
         tail1 = ramp1[::-1] if ramp1.size else np.full(1, idle1, scale.dtype)
         tail = merge([tail1] * nch)
-        split = lay.channels_of if isinstance(lay, StereoLadderLayout) else None
-        steps = _StepTracker(idle1, nch, split)
+        steps = _StepTracker(idle1, nch, part.split)
         blocks = steps.watch(_chain(ramp, quantised(), tail))
-        if isinstance(lay, WordLayout):
-            words = list(pack_blocks(blocks, lay, pad_code=idle))
-        else:  # every frame is whole words
+        if part.whole_frames:
             words = [lay.pack_codes(b) for b in blocks]
+        else:  # samples several to a word, packed across the blocks
+            words = list(pack_blocks(blocks, lay, pad_code=idle))
         out.max_step = steps.largest()
         n = ramp1.size + tail1.size + out.audio_samples
         flat = np.concatenate(words) if words else np.zeros(0, np.uint32)
@@ -890,7 +753,8 @@ def finish(
     source : dict, optional
         Provenance of the samples (file name, SHA-256, rate, channels, frames).
     """
-    opts = plan.options
+    opts, part = plan.options, plan.part
+    assert part is not None
     total = done.packed.words.size + sum(
         p.words.size for p in (done.intro, done.outro) if p is not None
     )
@@ -915,7 +779,7 @@ def finish(
         "audio_samples": done.audio_samples,
         "ramp_samples": plan.ramp_samples,
         "loop_rate_adjust_ppm": round(done.loop_rate_ppm, 6),
-        "program_variant": plan.program.variant if plan.program else f"pwm-{plan.pwm.plan.pacing}",  # type: ignore[union-attr]
+        "program_variant": plan.output.variant(part),
         "resampler": {
             "passband_hz": spec.passband_hz,
             "stopband_hz": spec.stopband_hz,
@@ -953,31 +817,9 @@ def finish(
             stats.setdefault("warnings", []).append(
                 f"{sys_hz} Hz is above the chip's rated {rated} Hz: at your own risk"
             )
-    if plan.pwm is not None:
-        stats["pwm"] = {**plan.pwm.plan.to_dict(), **plan.pwm.to_dict()}
-    if plan.i2c is not None:
-        lay_i2c = plan.layout
-        assert isinstance(lay_i2c, I2cDacLayout)
-        stats["i2c_dac"] = {
-            **plan.i2c.to_dict(),
-            **lay_i2c.fmt.to_dict(),
-            "sda_pin": opts.out_base,
-            "scl_pin": opts.clock_pin,
-        }
-        if abs(plan.i2c.error_ppm) > opts.rate_tolerance_ppm:  # the divider is always whole
-            stats.setdefault("warnings", []).append(
-                f"the I2C update rate is {plan.i2c.error_ppm:+.1f} ppm off the request (the "
-                "writer's divider is a whole number); 'clock --find-sys-clock --output "
-                "i2c-dac' finds system clocks where it is exact"
-            )
-    if isinstance(plan.layout, I2sLayout) and isinstance(plan.clock, ClockPlan):
-        stats["i2s"] = {
-            **I2sPlan(plan.clock, STREAM_SLOT_BITS).to_dict(),
-            "frame_format": opts.frame_format,
-            "data_pin": opts.out_base,
-            "bit_clock_pin": opts.clock_pin,
-            "word_select_pin": int(opts.clock_pin or 0) + 1,
-        }
+    own = plan.output.stats(part, opts)
+    stats.setdefault("warnings", []).extend(own.pop("warnings", []))
+    stats.update(own)
     warnings = _shaper_warnings(
         opts,
         str(plan.shaper.to_dict().get("name", "none")),
@@ -1004,7 +846,7 @@ def finish(
         outro=done.outro,
         budget=budget,
         levels_volts=None if plan.levels is None else plan.levels.volts,
-        pwm=plan.pwm,
+        setup=plan.setup,
     )
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step

@@ -74,35 +74,11 @@ def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
     spec : WaveTableSpec
         Kind, size, width, level, frequencies and the clock they are planned for.
     """
-    from ladderpack.clock import plan_clock
-    from ladderpack.waves import phase_increments, truncation_spur_dbc, wavetable
+    from ladderpack.outputs import get_output
+    from ladderpack.waves import phase_increments, truncation_spur_dbc
 
-    sys_hz = int(spec.sys_clock_hz or 0)
-    coding = "ladder"
-    if spec.output == "pwm":
-        from ladderpack.outputs.pwm import plan_pwm
-
-        pwm = plan_pwm(spec.rate_hz, sys_clock_hz=sys_hz, tolerance_ppm=spec.rate_tolerance_ppm)
-        rate = float(pwm.achieved_rate_hz)
-        tab = wavetable(
-            spec.kind, spec.table_bits, bits=16, level_dbfs=spec.level_dbfs, levels=pwm.levels
-        )
-        coding = f"pwm compare values 0..{pwm.top + 1} (TOP {pwm.top}, {pwm.levels} levels)"
-        width = 16
-    else:
-        cycles = 128 if spec.output == "i2s" else None  # an I2S frame: 128 machine cycles
-        plan = plan_clock(
-            spec.rate_hz,
-            sys_clock_hz=sys_hz,
-            tolerance_ppm=spec.rate_tolerance_ppm,
-            **({"min_cycles": cycles, "max_cycles": cycles} if cycles else {}),
-        )
-        rate = float(plan.achieved_rate_hz)
-        tab = wavetable(spec.kind, spec.table_bits, bits=spec.bits, level_dbfs=spec.level_dbfs)
-        width = spec.bits
-        if spec.output == "i2s":  # two's complement: the offset code less mid-scale
-            tab = tab.astype(np.int64) - (1 << (spec.bits - 1))
-            coding = f"i2s samples, signed {spec.bits}-bit"
+    wave = get_output(spec.output).wave_table(spec)
+    rate, tab, width = wave.rate_hz, wave.table, wave.bits
     incs = phase_increments(list(spec.freqs_hz), rate)
     spur = truncation_spur_dbc(spec.table_bits)
     ident = asset_identifier(name)
@@ -115,7 +91,8 @@ def wave_table_files(name: str, spec: WaveTableSpec) -> TableResult:
         rate_hz=rate,
         spur_dbc=spur,
         kind=spec.kind,
-        coding=coding,
+        coding=wave.coding,
+        signed=wave.signed,
     )
     return TableResult(
         ident,
@@ -175,7 +152,7 @@ def i2c_dac_table_files(name: str, spec: I2cDacTableSpec) -> TableResult:
     spec : I2cDacTableSpec
         The voltages or waveform, the reference, the address and the command.
     """
-    from ladderpack.outputs.i2c_dac import I2cDacFormat, codes_for_volts
+    from ladderpack.outputs.i2c_dac import I2cDacFormat, codes_for_volts, table_files
 
     fmt = I2cDacFormat(spec.dac_address, spec.dac_command)
     if spec.volts is not None:
@@ -200,5 +177,5 @@ def i2c_dac_table_files(name: str, spec: I2cDacTableSpec) -> TableResult:
     # what the DAC really outputs for each code (Vref x code / 4096), not what was asked
     volts = spec.vref_volts * codes / 4096
     ident = asset_identifier(name)
-    files = emit_table.render_i2c_dac_files(ident, fmt, codes, volts, spec.vref_volts, what)
+    files = table_files(ident, fmt, codes, volts, spec.vref_volts, what)
     return TableResult(ident, files, 12, int(codes.size), distinct_codes=int(np.unique(codes).size))

@@ -17,6 +17,7 @@ from fractions import Fraction
 import pytest
 
 from ladderpack.clock import find_sys_clocks, pll_settings
+from ladderpack.outputs import get_output
 
 RATES = [8000, 11025, 16000, 22050, 32000, 44100, 48000, 96000]
 XOSC = 12_000_000
@@ -57,7 +58,9 @@ def test_the_sdk_default_clocks() -> None:
 @pytest.mark.parametrize("output", ["ladder", "i2s", "pwm"])
 @pytest.mark.parametrize("rate", RATES)
 def test_found_clocks_make_the_rate(rate: int, output: str) -> None:
-    found = find_sys_clocks(rate, output=output, min_hz=48_000_000, max_hz=133_000_000, limit=5)
+    # each output's own planner, from its registered object
+    planner = get_output(output).clock_planner(rate, {})
+    found = find_sys_clocks(rate, planner=planner, min_hz=48_000_000, max_hz=133_000_000, limit=5)
     assert found, (rate, output)
     # any exact clock in range with a whole number of system clocks per sample (per frame
     # of 128 state-machine cycles for I2S) must be found first
@@ -91,7 +94,7 @@ def test_44k1_cannot_be_exact_from_a_12_mhz_crystal() -> None:
     # 44100 = 2^2 3^2 5^2 7^2; every PLL output is 12 MHz x FBDIV / (P1 P2), whose only 3
     # is the crystal's one: no whole number of clocks per sample, so the smallest error
     # comes first
-    found = find_sys_clocks(44100, output="i2s")
+    found = find_sys_clocks(44100, planner=get_output("i2s").clock_planner(44100, {}))
     assert all(c.plan.error_ppm != 0 for c in found)
     errors = [abs(c.plan.error_ppm) for c in found]
     assert errors == sorted(errors)
@@ -126,7 +129,6 @@ def test_clocks_for_the_i2c_writer(rate: int, bus: int) -> None:
     found = find_sys_clocks(
         rate,
         planner=lambda f: plan_writer(rate, fmt, bus_hz=bus, sys_clock_hz=f),
-        output="i2c",
         limit=4,
     )
     assert found

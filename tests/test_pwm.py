@@ -223,7 +223,7 @@ def test_stream_quantises_to_the_slice_levels() -> None:
 
     asset = stream_tone("sine", name="p", output="pwm", seconds=0.02, level_dbfs=0.0)
     plan = plan_pwm(22050)
-    assert asset.plan == plan and asset.pwm is not None and asset.pwm.slice == 0
+    assert asset.plan == plan and asset.setup is not None and asset.setup.slice == 0
     codes = asset.codes.codes.astype(int) if asset.codes is not None else None
     assert codes is not None
     # compare values 0..TOP+1 (duty 0 to 100 %, datasheet 4.5.2.2), two 16-bit values a

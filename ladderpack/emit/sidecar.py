@@ -7,34 +7,13 @@ from collections.abc import Mapping
 
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
-from ladderpack.outputs.i2s import i2s_entry
+from ladderpack.outputs import get_output
 from ladderpack.reading import json_text
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "render"]
 
 FORMAT = "ladderpack-stream"
 FORMAT_VERSION = 1
-
-
-def _program(asset: StreamAsset) -> dict[str, object]:
-    """The state machine's program and registers, or a PWM stream's slice."""
-    if asset.program is None or asset.sm is None:
-        return {"pwm": asset.pwm.to_dict() if asset.pwm is not None else None}
-    return {
-        "program": {
-            "name": asset.program.name,
-            "source": asset.program.source(),
-            "words": list(asset.program.words),
-            "wrap_target": asset.program.wrap_target,
-            "wrap": asset.program.wrap,
-            **(
-                {"entry": i2s_entry(asset.program)}
-                if asset.program.variant.startswith("i2s")
-                else {}
-            ),
-        },
-        "state_machine": asset.sm.to_dict(),
-    }
 
 
 def render(
@@ -66,7 +45,7 @@ def render(
         "options": asset.options,
         "clock": asset.plan.to_dict(),
         "layout": asset.packed.layout.to_dict(),
-        **_program(asset),
+        **get_output(asset.output).sidecar_blocks(asset),
         "stream": {
             "bits": asset.packed.layout.bits,
             "idle_code": asset.idle_code,

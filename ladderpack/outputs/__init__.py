@@ -1,10 +1,151 @@
-"""Output systems other than the resistor ladder: how samples become hardware settings.
+"""The output systems: how samples leave the chip, one module and one object each.
 
-One module per output system.  Each plans the clocks that make the sample rate exact
-and states the resolution that follows; the ladder's own plan lives in
-:mod:`ladderpack.clock` and :mod:`ladderpack.pio`.
+Every output system (an R-2R ladder, an I2S DAC, a PWM slice, an I2C DAC) is one
+module in this package defining one object, ``OUTPUT``, that implements
+:class:`ladderpack.outputs.base.Output`: its plan (clock, layout, program or peripheral
+set-up), its packing, its files, its sidecar block, its summary and its preview model.
+The pipeline (:mod:`ladderpack.stream`, :mod:`ladderpack.bundle`,
+:mod:`ladderpack.preview`, the command line) asks the registry for the object by the
+stream's ``output`` option and never branches on the output's kind itself.
+
+:data:`REGISTRY` is the list of output systems.  It names each module without importing
+it, so the command line can list the outputs (``--output``'s choices) before numpy is
+loaded; :func:`get_output` imports a module the first time its object is asked for.
+
+Adding an output: write ``ladderpack/outputs/<name>.py`` with its ``OUTPUT`` object
+(docs/architecture.md, "How to add an output"), and add one line here.
+
+Examples
+--------
+>>> names()
+('ladder', 'i2s', 'pwm', 'i2c-dac')
+>>> get_output("i2s").name
+'i2s'
 """
 
 from __future__ import annotations
 
-__all__ = ["i2s", "pwm"]
+import importlib
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+from ladderpack.errors import OptionError
+
+if TYPE_CHECKING:  # pragma: no cover - types only
+    from ladderpack.outputs.base import Output
+
+__all__ = [
+    "REGISTRY",
+    "REGISTRY_BY_NAME",
+    "Entry",
+    "entry",
+    "get_output",
+    "names",
+    "takers",
+    "wave_table_outputs",
+]
+
+
+@dataclass(frozen=True)
+class Entry:
+    """One line of the registry: what is known of an output before its module loads.
+
+    Attributes
+    ----------
+    name : str
+        The output's name on the command line, in manifests and sidecars.
+    module : str
+        The module defining its ``OUTPUT`` object.
+    summary : str
+        One phrase for ``--output``'s help: what the output drives, on which pins.
+    takes : frozenset of str
+        The option groups it takes besides the options every output takes (each
+        stream option names its group in its metadata: ``OptionInfo.group``).
+    wave_tables : bool
+        Whether ``table wave`` makes tables in its codes.
+    named_in_records : bool
+        Whether sidecars and fingerprints record the ``output`` key (a ladder's do not:
+        its records are those of the versions before other outputs existed).
+    """
+
+    name: str
+    module: str
+    summary: str
+    takes: frozenset[str]
+    wave_tables: bool = True
+    named_in_records: bool = True
+
+
+#: The output systems, in the order ``--help`` lists them.
+REGISTRY: tuple[Entry, ...] = (
+    Entry(
+        "ladder",
+        "ladderpack.outputs.ladder",
+        "an R-2R ladder on N GPIOs (two ladders for stereo)",
+        frozenset({"width", "ladder", "level", "stereo"}),
+        named_in_records=False,
+    ),
+    Entry(
+        "i2s",
+        "ladderpack.outputs.i2s",
+        "an I2S DAC or amplifier on three GPIOs",
+        frozenset({"width", "stereo", "serial-clock", "i2s"}),
+    ),
+    Entry(
+        "pwm",
+        "ladderpack.outputs.pwm",
+        "a PWM slice on one GPIO, through an RC filter",
+        frozenset({"level", "stereo", "pwm"}),
+    ),
+    Entry(
+        "i2c-dac",
+        "ladderpack.outputs.i2c_dac",
+        "a 12-bit I2C DAC, one bus write per sample, on two GPIOs",
+        frozenset({"width", "level", "serial-clock", "i2c"}),
+        wave_tables=False,
+    ),
+)
+
+#: The registry by name.
+REGISTRY_BY_NAME = {e.name: e for e in REGISTRY}
+
+
+def names() -> tuple[str, ...]:
+    """The registered outputs' names, in registry order."""
+    return tuple(e.name for e in REGISTRY)
+
+
+def wave_table_outputs() -> tuple[str, ...]:
+    """The outputs ``table wave`` makes tables for."""
+    return tuple(e.name for e in REGISTRY if e.wave_tables)
+
+
+def takers(group: str) -> tuple[str, ...]:
+    """The outputs that take the options of `group`, in registry order."""
+    return tuple(e.name for e in REGISTRY if group in e.takes)
+
+
+def entry(name: str) -> Entry:
+    """The registry entry of output `name`.
+
+    Raises
+    ------
+    OptionError
+        For a name no output has (``field="output"``).
+    """
+    found = REGISTRY_BY_NAME.get(name)
+    if found is None:
+        raise OptionError(f"must be one of {', '.join(names())}, got {name!r}", field="output")
+    return found
+
+
+def get_output(name: str) -> Output:
+    """The object of output `name` (its module is imported the first time).
+
+    Raises
+    ------
+    OptionError
+        For a name no output has.
+    """
+    out: Output = importlib.import_module(entry(name).module).OUTPUT
+    return out

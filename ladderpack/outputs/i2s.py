@@ -18,28 +18,62 @@ an integer divider within the tolerance, as for the ladder.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 
+from ladderpack._version import __version__
+from ladderpack.asset import StreamAsset
 from ladderpack.clock import ClockPlan, plan_clock
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, I2S_SAMPLE_BITS
 from ladderpack.defaults import FRAME_FORMATS as _FRAME_FORMATS
+from ladderpack.emit import Content, binary, player_i2s
+from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
+from ladderpack.emit.micropython import (
+    _literal,
+    feed_methods,
+    mp_program_body,
+    pio_registers_text,
+    set_clock_text,
+)
+from ladderpack.emit.names import comment_safe
 from ladderpack.errors import OptionError
+from ladderpack.options import StreamOptions, WaveTableSpec
+from ladderpack.outputs.base import (
+    ClockReport,
+    OutputPlan,
+    PreviewModel,
+    SummaryLines,
+    WaveTable,
+    cycles_divider,
+    state_machine_blocks,
+)
 from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
+from ladderpack.targets import get_target, target_of
+from ladderpack.waves import wavetable
 
 __all__ = [
     "FRAME_FORMATS",
+    "OUTPUT",
     "SAMPLE_BITS",
     "SLOT_BITS",
     "I2sLayout",
+    "I2sOutput",
     "I2sPlan",
     "i2s_entry",
     "i2s_program",
     "i2s_state_machine",
     "plan_i2s",
+    "render_header",
+    "render_micropython",
+    "render_pio",
+    "render_source",
+    "render_source_chunks",
 ]
+
 
 #: Channel slot widths: 16-bit slots carry 16-bit samples, 32-bit slots 16, 24 or 32.
 SLOT_BITS = (16, 32)
@@ -420,3 +454,644 @@ def i2s_state_machine(
         sideset_base=clock_pin,
         sideset_count=2,
     )
+
+
+def _layout(asset: StreamAsset) -> I2sLayout:
+    lay = asset.packed.layout
+    assert isinstance(lay, I2sLayout)
+    return lay
+
+
+def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
+    p, sm, lay = asset.clock, asset.state_machine, _layout(asset)
+    rate = p.achieved_rate_hz
+    frames = asset.sample_count
+    return [
+        ("BITS", f"{lay.bits}u", "sample width, bits (in 32-bit slots)"),
+        ("FRAME_COUNT", f"{frames}u", "frames (left and right sample) in the stream"),
+        ("WORD_COUNT", f"{asset.word_count}u", "32-bit FIFO words"),
+        ("WORDS_PER_FRAME", f"{lay.words_per_frame}u", "1: left in bits 31:16; 2: a word a slot"),
+        ("STEREO", "1" if lay.stereo else "0", "0: the mono sample is sent in both slots"),
+        ("LOOP", "1" if asset.loop else "0", "1: a loop, with an outro of one silent frame"),
+        ("OUTRO_WORD_COUNT", f"{0 if asset.outro is None else asset.outro.words.size}u", ""),
+        ("REQUESTED_RATE_HZ", f"{float(p.requested_rate_hz)!r}", "frame rate asked for"),
+        ("RATE_HZ", f"{float(rate)!r}", "achieved frame (sample) rate"),
+        ("RATE_NUM", f"{rate.numerator}ull", "achieved rate = RATE_NUM / RATE_DEN Hz"),
+        ("RATE_DEN", f"{rate.denominator}ull", ""),
+        ("BIT_CLOCK_HZ", f"{float(rate * 64)!r}", "64 bit clocks per frame"),
+        ("SYS_CLOCK_HZ", f"{p.sys_clock_hz}u", "system clock the plan assumes"),
+        ("CLKDIV_INT", f"{p.div_int}u", "clock divider, integer part (65536 is 0 in the register)"),
+        ("CLKDIV_FRAC", f"{p.div_frac}u", "clock divider, fraction in 1/256 (not 0: jitter)"),
+        ("CYCLES_PER_FRAME", f"{p.cycles_per_sample}u", "state-machine cycles per frame"),
+        ("DATA_PIN", f"{sm.out_base}u", "serial data GPIO"),
+        ("CLOCK_PIN", f"{sm.sideset_base}u", "bit clock GPIO; word select on the next"),
+        ("GPIO_BASE", f"{sm.gpio_base}u", "PIO GPIO base (16 for GPIO 32 and above)"),
+        ("PROGRAM_LENGTH", f"{len(asset.pio_program.instructions)}u", "instructions"),
+        ("PROGRAM_WRAP_TARGET", f"{asset.pio_program.wrap_target}u", "relative to load offset"),
+        ("PROGRAM_WRAP", f"{asset.pio_program.wrap}u", "relative to load offset"),
+        ("PROGRAM_ENTRY", f"{i2s_entry(asset.pio_program)}u", "where execution starts"),
+        ("REG_CLKDIV", f"0x{sm.clkdiv:08X}u", "SMx_CLKDIV"),
+        ("REG_EXECCTRL", f"0x{sm.execctrl:08X}u", "SMx_EXECCTRL, program at offset 0"),
+        ("REG_SHIFTCTRL", f"0x{sm.shiftctrl:08X}u", "SMx_SHIFTCTRL"),
+        ("REG_PINCTRL", f"0x{sm.pinctrl:08X}u", "SMx_PINCTRL"),
+    ]
+
+
+def _init_macro(asset: StreamAsset) -> list[str]:
+    n, P = asset.name, asset.name.upper()
+    outro = f"{n}_outro_words" if asset.loop else "NULL"
+    fields = [
+        f"{n}_words",
+        f"{P}_WORD_COUNT",
+        outro,
+        f"{P}_OUTRO_WORD_COUNT",
+        f"{n}_program",
+        f"{P}_PROGRAM_LENGTH",
+        f"{P}_PROGRAM_WRAP_TARGET",
+        f"{P}_PROGRAM_WRAP",
+        f"{P}_PROGRAM_ENTRY",
+        f"{P}_DATA_PIN",
+        f"{P}_CLOCK_PIN",
+        f"({P}_CLKDIV_INT & 0xFFFFu)",
+        f"{P}_CLKDIV_FRAC",
+        f"{P}_BITS",
+        f"{P}_WORDS_PER_FRAME",
+        f"{P}_LOOP",
+        f"{P}_SYS_CLOCK_HZ",
+        f"{P}_GPIO_BASE",
+    ]
+    return init_macro("lp_i2s_stream_t", "ladderpack_i2s.h", f"{P}_I2S_INIT", fields)
+
+
+def render_header(asset: StreamAsset) -> str:
+    """Return the C header of an I2S stream."""
+    prefix = asset.name.upper()
+    guard = f"LADDERPACK_{prefix}_H"
+    lines = header_frame(asset, _defines(asset))
+    lines += pll_lines(asset)
+    lines += [
+        "",
+        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
+        f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
+    ]
+    if asset.loop:
+        lines.append(f"extern const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT];")
+    lines += ["", *_init_macro(asset), "", f"#endif /* {guard} */", ""]
+    return "\n".join(lines)
+
+
+def source_lines(asset: StreamAsset) -> Iterator[str]:
+    """The C source of an I2S stream, line by line."""
+    prefix = asset.name.upper()
+    lay = _layout(asset)
+    yield from _banner(asset).split("\n")
+    yield f'#include "{asset.name}.h"'
+    yield ""
+    yield f"/* Frames in FIFO order, two's complement, {lay.to_dict()['sample_order']};"
+    yield " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */"
+    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
+    yield from _array_lines(asset.packed.words, 8)
+    yield "};"
+    if asset.loop and asset.outro is not None:
+        yield ""
+        yield f"const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT] = {{"
+        yield from _array_lines(asset.outro.words, 8)
+        yield "};"
+    yield ""
+    variant = asset.pio_program.variant
+    yield f"/* State-machine program ({variant}; side-set: bit clock, word select):"
+    for ins in asset.pio_program.instructions:
+        yield f" *   {ins.text()}"
+    yield " */"
+    yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
+    yield from _array_lines(np.array(asset.pio_program.words), 4)
+    yield "};"
+
+
+def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
+    """The C source as byte chunks of about `chunk_chars`."""
+    return chunked(source_lines(asset), chunk_chars)
+
+
+def render_source(asset: StreamAsset) -> str:
+    """Return the C source of an I2S stream."""
+    return b"".join(render_source_chunks(asset)).decode()
+
+
+def render_pio(asset: StreamAsset) -> str:
+    """Return the ``.pio`` text: the program plus its configuration as comments."""
+    lay, p, sm = _layout(asset), asset.clock, asset.state_machine
+    clk = int(sm.sideset_base or 0)
+    notes = [
+        f"; Generated by ladderpack {__version__} from "
+        f"{comment_safe(asset.source.get('file', 'generated signal'))}. Do not edit.",
+        f"; I2S ({asset.pio_program.variant[4:]} frame): data on GPIO {sm.out_base}, bit clock on "
+        f"GPIO {clk} (side-set bit 0), word select on GPIO {clk + 1} (side-set bit 1)",
+        f"; {lay.bits}-bit samples in 32-bit slots, {lay.to_dict()['sample_order']}; out shift "
+        "left, autopull at 32 bits, TX FIFO joined (8 deep)",
+        f"; start at address {i2s_entry(asset.pio_program)} (loads the bit counter)",
+        f"; clock divider {p.div_int} + {p.div_frac}/256 at {p.sys_clock_hz} Hz, "
+        f"{p.cycles_per_sample} cycles per frame -> {float(p.achieved_rate_hz):.6f} Hz",
+    ]
+    return "\n".join(notes) + "\n\n" + asset.pio_program.source()
+
+
+_TEMPLATE = """\
+# Generated by ladderpack {version} from {source}.
+# Do not edit: regenerate it instead.
+#
+# Wiring: I2S data on GPIO {data_pin}, bit clock on GPIO {clock_pin}, word select (LR clock)
+# on GPIO {ws_pin}; the DAC's or amplifier's ground to the board's. Check its logic level
+# (3.3 V here) and supply limits. A class-D amplifier drives a speaker with real power:
+# start at a low gain, mind the speaker's rating, and leave mains-powered gear to
+# qualified people.
+#
+# Use:  import {name}; {name}.play()            (blocks until the stream ends)
+#       p = {name}.Player(); p.play(loop=True)  (a loop runs until p.stop() or Ctrl-C)
+import array
+
+import rp2
+from machine import Pin, freq, mem32
+
+try:
+    from typing import TYPE_CHECKING
+except ImportError:
+    TYPE_CHECKING = False  # type: ignore[misc]  # MicroPython has no typing module
+if TYPE_CHECKING:
+    from rp2.asm_pio import *  # noqa: F403  (names the assembler provides)
+
+NAME = {name!r}
+BITS = {bits}  # sample width, in 32-bit slots, two's complement
+FRAME_COUNT = {frames}
+WORD_COUNT = {words}
+WORDS_PER_FRAME = {wpf}  # 1: left in bits 31:16, right in 15:0; 2: one word a slot
+RATE_HZ = {rate!r}
+SYS_CLOCK_HZ = {sys_clock}
+CLKDIV_REG = 0x{clkdiv:08X}
+CYCLES_PER_FRAME = {cycles}
+DATA_PIN = {data_pin}
+CLOCK_PIN = {clock_pin}  # word select on CLOCK_PIN + 1
+GPIO_BASE = {gpio_base}
+ENTRY = {entry}  # the program starts at its last instruction (it loads the bit counter)
+LOOP = {loop}
+BIN_FILE = {bin_file!r}
+CHUNK_WORDS = {chunk_words}
+{words_literal}
+OUTRO = {outro}
+FADE_FRAMES = 64  # a stream stopped early fades out over this many frames
+
+{registers}
+
+
+@rp2.asm_pio(
+    out_init=rp2.PIO.OUT_LOW,
+    sideset_init=[rp2.PIO.OUT_LOW, rp2.PIO.OUT_LOW],
+    out_shiftdir=rp2.PIO.SHIFT_LEFT,
+    autopull=True,
+    pull_thresh=32,
+    fifo_join=rp2.PIO.JOIN_TX,
+)
+def i2s_program() -> None:
+{body}
+
+
+def _fade(left: int, right: int) -> "array.array[int]":
+    \"\"\"Frames fading two slot values (samples in the top BITS of a word) to silence.\"\"\"
+    import math
+
+    keep = 0xFFFFFFFF ^ ((1 << (32 - BITS)) - 1) if BITS < 32 else 0xFFFFFFFF
+    sl = left - (1 << 32) if left & 0x80000000 else left
+    sr = right - (1 << 32) if right & 0x80000000 else right
+    out = array.array("I")
+    for k in range(1, FADE_FRAMES + 1):
+        w = (1 + math.cos(math.pi * k / FADE_FRAMES)) / 2
+        vl = int(sl * w) & keep
+        vr = int(sr * w) & keep
+        if WORDS_PER_FRAME == 1:
+            out.append(vl | (vr >> 16))
+        else:
+            out.append(vl)
+            out.append(vr)
+    return out
+
+
+class Player:
+    \"\"\"Plays the stream on state machine sm_id, fed by DMA from two buffers in turn.
+
+    A stream ends on a silent frame; stop() or Ctrl-C on a stream fades out at once from
+    the frame last sent; stop() on a loop finishes the current pass.
+    \"\"\"
+
+    def __init__(self, sm_id: int = 0, path: str = BIN_FILE, chunk_words: int = CHUNK_WORDS):
+        if freq() != SYS_CLOCK_HZ:
+            raise ValueError(
+                "system clock is %d Hz, the stream was planned for %d Hz: remake it with "
+                "--sys-clock-hz %d (or call machine.freq(%d) first)"
+                % (freq(), SYS_CLOCK_HZ, freq(), SYS_CLOCK_HZ)
+            )
+        self.path = path
+        if GPIO_BASE:
+            rp2.PIO(sm_id // 4).gpio_base(Pin(GPIO_BASE))  # type: ignore[attr-defined]
+        self.sm = rp2.StateMachine(sm_id, i2s_program, freq=SYS_CLOCK_HZ // 256,
+                                   out_base=Pin(DATA_PIN), sideset_base=Pin(CLOCK_PIN))
+        self.pio = _PIO_BASE[sm_id // 4]
+        self.idx = sm_id % 4
+        self.reg = self.pio + _SM_STRIDE * self.idx  # add an SM0 offset
+        mem32[self.reg + _SM0_CLKDIV] = CLKDIV_REG  # the exact 16.8 divider
+        self.origin = mem32[self.reg + _SM0_ADDR]  # the program's load address
+        self.txf = self.pio + _TXF0 + _TXF_STRIDE * self.idx
+        self.dma = rp2.DMA()
+        self.ctrl = self.dma.pack_ctrl(size=2, inc_read=True, inc_write=False,
+                                       treq_sel=_DREQ_PIO_TX0[sm_id // 4] + self.idx)
+        self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
+        self.running = False
+        self.sent = 0  # words handed to the DMA before the current transfer
+        self.cur_n = 0  # words of the current transfer
+
+    def _send(self, buf: "array.array[int]", count: int) -> None:
+        while self.dma.active():
+            pass
+        if self.cur_n:
+            self.sent += self.cur_n
+        self.cur, self.cur_n = buf, count
+        self.dma.config(read=buf, write=self.txf, count=count, ctrl=self.ctrl, trigger=True)
+
+    def _drained(self) -> bool:
+        if self.dma.active() or self.sm.tx_fifo():
+            return False
+        # autopull stalls on the empty FIFO once the last word has left the shift register
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
+
+    def _start(self) -> None:
+        self.sm.active(0)
+        self.sm.restart()
+        mem32[self.reg + _SM0_INSTR] = self.origin + ENTRY  # jmp to the entry
+
+    def _go(self) -> None:
+        mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
+        self.sm.active(1)
+
+    def stop(self) -> None:
+        \"\"\"Ask a running play() to finish (safe to call from an interrupt handler).\"\"\"
+        self.running = False
+
+    def _fade_out(self) -> None:
+        # where the stream is: the words the DMA has handed to the FIFO
+        done = self.cur_n
+        if self.dma.active():
+            self.dma.active(0)
+            done = self.cur_n - self.dma.count  # type: ignore[attr-defined]
+        sent = self.sent + done
+        if 0 < sent < WORD_COUNT:
+            frame = (sent - 1) // WORDS_PER_FRAME
+            if WORDS_PER_FRAME == 1:
+                w = self._word(frame)
+                left, right = w & 0xFFFF0000, (w << 16) & 0xFFFFFFFF
+            else:
+                left, right = self._word(2 * frame), self._word(2 * frame + 1)
+                if sent % 2:
+                    self.sm.put(right)  # finish the frame the FIFO holds half of
+            for w in _fade(left, right):
+                self.sm.put(w)
+        while not self._drained():
+            pass
+
+    def _word(self, k: int) -> int:
+        if WORDS is not None:
+            return WORDS[k]
+        with open(self.path, "rb") as f:
+            f.seek(4 * k)
+            b = f.read(4)
+        return b[0] | b[1] << 8 | b[2] << 16 | b[3] << 24
+
+    def play(self, loop: bool = LOOP) -> None:
+        \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
+        last frame has left.\"\"\"
+        self.running = True
+        self.sent, self.cur_n = 0, 0
+        self._start()
+        try:
+            if WORDS is not None:
+                self._play_words(WORDS, loop)
+            else:
+                self._play_file(loop)
+            if not LOOP:
+                while self.dma.active():
+                    if not self.running:
+                        self._fade_out()
+                        return
+            while self.dma.active():
+                pass
+            if OUTRO is not None:
+                for w in OUTRO:
+                    self.sm.put(w)
+            while not self._drained():
+                pass
+        except KeyboardInterrupt:
+            self._fade_out()
+            raise
+        finally:
+            self.dma.active(0)
+            self.running = False
+
+{feed}
+    def close(self) -> None:
+        \"\"\"Release the DMA channel and the state machine.\"\"\"
+        self.dma.close()
+        self.sm.active(0)
+
+
+def play(sm_id: int = 0, loop: bool = LOOP) -> None:
+    \"\"\"Play the stream once (or loop until Ctrl-C), then release the hardware.\"\"\"
+    p = Player(sm_id)
+    try:
+        p.play(loop)
+    finally:
+        p.close()
+"""
+
+
+def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
+    """Return the MicroPython module of an I2S stream.
+
+    Parameters
+    ----------
+    asset : StreamAsset
+        The stream.
+    embed : bool
+        Embed the words as an ``array('I', ...)`` literal (short streams only).
+    """
+    lay, p, sm = asset.packed.layout, asset.clock, asset.state_machine
+    assert isinstance(lay, I2sLayout)
+    clock_pin = int(sm.sideset_base or 0)
+    words_literal = (
+        ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
+    )
+    return set_clock_after(
+        _TEMPLATE.format(
+            registers=pio_registers_text(target_of(asset.options)),
+            version=__version__,
+            source=comment_safe(asset.source.get("file", "generated signal")),
+            name=asset.name,
+            bits=lay.bits,
+            frames=asset.sample_count,
+            words=asset.word_count,
+            wpf=lay.words_per_frame,
+            rate=float(p.achieved_rate_hz),
+            sys_clock=p.sys_clock_hz,
+            clkdiv=sm.clkdiv,
+            cycles=p.cycles_per_sample,
+            data_pin=sm.out_base,
+            clock_pin=clock_pin,
+            ws_pin=clock_pin + 1,
+            gpio_base=sm.gpio_base,
+            entry=i2s_entry(asset.pio_program),
+            loop=asset.loop,
+            bin_file=f"{asset.name}.bin",
+            chunk_words=int(asset.options.get("chunk_words", 1024)),
+            words_literal=words_literal,
+            outro=_literal(asset.outro),
+            body="\n".join(mp_program_body(asset.pio_program)),
+            feed=feed_methods("self._fade_out()  # a stream stops at once, fading out"),
+        ),
+        asset,
+    )
+
+
+def set_clock_after(text: str, asset: StreamAsset) -> str:
+    """`text` with a ``set_clock()`` when the stream needs a clock other than the default."""
+    return text + set_clock_text(asset)
+
+
+# -- the registered object -------------------------------------------------------------
+
+
+def _lines(pins: tuple[int, ...]) -> str:
+    return (
+        f"the I2S lines (data GPIO {pins[0]}, bit clock GPIO {pins[1]}, word select GPIO {pins[2]})"
+    )
+
+
+def _pins(opts: StreamOptions) -> tuple[int, int, int]:
+    """Data, bit clock and word select (the GPIO after the bit clock)."""
+    bclk = int(opts.clock_pin if opts.clock_pin is not None else opts.out_base + 1)
+    return (opts.out_base, bclk, bclk + 1)
+
+
+class I2sOutput:
+    """An I2S DAC or amplifier: data by OUT, bit clock and word select by side-set."""
+
+    name = "i2s"
+
+    def default_bits(self) -> int:
+        """16 bits, the common DAC's sample."""
+        return 16
+
+    def check_bits(self, bits: int) -> None:
+        """16, 24 or 32 bits."""
+        if bits not in I2S_SAMPLE_BITS:
+            raise OptionError(f"an I2S sample is 16, 24 or 32 bits, got {bits}", field="bits")
+
+    def check_options(self, opts: StreamOptions) -> None:
+        """A 16, 24 or 32-bit sample; three distinct pins on the target, in one window."""
+        self.check_bits(opts.bits)
+        if opts.clock_pin is None:
+            object.__setattr__(opts, "clock_pin", opts.out_base + 1)
+        pins = _pins(opts)
+        if opts.out_base in pins[1:]:
+            raise OptionError(
+                f"the data pin GPIO {opts.out_base} is also the bit clock or word select "
+                f"(GPIO {pins[1]} and {pins[2]})",
+                field="clock_pin",
+            )
+        count = int(opts.gpio_count or 0)
+        if max(pins) >= count:
+            raise OptionError(
+                f"the I2S lines need GPIO {pins[0]} (data), {pins[1]} (bit clock) and "
+                f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}"
+                + get_target(opts.target).more_pins_hint(max(pins)),
+                field="clock_pin" if pins[2] >= count else "out_base",
+            )
+        self.gpio_base(opts)
+
+    def gpio_base(self, opts: StreamOptions) -> int:
+        """The PIO GPIO base reaching the three lines."""
+        pins = _pins(opts)
+        lo, hi = min(pins), max(pins)
+        return get_target(opts.target).gpio_window(
+            lo, hi - lo + 1, int(opts.gpio_count or 0), what=_lines(pins)
+        )
+
+    def recorded_options(self, opts: StreamOptions, recorded: dict[str, Any]) -> dict[str, Any]:
+        """The generic record."""
+        return recorded
+
+    def plan(self, opts: StreamOptions, ident: str) -> OutputPlan:
+        """The frame clock (128 cycles a frame), the frame layout and the I2S program."""
+        layout = I2sLayout(opts.bits, stereo=opts.stereo)
+        clock = plan_i2s(
+            opts.rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            slot_bits=STREAM_SLOT_BITS,
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        ).clock
+        program = i2s_program(opts.bits, opts.frame_format, name=f"{ident}_i2s")
+        sm = i2s_state_machine(
+            program,
+            layout,
+            clock,
+            data_pin=opts.out_base,
+            clock_pin=int(opts.clock_pin or 0),
+            gpio_count=int(opts.gpio_count or 0),
+            gpio_base=self.gpio_base(opts),
+        )
+        return OutputPlan(
+            layout=layout,
+            clock=clock,
+            samples_per_word=1,
+            per_word=Fraction(1, layout.words_per_frame),
+            idle_code=layout.mid_code,
+            channel_idle=layout.mid_code,
+            code_bits=opts.bits,
+            program=program,
+            sm=sm,
+            ramps=False,
+            whole_frames=True,
+        )
+
+    def stats(self, plan: OutputPlan, opts: StreamOptions) -> dict[str, Any]:
+        """The frame, its bit clock and the three pins."""
+        return {
+            "i2s": {
+                **I2sPlan(plan.clock, STREAM_SLOT_BITS).to_dict(),
+                "frame_format": opts.frame_format,
+                "data_pin": opts.out_base,
+                "bit_clock_pin": opts.clock_pin,
+                "word_select_pin": int(opts.clock_pin or 0) + 1,
+            }
+        }
+
+    def variant(self, plan: OutputPlan) -> str:
+        """The I2S program's variant."""
+        assert plan.program is not None
+        return plan.program.variant
+
+    def summary(self, asset: StreamAsset) -> dict[str, Any]:
+        """Stereo or mono, and the frame and pins."""
+        i2s = asset.stats["i2s"]
+        return {
+            "stereo": bool(asset.options.get("stereo", False)),
+            "i2s": {
+                "bit_clock_hz": i2s["bit_clock_hz"],
+                "bits_per_frame": i2s["bits_per_frame"],
+                "cycles_per_bit": i2s["cycles_per_bit"],
+                "frame_format": i2s["frame_format"],
+                "pins": [i2s["data_pin"], i2s["bit_clock_pin"], i2s["word_select_pin"]],
+            },
+        }
+
+    def summary_lines(self, summary: Mapping[str, Any]) -> SummaryLines:
+        """The sample width, the frame and its pins; counted in frames."""
+        stereo = bool(summary.get("stereo"))
+        kind = f"{summary['bits']}-bit" + (
+            ", stereo I2S" if stereo else " I2S, mono in both channels"
+        )
+        i2s = summary["i2s"]
+        d, b, w = i2s["pins"]
+        line = (
+            f"{i2s['frame_format']} frame, {i2s['bits_per_frame']} bits "
+            f"({i2s['cycles_per_bit']} cycles each), bit clock "
+            f"{i2s['bit_clock_hz']:.1f} Hz; data GPIO {d}, bit clock {b}, word select {w}"
+        )
+        return SummaryLines(kind, "frame", cycles_divider(summary, "frame"), [("i2s", line)])
+
+    def sidecar_blocks(self, asset: StreamAsset) -> dict[str, Any]:
+        """The program (with its entry point) and the state machine's registers."""
+        return state_machine_blocks(asset, entry=i2s_entry(asset.pio_program))
+
+    def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
+        """Words, C header and source, MicroPython module, PIO source, the I2S player."""
+        n = asset.name
+        return {
+            f"{n}.bin": binary.render_chunks(asset.packed),
+            f"{n}.h": render_header(asset).encode(),
+            f"{n}.c": render_source_chunks(asset),
+            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            f"{n}.pio": render_pio(asset).encode(),
+            player_i2s.HEADER_NAME: player_i2s.render_header().encode(),
+            player_i2s.SOURCE_NAME: player_i2s.render_source().encode(),
+        }
+
+    def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:
+        """Two's complement samples about mid-scale, on an ideal DAC."""
+        bits = layout["bits"]
+        if bits not in (16, 24, 32):
+            raise ValueError(f"layout.bits: expected 16, 24 or 32 for I2S, got {bits!r}")
+        stereo = layout.get("channels") == "stereo"
+        lay = I2sLayout(bits, stereo=stereo)
+
+        def decode(words: np.ndarray, count: int, channel: int) -> np.ndarray:
+            return np.asarray(lay.unpack_words(words[: lay.words_for(count)])[:count, channel])
+
+        return PreviewModel(
+            lay, bits, 2 if stereo else 1, 1 << bits, (1 << bits) / 2, False, decode
+        )
+
+    def wave_table(self, spec: WaveTableSpec) -> WaveTable:
+        """Signed samples (the offset code less mid-scale) at the I2S frame clock."""
+        cycles = CYCLES_PER_BIT * 2 * STREAM_SLOT_BITS  # an I2S frame: 128 machine cycles
+        plan = plan_clock(
+            spec.rate_hz,
+            sys_clock_hz=int(spec.sys_clock_hz or 0),
+            tolerance_ppm=spec.rate_tolerance_ppm,
+            min_cycles=cycles,
+            max_cycles=cycles,
+        )
+        tab = wavetable(spec.kind, spec.table_bits, bits=spec.bits, level_dbfs=spec.level_dbfs)
+        tab = tab.astype(np.int64) - (1 << (spec.bits - 1))
+        coding = f"i2s samples, signed {spec.bits}-bit"
+        return WaveTable(float(plan.achieved_rate_hz), tab, spec.bits, coding, signed=True)
+
+    def clock_report(
+        self, rate_hz: float, opts: StreamOptions, settings: Mapping[str, Any]
+    ) -> ClockReport:
+        """The frame clock: divider, slots, cycles per bit, bit clock."""
+        slot_bits = int(settings.get("slot_bits") or 32)
+        plan = plan_i2s(
+            rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            slot_bits=slot_bits,
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        )
+        c = plan.clock
+        kind = "fractional (1 system clock of bit-clock jitter)" if c.fractional else "integer"
+        return ClockReport(
+            plan.to_dict(),
+            [
+                f"requested  {rate_hz:g} frames/s at {c.sys_clock_hz} Hz system clock",
+                f"achieved   {float(plan.frame_rate_hz):.6f} frames/s ({c.error_ppm:+.3f} ppm)",
+                f"divider    {c.div_int} + {c.div_frac}/256, {kind}",
+                f"frame      2 x {slot_bits}-bit slots, {CYCLES_PER_BIT} state-machine cycles "
+                f"per bit ({c.cycles_per_sample} per frame)",
+                f"bit clock  {float(plan.bit_clock_hz):.3f} Hz",
+                f"CLKDIV     0x{c.clkdiv_register:08X}",
+            ],
+        )
+
+    def clock_planner(self, rate_hz: float, settings: Mapping[str, Any]) -> Callable[[int], Any]:
+        """The frame's divider x 128 cycles (two 32-bit slots, 2 cycles a bit)."""
+        if settings.get("slot_bits") not in (None, 32, "32"):
+            raise OptionError("streams use 32-bit slots; drop it", field="slot_bits")
+        cycles = CYCLES_PER_BIT * 2 * STREAM_SLOT_BITS
+        return lambda f: plan_clock(
+            rate_hz, sys_clock_hz=f, tolerance_ppm=1e9, min_cycles=cycles, max_cycles=cycles
+        )
+
+    def clock_row(self, plan: Any) -> tuple[dict[str, Any], str]:
+        """Divider and cycles per frame."""
+        row = {"div_int": plan.div_int, "div_frac": plan.div_frac, "cycles": plan.cycles_per_sample}
+        return row, f"divider {plan.div_int}, {plan.cycles_per_sample} cycle(s) per frame"
+
+
+#: The registered object.
+OUTPUT = I2sOutput()

@@ -27,18 +27,40 @@ within the rate tolerance.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 
-from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ
+from ladderpack._version import __version__
+from ladderpack.asset import StreamAsset
+from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, default_band_hz
+from ladderpack.emit import Content, binary, player_pwm
+from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
+from ladderpack.emit.micropython import _literal, sdk_constants, set_clock_text
+from ladderpack.emit.names import comment_safe
 from ladderpack.errors import ClockError, OptionError
-from ladderpack.targets import REGISTERS
+from ladderpack.options import StreamOptions, WaveTableSpec
+from ladderpack.outputs.base import (
+    ClockReport,
+    OutputPlan,
+    PreviewModel,
+    SummaryLines,
+    WaveTable,
+    jitter_text,
+)
+from ladderpack.pack import Packed, WordLayout, unpack
+from ladderpack.quantize import CodeScale, predicted_full_scale_sine
+from ladderpack.targets import REGISTERS, get_target, target_of
+from ladderpack.waves import wavetable
 
 __all__ = [
     "DREQ_DMA_TIMER0",
     "DREQ_PWM_WRAP0",
+    "OUTPUT",
+    "PwmOutput",
     "PwmPlan",
     "PwmSetup",
     "PwmStereoLayout",
@@ -46,7 +68,12 @@ __all__ = [
     "plan_pwm",
     "pwm_slice",
     "reconstruction_filter",
+    "render_header",
+    "render_micropython",
+    "render_source",
+    "render_source_chunks",
 ]
+
 
 #: DMA request numbers by SDK platform (``hardware/regs/dreq.h``), from the target data.
 DREQ_PWM_WRAP0 = {chip: regs["DREQ_PWM_WRAP0"] for chip, regs in REGISTERS.items()}
@@ -472,3 +499,688 @@ class PwmStereoLayout:
             "words_per_frame": 1,
             "sample_order": "channel A in bits 15:0, B in bits 31:16",
         }
+
+
+def _setup(asset: StreamAsset) -> tuple[PwmSetup, PwmPlan]:
+    setup = asset.setup
+    assert setup is not None
+    return setup, setup.plan
+
+
+def _transfers(asset: StreamAsset, packed: Packed | None) -> int:
+    """DMA transfers of a part: one per sample (16-bit mono, 32-bit stereo)."""
+    return 0 if packed is None else int(packed.sample_count)
+
+
+def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
+    s, p = _setup(asset)
+    rate = p.achieved_rate_hz
+    x, y = p.timer_xy or (0, 0)
+    return [
+        ("LEVELS", f"{p.levels}u", "compare values 0..TOP+1: duty 0 to 100 %"),
+        ("SAMPLE_COUNT", f"{asset.sample_count}u", "samples in the stream, ramps included"),
+        ("TRANSFER_COUNT", f"{_transfers(asset, asset.packed)}u", "DMA transfers"),
+        ("WORD_COUNT", f"{asset.word_count}u", "32-bit words"),
+        ("STEREO", "1" if s.stereo else "0", "1: channel A in bits 15:0, B in 31:16"),
+        ("IDLE_CODE", f"{asset.idle_code}u", "compare value before and after"),
+        ("MAX_STEP", f"{asset.max_step}u", "largest step between consecutive values"),
+        ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
+        ("INTRO_TRANSFER_COUNT", f"{_transfers(asset, asset.intro)}u", "loops: ramp up"),
+        ("OUTRO_TRANSFER_COUNT", f"{_transfers(asset, asset.outro)}u", "loops: ramp down"),
+        ("INTRO_WORD_COUNT", f"{_words(asset.intro)}u", ""),
+        ("OUTRO_WORD_COUNT", f"{_words(asset.outro)}u", ""),
+        ("REQUESTED_RATE_HZ", f"{float(p.requested_rate_hz)!r}", "sample rate asked for"),
+        ("RATE_HZ", f"{float(rate)!r}", "achieved sample rate"),
+        ("RATE_NUM", f"{rate.numerator}ull", "achieved rate = RATE_NUM / RATE_DEN Hz"),
+        ("RATE_DEN", f"{rate.denominator}ull", ""),
+        ("CARRIER_HZ", f"{float(p.carrier_hz)!r}", "PWM frequency"),
+        ("SYS_CLOCK_HZ", f"{p.sys_clock_hz}u", "system clock the plan assumes"),
+        ("DIV_INT", f"{p.div_int}u", "PWM clock divider, integer part"),
+        ("DIV_FRAC", f"{p.div_frac}u", "PWM clock divider, fraction in 1/16 (not 0: jitter)"),
+        ("TOP", f"{p.top}u", "counter wrap value"),
+        ("PERIODS_PER_SAMPLE", f"{p.periods_per_sample}u", "PWM periods each sample lasts"),
+        ("TIMER_X", f"{x}u", "DMA pacing timer X (0: paced by the slice's wrap)"),
+        ("TIMER_Y", f"{y}u", "DMA pacing timer Y"),
+        ("PIN", f"{s.pin}u", f"the PWM pin: slice {s.slice}, channel {s.channel}"),
+        ("SLICE", f"{s.slice}u", "PWM slice"),
+    ]
+
+
+def _words(packed: Packed | None) -> int:
+    return 0 if packed is None else int(packed.words.size)
+
+
+def _init_macro(asset: StreamAsset) -> list[str]:
+    n, P = asset.name, asset.name.upper()
+    intro = f"{n}_intro_words" if _words(asset.intro) else "NULL"
+    outro = f"{n}_outro_words" if _words(asset.outro) else "NULL"
+    fields = [
+        f"{n}_words",
+        f"{P}_TRANSFER_COUNT",
+        intro,
+        f"{P}_INTRO_TRANSFER_COUNT",
+        outro,
+        f"{P}_OUTRO_TRANSFER_COUNT",
+        f"{P}_PIN",
+        f"{P}_STEREO",
+        f"{P}_DIV_INT",
+        f"{P}_DIV_FRAC",
+        f"{P}_TOP",
+        f"{P}_PERIODS_PER_SAMPLE",
+        f"{P}_TIMER_X",
+        f"{P}_TIMER_Y",
+        f"{P}_SYS_CLOCK_HZ",
+        f"{P}_LOOP",
+        f"{P}_IDLE_CODE",
+        f"{P}_MAX_STEP",
+    ]
+    return init_macro("lp_pwm_stream_t", "ladderpack_pwm.h", f"{P}_PWM_INIT", fields)
+
+
+def render_header(asset: StreamAsset) -> str:
+    """Return the C header of a PWM stream."""
+    prefix = asset.name.upper()
+    guard = f"LADDERPACK_{prefix}_H"
+    lines = header_frame(asset, _defines(asset))
+    lines += pll_lines(asset)
+    lines += ["", f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];"]
+    for part in ("intro", "outro"):
+        if _words(getattr(asset, part)):
+            lines.append(
+                f"extern const uint32_t {asset.name}_{part}_words"
+                f"[{prefix}_{part.upper()}_WORD_COUNT];"
+            )
+    lines += ["", *_init_macro(asset), "", f"#endif /* {guard} */", ""]
+    return "\n".join(lines)
+
+
+def source_lines(asset: StreamAsset) -> Iterator[str]:
+    """The C source of a PWM stream, line by line."""
+    prefix = asset.name.upper()
+    s, _p = _setup(asset)
+    order = (
+        "one word a sample, channel A in bits 15:0, B in 31:16"
+        if s.stereo
+        else "two 16-bit values a word, the first in bits 15:0"
+    )
+    yield from _banner(asset).split("\n")
+    yield f'#include "{asset.name}.h"'
+    yield ""
+    yield f"/* Compare values in playing order, {order};"
+    yield " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */"
+    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
+    yield from _array_lines(asset.packed.words, 8)
+    yield "};"
+    for part in ("intro", "outro"):
+        packed = getattr(asset, part)
+        if _words(packed):
+            yield ""
+            count = f"{prefix}_{part.upper()}_WORD_COUNT"
+            yield f"const uint32_t {asset.name}_{part}_words[{count}] = {{"
+            yield from _array_lines(packed.words, 8)
+            yield "};"
+
+
+def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:
+    """The C source as byte chunks of about `chunk_chars`."""
+    return chunked(source_lines(asset), chunk_chars)
+
+
+def render_source(asset: StreamAsset) -> str:
+    """Return the C source of a PWM stream."""
+    return b"".join(render_source_chunks(asset)).decode()
+
+
+_MP_TEMPLATE = """\
+# Generated by ladderpack {version} from {source}.
+# Do not edit: regenerate it instead.
+#
+# Wiring: PWM on GPIO {pin} (slice {slice}, channel {channel}{stereo_note}). Never connect a
+# speaker or headphones to the pin: filter the carrier ({carrier:.0f} Hz) with an RC
+# low-pass (see the README), buffer it and feed a suitable amplifier; the carrier's power
+# otherwise ends in the amplifier and the tweeter. Start at a low volume and leave
+# mains-powered gear to qualified people.
+#
+# Use:  import {name}; {name}.play()            (blocks until the stream ends)
+#       p = {name}.Player(); p.play(loop=True)  (a loop runs until p.stop() or Ctrl-C)
+import array
+
+import rp2
+from machine import Pin, freq, mem32
+
+try:
+    from typing import TYPE_CHECKING
+except ImportError:
+    TYPE_CHECKING = False  # type: ignore[misc]  # MicroPython has no typing module
+if TYPE_CHECKING:
+    from typing import Iterator
+
+NAME = {name!r}
+LEVELS = {levels}  # compare values 0..TOP+1
+SAMPLE_COUNT = {samples}
+TRANSFERS = {transfers}
+STEREO = {stereo}
+IDLE_CODE = {idle}
+MAX_STEP = {max_step}
+RATE_HZ = {rate!r}
+SYS_CLOCK_HZ = {sys_clock}
+PIN = {pin}
+SLICE = {slice}
+DIV_REG = 0x{div_reg:03X}  # 8.4: DIV_INT {div_int}, DIV_FRAC {div_frac}
+TOP = {top}
+TIMER_X = {timer_x}  # DMA pacing timer X/Y (0: paced by the slice's wrap)
+TIMER_Y = {timer_y}
+DREQ = {dreq}  # DREQ_PWM_WRAP0 + slice, or DREQ_DMA_TIMER0
+LOOP = {loop}
+BIN_FILE = {bin_file!r}
+CHUNK_WORDS = {chunk_words}
+{words_literal}
+INTRO = {intro}
+INTRO_TRANSFERS = {intro_transfers}
+OUTRO = {outro}
+OUTRO_TRANSFERS = {outro_transfers}
+
+{registers}
+# Slice n's registers lie _SLICE_STRIDE * n above slice 0's. A mono value is a 16-bit
+# write: the bus repeats it in both halves of CC (RP2040 datasheet 2.1.4).
+_SLICE = _PWM_BASE + _SLICE_STRIDE * SLICE
+_SIZE = 2 if STEREO else 1
+
+
+def _value(a: int, b: int) -> int:
+    return a | (b << 16) if STEREO else a
+
+
+def _ramp(a: int, b: int) -> "array.array[int]":
+    \"\"\"Raised-cosine ramps of both channels from (a, b) to IDLE_CODE, no step above
+    MAX_STEP; the last value is IDLE_CODE.\"\"\"
+    import math
+
+    step = MAX_STEP or 1
+    n = int(math.ceil(math.pi / 2 * max(abs(a - IDLE_CODE), abs(b - IDLE_CODE)) / step)) + 1
+    out = array.array("I" if STEREO else "H")
+    pa, pb = a, b
+    for k in range(1, n + 1):
+        w = (1 + math.cos(math.pi * k / n)) / 2
+        ca = IDLE_CODE if k == n else int(math.floor(IDLE_CODE + (a - IDLE_CODE) * w + 0.5))
+        cb = IDLE_CODE if k == n else int(math.floor(IDLE_CODE + (b - IDLE_CODE) * w + 0.5))
+        pa = max(pa - step, min(pa + step, ca))
+        pb = max(pb - step, min(pb + step, cb))
+        out.append(_value(pa, pb))
+    out.append(_value(IDLE_CODE, IDLE_CODE))
+    return out
+
+
+class Player:
+    \"\"\"Plays the stream on the slice of PIN, fed by two DMA channels chained to each
+    other: one plays a buffer while the other's is refilled, with no gap between them
+    (a PWM slice has no FIFO to cover one).
+
+    A natural end plays the stream's closing ramp; stop() on a loop finishes the current
+    pass and plays the outro; Ctrl-C or stop() on a stream ramps down at once.
+    \"\"\"
+
+    def __init__(self, path: str = BIN_FILE, chunk_words: int = CHUNK_WORDS):
+        if freq() != SYS_CLOCK_HZ:
+            raise ValueError(
+                "system clock is %d Hz, the stream was planned for %d Hz: remake it with "
+                "--sys-clock-hz %d (or call machine.freq(%d) first)"
+                % (freq(), SYS_CLOCK_HZ, freq(), SYS_CLOCK_HZ)
+            )
+        self.path = path
+        mem32[_SLICE + _CSR] = 0  # stop the slice while it is set up
+        mem32[_SLICE + _DIV] = DIV_REG
+        mem32[_SLICE + _TOP] = TOP
+        mem32[_SLICE + _CC] = IDLE_CODE | (IDLE_CODE << _CC_B_LSB)
+        mem32[_SLICE + _CTR] = 0
+        Pin(PIN, Pin.ALT, alt=Pin.ALT_PWM)
+        if STEREO:
+            Pin(PIN + 1, Pin.ALT, alt=Pin.ALT_PWM)
+        mem32[_SLICE + _CSR] = 1 << _CSR_EN_LSB
+        if TIMER_X:
+            mem32[_TIMER0] = (TIMER_X << _TIMER_X_LSB) | TIMER_Y
+        self.dma = (rp2.DMA(), rp2.DMA())
+        self.bufs = [array.array("I", bytes(4 * chunk_words)) for _ in range(2)]
+        self.holds = [None, None]  # type: list[array.array[int] | None]
+        self.running = False
+
+    def _ctrl(self, k: int, chain: bool) -> int:
+        # DMA.channel: MicroPython's attribute, missing from the stubs
+        other = (self.dma[1 - k] if chain else self.dma[k]).channel  # type: ignore[attr-defined]
+        return self.dma[k].pack_ctrl(size=_SIZE, inc_read=True, inc_write=False,
+                                     treq_sel=DREQ, chain_to=other)
+
+    def _arm(self, k: int, buf: "array.array[int]", count: int, chain: bool, now: bool) -> None:
+        self.dma[k].config(read=buf, write=_SLICE + _CC, count=count,
+                           ctrl=self._ctrl(k, chain), trigger=now)
+
+    def _busy(self) -> bool:
+        return bool(self.dma[0].active() or self.dma[1].active())
+
+    def _wait(self) -> None:
+        while self._busy():
+            pass
+
+    def stop(self) -> None:
+        \"\"\"Ask a running play() to finish (safe to call from an interrupt handler).\"\"\"
+        self.running = False
+
+    def _ramp_down(self) -> None:
+        for d in self.dma:
+            d.active(0)
+        cc = mem32[_SLICE + _CC]
+        r = _ramp(cc & 0xFFFF, (cc >> 16) if STEREO else cc & 0xFFFF)
+        self._arm(0, r, len(r), False, True)
+        self._wait()
+
+    def _free(self, buf: "array.array[int]") -> None:
+        # wait until no running channel reads `buf`
+        while any(self.dma[j].active() and self.holds[j] is buf for j in (0, 1)):
+            pass
+
+    def _parts(self, loop: bool) -> "Iterator[tuple[array.array[int], int, bool]]":
+        \"\"\"(buffer, transfers, last) in playing order: intro, the stream (once, or until
+        stop() for a loop), outro, a closing idle value; file chunks are read as they are
+        needed, into a buffer no channel is reading.\"\"\"
+        if INTRO is not None:
+            yield INTRO, INTRO_TRANSFERS, False
+        first = True
+        while first or (loop and self.running):
+            first = False
+            if WORDS is not None:
+                yield WORDS, TRANSFERS, False
+                continue
+            per_word = 1 if STEREO else 2
+            left = TRANSFERS
+            with open(self.path, "rb") as f:
+                which = 0
+                while left > 0:
+                    buf = self.bufs[which]
+                    self._free(buf)
+                    n = f.readinto(buf) // 4
+                    if n == 0:
+                        break
+                    count = min(n * per_word, left)
+                    left -= count
+                    yield buf, count, False
+                    which ^= 1
+        if OUTRO is not None:
+            yield OUTRO, OUTRO_TRANSFERS, False
+        # written once the last value has been latched, so the end is on the idle code
+        yield array.array("I", [_value(IDLE_CODE, IDLE_CODE)]), 1, True
+
+    def play(self, loop: bool = LOOP) -> None:
+        \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
+        last value has been handed to the slice.\"\"\"
+        self.running = True
+        self.holds = [None, None]
+        k = 0
+        started = False
+        try:
+            for buf, count, last in self._parts(loop):
+                # wait until channel k is free, then arm it; the other channel starts it
+                # by its chain when its own part ends (CHUNK_WORDS sets how long that is)
+                while self.dma[k].active():
+                    if not self.running and not LOOP:
+                        self._ramp_down()
+                        return
+                self.holds[k] = buf
+                self._arm(k, buf, count, not last, not started)
+                started = True
+                k ^= 1
+            while self._busy():
+                if not self.running and not LOOP:
+                    self._ramp_down()
+                    return
+        except KeyboardInterrupt:
+            self._ramp_down()
+            raise
+        finally:
+            self.running = False
+
+    def close(self) -> None:
+        \"\"\"Release the DMA channels (the slice keeps the idle code).\"\"\"
+        for d in self.dma:
+            d.close()
+
+
+def play(loop: bool = LOOP) -> None:
+    \"\"\"Play the stream once (or loop until Ctrl-C), then release the DMA channel.\"\"\"
+    p = Player()
+    try:
+        p.play(loop)
+    finally:
+        p.close()
+"""
+
+
+def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
+    """Return the MicroPython module of a PWM stream.
+
+    Parameters
+    ----------
+    asset : StreamAsset
+        The stream.
+    embed : bool
+        Embed the values as an ``array('I', ...)`` literal (short streams only).
+    """
+    s, p = _setup(asset)
+    x, y = p.timer_xy or (0, 0)
+    words_literal = (
+        ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
+    )
+    target = target_of(asset.options)
+    registers = (
+        f"# {target.name.upper()} registers (vendor SDK hardware/regs: addressmap.h, pwm.h, "
+        "dma.h)\n"
+    )
+    registers += sdk_constants(
+        target,
+        [
+            ("_PWM_BASE", "PWM_BASE"),
+            ("_SLICE_STRIDE", "PWM_CH1_CSR_OFFSET - PWM_CH0_CSR_OFFSET"),
+            ("_CSR", "PWM_CH0_CSR_OFFSET"),
+            ("_CSR_EN_LSB", "PWM_CH0_CSR_EN_LSB"),
+            ("_DIV", "PWM_CH0_DIV_OFFSET"),
+            ("_CTR", "PWM_CH0_CTR_OFFSET"),
+            ("_CC", "PWM_CH0_CC_OFFSET"),
+            ("_CC_B_LSB", "PWM_CH0_CC_B_LSB"),
+            ("_TOP", "PWM_CH0_TOP_OFFSET"),
+            ("_TIMER0", "DMA_BASE + DMA_TIMER0_OFFSET"),
+            ("_TIMER_X_LSB", "DMA_TIMER0_X_LSB"),
+        ],
+    )
+    text = _MP_TEMPLATE.format(
+        registers=registers,
+        version=__version__,
+        source=comment_safe(asset.source.get("file", "generated signal")),
+        name=asset.name,
+        pin=s.pin,
+        slice=s.slice,
+        channel=s.channel,
+        stereo_note=f", and B on GPIO {s.pin + 1}" if s.stereo else "",
+        carrier=float(p.carrier_hz),
+        levels=p.levels,
+        samples=asset.sample_count,
+        transfers=_transfers(asset, asset.packed),
+        stereo=s.stereo,
+        idle=asset.idle_code,
+        max_step=asset.max_step,
+        rate=float(p.achieved_rate_hz),
+        sys_clock=p.sys_clock_hz,
+        div_reg=(p.div_int << 4) | p.div_frac,
+        div_int=p.div_int,
+        div_frac=p.div_frac,
+        top=p.top,
+        timer_x=x,
+        timer_y=y,
+        dreq=s.dreq,
+        loop=asset.loop,
+        bin_file=f"{asset.name}.bin",
+        chunk_words=int(asset.options.get("chunk_words", 1024)),
+        words_literal=words_literal,
+        intro=_literal(asset.intro),
+        intro_transfers=_transfers(asset, asset.intro),
+        outro=_literal(asset.outro),
+        outro_transfers=_transfers(asset, asset.outro),
+    )
+    return text + set_clock_text(asset)
+
+
+# -- the registered object -------------------------------------------------------------
+
+
+class PwmOutput:
+    """A hardware PWM slice on one pin (two for stereo), paced by DMA; no state machine."""
+
+    name = "pwm"
+
+    def default_bits(self) -> int:
+        """16: compare values are halfwords (the levels follow from the plan)."""
+        return 16
+
+    def check_bits(self, bits: int) -> None:
+        """Nothing to check: a PWM stream's width is not the user's (no ``width`` group)."""
+
+    def check_options(self, opts: StreamOptions) -> None:
+        """A stereo stream on a slice's channel A (an even GPIO); the pins on the target."""
+        if opts.stereo and opts.out_base % 2:
+            raise OptionError(
+                f"a stereo PWM stream uses both channels of a slice: give its channel A "
+                f"(an even GPIO), got GPIO {opts.out_base}",
+                field="out_base",
+            )
+        if opts.out_base + int(opts.stereo) >= int(opts.gpio_count or 0):
+            raise OptionError(
+                f"the PWM pin GPIO {opts.out_base} is not on the target (GPIO 0.."
+                f"{int(opts.gpio_count or 0) - 1})"
+                + get_target(opts.target).more_pins_hint(opts.out_base + int(opts.stereo)),
+                field="out_base",
+            )
+
+    def gpio_base(self, opts: StreamOptions) -> int:
+        """0 (a PWM slice needs no PIO block; kept for the common interface)."""
+        return 0
+
+    def recorded_options(self, opts: StreamOptions, recorded: dict[str, Any]) -> dict[str, Any]:
+        """The generic record (no ``bits``: the plan's levels say it)."""
+        return recorded
+
+    def plan(self, opts: StreamOptions, ident: str) -> OutputPlan:
+        """The slice's divider, TOP and pacing; halfword compare values in FIFO words."""
+        pwm_plan = plan_pwm(
+            opts.rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            min_carrier_hz=opts.min_carrier_hz,
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        )
+        if pwm_plan.levels - 1 > 0xFFFF:
+            raise OptionError(
+                f"the plan's TOP {pwm_plan.top} leaves compare values above 65535; ask for "
+                "a higher --rate-hz or --min-carrier-hz",
+                field="min_carrier_hz",
+            )
+        scale = CodeScale.for_levels(pwm_plan.levels)
+        if opts.idle_code > scale.top:
+            raise OptionError(
+                f"must be 0..{scale.top} for this slice's {pwm_plan.levels} levels, got "
+                f"{opts.idle_code}",
+                field="idle_code",
+            )
+        setup = PwmSetup(pwm_plan, opts.out_base, stereo=opts.stereo, chip=opts.target[:6])
+        common: dict[str, Any] = {
+            "clock": pwm_plan,
+            "idle_code": opts.idle_code,
+            "channel_idle": opts.idle_code,
+            "scale": scale,
+            "setup": setup,
+        }
+        if opts.stereo:  # one word a frame: A in bits 15:0, B in 31:16
+            return OutputPlan(
+                layout=PwmStereoLayout(), samples_per_word=1, per_word=1, code_bits=opts.bits,
+                whole_frames=True, **common,
+            )  # fmt: skip
+        # compare values are 16 bits: two to a word, the first in bits 15:0 (little-endian
+        # halfwords, the order 16-bit DMA transfers read them)
+        layout = WordLayout(16, shift_right=True, per_word=2)
+        return OutputPlan(
+            layout=layout, samples_per_word=2, per_word=2, code_bits=layout.bits, **common
+        )
+
+    def stats(self, plan: OutputPlan, opts: StreamOptions) -> dict[str, Any]:
+        """The slice's plan and set-up."""
+        setup: PwmSetup = plan.setup
+        return {"pwm": {**setup.plan.to_dict(), **setup.to_dict()}}
+
+    def variant(self, plan: OutputPlan) -> str:
+        """``pwm-wrap`` or ``pwm-timer``: what paces the DMA."""
+        setup: PwmSetup = plan.setup
+        return f"pwm-{setup.plan.pacing}"
+
+    def summary(self, asset: StreamAsset) -> dict[str, Any]:
+        """Stereo or mono, and the slice's carrier, levels, pacing and pin."""
+        p: PwmPlan = asset.plan  # type: ignore[assignment]
+        setup: PwmSetup = asset.setup
+        return {
+            "stereo": bool(asset.options.get("stereo", False)),
+            "pwm": {
+                "carrier_hz": round(float(p.carrier_hz), 3),
+                "levels": p.levels,
+                "effective_bits": round(p.effective_bits, 3),
+                "top": p.top,
+                "periods_per_sample": p.periods_per_sample,
+                "pacing": p.pacing,
+                "pin": setup.pin,
+                "slice": setup.slice,
+            },
+        }
+
+    def summary_lines(self, summary: Mapping[str, Any]) -> SummaryLines:
+        """The pin(s), slice and levels; TOP, carrier and pacing on the divider line."""
+        pwm = summary["pwm"]
+        stereo = bool(summary.get("stereo"))
+        pins = f"GPIO {pwm['pin']} and {pwm['pin'] + 1}" if stereo else f"GPIO {pwm['pin']}"
+        kind = (
+            f"{'stereo ' if stereo else ''}PWM on {pins} (slice {pwm['slice']}), "
+            f"{pwm['levels']} levels ({pwm['effective_bits']:.2f} bits)"
+        )
+        pacing = "the slice's wrap" if pwm["pacing"] == "wrap" else "a DMA pacing timer"
+        divider = (
+            f"{summary['divider']} ({jitter_text(summary)}), TOP {pwm['top']}, carrier "
+            f"{pwm['carrier_hz']:.0f} Hz, {pwm['periods_per_sample']} PWM period(s) per "
+            f"sample, paced by {pacing}"
+        )
+        return SummaryLines(kind, "sample", divider)
+
+    def sidecar_blocks(self, asset: StreamAsset) -> dict[str, Any]:
+        """The slice's set-up (no program)."""
+        setup: PwmSetup = asset.setup
+        return {"pwm": setup.to_dict()}
+
+    def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
+        """Words, C header and source, MicroPython module, the PWM player."""
+        n = asset.name
+        return {
+            f"{n}.bin": binary.render_chunks(asset.packed),
+            f"{n}.h": render_header(asset).encode(),
+            f"{n}.c": render_source_chunks(asset),
+            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            player_pwm.HEADER_NAME: player_pwm.render_header().encode(),
+            player_pwm.SOURCE_NAME: player_pwm.render_source().encode(),
+        }
+
+    def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:
+        """Compare values: a pin's mean over a period, duty = value / (TOP + 1)."""
+        levels = int(sidecar["clock"]["levels"])
+        half = (levels - 1) / 2
+        if layout.get("channels") == "stereo":
+            frames = PwmStereoLayout()
+
+            def decode2(words: np.ndarray, count: int, channel: int) -> np.ndarray:
+                got = frames.unpack_words(words[: frames.words_for(count)])
+                return np.asarray(got[:count, channel])
+
+            return PreviewModel(frames, 16, 2, levels, half, False, decode2)
+        mono = WordLayout(16, shift_right=True, per_word=2)
+
+        def decode1(words: np.ndarray, count: int, channel: int) -> np.ndarray:
+            return np.asarray(unpack(words, mono, count).codes)
+
+        return PreviewModel(mono, 16, 1, levels, half, False, decode1)
+
+    def wave_table(self, spec: WaveTableSpec) -> WaveTable:
+        """Compare values 0..TOP + 1 of the slice the rate plans."""
+        pwm = plan_pwm(
+            spec.rate_hz,
+            sys_clock_hz=int(spec.sys_clock_hz or 0),
+            tolerance_ppm=spec.rate_tolerance_ppm,
+        )
+        tab = wavetable(
+            spec.kind, spec.table_bits, bits=16, level_dbfs=spec.level_dbfs, levels=pwm.levels
+        )
+        coding = f"pwm compare values 0..{pwm.top + 1} (TOP {pwm.top}, {pwm.levels} levels)"
+        return WaveTable(float(pwm.achieved_rate_hz), tab, 16, coding)
+
+    def clock_report(
+        self, rate_hz: float, opts: StreamOptions, settings: Mapping[str, Any]
+    ) -> ClockReport:
+        """The slice's plan, its predicted SINAD and an RC reconstruction filter."""
+        plan = plan_pwm(
+            rate_hz,
+            sys_clock_hz=int(opts.sys_clock_hz or 0),
+            min_carrier_hz=settings.get("min_carrier_hz"),
+            tolerance_ppm=opts.rate_tolerance_ppm,
+        )
+        d = plan.to_dict()
+        chip = "rp2040" if opts.target == "rp2040" else "rp2350"
+        d["dreq"] = (DREQ_PWM_WRAP0 if plan.pacing == "wrap" else DREQ_DMA_TIMER0)[chip]
+        rate = float(plan.achieved_rate_hz)
+        band = default_band_hz(rate)
+        half = CodeScale.for_levels(plan.levels).half
+        plain = predicted_full_scale_sine(half, "tpdf", 0.0, band, rate)
+        d["predicted_full_scale_sine"] = {"band_hz": band, "dither": "tpdf", **plain}
+        # The filter passes the resampler's flat band (0.45 x the rate, at most 20 kHz).
+        fband = min(20000.0, 0.45 * rate)
+        carrier = float(plan.carrier_hz)
+        filt = reconstruction_filter(plan, fband)
+        # fundamental of a 50 % square wave between 0 and V: 2 V / pi (Fourier series)
+        ripple = 2 * 3.3 / math.pi * 10 ** (filt.gain_db(carrier) / 20)
+        d["reconstruction_filter"] = {
+            "poles": filt.poles,
+            "r_ohms": filt.r_ohms,
+            "c_farads": filt.c_farads,
+            "corner_hz": filt.corner_hz,
+            "band_hz": fband,
+            "gain_at_band_db": filt.gain_db(fband),
+            "gain_at_carrier_db": filt.gain_db(carrier),
+            "carrier_ripple_volts_peak_at_3v3": ripple,
+        }
+        kind = "fractional (1 system clock of jitter)" if plan.fractional else "integer (no jitter)"
+        lines = [
+            f"requested  {rate_hz:g} Hz at {plan.sys_clock_hz} Hz system clock",
+            f"achieved   {float(plan.achieved_rate_hz):.6f} Hz ({plan.error_ppm:+.3f} ppm)",
+            f"carrier    {float(plan.carrier_hz):.3f} Hz, TOP {plan.top}",
+            f"divider    {plan.div_int} + {plan.div_frac}/16, {kind}",
+            f"levels     {plan.levels} (compare 0..{plan.top + 1}), {plan.effective_bits:.2f} bits",
+            f"predict    full-scale sine SINAD {plain['sinad_db']:.1f} dB, ENOB "
+            f"{plain['enob_bits']:.2f} bits in 0..{band:g} Hz (TPDF dither)",
+            f"filter     {filt.poles} buffered RC sections of {filt.r_ohms / 1e3:g} kohm and "
+            f"{filt.c_farads * 1e12:g} pF: {filt.gain_db(fband):+.2f} dB at {fband:.0f} Hz, "
+            f"{filt.gain_db(carrier):+.1f} dB at the carrier",
+            f"           carrier left at 50 % duty from a 3.3 V pin: {ripple * 1e3:.0f} mV peak "
+            "(more poles, or the amplifier's own bandwidth, take it further)",
+        ]
+        if plan.pacing == "wrap":
+            lines.append(
+                f"pacing     one sample per PWM wrap (DREQ_PWM_WRAP0 + slice = {d['dreq']} + n)"
+            )
+        else:
+            x, y = plan.timer_xy or (0, 0)
+            lines.append(
+                f"pacing     {plan.periods_per_sample} PWM periods per sample: DMA timer "
+                f"X/Y = {x}/{y} (DREQ_DMA_TIMER0 = {d['dreq']})"
+            )
+        return ClockReport(d, lines)
+
+    def clock_planner(self, rate_hz: float, settings: Mapping[str, Any]) -> Callable[[int], Any]:
+        """The slice's divider x (TOP + 1) x periods a sample, at each clock."""
+        carrier = settings.get("min_carrier_hz")
+        return lambda f: plan_pwm(
+            rate_hz, sys_clock_hz=f, min_carrier_hz=carrier, tolerance_ppm=1e9
+        )
+
+    def clock_row(self, plan: Any) -> tuple[dict[str, Any], str]:
+        """Divider, TOP, periods per sample and levels."""
+        row = {
+            "div_int": plan.div_int,
+            "div_frac": plan.div_frac,
+            "top": plan.top,
+            "periods_per_sample": plan.periods_per_sample,
+            "levels": plan.levels,
+        }
+        text = f"TOP {plan.top}, {plan.periods_per_sample} period(s) a sample, {plan.levels} levels"
+        return row, text
+
+
+#: The registered object.
+OUTPUT = PwmOutput()
