@@ -328,6 +328,7 @@ def cli(debug: bool) -> None:
     Safety: never drive a speaker or headphones from the ladder directly, keep
     listening levels low, and leave mains-powered gear to qualified people.
     """
+    _warnings_as_lines()
     ctx = click.get_current_context()
     sub = ctx.invoked_subcommand
     command = cli.commands.get(sub) if sub else None
@@ -1990,6 +1991,29 @@ def signals_as_interrupt() -> None:
             # worker thread by a host program) the host's own handling stays
             with contextlib.suppress(ValueError):
                 signal.signal(sig, handler)
+
+
+def _warnings_as_lines() -> None:
+    """Print an old option spelling's warning as one ``ladderpack: warning:`` line (once)."""
+    import warnings
+
+    from ladderpack.errors import DeprecatedOptionWarning
+
+    if getattr(warnings.showwarning, "_ladderpack", False):
+        return
+    shown: set[str] = set()
+    default = warnings.showwarning
+
+    def show(message: Any, category: Any, filename: str, lineno: int, *a: Any, **k: Any) -> None:
+        if not issubclass(category, DeprecatedOptionWarning):
+            default(message, category, filename, lineno, *a, **k)
+        elif str(message) not in shown:
+            shown.add(str(message))
+            click.echo(f"ladderpack: warning: {message}", err=True)
+
+    show._ladderpack = True  # type: ignore[attr-defined]
+    warnings.showwarning = show
+    warnings.simplefilter("always", DeprecatedOptionWarning)
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -60,8 +60,8 @@ def run_demo(
     )
     results.append((bench.summary(), write_bundle(bench, out_dir)))
     variants: tuple[tuple[str, dict[str, Any]], ...] = (
-        ("i2s_amp", {"output": "i2s", "bits": 16, "out_base": 26, "clock_pin": 27}),
-        ("pwm", {"output": "pwm", "out_base": 15}),
+        ("i2s_amp", {"output": "i2s", "bits": 16, "data_pin": 26, "bit_clock_pin": 27}),
+        ("pwm", {"output": "pwm", "pwm_pin": 15}),
     )
     for folder, opts in variants:
         for clip in ("door_chime.flac", "frost_warning.flac"):
@@ -76,8 +76,8 @@ def run_demo(
         dwell_ms=100.0,
         rate_hz=1000.0,
         ramp_ms=0.0,
-        out_base=4,
-        clock_pin=5,
+        sda_pin=4,
+        scl_pin=5,
         loop=True,
     )
     results.append((volts.summary(), write_bundle(volts, os.path.join(out_dir, "i2c_bench"))))

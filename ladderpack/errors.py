@@ -71,3 +71,11 @@ class ClockError(LadderpackError, ValueError):
 
 class OutputError(LadderpackError):
     """An output folder or file cannot be written."""
+
+
+class DeprecatedOptionWarning(FutureWarning):
+    """An option given by an old spelling, which keeps working for one more release.
+
+    The command line prints it as a warning line; a program can turn it into an error
+    with :func:`warnings.simplefilter`.
+    """

@@ -24,6 +24,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import typing
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
@@ -42,7 +43,7 @@ from ladderpack.defaults import (
     TONE_KINDS,
     WEIGHTING_NAMES,
 )
-from ladderpack.errors import LadderpackError, OptionError
+from ladderpack.errors import DeprecatedOptionWarning, LadderpackError, OptionError
 from ladderpack.targets import MAX_SYS_CLOCK_HZ, TARGET_NAMES, get_target
 
 __all__ = [
@@ -279,6 +280,10 @@ class _Model:
         }
 
 
+#: The version until which the old spellings of renamed options keep working.
+RENAMES_UNTIL = "0.3"
+
+
 def _and(names: tuple[str, ...]) -> str:
     """``a``, ``a and b``, ``a, b and c``."""
     return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
@@ -293,6 +298,27 @@ def _check_groups(obj: Any) -> outputs.Entry | None:
     out = outputs.REGISTRY_BY_NAME.get(obj.output) if isinstance(obj.output, str) else None
     if out is None:
         return None
+    for old, new in out.renamed.items():
+        if hasattr(obj, old) and _flag_given(obj, old):
+            if _flag_given(obj, new):
+                raise OptionError(f"give {new} (or its old spelling {old}), not both", field=old)
+            value = getattr(obj, old)
+            object.__setattr__(obj, new, value)
+            object.__setattr__(obj, old, {f.name: f for f in dataclasses.fields(obj)}[old].default)
+            warnings.warn(
+                DeprecatedOptionWarning(
+                    f"{old} is the old spelling of {new} for output {obj.output}; it keeps "
+                    f"working until version {RENAMES_UNTIL}: use {new}"
+                ),
+                stacklevel=4,
+            )
+    if getattr(obj, "clock_pin", None) is not None:
+        olds = tuple(e.name for e in outputs.REGISTRY if "clock_pin" in e.renamed)
+        raise OptionError(
+            f"applies to output{'s' if len(olds) > 1 else ''} {_and(olds)} (an old "
+            f"spelling), not to output {obj.output}",
+            field="clock_pin",
+        )
     for f, info, _hint in option_fields(type(obj)):
         if info.group and info.group not in out.takes and _flag_given(obj, f.name):
             who = outputs.takers(info.group)
@@ -448,20 +474,48 @@ class StreamOptions(_Model):
     )
     out_base: int = _opt(
         0,
-        "Lowest GPIO of the ladder's N consecutive pins: the ladder's least significant "
-        "bit with --pin-order msb-high, its most significant bit with msb-low. For I2S, "
-        "the serial data pin; for PWM, the pin; for an I2C DAC, SDA.",
+        "Lowest GPIO of the ladder's N consecutive pins (the state machine's OUT base): the "
+        "ladder's least significant bit with --pin-order msb-high, its most significant bit "
+        "with msb-low; two ladders take 2N pins from here, the left ladder first.",
         unit="GPIO",
         lo=0,
+        group="ladder",
+    )
+    data_pin: int = _opt(
+        0, "GPIO of the serial data line (I2S SD).", unit="GPIO", lo=0, group="serial"
+    )
+    bit_clock_pin: int | None = _opt(
+        None,
+        "GPIO of the bit clock (I2S BCLK); the word select (LR clock) is on the next GPIO.",
+        unit="GPIO",
+        lo=0,
+        default_text="data pin + 1",
+        group="serial",
+    )
+    pwm_pin: int = _opt(
+        0,
+        "GPIO of the PWM output (a stereo stream: channel A's, an even GPIO; B on the next).",
+        unit="GPIO",
+        lo=0,
+        group="pwm",
+    )
+    sda_pin: int = _opt(0, "GPIO of the I2C data line, SDA.", unit="GPIO", lo=0, group="i2c")
+    scl_pin: int | None = _opt(
+        None,
+        "GPIO of the I2C clock line, SCL.",
+        unit="GPIO",
+        lo=0,
+        default_text="SDA pin + 1",
+        group="i2c",
     )
     clock_pin: int | None = _opt(
         None,
-        "I2S: GPIO of the bit clock, the word select (LR clock) on the next GPIO. I2C "
-        "DAC: GPIO of SCL.",
+        "Deprecated spelling of --bit-clock-pin (I2S) and --scl-pin (I2C DAC); it keeps "
+        "working until version 0.3.",
         unit="GPIO",
         lo=0,
-        default_text="out_base + 1",
-        group="serial-clock",
+        default_text="none",
+        recorded=False,
     )
     bus_hz: int = _opt(
         400_000,

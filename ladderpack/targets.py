@@ -169,7 +169,13 @@ class Target:
         return tuple(self.reg(f"PIO{k}_BASE") for k in range(self.pio_blocks))
 
     def gpio_window(
-        self, first_gpio: int, pins: int, gpio_count: int | None = None, *, what: str = ""
+        self,
+        first_gpio: int,
+        pins: int,
+        gpio_count: int | None = None,
+        *,
+        what: str = "",
+        field: str = "out_base",
     ) -> int:
         """The PIO GPIO base whose 32-pin window holds GPIO ``first_gpio`` .. ``+ pins - 1``.
 
@@ -184,6 +190,8 @@ class Target:
         what : str, optional
             What the pins carry, for the messages (default ``"a N-bit ladder"``), e.g.
             ``"the I2S lines (data, bit clock, word select)"``.
+        field : str, optional
+            The option an error names (default the ladder's ``out_base``).
 
         Returns
         -------
@@ -203,7 +211,7 @@ class Target:
             raise OptionError(
                 f"{what} from GPIO {first_gpio} needs GPIO {first_gpio}..{last}, "
                 f"but the target has GPIO 0..{count - 1}" + self.more_pins_hint(last),
-                field="out_base",
+                field=field,
             )
         for base in self.gpio_bases:
             if base <= first_gpio and last <= base + 31:
@@ -212,7 +220,7 @@ class Target:
         raise OptionError(
             f"{what} on GPIO {first_gpio}..{last} straddle the PIO block's 32-pin window (a "
             f"state machine reaches GPIO {windows}); move them inside one window",
-            field="out_base",
+            field=field,
         )
 
 

@@ -294,8 +294,8 @@ class Bundle:
 def make(folder: Path, name: str, **opts: object) -> Bundle:
     base: dict[str, object] = {
         "output": "i2c-dac",
-        "out_base": SDA,
-        "clock_pin": SCL,
+        "sda_pin": SDA,
+        "scl_pin": SCL,
         "rate_hz": 8000.0,
         "freq_hz": 250.0,
         "seconds": 0.02,
@@ -413,7 +413,7 @@ def test_player_reports_a_missing_acknowledge(fw: Firmware, tmp_path: Path) -> N
 
 
 def test_player_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
-    make(tmp_path, "level", target="rp2350b", out_base=34, clock_pin=35)
+    make(tmp_path, "level", target="rp2350b", sda_pin=34, scl_pin=35)
     ops = [("init", 0), ("start", 0), ("wait", 0)]
     image = fw2350.make(tmp_path, [], [], app=c_app("level", ops))
     assert image.stat().st_size > 0
@@ -428,8 +428,8 @@ def board(
         kind,
         name=name,
         output="i2c-dac",
-        out_base=SDA,
-        clock_pin=SCL,
+        sda_pin=SDA,
+        scl_pin=SCL,
         rate_hz=4000.0,
         **opts,
     )

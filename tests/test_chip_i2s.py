@@ -141,8 +141,8 @@ def make(folder: Path, name: str, **opts: object) -> Expected:
         "freq_hz": 1000.0,
         "seconds": 0.004,
         "rate_hz": 22050.0,
-        "out_base": DATA,
-        "clock_pin": CLOCK,
+        "data_pin": DATA,
+        "bit_clock_pin": CLOCK,
     }
     base.update(opts)
     if "cycles" in opts:
@@ -233,8 +233,8 @@ def board_files(folder: Path, name: str, *, embed: bool, **opts: object) -> tupl
         "freq_hz": 1000.0,
         "seconds": 0.01,
         "rate_hz": 22050.0,
-        "out_base": DATA,
-        "clock_pin": CLOCK,
+        "data_pin": DATA,
+        "bit_clock_pin": CLOCK,
         "chunk_words": 64,  # several buffers; 64 frames last 2.9 ms at 22.05 kHz
     }
     base.update(opts)
@@ -304,8 +304,8 @@ def test_stereo_slots_carry_their_own_channel(fw: Firmware, tmp_path: Path, bits
         output="i2s",
         stereo=True,
         bits=bits,
-        out_base=DATA,
-        clock_pin=CLOCK,
+        data_pin=DATA,
+        bit_clock_pin=CLOCK,
     )
     write_bundle(asset, tmp_path)
     exp = Expected.load(tmp_path, "duet")
@@ -334,8 +334,8 @@ def test_micropython_stereo(tmp_path: Path) -> None:
         stereo=True,
         bits=24,
         rate_hz=16000.0,
-        out_base=DATA,
-        clock_pin=CLOCK,
+        data_pin=DATA,
+        bit_clock_pin=CLOCK,
         chunk_words=64,
     )
     files = bundle_files(asset, embed_words_max=0)

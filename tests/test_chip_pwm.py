@@ -130,7 +130,7 @@ def make(folder: Path, name: str, **opts: object) -> tuple[Expected, dict[str, b
         "seconds": 0.004,
         "rate_hz": 22050.0,
         "ramp_ms": 0.5,
-        "out_base": 5,
+        "pwm_pin": 5,
     }
     base.update(opts)
     if "cycles" in opts:
@@ -155,7 +155,7 @@ def test_c_player_every_period_holds_its_sample(
     fw: Firmware, tmp_path: Path, rate_hz: float, min_carrier_hz: float | None, pin: int
 ) -> None:
     exp, _files = make(
-        tmp_path, "chirp", rate_hz=rate_hz, min_carrier_hz=min_carrier_hz, out_base=pin
+        tmp_path, "chirp", rate_hz=rate_hz, min_carrier_hz=min_carrier_hz, pwm_pin=pin
     )
     image = fw.make(tmp_path, [], [], app=app("chirp", [("init", 0), ("start", 0), ("wait", 0)]))
     r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
@@ -270,7 +270,7 @@ def test_stereo_uses_both_channels_of_the_slice(fw: Firmware, tmp_path: Path) ->
     t = np.arange(2000) / 48000.0
     x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
     asset = stream_signal(
-        Signal(x, 48000.0), name="duet", output="pwm", stereo=True, out_base=6, ramp_ms=0.5
+        Signal(x, 48000.0), name="duet", output="pwm", stereo=True, pwm_pin=6, ramp_ms=0.5
     )
     write_bundle(asset, tmp_path)
     side = json.loads((tmp_path / "duet.json").read_text())
@@ -299,7 +299,7 @@ def test_micropython_stereo(tmp_path: Path) -> None:
         name="duet",
         output="pwm",
         stereo=True,
-        out_base=6,
+        pwm_pin=6,
         ramp_ms=0.5,
         rate_hz=16000.0,
         chunk_words=64,

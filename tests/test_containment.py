@@ -775,7 +775,7 @@ def test_code_far_outside_the_ladder_takes_the_nearest_end(
 @pytest.mark.parametrize(
     "args",
     [
-        ["--target", "rp2040", "--gpio-count", "2000", "--output", "pwm", "--out-base", "1999"],
+        ["--target", "rp2040", "--gpio-count", "2000", "--output", "pwm", "--pwm-pin", "1999"],
         ["--target", "rp2350", "--gpio-count", "48", "--out-base", "40"],
         ["--sys-clock-hz", "10000000000"],  # beyond the PLL; overflowed uint32_t in C
     ],
@@ -855,7 +855,7 @@ def test_the_highest_i2c_rate_rounded_is_accepted(
 @pytest.mark.parametrize(
     ("args", "said"),
     [
-        (["--output", "i2s", "--out-base", "15", "--clock-pin", "46"], "the I2S lines"),
+        (["--output", "i2s", "--data-pin", "15", "--bit-clock-pin", "46"], "the I2S lines"),
         (["--stereo", "--bits", "12", "--out-base", "10"], "two 12-bit ladders"),
         (
             [
@@ -865,9 +865,9 @@ def test_the_highest_i2c_rate_rounded_is_accepted(
                 "1000",
                 "--freq-hz",
                 "100",
-                "--out-base",
+                "--sda-pin",
                 "10",
-                "--clock-pin",
+                "--scl-pin",
                 "40",
             ],
             "the I2C lines",
@@ -940,7 +940,7 @@ def test_a_loudness_target_on_a_short_clip_names_the_clip_and_option(tmp_path: P
     assert "asset 'b'" in res.stderr and "loudness_lufs" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["--out-base", "36"], ["--output", "pwm", "--out-base", "36"]])
+@pytest.mark.parametrize("args", [["--out-base", "36"], ["--output", "pwm", "--pwm-pin", "36"]])
 def test_pins_beyond_the_rp2350a_point_to_the_rp2350b(tmp_path: Path, args: list[str]) -> None:
     # RP2350 datasheet: the QFN-60 package has GPIO 0..29, the QFN-80 (RP2350B) 0..47
     res = _cli("tone", "sine", "--target", "rp2350", "-o", "x", *args, cwd=tmp_path)

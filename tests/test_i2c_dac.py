@@ -225,8 +225,8 @@ def test_state_machine_registers_name_the_pins() -> None:
 def test_stream_options_for_an_i2c_dac() -> None:
     from ladderpack.options import StreamOptions
 
-    o = StreamOptions(output="i2c-dac", out_base=4)
-    assert (o.bits, o.clock_pin, o.bus_hz, o.dac_address, o.dac_command) == (
+    o = StreamOptions(output="i2c-dac", sda_pin=4)
+    assert (o.bits, o.scl_pin, o.bus_hz, o.dac_address, o.dac_command) == (
         12,
         5,
         400_000,
@@ -234,7 +234,8 @@ def test_stream_options_for_an_i2c_dac() -> None:
         "fast",
     )
     rec = o.to_dict()
-    assert {"bus_hz", "dac_address", "dac_command", "clock_pin"} <= set(rec)
+    assert {"bus_hz", "dac_address", "dac_command", "sda_pin", "scl_pin"} <= set(rec)
+    assert "out_base" not in rec and "clock_pin" not in rec
     assert "frame_format" not in rec and "stereo" not in rec and "levels" not in rec
     # a ladder records none of the I2C keys (its records are unchanged)
     assert not {"bus_hz", "dac_address", "dac_command"} & set(StreamOptions().to_dict())
@@ -244,14 +245,15 @@ def test_stream_options_for_an_i2c_dac() -> None:
         ({"bus_hz": 3_400_000}, "bus_hz"),
         ({"dac_address": 0x78}, "dac_address"),
         ({"idle_code": 4096}, "idle_code"),
-        ({"clock_pin": 4}, "clock_pin"),
-        ({"clock_pin": 30}, "clock_pin"),
+        ({"scl_pin": 4}, "scl_pin"),
+        ({"scl_pin": 30}, "scl_pin"),
+        ({"data_pin": 7}, "data_pin"),
         ({"frame_format": "left-justified"}, "frame_format"),
         ({"pin_order": "msb-low"}, "pin_order"),
     ]
     for kw, field in bad:
         with pytest.raises(OptionError) as e:
-            StreamOptions(**{"output": "i2c-dac", "out_base": 4, **kw})
+            StreamOptions(**{"output": "i2c-dac", "sda_pin": 4, **kw})
         assert e.value.field == field, kw
     with pytest.raises(OptionError) as e:
         StreamOptions(bus_hz=100_000)

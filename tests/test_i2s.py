@@ -130,13 +130,15 @@ def test_options_refuse_what_does_not_apply() -> None:
     from ladderpack.options import StreamOptions
 
     assert StreamOptions(output="i2s").bits == 16
-    assert StreamOptions(output="i2s", out_base=5).clock_pin == 6
+    assert StreamOptions(output="i2s", data_pin=5).bit_clock_pin == 6
     for bad, field in (
         ({"bits": 12}, "bits"),
         ({"invert": True}, "invert"),
         ({"levels": "x.json"}, "levels"),
         ({"ramp_ms": 1.0}, "ramp_ms"),
-        ({"clock_pin": 0}, "clock_pin"),
+        ({"bit_clock_pin": 0}, "bit_clock_pin"),
+        ({"out_base": 3, "data_pin": 4}, "out_base"),
+        ({"sda_pin": 3}, "sda_pin"),
     ):
         with pytest.raises(OptionError) as info:
             StreamOptions(output="i2s", **bad)
@@ -187,7 +189,7 @@ def test_a_manifest_builds_an_i2s_asset(tmp_path) -> None:
 
     (tmp_path / "ladderpack.toml").write_text(
         '[project]\nout_dir = "gen"\n\n[[asset]]\nname = "amp"\ntone = "sine"\n'
-        'output = "i2s"\nbits = 16\nseconds = 0.002\nout_base = 9\n'
+        'output = "i2s"\nbits = 16\nseconds = 0.002\ndata_pin = 9\n'
     )
     res = CliRunner().invoke(cli, ["build", str(tmp_path / "ladderpack.toml")])
     assert res.exit_code == 0, res.output
@@ -200,5 +202,5 @@ def test_pins_the_target_lacks_are_named() -> None:
     from ladderpack.options import StreamOptions
 
     with pytest.raises(OptionError) as info:
-        StreamOptions(output="i2s", clock_pin=29)  # word select would be GPIO 30
-    assert info.value.field == "clock_pin" and "word select" in info.value.message
+        StreamOptions(output="i2s", bit_clock_pin=29)  # word select would be GPIO 30
+    assert info.value.field == "bit_clock_pin" and "word select" in info.value.message

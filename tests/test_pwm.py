@@ -12,7 +12,7 @@ from fractions import Fraction
 import pytest
 from chip.harness import sdk_path
 
-from ladderpack.errors import ClockError, OptionError
+from ladderpack.errors import ClockError, DeprecatedOptionWarning, OptionError
 from ladderpack.outputs.pwm import (
     DREQ_DMA_TIMER0,
     DREQ_PWM_WRAP0,
@@ -246,12 +246,17 @@ def test_pwm_options_refuse_what_does_not_apply() -> None:
         ({"bits": 8}, "bits"),
         ({"invert": True}, "invert"),
         ({"clock_pin": 3}, "clock_pin"),
-        ({"out_base": 30}, "out_base"),
+        ({"pwm_pin": 30}, "pwm_pin"),
     ]
     for bad, field in refused:
         with pytest.raises(OptionError) as info:
             StreamOptions(output="pwm", **bad)
         assert info.value.field == field
+    # the old spelling is moved to its new name, with a warning, and checked there
+    old = "out_base is the old spelling of pwm_pin"
+    with pytest.warns(DeprecatedOptionWarning, match=old), pytest.raises(OptionError) as info:
+        StreamOptions(output="pwm", out_base=30)
+    assert info.value.field == "pwm_pin"
     with pytest.raises(OptionError) as info:
         StreamOptions(min_carrier_hz=100000.0)
     assert info.value.field == "min_carrier_hz"
@@ -306,8 +311,11 @@ def test_a_manifest_builds_a_pwm_asset(tmp_path) -> None:
     )
     res = CliRunner().invoke(cli, ["build", str(tmp_path / "ladderpack.toml")])
     assert res.exit_code == 0, res.output
+    # a manifest in the wild keeps working for a release with the old spelling, and says so
+    assert "warning: out_base is the old spelling of pwm_pin for output pwm" in res.output
     side = json.loads((tmp_path / "gen" / "beep.json").read_text())
     assert side["pwm"]["slice"] == 7 and side["pwm"]["channel"] == "B"
+    assert side["options"]["pwm_pin"] == 15 and "out_base" not in side["options"]
     assert (tmp_path / "gen" / "ladderpack_pwm.c").is_file()
 
 

@@ -146,3 +146,31 @@ def test_an_option_of_another_output_is_refused_naming_who_takes_it() -> None:
         match="idle_code: applies to outputs ladder, pwm and i2c-dac, not to output i2s",
     ):
         StreamOptions(output="i2s", idle_code=3)
+
+
+def test_old_pin_spellings_keep_working_for_a_release_and_say_so(tmp_path: Path) -> None:
+    import json
+    import subprocess
+    import sys
+
+    # the command line: one warning line per old spelling, the bundle under the new names
+    res = subprocess.run(
+        [sys.executable, "-m", "ladderpack", "tone", "sine", "--output", "i2s", "--seconds",
+         "0.002", "--out-base", "9", "--clock-pin", "10", "--name", "t", "-o", str(tmp_path)],
+        capture_output=True, text=True,
+    )  # fmt: skip
+    assert res.returncode == 0, res.stderr
+    lines = [x for x in res.stderr.splitlines() if "warning:" in x]
+    assert len(lines) == 2, res.stderr
+    assert "out_base is the old spelling of data_pin" in lines[0]
+    assert "clock_pin is the old spelling of bit_clock_pin" in lines[1]
+    side = json.loads((tmp_path / "t.json").read_text())
+    assert (side["options"]["data_pin"], side["options"]["bit_clock_pin"]) == (9, 10)
+    assert not {"out_base", "clock_pin"} & set(side["options"])
+    # an old spelling of an option the output never took is still refused
+    from ladderpack.errors import OptionError
+
+    with pytest.raises(OptionError, match="clock_pin: applies to outputs i2s and i2c-dac"):
+        StreamOptions(clock_pin=3)
+    with pytest.raises(OptionError, match="give data_pin .* not both"):
+        StreamOptions(output="i2s", out_base=3, data_pin=4)

@@ -80,10 +80,10 @@ def test_rp2350_pwm_is_not_where_the_rp2040s_was() -> None:
 OUTPUT_ARGS = {
     "ladder": ["--bits", "8", "--out-base", "2"],
     "ladder-stereo": ["--bits", "6", "--stereo", "--out-base", "0"],
-    "i2s": ["--output", "i2s", "--out-base", "10"],
-    "pwm": ["--output", "pwm", "--out-base", "15"],
-    "pwm-stereo": ["--output", "pwm", "--stereo", "--out-base", "14"],
-    "pwm-timer": ["--output", "pwm", "--out-base", "3", "--rate-hz", "44100"],
+    "i2s": ["--output", "i2s", "--data-pin", "10"],
+    "pwm": ["--output", "pwm", "--pwm-pin", "15"],
+    "pwm-stereo": ["--output", "pwm", "--stereo", "--pwm-pin", "14"],
+    "pwm-timer": ["--output", "pwm", "--pwm-pin", "3", "--rate-hz", "44100"],
     "i2c-dac": ["--output", "i2c-dac", "--out-base", "4", "--rate-hz", "8000"],
 }
 

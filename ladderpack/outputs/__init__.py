@@ -26,7 +26,8 @@ Examples
 from __future__ import annotations
 
 import importlib
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 from ladderpack.errors import OptionError
@@ -66,6 +67,9 @@ class Entry:
     named_in_records : bool
         Whether sidecars and fingerprints record the ``output`` key (a ladder's do not:
         its records are those of the versions before other outputs existed).
+    renamed : mapping of str to str
+        Old option names this output still accepts, for one release, and the names that
+        replaced them (a deprecation warning says so).
     """
 
     name: str
@@ -74,6 +78,7 @@ class Entry:
     takes: frozenset[str]
     wave_tables: bool = True
     named_in_records: bool = True
+    renamed: Mapping[str, str] = field(default_factory=dict)
 
 
 #: The output systems, in the order ``--help`` lists them.
@@ -89,20 +94,23 @@ REGISTRY: tuple[Entry, ...] = (
         "i2s",
         "ladderpack.outputs.i2s",
         "an I2S DAC or amplifier on three GPIOs",
-        frozenset({"width", "stereo", "serial-clock", "i2s"}),
+        frozenset({"width", "stereo", "serial", "i2s"}),
+        renamed={"out_base": "data_pin", "clock_pin": "bit_clock_pin"},
     ),
     Entry(
         "pwm",
         "ladderpack.outputs.pwm",
         "a PWM slice on one GPIO, through an RC filter",
         frozenset({"level", "stereo", "pwm"}),
+        renamed={"out_base": "pwm_pin"},
     ),
     Entry(
         "i2c-dac",
         "ladderpack.outputs.i2c_dac",
         "a 12-bit I2C DAC, one bus write per sample, on two GPIOs",
-        frozenset({"width", "level", "serial-clock", "i2c"}),
+        frozenset({"width", "level", "i2c"}),
         wave_tables=False,
+        renamed={"out_base": "sda_pin", "clock_pin": "scl_pin"},
     ),
 )
 

@@ -1255,30 +1255,31 @@ class I2cDacOutput:
             raise OptionError(
                 f"must be 0..4095 for 12 bits, got {opts.idle_code}", field="idle_code"
             )
-        if opts.clock_pin is None:
-            object.__setattr__(opts, "clock_pin", opts.out_base + 1)
-        sda, scl = opts.out_base, int(opts.clock_pin or 0)
+        if opts.scl_pin is None:
+            object.__setattr__(opts, "scl_pin", opts.sda_pin + 1)
+        sda, scl = opts.sda_pin, int(opts.scl_pin or 0)
         if sda == scl:
-            raise OptionError(f"SDA and SCL are both GPIO {sda}", field="clock_pin")
+            raise OptionError(f"SDA and SCL are both GPIO {sda}", field="scl_pin")
         count = int(opts.gpio_count or 0)
         if max(sda, scl) >= count:
             raise OptionError(
                 f"the I2C lines need GPIO {sda} (SDA) and {scl} (SCL), but the target has "
                 f"GPIO 0..{count - 1}" + get_target(opts.target).more_pins_hint(max(sda, scl)),
-                field="clock_pin" if scl >= count else "out_base",
+                field="scl_pin" if scl >= count else "sda_pin",
             )
         self.gpio_base(opts)
 
     def gpio_base(self, opts: StreamOptions) -> int:
         """The PIO GPIO base reaching SDA and SCL."""
-        sda = opts.out_base
-        scl = int(opts.clock_pin if opts.clock_pin is not None else sda + 1)
+        sda = opts.sda_pin
+        scl = int(opts.scl_pin if opts.scl_pin is not None else sda + 1)
         lo, hi = min(sda, scl), max(sda, scl)
         return get_target(opts.target).gpio_window(
             lo,
             hi - lo + 1,
             int(opts.gpio_count or 0),
             what=f"the I2C lines (SDA GPIO {sda}, SCL GPIO {scl})",
+            field="sda_pin",
         )
 
     def recorded_options(self, opts: StreamOptions, recorded: dict[str, Any]) -> dict[str, Any]:
@@ -1300,8 +1301,8 @@ class I2cDacOutput:
         sm = i2c_state_machine(
             program,
             writer.clock,
-            sda_pin=opts.out_base,
-            scl_pin=int(opts.clock_pin or 0),
+            sda_pin=opts.sda_pin,
+            scl_pin=int(opts.scl_pin or 0),
             gpio_base=self.gpio_base(opts),
         )
         return OutputPlan(
@@ -1325,8 +1326,8 @@ class I2cDacOutput:
             "i2c_dac": {
                 **writer.to_dict(),
                 **plan.layout.fmt.to_dict(),
-                "sda_pin": opts.out_base,
-                "scl_pin": opts.clock_pin,
+                "sda_pin": opts.sda_pin,
+                "scl_pin": opts.scl_pin,
             }
         }
         if abs(writer.error_ppm) > opts.rate_tolerance_ppm:  # the divider is always whole

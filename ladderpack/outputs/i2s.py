@@ -874,8 +874,8 @@ def _lines(pins: tuple[int, ...]) -> str:
 
 def _pins(opts: StreamOptions) -> tuple[int, int, int]:
     """Data, bit clock and word select (the GPIO after the bit clock)."""
-    bclk = int(opts.clock_pin if opts.clock_pin is not None else opts.out_base + 1)
-    return (opts.out_base, bclk, bclk + 1)
+    bclk = int(opts.bit_clock_pin if opts.bit_clock_pin is not None else opts.data_pin + 1)
+    return (opts.data_pin, bclk, bclk + 1)
 
 
 class I2sOutput:
@@ -895,14 +895,14 @@ class I2sOutput:
     def check_options(self, opts: StreamOptions) -> None:
         """A 16, 24 or 32-bit sample; three distinct pins on the target, in one window."""
         self.check_bits(opts.bits)
-        if opts.clock_pin is None:
-            object.__setattr__(opts, "clock_pin", opts.out_base + 1)
+        if opts.bit_clock_pin is None:
+            object.__setattr__(opts, "bit_clock_pin", opts.data_pin + 1)
         pins = _pins(opts)
-        if opts.out_base in pins[1:]:
+        if opts.data_pin in pins[1:]:
             raise OptionError(
-                f"the data pin GPIO {opts.out_base} is also the bit clock or word select "
+                f"the data pin GPIO {opts.data_pin} is also the bit clock or word select "
                 f"(GPIO {pins[1]} and {pins[2]})",
-                field="clock_pin",
+                field="bit_clock_pin",
             )
         count = int(opts.gpio_count or 0)
         if max(pins) >= count:
@@ -910,7 +910,7 @@ class I2sOutput:
                 f"the I2S lines need GPIO {pins[0]} (data), {pins[1]} (bit clock) and "
                 f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}"
                 + get_target(opts.target).more_pins_hint(max(pins)),
-                field="clock_pin" if pins[2] >= count else "out_base",
+                field="bit_clock_pin" if pins[2] >= count else "data_pin",
             )
         self.gpio_base(opts)
 
@@ -919,7 +919,7 @@ class I2sOutput:
         pins = _pins(opts)
         lo, hi = min(pins), max(pins)
         return get_target(opts.target).gpio_window(
-            lo, hi - lo + 1, int(opts.gpio_count or 0), what=_lines(pins)
+            lo, hi - lo + 1, int(opts.gpio_count or 0), what=_lines(pins), field="data_pin"
         )
 
     def recorded_options(self, opts: StreamOptions, recorded: dict[str, Any]) -> dict[str, Any]:
@@ -940,8 +940,8 @@ class I2sOutput:
             program,
             layout,
             clock,
-            data_pin=opts.out_base,
-            clock_pin=int(opts.clock_pin or 0),
+            data_pin=opts.data_pin,
+            clock_pin=int(opts.bit_clock_pin or 0),
             gpio_count=int(opts.gpio_count or 0),
             gpio_base=self.gpio_base(opts),
         )
@@ -965,9 +965,9 @@ class I2sOutput:
             "i2s": {
                 **I2sPlan(plan.clock, STREAM_SLOT_BITS).to_dict(),
                 "frame_format": opts.frame_format,
-                "data_pin": opts.out_base,
-                "bit_clock_pin": opts.clock_pin,
-                "word_select_pin": int(opts.clock_pin or 0) + 1,
+                "data_pin": opts.data_pin,
+                "bit_clock_pin": opts.bit_clock_pin,
+                "word_select_pin": int(opts.bit_clock_pin or 0) + 1,
             }
         }
 

@@ -944,18 +944,18 @@ class PwmOutput:
 
     def check_options(self, opts: StreamOptions) -> None:
         """A stereo stream on a slice's channel A (an even GPIO); the pins on the target."""
-        if opts.stereo and opts.out_base % 2:
+        if opts.stereo and opts.pwm_pin % 2:
             raise OptionError(
                 f"a stereo PWM stream uses both channels of a slice: give its channel A "
-                f"(an even GPIO), got GPIO {opts.out_base}",
-                field="out_base",
+                f"(an even GPIO), got GPIO {opts.pwm_pin}",
+                field="pwm_pin",
             )
-        if opts.out_base + int(opts.stereo) >= int(opts.gpio_count or 0):
+        if opts.pwm_pin + int(opts.stereo) >= int(opts.gpio_count or 0):
             raise OptionError(
-                f"the PWM pin GPIO {opts.out_base} is not on the target (GPIO 0.."
+                f"the PWM pin GPIO {opts.pwm_pin} is not on the target (GPIO 0.."
                 f"{int(opts.gpio_count or 0) - 1})"
-                + get_target(opts.target).more_pins_hint(opts.out_base + int(opts.stereo)),
-                field="out_base",
+                + get_target(opts.target).more_pins_hint(opts.pwm_pin + int(opts.stereo)),
+                field="pwm_pin",
             )
 
     def gpio_base(self, opts: StreamOptions) -> int:
@@ -987,7 +987,7 @@ class PwmOutput:
                 f"{opts.idle_code}",
                 field="idle_code",
             )
-        setup = PwmSetup(pwm_plan, opts.out_base, stereo=opts.stereo, chip=opts.target[:6])
+        setup = PwmSetup(pwm_plan, opts.pwm_pin, stereo=opts.stereo, chip=opts.target[:6])
         common: dict[str, Any] = {
             "clock": pwm_plan,
             "idle_code": opts.idle_code,
