@@ -284,6 +284,9 @@ class _Model:
 RENAMES_UNTIL = "0.3"
 
 
+_M = typing.TypeVar("_M")
+
+
 def _and(names: tuple[str, ...]) -> str:
     """``a``, ``a and b``, ``a, b and c``."""
     return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
@@ -320,7 +323,7 @@ def _check_groups(obj: Any) -> outputs.Entry | None:
             field="clock_pin",
         )
     for f, info, _hint in option_fields(type(obj)):
-        if info.group and info.group not in out.takes and _flag_given(obj, f.name):
+        if info.group and not _takes(out, info.group) and _flag_given(obj, f.name):
             who = outputs.takers(info.group)
             raise OptionError(
                 f"applies to output{'s' if len(who) > 1 else ''} {_and(who)}, not to "
@@ -330,6 +333,11 @@ def _check_groups(obj: Any) -> outputs.Entry | None:
     return out
 
 
+def _takes(out: outputs.Entry, group: str) -> bool:
+    """Whether an output takes the options of `group` (its listed groups and its own)."""
+    return group in out.takes or group == out.name
+
+
 def _recorded(obj: Any, record: dict[str, Any]) -> dict[str, Any]:
     """A record without the options of groups the output does not take.
 
@@ -337,7 +345,7 @@ def _recorded(obj: Any, record: dict[str, Any]) -> dict[str, Any]:
     """
     out = outputs.entry(obj.output)
     for f, info, _hint in option_fields(type(obj)):
-        if info.group and info.group not in out.takes:
+        if info.group and not _takes(out, info.group):
             record.pop(f.name, None)
     if not out.named_in_records:
         record.pop("output", None)
@@ -748,6 +756,44 @@ class StreamOptions(_Model):
                 )
 
 
+def _with_own_options(cls: type[_M]) -> type[_M]:
+    """`cls` with one field per own option of every registered output (group: its name).
+
+    The options an output alone takes are declared in its registry line
+    (:class:`ladderpack.outputs.OwnOption`), so an output is added without touching this
+    module; the class keeps its name, module and docstring.
+    """
+    extra: list[tuple[str, Any, Any]] = []
+    for e in outputs.REGISTRY:
+        for o in e.options:
+            info = OptionInfo(
+                o.help,
+                unit=o.unit,
+                choices=o.choices,
+                lo=o.lo,
+                hi=o.hi,
+                default_text=o.default_text,
+                flag=o.flag,
+                group=e.name,
+            )
+            hint: Any = o.kind if o.default is not None else (o.kind | None)
+            extra.append((o.name, hint, field(default=o.default, metadata={"option": info})))
+    if not extra:
+        return cls
+    made = dataclasses.make_dataclass(
+        cls.__name__,
+        extra,
+        bases=(cls,),
+        frozen=True,
+        namespace={"__doc__": cls.__doc__, "__module__": cls.__module__},
+    )
+    made.__qualname__ = cls.__qualname__
+    return typing.cast(type[_M], made)
+
+
+StreamOptions = _with_own_options(StreamOptions)  # type: ignore[misc]  # same class, more fields
+
+
 @dataclass(frozen=True)
 class ClipOptions(_Model):
     """How a clip is read: which channel, and in what blocks."""
@@ -901,7 +947,7 @@ class WaveTableSpec(_Model):
         if out is not None and self.bits is None:
             object.__setattr__(self, "bits", outputs.get_output(self.output).default_bits())
         self._check_fields()
-        if out is not None and "width" in out.takes:
+        if out is not None and _takes(out, "width"):
             outputs.get_output(self.output).check_bits(self.bits)
         if self.sys_clock_hz is None:
             object.__setattr__(self, "sys_clock_hz", get_target(self.target).sys_clock_hz)
@@ -1013,9 +1059,6 @@ def manifest_types(cls: type) -> dict[str, tuple[type, ...]]:
         types, _nullable = _base_types(hint)
         out[f.name] = (str,) if f.name == "levels" else types
     return out
-
-
-_M = typing.TypeVar("_M")
 
 
 def from_mapping(

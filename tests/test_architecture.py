@@ -33,6 +33,7 @@ LAYERS: dict[int, set[str]] = {
         "emit", "emit.binary", "emit.c", "emit.micropython", "emit.pioasm",
         "emit.player_c", "emit.sidecar", "emit.sweep", "emit.table",
         "emit.player_i2s", "emit.player_pwm", "emit.player_i2c", "emit.player_stereo",
+        "emit.templates",
     },
     5: {"outputs.base", "outputs.ladder", "outputs.i2s", "outputs.pwm", "outputs.i2c_dac"},
     6: {"bundle", "stream", "tables", "demo", "preview"},

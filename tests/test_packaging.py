@@ -23,9 +23,15 @@ REPO = Path(__file__).resolve().parent.parent
 PKG = REPO / "ladderpack"
 
 
+def _shipped(root: Path) -> set[Path]:
+    """The files a package tree must ship: its modules and its templates."""
+    return {*root.rglob("*.py"), *(p for p in (root / "templates").glob("*") if p.is_file())}
+
+
 def source_modules() -> set[str]:
-    """Every module file of the package in the source tree, relative to the repository."""
-    return {p.relative_to(REPO).as_posix() for p in PKG.rglob("*.py")}
+    """Every module and template of the package in the source tree, relative to the
+    repository."""
+    return {p.relative_to(REPO).as_posix() for p in _shipped(PKG)}
 
 
 @pytest.fixture(scope="module")
@@ -66,5 +72,5 @@ def test_the_installed_package_has_every_module() -> None:
     where = Path(ladderpack.__file__).resolve().parent
     if where == PKG.resolve():
         pytest.skip("ladderpack runs from the source tree here (an editable install)")
-    installed = {"ladderpack/" + p.relative_to(where).as_posix() for p in where.rglob("*.py")}
+    installed = {"ladderpack/" + p.relative_to(where).as_posix() for p in _shipped(where)}
     assert not sorted(source_modules() - installed)

@@ -172,5 +172,5 @@ def test_old_pin_spellings_keep_working_for_a_release_and_say_so(tmp_path: Path)
 
     with pytest.raises(OptionError, match="clock_pin: applies to outputs i2s and i2c-dac"):
         StreamOptions(clock_pin=3)
-    with pytest.raises(OptionError, match="give data_pin .* not both"):
+    with pytest.raises(OptionError, match=r"give data_pin .* not both"):
         StreamOptions(output="i2s", out_base=3, data_pin=4)

@@ -28,7 +28,7 @@ from __future__ import annotations
 import importlib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from ladderpack.errors import OptionError
 
@@ -45,6 +45,40 @@ __all__ = [
     "takers",
     "wave_table_outputs",
 ]
+
+
+@dataclass(frozen=True)
+class OwnOption:
+    """An option only one output takes, declared in its registry line.
+
+    :class:`ladderpack.options.StreamOptions` gains one field per own option of every
+    registered output (group: the output's name), so the command line, the manifest keys,
+    ``--help``, the records and the README rows follow from it like every other option.
+
+    Attributes
+    ----------
+    name : str
+        The field's name (``--name-with-dashes`` on the command line).
+    kind : type
+        The value's type: ``int``, ``float``, ``str`` or ``bool``.
+    default : object
+        The default (None: not given; `default_text` says what that means).
+    help : str
+        One line for ``--help`` and the README.
+    unit, choices, lo, hi, default_text, flag :
+        As :class:`ladderpack.options.OptionInfo`'s.
+    """
+
+    name: str
+    kind: type
+    default: Any
+    help: str
+    unit: str = ""
+    choices: tuple[str, ...] | None = None
+    lo: float | None = None
+    hi: float | None = None
+    default_text: str | None = None
+    flag: str | None = None
 
 
 @dataclass(frozen=True)
@@ -70,6 +104,8 @@ class Entry:
     renamed : mapping of str to str
         Old option names this output still accepts, for one release, and the names that
         replaced them (a deprecation warning says so).
+    options : tuple of OwnOption
+        Options only this output takes (their group is the output's name).
     """
 
     name: str
@@ -79,6 +115,7 @@ class Entry:
     wave_tables: bool = True
     named_in_records: bool = True
     renamed: Mapping[str, str] = field(default_factory=dict)
+    options: tuple[OwnOption, ...] = ()
 
 
 #: The output systems, in the order ``--help`` lists them.
@@ -129,8 +166,11 @@ def wave_table_outputs() -> tuple[str, ...]:
 
 
 def takers(group: str) -> tuple[str, ...]:
-    """The outputs that take the options of `group`, in registry order."""
-    return tuple(e.name for e in REGISTRY if group in e.takes)
+    """The outputs that take the options of `group`, in registry order.
+
+    An output takes the groups its entry lists and its own (its name).
+    """
+    return tuple(e.name for e in REGISTRY if group in e.takes or group == e.name)
 
 
 def entry(name: str) -> Entry:

@@ -1,0 +1,56 @@
+"""Static generated texts kept as real files: the templates in ``ladderpack/templates``.
+
+A template is a file of the language it generates (a C player is a ``.c`` file that
+compiles as it stands), with markers ``@@NAME@@`` only inside comments or strings, where
+the language ignores them.  :func:`render` is the one substitution step: every marker
+must get a value and every value must be one line, so a generated file has the
+template's lines one for one and a compiler's diagnostic points at the template's line.
+
+Examples
+--------
+>>> fill("/* made by @@TOOL@@ */", {"TOOL": "ladderpack"})
+'/* made by ladderpack */'
+"""
+
+from __future__ import annotations
+
+import functools
+import re
+from collections.abc import Mapping
+from importlib import resources
+
+__all__ = ["MARKER", "fill", "render", "source"]
+
+#: A marker: ``@@`` + capitals, digits and underscores + ``@@``.
+MARKER = re.compile(r"@@([A-Z][A-Z0-9_]*)@@")
+
+
+@functools.cache
+def source(name: str) -> str:
+    """The text of template `name` (a file name in ``ladderpack/templates``)."""
+    return resources.files("ladderpack").joinpath("templates", name).read_text(encoding="utf-8")
+
+
+def fill(text: str, values: Mapping[str, str]) -> str:
+    """Replace every ``@@NAME@@`` of `text` by ``values[NAME]``.
+
+    Raises
+    ------
+    KeyError
+        For a marker without a value, or a value no marker takes.
+    ValueError
+        For a value of more than one line (the lines would no longer match).
+    """
+    used = set(MARKER.findall(text))
+    missing, extra = used - set(values), set(values) - used
+    if missing or extra:
+        raise KeyError(f"template markers without values {sorted(missing)}, unused {sorted(extra)}")
+    for k, v in values.items():
+        if "\n" in v:
+            raise ValueError(f"the value of @@{k}@@ must be one line")
+    return MARKER.sub(lambda m: values[m.group(1)], text)
+
+
+def render(name: str, **values: str) -> str:
+    """Template `name` with its markers filled (see :func:`fill`)."""
+    return fill(source(name), values)
