@@ -47,13 +47,15 @@ from typing import Any
 
 from ladderpack import outputs
 from ladderpack._version import __version__
+from ladderpack.emit.names import PLAYER_FILES as _PLAYERS
 from ladderpack.errors import LadderpackError
 
 __all__ = ["STATE_NAME", "AssetSpec", "BuildResult", "Manifest", "build", "load_manifest"]
 
 STATE_NAME = ".ladderpack-state.json"
 INDEX_STEM = "assets"
-PLAYER_FILES = ("ladderpack_player.h", "ladderpack_player.c")
+#: The files bundles share (every output's C players), recorded once, not per asset.
+PLAYER_FILES = tuple(f"{stem}.{ext}" for stem in _PLAYERS for ext in ("h", "c"))
 
 
 def _types(cls_name: str) -> dict[str, tuple[type, ...]]:

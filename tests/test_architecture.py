@@ -35,7 +35,8 @@ LAYERS: dict[int, set[str]] = {
         "emit.player_i2s", "emit.player_pwm", "emit.player_i2c", "emit.player_stereo",
         "emit.templates",
     },
-    5: {"outputs.base", "outputs.ladder", "outputs.i2s", "outputs.pwm", "outputs.i2c_dac"},
+    # every output system's module (the registry's), whatever outputs there are
+    5: {f"outputs.{p.stem}" for p in (PKG / "outputs").glob("*.py") if p.stem != "__init__"},
     6: {"bundle", "stream", "tables", "demo", "preview"},
     7: {"build"},
     8: {"cli", "__main__"},

@@ -6,6 +6,7 @@ import keyword
 import re
 import unicodedata
 
+from ladderpack import outputs
 from ladderpack.errors import OptionError
 
 __all__ = [
@@ -77,15 +78,11 @@ C_KEYWORDS = frozenset(
 #: Identifiers an asset may not have, and why: fixed output names of the tool, and
 #: modules a bundle's MicroPython file would shadow on the board (the modules the
 #: generated code imports, and the two files MicroPython runs at start-up).
-#: The registry of files a bundle shares among its assets (the C players), by stem. A
-#: player module takes its file names from :func:`player_files`, which accepts only stems
-#: registered here, so every shared file's stem is a reserved asset name.
+#: The files a bundle shares among its assets (the C players), by stem, as each output's
+#: registry line lists them. A player takes its file names from :func:`player_files`, which
+#: accepts only stems registered so, and every shared file's stem is a reserved asset name.
 PLAYER_FILES: dict[str, str] = {
-    "ladderpack_player": "the ladder's C player",
-    "ladderpack_stereo": "the two-ladder C player",
-    "ladderpack_i2s": "the I2S C player",
-    "ladderpack_pwm": "the PWM C player",
-    "ladderpack_i2c": "the I2C DAC C player",
+    stem: what for e in outputs.REGISTRY for stem, what in e.players.items()
 }
 
 

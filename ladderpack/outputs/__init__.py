@@ -106,6 +106,10 @@ class Entry:
         replaced them (a deprecation warning says so).
     options : tuple of OwnOption
         Options only this output takes (their group is the output's name).
+    players : mapping of str to str
+        The stems of the C player files its bundles share (``<stem>.h``, ``<stem>.c``),
+        and what each is: every stem is a reserved asset name
+        (:data:`ladderpack.emit.names.PLAYER_FILES`).
     """
 
     name: str
@@ -116,6 +120,7 @@ class Entry:
     named_in_records: bool = True
     renamed: Mapping[str, str] = field(default_factory=dict)
     options: tuple[OwnOption, ...] = ()
+    players: Mapping[str, str] = field(default_factory=dict)
 
 
 #: The output systems, in the order ``--help`` lists them.
@@ -126,6 +131,10 @@ REGISTRY: tuple[Entry, ...] = (
         "an R-2R ladder on N GPIOs (two ladders for stereo)",
         frozenset({"width", "ladder", "level", "stereo"}),
         named_in_records=False,
+        players={
+            "ladderpack_player": "the ladder's C player",
+            "ladderpack_stereo": "the two-ladder C player",
+        },
     ),
     Entry(
         "i2s",
@@ -133,6 +142,7 @@ REGISTRY: tuple[Entry, ...] = (
         "an I2S DAC or amplifier on three GPIOs",
         frozenset({"width", "stereo", "serial", "i2s"}),
         renamed={"out_base": "data_pin", "clock_pin": "bit_clock_pin"},
+        players={"ladderpack_i2s": "the I2S C player"},
     ),
     Entry(
         "pwm",
@@ -140,6 +150,7 @@ REGISTRY: tuple[Entry, ...] = (
         "a PWM slice on one GPIO, through an RC filter",
         frozenset({"level", "stereo", "pwm"}),
         renamed={"out_base": "pwm_pin"},
+        players={"ladderpack_pwm": "the PWM C player"},
     ),
     Entry(
         "i2c-dac",
@@ -148,6 +159,7 @@ REGISTRY: tuple[Entry, ...] = (
         frozenset({"width", "level", "i2c"}),
         wave_tables=False,
         renamed={"out_base": "sda_pin", "clock_pin": "scl_pin"},
+        players={"ladderpack_i2c": "the I2C DAC C player"},
     ),
 )
 
