@@ -490,11 +490,16 @@ class StreamOptions(_Model):
         group="ladder",
     )
     data_pin: int = _opt(
-        0, "GPIO of the serial data line (I2S SD).", unit="GPIO", lo=0, group="serial"
+        0,
+        "GPIO of the serial data line into the DAC (I2S: SD).",
+        unit="GPIO",
+        lo=0,
+        group="serial",
     )
     bit_clock_pin: int | None = _opt(
         None,
-        "GPIO of the bit clock (I2S BCLK); the word select (LR clock) is on the next GPIO.",
+        "GPIO of the serial bit clock; the frame's next line (I2S: the word select) is on "
+        "the GPIO after it.",
         unit="GPIO",
         lo=0,
         default_text="data pin + 1",
