@@ -967,10 +967,14 @@ def test_a_clean_check_says_so_and_the_index_names_each_output(tmp_path: Path) -
 
 
 def test_option_refusals_and_player_comments_say_the_truth(tmp_path: Path) -> None:
-    # --ramp-ms is a ladder's, a PWM pin's and an I2C DAC's, not only a ladder's
+    # --ramp-ms is every output's that holds a DC level (the registry's), not only a ladder's
+    from ladderpack.outputs import takers
+
     res = _cli("tone", "sine", "--output", "i2s", "--ramp-ms", "3", "-o", "x", cwd=tmp_path)
     _one_line_exit_2(res)
-    assert "ladder, pwm and i2c-dac" in res.stderr
+    level = takers("level")
+    assert {"ladder", "pwm", "i2c-dac"} <= set(level)
+    assert ", ".join(level[:-1]) + " and " + level[-1] in res.stderr
     # the stereo player's header names the stereo macro
     from ladderpack.emit import player_stereo
 
