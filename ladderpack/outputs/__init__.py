@@ -161,6 +161,45 @@ REGISTRY: tuple[Entry, ...] = (
         renamed={"out_base": "sda_pin", "clock_pin": "scl_pin"},
         players={"ladderpack_i2c": "the I2C DAC C player"},
     ),
+    Entry(
+        "spi-dac",
+        "ladderpack.outputs.spi_dac",
+        "a 12-bit SPI DAC (channel A, or A and B for stereo) written each sample, on three "
+        "GPIOs (four with a latch)",
+        frozenset({"width", "level", "stereo", "serial"}),
+        wave_tables=False,
+        players={"ladderpack_spi": "the SPI DAC C player"},
+        options=(
+            OwnOption(
+                "sck_hz", int, 10_000_000, "SPI DAC only: highest SCK frequency.", unit="Hz", lo=1
+            ),
+            OwnOption(
+                "dac_gain",
+                int,
+                1,
+                "SPI DAC only: output gain, 1 or 2 (the frame's GA bit).",
+                unit="x",
+                lo=1,
+                hi=2,
+            ),
+            OwnOption(
+                "vref_buffer",
+                bool,
+                False,
+                "SPI DAC only: set the frame's BUF bit (VREF input buffered).",
+                flag="--vref-buffer/--no-vref-buffer",
+            ),
+            OwnOption(
+                "latch",
+                bool,
+                False,
+                "SPI DAC only: drive LDAC (on the GPIO after chip select) once a sample, "
+                "after the frames, so both channels change together; without it, tie LDAC "
+                "low.",
+                flag="--latch/--no-latch",
+            ),
+        ),
+    ),
 )
 
 #: The registry by name.
