@@ -39,7 +39,9 @@ LAYERS: dict[int, set[str]] = {
     5: {f"outputs.{p.stem}" for p in (PKG / "outputs").glob("*.py") if p.stem != "__init__"},
     6: {"bundle", "stream", "tables", "demo", "preview"},
     7: {"build"},
-    8: {"cli", "__main__"},
+    # the command line: the package and every command module
+    8: {"cli", "__main__"}
+    | {f"cli.{p.stem}" for p in (PKG / "cli").glob("*.py") if p.stem != "__init__"},
 }  # fmt: skip
 
 #: Signal processing, which emitters must not know.

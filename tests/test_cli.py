@@ -258,7 +258,8 @@ def test_cli_defaults_match_library() -> None:
     import numpy as np
 
     from ladderpack.audio import Signal
-    from ladderpack.cli import _TEXT_PARSERS, stream
+    from ladderpack.cli.common import _TEXT_PARSERS
+    from ladderpack.cli.streams import stream
     from ladderpack.options import StreamOptions, option_fields
     from ladderpack.stream import stream_signal
 
