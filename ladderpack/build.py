@@ -813,12 +813,13 @@ def _symbol_clashes(
     manifest: Manifest, rendered: dict[str, dict[str, bytes]], index: dict[str, bytes]
 ) -> None:
     """Refuse assets whose C macros or arrays would clash once the index includes them all."""
-    from ladderpack.emit import player_c
+    from ladderpack._version import __version__ as version
+    from ladderpack.emit import templates
     from ladderpack.emit.names import c_symbols
 
     owner: dict[str, str] = {}
     sources = [
-        ("the shared player", player_c.render_header()),
+        ("the shared player", templates.render("ladderpack_player.h", VERSION=version)),
         ("the index", index[f"{INDEX_STEM}.h"].decode()),
     ]
     for spec in manifest.assets:

@@ -31,8 +31,7 @@ LAYERS: dict[int, set[str]] = {
     3: {"asset"},
     4: {
         "emit", "emit.binary", "emit.c", "emit.micropython", "emit.pioasm",
-        "emit.player_c", "emit.sidecar", "emit.sweep", "emit.table",
-        "emit.player_i2s", "emit.player_pwm", "emit.player_i2c", "emit.player_stereo",
+        "emit.sidecar", "emit.sweep", "emit.table", "emit.player_stereo",
         "emit.templates",
     },
     # every output system's module (the registry's), whatever outputs there are

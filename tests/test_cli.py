@@ -130,6 +130,7 @@ def test_stream_json_summary(tmp_path: Path, clip: Path) -> None:
         "beep.json",
         "beep.pio",
         "beep.py",
+        "ladderpack_common.h",
         "ladderpack_player.c",
         "ladderpack_player.h",
     ]

@@ -82,7 +82,8 @@ C_KEYWORDS = frozenset(
 #: registry line lists them. A player takes its file names from :func:`player_files`, which
 #: accepts only stems registered so, and every shared file's stem is a reserved asset name.
 PLAYER_FILES: dict[str, str] = {
-    stem: what for e in outputs.REGISTRY for stem, what in e.players.items()
+    "ladderpack_common": "the header every C player includes",
+    **{stem: what for e in outputs.REGISTRY for stem, what in e.players.items()},
 }
 
 

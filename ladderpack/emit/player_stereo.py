@@ -1,7 +1,7 @@
 """C player of stereo ladder streams: two N-bit ladders written by one ``out pins, 2N``.
 
-Generated from the mono ladder player's text (:mod:`ladderpack.emit.player_c`) with its
-names prefixed ``lp_stereo_`` (so both players link into one firmware) and the few
+Generated from the mono ladder player's template (``templates/ladderpack_player.c``) with
+its names prefixed ``lp_stereo_`` (so both players link into one firmware) and the few
 functions that know what a code is replaced: here a code is a frame ``left | right << N``,
 pin order and inversion apply to each ladder on its own, and a ramp made at run time
 moves both ladders together, neither by more than the stream's largest step.  The mono
@@ -13,10 +13,11 @@ from __future__ import annotations
 import functools
 import re
 
-from ladderpack.emit import player_c
+from ladderpack._version import __version__
+from ladderpack.emit import templates
 from ladderpack.emit.names import player_files
 
-__all__ = ["HEADER_NAME", "SOURCE_NAME", "render_header", "render_source"]
+__all__ = ["HEADER_NAME", "SOURCE_NAME", "files", "render_header", "render_source"]
 
 HEADER_NAME, SOURCE_NAME = player_files("ladderpack_stereo")
 
@@ -66,8 +67,8 @@ static int32_t lp_stereo_ramp_at(uint32_t from, uint32_t to, uint32_t i, uint32_
         uint32_t pos = (i << 14) / n; /* 0..64 in Q8 */
         uint32_t idx = pos >> 8;
         int32_t frac = (int32_t)(pos & 255u);
-        int32_t c0 = lp_stereo_cosine_q15[idx];
-        int32_t c1 = lp_stereo_cosine_q15[idx < 64u ? idx + 1u : 64u];
+        int32_t c0 = lp_common_cosine_q15[idx];
+        int32_t c1 = lp_common_cosine_q15[idx < 64u ? idx + 1u : 64u];
         int32_t w = c0 + (((c1 - c0) * frac) >> 8);
         int64_t span = (int64_t)from - (int64_t)to;
         code = (int32_t)to + (int32_t)((span * w + (span >= 0 ? 16384 : -16384)) / 32768);
@@ -146,7 +147,7 @@ static __noinline uint32_t lp_stereo_build_ramp(lp_stereo_player_t *p, uint32_t 
 
 
 def _renamed(text: str) -> str:
-    text = re.sub(r"\blp_", "lp_stereo_", text)
+    text = re.sub(r"\blp_(?!common_)", "lp_stereo_", text)  # the shared header keeps its own
     text = re.sub(r"\bLP_", "LP_STEREO_", text)
     text = text.replace("LADDERPACK_PLAYER_H", "LADDERPACK_STEREO_H")
     return text.replace('"ladderpack_player.h"', '"ladderpack_stereo.h"')
@@ -163,7 +164,7 @@ def _replace_function(text: str, name: str, new: str) -> str:
 @functools.cache
 def render_header() -> str:
     """Return ``ladderpack_stereo.h``."""
-    text = _renamed(player_c.render_header())
+    text = _renamed(templates.render("ladderpack_player.h", VERSION=__version__))
     text = text.replace(
         " * Plays ladderpack streams on RP2040/RP2350 with the vendor SDK:",
         " * Plays ladderpack stereo ladder streams (two N-bit ladders on 2N consecutive pins,\n"
@@ -190,7 +191,7 @@ def render_header() -> str:
 @functools.cache
 def render_source() -> str:
     """Return ``ladderpack_stereo.c``."""
-    text = _renamed(player_c.render_source())
+    text = _renamed(templates.render("ladderpack_player.c", VERSION=__version__))
     start = text.index("/* Ladder code -> the bits OUT writes")
     end = text.index("/* Bit position of sample slot k")
     text = text[:start] + _PINS_OF + "\n" + text[end:]
@@ -198,3 +199,14 @@ def render_source() -> str:
     old = "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint16_t code) {"
     assert old in text
     return text.replace(old, old.replace("uint16_t code", "uint32_t code"))
+
+
+def files() -> dict[str, bytes]:
+    """The stereo player's two files and the players' shared header."""
+    return {
+        HEADER_NAME: render_header().encode(),
+        SOURCE_NAME: render_source().encode(),
+        templates.COMMON_NAME: templates.render(
+            templates.COMMON_NAME, VERSION=__version__
+        ).encode(),
+    }

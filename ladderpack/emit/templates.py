@@ -19,7 +19,7 @@ import re
 from collections.abc import Mapping
 from importlib import resources
 
-__all__ = ["MARKER", "fill", "render", "source"]
+__all__ = ["COMMON_NAME", "MARKER", "fill", "player", "render", "source"]
 
 #: A marker: ``@@`` + capitals, digits and underscores + ``@@``.
 MARKER = re.compile(r"@@([A-Z][A-Z0-9_]*)@@")
@@ -54,3 +54,25 @@ def fill(text: str, values: Mapping[str, str]) -> str:
 def render(name: str, **values: str) -> str:
     """Template `name` with its markers filled (see :func:`fill`)."""
     return fill(source(name), values)
+
+
+#: The header every C player includes (the ramp shape, DMA abort and feed, GPIO base).
+COMMON_NAME = "ladderpack_common.h"
+
+
+@functools.cache
+def player(stem: str) -> dict[str, bytes]:
+    """The files of the C player `stem` (registered in ``emit.names.PLAYER_FILES``).
+
+    Its header and source from their templates, and the players' shared header.
+
+    Examples
+    --------
+    >>> sorted(player("ladderpack_i2s"))
+    ['ladderpack_common.h', 'ladderpack_i2s.c', 'ladderpack_i2s.h']
+    """
+    from ladderpack._version import __version__
+    from ladderpack.emit.names import player_files
+
+    names = (*player_files(stem), COMMON_NAME)
+    return {n: render(n, VERSION=__version__).encode() for n in names}

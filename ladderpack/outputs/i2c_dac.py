@@ -35,7 +35,7 @@ from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.clock import ClockPlan
 from ladderpack.defaults import I2C_BUS_SPEEDS_HZ, I2C_DAC_COMMANDS
-from ladderpack.emit import Content, binary, player_i2c
+from ladderpack.emit import Content, binary, templates
 from ladderpack.emit.c import (
     _array_lines,
     _banner,
@@ -1384,8 +1384,7 @@ class I2cDacOutput:
             f"{n}.c": render_source_chunks(asset),
             f"{n}.py": render_micropython(asset, embed=embed).encode(),
             f"{n}.pio": render_pio(asset).encode(),
-            player_i2c.HEADER_NAME: player_i2c.render_header().encode(),
-            player_i2c.SOURCE_NAME: player_i2c.render_source().encode(),
+            **templates.player("ladderpack_i2c"),
         }
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:

@@ -30,7 +30,7 @@ from ladderpack.asset import StreamAsset
 from ladderpack.clock import ClockPlan, plan_clock
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, I2S_SAMPLE_BITS
 from ladderpack.defaults import FRAME_FORMATS as _FRAME_FORMATS
-from ladderpack.emit import Content, binary, player_i2s
+from ladderpack.emit import Content, binary, templates
 from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
 from ladderpack.emit.micropython import (
     _literal,
@@ -1018,8 +1018,7 @@ class I2sOutput:
             f"{n}.c": render_source_chunks(asset),
             f"{n}.py": render_micropython(asset, embed=embed).encode(),
             f"{n}.pio": render_pio(asset).encode(),
-            player_i2s.HEADER_NAME: player_i2s.render_header().encode(),
-            player_i2s.SOURCE_NAME: player_i2s.render_source().encode(),
+            **templates.player("ladderpack_i2s"),
         }
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:

@@ -17,7 +17,7 @@ import numpy as np
 
 from ladderpack.asset import StreamAsset
 from ladderpack.clock import plan_clock
-from ladderpack.emit import Content, binary, c, micropython, pioasm, player_c, player_stereo
+from ladderpack.emit import Content, binary, c, micropython, pioasm, player_stereo, templates
 from ladderpack.errors import OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
@@ -195,15 +195,18 @@ class LadderOutput:
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the ladder player."""
         n = asset.name
-        player = player_stereo if isinstance(asset.packed.layout, StereoLadderLayout) else player_c
+        player = (
+            player_stereo.files()
+            if isinstance(asset.packed.layout, StereoLadderLayout)
+            else templates.player("ladderpack_player")
+        )
         return {
             f"{n}.bin": binary.render_chunks(asset.packed),
             f"{n}.h": c.render_header(asset).encode(),
             f"{n}.c": c.render_source_chunks(asset),
             f"{n}.py": micropython.render(asset, embed=embed).encode(),
             f"{n}.pio": pioasm.render(asset).encode(),
-            player.HEADER_NAME: player.render_header().encode(),
-            player.SOURCE_NAME: player.render_source().encode(),
+            **player,
         }
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:

@@ -37,7 +37,7 @@ import numpy as np
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, default_band_hz
-from ladderpack.emit import Content, binary, player_pwm
+from ladderpack.emit import Content, binary, templates
 from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
 from ladderpack.emit.micropython import _literal, sdk_constants, set_clock_text
 from ladderpack.emit.names import comment_safe
@@ -1065,8 +1065,7 @@ class PwmOutput:
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": render_source_chunks(asset),
             f"{n}.py": render_micropython(asset, embed=embed).encode(),
-            player_pwm.HEADER_NAME: player_pwm.render_header().encode(),
-            player_pwm.SOURCE_NAME: player_pwm.render_source().encode(),
+            **templates.player("ladderpack_pwm"),
         }
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:

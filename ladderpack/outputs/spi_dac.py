@@ -41,7 +41,7 @@ import numpy as np
 from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.clock import ClockPlan
-from ladderpack.emit import Content, binary
+from ladderpack.emit import Content, binary, templates
 from ladderpack.emit.c import (
     _array_lines,
     _banner,
@@ -59,7 +59,6 @@ from ladderpack.emit.micropython import (
     set_clock_text,
 )
 from ladderpack.emit.names import comment_safe, player_files
-from ladderpack.emit.templates import render as render_template
 from ladderpack.errors import OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
@@ -1117,8 +1116,7 @@ class SpiDacOutput:
             f"{n}.c": chunked(source_lines(asset)),
             f"{n}.py": render_micropython(asset, embed=embed).encode(),
             f"{n}.pio": render_pio(asset).encode(),
-            HEADER_NAME: render_template(HEADER_NAME, VERSION=__version__).encode(),
-            SOURCE_NAME: render_template(SOURCE_NAME, VERSION=__version__).encode(),
+            **templates.player("ladderpack_spi"),
         }
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:
