@@ -366,11 +366,12 @@ def test_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path: 
     assert all(x >= y for x, y in zip([codes[n - 1], *ramp], ramp, strict=False))
 
 
-def test_player_loop_and_write_code(fw: Firmware, tmp_path: Path) -> None:
+def test_player_loop_and_hold_code(fw: Firmware, tmp_path: Path) -> None:
     b = make(tmp_path, "wobble", loop=True, seconds=0.004)
     period = len(b.updates) * b.period
     tail = (
-        "    rc = lp_i2c_write_code(&player, 1234u); report(12u, 0u, rc);\n"
+        "    rc = lp_i2c_hold_code(&player, 1234u); report(12u, 0u, rc);\n"
+        # the old name still compiles (a macro of the new one, until 0.3)
         "    rc = lp_i2c_write_code(&player, 5000u); report(12u, 1u, rc);\n"
     )
     r = bus_run(
@@ -447,7 +448,7 @@ def test_micropython_writes_every_update(tmp_path: Path) -> None:
     )  # fmt: skip
     steps = [
         {"code": "import hum\np = hum.Player()\np.play()\nprint('nack', p.nack_seen())\n"},
-        {"code": "p.write_code(3000)\nprint('nack', p.nack_seen())\n"},
+        {"code": "p.hold_code(3000)\nprint('nack', p.nack_seen())\n"},
     ]
     r = run_micropython(files, steps, tmp_path, i2c=BUS)
     assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]

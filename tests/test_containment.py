@@ -979,4 +979,4 @@ def test_option_refusals_and_player_comments_say_the_truth(tmp_path: Path) -> No
     from ladderpack.emit import player_stereo
 
     header = player_stereo.render_header()
-    assert "<NAME>_STEREO_INIT" in header and "<NAME>_STREAM_INIT" not in header
+    assert "<NAME>_STEREO_INIT" in header and "<NAME>_LADDER_INIT" not in header

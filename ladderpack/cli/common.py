@@ -40,7 +40,7 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         f"{summary['bytes']} bytes"
     )
     if "overloads" in summary:
-        click.echo(f"  clipped  {summary['overloads']} sample(s)")
+        click.echo(f"  overload {summary['overloads']} sample(s) clipped to the code range")
     pred = summary.get("predicted_noise_db")
     if pred:
         click.echo(

@@ -176,7 +176,11 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     ]
     if _stereo(asset):
         return init_macro("lp_stereo_stream_t", "ladderpack_stereo.h", f"{P}_STEREO_INIT", fields)
-    return init_macro("lp_stream_t", "ladderpack_player.h", f"{P}_STREAM_INIT", fields)
+    return [
+        *init_macro("lp_stream_t", "ladderpack_player.h", f"{P}_LADDER_INIT", fields),
+        "/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */",
+        f"#define {P}_STREAM_INIT {P}_LADDER_INIT",
+    ]
 
 
 def render_header(asset: StreamAsset) -> str:

@@ -177,7 +177,7 @@ def render_header() -> str:
             "    uint32_t idle_code;           /* frame of both ladders */\n",
         ),
         ("    uint16_t target_code;", "    uint32_t target_code;"),
-        ("(filled by <NAME>_STREAM_INIT)", "(filled by <NAME>_STEREO_INIT)"),
+        ("(filled by <NAME>_LADDER_INIT)", "(filled by <NAME>_STEREO_INIT)"),
         (
             "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint16_t code);",
             "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint32_t code);",

@@ -665,7 +665,8 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
     fmt = lay.fmt
     return [
         ("BITS", "12u", "DAC code width"),
-        ("UPDATE_COUNT", f"{asset.sample_count}u", "DAC updates (samples) in the stream"),
+        ("SAMPLE_COUNT", f"{asset.sample_count}u", "samples (DAC updates) in the stream"),
+        ("UPDATE_COUNT", f"{asset.name.upper()}_SAMPLE_COUNT", "old name, kept until 0.3"),
         ("WORD_COUNT", f"{asset.word_count}u", "32-bit FIFO words: one bus byte each"),
         ("WORDS_PER_UPDATE", f"{lay.words_per_update}u", "bytes of an update, address included"),
         ("ADDRESS", f"0x{fmt.address:02X}u", "the DAC's 7-bit I2C address"),
@@ -821,7 +822,7 @@ _MP_TEMPLATE = """\
 # Use:  import {name}; {name}.play()            (blocks until the stream ends)
 #       (Ctrl-C or stop() ramps a stream down to IDLE_CODE; the ramp starts a few
 #       milliseconds later, the DAC holding its code meanwhile)
-#       p = {name}.Player(); p.write_code(2048) (a DC level: the DAC holds it)
+#       p = {name}.Player(); p.hold_code(2048)  (a DC level: the DAC holds it)
 #       p.play(loop=True)                       (a loop runs until p.stop() or Ctrl-C)
 import array
 
@@ -837,7 +838,8 @@ if TYPE_CHECKING:
 
 NAME = {name!r}
 BITS = 12
-UPDATE_COUNT = {updates}
+SAMPLE_COUNT = {updates}  # DAC updates
+UPDATE_COUNT = SAMPLE_COUNT  # the old name, kept until version 0.3
 WORD_COUNT = {words}
 WORDS_PER_UPDATE = {per}  # one bus byte a word: inverted in bits 31:24, bit 23 on the last
 ADDRESS = 0x{address:02X}
@@ -963,10 +965,10 @@ class Player:
         self.sm.active(1)
 
     def nack_seen(self) -> bool:
-        \"\"\"True when a byte went unacknowledged since the last play() or write_code().\"\"\"
+        \"\"\"True when a byte went unacknowledged since the last play() or hold_code().\"\"\"
         return bool(mem32[self.pio + _IRQ] & (1 << self.idx))
 
-    def write_code(self, code: int) -> None:
+    def hold_code(self, code: int) -> None:
         \"\"\"Write one code (0..4095) while nothing plays; returns after its update.\"\"\"
         if not 0 <= code <= 4095:
             raise ValueError("a 12-bit DAC takes codes 0..4095")
@@ -976,6 +978,10 @@ class Player:
             self.sm.put(w)
         while not self._drained():
             pass
+
+    def write_code(self, code: int) -> None:
+        \"\"\"The old name of hold_code() (kept until version 0.3).\"\"\"
+        self.hold_code(code)
 
     def stop(self) -> None:
         \"\"\"Ask a running play() to finish (safe to call from an interrupt handler).\"\"\"

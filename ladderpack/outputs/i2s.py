@@ -468,7 +468,8 @@ def _defines(asset: StreamAsset) -> list[tuple[str, str, str]]:
     frames = asset.sample_count
     return [
         ("BITS", f"{lay.bits}u", "sample width, bits (in 32-bit slots)"),
-        ("FRAME_COUNT", f"{frames}u", "frames (left and right sample) in the stream"),
+        ("SAMPLE_COUNT", f"{frames}u", "samples (frames: left and right) in the stream"),
+        ("FRAME_COUNT", f"{asset.name.upper()}_SAMPLE_COUNT", "old name, kept until 0.3"),
         ("WORD_COUNT", f"{asset.word_count}u", "32-bit FIFO words"),
         ("WORDS_PER_FRAME", f"{lay.words_per_frame}u", "1: left in bits 31:16; 2: a word a slot"),
         ("STEREO", "1" if lay.stereo else "0", "0: the mono sample is sent in both slots"),
@@ -622,7 +623,8 @@ if TYPE_CHECKING:
 
 NAME = {name!r}
 BITS = {bits}  # sample width, in 32-bit slots, two's complement
-FRAME_COUNT = {frames}
+SAMPLE_COUNT = {frames}  # frames: left and right
+FRAME_COUNT = SAMPLE_COUNT  # the old name, kept until version 0.3
 WORD_COUNT = {words}
 WORDS_PER_FRAME = {wpf}  # 1: left in bits 31:16, right in 15:0; 2: one word a slot
 RATE_HZ = {rate!r}
@@ -1003,7 +1005,8 @@ class I2sOutput:
             f"({i2s['cycles_per_bit']} cycles each), bit clock "
             f"{i2s['bit_clock_hz']:.1f} Hz; data GPIO {d}, bit clock {b}, word select {w}"
         )
-        return SummaryLines(kind, "frame", cycles_divider(summary, "frame"), [("i2s", line)])
+        divider = cycles_divider(summary, "sample (one frame)")
+        return SummaryLines(kind, "sample", divider, [("i2s", line)])
 
     def sidecar_blocks(self, asset: StreamAsset) -> dict[str, Any]:
         """The program (with its entry point) and the state machine's registers."""

@@ -269,7 +269,7 @@ def scenario_header(streams: list[str], steps: list[Step], levels: str | None = 
             f"#define LP_TEST_LEVEL_COUNT {levels.upper()}_LEVEL_COUNT",
         ]
     lines.append("static const lp_stream_t lp_streams[] = {")
-    lines += [f"    {s.upper()}_STREAM_INIT," for s in streams]
+    lines += [f"    {s.upper()}_LADDER_INIT," for s in streams]
     lines.append("};")
     lines.append("static const lp_step_t lp_steps[] = {")
     lines += [f"    {{{OPS[s.op]}u, {s.slot}u, {s.arg}u, {s.arg2}u}}," for s in steps]

@@ -47,8 +47,8 @@ extern const uint32_t chime_words[CHIME_WORD_COUNT];
 extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
 
 /* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = CHIME_STREAM_INIT; */
-#define CHIME_STREAM_INIT { \
+ *   static const lp_stream_t s = CHIME_LADDER_INIT; */
+#define CHIME_LADDER_INIT { \
     chime_words, \
     CHIME_WORD_COUNT, \
     NULL, \
@@ -79,5 +79,7 @@ extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
     CHIME_MAX_STEP, \
     CHIME_PROGRAM_KIND \
 }
+/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
+#define CHIME_STREAM_INIT CHIME_LADDER_INIT
 
 #endif /* LADDERPACK_CHIME_H */

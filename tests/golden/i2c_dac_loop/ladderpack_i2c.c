@@ -299,7 +299,7 @@ void lp_i2c_deinit(lp_i2c_player_t *p) {
     p->stream = NULL;
 }
 
-int lp_i2c_write_code(lp_i2c_player_t *p, uint16_t code) {
+int lp_i2c_hold_code(lp_i2c_player_t *p, uint16_t code) {
     uint32_t words[4];
     uint32_t n;
     uint32_t k;

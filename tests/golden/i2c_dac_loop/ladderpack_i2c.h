@@ -115,9 +115,13 @@ int lp_i2c_request_stop(lp_i2c_player_t *p);
 /* Blocking stop: lp_i2c_request_stop, then wait until lp_i2c_busy is false. */
 int lp_i2c_stop(lp_i2c_player_t *p);
 
-/* Write one code (0..4095) to the DAC while nothing plays, and wait (blocks) until its
- * update has left the bus: a DC level on demand. The DAC holds it. */
-int lp_i2c_write_code(lp_i2c_player_t *p, uint16_t code);
+/* Hold one code (0..4095) on the DAC while nothing plays: write it, and wait (blocks)
+ * until its update has left the bus. A DC level on demand; the DAC holds it. */
+int lp_i2c_hold_code(lp_i2c_player_t *p, uint16_t code);
+
+/* The old name of lp_i2c_hold_code (every player's DC level is its hold_code), kept
+ * until version 0.3. */
+#define lp_i2c_write_code lp_i2c_hold_code
 
 /* True when a byte went unacknowledged since lp_i2c_init or the last lp_i2c_start (a
  * wrong address, a missing or unpowered DAC, a bus without pull-ups). */

@@ -8,7 +8,8 @@
 #include <stdint.h>
 
 #define SENSOR_CHECK_BITS                12u /* DAC code width */
-#define SENSOR_CHECK_UPDATE_COUNT        16u /* DAC updates (samples) in the stream */
+#define SENSOR_CHECK_SAMPLE_COUNT        16u /* samples (DAC updates) in the stream */
+#define SENSOR_CHECK_UPDATE_COUNT        SENSOR_CHECK_SAMPLE_COUNT /* old name, kept until 0.3 */
 #define SENSOR_CHECK_WORD_COUNT          64u /* 32-bit FIFO words: one bus byte each */
 #define SENSOR_CHECK_WORDS_PER_UPDATE    4u /* bytes of an update, address included */
 #define SENSOR_CHECK_ADDRESS             0x61u /* the DAC's 7-bit I2C address */

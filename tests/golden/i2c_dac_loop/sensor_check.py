@@ -9,7 +9,7 @@
 # Use:  import sensor_check; sensor_check.play()            (blocks until the stream ends)
 #       (Ctrl-C or stop() ramps a stream down to IDLE_CODE; the ramp starts a few
 #       milliseconds later, the DAC holding its code meanwhile)
-#       p = sensor_check.Player(); p.write_code(2048) (a DC level: the DAC holds it)
+#       p = sensor_check.Player(); p.hold_code(2048)  (a DC level: the DAC holds it)
 #       p.play(loop=True)                       (a loop runs until p.stop() or Ctrl-C)
 import array
 
@@ -25,7 +25,8 @@ if TYPE_CHECKING:
 
 NAME = 'sensor_check'
 BITS = 12
-UPDATE_COUNT = 16
+SAMPLE_COUNT = 16  # DAC updates
+UPDATE_COUNT = SAMPLE_COUNT  # the old name, kept until version 0.3
 WORD_COUNT = 64
 WORDS_PER_UPDATE = 4  # one bus byte a word: inverted in bits 31:24, bit 23 on the last
 ADDRESS = 0x61
@@ -207,10 +208,10 @@ class Player:
         self.sm.active(1)
 
     def nack_seen(self) -> bool:
-        """True when a byte went unacknowledged since the last play() or write_code()."""
+        """True when a byte went unacknowledged since the last play() or hold_code()."""
         return bool(mem32[self.pio + _IRQ] & (1 << self.idx))
 
-    def write_code(self, code: int) -> None:
+    def hold_code(self, code: int) -> None:
         """Write one code (0..4095) while nothing plays; returns after its update."""
         if not 0 <= code <= 4095:
             raise ValueError("a 12-bit DAC takes codes 0..4095")
@@ -220,6 +221,10 @@ class Player:
             self.sm.put(w)
         while not self._drained():
             pass
+
+    def write_code(self, code: int) -> None:
+        """The old name of hold_code() (kept until version 0.3)."""
+        self.hold_code(code)
 
     def stop(self) -> None:
         """Ask a running play() to finish (safe to call from an interrupt handler)."""

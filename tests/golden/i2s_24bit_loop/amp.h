@@ -8,7 +8,8 @@
 #include <stdint.h>
 
 #define AMP_BITS                24u /* sample width, bits (in 32-bit slots) */
-#define AMP_FRAME_COUNT         96u /* frames (left and right sample) in the stream */
+#define AMP_SAMPLE_COUNT        96u /* samples (frames: left and right) in the stream */
+#define AMP_FRAME_COUNT         AMP_SAMPLE_COUNT /* old name, kept until 0.3 */
 #define AMP_WORD_COUNT          192u /* 32-bit FIFO words */
 #define AMP_WORDS_PER_FRAME     2u /* 1: left in bits 31:16; 2: a word a slot */
 #define AMP_STEREO              0 /* 0: the mono sample is sent in both slots */

@@ -23,7 +23,8 @@ if TYPE_CHECKING:
 
 NAME = 'amp'
 BITS = 24  # sample width, in 32-bit slots, two's complement
-FRAME_COUNT = 96
+SAMPLE_COUNT = 96  # frames: left and right
+FRAME_COUNT = SAMPLE_COUNT  # the old name, kept until version 0.3
 WORD_COUNT = 192
 WORDS_PER_FRAME = 2  # 1: left in bits 31:16, right in 15:0; 2: one word a slot
 RATE_HZ = 48003.07219662058

@@ -49,8 +49,8 @@ extern const uint32_t bench_intro_words[BENCH_INTRO_WORD_COUNT];
 extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
 
 /* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = BENCH_STREAM_INIT; */
-#define BENCH_STREAM_INIT { \
+ *   static const lp_stream_t s = BENCH_LADDER_INIT; */
+#define BENCH_LADDER_INIT { \
     bench_words, \
     BENCH_WORD_COUNT, \
     bench_intro_words, \
@@ -81,5 +81,7 @@ extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
     BENCH_MAX_STEP, \
     BENCH_PROGRAM_KIND \
 }
+/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
+#define BENCH_STREAM_INIT BENCH_LADDER_INIT
 
 #endif /* LADDERPACK_BENCH_H */

@@ -49,7 +49,7 @@
 #define LP_ERR_CODE         (-7) /* code out of range for the ladder */
 #define LP_ERR_STATE        (-8) /* player not initialised */
 
-/* Everything a player needs to know about one stream (filled by <NAME>_STREAM_INIT). */
+/* Everything a player needs to know about one stream (filled by <NAME>_LADDER_INIT). */
 typedef struct lp_stream {
     const uint32_t *words;       /* packed FIFO words, in flash */
     uint32_t word_count;

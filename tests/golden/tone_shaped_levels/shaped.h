@@ -52,8 +52,8 @@ extern const uint16_t shaped_program[SHAPED_PROGRAM_LENGTH];
 extern const float shaped_levels_v[SHAPED_LEVEL_COUNT];
 
 /* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = SHAPED_STREAM_INIT; */
-#define SHAPED_STREAM_INIT { \
+ *   static const lp_stream_t s = SHAPED_LADDER_INIT; */
+#define SHAPED_LADDER_INIT { \
     shaped_words, \
     SHAPED_WORD_COUNT, \
     NULL, \
@@ -84,5 +84,7 @@ extern const float shaped_levels_v[SHAPED_LEVEL_COUNT];
     SHAPED_MAX_STEP, \
     SHAPED_PROGRAM_KIND \
 }
+/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
+#define SHAPED_STREAM_INIT SHAPED_LADDER_INIT
 
 #endif /* LADDERPACK_SHAPED_H */

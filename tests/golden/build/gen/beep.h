@@ -47,8 +47,8 @@ extern const uint32_t beep_words[BEEP_WORD_COUNT];
 extern const uint16_t beep_program[BEEP_PROGRAM_LENGTH];
 
 /* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = BEEP_STREAM_INIT; */
-#define BEEP_STREAM_INIT { \
+ *   static const lp_stream_t s = BEEP_LADDER_INIT; */
+#define BEEP_LADDER_INIT { \
     beep_words, \
     BEEP_WORD_COUNT, \
     NULL, \
@@ -79,5 +79,7 @@ extern const uint16_t beep_program[BEEP_PROGRAM_LENGTH];
     BEEP_MAX_STEP, \
     BEEP_PROGRAM_KIND \
 }
+/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
+#define BEEP_STREAM_INIT BEEP_LADDER_INIT
 
 #endif /* LADDERPACK_BEEP_H */
