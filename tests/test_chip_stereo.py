@@ -107,7 +107,7 @@ def app(name: str, ops: list[tuple[str, int]]) -> str:
         name,
         ops,
         header="ladderpack_stereo.h",
-        fn="lp_stereo_player",
+        fn="lp_stereo_player",  # the old names (aliases of lp_stereo_*, until 0.3)
         player_type="lp_stereo_player_t",
         stream_type="lp_stereo_stream_t",
         init_macro="STEREO_INIT",

@@ -74,7 +74,11 @@ def _mono_defines(
         ("MSB_ON_HIGH_PIN", "1" if lay.msb_high else "0", "0: ladder MSB on OUT_BASE"),
         ("INVERTED", "1" if lay.invert else "0", "1: bits inverted for an inverting buffer"),
         ("AUTOPULL", "1" if asset.pio_program.autopull else "0", "program relies on autopull"),
-        ("PROGRAM_KIND", _PROGRAM_KIND[asset.pio_program.variant], "LP_PROGRAM_* of the player"),
+        (
+            "PROGRAM_KIND",
+            _PROGRAM_KIND[asset.pio_program.variant],
+            "LP_LADDER_PROGRAM_* of the player",
+        ),
         ("MAX_STEP", f"{asset.max_step}u", "largest step between consecutive codes"),
         ("LOOP", "1" if asset.loop else "0", "1: a loop, with separate intro and outro"),
         ("INTRO_WORD_COUNT", f"{_count(asset.intro)}u", "loops: ramp up from idle"),
@@ -177,7 +181,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     if _stereo(asset):
         return init_macro("lp_stereo_stream_t", "ladderpack_stereo.h", f"{P}_STEREO_INIT", fields)
     return [
-        *init_macro("lp_stream_t", "ladderpack_player.h", f"{P}_LADDER_INIT", fields),
+        *init_macro("lp_ladder_stream_t", "ladderpack_player.h", f"{P}_LADDER_INIT", fields),
         "/* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */",
         f"#define {P}_STREAM_INIT {P}_LADDER_INIT",
     ]
@@ -204,7 +208,7 @@ def render_header(asset: StreamAsset) -> str:
         lines += [
             "",
             "/* Level of every code (volts) of the LevelSet the stream was made with: for",
-            " * lp_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_player_hold_code. */",
+            " * lp_ladder_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_ladder_hold_code. */",
             f"#define {prefix}_LEVEL_COUNT {1 << asset.packed.layout.bits}u",
             f"extern const float {asset.name}_levels_v[{prefix}_LEVEL_COUNT];",
         ]

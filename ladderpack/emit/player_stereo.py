@@ -146,9 +146,20 @@ static __noinline uint32_t lp_stereo_build_ramp(lp_stereo_player_t *p, uint32_t 
 """
 
 
+#: The stereo player's function names before every API was lp_<output>_*, until 0.3.
+_OLD_NAMES = (
+    "/* The names before every player's API was lp_<output>_* (lp_stereo_* here), kept as\n"
+    " * aliases until version 0.3. */\n"
+    + "".join(
+        f"#define lp_stereo_player_{v} lp_stereo_{v}\n"
+        for v in ("init", "start", "busy", "request_stop", "stop", "hold_code", "deinit")
+    )
+)
+
+
 def _renamed(text: str) -> str:
-    text = re.sub(r"\blp_(?!common_)", "lp_stereo_", text)  # the shared header keeps its own
-    text = re.sub(r"\bLP_", "LP_STEREO_", text)
+    text = re.sub(r"\blp_ladder_", "lp_stereo_", text)
+    text = re.sub(r"\bLP_LADDER_", "LP_STEREO_", text)
     text = text.replace("LADDERPACK_PLAYER_H", "LADDERPACK_STEREO_H")
     return text.replace('"ladderpack_player.h"', '"ladderpack_stereo.h"')
 
@@ -171,6 +182,15 @@ def render_header() -> str:
         " * both written by one OUT; a code is the frame left | right << N) on RP2040/RP2350\n"
         " * with the vendor SDK:",
     )
+    text = text.replace(  # the ladder's old spelling of its ramp size is not the stereo's
+        "#if !defined(LP_STEREO_RAMP_WORDS) && defined(LP_RAMP_WORDS)\n"
+        "#define LP_STEREO_RAMP_WORDS LP_RAMP_WORDS /* its old name, until version 0.3 */\n"
+        "#endif\n",
+        "",
+    )
+    start = text.index("/* The names before every player's API")
+    end = text.index("#endif /* LADDERPACK_STEREO_H */")
+    text = text[:start] + _OLD_NAMES + "\n" + text[end:]
     for old, new in (
         (
             "    uint16_t idle_code;\n",
@@ -179,8 +199,8 @@ def render_header() -> str:
         ("    uint16_t target_code;", "    uint32_t target_code;"),
         ("(filled by <NAME>_LADDER_INIT)", "(filled by <NAME>_STEREO_INIT)"),
         (
-            "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint16_t code);",
-            "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint32_t code);",
+            "int lp_stereo_hold_code(lp_stereo_player_t *p, uint16_t code);",
+            "int lp_stereo_hold_code(lp_stereo_player_t *p, uint32_t code);",
         ),
     ):
         assert old in text, old
@@ -196,7 +216,7 @@ def render_source() -> str:
     end = text.index("/* Bit position of sample slot k")
     text = text[:start] + _PINS_OF + "\n" + text[end:]
     text = _replace_function(text, "lp_stereo_build_ramp", _BUILD_RAMP)
-    old = "int lp_stereo_player_hold_code(lp_stereo_player_t *p, uint16_t code) {"
+    old = "int lp_stereo_hold_code(lp_stereo_player_t *p, uint16_t code) {"
     assert old in text
     return text.replace(old, old.replace("uint16_t code", "uint32_t code"))
 

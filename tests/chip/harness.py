@@ -268,7 +268,7 @@ def scenario_header(streams: list[str], steps: list[Step], levels: str | None = 
             f"#define LP_TEST_LEVELS {levels}_levels_v",
             f"#define LP_TEST_LEVEL_COUNT {levels.upper()}_LEVEL_COUNT",
         ]
-    lines.append("static const lp_stream_t lp_streams[] = {")
+    lines.append("static const lp_ladder_stream_t lp_streams[] = {")
     lines += [f"    {s.upper()}_LADDER_INIT," for s in streams]
     lines.append("};")
     lines.append("static const lp_step_t lp_steps[] = {")

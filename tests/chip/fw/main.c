@@ -23,7 +23,7 @@ typedef struct lp_step {
 #include "scenario.h"
 
 volatile uint32_t lp_test_mailbox;
-static lp_player_t players[4];
+static lp_ladder_player_t players[4];
 
 static void report(uint32_t op, uint32_t index, int rc) {
     lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | ((uint32_t)rc & 0xFFu);
@@ -33,17 +33,17 @@ int main(void) {
     uint32_t i;
     for (i = 0; i < sizeof(lp_steps) / sizeof(lp_steps[0]); ++i) {
         const lp_step_t *st = &lp_steps[i];
-        lp_player_t *p = &players[st->slot];
+        lp_ladder_player_t *p = &players[st->slot];
         int rc = 0;
         switch (st->op) {
         case OP_INIT:
-            rc = lp_player_init(p, &lp_streams[st->arg], st->arg2 ? pio1 : pio0);
+            rc = lp_ladder_init(p, &lp_streams[st->arg], st->arg2 ? pio1 : pio0);
             break;
         case OP_START:
-            rc = lp_player_start(p, st->arg != 0u);
+            rc = lp_ladder_start(p, st->arg != 0u);
             break;
         case OP_WAIT:
-            while (lp_player_busy(p)) {
+            while (lp_ladder_busy(p)) {
                 tight_loop_contents();
             }
             break;
@@ -51,21 +51,21 @@ int main(void) {
             busy_wait_at_least_cycles(st->arg);
             break;
         case OP_STOP:
-            rc = lp_player_stop(p);
+            rc = lp_ladder_stop(p);
             break;
         case OP_POLL_STOP:
-            rc = lp_player_request_stop(p);
+            rc = lp_ladder_request_stop(p);
             break;
         case OP_DEINIT:
-            lp_player_deinit(p);
+            lp_ladder_deinit(p);
             break;
         case OP_HOLD:
-            rc = lp_player_hold_code(p, (uint16_t)st->arg);
+            rc = lp_ladder_hold_code(p, (uint16_t)st->arg);
             break;
         case OP_HOLD_VOLTS: /* arg: millivolts, through the stream's embedded level table */
 #ifdef LP_TEST_LEVELS
-            rc = lp_code_for_volts(LP_TEST_LEVELS, LP_TEST_LEVEL_COUNT, (float)st->arg / 1000.0f);
-            rc = lp_player_hold_code(p, (uint16_t)rc) == LP_OK ? rc : -100;
+            rc = lp_ladder_code_for_volts(LP_TEST_LEVELS, LP_TEST_LEVEL_COUNT, (float)st->arg / 1000.0f);
+            rc = lp_ladder_hold_code(p, (uint16_t)rc) == LP_LADDER_OK ? rc : -100;
 #endif
             break;
         case OP_MARK:

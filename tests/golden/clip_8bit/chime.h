@@ -19,7 +19,7 @@
 #define CHIME_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define CHIME_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define CHIME_AUTOPULL            1 /* program relies on autopull */
-#define CHIME_PROGRAM_KIND        0u /* LP_PROGRAM_* of the player */
+#define CHIME_PROGRAM_KIND        0u /* LP_LADDER_PROGRAM_* of the player */
 #define CHIME_MAX_STEP            119u /* largest step between consecutive codes */
 #define CHIME_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define CHIME_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
@@ -46,8 +46,8 @@
 extern const uint32_t chime_words[CHIME_WORD_COUNT];
 extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
 
-/* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = CHIME_LADDER_INIT; */
+/* Initialiser for lp_ladder_stream_t (ladderpack_player.h):
+ *   static const lp_ladder_stream_t s = CHIME_LADDER_INIT; */
 #define CHIME_LADDER_INIT { \
     chime_words, \
     CHIME_WORD_COUNT, \

@@ -19,7 +19,7 @@
 #define BENCH_MSB_ON_HIGH_PIN     0 /* 0: ladder MSB on OUT_BASE */
 #define BENCH_INVERTED            1 /* 1: bits inverted for an inverting buffer */
 #define BENCH_AUTOPULL            0 /* program relies on autopull */
-#define BENCH_PROGRAM_KIND        2u /* LP_PROGRAM_* of the player */
+#define BENCH_PROGRAM_KIND        2u /* LP_LADDER_PROGRAM_* of the player */
 #define BENCH_MAX_STEP            240u /* largest step between consecutive codes */
 #define BENCH_LOOP                1 /* 1: a loop, with separate intro and outro */
 #define BENCH_INTRO_WORD_COUNT    12u /* loops: ramp up from idle */
@@ -48,8 +48,8 @@ extern const uint16_t bench_program[BENCH_PROGRAM_LENGTH];
 extern const uint32_t bench_intro_words[BENCH_INTRO_WORD_COUNT];
 extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
 
-/* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = BENCH_LADDER_INIT; */
+/* Initialiser for lp_ladder_stream_t (ladderpack_player.h):
+ *   static const lp_ladder_stream_t s = BENCH_LADDER_INIT; */
 #define BENCH_LADDER_INIT { \
     bench_words, \
     BENCH_WORD_COUNT, \

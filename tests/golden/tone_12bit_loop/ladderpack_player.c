@@ -7,12 +7,12 @@
 #include "hardware/dma.h"
 #include "hardware/pio.h"
 
-#define LP_IDLE     0u
-#define LP_PLAYING  1u
-#define LP_STOPPING 2u
+#define LP_LADDER_IDLE     0u
+#define LP_LADDER_PLAYING  1u
+#define LP_LADDER_STOPPING 2u
 
 /* Ladder code -> the bits OUT writes to the pins (pin order, inversion). */
-static uint32_t lp_pins_of(const lp_stream_t *s, uint32_t code) {
+static uint32_t lp_ladder_pins_of(const lp_ladder_stream_t *s, uint32_t code) {
     uint32_t v = code;
     uint32_t k;
     if (!s->msb_high) {
@@ -29,8 +29,8 @@ static uint32_t lp_pins_of(const lp_stream_t *s, uint32_t code) {
     return v;
 }
 
-/* Pin bits -> ladder code (the inverse of lp_pins_of). */
-static uint32_t lp_code_of(const lp_stream_t *s, uint32_t pins) {
+/* Pin bits -> ladder code (the inverse of lp_ladder_pins_of). */
+static uint32_t lp_ladder_code_of(const lp_ladder_stream_t *s, uint32_t pins) {
     uint32_t v = pins & ((1u << s->bits) - 1u);
     uint32_t r = 0u;
     uint32_t k;
@@ -50,34 +50,34 @@ static uint32_t lp_code_of(const lp_stream_t *s, uint32_t pins) {
 
 /* Bit position of sample slot k in a FIFO word: OUT shifting right sends the least
  * significant bits first, shifting left the most significant (RP2040 datasheet, OUT). */
-static uint32_t lp_slot_shift(const lp_stream_t *s, uint32_t k) {
+static uint32_t lp_ladder_slot_shift(const lp_ladder_stream_t *s, uint32_t k) {
     return s->shift_right ? k * s->bits : 32u - (k + 1u) * s->bits;
 }
 
 /* The code in the last sample slot of a word: what the pins hold once it has played. */
-static uint32_t lp_last_code(const lp_stream_t *s, uint32_t word) {
-    uint32_t shift = lp_slot_shift(s, s->samples_per_word - 1u);
-    return lp_code_of(s, word >> shift);
+static uint32_t lp_ladder_last_code(const lp_ladder_stream_t *s, uint32_t word) {
+    uint32_t shift = lp_ladder_slot_shift(s, s->samples_per_word - 1u);
+    return lp_ladder_code_of(s, word >> shift);
 }
 
 /* The code the pins hold now (the pad outputs this PIO block drives). */
-static uint32_t lp_code_on_pins(const lp_player_t *p) {
-    const lp_stream_t *s = p->stream;
-    return lp_code_of(s, p->pio->dbg_padout >> (s->out_base - s->gpio_base));
+static uint32_t lp_ladder_code_on_pins(const lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
+    return lp_ladder_code_of(s, p->pio->dbg_padout >> (s->out_base - s->gpio_base));
 }
 
 /* Fill p->ramp with a raised-cosine ramp from the code on the pins (`from`, not repeated)
  * to `to`, padded with `to`, with no step larger than the stream's largest step. The loop
  * program repeats the last word when its FIFO runs dry, so for it a whole word of `to`
  * closes the ramp. Returns the number of words. Kept out of line: inlined into
- * lp_player_start, gcc 12.2 at -O3 (the SDK's Release setting) built a start that skipped
+ * lp_ladder_start, gcc 12.2 at -O3 (the SDK's Release setting) built a start that skipped
  * the loop set-up, seen on the emulated chip. */
-static __noinline uint32_t lp_build_ramp(lp_player_t *p, uint32_t from, uint32_t to) {
-    const lp_stream_t *s = p->stream;
+static __noinline uint32_t lp_ladder_build_ramp(lp_ladder_player_t *p, uint32_t from, uint32_t to) {
+    const lp_ladder_stream_t *s = p->stream;
     uint32_t spw = s->samples_per_word;
     uint32_t step = s->max_step ? s->max_step : 1u;
     uint32_t delta = from > to ? from - to : to - from;
-    uint32_t cap = (LP_RAMP_WORDS - 1u) * spw;
+    uint32_t cap = (LP_LADDER_RAMP_WORDS - 1u) * spw;
     uint32_t n = 0u;
     uint32_t count = 0u;
     uint32_t words = 0u;
@@ -114,7 +114,7 @@ static __noinline uint32_t lp_build_ramp(lp_player_t *p, uint32_t from, uint32_t
         if (count == cap) {
             break; /* the buffer is full: the closing word below jumps the rest */
         }
-        word |= lp_pins_of(s, (uint32_t)code) << lp_slot_shift(s, count % spw);
+        word |= lp_ladder_pins_of(s, (uint32_t)code) << lp_ladder_slot_shift(s, count % spw);
         ++count;
         if (count % spw == 0u) {
             p->ramp[words++] = word;
@@ -124,21 +124,21 @@ static __noinline uint32_t lp_build_ramp(lp_player_t *p, uint32_t from, uint32_t
     }
     if (count % spw != 0u) {
         for (i = count % spw; i < spw; ++i) {
-            word |= lp_pins_of(s, to) << lp_slot_shift(s, i);
+            word |= lp_ladder_pins_of(s, to) << lp_ladder_slot_shift(s, i);
         }
         p->ramp[words++] = word;
     }
-    if (s->program_kind == LP_PROGRAM_LOOP || (uint32_t)prev != to) {
+    if (s->program_kind == LP_LADDER_PROGRAM_LOOP || (uint32_t)prev != to) {
         word = 0u;
         for (i = 0u; i < spw; ++i) {
-            word |= lp_pins_of(s, to) << lp_slot_shift(s, i);
+            word |= lp_ladder_pins_of(s, to) << lp_ladder_slot_shift(s, i);
         }
         p->ramp[words++] = word;
     }
     return words;
 }
 
-static dma_channel_config lp_feed_config(const lp_player_t *p, uint ch) {
+static dma_channel_config lp_ladder_feed_config(const lp_ladder_player_t *p, uint ch) {
     dma_channel_config c = dma_channel_get_default_config(ch);
     channel_config_set_transfer_data_size(&c, DMA_SIZE_32);
     channel_config_set_read_increment(&c, true);
@@ -149,14 +149,14 @@ static dma_channel_config lp_feed_config(const lp_player_t *p, uint ch) {
 
 /* Configure channel ch to feed `count` words from `words` to the FIFO, chained to `chain`
  * (ch itself for none), started now or by a chain. */
-static void lp_feed(lp_player_t *p, int ch, const uint32_t *words, uint32_t count, int chain,
+static void lp_ladder_feed(lp_ladder_player_t *p, int ch, const uint32_t *words, uint32_t count, int chain,
                     bool now) {
-    dma_channel_config c = lp_feed_config(p, (uint)ch);
+    dma_channel_config c = lp_ladder_feed_config(p, (uint)ch);
     channel_config_set_chain_to(&c, (uint)chain);
     dma_channel_configure((uint)ch, &c, &p->pio->txf[p->sm], words, count, now);
 }
 
-static uint32_t lp_channel_mask(const lp_player_t *p) {
+static uint32_t lp_ladder_channel_mask(const lp_ladder_player_t *p) {
     uint32_t m = 0u;
     if (p->data_ch >= 0) m |= 1u << (uint)p->data_ch;
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
@@ -166,11 +166,11 @@ static uint32_t lp_channel_mask(const lp_player_t *p) {
 }
 
 /* Abort every channel of the player (lp_common_abort). */
-static void lp_abort_all(lp_player_t *p) {
-    lp_common_abort(lp_channel_mask(p));
+static void lp_ladder_abort_all(lp_ladder_player_t *p) {
+    lp_common_abort(lp_ladder_channel_mask(p));
 }
 
-static void lp_release(lp_player_t *p) {
+static void lp_ladder_release(lp_ladder_player_t *p) {
     if (p->data_ch >= 0) dma_channel_unclaim((uint)p->data_ch);
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
@@ -178,7 +178,7 @@ static void lp_release(lp_player_t *p) {
     p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
 }
 
-int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
+int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *s, PIO pio) {
     uint64_t mask;
     int sm;
     int offset;
@@ -186,19 +186,19 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
 
     p->stream = NULL;
     p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
-    p->state = LP_IDLE;
+    p->state = LP_LADDER_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
-        return LP_ERR_CLOCK;
+        return LP_LADDER_ERR_CLOCK;
     }
     p->pio = pio;
     p->program.instructions = s->program;
     p->program.length = s->program_length;
     p->program.origin = -1;
     if (!lp_common_gpio_base(pio, s->gpio_base)) {
-        return LP_ERR_GPIO;
+        return LP_LADDER_ERR_GPIO;
     }
     if (!pio_can_add_program(pio, &p->program)) {
-        return LP_ERR_PROGRAM_SPACE;
+        return LP_LADDER_ERR_PROGRAM_SPACE;
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
@@ -210,19 +210,19 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     }
     if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
         || (s->loop && s->intro != NULL && p->intro_ch < 0)) {
-        lp_release(p);
-        return LP_ERR_NO_DMA;
+        lp_ladder_release(p);
+        return LP_LADDER_ERR_NO_DMA;
     }
     sm = pio_claim_unused_sm(pio, false);
     if (sm < 0) {
-        lp_release(p);
-        return LP_ERR_NO_SM;
+        lp_ladder_release(p);
+        return LP_LADDER_ERR_NO_SM;
     }
     offset = pio_add_program(pio, &p->program);
     if (offset < 0) {
         pio_sm_unclaim(pio, (uint)sm);
-        lp_release(p);
-        return LP_ERR_PROGRAM_SPACE;
+        lp_ladder_release(p);
+        return LP_LADDER_ERR_PROGRAM_SPACE;
     }
     p->sm = (uint)sm;
     p->offset = (uint)offset;
@@ -245,20 +245,20 @@ int lp_player_init(lp_player_t *p, const lp_stream_t *s, PIO pio) {
     p->looping = false;
     p->started = false;
     p->stream = s;
-    return LP_OK;
+    return LP_LADDER_OK;
 }
 
 /* Restart the state machine at its program with empty FIFOs and let channel `first` fill
  * the FIFO before it runs, so the first sample is the stream's first (the loop program
  * would otherwise replay its X register). */
-static void lp_run_from(lp_player_t *p, int first) {
+static void lp_ladder_run_from(lp_ladder_player_t *p, int first) {
     pio_sm_set_enabled(p->pio, p->sm, false);
     pio_sm_init(p->pio, p->sm, p->offset, &p->config);
     dma_channel_start((uint)first);
     while (!pio_sm_is_tx_fifo_full(p->pio, p->sm) && dma_channel_is_busy((uint)first)) {
         tight_loop_contents();
     }
-    /* TXSTALL (write 1 to clear) marks the end of a playback in lp_player_busy: clear
+    /* TXSTALL (write 1 to clear) marks the end of a playback in lp_ladder_busy: clear
      * what an earlier playback left, while the machine is stopped and its FIFO full. */
     p->pio->fdebug = 1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm);
     pio_sm_set_enabled(p->pio, p->sm, true);
@@ -268,12 +268,12 @@ static void lp_run_from(lp_player_t *p, int first) {
 /* Chain for a loop: intro -> data <-> control (re-arms data), or data -> tail once;
  * the tail plays the outro (or one idle word) after the last pass. Returns the first
  * channel. */
-static __noinline int lp_setup_loop(lp_player_t *p) {
-    const lp_stream_t *s = p->stream;
+static __noinline int lp_ladder_setup_loop(lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
     if (s->outro != NULL) {
-        lp_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
+        lp_ladder_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     } else {
-        lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+        lp_ladder_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
     }
     if (p->looping) {
         /* The control channel writes the start address into the data channel's
@@ -285,60 +285,60 @@ static __noinline int lp_setup_loop(lp_player_t *p) {
         dma_channel_configure((uint)p->ctrl_ch, &cc, &dma_hw->ch[p->data_ch].al3_read_addr_trig,
                               &p->loop_start, 1u, false);
     }
-    lp_feed(p, p->data_ch, s->words, s->word_count, p->looping ? p->ctrl_ch : p->tail_ch,
+    lp_ladder_feed(p, p->data_ch, s->words, s->word_count, p->looping ? p->ctrl_ch : p->tail_ch,
             false);
     if (s->intro == NULL) {
         return p->data_ch;
     }
-    lp_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+    lp_ladder_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
     return p->intro_ch;
 }
 
 /* Chain for a stream: data, then (for the loop program, which repeats its last word when
  * the FIFO runs dry) a whole word of idle codes from the tail. Returns the first channel. */
-static __noinline int lp_setup_stream(lp_player_t *p) {
-    const lp_stream_t *s = p->stream;
-    bool closing = s->program_kind == LP_PROGRAM_LOOP;
-    lp_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
-    lp_feed(p, p->data_ch, s->words, s->word_count, closing ? p->tail_ch : p->data_ch, false);
+static __noinline int lp_ladder_setup_stream(lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
+    bool closing = s->program_kind == LP_LADDER_PROGRAM_LOOP;
+    lp_ladder_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
+    lp_ladder_feed(p, p->data_ch, s->words, s->word_count, closing ? p->tail_ch : p->data_ch, false);
     return p->data_ch;
 }
 
-int lp_player_start(lp_player_t *p, bool loop) {
-    const lp_stream_t *s = p->stream;
+int lp_ladder_start(lp_ladder_player_t *p, bool loop) {
+    const lp_ladder_stream_t *s = p->stream;
     int first;
 
     if (s == NULL) {
-        return LP_ERR_STATE;
+        return LP_LADDER_ERR_STATE;
     }
-    if (lp_player_busy(p)) {
-        return LP_ERR_BUSY;
+    if (lp_ladder_busy(p)) {
+        return LP_LADDER_ERR_BUSY;
     }
-    if (p->started && lp_code_on_pins(p) != s->idle_code) {
-        /* After lp_player_hold_code: back to the idle code first (blocking, one ramp). */
-        lp_player_hold_code(p, s->idle_code);
-        while (lp_player_busy(p)) {
+    if (p->started && lp_ladder_code_on_pins(p) != s->idle_code) {
+        /* After lp_ladder_hold_code: back to the idle code first (blocking, one ramp). */
+        lp_ladder_hold_code(p, s->idle_code);
+        while (lp_ladder_busy(p)) {
             tight_loop_contents();
         }
     }
     p->looping = loop && s->loop;
     p->target_code = s->idle_code;
     p->ramp[0] = s->idle_word;
-    first = s->loop ? lp_setup_loop(p) : lp_setup_stream(p);
-    p->state = LP_PLAYING;
-    lp_run_from(p, first);
-    return LP_OK;
+    first = s->loop ? lp_ladder_setup_loop(p) : lp_ladder_setup_stream(p);
+    p->state = LP_LADDER_PLAYING;
+    lp_ladder_run_from(p, first);
+    return LP_LADDER_OK;
 }
 
-bool lp_player_busy(lp_player_t *p) {
-    const lp_stream_t *s = p->stream;
+bool lp_ladder_busy(lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
     uint32_t mask;
     uint ch;
 
-    if (s == NULL || p->state == LP_IDLE) {
+    if (s == NULL || p->state == LP_LADDER_IDLE) {
         return false;
     }
-    mask = lp_channel_mask(p);
+    mask = lp_ladder_channel_mask(p);
     for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
         if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
             return true;
@@ -347,9 +347,9 @@ bool lp_player_busy(lp_player_t *p) {
     if (!pio_sm_is_tx_fifo_empty(p->pio, p->sm)) {
         return true;
     }
-    if (s->program_kind == LP_PROGRAM_LOOP) {
+    if (s->program_kind == LP_LADDER_PROGRAM_LOOP) {
         /* It has taken its closing word (all one code): done once that is on the pins. */
-        if (lp_code_on_pins(p) != p->target_code) {
+        if (lp_ladder_code_on_pins(p) != p->target_code) {
             return true;
         }
     } else if (!(p->pio->fdebug & (1u << (PIO_FDEBUG_TXSTALL_LSB + p->sm)))) {
@@ -357,23 +357,23 @@ bool lp_player_busy(lp_player_t *p) {
          * output shift register: until then samples are still on their way out. */
         return true;
     }
-    p->state = LP_IDLE;
+    p->state = LP_LADDER_IDLE;
     return false;
 }
 
-int lp_player_request_stop(lp_player_t *p) {
-    const lp_stream_t *s = p->stream;
+int lp_ladder_request_stop(lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
     uint32_t sent;
     uint32_t last;
     uint32_t n;
 
     if (s == NULL) {
-        return LP_ERR_STATE;
+        return LP_LADDER_ERR_STATE;
     }
-    if (!lp_player_busy(p) || p->state == LP_STOPPING) {
-        return LP_OK;
+    if (!lp_ladder_busy(p) || p->state == LP_LADDER_STOPPING) {
+        return LP_LADDER_OK;
     }
-    p->state = LP_STOPPING;
+    p->state = LP_LADDER_STOPPING;
     if (s->loop) {
         /* End on a pass boundary: re-point the data channel's chain from the control
          * channel to the outro. Either this pass or, if the control channel has just
@@ -384,53 +384,53 @@ int lp_player_request_stop(lp_player_t *p) {
                    | ((uint32_t)p->tail_ch << DMA_CH0_CTRL_TRIG_CHAIN_TO_LSB);
             dma_hw->ch[p->data_ch].al1_ctrl = ctrl;
         }
-        return LP_OK;
+        return LP_LADDER_OK;
     }
     /* A stream: stop feeding and ramp down at once from the last code sent. */
-    lp_abort_all(p);
+    lp_ladder_abort_all(p);
     sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
     last = sent == 0u ? s->idle_word : s->words[sent - 1u];
-    n = lp_build_ramp(p, lp_last_code(s, last), s->idle_code);
+    n = lp_ladder_build_ramp(p, lp_ladder_last_code(s, last), s->idle_code);
     p->target_code = s->idle_code;
     if (n != 0u) {
-        lp_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
+        lp_ladder_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
     }
-    return LP_OK;
+    return LP_LADDER_OK;
 }
 
-int lp_player_stop(lp_player_t *p) {
-    int rc = lp_player_request_stop(p);
-    while (rc == LP_OK && lp_player_busy(p)) {
+int lp_ladder_stop(lp_ladder_player_t *p) {
+    int rc = lp_ladder_request_stop(p);
+    while (rc == LP_LADDER_OK && lp_ladder_busy(p)) {
         tight_loop_contents();
     }
     return rc;
 }
 
-int lp_player_hold_code(lp_player_t *p, uint16_t code) {
-    const lp_stream_t *s = p->stream;
+int lp_ladder_hold_code(lp_ladder_player_t *p, uint16_t code) {
+    const lp_ladder_stream_t *s = p->stream;
     uint32_t n;
 
     if (s == NULL) {
-        return LP_ERR_STATE;
+        return LP_LADDER_ERR_STATE;
     }
     if ((uint32_t)code >> s->bits) {
-        return LP_ERR_CODE;
+        return LP_LADDER_ERR_CODE;
     }
-    if (lp_player_busy(p)) {
-        return LP_ERR_BUSY;
+    if (lp_ladder_busy(p)) {
+        return LP_LADDER_ERR_BUSY;
     }
-    n = lp_build_ramp(p, lp_code_on_pins(p), code);
+    n = lp_ladder_build_ramp(p, lp_ladder_code_on_pins(p), code);
     p->target_code = code;
     if (n == 0u) {
-        return LP_OK;
+        return LP_LADDER_OK;
     }
-    lp_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, false);
-    p->state = LP_PLAYING;
-    lp_run_from(p, p->tail_ch);
-    return LP_OK;
+    lp_ladder_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, false);
+    p->state = LP_LADDER_PLAYING;
+    lp_ladder_run_from(p, p->tail_ch);
+    return LP_LADDER_OK;
 }
 
-uint16_t lp_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts) {
+uint16_t lp_ladder_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts) {
     uint32_t best = 0u;
     float best_err = -1.0f;
     uint32_t k;
@@ -447,40 +447,40 @@ uint16_t lp_code_for_volts(const float *volts_per_code, uint32_t code_count, flo
     return (uint16_t)best;
 }
 
-void lp_player_deinit(lp_player_t *p) {
+void lp_ladder_deinit(lp_ladder_player_t *p) {
     if (p->stream == NULL) {
         return;
     }
-    lp_player_stop(p);
-    if (p->started && lp_code_on_pins(p) != p->stream->idle_code) {
-        /* a code held by lp_player_hold_code: ramp back to the idle code first, so a
+    lp_ladder_stop(p);
+    if (p->started && lp_ladder_code_on_pins(p) != p->stream->idle_code) {
+        /* a code held by lp_ladder_hold_code: ramp back to the idle code first, so a
          * released player never leaves a DC level on the pins */
-        lp_player_hold_code(p, p->stream->idle_code);
-        while (lp_player_busy(p)) {
+        lp_ladder_hold_code(p, p->stream->idle_code);
+        while (lp_ladder_busy(p)) {
             tight_loop_contents();
         }
     }
-    lp_abort_all(p);
+    lp_ladder_abort_all(p);
     pio_sm_set_enabled(p->pio, p->sm, false);
-    lp_release(p);
+    lp_ladder_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);
     pio_sm_unclaim(p->pio, p->sm);
     p->stream = NULL;
 }
 
-const char *lp_strerror(int result) {
+const char *lp_ladder_strerror(int result) {
     switch (result) {
-    case LP_OK: return "ok";
-    case LP_ERR_PROGRAM_SPACE: return "no room for the program in this PIO block";
-    case LP_ERR_NO_SM: return "no free state machine in this PIO block";
-    case LP_ERR_CLOCK:
+    case LP_LADDER_OK: return "ok";
+    case LP_LADDER_ERR_PROGRAM_SPACE: return "no room for the program in this PIO block";
+    case LP_LADDER_ERR_NO_SM: return "no free state machine in this PIO block";
+    case LP_LADDER_ERR_CLOCK:
         return "clk_sys is not the clock the stream was planned for (its SYS_CLOCK_HZ): "
                "remake the bundle with --sys-clock-hz set to this chip's clock";
-    case LP_ERR_GPIO: return "the ladder's GPIOs are outside this PIO block's reach";
-    case LP_ERR_NO_DMA: return "not enough free DMA channels";
-    case LP_ERR_BUSY: return "the player is playing";
-    case LP_ERR_CODE: return "code out of range for the ladder";
-    case LP_ERR_STATE: return "player not initialised";
+    case LP_LADDER_ERR_GPIO: return "the ladder's GPIOs are outside this PIO block's reach";
+    case LP_LADDER_ERR_NO_DMA: return "not enough free DMA channels";
+    case LP_LADDER_ERR_BUSY: return "the player is playing";
+    case LP_LADDER_ERR_CODE: return "code out of range for the ladder";
+    case LP_LADDER_ERR_STATE: return "player not initialised";
     default: return "unknown result";
     }
 }

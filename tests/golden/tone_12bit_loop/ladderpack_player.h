@@ -29,28 +29,31 @@
 /* Words of RAM per player for ramps built at run time (stop, hold). A ramp that needs
  * more samples than fit is made steeper; define it larger before including this header
  * (in every file that does) for very smooth streams. */
-#ifndef LP_RAMP_WORDS
-#define LP_RAMP_WORDS 128u
+#if !defined(LP_LADDER_RAMP_WORDS) && defined(LP_RAMP_WORDS)
+#define LP_LADDER_RAMP_WORDS LP_RAMP_WORDS /* its old name, until version 0.3 */
+#endif
+#ifndef LP_LADDER_RAMP_WORDS
+#define LP_LADDER_RAMP_WORDS 128u
 #endif
 
-/* Program variants (lp_stream_t.program_kind). */
-#define LP_PROGRAM_AUTOPULL 0u
-#define LP_PROGRAM_PULL     1u
-#define LP_PROGRAM_LOOP     2u
+/* Program variants (lp_ladder_stream_t.program_kind). */
+#define LP_LADDER_PROGRAM_AUTOPULL 0u
+#define LP_LADDER_PROGRAM_PULL     1u
+#define LP_LADDER_PROGRAM_LOOP     2u
 
-/* Results: 0 or one of these (lp_strerror gives the text). */
-#define LP_OK               0
-#define LP_ERR_PROGRAM_SPACE (-1) /* no room for the program in this PIO block */
-#define LP_ERR_NO_SM        (-2) /* every state machine of the block is claimed */
-#define LP_ERR_CLOCK        (-3) /* clk_sys differs from the stream's plan */
-#define LP_ERR_GPIO         (-4) /* pins out of this block's reach, or GPIO base fixed */
-#define LP_ERR_NO_DMA       (-5) /* not enough free DMA channels */
-#define LP_ERR_BUSY         (-6) /* the player is still playing */
-#define LP_ERR_CODE         (-7) /* code out of range for the ladder */
-#define LP_ERR_STATE        (-8) /* player not initialised */
+/* Results: 0 or one of these (lp_ladder_strerror gives the text). */
+#define LP_LADDER_OK               0
+#define LP_LADDER_ERR_PROGRAM_SPACE (-1) /* no room for the program in this PIO block */
+#define LP_LADDER_ERR_NO_SM        (-2) /* every state machine of the block is claimed */
+#define LP_LADDER_ERR_CLOCK        (-3) /* clk_sys differs from the stream's plan */
+#define LP_LADDER_ERR_GPIO         (-4) /* pins out of this block's reach, or GPIO base fixed */
+#define LP_LADDER_ERR_NO_DMA       (-5) /* not enough free DMA channels */
+#define LP_LADDER_ERR_BUSY         (-6) /* the player is still playing */
+#define LP_LADDER_ERR_CODE         (-7) /* code out of range for the ladder */
+#define LP_LADDER_ERR_STATE        (-8) /* player not initialised */
 
 /* Everything a player needs to know about one stream (filled by <NAME>_LADDER_INIT). */
-typedef struct lp_stream {
+typedef struct lp_ladder_stream {
     const uint32_t *words;       /* packed FIFO words, in flash */
     uint32_t word_count;
     const uint32_t *intro;       /* loops only: ramp from idle up to mid-scale, or NULL */
@@ -79,13 +82,13 @@ typedef struct lp_stream {
     bool invert;                 /* every bit inverted for an inverting buffer */
     uint16_t idle_code;
     uint16_t max_step;           /* largest step between consecutive codes of the stream */
-    uint8_t program_kind;        /* LP_PROGRAM_* */
-} lp_stream_t;
+    uint8_t program_kind;        /* LP_LADDER_PROGRAM_* */
+} lp_ladder_stream_t;
 
 /* A player. It must stay valid (static or global, not a local that goes out of scope)
- * from lp_player_start until lp_player_busy returns false: the DMA reads from it. */
-typedef struct lp_player {
-    const lp_stream_t *stream;
+ * from lp_ladder_start until lp_ladder_busy returns false: the DMA reads from it. */
+typedef struct lp_ladder_player {
+    const lp_ladder_stream_t *stream;
     PIO pio;
     uint sm;
     uint offset;
@@ -100,52 +103,79 @@ typedef struct lp_player {
     pio_sm_config config;
     pio_program_t program;
     const uint32_t *loop_start;  /* read by the control channel */
-    uint32_t ramp[LP_RAMP_WORDS];
-} lp_player_t;
+    uint32_t ramp[LP_LADDER_RAMP_WORDS];
+} lp_ladder_player_t;
 
 /* Claim a state machine and the DMA channels (two for a stream, four for a loop), load
- * the program and put the idle pattern on the pins. Returns LP_OK or LP_ERR_*; on an
+ * the program and put the idle pattern on the pins. Returns LP_LADDER_OK or LP_LADDER_ERR_*; on an
  * error nothing stays claimed. The system clock must be the one the stream was planned
  * for (the stream's SYS_CLOCK_HZ): at another clock the player refuses with
- * LP_ERR_CLOCK rather than play at a wrong pitch; remake the bundle with
+ * LP_LADDER_ERR_CLOCK rather than play at a wrong pitch; remake the bundle with
  * --sys-clock-hz set to your clock (or --target rp2350 for an RP2350 at its 150 MHz
  * default). */
-int lp_player_init(lp_player_t *p, const lp_stream_t *stream, PIO pio);
+int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *stream, PIO pio);
 
 /* Start playing and return at once; with loop set (and a looping stream) the loop
- * repeats until lp_player_stop or lp_player_request_stop. LP_ERR_BUSY while playing. */
-int lp_player_start(lp_player_t *p, bool loop);
+ * repeats until lp_ladder_stop or lp_ladder_request_stop. LP_LADDER_ERR_BUSY while playing. */
+int lp_ladder_start(lp_ladder_player_t *p, bool loop);
 
 /* True until the last sample has reached the pins and they hold the idle code. Poll it
  * (for example from a timer callback) to learn when a playback or a stop is complete. */
-bool lp_player_busy(lp_player_t *p);
+bool lp_ladder_busy(lp_ladder_player_t *p);
 
 /* Ask for a stop and return at once. A stream ramps down to the idle code from where it
  * is, at once; a loop finishes its current pass and plays its outro (the loop's own
- * join, so no click). Poll lp_player_busy for the end. */
-int lp_player_request_stop(lp_player_t *p);
+ * join, so no click). Poll lp_ladder_busy for the end. */
+int lp_ladder_request_stop(lp_ladder_player_t *p);
 
-/* Blocking stop: lp_player_request_stop, then wait until lp_player_busy is false
+/* Blocking stop: lp_ladder_request_stop, then wait until lp_ladder_busy is false
  * (a ramp's length for a stream; up to one pass of a loop plus its outro). */
-int lp_player_stop(lp_player_t *p);
+int lp_ladder_stop(lp_ladder_player_t *p);
 
 /* Put a code on the pins and hold it (the ladder as a DC source), ramping from the code
  * the pins hold without a step larger than the stream's largest step. Returns once the
- * ramp is queued; lp_player_busy is true until the code is on the pins. Not while a
- * stream plays (LP_ERR_BUSY). */
-int lp_player_hold_code(lp_player_t *p, uint16_t code);
+ * ramp is queued; lp_ladder_busy is true until the code is on the pins. Not while a
+ * stream plays (LP_LADDER_ERR_BUSY). */
+int lp_ladder_hold_code(lp_ladder_player_t *p, uint16_t code);
 
 /* The nearest code for a voltage through a level table (volts per code, ascending or not,
- * from the bundle's level table or your own), for lp_player_hold_code. */
-uint16_t lp_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts);
+ * from the bundle's level table or your own), for lp_ladder_hold_code. */
+uint16_t lp_ladder_code_for_volts(const float *volts_per_code, uint32_t code_count, float volts);
 
-/* Stop (blocking, as lp_player_stop) if playing, ramp a held code (lp_player_hold_code)
+/* Stop (blocking, as lp_ladder_stop) if playing, ramp a held code (lp_ladder_hold_code)
  * back to the idle code (blocking, one ramp), then release the state machine, the DMA
  * channels (aborted first, chains broken) and the program memory. The pins keep the idle
  * code: a released player never leaves a DC level behind (to keep one, keep the player). */
-void lp_player_deinit(lp_player_t *p);
+void lp_ladder_deinit(lp_ladder_player_t *p);
 
-/* Text of an LP_ERR_* result. */
-const char *lp_strerror(int result);
+/* Text of an LP_LADDER_ERR_* result. */
+const char *lp_ladder_strerror(int result);
+
+
+/* The names before every player's API was lp_<output>_* (lp_ladder_* here), kept as
+ * aliases until version 0.3. */
+typedef lp_ladder_stream_t lp_stream_t;
+typedef lp_ladder_player_t lp_player_t;
+#define lp_player_init lp_ladder_init
+#define lp_player_start lp_ladder_start
+#define lp_player_busy lp_ladder_busy
+#define lp_player_request_stop lp_ladder_request_stop
+#define lp_player_stop lp_ladder_stop
+#define lp_player_hold_code lp_ladder_hold_code
+#define lp_player_deinit lp_ladder_deinit
+#define lp_code_for_volts lp_ladder_code_for_volts
+#define lp_strerror lp_ladder_strerror
+#define LP_ERR_BUSY LP_LADDER_ERR_BUSY
+#define LP_ERR_CLOCK LP_LADDER_ERR_CLOCK
+#define LP_ERR_CODE LP_LADDER_ERR_CODE
+#define LP_ERR_GPIO LP_LADDER_ERR_GPIO
+#define LP_ERR_NO_DMA LP_LADDER_ERR_NO_DMA
+#define LP_ERR_NO_SM LP_LADDER_ERR_NO_SM
+#define LP_ERR_PROGRAM_SPACE LP_LADDER_ERR_PROGRAM_SPACE
+#define LP_ERR_STATE LP_LADDER_ERR_STATE
+#define LP_OK LP_LADDER_OK
+#define LP_PROGRAM_AUTOPULL LP_LADDER_PROGRAM_AUTOPULL
+#define LP_PROGRAM_LOOP LP_LADDER_PROGRAM_LOOP
+#define LP_PROGRAM_PULL LP_LADDER_PROGRAM_PULL
 
 #endif /* LADDERPACK_PLAYER_H */

@@ -19,7 +19,7 @@
 #define SHAPED_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define SHAPED_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define SHAPED_AUTOPULL            0 /* program relies on autopull */
-#define SHAPED_PROGRAM_KIND        1u /* LP_PROGRAM_* of the player */
+#define SHAPED_PROGRAM_KIND        1u /* LP_LADDER_PROGRAM_* of the player */
 #define SHAPED_MAX_STEP            10u /* largest step between consecutive codes */
 #define SHAPED_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define SHAPED_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
@@ -47,12 +47,12 @@ extern const uint32_t shaped_words[SHAPED_WORD_COUNT];
 extern const uint16_t shaped_program[SHAPED_PROGRAM_LENGTH];
 
 /* Level of every code (volts) of the LevelSet the stream was made with: for
- * lp_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_player_hold_code. */
+ * lp_ladder_code_for_volts(levels_v, LEVEL_COUNT, volts) and lp_ladder_hold_code. */
 #define SHAPED_LEVEL_COUNT 64u
 extern const float shaped_levels_v[SHAPED_LEVEL_COUNT];
 
-/* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = SHAPED_LADDER_INIT; */
+/* Initialiser for lp_ladder_stream_t (ladderpack_player.h):
+ *   static const lp_ladder_stream_t s = SHAPED_LADDER_INIT; */
 #define SHAPED_LADDER_INIT { \
     shaped_words, \
     SHAPED_WORD_COUNT, \

@@ -19,7 +19,7 @@
 #define BEEP_MSB_ON_HIGH_PIN     1 /* 0: ladder MSB on OUT_BASE */
 #define BEEP_INVERTED            0 /* 1: bits inverted for an inverting buffer */
 #define BEEP_AUTOPULL            1 /* program relies on autopull */
-#define BEEP_PROGRAM_KIND        0u /* LP_PROGRAM_* of the player */
+#define BEEP_PROGRAM_KIND        0u /* LP_LADDER_PROGRAM_* of the player */
 #define BEEP_MAX_STEP            45u /* largest step between consecutive codes */
 #define BEEP_LOOP                0 /* 1: a loop, with separate intro and outro */
 #define BEEP_INTRO_WORD_COUNT    0u /* loops: ramp up from idle */
@@ -46,8 +46,8 @@
 extern const uint32_t beep_words[BEEP_WORD_COUNT];
 extern const uint16_t beep_program[BEEP_PROGRAM_LENGTH];
 
-/* Initialiser for lp_stream_t (ladderpack_player.h):
- *   static const lp_stream_t s = BEEP_LADDER_INIT; */
+/* Initialiser for lp_ladder_stream_t (ladderpack_player.h):
+ *   static const lp_ladder_stream_t s = BEEP_LADDER_INIT; */
 #define BEEP_LADDER_INIT { \
     beep_words, \
     BEEP_WORD_COUNT, \
