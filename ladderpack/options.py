@@ -34,6 +34,7 @@ from ladderpack.defaults import (
     DITHERS,
     EMBED_WORDS_MAX,
     FRAME_FORMATS,
+    I2C_BUS_SPEEDS_HZ,
     I2C_DAC_COMMANDS,
     NTF_FORMS,
     PIN_ORDERS,
@@ -48,6 +49,7 @@ from ladderpack.targets import MAX_SYS_CLOCK_HZ, TARGET_NAMES, get_target
 
 __all__ = [
     "ClipOptions",
+    "ClockOptions",
     "CorrectionTableSpec",
     "I2cDacTableSpec",
     "OptionInfo",
@@ -797,6 +799,90 @@ def _with_own_options(cls: type[_M]) -> type[_M]:
 
 
 StreamOptions = _with_own_options(StreamOptions)  # type: ignore[misc]  # same class, more fields
+
+
+@dataclass(frozen=True)
+class ClockOptions(_Model):
+    """Options of ``ladderpack clock`` besides the chip's.
+
+    The chip's (target, system clock, rate tolerance) are ``StreamOptions``'. An output's
+    setting (the PWM carrier, the I2S slot, the I2C bus) is refused for an output that
+    does not take its group, as a stream's is.
+    """
+
+    output: str = _opt(
+        "ladder",
+        "Output system to plan for: "
+        + "; ".join(f"{e.name}, {e.summary}" for e in outputs.REGISTRY)
+        + ".",
+        choices=outputs.names(),
+    )
+    min_carrier_hz: float | None = _opt(
+        None,
+        "PWM: lowest carrier frequency.",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="4 x the rate",
+        group="pwm",
+    )
+    slot_bits: int | None = _opt(
+        None, "I2S: bits per channel slot, 16 or 32.", unit="bits", default_text="32", group="i2s"
+    )
+    bus_hz: int | None = _opt(
+        None,
+        "I2C DAC: bus clock, 100000, 400000 or 1000000.",
+        unit="Hz",
+        default_text="400000",
+        group="i2c",
+    )
+    dac_command: str | None = _opt(
+        None,
+        "I2C DAC: fast write (2 data bytes) or write DAC register (3).",
+        choices=I2C_DAC_COMMANDS,
+        default_text="fast",
+        group="i2c",
+    )
+    find_sys_clock: bool = _opt(
+        False,
+        "Search the system clocks the PLL can make for those that give RATE_HZ exactly with "
+        "an integer divider for --output, nearest the current clock first.",
+        flag="--find-sys-clock/--no-find-sys-clock",
+    )
+    min_sys_clock_hz: int = _opt(
+        48_000_000, "--find-sys-clock: lowest system clock to consider.", unit="Hz", lo=1
+    )
+    max_sys_clock_hz: int | None = _opt(
+        None,
+        "--find-sys-clock: highest system clock to consider.",
+        unit="Hz",
+        lo=1,
+        default_text="the chip's rated clock, 133000000 on rp2040, 150000000 on rp2350",
+    )
+    count: int = _opt(8, "--find-sys-clock: clocks to list.", unit="clocks", lo=1, hi=100)
+
+    def __post_init__(self) -> None:
+        _check_groups(self)
+        self._check_fields()
+        if self.slot_bits not in (None, 16, 32):
+            raise OptionError(f"must be 16 or 32, got {self.slot_bits!r}", field="slot_bits")
+        if self.bus_hz is not None and self.bus_hz not in I2C_BUS_SPEEDS_HZ:
+            raise OptionError(
+                f"must be one of {', '.join(str(b) for b in I2C_BUS_SPEEDS_HZ)} Hz, got "
+                f"{self.bus_hz!r}",
+                field="bus_hz",
+            )
+        if self.find_sys_clock and self.slot_bits not in (None, 32):
+            raise OptionError("streams use 32-bit slots; drop it", field="slot_bits")
+
+    def settings(self) -> dict[str, Any]:
+        """The output's settings, for ``Output.clock_report`` and ``clock_planner``."""
+        return {
+            "min_carrier_hz": self.min_carrier_hz,
+            "slot_bits": self.slot_bits,
+            "bus_hz": self.bus_hz,
+            "dac_command": self.dac_command,
+        }
 
 
 @dataclass(frozen=True)

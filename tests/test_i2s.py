@@ -64,7 +64,7 @@ def test_clock_command_shows_the_i2s_plan() -> None:
         capture_output=True,
         text=True,
     )
-    assert bad.returncode == 2 and "only with --output i2s" in bad.stderr
+    assert bad.returncode == 2 and "--slot-bits: applies to output i2s" in bad.stderr
 
 
 # --- the stream: layout, program, registers, options, generated C -------------------------

@@ -14,6 +14,7 @@ from ladderpack.audio import Signal
 from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.options import (
     ClipOptions,
+    ClockOptions,
     StreamOptions,
     ToneSpec,
     WaveTableSpec,
@@ -197,7 +198,7 @@ def _readme_row(flag: str) -> list[str] | None:
     return None
 
 
-@pytest.mark.parametrize("cls", [StreamOptions, ToneSpec, WaveTableSpec, ClipOptions])
+@pytest.mark.parametrize("cls", [StreamOptions, ToneSpec, WaveTableSpec, ClipOptions, ClockOptions])
 def test_readme_tables_agree_with_the_model(cls: type) -> None:
     for f, info, _hint in option_fields(cls):
         if not info.cli:

@@ -172,7 +172,7 @@ def test_clock_command_shows_the_pwm_plan() -> None:
         capture_output=True,
         text=True,
     )
-    assert bad.returncode == 2 and "only with --output pwm" in bad.stderr
+    assert bad.returncode == 2 and "--min-carrier-hz: applies to output pwm" in bad.stderr
     assert "Traceback" not in bad.stderr
 
 
