@@ -17,18 +17,20 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
-from typing import TypedDict
+from typing import Any, TypedDict
 
 import numpy as np
 
 from ladderpack.errors import OptionError
-from ladderpack.options import check_bits
+from ladderpack.options import LadderDesignSpec, check_bits
 
 __all__ = [
     "BOLTZMANN",
     "DRIVE_SOURCE_OHMS",
     "E_SERIES",
     "Ladder",
+    "LadderDesign",
+    "design_ladder",
     "e_series",
     "ideal_ladder",
     "johnson_noise_volts",
@@ -800,3 +802,118 @@ def _worst_case(ladder: Ladder, tolerance: float) -> WorstCase:
         "max_abs_dnl_lsb": float(np.max(np.abs(dnl0) + sd)),
         "monotonic": bool(np.min(dnl0 - sd) >= -1.0),
     }
+
+
+@dataclass(frozen=True)
+class LadderDesign:
+    """What ``ladderpack ladder`` reports of a design, and the files it may write.
+
+    Attributes
+    ----------
+    report : DesignReport
+        :func:`design_check`'s report.
+    netlist : str, optional
+        The nominal ladder's SPICE netlist, when asked for (``spec.spice``).
+    levels : LevelSet, optional
+        The nominal ladder's modelled levels (``spec.levels_out``).
+    trial_levels : LevelSet, optional
+        The levels of one Monte Carlo trial (``spec.mc_levels_out``): the one with the
+        largest best-fit INL, or ``spec.mc_trial``.
+    """
+
+    report: DesignReport
+    netlist: str | None = None
+    levels: Any = None
+    trial_levels: Any = None
+
+
+def design_ladder(
+    spec: LadderDesignSpec, *, progress: Callable[[int], None] | None = None
+) -> LadderDesign:
+    """Check a ladder design and make what the spec asks for besides the report.
+
+    Parameters
+    ----------
+    spec : LadderDesignSpec
+        The parts, the drive, the load, the checks' settings and what to make.
+    progress : callable, optional
+        Called with the work done since the last call (:func:`design_steps` in all).
+
+    Examples
+    --------
+    >>> d = design_ladder(LadderDesignSpec(bits=6, trials=10))
+    >>> d.report["nominal"]["monotonic"], d.levels is None
+    (True, True)
+    """
+    from ladderpack.levels import LevelSet
+
+    tol = spec.tolerance_pct / 100
+    report = design_check(
+        spec.bits,
+        spec.r_ohms,
+        tolerance=tol,
+        distribution=spec.distribution,
+        source_high_ohms=spec.source_high_ohms,
+        source_low_ohms=spec.source_low_ohms,
+        drive_ma=spec.drive_ma,
+        supply_volts=spec.supply_volts,
+        load_ohms=spec.load_ohms,
+        load_farads=spec.load_pf * 1e-12,
+        rate_hz=spec.rate_hz,
+        band_hz=spec.band_hz,
+        temperature_k=spec.temperature_k,
+        trials=spec.trials,
+        seed=spec.seed,
+        split_legs=spec.split_legs,
+        series=spec.series,
+        inl_share_lsb=spec.inl_share_lsb,
+        progress=progress,
+    )
+    model = ideal_ladder(
+        spec.bits,
+        spec.r_ohms,
+        supply_volts=spec.supply_volts,
+        source_high_ohms=report["source_high_ohms"],
+        source_low_ohms=report["source_low_ohms"],
+        load_ohms=spec.load_ohms,
+        split_legs=spec.split_legs,
+    )
+    span = spec.supply_volts * ((1 << spec.bits) - 1) / (1 << spec.bits)
+    netlist = levels = trial = None
+    if spec.spice:
+        code = (1 << (spec.bits - 1)) if spec.spice_code is None else spec.spice_code
+        netlist = spice_netlist(model, code)
+    if spec.levels_out:
+        levels = LevelSet(
+            spec.bits,
+            model.levels(),
+            "model",
+            {
+                "r_ohms": spec.r_ohms,
+                "supply_volts": spec.supply_volts,
+                "source_high_ohms": report["source_high_ohms"],
+                "source_low_ohms": report["source_low_ohms"],
+                "load_ohms": spec.load_ohms,
+                "ideal_span_volts": span,
+            },
+        )
+    if spec.mc_levels_out:
+        k = report["monte_carlo"]["worst_trial"] if spec.mc_trial is None else spec.mc_trial
+        lad = monte_carlo_trial(
+            model, seed=spec.seed, tolerance=tol, distribution=spec.distribution, trial=k
+        )
+        trial = LevelSet(
+            spec.bits,
+            lad.levels(),
+            "model",
+            {
+                "r_ohms": spec.r_ohms,
+                "tolerance": tol,
+                "distribution": spec.distribution,
+                "seed": spec.seed,
+                "monte_carlo_trial": k,
+                "supply_volts": spec.supply_volts,
+                "ideal_span_volts": span,
+            },
+        )
+    return LadderDesign(report, netlist, levels, trial)

@@ -52,6 +52,7 @@ __all__ = [
     "ClockOptions",
     "CorrectionTableSpec",
     "I2cDacTableSpec",
+    "LadderDesignSpec",
     "OptionInfo",
     "StreamOptions",
     "ToneSpec",
@@ -883,6 +884,118 @@ class ClockOptions(_Model):
             "bus_hz": self.bus_hz,
             "dac_command": self.dac_command,
         }
+
+
+@dataclass(frozen=True)
+class LadderDesignSpec(_Model):
+    """A ladder to model and check (``ladderpack ladder``): the parts, the drive, the load."""
+
+    bits: int = _opt(8, "Ladder width N.", unit="bits", lo=1, hi=16)
+    r_ohms: float = _opt(
+        10_000.0, "Unit resistance R (legs and termination 2R).", unit="ohms", lo=0, lo_open=True
+    )
+    tolerance_pct: float = _opt(1.0, "Resistor tolerance.", unit="%", lo=0, hi=100)
+    distribution: str = _opt(
+        "uniform",
+        "Monte Carlo spread (normal: tolerance = 3 sigma).",
+        choices=("uniform", "normal"),
+    )
+    drive_ma: int = _opt(
+        4,
+        "GPIO drive strength (2, 4, 8 or 12): the default source resistances and the "
+        "current limit.",
+        unit="mA",
+    )
+    source_high_ohms: float | None = _opt(
+        None,
+        "Pin source resistance driving high.",
+        unit="ohms",
+        lo=0,
+        default_text="the datasheet bound for the drive strength",
+    )
+    source_low_ohms: float | None = _opt(
+        None,
+        "Pin source resistance driving low.",
+        unit="ohms",
+        lo=0,
+        default_text="the datasheet bound for the drive strength",
+    )
+    supply_volts: float = _opt(3.3, "IOVDD.", unit="V", lo=0, lo_open=True)
+    load_ohms: float | None = _opt(
+        None, "Resistive load on the output.", unit="ohms", lo=0, lo_open=True, default_text="none"
+    )
+    load_pf: float = _opt(
+        20.0, "Capacitance on the output, for the settling check.", unit="pF", lo=0
+    )
+    rate_hz: float = _opt(
+        22050.0, "Sample rate: a step must settle within one period.", unit="Hz", lo=0, lo_open=True
+    )
+    band_hz: float = _opt(
+        20000.0, "Audio band for the thermal-noise figure.", unit="Hz", lo=0, lo_open=True
+    )
+    temperature_k: float = _opt(300.0, "Temperature for the thermal noise.", unit="K", lo=0)
+    trials: int = _opt(200, "Monte Carlo trials.", unit="count", lo=1)
+    seed: int = _opt(0, "Monte Carlo seed.", lo=0, hi=2**63 - 1)
+    split_legs: bool = _opt(
+        False, "Build each 2R from two R in series.", flag="--split-legs/--no-split-legs"
+    )
+    series: str = _opt(
+        "E96",
+        "Preferred-value series for the recommended R range.",
+        choices=("E24", "E96", "E192"),
+    )
+    inl_share_lsb: float = _opt(
+        0.5, "Largest INL that source resistance may cause in a recommended R.", unit="LSB", lo=0
+    )
+    spice: str | None = _opt(
+        None,
+        "Write a SPICE netlist of the nominal ladder to this file.",
+        unit="file",
+        default_text="none",
+        metavar="FILE",
+        recorded=False,
+    )
+    spice_code: int | None = _opt(
+        None, "Code the netlist drives.", unit="code", lo=0, default_text="mid-scale"
+    )
+    levels_out: str | None = _opt(
+        None,
+        "Write the nominal ladder's modelled levels as a LevelSet JSON file.",
+        unit="file",
+        default_text="none",
+        metavar="FILE",
+        recorded=False,
+    )
+    mc_levels_out: str | None = _opt(
+        None,
+        "Write the levels of the Monte Carlo trial with the largest INL (or --mc-trial) as a "
+        "LevelSet JSON file, for stream --levels and preview --levels.",
+        unit="file",
+        default_text="none",
+        metavar="FILE",
+        recorded=False,
+    )
+    mc_trial: int | None = _opt(
+        None,
+        "Monte Carlo trial (0-based) for --mc-levels-out.",
+        unit="trial",
+        lo=0,
+        default_text="the worst",
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        if self.drive_ma not in (2, 4, 8, 12):
+            raise OptionError(f"must be 2, 4, 8 or 12 mA, got {self.drive_ma!r}", field="drive_ma")
+        if self.mc_trial is not None and self.mc_trial >= self.trials:
+            raise OptionError(
+                f"must be 0..{self.trials - 1}, got {self.mc_trial}", field="mc_trial"
+            )
+        if self.spice_code is not None and self.spice_code >= 1 << self.bits:
+            raise OptionError(
+                f"must be 0..{(1 << self.bits) - 1} for {self.bits} bits, got {self.spice_code}",
+                field="spice_code",
+            )
 
 
 @dataclass(frozen=True)

@@ -15,6 +15,7 @@ from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.options import (
     ClipOptions,
     ClockOptions,
+    LadderDesignSpec,
     StreamOptions,
     ToneSpec,
     WaveTableSpec,
@@ -191,20 +192,37 @@ def test_block_frames_refused_for_loops() -> None:
 # -- one source for every surface
 
 
-def _readme_row(flag: str) -> list[str] | None:
-    for line in (REPO / "README.md").read_text().splitlines():
+def _readme_row(flag: str, section: str | None = None) -> list[str] | None:
+    """The README's row of `flag`: the first anywhere, or the first in `section`."""
+    lines = (REPO / "README.md").read_text().splitlines()
+    if section is not None:
+        start = lines.index(section)
+        end = next((k for k in range(start + 1, len(lines)) if lines[k].startswith("#")), None)
+        lines = lines[start:end]
+    for line in lines:
         if line.startswith(f"| `{flag}"):
             return [c.strip() for c in line.strip("|").split("|")]
     return None
 
 
-@pytest.mark.parametrize("cls", [StreamOptions, ToneSpec, WaveTableSpec, ClipOptions, ClockOptions])
+#: The README section of a command's own option table (None: the first row anywhere).
+SECTIONS: dict[type, str | None] = {
+    StreamOptions: None,
+    ToneSpec: None,
+    WaveTableSpec: None,
+    ClipOptions: None,
+    ClockOptions: "### `ladderpack clock RATE_HZ`",
+    LadderDesignSpec: "### `ladderpack ladder`",
+}
+
+
+@pytest.mark.parametrize("cls", list(SECTIONS), ids=lambda c: c.__name__)
 def test_readme_tables_agree_with_the_model(cls: type) -> None:
     for f, info, _hint in option_fields(cls):
         if not info.cli:
             continue
         flag = (info.flag or "--" + f.name.replace("_", "-")).split("/")[0]
-        row = _readme_row(flag)
+        row = _readme_row(flag, SECTIONS[cls])
         assert row is not None, f"{flag} has no README row"
         default = row[2]
         if f.default is None or isinstance(f.default, tuple):

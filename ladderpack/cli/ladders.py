@@ -9,8 +9,10 @@ from typing import Any
 import click
 
 from ladderpack.cli.common import (
+    _model_options_lazy,
     _write_one,
     cli,
+    model_values,
 )
 from ladderpack.reading import json_text
 
@@ -68,261 +70,48 @@ def _lsb(v: float) -> str:
 
 
 @cli.command()
-@click.option("--bits", type=int, default=8, show_default=True, help="Ladder width N, 1..16.")
-@click.option(
-    "--r-ohms",
-    type=float,
-    default=10_000.0,
-    show_default=True,
-    help="Unit resistance R, ohms (legs and termination 2R).",
-)
-@click.option(
-    "--tolerance-pct",
-    type=float,
-    default=1.0,
-    show_default=True,
-    help="Resistor tolerance, percent.",
-)
-@click.option(
-    "--distribution",
-    type=click.Choice(["uniform", "normal"]),
-    default="uniform",
-    show_default=True,
-    help="Monte Carlo spread (normal: tolerance = 3 sigma).",
-)
-@click.option(
-    "--drive-ma",
-    type=click.Choice(["2", "4", "8", "12"]),
-    default="4",
-    show_default=True,
-    help="GPIO drive strength, mA: default source resistances and current limit.",
-)
-@click.option(
-    "--source-high-ohms",
-    type=float,
-    default=None,
-    help="Pin source resistance driving high, ohms  [default: datasheet bound for "
-    "the drive strength]",
-)
-@click.option(
-    "--source-low-ohms",
-    type=float,
-    default=None,
-    help="Pin source resistance driving low, ohms  [default: datasheet bound for "
-    "the drive strength]",
-)
-@click.option("--supply-volts", type=float, default=3.3, show_default=True, help="IOVDD, volts.")
-@click.option(
-    "--load-ohms",
-    type=float,
-    default=None,
-    help="Resistive load on the output, ohms  [default: none]",
-)
-@click.option(
-    "--load-pf",
-    type=float,
-    default=20.0,
-    show_default=True,
-    help="Capacitance on the output, pF, for the settling check.",
-)
-@click.option(
-    "--rate-hz",
-    type=float,
-    default=22050.0,
-    show_default=True,
-    help="Sample rate, Hz: a step must settle within one period.",
-)
-@click.option(
-    "--band-hz",
-    type=float,
-    default=20000.0,
-    show_default=True,
-    help="Audio band for the thermal-noise figure, Hz.",
-)
-@click.option(
-    "--temperature-k",
-    type=float,
-    default=300.0,
-    show_default=True,
-    help="Temperature for the thermal noise, kelvin.",
-)
-@click.option("--trials", type=int, default=200, show_default=True, help="Monte Carlo trials.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Monte Carlo seed.")
-@click.option(
-    "--split-legs/--no-split-legs",
-    default=False,
-    show_default=True,
-    help="Build each 2R from two R in series.",
-)
-@click.option(
-    "--series",
-    type=click.Choice(["E24", "E96", "E192"]),
-    default="E96",
-    show_default=True,
-    help="Preferred-value series for the recommended R range.",
-)
-@click.option(
-    "--inl-share-lsb",
-    type=float,
-    default=0.5,
-    show_default=True,
-    help="Largest INL, LSB, that source resistance may cause in a recommended R.",
-)
-@click.option(
-    "--spice",
-    "spice_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Write a SPICE netlist of the nominal ladder to this file.",
-)
-@click.option(
-    "--spice-code", type=int, default=None, help="Code the netlist drives  [default: mid-scale]"
-)
-@click.option(
-    "--levels-out",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Write the nominal ladder's modelled levels as a LevelSet JSON file.",
-)
-@click.option(
-    "--mc-levels-out",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Write the levels of the Monte Carlo trial with the largest INL (or --mc-trial) "
-    "as a LevelSet JSON file, for stream --levels and preview --levels.",
-)
-@click.option(
-    "--mc-trial",
-    type=int,
-    default=None,
-    help="Monte Carlo trial (0-based) for --mc-levels-out  [default: the worst]",
-)
+@_model_options_lazy("LadderDesignSpec")
 @click.option("--json", "as_json", is_flag=True, help="Print the report as JSON.")
-def ladder(
-    bits: int,
-    r_ohms: float,
-    tolerance_pct: float,
-    distribution: str,
-    drive_ma: str,
-    source_high_ohms: float | None,
-    source_low_ohms: float | None,
-    supply_volts: float,
-    load_ohms: float | None,
-    load_pf: float,
-    rate_hz: float,
-    band_hz: float,
-    temperature_k: float,
-    trials: int,
-    seed: int,
-    split_legs: bool,
-    series: str,
-    inl_share_lsb: float,
-    spice_path: str | None,
-    spice_code: int | None,
-    levels_out: str | None,
-    mc_levels_out: str | None,
-    mc_trial: int | None,
-    as_json: bool,
-) -> None:
+def ladder(as_json: bool, **values: Any) -> None:
     """Model an R-2R ladder and check the design.
 
     Reports INL/DNL, tolerance spread, pin current, thermal noise, settling and a
     recommended R range.
     """
-    from ladderpack.ladder import (
-        DRIVE_SOURCE_OHMS,
-        design_check,
-        design_steps,
-        ideal_ladder,
-        spice_netlist,
-    )
-    from ladderpack.levels import LevelSet
+    from ladderpack.ladder import DRIVE_SOURCE_OHMS, design_ladder, design_steps
+    from ladderpack.options import LadderDesignSpec
 
+    spec = LadderDesignSpec(**model_values(LadderDesignSpec, values))
     bar_cm: contextlib.AbstractContextManager[Any] = (
-        click.progressbar(length=design_steps(trials, series), label="ladder", file=sys.stderr)
+        click.progressbar(
+            length=design_steps(spec.trials, spec.series), label="ladder", file=sys.stderr
+        )
         if sys.stderr.isatty()
         else contextlib.nullcontext()
     )
     with bar_cm as bar:
-        report = design_check(
-            bits,
-            r_ohms,
-            tolerance=tolerance_pct / 100,
-            distribution=distribution,
-            source_high_ohms=source_high_ohms,
-            source_low_ohms=source_low_ohms,
-            drive_ma=int(drive_ma),
-            supply_volts=supply_volts,
-            load_ohms=load_ohms,
-            load_farads=load_pf * 1e-12,
-            rate_hz=rate_hz,
-            band_hz=band_hz,
-            temperature_k=temperature_k,
-            trials=trials,
-            seed=seed,
-            split_legs=split_legs,
-            series=series,
-            inl_share_lsb=inl_share_lsb,
-            progress=None if bar is None else bar.update,
-        )
-    bound = DRIVE_SOURCE_OHMS[int(drive_ma)]
-    model = ideal_ladder(
-        bits,
-        r_ohms,
-        supply_volts=supply_volts,
-        source_high_ohms=report["source_high_ohms"],  # type: ignore[arg-type]
-        source_low_ohms=report["source_low_ohms"],  # type: ignore[arg-type]
-        load_ohms=load_ohms,
-        split_legs=split_legs,
-    )
+        design = design_ladder(spec, progress=None if bar is None else bar.update)
+    report = design.report
     written = []
-    if spice_path:
-        code = (1 << (bits - 1)) if spice_code is None else spice_code
-        written.append(_write_one(spice_path, spice_netlist(model, code)))
-    if levels_out:
-        ideal_span = supply_volts * ((1 << bits) - 1) / (1 << bits)
-        lev = LevelSet(
-            bits,
-            model.levels(),
-            "model",
-            {
-                "r_ohms": r_ohms,
-                "supply_volts": supply_volts,
-                "source_high_ohms": report["source_high_ohms"],
-                "source_low_ohms": report["source_low_ohms"],
-                "load_ohms": load_ohms,
-                "ideal_span_volts": ideal_span,
-            },
-        )
-        written.append(_write_one(levels_out, lev.to_json()))
-    if mc_levels_out:
-        from ladderpack.errors import OptionError
-        from ladderpack.ladder import monte_carlo_trial
-
-        k = report["monte_carlo"]["worst_trial"] if mc_trial is None else mc_trial
-        if not 0 <= k < trials:
-            raise OptionError(f"must be 0..{trials - 1}, got {k}", field="mc-trial")
-        lad = monte_carlo_trial(
-            model, seed=seed, tolerance=tolerance_pct / 100, distribution=distribution, trial=k
-        )
-        lev = LevelSet(
-            bits,
-            lad.levels(),
-            "model",
-            {
-                "r_ohms": r_ohms,
-                "tolerance": tolerance_pct / 100,
-                "distribution": distribution,
-                "seed": seed,
-                "monte_carlo_trial": k,
-                "supply_volts": supply_volts,
-                "ideal_span_volts": supply_volts * ((1 << bits) - 1) / (1 << bits),
-            },
-        )
-        written.append(_write_one(mc_levels_out, lev.to_json()))
+    for path, text in (
+        (spec.spice, design.netlist),
+        (spec.levels_out, None if design.levels is None else design.levels.to_json()),
+        (
+            spec.mc_levels_out,
+            None if design.trial_levels is None else design.trial_levels.to_json(),
+        ),
+    ):
+        if path and text is not None:
+            written.append(_write_one(path, text))
     if as_json:
         click.echo(json_text({**report, "files": written}))
         return
+    bits, r_ohms, supply_volts, drive_ma = spec.bits, spec.r_ohms, spec.supply_volts, spec.drive_ma
+    tolerance_pct, distribution, band_hz, series = (
+        spec.tolerance_pct, spec.distribution, spec.band_hz, spec.series
+    )  # fmt: skip
+    split_legs = spec.split_legs
+    bound = DRIVE_SOURCE_OHMS[drive_ma]
     nom, wc, mc = report["nominal"], report["worst_case"], report["monte_carlo"]
     click.echo(
         f"{bits}-bit R-2R, R = {r_ohms:g} ohm, 2R legs{' of two R' if split_legs else ''}"
