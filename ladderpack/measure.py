@@ -22,12 +22,13 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TypedDict
+from typing import Any, TypedDict
 
 import numpy as np
 
 from ladderpack.errors import OptionError
 from ladderpack.loudness import integrated_loudness, k_weighting, true_peak_dbtp
+from ladderpack.options import AnalysisOptions, MeasureOptions
 
 __all__ = [
     "SineFit",
@@ -457,3 +458,115 @@ def sine_share(y: np.ndarray, rate_hz: float) -> float:
     fit = fit_sine(y, rate_hz)
     ac = float(np.mean((y - y.mean()) ** 2))
     return min(1.0, (fit.amplitude**2 / 2) / ac) if ac > 0 else 0.0
+
+
+def analysis_band(
+    rate_hz: float, low_hz: float | None, high_hz: float | None
+) -> tuple[float, float] | None:
+    """The band to analyse, Hz.
+
+    None for the whole record, else (low, high) with the missing edge DC or Nyquist.
+    """
+    if low_hz is None and high_hz is None:
+        return None
+    return (low_hz or 0.0, high_hz if high_hz is not None else rate_hz / 2)
+
+
+def measure_capture(
+    path: str, spec: MeasureOptions, analysis: AnalysisOptions
+) -> tuple[dict[str, Any], np.ndarray]:
+    """Read a captured test tone and analyse its steady part (``ladderpack measure``).
+
+    Parameters
+    ----------
+    path : str
+        A sound file (WAV, FLAC...) or a CSV of samples (a scope's export).
+    spec : MeasureOptions
+        Its rate (when the file does not say or says it rounded), channel, full scale and
+        trims.
+    analysis : AnalysisOptions
+        The tone, harmonics, band and weighting of the analysis.
+
+    Returns
+    -------
+    report : dict
+        :func:`analyse`'s figures, with ``rate_hz`` and its source, the samples analysed
+        and how they were chosen, the sine's share of the power, and warnings.
+    samples : numpy.ndarray
+        The samples analysed (for a spectrum plot).
+
+    Raises
+    ------
+    OptionError
+        For a CSV without a rate, or trims that leave nothing.
+    """
+    from ladderpack.audio import load_clip, read_capture_csv
+
+    rate_note = "from the file"
+    if path.lower().endswith((".csv", ".txt")):
+        y, stated, how = read_capture_csv(path)
+        if spec.rate_hz is not None:
+            rate, rate_note = float(spec.rate_hz), "from --rate-hz"
+        elif stated is not None:
+            rate, rate_note = stated, f"from {how}"
+        else:
+            raise OptionError(
+                "a CSV capture without a sample interval in its header or a time column "
+                "needs --rate-hz",
+                field="rate_hz",
+            )
+    else:
+        sig = load_clip(path, channel=spec.channel)
+        y, rate = sig.samples, sig.rate_hz
+        if spec.rate_hz is not None:  # the user knows better than the header (a rounded rate)
+            rate_note = f"from --rate-hz, over the file's header ({rate:g} Hz)"
+            rate = float(spec.rate_hz)
+    total = y.size
+    if spec.trim_start_s is not None or spec.trim_end_s is not None:
+        lo = round((spec.trim_start_s or 0.0) * rate)
+        hi = total - round((spec.trim_end_s or 0.0) * rate)
+        if not 0 <= lo < hi - 8:
+            raise OptionError(
+                f"the trims leave nothing of the {total / rate:.3f} s capture", field="trim"
+            )
+        part, part_note = slice(lo, hi), "as trimmed"
+    else:
+        part = steady_part(y, rate)
+        part_note = "the steady part, found" if part != slice(0, total) else "all of it"
+    y = y[part]
+    share = sine_share(y, rate)
+    r: dict[str, Any] = dict(
+        analyse(
+            y,
+            rate,
+            freq_hz=analysis.freq_hz,
+            full_scale=spec.full_scale,
+            harmonics=analysis.harmonics,
+            band_hz=analysis_band(rate, analysis.band_low_hz, analysis.band_high_hz),
+            a_weighted=analysis.a_weighting,
+            weight_tone=analysis.weight_tone,
+        )
+    )
+    r["rate_hz"] = rate
+    r["rate_source"] = rate_note
+    r["analysed_samples"] = [part.start or 0, part.stop if part.stop is not None else total]
+    r["analysed_part"] = part_note
+    r["total_samples"] = total
+    r["sine_share"] = share
+    cycles = r["freq_hz"] * y.size / rate
+    if cycles < 2:
+        r["warnings"] = [
+            *(r.get("warnings") or []),
+            f"the record holds {cycles:.3g} cycles of a {r['freq_hz']:.4g} Hz tone at "
+            f"{rate:g} Hz ({rate_note}): an implausible rate; give the capture's rate with "
+            "--rate-hz",
+        ]
+    r["warnings"] = list(r.get("warnings") or []) + (
+        [
+            f"the capture does not look like a sine: a fitted sine holds only "
+            f"{100 * share:.1f} % of its power, so these figures mean little"
+        ]
+        if share < 0.5
+        else []
+    )
+    return r, y

@@ -48,11 +48,14 @@ from ladderpack.errors import DeprecatedOptionWarning, LadderpackError, OptionEr
 from ladderpack.targets import MAX_SYS_CLOCK_HZ, TARGET_NAMES, get_target
 
 __all__ = [
+    "AnalysisOptions",
     "ClipOptions",
     "ClockOptions",
     "CorrectionTableSpec",
     "I2cDacTableSpec",
     "LadderDesignSpec",
+    "MeasureOptions",
+    "NtfPlotSpec",
     "OptionInfo",
     "StreamOptions",
     "ToneSpec",
@@ -996,6 +999,99 @@ class LadderDesignSpec(_Model):
                 f"must be 0..{(1 << self.bits) - 1} for {self.bits} bits, got {self.spice_code}",
                 field="spice_code",
             )
+
+
+@dataclass(frozen=True)
+class AnalysisOptions(_Model):
+    """How a test tone is analysed (``measure`` and ``preview``)."""
+
+    freq_hz: float | None = _opt(
+        None,
+        "Test-tone frequency.",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="found by a four-parameter fit",
+    )
+    harmonics: int = _opt(10, "Highest harmonic counted in THD.", unit="count", lo=2, hi=1000)
+    band_low_hz: float | None = _opt(
+        None,
+        "Lower band edge for noise and distortion.",
+        unit="Hz",
+        lo=0,
+        default_text="DC excluded",
+    )
+    band_high_hz: float | None = _opt(
+        None, "Upper band edge.", unit="Hz", lo=0, lo_open=True, default_text="Nyquist"
+    )
+    a_weighting: bool = _opt(
+        False,
+        "Weight noise and distortion by IEC 61672-1 A-weighting; the tone stays unweighted "
+        "(usual practice, as in AES17).",
+        flag="--a-weighting/--no-a-weighting",
+    )
+    weight_tone: bool = _opt(
+        False,
+        "With --a-weighting, weight the tone too (a ratio of weighted powers).",
+        flag="--weight-tone/--no-weight-tone",
+    )
+
+    def __post_init__(self) -> None:
+        self._check_fields()
+        lo, hi = self.band_low_hz, self.band_high_hz
+        if lo is not None and hi is not None and not lo < hi:
+            raise OptionError(
+                f"must be below --band-high-hz ({hi!r}), got {lo!r}", field="band_low_hz"
+            )
+
+
+@dataclass(frozen=True)
+class MeasureOptions(_Model):
+    """How a capture is read (``ladderpack measure``); the analysis is :class:`AnalysisOptions`."""
+
+    rate_hz: float | None = _opt(
+        None,
+        "Sample rate of the capture: a CSV's when its header gives none; for a sound file it "
+        "overrides the header (whose rate is whole hertz).",
+        unit="Hz",
+        lo=0,
+        lo_open=True,
+        default_text="from the file",
+    )
+    channel: int = _opt(0, "Channel of a multichannel sound file.", unit="index", lo=0)
+    full_scale: float = _opt(
+        1.0,
+        "Peak of a full-scale sine in the capture's units (1.0 for sound files; volts for a "
+        "scope CSV).",
+        unit="capture units",
+        lo=0,
+        lo_open=True,
+    )
+    trim_start_s: float | None = _opt(
+        None, "Seconds to drop at the start.", unit="s", lo=0, default_text="the steady part"
+    )
+    trim_end_s: float | None = _opt(
+        None, "Seconds to drop at the end.", unit="s", lo=0, default_text="the steady part"
+    )
+
+
+@dataclass(frozen=True)
+class NtfPlotSpec(_Model):
+    """A noise-shaping filter to plot (``ladderpack plot ntf``)."""
+
+    shaping: str = _opt("designed", "Shaping filter.", choices=SHAPER_NAMES)
+    rate_hz: float = _opt(44100.0, "Sample rate.", unit="Hz", lo=0, lo_open=True)
+    bits: int = _opt(
+        8, "Ladder width (sets a designed filter's default peak bound).", unit="bits", lo=1, hi=32
+    )
+    band_hz: float | None = _opt(
+        None, "Audio band.", unit="Hz", lo=0, lo_open=True, default_text="20000 or Nyquist"
+    )
+    weighting: str = _opt("threshold", "Weighting of a designed filter.", choices=WEIGHTING_NAMES)
+    ntf_order: int = _opt(8, "Order of a designed filter.", unit="order", lo=1, hi=16)
+    force: bool = _opt(
+        False, "Allow a published filter away from its design rate.", flag="--force/--no-force"
+    )
 
 
 @dataclass(frozen=True)

@@ -34,6 +34,7 @@ import numpy as np
 from ladderpack import portable
 from ladderpack.defaults import SHAPER_NAMES, WEIGHTING_NAMES
 from ladderpack.errors import OptionError
+from ladderpack.options import NtfPlotSpec
 
 __all__ = [
     "CATALOGUE",
@@ -472,3 +473,26 @@ def predict_noise(
         "peak_db": db(float(np.max(h2))),
         "log_integral_db": float(portable.mean(10 * portable.log10(h2))),
     }
+
+
+def plotted_shaper(spec: NtfPlotSpec) -> tuple[Shaper, float]:
+    """The shaper ``plot ntf`` draws, and its audio band, Hz.
+
+    A designed filter takes the spec's band, weighting and order and the default peak
+    bound of its width (:func:`ladderpack.defaults.default_ntf_max_db`); a fixed or
+    published one is looked up at the rate.
+    """
+    from ladderpack.defaults import default_band_hz, default_ntf_max_db
+
+    band = spec.band_hz or default_band_hz(spec.rate_hz)
+    if spec.shaping == "designed":
+        shaper = design_shaper(
+            spec.rate_hz,
+            band_hz=band,
+            weighting_kind=spec.weighting,
+            order=spec.ntf_order,
+            max_gain_db=default_ntf_max_db(spec.bits),
+        )
+    else:
+        shaper = get_shaper(spec.shaping, spec.rate_hz, force=spec.force)
+    return shaper, band

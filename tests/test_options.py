@@ -13,9 +13,12 @@ import pytest
 from ladderpack.audio import Signal
 from ladderpack.errors import LadderpackError, OptionError
 from ladderpack.options import (
+    AnalysisOptions,
     ClipOptions,
     ClockOptions,
     LadderDesignSpec,
+    MeasureOptions,
+    NtfPlotSpec,
     StreamOptions,
     ToneSpec,
     WaveTableSpec,
@@ -213,6 +216,9 @@ SECTIONS: dict[type, str | None] = {
     ClipOptions: None,
     ClockOptions: "### `ladderpack clock RATE_HZ`",
     LadderDesignSpec: "### `ladderpack ladder`",
+    MeasureOptions: "### `ladderpack measure CAPTURE`",
+    AnalysisOptions: "### `ladderpack measure CAPTURE`",
+    NtfPlotSpec: "### `ladderpack plot levels LEVELS`, `ladderpack plot ntf`",
 }
 
 
