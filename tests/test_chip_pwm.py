@@ -201,10 +201,13 @@ def test_c_player_stop_ramps_every_period_to_idle(
 def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path: Path) -> None:
     exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0)
     per_pass = exp.codes.size * exp.period_clocks * exp.periods_per_sample
-    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * per_pass)), ("stop", 0)]
+    # then a DC level on demand (a compare value held at once), and one out of range
+    top1 = int(json.loads((tmp_path / "drone.json").read_text())["clock"]["top"]) + 1
+    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * per_pass)), ("stop", 0),
+           ("delay", int(8 * exp.period_clocks)), ("hold", 123), ("hold", top1 + 1)]  # fmt: skip
     image = fw.make(tmp_path, [], [], app=app("drone", ops))
     r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
-    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    assert r.ended and r.results() == [0, 0, 0, 0, 0, 0, -7], r.results()  # LP_PWM_ERR_CODE
     values, _t = per_period(r.periods, exp)
     k = exp.periods_per_sample
     body = np.repeat(exp.codes, k)
@@ -216,7 +219,9 @@ def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path
     assert passes >= 3
     outro = np.repeat(exp.outro, k)
     assert np.array_equal(values[start : start + outro.size], outro)
-    assert np.all(values[start + outro.size :] == exp.idle)
+    rest = values[start + outro.size :]
+    held = int(np.argmax(rest == 123))
+    assert np.all(rest[:held] == exp.idle) and held > 0 and np.all(rest[held:] == 123)
     # the same bundle builds for the RP2350 with its SDK platform
     assert fw2350.make(tmp_path, [], [], app=app("drone", ops)).stat().st_size > 0
 

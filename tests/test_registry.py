@@ -176,3 +176,23 @@ def test_old_pin_spellings_keep_working_for_a_release_and_say_so(tmp_path: Path)
         StreamOptions(clock_pin=3)
     with pytest.raises(OptionError, match=r"give data_pin .* not both"):
         StreamOptions(output="i2s", out_base=3, data_pin=4)
+
+
+@pytest.mark.parametrize("entry", outputs.REGISTRY, ids=lambda e: e.name)
+def test_every_output_follows_the_naming_scheme(entry: outputs.Entry) -> None:
+    # the scheme of outputs.Entry's notes: files and C take the short name
+    from ladderpack.emit import templates
+
+    short = outputs.short_name(entry.name)
+    stem = f"ladderpack_{'player' if short == 'ladder' else short}"
+    assert stem in entry.players
+    for what in entry.players:
+        made = templates.player(what) if what != "ladderpack_stereo" else None
+        if made is None:
+            continue
+        header = made[f"{what}.h"].decode()
+        prefix = "lp_ladder_" if short == "ladder" else f"lp_{short}_"
+        assert f"int {prefix}init(" in header
+        # one verb for a DC level on every output that holds one (takes the "level" group)
+        assert (f"int {prefix}hold_code(" in header) == ("level" in entry.takes)
+        assert f"{prefix}stream_t" in header and f"{prefix}player_t" in header

@@ -110,6 +110,15 @@ class Entry:
         The stems of the C player files its bundles share (``<stem>.h``, ``<stem>.c``),
         and what each is: every stem is a reserved asset name
         (:data:`ladderpack.emit.names.PLAYER_FILES`).
+
+    Notes
+    -----
+    The naming scheme: an output's name on the command line, in manifests and sidecars'
+    ``output`` is :attr:`name` (``i2c-dac``); its sidecar block and summary key are the
+    name with underscores (``i2c_dac``); its C player files and C prefix take its short
+    name, the name less ``-dac`` (``ladderpack_i2c.c``, ``lp_i2c_*``, ``<NAME>_I2C_INIT``),
+    and the two-ladder player is ``stereo`` (``lp_stereo_*``).  ``tests/test_registry.py``
+    holds every output to it.
     """
 
     name: str
@@ -204,6 +213,17 @@ REGISTRY: tuple[Entry, ...] = (
 
 #: The registry by name.
 REGISTRY_BY_NAME = {e.name: e for e in REGISTRY}
+
+
+def short_name(name: str) -> str:
+    """An output's short name (its files' and C prefix's): the name less ``-dac``.
+
+    Examples
+    --------
+    >>> short_name("i2c-dac"), short_name("ladder")
+    ('i2c', 'ladder')
+    """
+    return name.removesuffix("-dac")
 
 
 def names() -> tuple[str, ...]:

@@ -43,6 +43,7 @@
 #define LP_PWM_ERR_GPIO    (-4) /* a stereo stream's pin is not a slice's channel A */
 #define LP_PWM_ERR_NO_DMA  (-5) /* not enough free DMA channels or pacing timers */
 #define LP_PWM_ERR_BUSY    (-6) /* the player is still playing */
+#define LP_PWM_ERR_CODE    (-7) /* a compare value above TOP + 1 */
 #define LP_PWM_ERR_STATE   (-8) /* player not initialised */
 
 /* Everything a player needs to know about one stream (filled by <NAME>_PWM_INIT). */
@@ -106,6 +107,11 @@ int lp_pwm_stop(lp_pwm_player_t *p);
 /* Stop (blocking) if playing, then release the DMA channels and the timer. The slice keeps
  * running on the idle code. */
 void lp_pwm_deinit(lp_pwm_player_t *p);
+
+/* Hold one compare value (0..TOP + 1; both channels of a stereo stream) while nothing
+ * plays: a DC level on demand, set at once (the next period has it). LP_PWM_ERR_BUSY
+ * while playing, LP_PWM_ERR_CODE above TOP + 1. */
+int lp_pwm_hold_code(lp_pwm_player_t *p, uint16_t code);
 
 /* Text of an LP_PWM_ERR_* result. */
 const char *lp_pwm_strerror(int result);

@@ -275,6 +275,20 @@ void lp_pwm_deinit(lp_pwm_player_t *p) {
     p->stream = NULL;
 }
 
+int lp_pwm_hold_code(lp_pwm_player_t *p, uint16_t code) {
+    if (p->stream == NULL) {
+        return LP_PWM_ERR_STATE;
+    }
+    if ((uint32_t)code > (uint32_t)p->stream->top + 1u) {
+        return LP_PWM_ERR_CODE;
+    }
+    if (lp_pwm_busy(p)) {
+        return LP_PWM_ERR_BUSY;
+    }
+    pwm_hw->slice[p->slice].cc = (uint32_t)code | ((uint32_t)code << 16);
+    return LP_PWM_OK;
+}
+
 const char *lp_pwm_strerror(int result) {
     switch (result) {
     case LP_PWM_OK: return "ok";
@@ -283,6 +297,7 @@ const char *lp_pwm_strerror(int result) {
                "remake the bundle with --sys-clock-hz set to this chip's clock";
     case LP_PWM_ERR_GPIO: return "a stereo stream needs its pin on a slice's channel A";
     case LP_PWM_ERR_NO_DMA: return "not enough free DMA channels or pacing timers";
+    case LP_PWM_ERR_CODE: return "a compare value above TOP + 1";
     case LP_PWM_ERR_BUSY: return "the player is playing";
     case LP_PWM_ERR_STATE: return "player not initialised";
     default: return "unknown result";
