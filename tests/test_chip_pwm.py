@@ -234,14 +234,15 @@ def test_micropython_every_period_holds_its_sample(
 ) -> None:
     exp, files = make(tmp_path, "ping", rate_hz=rate_hz, seconds=0.01, chunk_words=64, embed=embed)
     board = {"ping.py": files["ping.py"], "ping.bin": files["ping.bin"]}
-    r = run_micropython(
-        board, [{"code": "import ping\nping.play()\n"}], tmp_path, pwm_slices=[exp.slice]
-    )
+    code = "import ping\np = ping.Player()\np.play()\np.hold_code(77)\n"
+    r = run_micropython(board, [{"code": code}], tmp_path, pwm_slices=[exp.slice])
     assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
     values, times = per_period(r.periods, exp)
     want = np.repeat(exp.codes, exp.periods_per_sample)
     start = find(values, want)
-    assert np.all(values[start + want.size :] == exp.idle)
+    rest = values[start + want.size :]  # idle, then the DC level held on demand
+    held = int(np.argmax(rest == 77))
+    assert held > 0 and np.all(rest[:held] == exp.idle) and np.all(rest[held:] == 77)
     assert_periods(times, exp)
 
 

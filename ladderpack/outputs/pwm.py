@@ -765,6 +765,12 @@ class Player:
         \"\"\"Ask a running play() to finish (safe to call from an interrupt handler).\"\"\"
         self.running = False
 
+    def hold_code(self, code: int) -> None:
+        \"\"\"Hold one compare value (0..TOP + 1, every channel) while nothing plays.\"\"\"
+        if not 0 <= code <= TOP + 1:
+            raise ValueError("compare values are 0..%d" % (TOP + 1))
+        mem32[_SLICE + _CC] = code | (code << _CC_B_LSB)
+
     def _ramp_down(self) -> None:
         for d in self.dma:
             d.active(0)
