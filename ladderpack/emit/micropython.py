@@ -24,6 +24,8 @@ __all__ = [
     "mp_instruction",
     "mp_program_body",
     "pio_registers_text",
+    "play_method",
+    "queue_methods",
     "render",
     "sdk_constants",
     "set_clock_text",
@@ -812,3 +814,90 @@ def feed_methods(stop_line: str) -> str:
     `stop_line` is the statement that ends a stream at once when ``stop()`` was called.
     """
     return _FEED_METHODS.replace("{stop_line}", stop_line)
+
+
+#: The FIFO-fed players' queue (the I2C and SPI DAC writers): hand a buffer to the DMA,
+#: tell when the machine has drained, restart it with Y = the pad.  ``{unit}`` is what a
+#: period carries ("update", "sample").
+_QUEUE_METHODS = """\
+    def _send(self, buf: "array.array[int]", count: int) -> None:
+        while self.dma.active():
+            pass
+        if self.cur_n:
+            self.sent += self.cur_n
+        self.cur, self.cur_n = buf, count
+        self.dma.config(read=buf, write=self.txf, count=count, ctrl=self.ctrl, trigger=True)
+
+    def _drained(self) -> bool:
+        if self.dma.active() or self.sm.tx_fifo():
+            return False
+        # the pull at the program's start stalls once the last {unit}'s period is over
+        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
+
+    def _start(self) -> None:
+        self.sm.active(0)
+        self.sm.restart()
+        mem32[self.reg + _SM0_INSTR] = self.origin  # jmp to the program's start
+        self.sm.put(PAD)
+        self.sm.exec("pull()")
+        self.sm.exec("mov(y, osr)")
+
+"""
+
+#: Their ``play``: the intro, the words (embedded or read from the file), a stop that
+#: ramps a stream down or finishes a loop's pass, the outro.
+_PLAY_METHOD = """\
+    def play(self, loop: bool = LOOP) -> None:
+        \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
+        last {unit}'s period is over.\"\"\"
+        self.running = True
+        self._start()
+        self.sent, self.cur_n = 0, 0
+        try:
+            if INTRO is not None:
+                self._send(INTRO, len(INTRO))
+                self._go()
+                self.sent, self.cur_n = 0, 0
+            if WORDS is not None:
+                self._play_words(WORDS, loop)
+            else:
+                self._play_file(loop)
+            if not LOOP:
+                while self.dma.active():
+                    if not self.running:
+                        self._ramp_down()
+                        return
+            while self.dma.active():
+                pass
+            if OUTRO is not None:
+                self._send(OUTRO, len(OUTRO))
+            while not self._drained():
+                pass
+        except KeyboardInterrupt:
+            if LOOP:
+                while self.dma.active():
+                    pass
+                if OUTRO is not None:
+                    self._send(OUTRO, len(OUTRO))
+                while not self._drained():
+                    pass
+            else:
+                self._ramp_down()
+            raise
+        finally:
+            self.running = False
+
+"""
+
+
+def queue_methods(unit: str) -> str:
+    """The text of ``_send``, ``_drained`` and ``_start`` of a FIFO-fed player.
+
+    Shared by the I2C and SPI DAC modules; `unit` names what a period carries.
+    """
+    return _QUEUE_METHODS.replace("{unit}", unit)
+
+
+def play_method(unit: str) -> str:
+    """The text of ``play`` of a FIFO-fed player with a pad (I2C and SPI DAC modules)."""
+    return _PLAY_METHOD.replace("{unit}", unit)

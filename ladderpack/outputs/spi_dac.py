@@ -56,6 +56,8 @@ from ladderpack.emit.micropython import (
     feed_methods,
     mp_program_body,
     pio_registers_text,
+    play_method,
+    queue_methods,
     set_clock_text,
 )
 from ladderpack.emit.names import comment_safe, player_files
@@ -748,29 +750,7 @@ class Player:
         self._start()
         self._go()  # waits at its first pull, CS high
 
-    def _send(self, buf: "array.array[int]", count: int) -> None:
-        while self.dma.active():
-            pass
-        if self.cur_n:
-            self.sent += self.cur_n
-        self.cur, self.cur_n = buf, count
-        self.dma.config(read=buf, write=self.txf, count=count, ctrl=self.ctrl, trigger=True)
-
-    def _drained(self) -> bool:
-        if self.dma.active() or self.sm.tx_fifo():
-            return False
-        # the pull at the program's start stalls once the last sample's period is over
-        return bool(mem32[self.pio + _FDEBUG] & (1 << (_TXSTALL_LSB + self.idx)))
-
-    def _start(self) -> None:
-        self.sm.active(0)
-        self.sm.restart()
-        mem32[self.reg + _SM0_INSTR] = self.origin  # jmp to the program's start
-        self.sm.put(PAD)
-        self.sm.exec("pull()")
-        self.sm.exec("mov(y, osr)")
-
-    def _go(self) -> None:
+{queue}    def _go(self) -> None:
         mem32[self.pio + _FDEBUG] = 1 << (_TXSTALL_LSB + self.idx)  # clear TXSTALL
         self.sm.active(1)
 
@@ -818,47 +798,7 @@ class Player:
             b = f.read(4)
         return b[0] | b[1] << 8 | b[2] << 16 | b[3] << 24
 
-    def play(self, loop: bool = LOOP) -> None:
-        \"\"\"Play once, or repeat (loop=True) until stop() is called; blocks until the
-        last sample's period is over.\"\"\"
-        self.running = True
-        self._start()
-        self.sent, self.cur_n = 0, 0
-        try:
-            if INTRO is not None:
-                self._send(INTRO, len(INTRO))
-                self._go()
-                self.sent, self.cur_n = 0, 0
-            if WORDS is not None:
-                self._play_words(WORDS, loop)
-            else:
-                self._play_file(loop)
-            if not LOOP:
-                while self.dma.active():
-                    if not self.running:
-                        self._ramp_down()
-                        return
-            while self.dma.active():
-                pass
-            if OUTRO is not None:
-                self._send(OUTRO, len(OUTRO))
-            while not self._drained():
-                pass
-        except KeyboardInterrupt:
-            if LOOP:
-                while self.dma.active():
-                    pass
-                if OUTRO is not None:
-                    self._send(OUTRO, len(OUTRO))
-                while not self._drained():
-                    pass
-            else:
-                self._ramp_down()
-            raise
-        finally:
-            self.running = False
-
-{feed}
+{play}{feed}
     def close(self) -> None:
         \"\"\"Release the DMA channel and the state machine (CS stays high).\"\"\"
         self.dma.close()
@@ -920,6 +860,8 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         sideset_init="(" + ", ".join(side) + ")",
         body="\n".join(mp_program_body(asset.pio_program)),
         feed=feed_methods("self._ramp_down()  # a stream stops at once, ramping down"),
+        queue=queue_methods("sample"),
+        play=play_method("sample"),
     )
     return text + set_clock_text(asset)
 
