@@ -295,6 +295,8 @@ def render_preview(
     fade = round(_number(side, sidecar_path, "options", "fade_ms", 0.0, hi=1e7) * 1e-3 * rate)
     if _section(side, sidecar_path, "options").get("loop"):
         ramp = fade = 0
+    if _section(side, sidecar_path, "stats").get("tone"):
+        fade = 0  # a synthesised tone has no fades (its sidecar records the default)
     lo = (ramp + fade) * out_rate / rate
     hi = (ramp + audio - fade) * out_rate / rate
     return Preview(x, out_rate, slice(math.ceil(lo), max(int(hi), math.ceil(lo) + 1)), side)

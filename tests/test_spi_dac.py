@@ -147,7 +147,7 @@ def test_command_line_bundle_and_preview(tmp_path: Path) -> None:
     run = [sys.executable, "-m", "ladderpack"]
     res = subprocess.run(
         [*run, "tone", "sine", "--output", "spi-dac", "--stereo", "--latch", "--seconds",
-         "0.05", "--data-pin", "10", "--bit-clock-pin", "11", "--name", "duo", "-o",
+         "0.01", "--data-pin", "10", "--bit-clock-pin", "11", "--name", "duo", "-o",
          str(tmp_path), "--json"],
         capture_output=True, text=True,
     )  # fmt: skip
@@ -165,6 +165,14 @@ def test_command_line_bundle_and_preview(tmp_path: Path) -> None:
     )  # fmt: skip
     assert res.returncode == 0, res.stderr
     assert (tmp_path / "duo_b.wav").stat().st_size > 1000
+    # a short tone is measured over its whole audio: a tone has no fades to trim
+    res = subprocess.run(
+        [*run, "preview", str(tmp_path / "duo.json"), "--json", "-o", str(tmp_path / "a.wav")],
+        capture_output=True, text=True,
+    )  # fmt: skip
+    assert res.returncode == 0, res.stderr
+    got = json.loads(res.stdout)["analysis"]
+    assert abs(got["freq_hz"] - 1000.0) < 1e-3 and got["sinad_db"] > 60
 
 
 def test_player_files_are_their_templates_line_for_line() -> None:
