@@ -24,9 +24,9 @@ from dataclasses import dataclass, field
 from fractions import Fraction
 from typing import TYPE_CHECKING, Any, Protocol
 
-import numpy as np
+if TYPE_CHECKING:  # pragma: no cover - types only (the module stays light to import)
+    import numpy as np
 
-if TYPE_CHECKING:  # pragma: no cover - types only
     from ladderpack.asset import StreamAsset
     from ladderpack.emit import Content
     from ladderpack.options import StreamOptions, WaveTableSpec

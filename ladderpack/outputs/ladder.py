@@ -11,15 +11,9 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable, Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
-
-from ladderpack.asset import StreamAsset
-from ladderpack.clock import plan_clock
-from ladderpack.emit import Content, binary, c, micropython, pioasm, player_stereo, templates
 from ladderpack.errors import OptionError
-from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
     ClockReport,
     OutputPlan,
@@ -29,16 +23,26 @@ from ladderpack.outputs.base import (
     cycles_divider,
     state_machine_blocks,
 )
-from ladderpack.pack import StereoLadderLayout, WordLayout, unpack
-from ladderpack.pio import ladder_program, max_cycles, min_cycles, state_machine_config
 from ladderpack.targets import get_target
-from ladderpack.waves import wavetable
+
+if TYPE_CHECKING:  # pragma: no cover - types only
+    import numpy as np
+
+    from ladderpack.asset import StreamAsset
+    from ladderpack.emit import Content
+    from ladderpack.options import StreamOptions, WaveTableSpec
+
+# The stages, the emitters and numpy are imported where they are used: the option model
+# asks this object its checks for every option object a build makes, and a no-op build
+# should not pay for numpy.
 
 __all__ = ["OUTPUT", "LadderOutput"]
 
 
 def _program_variant(opts: StreamOptions, spw: int) -> str:
     """The program: the user's, or loop for loops when it fits, else pull or autopull."""
+    from ladderpack.pio import max_cycles, min_cycles
+
     if opts.program != "auto":
         return opts.program
     if opts.loop and max_cycles("loop", spw, opts.pins) >= min_cycles("loop"):
@@ -119,6 +123,12 @@ class LadderOutput:
 
     def plan(self, opts: StreamOptions, ident: str) -> OutputPlan:
         """The word layout, the program that fits the rate, and its state machine."""
+        import numpy as np
+
+        from ladderpack.clock import plan_clock
+        from ladderpack.pack import StereoLadderLayout, WordLayout
+        from ladderpack.pio import ladder_program, max_cycles, min_cycles, state_machine_config
+
         layout = (StereoLadderLayout if opts.stereo else WordLayout)(
             opts.pins,
             shift_right=opts.shift == "right",
@@ -194,6 +204,9 @@ class LadderOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the ladder player."""
+        from ladderpack.emit import binary, c, micropython, pioasm, player_stereo, templates
+        from ladderpack.pack import StereoLadderLayout
+
         n = asset.name
         player = (
             player_stereo.files()
@@ -211,6 +224,10 @@ class LadderOutput:
 
     def preview_model(self, layout: Mapping[str, Any], sidecar: Mapping[str, Any]) -> PreviewModel:
         """The ladder's word layout from the sidecar; codes drive a ladder's levels."""
+        import numpy as np
+
+        from ladderpack.pack import StereoLadderLayout, WordLayout, unpack
+
         stereo = layout.get("channels") == "stereo"
         bits, spw = layout["bits"], layout["samples_per_word"]
         hi = 30 if stereo else 16
@@ -243,6 +260,9 @@ class LadderOutput:
 
     def wave_table(self, spec: WaveTableSpec) -> WaveTable:
         """Unsigned N-bit codes at the ladder's clock."""
+        from ladderpack.clock import plan_clock
+        from ladderpack.waves import wavetable
+
         plan = plan_clock(
             spec.rate_hz,
             sys_clock_hz=int(spec.sys_clock_hz or 0),
@@ -255,6 +275,8 @@ class LadderOutput:
         self, rate_hz: float, opts: StreamOptions, settings: Mapping[str, Any]
     ) -> ClockReport:
         """The state machine's divider and cycles per sample."""
+        from ladderpack.clock import plan_clock
+
         plan = plan_clock(
             rate_hz, sys_clock_hz=int(opts.sys_clock_hz or 0), tolerance_ppm=opts.rate_tolerance_ppm
         )
@@ -273,6 +295,8 @@ class LadderOutput:
 
     def clock_planner(self, rate_hz: float, settings: Mapping[str, Any]) -> Callable[[int], Any]:
         """The state machine's divider x 1..32 cycles a sample."""
+        from ladderpack.clock import plan_clock
+
         return lambda f: plan_clock(rate_hz, sys_clock_hz=f, tolerance_ppm=1e9)
 
     def clock_row(self, plan: Any) -> tuple[dict[str, Any], str]:
