@@ -210,14 +210,11 @@ def plan_clock(
     p, q = rate.numerator, rate.denominator
     target = 256 * sys_clock_hz * q
 
-    def better(a: tuple[int, int, int, int], b: tuple[int, int, int, int] | None) -> bool:
-        if b is None:
-            return True
-        lhs, rhs = a[0] * b[1], b[0] * a[1]
-        return lhs < rhs or (lhs == rhs and a[2] < b[2])
-
-    best_int: tuple[int, int, int, int] | None = None  # (err num, err den, cycles, d256)
-    best_any: tuple[int, int, int, int] | None = None
+    # The best error so far of any divider and of integer ones, as (numerator,
+    # denominator, cycles, d256); a candidate wins on a smaller error, then fewer cycles.
+    # The comparison is written out in the loop (it runs for every cycle count).
+    any_n, any_d, any_c, any_s = -1, 1, 0, 0
+    int_n, int_d, int_c, int_s = -1, 1, 0, 0
     for cycles in range(min_cycles, max_cycles + 1):
         pc = p * cycles
         lo256 = target // pc
@@ -226,11 +223,16 @@ def plan_clock(
             if not _DIV_MIN_256 <= d256 <= _DIV_MAX_256:
                 continue
             den = pc * d256
-            cand = (abs(target - den), den, cycles, d256)
-            if better(cand, best_any):
-                best_any = cand
-            if d256 % 256 == 0 and better(cand, best_int):
-                best_int = cand
+            num = abs(target - den)
+            lhs, rhs = num * any_d, any_n * den
+            if any_n < 0 or lhs < rhs or (lhs == rhs and cycles < any_c):
+                any_n, any_d, any_c, any_s = num, den, cycles, d256
+            if d256 % 256 == 0:
+                lhs, rhs = num * int_d, int_n * den
+                if int_n < 0 or lhs < rhs or (lhs == rhs and cycles < int_c):
+                    int_n, int_d, int_c, int_s = num, den, cycles, d256
+    best_any = (any_n, any_d, any_c, any_s) if any_n >= 0 else None
+    best_int = (int_n, int_d, int_c, int_s) if int_n >= 0 else None
     assert best_any is not None  # the range check above guarantees a candidate
     chosen = best_any
     if best_int is not None and Fraction(best_int[0] * 1_000_000, best_int[1]) <= Fraction(
