@@ -137,9 +137,6 @@ class StreamPlan:
         Input frames per block (the whole input when it is one block).
     scale : CodeScale, optional
         The code scale when it is not the N-bit one (a PWM slice's TOP + 2 levels).
-    setup : object, optional
-        The output's own plan besides the clock (a PWM slice's pin and pacing, an I2C
-        bus writer's timing).
     part : OutputPlan
         The output's whole plan (:meth:`ladderpack.outputs.base.Output.plan`).
     """
@@ -161,7 +158,6 @@ class StreamPlan:
     memory_bytes: int
     block_frames: int
     scale: CodeScale | None = None
-    setup: Any = None
     part: OutputPlan | None = None
 
     @property
@@ -394,7 +390,6 @@ def plan_stream(
         memory,
         max(1, blk),
         part.scale,
-        part.setup,
         part,
     )
 
@@ -846,7 +841,7 @@ def finish(
         outro=done.outro,
         budget=budget,
         levels_volts=None if plan.levels is None else plan.levels.volts,
-        setup=plan.setup,
+        setup=part.setup,
     )
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step

@@ -364,3 +364,59 @@ def header_frame(asset: StreamAsset, defines: list[tuple[str, str, str]]) -> lis
 def render_source(asset: StreamAsset) -> str:
     """Return the C source text holding the words and the program."""
     return b"".join(render_source_chunks(asset)).decode()
+
+
+def fifo_stream_header(
+    asset: StreamAsset, defines: list[tuple[str, str, str]], init: list[str]
+) -> str:
+    """The header of a stream a state machine takes from its FIFO (I2S, I2C and SPI DACs).
+
+    The defines, the PLL lines, the arrays of the words, the program and (where they have
+    words) the intro and outro, and the player's initialiser `init`.
+    """
+    n, prefix = asset.name, asset.name.upper()
+    lines = header_frame(asset, defines)
+    lines += pll_lines(asset)
+    lines += [
+        "",
+        f"extern const uint32_t {n}_words[{prefix}_WORD_COUNT];",
+        f"extern const uint16_t {n}_program[{prefix}_PROGRAM_LENGTH];",
+    ]
+    for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
+        if _count(part):
+            count = f"{prefix}_{key.upper()}_WORD_COUNT"
+            lines.append(f"extern const uint32_t {n}_{key}_words[{count}];")
+    lines += ["", *init, "", f"#endif /* LADDERPACK_{prefix}_H */", ""]
+    return "\n".join(lines)
+
+
+def fifo_stream_source_lines(
+    asset: StreamAsset, words_note: tuple[str, str], program_note: str
+) -> Iterator[str]:
+    """The source of such a stream, line by line.
+
+    The words (after the two comment lines `words_note`), intro and outro, and the
+    program (its comment opened by `program_note`).
+    """
+    n, prefix = asset.name, asset.name.upper()
+    yield from _banner(asset).split("\n")
+    yield f'#include "{n}.h"'
+    yield ""
+    yield from words_note
+    yield f"const uint32_t {n}_words[{prefix}_WORD_COUNT] = {{"
+    yield from _array_lines(asset.packed.words, 8)
+    yield "};"
+    for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
+        if part is not None and _count(part):
+            yield ""
+            yield f"const uint32_t {n}_{key}_words[{prefix}_{key.upper()}_WORD_COUNT] = {{"
+            yield from _array_lines(part.words, 8)
+            yield "};"
+    yield ""
+    yield program_note
+    for ins in asset.pio_program.instructions:
+        yield f" *   {ins.text()}"
+    yield " */"
+    yield f"const uint16_t {n}_program[{prefix}_PROGRAM_LENGTH] = {{"
+    yield from _array_lines(np.array(asset.pio_program.words), 4)
+    yield "};"

@@ -31,7 +31,12 @@ from ladderpack.clock import ClockPlan, plan_clock
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, I2S_SAMPLE_BITS
 from ladderpack.defaults import FRAME_FORMATS as _FRAME_FORMATS
 from ladderpack.emit import Content, binary, templates
-from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
+from ladderpack.emit.c import (
+    chunked,
+    fifo_stream_header,
+    fifo_stream_source_lines,
+    init_macro,
+)
 from ladderpack.emit.micropython import (
     _literal,
     feed_methods,
@@ -526,47 +531,21 @@ def _init_macro(asset: StreamAsset) -> list[str]:
 
 def render_header(asset: StreamAsset) -> str:
     """Return the C header of an I2S stream."""
-    prefix = asset.name.upper()
-    guard = f"LADDERPACK_{prefix}_H"
-    lines = header_frame(asset, _defines(asset))
-    lines += pll_lines(asset)
-    lines += [
-        "",
-        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
-        f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
-    ]
-    if asset.loop:
-        lines.append(f"extern const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT];")
-    lines += ["", *_init_macro(asset), "", f"#endif /* {guard} */", ""]
-    return "\n".join(lines)
+    return fifo_stream_header(asset, _defines(asset), _init_macro(asset))
 
 
 def source_lines(asset: StreamAsset) -> Iterator[str]:
     """The C source of an I2S stream, line by line."""
-    prefix = asset.name.upper()
-    lay = _layout(asset)
-    yield from _banner(asset).split("\n")
-    yield f'#include "{asset.name}.h"'
-    yield ""
-    yield f"/* Frames in FIFO order, two's complement, {lay.to_dict()['sample_order']};"
-    yield " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */"
-    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
-    yield from _array_lines(asset.packed.words, 8)
-    yield "};"
-    if asset.loop and asset.outro is not None:
-        yield ""
-        yield f"const uint32_t {asset.name}_outro_words[{prefix}_OUTRO_WORD_COUNT] = {{"
-        yield from _array_lines(asset.outro.words, 8)
-        yield "};"
-    yield ""
+    order = _layout(asset).to_dict()["sample_order"]
     variant = asset.pio_program.variant
-    yield f"/* State-machine program ({variant}; side-set: bit clock, word select):"
-    for ins in asset.pio_program.instructions:
-        yield f" *   {ins.text()}"
-    yield " */"
-    yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
-    yield from _array_lines(np.array(asset.pio_program.words), 4)
-    yield "};"
+    return fifo_stream_source_lines(
+        asset,
+        (
+            f"/* Frames in FIFO order, two's complement, {order};",
+            " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */",
+        ),
+        f"/* State-machine program ({variant}; side-set: bit clock, word select):",
+    )
 
 
 def render_source_chunks(asset: StreamAsset, chunk_chars: int = 1 << 20) -> Iterator[bytes]:

@@ -43,13 +43,11 @@ from ladderpack.asset import StreamAsset
 from ladderpack.clock import ClockPlan
 from ladderpack.emit import Content, binary, templates
 from ladderpack.emit.c import (
-    _array_lines,
-    _banner,
     _count,
     chunked,
-    header_frame,
+    fifo_stream_header,
+    fifo_stream_source_lines,
     init_macro,
-    pll_lines,
 )
 from ladderpack.emit.micropython import (
     _literal,
@@ -577,47 +575,19 @@ def _init_macro(asset: StreamAsset) -> list[str]:
 
 def render_header(asset: StreamAsset) -> str:
     """Return the C header of an SPI DAC stream."""
-    prefix = asset.name.upper()
-    lines = header_frame(asset, _defines(asset))
-    lines += pll_lines(asset)
-    lines += [
-        "",
-        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
-        f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
-    ]
-    for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
-        if _count(part):
-            count = f"{prefix}_{key.upper()}_WORD_COUNT"
-            lines.append(f"extern const uint32_t {asset.name}_{key}_words[{count}];")
-    lines += ["", *_init_macro(asset), "", f"#endif /* LADDERPACK_{prefix}_H */", ""]
-    return "\n".join(lines)
+    return fifo_stream_header(asset, _defines(asset), _init_macro(asset))
 
 
 def source_lines(asset: StreamAsset) -> Iterator[str]:
     """The C source of an SPI DAC stream, line by line."""
-    prefix = asset.name.upper()
-    yield from _banner(asset).split("\n")
-    yield f'#include "{asset.name}.h"'
-    yield ""
-    yield "/* Codes in play order, two a word (bits 31:20, then 19:8; stereo: A then B); const,"
-    yield " * so they stay in flash, and word-aligned for DMA. */"
-    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
-    yield from _array_lines(asset.packed.words, 8)
-    yield "};"
-    for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
-        if part is not None and _count(part):
-            yield ""
-            yield f"const uint32_t {asset.name}_{key}_words[{prefix}_{key.upper()}_WORD_COUNT] = {{"
-            yield from _array_lines(part.words, 8)
-            yield "};"
-    yield ""
-    yield "/* State-machine program (side-set: SCK, CS, and LDAC with a latch):"
-    for ins in asset.pio_program.instructions:
-        yield f" *   {ins.text()}"
-    yield " */"
-    yield f"const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH] = {{"
-    yield from _array_lines(np.array(asset.pio_program.words), 4)
-    yield "};"
+    return fifo_stream_source_lines(
+        asset,
+        (
+            "/* Codes in play order, two a word (bits 31:20, then 19:8; stereo: A then B); const,",
+            " * so they stay in flash, and word-aligned for DMA. */",
+        ),
+        "/* State-machine program (side-set: SCK, CS, and LDAC with a latch):",
+    )
 
 
 def render_source(asset: StreamAsset) -> str:
