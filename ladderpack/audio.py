@@ -7,7 +7,6 @@ come back as float64 with nominal full scale +/-1.0.
 
 from __future__ import annotations
 
-import hashlib
 import math
 import os
 import struct
@@ -17,6 +16,7 @@ import numpy as np
 import soundfile
 
 from ladderpack.errors import AudioFileError, OptionError, SignalError
+from ladderpack.reading import sha256_file
 
 __all__ = [
     "Signal",
@@ -209,26 +209,6 @@ def truncation(path: str | os.PathLike[str]) -> str | None:
                 )
             pos += 8 + clen + (clen & 1)
     return None
-
-
-def sha256_file(path: str | os.PathLike[str]) -> str:
-    """Return the hex SHA-256 digest of a file's bytes.
-
-    Raises
-    ------
-    AudioFileError
-        Naming the file, when it cannot be read.
-    """
-    h = hashlib.sha256()
-    try:
-        with open(path, "rb") as fh:
-            for block in iter(lambda: fh.read(1 << 20), b""):
-                h.update(block)
-    except OSError as exc:
-        raise AudioFileError(
-            f"cannot read it ({exc.strerror or exc})", file=os.fspath(path)
-        ) from None
-    return h.hexdigest()
 
 
 #: Sample rates a clip may declare, Hz: below 1 Hz or above 1.5 MHz a header is broken or

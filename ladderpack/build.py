@@ -41,14 +41,16 @@ import os
 import re
 import tomllib
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from ladderpack import outputs
 from ladderpack._version import __version__
 from ladderpack.emit.names import PLAYER_FILES as _PLAYERS
 from ladderpack.errors import LadderpackError
+
+if TYPE_CHECKING:
+    from concurrent.futures import Future
 
 __all__ = ["STATE_NAME", "AssetSpec", "BuildResult", "Manifest", "build", "load_manifest"]
 
@@ -373,7 +375,7 @@ def _validated(
 
 
 def _sha256(path: str) -> str:
-    from ladderpack.audio import sha256_file  # a read error names the file
+    from ladderpack.reading import sha256_file  # a read error names the file
 
     return sha256_file(path)
 
@@ -445,7 +447,11 @@ def _in_manifest(exc: LadderpackError, manifest: Manifest, spec: AssetSpec) -> L
     return LadderpackError(message, file=manifest.path, field=where)
 
 
-def _render(spec: AssetSpec) -> tuple[dict[str, bytes], dict[str, Any]]:
+#: What rendering an asset gives: its files (name -> bytes) and its index entry.
+_Rendered = tuple[dict[str, bytes], dict[str, Any]]
+
+
+def _render(spec: AssetSpec) -> _Rendered:
     """Build one asset in memory: its files and its index entry (runs in a worker)."""
     parts = option_objects(spec.kind, spec.source, spec.options)
     if spec.kind == "table":
@@ -845,10 +851,55 @@ def _symbol_clashes(
             owner[sym] = who
 
 
+class _LazyPool:
+    """A process pool started by its first task (a build with nothing to make starts none)."""
+
+    def __init__(self, jobs: int) -> None:
+        self.jobs = jobs
+        self._pool: Any = None  # a concurrent.futures.ProcessPoolExecutor once started
+
+    def submit(self, fn: Callable[[AssetSpec], _Rendered], spec: AssetSpec) -> Future[_Rendered]:
+        if self._pool is None:
+            from concurrent.futures import ProcessPoolExecutor
+
+            self._pool = ProcessPoolExecutor(max_workers=self.jobs)
+        return self._pool.submit(fn, spec)
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+
+
 def _build_locked(
     manifest: Manifest,
     *,
     jobs: int,
+    only: list[str] | None,
+    check: bool,
+    depfile: str | None,
+    echo: Callable[[str], None],
+    progress: Callable[[int, int], None] | None,
+) -> BuildResult:
+    pool = _LazyPool(jobs if not check else 1)
+    try:
+        return _build_with(
+            manifest,
+            pool=pool,
+            only=only,
+            check=check,
+            depfile=depfile,
+            echo=echo,
+            progress=progress,
+        )
+    finally:
+        pool.close()
+
+
+def _build_with(
+    manifest: Manifest,
+    *,
+    pool: _LazyPool,
     only: list[str] | None,
     check: bool,
     depfile: str | None,
@@ -871,6 +922,7 @@ def _build_locked(
     check_entries: dict[str, Any] = {}
     todo: list[tuple[AssetSpec, str, dict[str, Any]]] = []
     lines: dict[str, str] = {}
+    futures: list[Future[_Rendered]] = []
     for spec in manifest.assets:
         rec = old.get(spec.name)
         stats = input_stats(spec, manifest.root)
@@ -912,6 +964,10 @@ def _build_locked(
             lines[spec.name] = f"{spec.name}: skipped (not in --only)"
         else:
             todo.append((spec, fp, inputs))
+            if pool.jobs > 1:
+                # Rendering starts at once, so the workers import and render while this
+                # process goes on hashing the next assets' inputs.
+                futures.append(pool.submit(_render, spec))
     if check:
         if pending_journal(out):
             result.problems.append(("folder", "a replace was interrupted"))
@@ -936,17 +992,10 @@ def _build_locked(
     rendered: list[tuple[dict[str, bytes], dict[str, Any]]] = []
     specs = [s for s, _, _ in todo]
     try:
-        if jobs > 1 and len(todo) > 1:
-            with ProcessPoolExecutor(max_workers=jobs) as pool:
-                for made in pool.map(_render, specs):
-                    rendered.append(made)
-                    if progress is not None:
-                        progress(len(rendered), len(specs))
-        else:
-            for spec in specs:
-                rendered.append(_render(spec))
-                if progress is not None:
-                    progress(len(rendered), len(specs))
+        for k, spec in enumerate(specs):
+            rendered.append(futures[k].result() if futures else _render(spec))
+            if progress is not None:
+                progress(len(rendered), len(specs))
     except LadderpackError as exc:  # the asset being made when it failed
         raise _in_manifest(exc, manifest, specs[len(rendered)]) from None
     for (spec, fp, inputs), (files, entry) in zip(todo, rendered, strict=True):

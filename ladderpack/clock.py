@@ -17,6 +17,7 @@ is within the user's tolerance.  The stream is then resampled to the
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -205,6 +206,22 @@ def plan_clock(
             field="rate_hz",
         )
 
+    cycles, d256 = _best_divider(
+        rate, sys_clock_hz, Fraction(tolerance_ppm), min_cycles, max_cycles
+    )
+    div_int, div_frac = divmod(d256, 256)
+    return ClockPlan(sys_clock_hz, rate, div_int, div_frac, cycles)
+
+
+@functools.lru_cache(maxsize=512)
+def _best_divider(
+    rate: Fraction, sys_clock_hz: int, tolerance_ppm: Fraction, min_cycles: int, max_cycles: int
+) -> tuple[int, int]:
+    """The search of :func:`plan_clock`: ``(cycles, divider x 256)``.
+
+    Cached: a build plans the same rate for every asset (a pure function of exact
+    arguments, so the cache cannot change a plan).
+    """
     # Exact integer arithmetic: with rate = p/q, a candidate (d256, cycles) is off by
     # |256 f q - p d256 cycles| / (p d256 cycles); errors are compared by cross-multiplying.
     p, q = rate.numerator, rate.denominator
@@ -235,13 +252,9 @@ def plan_clock(
     best_int = (int_n, int_d, int_c, int_s) if int_n >= 0 else None
     assert best_any is not None  # the range check above guarantees a candidate
     chosen = best_any
-    if best_int is not None and Fraction(best_int[0] * 1_000_000, best_int[1]) <= Fraction(
-        tolerance_ppm
-    ):
+    if best_int is not None and Fraction(best_int[0] * 1_000_000, best_int[1]) <= tolerance_ppm:
         chosen = best_int
-    cycles, d256 = chosen[2], chosen[3]
-    div_int, div_frac = divmod(d256, 256)
-    return ClockPlan(sys_clock_hz, rate, div_int, div_frac, cycles)
+    return chosen[2], chosen[3]
 
 
 # -- system clocks from the PLL ---------------------------------------------------------

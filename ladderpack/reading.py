@@ -8,15 +8,23 @@ pipe or a device would block or never end), JSON must be strict (no ``NaN`` or
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 import os
 import stat
 from typing import Any
 
-from ladderpack.errors import LadderpackError
+from ladderpack.errors import AudioFileError, LadderpackError
 
-__all__ = ["MAX_DEPTH", "check_regular_file", "json_text", "nesting_depth", "read_json"]
+__all__ = [
+    "MAX_DEPTH",
+    "check_regular_file",
+    "json_text",
+    "nesting_depth",
+    "read_json",
+    "sha256_file",
+]
 
 #: Deepest nesting accepted in any structured input (manifest, JSON).
 MAX_DEPTH = 16
@@ -119,3 +127,20 @@ def json_text(obj: Any, *, indent: int | None = 2) -> str:
     '{"bits": 8, "snr_db": null}'
     """
     return json.dumps(_finite(obj), indent=indent, sort_keys=True, allow_nan=False)
+
+
+def sha256_file(path: str | os.PathLike[str]) -> str:
+    """Return the hex SHA-256 digest of a file's bytes.
+
+    Raises
+    ------
+    AudioFileError
+        Naming the file, when it cannot be read.
+    """
+    try:
+        with open(path, "rb") as fh:
+            return hashlib.file_digest(fh, "sha256").hexdigest()
+    except OSError as exc:
+        raise AudioFileError(
+            f"cannot read it ({exc.strerror or exc})", file=os.fspath(path)
+        ) from None

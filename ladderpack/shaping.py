@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -458,6 +459,19 @@ def predict_noise(
         |NTF|), and ``log_integral_db`` (mean of 20 log10 |NTF| over 0..fs/2;
         0 for a minimum-phase NTF by the Gerzon-Craven theorem).
     """
+    key = (tuple(shaper.b), tuple(shaper.a), float(rate_hz), float(band_hz), weighting_kind)
+    if key not in _PREDICTED:  # a build asks for the same few shapers asset after asset
+        _PREDICTED[key] = _predict_noise(shaper, rate_hz, band_hz, weighting_kind)
+    return dict(_PREDICTED[key])
+
+
+#: :func:`predict_noise` results by coefficients, rate, band and weighting.
+_PREDICTED: dict[tuple[Any, ...], dict[str, float]] = {}
+
+
+def _predict_noise(
+    shaper: Shaper, rate_hz: float, band_hz: float, weighting_kind: str
+) -> dict[str, float]:
     f = _grid(rate_hz)
     h2 = _power_response([1.0, *shaper.b], [1.0, *shaper.a], 2 * np.pi * f / rate_hz)
     band = f <= band_hz

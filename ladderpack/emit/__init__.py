@@ -375,9 +375,10 @@ def _replace(
         record = {**{k: v for k, v in owned.items() if k not in gone}, **digests}
         body = json.dumps({"tool": "ladderpack", "files": dict(sorted(record.items()))}, indent=1)
         temps.append((_write_temp(folder, RECORD_NAME, body.encode() + b"\n", {}, umask), ""))
+        _fsync_files(folder, [t for t, _ in temps])
         moves = [[t, f or RECORD_NAME] for t, f in temps]
         journal = json.dumps({"moves": moves, "remove": sorted(gone)}).encode()
-        jtmp = _write_temp(folder, JOURNAL_NAME, journal, {}, umask)
+        jtmp = _write_temp(folder, JOURNAL_NAME, journal, {}, umask, durable=True)
         temps.append((jtmp, ""))  # removed with the others if the commit never happens
         _step("journal written")
         os.replace(os.path.join(folder, jtmp), os.path.join(folder, JOURNAL_NAME))
@@ -414,7 +415,45 @@ def _finish_quietly(folder: str) -> None:
         recover(folder)
 
 
-def _write_temp(folder: str, name: str, data: Content, digests: dict[str, str], umask: int) -> str:
+def _fsync_files(folder: str, names: list[str]) -> None:
+    """Make the data of files in `folder` durable, several at a time.
+
+    Concurrent ``fsync`` calls share the file system's journal commits (ext4 took a
+    third of the time for 130 files in one test), so a set of files is flushed by a few
+    threads; every call has returned before the caller commits the journal.
+    """
+
+    def flush(name: str) -> None:
+        fd = os.open(os.path.join(folder, name), os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+    if len(names) < 3:
+        for name in names:
+            flush(name)
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=min(8, len(names))) as pool:
+        list(pool.map(flush, names))
+
+
+def _write_temp(
+    folder: str,
+    name: str,
+    data: Content,
+    digests: dict[str, str],
+    umask: int,
+    *,
+    durable: bool = False,
+) -> str:
+    """Write one temporary file and return its name.
+
+    It is flushed to disk here only if `durable`; otherwise the caller flushes the set
+    with :func:`_fsync_files`.
+    """
     fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".part", dir=folder)
     try:
         os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual mode
@@ -427,7 +466,8 @@ def _write_temp(folder: str, name: str, data: Content, digests: dict[str, str], 
                 fh.write(chunk)
                 h.update(chunk)
             fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                os.fsync(fh.fileno())
     except BaseException:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
