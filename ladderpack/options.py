@@ -22,6 +22,7 @@ ladderpack.errors.OptionError: bits: must be a whole number 1..16 for a ladder, 
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 import typing
 import warnings
@@ -142,8 +143,12 @@ def option_fields(cls: type) -> tuple[tuple[dataclasses.Field[Any], OptionInfo, 
     return found
 
 
+@functools.cache
 def _base_types(hint: Any) -> tuple[tuple[type, ...], bool]:
-    """(python types allowed, None allowed) for a field's type hint."""
+    """(python types allowed, None allowed) for a field's type hint.
+
+    Cached: every option object of a build checks the same few dozen hints.
+    """
     args = typing.get_args(hint)
     origin = typing.get_origin(hint)
     nullable = False

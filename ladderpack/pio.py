@@ -10,6 +10,7 @@ arguments.  Register layouts follow the datasheet's PIO register list
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
@@ -426,6 +427,7 @@ def program_length(variant: str, cycles_per_sample: int, samples_per_word: int) 
     )
 
 
+@functools.lru_cache(maxsize=256)
 def max_cycles(variant: str, samples_per_word: int, bits: int = 8) -> int:
     """Most cycles per sample for which the variant still fits in 32 instructions.
 
