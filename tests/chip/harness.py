@@ -108,6 +108,9 @@ OPS = {
     "hold": 8,
     "mark": 9,
     "hold_volts": 10,
+    # 11 and 12 are the I2C and SPI tests' own reports
+    "sleep_wait": 13,
+    "sleep": 14,
 }
 OP_END = 0x7F
 
@@ -375,6 +378,9 @@ class Run:
     changes: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
     periods: np.ndarray = field(default_factory=lambda: np.zeros((0, 3), np.int64))
     wire: np.ndarray = field(default_factory=lambda: np.zeros((0, 2), np.int64))
+    #: Clocks the core executed (not asleep in WFI/WFE): in all, and at each report.
+    busy_cycles: int = 0
+    event_busy: list[int] = field(default_factory=list)
 
     def output(self) -> str:
         """Everything MicroPython printed."""
@@ -486,6 +492,8 @@ def run(
     return Run(
         # the C runtime zeroes the mailbox before main(): not a report
         events=[tuple(e) for e in d["events"] if e[1] >> 24],
+        event_busy=[b for e, b in zip(d["events"], d["event_busy"], strict=True) if e[1] >> 24],
+        busy_cycles=d["busy_cycles"],
         samples={k: np.array(v, dtype=np.int64).reshape(-1, 2) for k, v in d["samples"].items()},
         final_pins=d["final_pins"],
         cycles=d["cycles"],
@@ -520,6 +528,10 @@ def player_app(
         "init": f"rc = {fn}_init({init_args});",
         "start": f"rc = {fn}_start(&player, {{b}});",
         "wait": f"while ({fn}_busy(&player)) {{{{ tight_loop_contents(); }}}}",
+        # the same, asleep between polls (WFE until a timer alarm): the core's busy
+        # clocks are then what the player and the polls take
+        "sleep_wait": f"while ({fn}_busy(&player)) {{{{ sleep_us({{a}}u); }}}}",
+        "sleep": "sleep_us({a}u);",
         "delay": "busy_wait_at_least_cycles({a}u);",
         "stop": f"rc = {fn}_stop(&player);",
         "request_stop": f"rc = {fn}_request_stop(&player);",

@@ -11,9 +11,10 @@
 //           firmware's report word, "max_cycles": limit, "end_value_op": op byte of the
 //           final report, "tail_cycles": system clocks to keep running after it,
 //           "sys_clock_hz": clock of the firmware (for the emulator's timer) }
-// Output: { "events": [[cycle, value, pins], ...],
+// Output: { "events": [[cycle, value, pins], ...], "event_busy": [busy clocks at each],
 //           "samples": {"pio.sm": [[cycle, pins], ...]},  one entry per executed OUT PINS
-//           "final_pins": pins, "final_oe": output enables, "cycles": total, "ended": bool }
+//           "final_pins": pins, "final_oe": output enables, "cycles": total, "ended": bool,
+//           "busy_cycles": clocks the core executed (not asleep in WFI/WFE) }
 import { readFileSync } from 'node:fs';
 import { pathToFileURL } from 'node:url';
 import { RP2040, ConsoleLogger, LogLevel, FIFO, USBCDC } from 'rp2040js';
@@ -335,6 +336,7 @@ if (bus) {
 
 // --- mailbox ---------------------------------------------------------------------------
 const events = [];
+const eventBusy = []; // the core's busy clocks (see the main loop) at each report
 let endedAt = -1;
 const mailbox = config.mailbox >>> 0;
 const origWrite32 = mcu.writeUint32.bind(mcu);
@@ -342,6 +344,7 @@ mcu.writeUint32 = (address, value) => {
   origWrite32(address, value);
   if (address >>> 0 === mailbox) {
     events.push([cycle, value >>> 0, pinWord()]);
+    eventBusy.push(busy);
     if (value >>> 24 === config.end_value_op && endedAt < 0) endedAt = cycle;
   }
 };
@@ -397,6 +400,7 @@ if (config.repl) {
 const maxCycles = config.max_cycles;
 const tail = config.tail_cycles || 0;
 const core = mcu.core;
+let busy = 0;
 while (cycle < maxCycles) {
   if (endedAt >= 0 && cycle >= endedAt + tail) break;
   if (interruptAt >= 0 && cycle >= interruptAt) {
@@ -405,7 +409,10 @@ while (cycle < maxCycles) {
     send('\x03');
   }
   let n = 1;
-  if (!core.waiting) n = core.executeInstruction();
+  if (!core.waiting) {
+    n = core.executeInstruction();
+    busy += n; // clocks the core executes; WFI/WFE sleep counts as idle
+  }
   for (let k = 0; k < n; k++) {
     cycle++;
     mcu.clock.tick(NANOS_PER_CYCLE);
@@ -425,6 +432,8 @@ process.stdout.write(
     periods,
     wire,
     cycles: cycle,
+    busy_cycles: busy,
+    event_busy: eventBusy,
     ended: endedAt >= 0,
     serial,
   }),
