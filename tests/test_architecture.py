@@ -26,7 +26,7 @@ LAYERS: dict[int, set[str]] = {
     1: {"options"},
     2: {
         "audio", "conform", "loudness", "clock", "quantize", "pack", "pio", "shaping",
-        "levels", "ladder", "waves", "measure", "budget", "sources", "plots",
+        "levels", "ladder", "waves", "measure", "budget", "sources", "plots", "compress",
     },
     3: {"asset"},
     4: {
