@@ -12,7 +12,7 @@ import pytest
 
 from ladderpack._version import __version__
 from ladderpack.emit import templates
-from ladderpack.emit.names import PLAYER_FILES
+from ladderpack.emit.names import DECODER_FILES, PLAYER_FILES
 
 TEMPLATES = Path(__file__).resolve().parent.parent / "ladderpack" / "templates"
 #: Players made from another's template rather than kept as files of their own.
@@ -34,11 +34,19 @@ def test_players_are_their_templates_line_for_line(stem: str) -> None:
 def test_every_template_is_used_and_its_markers_are_in_comments() -> None:
     files = {p.name for p in TEMPLATES.iterdir() if p.is_file()}
     shared = {f"{s}.{e}" for s in PLAYER_FILES if s not in DERIVED for e in ("h", "c")}
-    assert files == (shared - {"ladderpack_common.c"})
+    decoders = {f"{s}.h" for s in DECODER_FILES}
+    assert files == (shared - {"ladderpack_common.c"}) | decoders
     for name in files:
         for line in (TEMPLATES / name).read_text().splitlines():
             if "@@" in line:
                 assert line.lstrip().startswith(("/*", "*")), (name, line)
+
+
+@pytest.mark.parametrize("stem", sorted(DECODER_FILES))
+def test_decoders_are_their_templates(stem: str) -> None:
+    ((name, data),) = templates.decoder(stem).items()
+    tpl = (TEMPLATES / name).read_text()
+    assert data.decode() == tpl.replace("@@VERSION@@", __version__)
 
 
 def test_fill_refuses_a_missing_or_extra_value_and_a_second_line() -> None:

@@ -11,6 +11,7 @@ from ladderpack.errors import OptionError
 
 __all__ = [
     "C_KEYWORDS",
+    "DECODER_FILES",
     "PLAYER_FILES",
     "RESERVED_NAMES",
     "asset_identifier",
@@ -87,6 +88,13 @@ PLAYER_FILES: dict[str, str] = {
 }
 
 
+#: Header-only decoders of compressed streams (``ladderpack.compress``), by stem: C a
+#: player or an application includes to turn a compressed stream back into codes.
+DECODER_FILES: dict[str, str] = {
+    "ladderpack_lossless": "the lossless code-stream decoder",
+}
+
+
 def player_files(stem: str) -> tuple[str, str]:
     """The header and source file names of a registered player.
 
@@ -103,6 +111,7 @@ def player_files(stem: str) -> tuple[str, str]:
 RESERVED_NAMES: dict[str, str] = {
     "assets": "the build's index files (assets.h, assets.c, assets.py)",
     **{stem: f"{what} ({stem}.h, {stem}.c)" for stem, what in PLAYER_FILES.items()},
+    **{stem: f"{what} ({stem}.h)" for stem, what in DECODER_FILES.items()},
     **{
         m: f"MicroPython's {m} module, which {m}.py would shadow on the board"
         for m in ("rp2", "machine", "array", "time", "micropython", "gc", "os", "sys")

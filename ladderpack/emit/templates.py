@@ -19,7 +19,7 @@ import re
 from collections.abc import Mapping
 from importlib import resources
 
-__all__ = ["COMMON_NAME", "MARKER", "fill", "player", "render", "source"]
+__all__ = ["COMMON_NAME", "MARKER", "decoder", "fill", "player", "render", "source"]
 
 #: A marker: ``@@`` + capitals, digits and underscores + ``@@``.
 MARKER = re.compile(r"@@([A-Z][A-Z0-9_]*)@@")
@@ -76,3 +76,20 @@ def player(stem: str) -> dict[str, bytes]:
 
     names = (*player_files(stem), COMMON_NAME)
     return {n: render(n, VERSION=__version__).encode() for n in names}
+
+
+@functools.cache
+def decoder(stem: str) -> dict[str, bytes]:
+    """The header of the decoder `stem` (registered in ``emit.names.DECODER_FILES``).
+
+    Examples
+    --------
+    >>> sorted(decoder("ladderpack_lossless"))
+    ['ladderpack_lossless.h']
+    """
+    from ladderpack._version import __version__
+    from ladderpack.emit.names import DECODER_FILES
+
+    if stem not in DECODER_FILES:
+        raise KeyError(f"{stem!r} is not in DECODER_FILES: register the decoder there")
+    return {f"{stem}.h": render(f"{stem}.h", VERSION=__version__).encode()}

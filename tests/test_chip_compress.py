@@ -1,0 +1,138 @@
+"""Compressed streams decoded on the emulated chip.
+
+The C decoder (``templates/ladderpack_lossless.h``) is compiled with the vendor SDK and
+arm-none-eabi-gcc (warnings as errors) into firmware that decodes a compressed stream
+in RAM, 256 codes at a time, and compares every code with the codes the stream was made
+from (the test's input, not a decoder's output); it starts at the first block and at a
+later one (blocks decode on their own). Streams: the spoken demo clip at 8 bits as the
+stream stage makes it, a 12-bit sine with noise, 16-bit noise (wide residuals) and a
+spike in silence (the escape). The clocks the decoding takes are read from the emulator
+(``run.mjs`` counts the core's busy clocks).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from chip.harness import Firmware, run
+
+from ladderpack import compress as cz
+from ladderpack.emit import templates
+
+pytestmark = pytest.mark.slow
+
+ROOT = Path(__file__).resolve().parent.parent
+CHUNK = 256
+
+
+@pytest.fixture(scope="module")
+def fw(tmp_path_factory: pytest.TempPathFactory) -> Firmware:
+    return Firmware(tmp_path_factory.mktemp("fw_compress"))
+
+
+def _c_list(values: np.ndarray, fmt: str) -> str:
+    return ",".join(fmt.format(int(v)) for v in values)
+
+
+def app(s: cz.LosslessStream, codes: np.ndarray, first_block: int) -> str:
+    """Firmware: time one decoding pass, then decode again comparing every code."""
+    want = codes[first_block * s.block_samples :]
+    return f"""\
+#include <stdint.h>
+#include "pico/stdlib.h"
+#include "ladderpack_lossless.h"
+
+volatile uint32_t lp_test_mailbox;
+static const uint32_t words[] = {{{_c_list(s.words, "0x{:08X}u")}}};
+static const uint32_t block_words[] = {{{_c_list(s.block_words, "{}u")}}};
+static const uint16_t want[] = {{{_c_list(want, "{}u")}}};
+static const lp_lossless_stream_t stream = {{
+    words, block_words, {s.block_words.size}u, {s.block_samples}u, {s.samples}u, {s.bits}u}};
+static uint16_t buf[{CHUNK}];
+
+static void report(uint32_t op, uint32_t index, uint32_t rc) {{
+    lp_test_mailbox = (op << 24) | ((index & 0xFFFFu) << 8) | (rc & 0xFFu);
+}}
+
+int main(void) {{
+    lp_lossless_t d;
+    uint32_t n, i, total = 0u, bad = 0u, sink = 0u;
+    report(1u, 0u, 0u);
+    lp_lossless_start(&d, &stream, {first_block}u);
+    while ((n = lp_lossless_decode(&d, buf, {CHUNK}u)) != 0u) {{
+        sink += buf[n - 1u];
+    }}
+    report(2u, 0u, sink & 1u); /* the timed pass ends */
+    lp_lossless_start(&d, &stream, {first_block}u);
+    while ((n = lp_lossless_decode(&d, buf, {CHUNK}u)) != 0u) {{
+        for (i = 0u; i < n; ++i) {{
+            if (total + i >= {want.size}u || buf[i] != want[total + i]) {{
+                ++bad;
+            }}
+        }}
+        total += n;
+    }}
+    report(3u, total & 0xFFFFu, 0u);
+    report(4u, total >> 16, 0u);
+    report(5u, bad > 0xFFFFu ? 0xFFFFu : bad, 0u);
+    report(0x7Fu, 0u, 0u);
+    for (;;) {{
+        tight_loop_contents();
+    }}
+}}
+"""
+
+
+def decode_on_chip(fw: Firmware, folder: Path, codes: np.ndarray, bits: int, first_block: int):
+    s = cz.encode_lossless(codes, bits)
+    bundle = folder / "bundle"
+    bundle.mkdir(exist_ok=True)
+    for name, data in templates.decoder("ladderpack_lossless").items():
+        (bundle / name).write_bytes(data)
+    image = fw.make(bundle, [], [], app=app(s, codes, first_block))
+    r = run(image, fw.mailbox(), max_cycles=400_000_000, tail=0)
+    assert r.ended
+    ev = {v >> 24: (v >> 8) & 0xFFFF for _c, v, _p in r.events}
+    total = ev[3] | ev[4] << 16
+    clocks = r.event_busy[1] - r.event_busy[0]
+    return s, total, ev[5], clocks
+
+
+def speech_codes() -> np.ndarray:
+    from ladderpack.pack import unpack
+    from ladderpack.stream import stream_clip
+
+    a = stream_clip(str(ROOT / "demo_audio" / "frost_warning.flac"), bits=8, rate_hz=22050)
+    p = a.packed
+    return unpack(p.words, p.layout, p.sample_count).codes.astype(np.int64)
+
+
+def test_the_spoken_clip_decodes_to_every_code(fw: Firmware, tmp_path: Path) -> None:
+    codes = speech_codes()
+    s, total, bad, clocks = decode_on_chip(fw, tmp_path, codes, 8, 0)
+    assert (total, bad) == (codes.size, 0)
+    per_code = clocks / codes.size
+    # a 125 MHz RP2040 at 22.05 kHz has 5669 clocks a sample: issue 31 asks the C decoder
+    # to stay under 10 % of them (measured 90 clocks a code, 1.6 %)
+    assert per_code < 567, per_code
+    print(f"lossless speech: {codes.size / s.nbytes:.2f}x, {per_code:.1f} clocks/code")
+
+
+@pytest.mark.parametrize("kind", ["sine12", "noise16", "spike8"])
+def test_other_streams_from_a_later_block(fw: Firmware, tmp_path: Path, kind: str) -> None:
+    rng = np.random.default_rng(7)
+    n = 5000
+    if kind == "sine12":
+        bits = 12
+        x = 2048 + 1500 * np.sin(2 * np.pi * 300 * np.arange(n) / 22050)
+        codes = np.clip(np.round(x + 3 * rng.standard_normal(n)), 0, 4095).astype(np.int64)
+    elif kind == "noise16":
+        bits, codes = 16, rng.integers(0, 65536, n)
+    else:
+        bits, codes = 8, np.full(n, 100, dtype=np.int64)
+        codes[::700] = 255  # spikes in silence: escaped residuals
+    for first in (0, 3):
+        _s, total, bad, _clocks = decode_on_chip(fw, tmp_path, codes, bits, first)
+        assert (total, bad) == (n - first * cz.BLOCK_SAMPLES, 0), (kind, first)
