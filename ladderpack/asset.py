@@ -14,6 +14,7 @@ import numpy as np
 
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
+from ladderpack.compress import LosslessStream
 from ladderpack.pack import Packed, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
@@ -49,6 +50,7 @@ class StreamSummary(TypedDict):
     loop: bool
     flash_share: float | None
     max_duration_s: float | None
+    compression: NotRequired[dict[str, Any]]
     pwm: NotRequired[dict[str, Any]]
     i2s: NotRequired[dict[str, Any]]
     i2c_dac: NotRequired[dict[str, Any]]
@@ -97,6 +99,9 @@ class StreamAsset:
     setup : object, optional
         The output's own plan besides the clock (a PWM stream's slice, pin and DMA
         pacing; an I2C bus writer's timing).
+    lossless : LosslessStream, optional
+        The codes of every slot of `packed`, compressed (``--compress lossless``): what
+        the bundle stores and the players decode back into the same words.
     """
 
     name: str
@@ -114,6 +119,7 @@ class StreamAsset:
     budget: Budget | None = None
     levels_volts: np.ndarray | None = None
     setup: Any = None
+    lossless: LosslessStream | None = None
 
     @functools.cached_property
     def max_step(self) -> int:
@@ -223,6 +229,11 @@ class StreamAsset:
             "flash_share": self.budget.flash_share if self.budget else None,
             "max_duration_s": round(self.budget.max_duration_s, 3) if self.budget else None,
         }
+        comp = self.stats.get("compression")
+        if comp:  # stored compressed: the flash it takes and what fits at its ratio
+            out["compression"] = dict(comp)
+            if self.budget:
+                out["max_duration_s"] = comp["max_duration_s"]
         from ladderpack.outputs import get_output
 
         out.update(get_output(self.output).summary(self))  # type: ignore[typeddict-item]

@@ -6,6 +6,7 @@ Kept free of heavy imports so the command line starts fast.
 from __future__ import annotations
 
 __all__ = [
+    "COMPRESS_CHOICES",
     "DEFAULT_SYS_CLOCK_HZ",
     "DITHERS",
     "EMBED_WORDS_MAX",
@@ -72,6 +73,9 @@ PIN_ORDERS = ("msb-high", "msb-low")
 
 #: Ladder program choices ("auto": loop program for loops when it fits, else autopull).
 PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
+#: How a stream may be stored (ladderpack.compress): as packed words, or compressed
+#: without loss and decoded on the chip.
+COMPRESS_CHOICES = ("none", "lossless")
 
 #: OUT shift directions.
 SHIFTS = ("right", "left")

@@ -32,6 +32,7 @@ from typing import Any, ClassVar
 
 from ladderpack import outputs
 from ladderpack.defaults import (
+    COMPRESS_CHOICES,
     DITHERS,
     EMBED_WORDS_MAX,
     FRAME_FORMATS,
@@ -627,6 +628,14 @@ class StreamOptions(_Model):
         flag="--loop/--no-loop",
     )
     crossfade_ms: float = _opt(0.0, "Loops: crossfade of the end onto the start.", unit="ms", lo=0)
+    compress: str = _opt(
+        "none",
+        "Store the stream compressed and decode it on the chip: lossless keeps every code "
+        "(prediction and Rice codes; the C player decodes it into two RAM buffers from a "
+        "DMA interrupt, about 90 clocks a sample).",
+        choices=COMPRESS_CHOICES,
+        group="compress",
+    )
     flash_bytes: int | None = _opt(
         None,
         "Target flash size.",

@@ -32,6 +32,7 @@ from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
 from ladderpack.clock import RATED_SYS_CLOCK_HZ, pll_settings
+from ladderpack.compress import LosslessStream
 from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
@@ -353,7 +354,9 @@ def plan_stream(
         player_chunk_words=opts.chunk_words,
         embedded=words <= opts.embed_words_max,
     )
-    check_budget(budget)
+    if getattr(opts, "compress", "none") == "none":
+        # a compressed stream's size is known once it is made: finish() checks it
+        check_budget(budget)
     blk = frames if block_frames is None else min(block_frames, frames)
     memory = _memory_bytes(opts, rate_in_hz, rate, frames, channels, max(1, blk), audio)
     _check_memory(opts, memory, rate_in_hz, rate, frames, audio)
@@ -750,16 +753,16 @@ def finish(
     """
     opts, part = plan.options, plan.part
     assert part is not None
-    total = done.packed.words.size + sum(
-        p.words.size for p in (done.intro, done.outro) if p is not None
-    )
+    lossless = _compressed(done.packed, opts)
+    stored = done.packed.words.size if lossless is None else lossless.nbytes // 4
+    total = stored + sum(p.words.size for p in (done.intro, done.outro) if p is not None)
     budget = stream_budget(
         total,
         samples_per_word=plan.budget.samples_per_word,
         rate_hz=plan.clock.achieved_rate_hz,
         target=plan.budget.target,
         player_chunk_words=opts.chunk_words,
-        embedded=done.packed.words.size <= opts.embed_words_max,
+        embedded=stored <= opts.embed_words_max,
     )
     check_budget(budget)
     rate_in = done.rate_in_hz if done.rate_in_hz is not None else plan.rate_hz
@@ -826,6 +829,8 @@ def finish(
         stats["warnings"] = warnings
     if done.tone:
         stats["tone"] = done.tone
+    if lossless is not None:
+        stats["compression"] = _compression_stats(lossless, done.packed, budget)
     asset = StreamAsset(
         plan.name,
         done.codes,
@@ -842,10 +847,44 @@ def finish(
         budget=budget,
         levels_volts=None if plan.levels is None else plan.levels.volts,
         setup=part.setup,
+        lossless=lossless,
     )
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step
     return asset
+
+
+def _compressed(packed: Packed, opts: StreamOptions) -> LosslessStream | None:
+    """The codes of every slot of `packed`, compressed, for ``--compress lossless``.
+
+    Every slot (the last word's padding too), so a player that decodes them and packs
+    them again gets the stream's words exactly.
+    """
+    if getattr(opts, "compress", "none") != "lossless":
+        return None
+    from ladderpack.compress import encode_lossless
+    from ladderpack.pack import unpack
+
+    slots = unpack(packed.words, packed.layout).codes
+    return encode_lossless(slots, packed.layout.bits)
+
+
+def _compression_stats(lossless: LosslessStream, packed: Packed, budget: Budget) -> dict[str, Any]:
+    """Sizes, the ratio and the longest stream that fits, compressed at this ratio."""
+    raw = 4 * int(packed.words.size)
+    ratio = raw / lossless.nbytes if lossless.nbytes else 1.0
+    seconds = packed.sample_count / float(budget.rate_hz)
+    avail = budget.target.flash_available_bytes
+    fit = avail / lossless.nbytes * seconds if lossless.nbytes else 0.0
+    return {
+        "kind": "lossless",
+        "bytes": lossless.nbytes,
+        "raw_bytes": raw,
+        "ratio": round(ratio, 4),
+        "blocks": int(lossless.block_words.size),
+        "block_samples": lossless.block_samples,
+        "max_duration_s": round(fit, 3),
+    }
 
 
 #: Share of half-scale the shaped noise's peak (4 sigma) may take before the summary warns

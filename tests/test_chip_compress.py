@@ -136,3 +136,84 @@ def test_other_streams_from_a_later_block(fw: Firmware, tmp_path: Path, kind: st
     for first in (0, 3):
         _s, total, bad, _clocks = decode_on_chip(fw, tmp_path, codes, bits, first)
         assert (total, bad) == (n - first * cz.BLOCK_SAMPLES, 0), (kind, first)
+
+
+# -- the ladder's C player with compressed streams -----------------------------------------
+# The same scenarios as tests/test_chip_c.py, the streams made with --compress lossless:
+# the player decodes them into two RAM buffers from the DMA interrupt, and every sample on
+# the pins is compared with the stream's codes (the bundle's .bin holds the words
+# uncompressed too; the harness's own decoder reads them).
+
+from chip.harness import Step  # noqa: E402
+from test_chip_c import (  # noqa: E402 - the C player's scenarios, reused
+    assert_period,
+    check_once,
+    decompose_loop,
+    make,
+    play_once_steps,
+    played,
+)
+
+
+def test_compressed_streams_play_every_sample(fw: Firmware, tmp_path: Path) -> None:
+    # widths 1..16, both shift directions and pin orders, inverted or not; long enough for
+    # several refills of the 64-word buffers
+    streams = [
+        make(
+            tmp_path,
+            f"z{bits}",
+            bits=bits,
+            seconds=0.004,
+            shift="left" if bits % 2 else "right",
+            pin_order="msb-low" if bits % 3 == 0 else "msb-high",
+            invert=bits % 4 == 1,
+            program=("autopull", "pull", "loop")[bits % 3],
+            samples_per_word=1 if bits % 3 == 1 else None,
+            out_base=2,
+            compress="lossless",
+        )
+        for bits in range(1, 17)
+    ]
+    r = run(fw.make(tmp_path, [s.name for s in streams], play_once_steps(16)), fw.mailbox())
+    check_once(r, streams)
+
+
+def test_a_compressed_stream_stops_from_where_it_is(fw: Firmware, tmp_path: Path) -> None:
+    s = make(tmp_path, "zcut", seconds=0.004, level_dbfs=-0.5, ramp_ms=0.004, compress="lossless")
+    total = int(s.codes.size * s.layout.sample_period_clocks)
+    # the delays are busy-wait clocks: the refills' interrupts stretch them (by about a
+    # third at this rate), so the last stop comes at about 4/5 of the stream
+    delays = [10, total // 7, total // 3, total // 2, (3 * total) // 5]
+    steps = [Step("init", 0, 0)]
+    for d in delays:
+        steps += [Step("start"), Step("delay", 0, d), Step("request_stop"), Step("wait")]
+    r = run(fw.make(tmp_path, [s.name], steps), fw.mailbox())
+    assert all(rc == 0 for rc in r.results())
+    for k in range(len(delays)):
+        codes, times = played(r, s, 1 + 4 * k, 4 + 4 * k)
+        s.assert_cut_short(codes)
+        assert_period(times, s)
+
+
+@pytest.mark.parametrize("program", ["loop", "autopull"])
+def test_a_compressed_loop_ends_on_a_pass_boundary(
+    fw: Firmware, tmp_path: Path, program: str
+) -> None:
+    s = make(tmp_path, "zlp", loop=True, cycles=40, program=program, ramp_ms=0.01,
+             compress="lossless")  # fmt: skip
+    pass_clocks = int(s.codes.size * s.layout.sample_period_clocks)
+    delays = [1, 50, pass_clocks // 3, pass_clocks - 40, 2 * pass_clocks + 7]
+    steps = [Step("init", 0, 0)]
+    for d in delays:
+        steps += [Step("start", 0, 1), Step("delay", 0, d), Step("request_stop"), Step("wait")]
+    steps += [Step("start", 0, 0), Step("wait"), Step("deinit")]
+    r = run(fw.make(tmp_path, [s.name], steps), fw.mailbox())
+    assert all(rc == 0 for rc in r.results()), r.results()
+    for k in range(len(delays)):
+        codes, times = played(r, s, 1 + 4 * k, 4 + 4 * k)
+        assert decompose_loop(codes, s) >= 1
+        assert_period(times[int(np.argmax(codes != s.layout.idle_code)) :], s)
+        assert np.abs(np.diff(codes)).max() <= s.max_step
+    base = 1 + 4 * len(delays)
+    codes, _t = played(r, s, base, base + 1)
+    assert decompose_loop(codes, s) == 1  # loop=false plays one pass

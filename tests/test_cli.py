@@ -131,6 +131,7 @@ def test_stream_json_summary(tmp_path: Path, clip: Path) -> None:
         "beep.pio",
         "beep.py",
         "ladderpack_common.h",
+        "ladderpack_lossless.h",
         "ladderpack_player.c",
         "ladderpack_player.h",
     ]

@@ -77,10 +77,17 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
             f"{lv['highest_volts']:.4f} V{shrink}; the stream's full scale is scaled to "
             "that reach"
         )
+    comp = summary.get("compression")
+    if comp:
+        click.echo(
+            f"  compress {comp['kind']}: {comp['bytes']} bytes for {comp['raw_bytes']} of "
+            f"words ({comp['ratio']:.2f}x), decoded on the chip"
+        )
     if summary.get("flash_share") is not None:
         click.echo(
             f"  flash    {100 * summary['flash_share']:.2f} % of the target; at most "
             f"{summary['max_duration_s']:.1f} s fit at this rate and width"
+            + (" so compressed" if comp else "")
         )
     if "program" in summary:
         click.echo(f"  program  {summary['program']}" + (" (loops)" if summary.get("loop") else ""))

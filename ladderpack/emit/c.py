@@ -148,7 +148,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     intro = f"{n}_intro_words" if _count(asset.intro) else "NULL"
     outro = f"{n}_outro_words" if _count(asset.outro) else "NULL"
     fields = [
-        f"{n}_words",
+        "NULL" if asset.lossless is not None else f"{n}_words",
         f"{P}_WORD_COUNT",
         intro,
         f"{P}_INTRO_WORD_COUNT",
@@ -177,6 +177,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_IDLE_CODE",
         f"{P}_MAX_STEP",
         f"{P}_PROGRAM_KIND",
+        f"&{n}_lossless" if asset.lossless is not None else "NULL",
     ]
     if _stereo(asset):
         return init_macro("lp_stereo_stream_t", "ladderpack_stereo.h", f"{P}_STEREO_INIT", fields)
@@ -193,11 +194,21 @@ def render_header(asset: StreamAsset) -> str:
     guard = f"LADDERPACK_{prefix}_H"
     lines = header_frame(asset, _defines(asset))
     lines += pll_lines(asset)
-    lines += [
-        "",
-        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
-        f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];",
-    ]
+    if asset.lossless is not None:
+        ll = asset.lossless
+        lines += [
+            "",
+            "/* Stored compressed (--compress lossless, ladderpack_lossless.h): the player",
+            " * decodes the codes of every word and packs them again. */",
+            '#include "ladderpack_lossless.h"',
+            f"#define {prefix}_LOSSLESS_WORD_COUNT {int(ll.words.size)}u /* bit-stream words */",
+            f"#define {prefix}_LOSSLESS_BLOCK_COUNT {int(ll.block_words.size)}u "
+            f"/* blocks of {ll.block_samples} codes */",
+            f"extern const lp_lossless_stream_t {asset.name}_lossless;",
+        ]
+    else:
+        lines += ["", f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];"]
+    lines += [f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];"]
     for part in ("intro", "outro"):
         if _count(getattr(asset, part)):
             lines.append(
@@ -276,11 +287,14 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
     yield from _banner(asset).split("\n")  # its last element is the blank line after it
     yield f'#include "{asset.name}.h"'
     yield ""
-    yield "/* Packed samples in FIFO order; const, so they stay in flash, and"
-    yield " * uint32_t, so they are word-aligned for DMA. */"
-    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
-    yield from _array_lines(asset.packed.words, 8)
-    yield "};"
+    if asset.lossless is not None:
+        yield from _lossless_lines(asset)
+    else:
+        yield "/* Packed samples in FIFO order; const, so they stay in flash, and"
+        yield " * uint32_t, so they are word-aligned for DMA. */"
+        yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
+        yield from _array_lines(asset.packed.words, 8)
+        yield "};"
     for part in ("intro", "outro"):
         packed = getattr(asset, part)
         if _count(packed):
@@ -304,6 +318,28 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
         for i in range(0, len(vals), 4):
             yield "    " + ", ".join(vals[i : i + 4]) + ("," if i + 4 < len(vals) else "")
         yield "};"
+
+
+def _lossless_lines(asset: StreamAsset) -> Iterator[str]:
+    """The compressed codes: the bit stream, the block index and their description."""
+    ll, n, prefix = asset.lossless, asset.name, asset.name.upper()
+    assert ll is not None
+    yield "/* The codes of every word, compressed without loss (ladderpack_lossless.h): a"
+    yield " * bit stream of blocks that each decode on their own, and where each starts. */"
+    yield f"static const uint32_t {n}_lossless_words[{prefix}_LOSSLESS_WORD_COUNT] = {{"
+    yield from _array_lines(ll.words, 8)
+    yield "};"
+    yield f"static const uint32_t {n}_lossless_blocks[{prefix}_LOSSLESS_BLOCK_COUNT] = {{"
+    yield from _array_lines(ll.block_words, 8)
+    yield "};"
+    yield f"const lp_lossless_stream_t {n}_lossless = {{"
+    yield f"    {n}_lossless_words,"
+    yield f"    {n}_lossless_blocks,"
+    yield f"    {prefix}_LOSSLESS_BLOCK_COUNT,"
+    yield f"    {ll.block_samples}u,"
+    yield f"    {ll.samples}u, /* codes: every slot of {prefix}_WORD_COUNT words */"
+    yield f"    {ll.bits}u"
+    yield "};"
 
 
 def chunked(lines: Iterable[str], chunk_chars: int = 1 << 20) -> Iterator[bytes]:

@@ -223,10 +223,12 @@ def render_source() -> str:
 
 def files() -> dict[str, bytes]:
     """The stereo player's two files and the players' shared header."""
+    header = render_header().encode()
     return {
-        HEADER_NAME: render_header().encode(),
+        HEADER_NAME: header,
         SOURCE_NAME: render_source().encode(),
         templates.COMMON_NAME: templates.render(
             templates.COMMON_NAME, VERSION=__version__
         ).encode(),
+        **templates.included_decoders(header),
     }

@@ -70,12 +70,26 @@ def player(stem: str) -> dict[str, bytes]:
     --------
     >>> sorted(player("ladderpack_i2s"))
     ['ladderpack_common.h', 'ladderpack_i2s.c', 'ladderpack_i2s.h']
+
+    and the decoder headers it includes (:func:`included_decoders`).
     """
     from ladderpack._version import __version__
     from ladderpack.emit.names import player_files
 
     names = (*player_files(stem), COMMON_NAME)
-    return {n: render(n, VERSION=__version__).encode() for n in names}
+    made = {n: render(n, VERSION=__version__).encode() for n in names}
+    return {**made, **included_decoders(made[names[0]])}
+
+
+def included_decoders(header: bytes) -> dict[str, bytes]:
+    """The decoder headers (``emit.names.DECODER_FILES``) a player's header includes."""
+    from ladderpack.emit.names import DECODER_FILES
+
+    out: dict[str, bytes] = {}
+    for stem in DECODER_FILES:
+        if f'#include "{stem}.h"'.encode() in header:
+            out.update(decoder(stem))
+    return out
 
 
 @functools.cache

@@ -138,7 +138,7 @@ REGISTRY: tuple[Entry, ...] = (
         "ladder",
         "ladderpack.outputs.ladder",
         "an R-2R ladder on N GPIOs (two ladders for stereo)",
-        frozenset({"width", "ladder", "level", "stereo"}),
+        frozenset({"width", "ladder", "level", "stereo", "compress"}),
         named_in_records=False,
         players={
             "ladderpack_player": "the ladder's C player",

@@ -100,6 +100,12 @@ class LadderOutput:
                 "writes at most 30 here (two 15-bit ladders)",
                 field="bits",
             )
+        if opts.compress != "none" and opts.stereo:
+            raise OptionError(
+                "two ladders are not compressed yet (their codes interleave); "
+                "use --compress none for --stereo",
+                field="compress",
+            )
         self.gpio_base(opts)
 
     def gpio_base(self, opts: StreamOptions) -> int:

@@ -5,6 +5,8 @@
 #include "pico.h"
 #include "hardware/clocks.h"
 #include "hardware/dma.h"
+#include "hardware/irq.h"
+#include "hardware/sync.h"
 #include "hardware/pio.h"
 
 #define LP_LADDER_IDLE     0u
@@ -162,6 +164,7 @@ static uint32_t lp_ladder_channel_mask(const lp_ladder_player_t *p) {
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
     if (p->intro_ch >= 0) m |= 1u << (uint)p->intro_ch;
     if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    if (p->ring_ch >= 0) m |= 1u << (uint)p->ring_ch;
     return m;
 }
 
@@ -175,7 +178,161 @@ static void lp_ladder_release(lp_ladder_player_t *p) {
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
     if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    if (p->ring_ch >= 0) dma_channel_unclaim((uint)p->ring_ch);
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+}
+
+/* -- compressed streams: two RAM buffers, refilled from DMA_IRQ_0 as the other plays ---- */
+
+static lp_ladder_player_t *lp_ladder_ring_owner[NUM_DMA_CHANNELS];
+static bool lp_ladder_irq_added;
+
+/* Decode the next words of the stream into buffer `which`; returns how many. A fill ends
+ * at the end of the codes (a loop's pass), so a pass always ends with a buffer; the next
+ * fill of a loop that goes on starts the next pass. */
+static uint32_t lp_ladder_fill(lp_ladder_player_t *p, uint32_t which) {
+    const lp_ladder_stream_t *s = p->stream;
+    uint32_t spw = s->samples_per_word;
+    uint32_t n = 0u;
+    uint16_t codes[32];
+    if (p->dec.block + 1u >= s->lossless->block_count && p->dec.done == p->dec.in_block) {
+        if (!p->looping) {
+            p->ring_count[which] = 0u;
+            return 0u; /* the end */
+        }
+        lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+    }
+    while (n < LP_LADDER_RING_WORDS) {
+        uint32_t got = lp_lossless_decode(&p->dec, codes, spw);
+        uint32_t word = 0u;
+        uint32_t k;
+        if (got == 0u) {
+            break;
+        }
+        for (k = 0u; k < got; ++k) {
+            word |= lp_ladder_pins_of(s, codes[k]) << lp_ladder_slot_shift(s, k);
+        }
+        p->ring[which][n++] = word;
+    }
+    p->ring_count[which] = n;
+    return n;
+}
+
+static int lp_ladder_ring_channel(const lp_ladder_player_t *p, uint32_t which) {
+    return which ? p->ring_ch : p->data_ch;
+}
+
+/* The channel that follows the last buffer: the tail (a loop's outro, or the closing idle
+ * word of the loop program), or none. */
+static int lp_ladder_ring_end(const lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
+    bool closing = s->loop || s->program_kind == LP_LADDER_PROGRAM_LOOP;
+    return closing ? p->tail_ch : -1;
+}
+
+static void lp_ladder_set_chain(int ch, int to) {
+    uint32_t ctrl = dma_hw->ch[ch].al1_ctrl;
+    ctrl = (ctrl & ~DMA_CH0_CTRL_TRIG_CHAIN_TO_BITS)
+           | ((uint32_t)(to >= 0 ? to : ch) << DMA_CH0_CTRL_TRIG_CHAIN_TO_LSB);
+    dma_hw->ch[ch].al1_ctrl = ctrl;
+}
+
+/* Buffer `which` has played: remember its last word, fill it again and re-arm its channel
+ * (the other is playing); with nothing left, the other buffer is the last. */
+static void lp_ladder_refill(lp_ladder_player_t *p, uint32_t which) {
+    int ch = lp_ladder_ring_channel(p, which);
+    uint32_t n;
+    p->ring_tail_word = p->ring[which][p->ring_count[which] - 1u];
+    p->ring_cur = (uint8_t)(which ^ 1u);
+    if (p->ring_done) {
+        return;
+    }
+    n = lp_ladder_fill(p, which);
+    if (n == 0u) {
+        lp_ladder_set_chain(lp_ladder_ring_channel(p, which ^ 1u), lp_ladder_ring_end(p));
+        p->ring_done = true;
+        return;
+    }
+    dma_channel_set_read_addr((uint)ch, p->ring[which], false);
+    dma_channel_set_trans_count((uint)ch, n, false);
+}
+
+static void lp_ladder_dma_irq(void) {
+    uint32_t pending = dma_hw->ints0;
+    uint ch;
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        lp_ladder_player_t *p = lp_ladder_ring_owner[ch];
+        if (p != NULL && (pending & (1u << ch))) {
+            dma_hw->ints0 = 1u << ch;
+            lp_ladder_refill(p, (int)ch == p->ring_ch ? 1u : 0u);
+        }
+    }
+}
+
+static void lp_ladder_ring_irq(lp_ladder_player_t *p, bool on) {
+    uint32_t m = (1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch);
+    if (on) {
+        lp_ladder_ring_owner[p->data_ch] = p;
+        lp_ladder_ring_owner[p->ring_ch] = p;
+        dma_hw->ints0 = m;
+        dma_hw->inte0 |= m;
+        if (!lp_ladder_irq_added) {
+            irq_add_shared_handler(DMA_IRQ_0, lp_ladder_dma_irq,
+                                   PICO_SHARED_IRQ_HANDLER_DEFAULT_ORDER_PRIORITY);
+            lp_ladder_irq_added = true;
+        }
+        irq_set_enabled(DMA_IRQ_0, true);
+    } else {
+        dma_hw->inte0 &= ~m;
+        dma_hw->ints0 = m;
+        lp_ladder_ring_owner[p->data_ch] = NULL;
+        lp_ladder_ring_owner[p->ring_ch] = NULL;
+    }
+}
+
+/* The last word sent to the FIFO (for a stop's ramp), with the interrupt off. */
+static uint32_t lp_ladder_ring_last_sent(const lp_ladder_player_t *p) {
+    uint32_t x = p->ring_cur;
+    uint32_t prev = p->ring_tail_word;
+    uint32_t sent;
+    int ch = lp_ladder_ring_channel(p, x);
+    if (dma_hw->ints0 & (1u << (uint)ch)) { /* it has played; its refill never ran */
+        prev = p->ring[x][p->ring_count[x] - 1u];
+        x ^= 1u;
+        ch = lp_ladder_ring_channel(p, x);
+    }
+    sent = (uint32_t)(dma_hw->ch[ch].read_addr - (uint32_t)(uintptr_t)p->ring[x]) / 4u;
+    if (sent > p->ring_count[x]) {
+        sent = p->ring_count[x];
+    }
+    return sent ? p->ring[x][sent - 1u] : prev;
+}
+
+/* Fill both buffers and chain their channels to each other. Returns the first channel. */
+static __noinline int lp_ladder_setup_ring(lp_ladder_player_t *p) {
+    const lp_ladder_stream_t *s = p->stream;
+    uint32_t n0, n1;
+    lp_lossless_start(&p->dec, s->lossless, 0u);
+    p->ring_done = false;
+    p->ring_cur = 0u;
+    p->ring_tail_word = s->idle_word;
+    n0 = lp_ladder_fill(p, 0u);
+    n1 = lp_ladder_fill(p, 1u);
+    lp_ladder_feed(p, p->tail_ch, s->outro != NULL ? s->outro : p->ramp,
+                   s->outro != NULL ? s->outro_count : 1u, p->tail_ch, false);
+    if (n1 == 0u) {
+        p->ring_done = true;
+        lp_ladder_feed(p, p->data_ch, p->ring[0], n0, lp_ladder_ring_end(p) >= 0 ? p->tail_ch : p->data_ch, false);
+    } else {
+        lp_ladder_feed(p, p->data_ch, p->ring[0], n0, p->ring_ch, false);
+        lp_ladder_feed(p, p->ring_ch, p->ring[1], n1, p->data_ch, false);
+    }
+    lp_ladder_ring_irq(p, true);
+    if (s->intro == NULL) {
+        return p->data_ch;
+    }
+    lp_ladder_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+    return p->intro_ch;
 }
 
 int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *s, PIO pio) {
@@ -185,7 +342,7 @@ int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *s, PIO pio) 
     uint i;
 
     p->stream = NULL;
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
     p->state = LP_LADDER_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_LADDER_ERR_CLOCK;
@@ -202,13 +359,16 @@ int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *s, PIO pio) 
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->loop) {
+    if (s->lossless != NULL) {
+        p->ring_ch = dma_claim_unused_channel(false);
+    } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
-        if (s->intro != NULL) {
-            p->intro_ch = dma_claim_unused_channel(false);
-        }
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
+    if (s->loop && s->intro != NULL) {
+        p->intro_ch = dma_claim_unused_channel(false);
+    }
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->lossless == NULL && p->ctrl_ch < 0)
+        || (s->lossless != NULL && p->ring_ch < 0)
         || (s->loop && s->intro != NULL && p->intro_ch < 0)) {
         lp_ladder_release(p);
         return LP_LADDER_ERR_NO_DMA;
@@ -324,7 +484,11 @@ int lp_ladder_start(lp_ladder_player_t *p, bool loop) {
     p->looping = loop && s->loop;
     p->target_code = s->idle_code;
     p->ramp[0] = s->idle_word;
-    first = s->loop ? lp_ladder_setup_loop(p) : lp_ladder_setup_stream(p);
+    if (s->lossless != NULL) {
+        first = lp_ladder_setup_ring(p);
+    } else {
+        first = s->loop ? lp_ladder_setup_loop(p) : lp_ladder_setup_stream(p);
+    }
     p->state = LP_LADDER_PLAYING;
     lp_ladder_run_from(p, first);
     return LP_LADDER_OK;
@@ -374,6 +538,21 @@ int lp_ladder_request_stop(lp_ladder_player_t *p) {
         return LP_LADDER_OK;
     }
     p->state = LP_LADDER_STOPPING;
+    if (s->loop && s->lossless != NULL) {
+        /* End on a pass boundary: the refills stop at the end of this pass (a pass
+         * always ends with a buffer); if the buffer queued next starts a new pass, the
+         * playing one is the last. */
+        uint32_t irq = save_and_disable_interrupts();
+        p->looping = false;
+        if (!p->ring_done && p->dec.done == p->dec.in_block
+            && p->dec.block + 1u >= s->lossless->block_count) {
+            /* the queued buffer ends this pass: it is the last one */
+            lp_ladder_set_chain(lp_ladder_ring_channel(p, p->ring_cur ^ 1u), lp_ladder_ring_end(p));
+            p->ring_done = true;
+        }
+        restore_interrupts(irq);
+        return LP_LADDER_OK;
+    }
     if (s->loop) {
         /* End on a pass boundary: re-point the data channel's chain from the control
          * channel to the outro. Either this pass or, if the control channel has just
@@ -387,9 +566,16 @@ int lp_ladder_request_stop(lp_ladder_player_t *p) {
         return LP_LADDER_OK;
     }
     /* A stream: stop feeding and ramp down at once from the last code sent. */
-    lp_ladder_abort_all(p);
-    sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
-    last = sent == 0u ? s->idle_word : s->words[sent - 1u];
+    if (s->lossless != NULL) {
+        dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
+        lp_ladder_abort_all(p);
+        last = lp_ladder_ring_last_sent(p);
+        lp_ladder_ring_irq(p, false);
+    } else {
+        lp_ladder_abort_all(p);
+        sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
+        last = sent == 0u ? s->idle_word : s->words[sent - 1u];
+    }
     n = lp_ladder_build_ramp(p, lp_ladder_last_code(s, last), s->idle_code);
     p->target_code = s->idle_code;
     if (n != 0u) {
@@ -461,6 +647,9 @@ void lp_ladder_deinit(lp_ladder_player_t *p) {
         }
     }
     lp_ladder_abort_all(p);
+    if (p->ring_ch >= 0) {
+        lp_ladder_ring_irq(p, false);
+    }
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_ladder_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);

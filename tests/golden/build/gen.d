@@ -4,6 +4,7 @@ gen/beep.h: ladderpack.toml
 gen/beep.json: ladderpack.toml
 gen/beep.pio: ladderpack.toml
 gen/beep.py: ladderpack.toml
+gen/ladderpack_lossless.h: ladderpack.toml
 gen/saw_table.c: ladderpack.toml
 gen/saw_table.h: ladderpack.toml
 gen/saw_table.py: ladderpack.toml

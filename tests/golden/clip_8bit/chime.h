@@ -77,7 +77,8 @@ extern const uint16_t chime_program[CHIME_PROGRAM_LENGTH];
     CHIME_INVERTED, \
     CHIME_IDLE_CODE, \
     CHIME_MAX_STEP, \
-    CHIME_PROGRAM_KIND \
+    CHIME_PROGRAM_KIND, \
+    NULL \
 }
 /* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
 #define CHIME_STREAM_INIT CHIME_LADDER_INIT

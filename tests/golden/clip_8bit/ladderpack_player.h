@@ -26,6 +26,8 @@
 
 #include "hardware/pio.h"
 
+#include "ladderpack_lossless.h"
+
 /* Words of RAM per player for ramps built at run time (stop, hold). A ramp that needs
  * more samples than fit is made steeper; define it larger before including this header
  * (in every file that does) for very smooth streams. */
@@ -34,6 +36,14 @@
 #endif
 #ifndef LP_LADDER_RAMP_WORDS
 #define LP_LADDER_RAMP_WORDS 128u
+#endif
+
+/* Words in each of the two RAM buffers a compressed stream (--compress lossless) is
+ * decoded into. A buffer is refilled from the DMA_IRQ_0 interrupt (a shared handler) while
+ * the other plays, so one buffer's time must cover decoding the other (about 90 clocks a
+ * sample); define it before including this header (in every file that does) to change. */
+#ifndef LP_LADDER_RING_WORDS
+#define LP_LADDER_RING_WORDS 64u
 #endif
 
 /* Program variants (lp_ladder_stream_t.program_kind). */
@@ -83,6 +93,7 @@ typedef struct lp_ladder_stream {
     uint16_t idle_code;
     uint16_t max_step;           /* largest step between consecutive codes of the stream */
     uint8_t program_kind;        /* LP_LADDER_PROGRAM_* */
+    const lp_lossless_stream_t *lossless; /* a compressed stream's codes (words is NULL), or NULL */
 } lp_ladder_stream_t;
 
 /* A player. It must stay valid (static or global, not a local that goes out of scope)
@@ -104,9 +115,18 @@ typedef struct lp_ladder_player {
     pio_program_t program;
     const uint32_t *loop_start;  /* read by the control channel */
     uint32_t ramp[LP_LADDER_RAMP_WORDS];
+    /* a compressed stream: the decoder and the two buffers data_ch and ring_ch play */
+    int ring_ch;
+    uint8_t ring_cur;            /* the buffer playing (or next to play) */
+    bool ring_done;              /* the last buffer is queued */
+    uint32_t ring_tail_word;     /* the last word played before the current buffer */
+    uint32_t ring_count[2];
+    lp_lossless_t dec;
+    uint32_t ring[2][LP_LADDER_RING_WORDS];
 } lp_ladder_player_t;
 
-/* Claim a state machine and the DMA channels (two for a stream, four for a loop), load
+/* Claim a state machine and the DMA channels (two for a stream, four for a loop, one more
+ * for a compressed stream, which also takes DMA_IRQ_0 with a shared handler), load
  * the program and put the idle pattern on the pins. Returns LP_LADDER_OK or LP_LADDER_ERR_*; on an
  * error nothing stays claimed. The system clock must be the one the stream was planned
  * for (the stream's SYS_CLOCK_HZ): at another clock the player refuses with

@@ -79,7 +79,8 @@ extern const uint32_t bench_outro_words[BENCH_OUTRO_WORD_COUNT];
     BENCH_INVERTED, \
     BENCH_IDLE_CODE, \
     BENCH_MAX_STEP, \
-    BENCH_PROGRAM_KIND \
+    BENCH_PROGRAM_KIND, \
+    NULL \
 }
 /* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
 #define BENCH_STREAM_INIT BENCH_LADDER_INIT

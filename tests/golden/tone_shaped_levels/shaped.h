@@ -82,7 +82,8 @@ extern const float shaped_levels_v[SHAPED_LEVEL_COUNT];
     SHAPED_INVERTED, \
     SHAPED_IDLE_CODE, \
     SHAPED_MAX_STEP, \
-    SHAPED_PROGRAM_KIND \
+    SHAPED_PROGRAM_KIND, \
+    NULL \
 }
 /* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
 #define SHAPED_STREAM_INIT SHAPED_LADDER_INIT

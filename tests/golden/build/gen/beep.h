@@ -77,7 +77,8 @@ extern const uint16_t beep_program[BEEP_PROGRAM_LENGTH];
     BEEP_INVERTED, \
     BEEP_IDLE_CODE, \
     BEEP_MAX_STEP, \
-    BEEP_PROGRAM_KIND \
+    BEEP_PROGRAM_KIND, \
+    NULL \
 }
 /* The old name of the initialiser (<NAME>_<OUTPUT>_INIT), kept until version 0.3. */
 #define BEEP_STREAM_INIT BEEP_LADDER_INIT
