@@ -55,6 +55,7 @@ __all__ = [
     "decode_lossless",
     "encode_adpcm",
     "encode_lossless",
+    "lossless_from_bytes",
 ]
 
 #: Codes a lossless block holds (the last block may be shorter).
@@ -96,6 +97,39 @@ class LosslessStream:
     def nbytes(self) -> int:
         """Bytes of the bit stream and the block index."""
         return 4 * (int(self.words.size) + int(self.block_words.size))
+
+    @property
+    def max_block_words(self) -> int:
+        """Words of the longest block (what a decoder that reads block by block holds)."""
+        ends = np.append(self.block_words[1:], self.words.size).astype(np.int64)
+        return int(np.max(ends - self.block_words.astype(np.int64))) if ends.size else 0
+
+    def to_bytes(self) -> bytes:
+        """The file form: the block index, then the bit stream, little-endian words."""
+        return np.concatenate([self.block_words, self.words]).astype("<u4").tobytes()
+
+
+def lossless_from_bytes(
+    data: bytes, *, bits: int, samples: int, block_samples: int, blocks: int
+) -> LosslessStream:
+    """Read :meth:`LosslessStream.to_bytes` back (the sidecar gives the numbers).
+
+    Raises
+    ------
+    OptionError
+        When the data cannot be such a stream (short, or a block index out of order).
+    """
+    words = np.frombuffer(data, dtype="<u4")
+    if len(data) % 4 or words.size < blocks or blocks != -(-samples // block_samples):
+        raise OptionError(
+            f"expected {blocks} block offsets and a bit stream, got {len(data)} bytes",
+            field="compression",
+        )
+    index, stream = words[:blocks].astype(np.uint32), words[blocks:].astype(np.uint32)
+    if blocks and (index[0] != 0 or np.any(np.diff(index.astype(np.int64)) <= 0)
+                   or int(index[-1]) >= max(1, stream.size)):  # fmt: skip
+        raise OptionError("the block index is out of order", field="compression")
+    return LosslessStream(bits, samples, block_samples, stream, index)
 
 
 def _zigzag(e: np.ndarray) -> np.ndarray:

@@ -104,6 +104,9 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         words = np.fromfile(bin_path, dtype="<u4")
     except OSError:
         raise LadderpackError("the bundle's .bin file is unreadable", file=bin_path) from None
+    comp = (side.get("stats") or {}).get("compression")
+    if comp:
+        words = _decompressed(words, comp, model, bin_path)
     if words.size < model.layout.words_for(count):
         raise LadderpackError(
             f"holds {words.size} words but the sidecar says {model.layout.words_for(count)}",
@@ -111,6 +114,30 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         )
     codes = model.decode(words, count, channel)
     return _Bundle(side, np.asarray(codes, dtype=np.int64), output, model)
+
+
+def _decompressed(words: np.ndarray, comp: Any, model: Any, bin_path: str) -> np.ndarray:
+    """The words of a compressed stream's ``.bin`` (``--compress lossless``), decoded."""
+    from ladderpack.compress import decode_lossless, lossless_from_bytes
+    from ladderpack.pack import pack
+    from ladderpack.quantize import Codes
+
+    try:
+        if comp.get("kind") != "lossless":
+            raise OptionError(f"unknown compression {comp.get('kind')!r}", field="compression")
+        layout = model.layout
+        stream = lossless_from_bytes(
+            words.tobytes(),
+            bits=int(layout.bits),
+            samples=int(comp["samples"]),
+            block_samples=int(comp["block_samples"]),
+            blocks=int(comp["blocks"]),
+        )
+        codes = decode_lossless(stream).astype(np.uint16)
+    except (KeyError, TypeError, ValueError, OptionError) as exc:
+        raise LadderpackError(f"not a compressed stream the sidecar describes ({exc})",
+                              file=bin_path) from None  # fmt: skip
+    return pack(Codes(codes, int(layout.bits)), layout).words
 
 
 def analog_output(

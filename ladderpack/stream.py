@@ -866,7 +866,11 @@ def _compressed(packed: Packed, opts: StreamOptions) -> LosslessStream | None:
     from ladderpack.pack import unpack
 
     slots = unpack(packed.words, packed.layout).codes
-    return encode_lossless(slots, packed.layout.bits)
+    # blocks of whole words, no longer than a MicroPython player's buffer, so a block
+    # decodes on its own into words the state machine takes
+    spw = packed.layout.samples_per_word
+    block_words = max(1, min(1024 // spw, int(opts.chunk_words)))
+    return encode_lossless(slots, packed.layout.bits, block_samples=block_words * spw)
 
 
 def _compression_stats(lossless: LosslessStream, packed: Packed, budget: Budget) -> dict[str, Any]:
@@ -883,6 +887,7 @@ def _compression_stats(lossless: LosslessStream, packed: Packed, budget: Budget)
         "ratio": round(ratio, 4),
         "blocks": int(lossless.block_words.size),
         "block_samples": lossless.block_samples,
+        "samples": lossless.samples,
         "max_duration_s": round(fit, 3),
     }
 

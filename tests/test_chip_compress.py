@@ -138,21 +138,36 @@ def test_other_streams_from_a_later_block(fw: Firmware, tmp_path: Path, kind: st
         assert (total, bad) == (n - first * cz.BLOCK_SAMPLES, 0), (kind, first)
 
 
-# -- the ladder's C player with compressed streams -----------------------------------------
-# The same scenarios as tests/test_chip_c.py, the streams made with --compress lossless:
-# the player decodes them into two RAM buffers from the DMA interrupt, and every sample on
-# the pins is compared with the stream's codes (the bundle's .bin holds the words
-# uncompressed too; the harness's own decoder reads them).
+# -- the ladder's players with compressed streams ------------------------------------------
+# The same scenarios as tests/test_chip_c.py and test_chip_micropython.py, the streams made
+# with --compress lossless: the C player decodes them into two RAM buffers from the DMA
+# interrupt, the MicroPython player block by block in viper. Every sample on the pins is
+# compared with the codes of the same stream made uncompressed (its .bin, read by the
+# harness's own decoder): a bundle of a compressed stream has only the compressed form.
 
-from chip.harness import Step  # noqa: E402
-from test_chip_c import (  # noqa: E402 - the C player's scenarios, reused
+import test_chip_c  # noqa: E402 - the C player's scenarios, reused
+from chip.harness import Step, Stream, run_micropython  # noqa: E402
+from test_chip_c import (  # noqa: E402
     assert_period,
     check_once,
     decompose_loop,
-    make,
     play_once_steps,
     played,
 )
+from test_chip_micropython import assert_ok  # noqa: E402
+from test_chip_micropython import played as mp_played  # noqa: E402
+
+from ladderpack.bundle import bundle_files  # noqa: E402
+from ladderpack.stream import stream_tone  # noqa: E402
+
+
+def make(folder: Path, name: str, **opts: object) -> Stream:
+    """The compressed bundle in `folder`; the stream as its uncompressed twin decodes."""
+    twin = folder / "uncompressed"
+    twin.mkdir(exist_ok=True)
+    raw = test_chip_c.make(twin, name, **{**opts, "compress": "none"})
+    test_chip_c.make(folder, name, **opts)
+    return raw
 
 
 def test_compressed_streams_play_every_sample(fw: Firmware, tmp_path: Path) -> None:
@@ -217,3 +232,67 @@ def test_a_compressed_loop_ends_on_a_pass_boundary(
     base = 1 + 4 * len(delays)
     codes, _t = played(r, s, base, base + 1)
     assert decompose_loop(codes, s) == 1  # loop=false plays one pass
+
+
+def mp_make(folder: Path, name: str, **opts: object) -> tuple[Stream, dict[str, bytes]]:
+    """A compressed tone for the MicroPython player: the board's files, and the stream as
+    its uncompressed twin decodes."""
+    settings: dict[str, object] = {"freq_hz": 440.0, "seconds": 0.12, "rate_hz": 22050.0,
+                                   "ramp_ms": 1.0, "bits": 8, **opts}  # fmt: skip
+    if "cycles" in opts:
+        settings.pop("seconds")
+    twin = folder / "uncompressed"
+    twin.mkdir(exist_ok=True)
+    plain = bundle_files(stream_tone("sine", name=name, **{**settings, "compress": "none"}))
+    for fname, data in plain.items():
+        (twin / fname).write_bytes(data)
+    made = bundle_files(stream_tone("sine", name=name, compress="lossless", **settings))
+    assert len(made[f"{name}.bin"]) < len(plain[f"{name}.bin"])
+    board = {f"{name}.py": made[f"{name}.py"], f"{name}.bin": made[f"{name}.bin"]}
+    return Stream.load(twin, name), board
+
+
+@pytest.mark.parametrize(
+    "opts",
+    [
+        {"bits": 8},
+        {"bits": 12, "shift": "left", "pin_order": "msb-low", "invert": True},
+        {"bits": 10, "program": "pull", "samples_per_word": 1, "chunk_words": 64},
+    ],
+    ids=["8-bit", "12-bit-left-reversed-inverted", "10-bit-pull-short-blocks"],
+)
+def test_micropython_plays_a_compressed_stream(tmp_path: Path, opts: dict[str, object]) -> None:
+    s, files = mp_make(tmp_path, "zmp", **opts)
+    r = run_micropython(files, [{"code": "import zmp\nzmp.play()\n"}], tmp_path)
+    assert_ok(r)
+    codes, times = mp_played(r, s, 0)
+    np.testing.assert_array_equal(codes[: s.codes.size], s.codes)
+    assert np.all(codes[s.codes.size :] == s.layout.idle_code)
+    assert_period(times, s)
+
+
+def test_micropython_compressed_loop_and_stop(tmp_path: Path) -> None:
+    s, files = mp_make(tmp_path, "zml", loop=True, cycles=60, program="autopull")
+    pass_ms = s.codes.size / 22.05
+    steps = [
+        {
+            "code": "import zml\nfrom machine import Timer\np = zml.Player()\n"
+            f"Timer(period={round(1.5 * pass_ms)}, mode=Timer.ONE_SHOT, "
+            "callback=lambda t: p.stop())\np.play(loop=True)\n"
+        }
+    ]
+    r = run_micropython(files, steps, tmp_path)
+    assert_ok(r)
+    codes, _t = mp_played(r, s, 0)
+    assert decompose_loop(codes, s) == 2  # stopped in the second pass: it finishes it
+    assert np.abs(np.diff(codes)).max() <= s.max_step
+
+
+def test_micropython_compressed_stream_stops_from_where_it_is(tmp_path: Path) -> None:
+    s, files = mp_make(tmp_path, "zms", seconds=0.2, level_dbfs=-0.5)
+    steps = [{"code": "import zms\np = zms.Player()\n"},
+             {"code": "p.play()\n", "interrupt_after": 10_000_000}]  # fmt: skip
+    r = run_micropython(files, steps, tmp_path)
+    assert r.ended and "KeyboardInterrupt" in r.output()
+    codes, _t = mp_played(r, s, 1)
+    s.assert_cut_short(codes)

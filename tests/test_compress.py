@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import warnings
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -189,3 +190,51 @@ def test_adpcm_is_four_times_smaller_than_16_bit_pcm() -> None:
     s = cz.encode_adpcm(x)
     assert 2 * x.size / s.nbytes >= 3.95  # 4 bits a sample plus a word a block
     assert s.packed.size == 10000 and s.packed[0] & 15 == s.nibbles[0]
+
+
+# -- the MicroPython player's decoder, run on the host ----------------------------------
+
+
+def _viper_decoder() -> Any:
+    """``_lossless_block`` from the generated module's text, with ``micropython.viper`` and
+    ``ptr32`` as no-ops (it is written to give the same bits as plain Python)."""
+    import types
+
+    from ladderpack.emit.micropython import LOSSLESS_DECODER
+
+    space: dict[str, object] = {
+        "micropython": types.SimpleNamespace(viper=lambda f: f),
+        "ptr32": lambda a: a,
+    }
+    exec(LOSSLESS_DECODER, space)  # our own generated source
+    return space["_lossless_block"]
+
+
+@pytest.mark.parametrize("bits", [1, 3, 8, 10, 12, 16])
+@pytest.mark.parametrize("layout", ["right-msb-high", "left-msb-low-inverted"])
+def test_the_micropython_decoder_gives_the_stream_words(bits: int, layout: str) -> None:
+    import array
+
+    from ladderpack.stream import stream_tone
+
+    right = layout.startswith("right")
+    asset = stream_tone(
+        "sine", name="z", seconds=0.05, rate_hz=22050, bits=bits, compress="lossless",
+        shift="right" if right else "left", pin_order="msb-high" if right else "msb-low",
+        invert=not right,
+    )  # fmt: skip
+    ll, lay = asset.lossless, asset.packed.layout
+    assert ll is not None and ll.block_samples % lay.samples_per_word == 0
+    decode = _viper_decoder()
+    ends = [*ll.block_words.tolist()[1:], ll.words.size]
+    got: list[int] = []
+    for b, start in enumerate(ll.block_words.tolist()):
+        src = array.array("I", [int(w) for w in ll.words[start : ends[b]]] + [0])
+        dst = array.array("I", bytes(4 * ll.block_samples))
+        n = min(ll.block_samples, ll.samples - b * ll.block_samples)
+        inv = (1 << bits) - 1 if lay.invert else 0
+        cfg = array.array(
+            "i", [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv]
+        )
+        got += dst[: decode(src, dst, cfg)].tolist()
+    assert got == asset.packed.words.tolist()

@@ -423,6 +423,34 @@ def play(sm_id: int = 0, loop: bool = LOOP) -> None:
 LEVELS_EMBED_MAX_BITS = 10
 
 
+def _with_lossless(text: str, asset: StreamAsset) -> str:
+    """The module of a compressed stream: its description, the decoder, the player's way
+    through the compressed ``.bin``."""
+    ll = asset.lossless
+    assert ll is not None
+    desc = (
+        f"# Stored compressed (--compress lossless): the .bin holds {int(ll.block_words.size)} "
+        "block offsets, then\n# the bit stream; each block decodes on its own into FIFO words.\n"
+        f"LOSSLESS = ({int(ll.block_words.size)}, {ll.block_samples}, {ll.samples}, "
+        f"{int(ll.words.size)}, {ll.max_block_words})  # blocks, codes a block, codes, "
+        "stream words, longest block\n"
+    )
+    anchor = "INTRO = "
+    text = text.replace(anchor, desc + anchor, 1)
+    old = "    def _play_file(self, loop: bool) -> None:\n"
+    assert old in text
+    text = text.replace(
+        old,
+        LOSSLESS_PLAY + old + "        if LOSSLESS is not None:\n"
+        "            self._play_lossless(loop)\n            return\n",
+        1,
+    )
+    text = text.replace("import array\n", "import array\nimport micropython\n", 1)
+    anchor = "\nclass Player"
+    assert anchor in text
+    return text.replace(anchor, LOSSLESS_DECODER + "\n" + anchor, 1)
+
+
 def _levels_literal(asset: StreamAsset) -> str:
     v = asset.levels_volts
     if v is None or asset.packed.layout.bits > LEVELS_EMBED_MAX_BITS:
@@ -700,6 +728,8 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         registers=pio_registers_text(target_of(asset.options)),
         cos_q15=", ".join(str(v) for v in cosine_q15()),
     )
+    if asset.lossless is not None:
+        text = _with_lossless(text, asset)
     if isinstance(lay, StereoLadderLayout):
         n, base = lay.channel_bits, asset.state_machine.out_base
         end = "least" if lay.msb_high else "most"
@@ -713,6 +743,146 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         text = text[:start] + wiring + text[text.index("\n", start) :]
         text = _stereo_module(text)
     return text + set_clock_text(asset)
+
+
+#: A compressed stream's decoder (``--compress lossless``, ladderpack.compress): one block
+#: of the bit stream into FIFO words, in viper (machine words, no heap). It is also valid
+#: Python with ``micropython.viper`` and ``ptr32`` as no-ops, which is how the tests run
+#: it on the host against the reference decoder. Every shift stays below 32 bits and every
+#: field is masked, so the machine's arithmetic right shift of a negative word and
+#: Python's unbounded integers give the same bits.
+LOSSLESS_DECODER = """\
+
+@micropython.viper
+def _lossless_block(src, dst, cfg) -> int:
+    # cfg: codes in the block, bits, samples per word, shift right, pin order reversed,
+    # inversion mask; src: the block's bit stream; dst: the words. Returns the words.
+    s = ptr32(src)
+    d = ptr32(dst)
+    c = ptr32(cfg)
+    n = c[0]
+    bits = c[1]
+    spw = c[2]
+    right = c[3]
+    rev = c[4]
+    inv = c[5]
+    head = (s[0] >> 26) & 63
+    order = head >> 4
+    k = head & 15
+    pos = 6
+    h1 = 0
+    h2 = 0
+    i = 0
+    slot = 0
+    word = 0
+    nw = 0
+    while i < n:
+        if i < order:
+            nb = bits
+            v = 0
+        else:
+            q = 0
+            while q < 16:
+                bit = (s[pos >> 5] >> (31 - (pos & 31))) & 1
+                pos += 1
+                if bit == 0:
+                    break
+                q += 1
+            if q == 16:
+                nb = bits + 3
+                v = 0
+            else:
+                nb = k
+                v = q << k
+        if nb:
+            o = pos & 31
+            wi = pos >> 5
+            if o + nb <= 32:
+                v |= (s[wi] >> (32 - o - nb)) & ((1 << nb) - 1)
+            else:
+                m = o + nb - 32
+                hi = s[wi] & ((1 << (32 - o)) - 1)
+                v |= (hi << m) | ((s[wi + 1] >> (32 - m)) & ((1 << m) - 1))
+            pos += nb
+        if i < order:
+            x = v
+        else:
+            e = v >> 1
+            if v & 1:
+                e = 0 - e - 1
+            if order == 0:
+                x = e
+            elif order == 1:
+                x = h1 + e
+            else:
+                x = h1 + h1 - h2 + e
+        h2 = h1
+        h1 = x
+        p = x
+        if rev:
+            r = 0
+            b = 0
+            while b < bits:
+                r = (r << 1) | ((p >> b) & 1)
+                b += 1
+            p = r
+        p = p ^ inv
+        if right:
+            word |= p << (slot * bits)
+        else:
+            word |= p << (32 - (slot + 1) * bits)
+        slot += 1
+        if slot == spw:
+            d[nw] = word
+            nw += 1
+            word = 0
+            slot = 0
+        i += 1
+    return nw
+"""
+
+#: The player's way through a compressed ``.bin``: the block index, then each block's
+#: bit stream read and decoded into the buffer that is not playing.
+LOSSLESS_PLAY = """\
+    def _play_lossless(self, loop: bool) -> None:
+        blocks, per_block, samples, _stream_words, longest = LOSSLESS
+        index = array.array("I", bytes(4 * (blocks + 1)))
+        src = array.array("I", bytes(4 * (longest + 1)))
+        cfg = array.array("i", [0, BITS, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
+                                ((1 << BITS) - 1) if INVERTED else 0])
+        with open(self.path, "rb") as f:
+            f.readinto(memoryview(index)[:blocks])
+            index[blocks] = LOSSLESS[3]
+            base = 4 * blocks
+
+            def block(b: int, buf: "array.array[int]") -> int:
+                f.seek(base + 4 * index[b])
+                f.readinto(memoryview(src)[: index[b + 1] - index[b]])
+                cfg[0] = min(per_block, samples - b * per_block)
+                return _lossless_block(src, buf, cfg)
+
+            which, b = 0, 1
+            n = block(0, self.bufs[0])  # decoded before the machine runs
+            self._intro()
+            self._send(self.bufs[0], n)
+            if INTRO is None:
+                self._go()
+            while True:
+                if b == blocks:
+                    if not (loop and self.running):
+                        break
+                    b = 0  # a loop ends only on a pass boundary
+                which ^= 1
+                buf = self.bufs[which]
+                n = block(b, buf)  # the next block while this one plays
+                b += 1
+                if not self.running and not LOOP:
+                    self._abort_to(IDLE_CODE)  # a stream stops at once, ramping down
+                    return
+                self.prev_word = self.cur[self.cur_n - 1]
+                self._send(buf, n)
+
+"""
 
 
 #: ``jmp`` conditions in MicroPython's rp2.asm_pio notation.

@@ -219,11 +219,12 @@ class LadderOutput:
             if isinstance(asset.packed.layout, StereoLadderLayout)
             else templates.player("ladderpack_player")
         )
-        return {
-            f"{n}.bin": binary.render_chunks(asset.packed),
+        ll = asset.lossless
+        return {  # a compressed stream's .bin is its compressed form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if ll is None else ll.to_bytes(),
             f"{n}.h": c.render_header(asset).encode(),
             f"{n}.c": c.render_source_chunks(asset),
-            f"{n}.py": micropython.render(asset, embed=embed).encode(),
+            f"{n}.py": micropython.render(asset, embed=embed and ll is None).encode(),
             f"{n}.pio": pioasm.render(asset).encode(),
             **player,
         }
