@@ -497,8 +497,9 @@ def _render(spec: AssetSpec) -> _Rendered:
         "bits": asset.packed.layout.bits,
         "samples": asset.sample_count,
         "words": asset.word_count,
-        "bytes": asset.byte_count,
-        "data": f"{spec.name}_words",
+        # flash taken: a compressed stream's compressed form, which has no words array
+        "bytes": asset.byte_count if asset.lossless is None else asset.lossless.nbytes,
+        "data": f"{spec.name}_words" if asset.lossless is None else None,
     }
     return files, entry
 
@@ -522,7 +523,8 @@ def _index_files(entries: list[dict[str, Any]]) -> dict[str, bytes]:
         "    unsigned long samples; /* samples or table entries */",
         "    unsigned long words;   /* 32-bit FIFO words (0 for tables) */",
         "    unsigned long bytes;   /* flash taken */",
-        "    const uint32_t *words_data; /* the stream's words, or NULL */",
+        "    const uint32_t *words_data; /* the stream's words, or NULL (a table, or a",
+        "                                * compressed stream: see its <NAME>_LADDER_INIT) */",
         "} ladderpack_asset_t;",
         "",
         f"#define LADDERPACK_ASSET_COUNT {len(rows)}u",

@@ -327,3 +327,36 @@ def test_manifest_values_checked_by_the_model(tmp_path: Path, asset: str, messag
     with pytest.raises(LadderpackError) as info:
         load_manifest(path)
     assert str(info.value).startswith(f"{path}: {message}"), str(info.value)
+
+
+def test_a_compressed_asset_counts_its_compressed_bytes(project: Path, tmp_path: Path) -> None:
+    # 60 000 bytes for streams: the spoken clip at 8 bits is 88 916 bytes raw and 31 824
+    # compressed, so it fits only compressed, and the build's flash total says so
+    text = MANIFEST.replace(
+        "out_base = 16\n", "out_base = 16\nflash_bytes = 300000\nflash_reserve_bytes = 240000\n"
+    ).replace('clip = "clips/speech.flac"\nbits = 10\n', 'clip = "clips/speech.flac"\n')
+    text = text.split('[[asset]]\nname = "tone"')[0]  # chime and speech only
+    (project / "ladderpack.toml").write_text(text)
+    with pytest.raises(LadderpackError, match="flash"):
+        _build(project)
+    for clip in ("chime", "speech"):
+        line = f'clip = "clips/{clip}.flac"\n'
+        text = text.replace(line, line + 'compress = "lossless"\n')
+    (project / "ladderpack.toml").write_text(text)
+    built, _ = _build(project)
+    assert built == ["chime", "speech"]
+    ns: dict[str, object] = {}
+    exec((project / "gen" / "assets.py").read_text(), ns)
+    rows = {r[0]: r for r in ns["ASSETS"]}  # type: ignore[attr-defined]
+    assert rows["speech"][7] == (project / "gen" / "speech.bin").stat().st_size < 88916 // 2
+    c = (project / "gen" / "assets.c").read_text()
+    assert "speech_words" not in c and "chime_words" not in c  # no words array: NULL
+    gcc = shutil.which("gcc")
+    if gcc:  # the index and the compressed sources compile together (gcc, Debian)
+        gen = project / "gen"
+        for src in ("assets.c", "speech.c", "chime.c"):
+            subprocess.run(
+                [gcc, "-std=c11", "-Wall", "-Wextra", "-Werror", "-fsyntax-only",
+                 "-I", str(gen), str(gen / src)],
+                check=True, capture_output=True,
+            )  # fmt: skip
