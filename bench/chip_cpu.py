@@ -65,6 +65,7 @@ class Case:
     options: dict[str, object]
     loop: bool = False
     extra: dict[str, object] | None = None
+    clip: str | None = None  # a demo clip instead of a tone (its whole length plays)
 
 
 def cases() -> list[Case]:
@@ -72,6 +73,18 @@ def cases() -> list[Case]:
     return [
         Case("ladder, stream", "ladder", {"bits": 8, "rate_hz": RATE_HZ}),
         Case("ladder, loop", "ladder", {"bits": 8, "rate_hz": RATE_HZ, "loop": True}, True),
+        Case(
+            "ladder, compressed spoken demo clip",
+            "ladder",
+            {"bits": 8, "rate_hz": RATE_HZ, "compress": "lossless"},
+            clip="frost_warning.flac",
+        ),
+        Case(
+            "ladder, compressed chime demo clip, 12-bit",
+            "ladder",
+            {"bits": 12, "rate_hz": RATE_HZ, "compress": "lossless"},
+            clip="door_chime.flac",
+        ),
         Case(
             "stereo ladder, stream",
             "ladder",
@@ -91,6 +104,10 @@ def cases() -> list[Case]:
 
 def _asset(case: Case, name: str, seconds: float) -> Any:  # a StreamAsset
     opts = dict(case.options)
+    if case.clip is not None:
+        from ladderpack.stream import stream_clip
+
+        return stream_clip(str(ROOT / "demo_audio" / case.clip), name=name, **opts)
     if case.loop:
         opts["cycles"] = 20
     else:
@@ -125,7 +142,7 @@ def c_row(fw: Firmware, work: Path, case: Case, seconds: float) -> str:
     stems = list(entry.players)
     header = f"{stems[1] if stereo else stems[0]}.h"
     macro = ("STEREO" if stereo else short.upper()) + "_INIT"
-    play_us = int(seconds * 1e6)
+    play_us = int((asset.duration_s if case.clip else seconds) * 1e6)
     ops = [("init", 0), ("start", 1 if case.loop else 0), ("sleep", play_us)]
     ops += [("request_stop", 0)] if case.loop else []
     ops += [("sleep_wait", 2000)]
@@ -140,7 +157,7 @@ def c_row(fw: Firmware, work: Path, case: Case, seconds: float) -> str:
         init_args="&player, &stream" if case.output == "pwm" else "&player, &stream, pio0",
     )
     image = fw.make(folder, [], [], app=app)
-    r = run(image, fw.mailbox(), max_cycles=int(SYS_HZ * (seconds + 2)), extra=case.extra)
+    r = run(image, fw.mailbox(), max_cycles=int(SYS_HZ * (play_us / 1e6 + 2)), extra=case.extra)
     if not r.ended:
         raise SystemExit(f"{case.label}: the firmware did not finish")
     bad = [rc for rc in r.results() if rc != 0]
@@ -217,6 +234,17 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
         ("ladder, file stream", "mpf", Case("", "ladder", {"bits": 8, "rate_hz": RATE_HZ}), False),
         ("ladder, embedded", "mpe", Case("", "ladder", {"bits": 8, "rate_hz": RATE_HZ}), True),
         (
+            "ladder, compressed spoken demo clip",
+            "mpz",
+            Case(
+                "",
+                "ladder",
+                {"bits": 8, "rate_hz": RATE_HZ, "compress": "lossless"},
+                clip="frost_warning.flac",
+            ),
+            False,
+        ),
+        (
             "ladder, file loop",
             "mpl",
             Case("", "ladder", {"bits": 8, "rate_hz": RATE_HZ, "loop": True}, True),
@@ -270,7 +298,7 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
             }
         )
     r = run_micropython(
-        files, steps, work, max_cycles=int(SYS_HZ * (len(specs) * (seconds + 1) + 3)), i2c=BUS
+        files, steps, work, max_cycles=int(SYS_HZ * (len(specs) * (seconds + 1) + 8)), i2c=BUS
     )
     found = re.findall(r"RESULT (\d+) (\d+) (-?\d+)", r.output())
     if len(found) != len(specs):
