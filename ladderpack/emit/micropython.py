@@ -424,8 +424,10 @@ LEVELS_EMBED_MAX_BITS = 10
 
 
 def _with_lossless(text: str, asset: StreamAsset) -> str:
-    """The module of a compressed stream: its description, the decoder, the player's way
-    through the compressed ``.bin``."""
+    """The module of a compressed stream.
+
+    Its description, the decoder, and the player's way through the compressed ``.bin``.
+    """
     ll = asset.lossless
     assert ll is not None
     desc = (

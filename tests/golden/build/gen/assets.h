@@ -13,7 +13,8 @@ typedef struct ladderpack_asset {
     unsigned long samples; /* samples or table entries */
     unsigned long words;   /* 32-bit FIFO words (0 for tables) */
     unsigned long bytes;   /* flash taken */
-    const uint32_t *words_data; /* the stream's words, or NULL */
+    const uint32_t *words_data; /* the stream's words, or NULL (a table, or a
+                                * compressed stream: see its <NAME>_LADDER_INIT) */
 } ladderpack_asset_t;
 
 #define LADDERPACK_ASSET_COUNT 3u
