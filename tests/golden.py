@@ -68,6 +68,22 @@ SCENARIOS: dict[str, list[list[str]]] = {
             "0",
         ],
     ],
+    "clip_8bit_lossless": [
+        [
+            "stream",
+            "{chime}",
+            "-o",
+            ".",
+            "--name",
+            "zchime",
+            "--bits",
+            "8",
+            "--rate-hz",
+            "8000",
+            "--compress",
+            "lossless",
+        ],
+    ],
     "tone_12bit_loop": [
         [
             "tone",
