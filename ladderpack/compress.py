@@ -275,6 +275,8 @@ class _Bits:
     def read(self, n: int) -> int:
         v = 0
         for _ in range(n):
+            if self.pos >> 5 >= len(self.words):
+                raise OptionError("the bit stream ends inside a block", field="compression")
             w = self.words[self.pos >> 5]
             v = (v << 1) | ((w >> (31 - (self.pos & 31))) & 1)
             self.pos += 1
@@ -294,6 +296,11 @@ def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarr
     -------
     numpy.ndarray
         The codes from that block to the end, int64.
+
+    Raises
+    ------
+    OptionError
+        For a damaged stream: it ends inside a block, or gives a code outside the width.
     """
     out: list[int] = []
     nb = int(stream.block_words.size)
@@ -319,6 +326,11 @@ def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarr
                 else:
                     pred = 2 * hist[-1] - hist[-2]
                 x = pred + e
+            if not 0 <= x < 1 << stream.bits:
+                raise OptionError(
+                    f"block {b} decodes to {x}, outside 0..{(1 << stream.bits) - 1}",
+                    field="compression",
+                )
             hist.append(x)
             out.append(x)
     return np.array(out, dtype=np.int64)

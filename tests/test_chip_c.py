@@ -215,8 +215,16 @@ def test_loop_stop_at_many_points_ends_on_a_pass_boundary(
 
 def test_stop_a_stream_ramps_from_where_it_is(fw: Firmware, tmp_path: Path) -> None:
     s = make(tmp_path, "cut", seconds=0.002, level_dbfs=-0.5, ramp_ms=0.004)
+    stops_ramp_from_where_they_are(fw, tmp_path, s, (1 / 7, 1 / 3, 1 / 2, 4 / 5))
+
+
+def stops_ramp_from_where_they_are(
+    fw: Firmware, tmp_path: Path, s: Stream, shares: tuple[float, ...]
+) -> None:
+    """Play `s` and stop it 10 clocks in and at each share of its length (busy-wait
+    clocks); every playback is a prefix of the stream, then a ramp to idle."""
     total = int(s.codes.size * s.layout.sample_period_clocks)
-    delays = [10, total // 7, total // 3, total // 2, (4 * total) // 5]
+    delays = [10, *(int(total * f) for f in shares)]
     steps = [Step("init", 0, 0)]
     for d in delays:
         steps += [Step("start"), Step("delay", 0, d), Step("request_stop"), Step("wait")]

@@ -153,6 +153,7 @@ from test_chip_c import (  # noqa: E402
     decompose_loop,
     play_once_steps,
     played,
+    stops_ramp_from_where_they_are,
 )
 from test_chip_micropython import assert_ok  # noqa: E402
 from test_chip_micropython import played as mp_played  # noqa: E402
@@ -195,19 +196,9 @@ def test_compressed_streams_play_every_sample(fw: Firmware, tmp_path: Path) -> N
 
 def test_a_compressed_stream_stops_from_where_it_is(fw: Firmware, tmp_path: Path) -> None:
     s = make(tmp_path, "zcut", seconds=0.004, level_dbfs=-0.5, ramp_ms=0.004, compress="lossless")
-    total = int(s.codes.size * s.layout.sample_period_clocks)
     # the delays are busy-wait clocks: the refills' interrupts stretch them (by about a
     # third at this rate), so the last stop comes at about 4/5 of the stream
-    delays = [10, total // 7, total // 3, total // 2, (3 * total) // 5]
-    steps = [Step("init", 0, 0)]
-    for d in delays:
-        steps += [Step("start"), Step("delay", 0, d), Step("request_stop"), Step("wait")]
-    r = run(fw.make(tmp_path, [s.name], steps), fw.mailbox())
-    assert all(rc == 0 for rc in r.results())
-    for k in range(len(delays)):
-        codes, times = played(r, s, 1 + 4 * k, 4 + 4 * k)
-        s.assert_cut_short(codes)
-        assert_period(times, s)
+    stops_ramp_from_where_they_are(fw, tmp_path, s, (1 / 7, 1 / 3, 1 / 2, 3 / 5))
 
 
 @pytest.mark.parametrize("program", ["loop", "autopull"])

@@ -14,6 +14,7 @@ Multimedia Association's recommended practice (1992) with its tables typed in ag
 
 from __future__ import annotations
 
+import contextlib
 import warnings
 from pathlib import Path
 from typing import Any
@@ -238,3 +239,31 @@ def test_the_micropython_decoder_gives_the_stream_words(bits: int, layout: str) 
         )
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == asset.packed.words.tolist()
+
+
+def test_a_damaged_stream_is_refused_with_a_message() -> None:
+    from ladderpack.errors import OptionError
+
+    x = sine_codes(3000, 8)
+    s = cz.encode_lossless(x, 8)
+    data = s.to_bytes()
+    back = cz.lossless_from_bytes(data, bits=8, samples=s.samples, block_samples=1024, blocks=3)
+    np.testing.assert_array_equal(cz.decode_lossless(back), x)
+    with pytest.raises(OptionError, match="block offsets"):
+        cz.lossless_from_bytes(data[:8], bits=8, samples=s.samples, block_samples=1024, blocks=3)
+    with pytest.raises(OptionError, match="out of order"):
+        bad = np.frombuffer(data, "<u4").copy()
+        bad[1], bad[2] = bad[2], bad[1]
+        cz.lossless_from_bytes(bad.tobytes(), bits=8, samples=s.samples, block_samples=1024,
+                               blocks=3)  # fmt: skip
+    cut = cz.lossless_from_bytes(data[: len(data) - 200], bits=8, samples=s.samples,
+                                 block_samples=1024, blocks=3)  # fmt: skip
+    with pytest.raises(OptionError, match=r"ends inside a block|outside"):
+        cz.decode_lossless(cut)
+    rng = np.random.default_rng(5)
+    for _ in range(20):  # random damage: a message, never another exception
+        noisy = np.frombuffer(data, "<u4").copy()
+        noisy[3 + rng.integers(0, noisy.size - 3)] ^= np.uint32(1 << int(rng.integers(0, 32)))
+        with contextlib.suppress(OptionError):
+            cz.decode_lossless(cz.lossless_from_bytes(noisy.tobytes(), bits=8,
+                               samples=s.samples, block_samples=1024, blocks=3))  # fmt: skip
