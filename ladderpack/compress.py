@@ -51,11 +51,13 @@ __all__ = [
     "IMA_STEPS",
     "AdpcmStream",
     "LosslessStream",
+    "adpcm_from_bytes",
     "decode_adpcm",
     "decode_lossless",
     "encode_adpcm",
     "encode_lossless",
     "lossless_from_bytes",
+    "sinad_db",
 ]
 
 #: Codes a lossless block holds (the last block may be shorter).
@@ -388,6 +390,35 @@ class AdpcmStream:
     def nbytes(self) -> int:
         """Bytes of the packed codes and the block headers."""
         return int(self.packed.size) + 4 * int(self.headers.size)
+
+    def to_bytes(self) -> bytes:
+        """The file form: the block headers (little-endian words), then the packed codes."""
+        return self.headers.astype("<u4").tobytes() + self.packed.tobytes()
+
+
+def adpcm_from_bytes(data: bytes, *, samples: int, block_samples: int) -> AdpcmStream:
+    """Read :meth:`AdpcmStream.to_bytes` back (the sidecar gives the numbers).
+
+    Raises
+    ------
+    OptionError
+        When the data is not that long, or a header's step index is out of range.
+    """
+    blocks = -(-samples // block_samples) if samples else 0
+    need = 4 * blocks + (samples + 1) // 2
+    if samples < 0 or block_samples < 2 or len(data) != need:
+        raise OptionError(
+            f"expected {blocks} block headers and {(samples + 1) // 2} bytes of codes "
+            f"({need} bytes), got {len(data)}",
+            field="compression",
+        )
+    headers = np.frombuffer(data[: 4 * blocks], dtype="<u4").astype(np.uint32)
+    if np.any((headers >> 16) > 88):
+        raise OptionError("a block header's step index is above 88", field="compression")
+    raw = np.frombuffer(data[4 * blocks :], dtype=np.uint8)
+    nibbles = np.empty(2 * raw.size, dtype=np.uint8)
+    nibbles[0::2], nibbles[1::2] = raw & 15, raw >> 4
+    return AdpcmStream(samples, block_samples, headers, nibbles[:samples])
 
 
 def _ima_step(pred: int, index: int, code: int) -> tuple[int, int]:

@@ -92,6 +92,7 @@ PLAYER_FILES: dict[str, str] = {
 #: player or an application includes to turn a compressed stream back into codes.
 DECODER_FILES: dict[str, str] = {
     "ladderpack_lossless": "the lossless code-stream decoder",
+    "ladderpack_adpcm": "the IMA ADPCM decoder",
 }
 
 
