@@ -267,3 +267,46 @@ def test_a_damaged_stream_is_refused_with_a_message() -> None:
         with contextlib.suppress(OptionError):
             cz.decode_lossless(cz.lossless_from_bytes(noisy.tobytes(), bits=8,
                                samples=s.samples, block_samples=1024, blocks=3))  # fmt: skip
+
+
+class _Words:
+    """A host stand-in for viper's ``ptr32`` on a words array: stores 32-bit patterns."""
+
+    def __init__(self, a: Any) -> None:
+        self.a = a
+
+    def __getitem__(self, i: int) -> int:
+        return int(self.a[i])
+
+    def __setitem__(self, i: int, v: int) -> None:
+        self.a[i] = v & 0xFFFFFFFF
+
+
+def test_the_micropython_adpcm_decoder_gives_the_reference_samples() -> None:
+    import array
+    import types
+
+    from ladderpack.emit.micropython import ADPCM_DECODER
+
+    space: dict[str, object] = {
+        "array": array,
+        "micropython": types.SimpleNamespace(viper=lambda f: f),
+        "ptr8": lambda a: a,
+        "ptr16": lambda a: a,
+        "ptr32": _Words,
+    }
+    exec(ADPCM_DECODER, space)  # our own generated source
+    decode = space["_adpcm_block"]
+    x = voice(5000)
+    s = cz.encode_adpcm(x, block_samples=1000)
+    want = cz.decode_adpcm(s)
+    packed = s.packed
+    for b, h in enumerate(s.headers.tolist()):
+        pred, index = (h & 0xFFFF) - ((h & 0x8000) << 1), h >> 16
+        n = min(1000, s.samples - 1000 * b)
+        src = bytes(packed[500 * b : 500 * b + (n + 1) // 2])
+        dst = array.array("I", bytes(4 * n))
+        assert decode(src, dst, array.array("i", [n, pred, index])) == n  # type: ignore[operator]
+        got = [((w >> 16) ^ 0x8000) - 0x8000 for w in dst]
+        assert got == want[1000 * b : 1000 * b + n].tolist()
+        assert all((w >> 16) == (w & 0xFFFF) for w in dst)  # the sample in both halves

@@ -843,6 +843,66 @@ def _lossless_block(src, dst, cfg) -> int:
     return nw
 """
 
+#: The IMA ADPCM block decoder (ladderpack.compress; IMA 1992) in viper: one block's
+#: codes (two a byte, the earlier in the low nibble) into words holding the sample in
+#: both 16-bit halves (a mono I2S frame). Plain Python too, with the pointer casts as
+#: views (the tests run it on the host against the reference decoder).
+ADPCM_DECODER = """\
+
+_IMA_STEPS = array.array("H", [
+    7, 8, 9, 10, 11, 12, 13, 14, 16, 17, 19, 21, 23, 25, 28, 31, 34, 37, 41, 45, 50, 55,
+    60, 66, 73, 80, 88, 97, 107, 118, 130, 143, 157, 173, 190, 209, 230, 253, 279, 307,
+    337, 371, 408, 449, 494, 544, 598, 658, 724, 796, 876, 963, 1060, 1166, 1282, 1411,
+    1552, 1707, 1878, 2066, 2272, 2499, 2749, 3024, 3327, 3660, 4026, 4428, 4871, 5358,
+    5894, 6484, 7132, 7845, 8630, 9493, 10442, 11487, 12635, 13899, 15289, 16818, 18500,
+    20350, 22385, 24623, 27086, 29794, 32767])
+
+
+@micropython.viper
+def _adpcm_block(src, dst, cfg) -> int:
+    # cfg: samples in the block, its predictor, its step index; returns the words
+    s = ptr8(src)
+    d = ptr32(dst)
+    c = ptr32(cfg)
+    st = ptr16(_IMA_STEPS)
+    n = c[0]
+    pred = c[1]
+    index = c[2]
+    d[0] = (pred << 16) | (pred & 0xFFFF)
+    i = 1
+    while i < n:
+        code = (s[i >> 1] >> ((i & 1) << 2)) & 15
+        step = st[index]
+        diff = step >> 3
+        if code & 4:
+            diff += step
+        if code & 2:
+            diff += step >> 1
+        if code & 1:
+            diff += step >> 2
+        if code & 8:
+            pred -= diff
+        else:
+            pred += diff
+        if pred > 32767:
+            pred = 32767
+        elif pred < -32768:
+            pred = -32768
+        m = code & 7
+        if m < 4:
+            index -= 1
+        else:
+            index += (m - 3) << 1
+        if index < 0:
+            index = 0
+        elif index > 88:
+            index = 88
+        d[i] = (pred << 16) | (pred & 0xFFFF)
+        i += 1
+    return n
+"""
+
+
 #: The player's way through a compressed ``.bin``: the block index, then each block's
 #: bit stream read and decoded into the buffer that is not playing.
 LOSSLESS_PLAY = """\
