@@ -13,6 +13,7 @@
 
 #include "pico.h"
 #include "hardware/dma.h"
+#include "hardware/irq.h"
 #include "hardware/pio.h"
 
 /* (1 + cos(pi k / 64)) / 2 in Q15, k = 0..64: the shape of the ramps made at run time. */
@@ -72,6 +73,145 @@ static inline bool lp_common_gpio_base(PIO pio, uint base) {
     (void)pio;
     return base == 0u;
 #endif
+}
+
+/* -- a compressed stream played from two RAM buffers -----------------------------------
+ * Two DMA channels play two buffers in turn, each chained to the other; when one
+ * finishes, a shared DMA_IRQ_0 handler fills its buffer again (the player's `fill`
+ * decodes the next words) and re-arms it while the other plays. `fill` returns 0 words
+ * when nothing is left and sets `at_end` when the words it gave end the stream (a loop's
+ * pass: a fill never crosses a pass, so a loop can stop on one). The buffer after which
+ * nothing follows chains to `end_ch` (a tail channel, or -1 for none). Each player's
+ * source file keeps its own table of rings by channel and its own handler. */
+typedef struct lp_common_ring lp_common_ring_t;
+typedef uint32_t (*lp_common_fill_t)(lp_common_ring_t *r, uint32_t *words, uint32_t max);
+
+struct lp_common_ring {
+    int ch[2];                /* the channels of buffer 0 and buffer 1 */
+    int end_ch;               /* the channel after the last buffer, or -1 */
+    uint32_t *buf[2];
+    uint32_t size;            /* words in each buffer */
+    uint32_t count[2];        /* words in each buffer now */
+    uint8_t cur;              /* the buffer playing (or next to play) */
+    bool done;                /* the last buffer is queued */
+    bool at_end;              /* set by fill: its words end the stream or the pass */
+    uint32_t tail_word;       /* the last word played before the current buffer */
+    lp_common_fill_t fill;
+    void *owner;              /* the player */
+};
+
+static lp_common_ring_t *lp_common_rings[NUM_DMA_CHANNELS] __attribute__((unused));
+static bool lp_common_ring_handler_added __attribute__((unused));
+
+static inline void lp_common_set_chain(int ch, int to) {
+    uint32_t ctrl = dma_hw->ch[ch].al1_ctrl;
+    ctrl = (ctrl & ~DMA_CH0_CTRL_TRIG_CHAIN_TO_BITS)
+           | ((uint32_t)(to >= 0 ? to : ch) << DMA_CH0_CTRL_TRIG_CHAIN_TO_LSB);
+    dma_hw->ch[ch].al1_ctrl = ctrl;
+}
+
+/* Buffer `which` has played: remember its last word, fill it again and re-arm its channel
+ * (the other is playing); with nothing left, the other buffer is the last. */
+static inline void lp_common_ring_refill(lp_common_ring_t *r, uint32_t which) {
+    int ch = r->ch[which];
+    uint32_t n;
+    r->tail_word = r->buf[which][r->count[which] - 1u];
+    r->cur = (uint8_t)(which ^ 1u);
+    if (r->done) {
+        return;
+    }
+    n = r->fill(r, r->buf[which], r->size);
+    r->count[which] = n;
+    if (n == 0u) {
+        lp_common_set_chain(r->ch[which ^ 1u], r->end_ch);
+        r->done = true;
+        return;
+    }
+    dma_channel_set_read_addr((uint)ch, r->buf[which], false);
+    dma_channel_set_trans_count((uint)ch, n, false);
+}
+
+static inline void lp_common_ring_handler(void) {
+    uint32_t pending = dma_hw->ints0;
+    uint ch;
+    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+        lp_common_ring_t *r = lp_common_rings[ch];
+        if (r != NULL && (pending & (1u << ch))) {
+            dma_hw->ints0 = 1u << ch;
+            lp_common_ring_refill(r, (int)ch == r->ch[1] ? 1u : 0u);
+        }
+    }
+}
+
+/* Turn the ring's completion interrupts on or off (off also clears pending ones). */
+static inline void lp_common_ring_irq(lp_common_ring_t *r, bool on) {
+    uint32_t m = (1u << (uint)r->ch[0]) | (1u << (uint)r->ch[1]);
+    if (on) {
+        lp_common_rings[r->ch[0]] = r;
+        lp_common_rings[r->ch[1]] = r;
+        dma_hw->ints0 = m;
+        dma_hw->inte0 |= m;
+        if (!lp_common_ring_handler_added) {
+            irq_add_shared_handler(DMA_IRQ_0, lp_common_ring_handler,
+                                   PICO_SHARED_IRQ_HANDLER_DEFAULT_ORDER_PRIORITY);
+            lp_common_ring_handler_added = true;
+        }
+        irq_set_enabled(DMA_IRQ_0, true);
+    } else {
+        dma_hw->inte0 &= ~m;
+        dma_hw->ints0 = m;
+        lp_common_rings[r->ch[0]] = NULL;
+        lp_common_rings[r->ch[1]] = NULL;
+    }
+}
+
+/* Fill both buffers (the tail word before them: `before`), configure the two channels
+ * to feed state machine `sm` of `pio`, each chained to the other, and turn the interrupt
+ * on. Nothing starts: buffer 0's channel is the first to trigger. */
+static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm, uint32_t before) {
+    uint32_t n0, n1;
+    r->done = false;
+    r->at_end = false;
+    r->cur = 0u;
+    r->tail_word = before;
+    n0 = r->count[0] = r->fill(r, r->buf[0], r->size);
+    n1 = r->count[1] = r->fill(r, r->buf[1], r->size);
+    if (n1 == 0u) {
+        r->done = true;
+        lp_common_feed(pio, sm, r->ch[0], r->buf[0], n0, r->end_ch >= 0 ? r->end_ch : r->ch[0],
+                       false);
+    } else {
+        lp_common_feed(pio, sm, r->ch[0], r->buf[0], n0, r->ch[1], false);
+        lp_common_feed(pio, sm, r->ch[1], r->buf[1], n1, r->ch[0], false);
+    }
+    lp_common_ring_irq(r, true);
+}
+
+/* After the channels were aborted (interrupt off first): the last word sent to the FIFO. */
+static inline uint32_t lp_common_ring_last_sent(const lp_common_ring_t *r) {
+    uint32_t x = r->cur;
+    uint32_t prev = r->tail_word;
+    uint32_t sent;
+    int ch = r->ch[x];
+    if (dma_hw->ints0 & (1u << (uint)ch)) { /* it has played; its refill never ran */
+        prev = r->buf[x][r->count[x] - 1u];
+        x ^= 1u;
+        ch = r->ch[x];
+    }
+    sent = (uint32_t)(dma_hw->ch[ch].read_addr - (uint32_t)(uintptr_t)r->buf[x]) / 4u;
+    if (sent > r->count[x]) {
+        sent = r->count[x];
+    }
+    return sent ? r->buf[x][sent - 1u] : prev;
+}
+
+/* A loop asked to stop: if the buffer queued next ends the pass, it is the last one (else
+ * the next fill finds nothing, the loop no longer going on). Interrupts off around it. */
+static inline void lp_common_ring_end_pass(lp_common_ring_t *r) {
+    if (!r->done && r->at_end) {
+        lp_common_set_chain(r->ch[r->cur ^ 1u], r->end_ch);
+        r->done = true;
+    }
 }
 
 #endif /* LADDERPACK_COMMON_H */

@@ -26,6 +26,7 @@
 
 #include "hardware/pio.h"
 
+#include "ladderpack_common.h"
 #include "ladderpack_lossless.h"
 
 /* Words of RAM per player for ramps built at run time (stop, hold). A ramp that needs
@@ -117,12 +118,9 @@ typedef struct lp_ladder_player {
     uint32_t ramp[LP_LADDER_RAMP_WORDS];
     /* a compressed stream: the decoder and the two buffers data_ch and ring_ch play */
     int ring_ch;
-    uint8_t ring_cur;            /* the buffer playing (or next to play) */
-    bool ring_done;              /* the last buffer is queued */
-    uint32_t ring_tail_word;     /* the last word played before the current buffer */
-    uint32_t ring_count[2];
     lp_lossless_t dec;
-    uint32_t ring[2][LP_LADDER_RING_WORDS];
+    struct lp_common_ring ring;
+    uint32_t ring_buf[2][LP_LADDER_RING_WORDS];
 } lp_ladder_player_t;
 
 /* Claim a state machine and the DMA channels (two for a stream, four for a loop, one more

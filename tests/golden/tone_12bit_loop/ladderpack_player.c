@@ -5,7 +5,6 @@
 #include "pico.h"
 #include "hardware/clocks.h"
 #include "hardware/dma.h"
-#include "hardware/irq.h"
 #include "hardware/sync.h"
 #include "hardware/pio.h"
 
@@ -182,27 +181,24 @@ static void lp_ladder_release(lp_ladder_player_t *p) {
     p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
 }
 
-/* -- compressed streams: two RAM buffers, refilled from DMA_IRQ_0 as the other plays ---- */
+/* -- compressed streams: two RAM buffers (lp_common_ring_t) -------------------------- */
 
-static lp_ladder_player_t *lp_ladder_ring_owner[NUM_DMA_CHANNELS];
-static bool lp_ladder_irq_added;
-
-/* Decode the next words of the stream into buffer `which`; returns how many. A fill ends
- * at the end of the codes (a loop's pass), so a pass always ends with a buffer; the next
- * fill of a loop that goes on starts the next pass. */
-static uint32_t lp_ladder_fill(lp_ladder_player_t *p, uint32_t which) {
+/* The ring's fill: decode the next words of the stream. A fill ends at the end of the
+ * codes (a loop's pass); the next fill of a loop that goes on starts the next pass. */
+static uint32_t lp_ladder_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_ladder_player_t *p = (lp_ladder_player_t *)r->owner;
     const lp_ladder_stream_t *s = p->stream;
     uint32_t spw = s->samples_per_word;
     uint32_t n = 0u;
     uint16_t codes[32];
-    if (p->dec.block + 1u >= s->lossless->block_count && p->dec.done == p->dec.in_block) {
+    if (r->at_end) {
         if (!p->looping) {
-            p->ring_count[which] = 0u;
             return 0u; /* the end */
         }
         lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+        r->at_end = false;
     }
-    while (n < LP_LADDER_RING_WORDS) {
+    while (n < max) {
         uint32_t got = lp_lossless_decode(&p->dec, codes, spw);
         uint32_t word = 0u;
         uint32_t k;
@@ -212,122 +208,31 @@ static uint32_t lp_ladder_fill(lp_ladder_player_t *p, uint32_t which) {
         for (k = 0u; k < got; ++k) {
             word |= lp_ladder_pins_of(s, codes[k]) << lp_ladder_slot_shift(s, k);
         }
-        p->ring[which][n++] = word;
+        words[n++] = word;
     }
-    p->ring_count[which] = n;
+    r->at_end = p->dec.block + 1u >= s->lossless->block_count && p->dec.done == p->dec.in_block;
     return n;
 }
 
-static int lp_ladder_ring_channel(const lp_ladder_player_t *p, uint32_t which) {
-    return which ? p->ring_ch : p->data_ch;
-}
-
-/* The channel that follows the last buffer: the tail (a loop's outro, or the closing idle
- * word of the loop program), or none. */
-static int lp_ladder_ring_end(const lp_ladder_player_t *p) {
-    const lp_ladder_stream_t *s = p->stream;
-    bool closing = s->loop || s->program_kind == LP_LADDER_PROGRAM_LOOP;
-    return closing ? p->tail_ch : -1;
-}
-
-static void lp_ladder_set_chain(int ch, int to) {
-    uint32_t ctrl = dma_hw->ch[ch].al1_ctrl;
-    ctrl = (ctrl & ~DMA_CH0_CTRL_TRIG_CHAIN_TO_BITS)
-           | ((uint32_t)(to >= 0 ? to : ch) << DMA_CH0_CTRL_TRIG_CHAIN_TO_LSB);
-    dma_hw->ch[ch].al1_ctrl = ctrl;
-}
-
-/* Buffer `which` has played: remember its last word, fill it again and re-arm its channel
- * (the other is playing); with nothing left, the other buffer is the last. */
-static void lp_ladder_refill(lp_ladder_player_t *p, uint32_t which) {
-    int ch = lp_ladder_ring_channel(p, which);
-    uint32_t n;
-    p->ring_tail_word = p->ring[which][p->ring_count[which] - 1u];
-    p->ring_cur = (uint8_t)(which ^ 1u);
-    if (p->ring_done) {
-        return;
-    }
-    n = lp_ladder_fill(p, which);
-    if (n == 0u) {
-        lp_ladder_set_chain(lp_ladder_ring_channel(p, which ^ 1u), lp_ladder_ring_end(p));
-        p->ring_done = true;
-        return;
-    }
-    dma_channel_set_read_addr((uint)ch, p->ring[which], false);
-    dma_channel_set_trans_count((uint)ch, n, false);
-}
-
-static void lp_ladder_dma_irq(void) {
-    uint32_t pending = dma_hw->ints0;
-    uint ch;
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        lp_ladder_player_t *p = lp_ladder_ring_owner[ch];
-        if (p != NULL && (pending & (1u << ch))) {
-            dma_hw->ints0 = 1u << ch;
-            lp_ladder_refill(p, (int)ch == p->ring_ch ? 1u : 0u);
-        }
-    }
-}
-
-static void lp_ladder_ring_irq(lp_ladder_player_t *p, bool on) {
-    uint32_t m = (1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch);
-    if (on) {
-        lp_ladder_ring_owner[p->data_ch] = p;
-        lp_ladder_ring_owner[p->ring_ch] = p;
-        dma_hw->ints0 = m;
-        dma_hw->inte0 |= m;
-        if (!lp_ladder_irq_added) {
-            irq_add_shared_handler(DMA_IRQ_0, lp_ladder_dma_irq,
-                                   PICO_SHARED_IRQ_HANDLER_DEFAULT_ORDER_PRIORITY);
-            lp_ladder_irq_added = true;
-        }
-        irq_set_enabled(DMA_IRQ_0, true);
-    } else {
-        dma_hw->inte0 &= ~m;
-        dma_hw->ints0 = m;
-        lp_ladder_ring_owner[p->data_ch] = NULL;
-        lp_ladder_ring_owner[p->ring_ch] = NULL;
-    }
-}
-
-/* The last word sent to the FIFO (for a stop's ramp), with the interrupt off. */
-static uint32_t lp_ladder_ring_last_sent(const lp_ladder_player_t *p) {
-    uint32_t x = p->ring_cur;
-    uint32_t prev = p->ring_tail_word;
-    uint32_t sent;
-    int ch = lp_ladder_ring_channel(p, x);
-    if (dma_hw->ints0 & (1u << (uint)ch)) { /* it has played; its refill never ran */
-        prev = p->ring[x][p->ring_count[x] - 1u];
-        x ^= 1u;
-        ch = lp_ladder_ring_channel(p, x);
-    }
-    sent = (uint32_t)(dma_hw->ch[ch].read_addr - (uint32_t)(uintptr_t)p->ring[x]) / 4u;
-    if (sent > p->ring_count[x]) {
-        sent = p->ring_count[x];
-    }
-    return sent ? p->ring[x][sent - 1u] : prev;
-}
-
-/* Fill both buffers and chain their channels to each other. Returns the first channel. */
+/* Fill both buffers and chain their channels to each other (the tail after the last:
+ * a loop's outro, or the closing idle word of the loop program). Returns the first
+ * channel. */
 static __noinline int lp_ladder_setup_ring(lp_ladder_player_t *p) {
     const lp_ladder_stream_t *s = p->stream;
-    uint32_t n0, n1;
+    lp_common_ring_t *r = &p->ring;
+    bool closing = s->loop || s->program_kind == LP_LADDER_PROGRAM_LOOP;
     lp_lossless_start(&p->dec, s->lossless, 0u);
-    p->ring_done = false;
-    p->ring_cur = 0u;
-    p->ring_tail_word = s->idle_word;
-    n0 = lp_ladder_fill(p, 0u);
-    n1 = lp_ladder_fill(p, 1u);
+    r->ch[0] = p->data_ch;
+    r->ch[1] = p->ring_ch;
+    r->end_ch = closing ? p->tail_ch : -1;
+    r->buf[0] = p->ring_buf[0];
+    r->buf[1] = p->ring_buf[1];
+    r->size = LP_LADDER_RING_WORDS;
+    r->fill = lp_ladder_fill;
+    r->owner = p;
     lp_ladder_feed(p, p->tail_ch, s->outro != NULL ? s->outro : p->ramp,
                    s->outro != NULL ? s->outro_count : 1u, p->tail_ch, false);
-    if (n1 == 0u) {
-        p->ring_done = true;
-        lp_ladder_feed(p, p->data_ch, p->ring[0], n0, lp_ladder_ring_end(p) >= 0 ? p->tail_ch : p->data_ch, false);
-    } else {
-        lp_ladder_feed(p, p->data_ch, p->ring[0], n0, p->ring_ch, false);
-        lp_ladder_feed(p, p->ring_ch, p->ring[1], n1, p->data_ch, false);
-    }
-    lp_ladder_ring_irq(p, true);
+    lp_common_ring_start(r, p->pio, p->sm, s->idle_word);
     if (s->intro == NULL) {
         return p->data_ch;
     }
@@ -343,6 +248,7 @@ int lp_ladder_init(lp_ladder_player_t *p, const lp_ladder_stream_t *s, PIO pio) 
 
     p->stream = NULL;
     p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+    p->ring.owner = NULL;
     p->state = LP_LADDER_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_LADDER_ERR_CLOCK;
@@ -544,12 +450,7 @@ int lp_ladder_request_stop(lp_ladder_player_t *p) {
          * playing one is the last. */
         uint32_t irq = save_and_disable_interrupts();
         p->looping = false;
-        if (!p->ring_done && p->dec.done == p->dec.in_block
-            && p->dec.block + 1u >= s->lossless->block_count) {
-            /* the queued buffer ends this pass: it is the last one */
-            lp_ladder_set_chain(lp_ladder_ring_channel(p, p->ring_cur ^ 1u), lp_ladder_ring_end(p));
-            p->ring_done = true;
-        }
+        lp_common_ring_end_pass(&p->ring);
         restore_interrupts(irq);
         return LP_LADDER_OK;
     }
@@ -569,8 +470,8 @@ int lp_ladder_request_stop(lp_ladder_player_t *p) {
     if (s->lossless != NULL) {
         dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
         lp_ladder_abort_all(p);
-        last = lp_ladder_ring_last_sent(p);
-        lp_ladder_ring_irq(p, false);
+        last = lp_common_ring_last_sent(&p->ring);
+        lp_common_ring_irq(&p->ring, false);
     } else {
         lp_ladder_abort_all(p);
         sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
@@ -647,8 +548,8 @@ void lp_ladder_deinit(lp_ladder_player_t *p) {
         }
     }
     lp_ladder_abort_all(p);
-    if (p->ring_ch >= 0) {
-        lp_ladder_ring_irq(p, false);
+    if (p->ring_ch >= 0 && p->ring.owner == p) {
+        lp_common_ring_irq(&p->ring, false);
     }
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_ladder_release(p);
