@@ -14,7 +14,7 @@ import numpy as np
 
 from ladderpack.budget import Budget
 from ladderpack.clock import ClockPlan
-from ladderpack.compress import LosslessStream
+from ladderpack.compress import AdpcmStream, LosslessStream
 from ladderpack.pack import Packed, pack, unpack
 from ladderpack.pio import Program, StateMachineConfig
 from ladderpack.quantize import Codes
@@ -102,6 +102,9 @@ class StreamAsset:
     lossless : LosslessStream, optional
         The codes of every slot of `packed`, compressed (``--compress lossless``): what
         the bundle stores and the players decode back into the same words.
+    adpcm : AdpcmStream, optional
+        The samples coded as IMA ADPCM (``--compress adpcm``): what the bundle stores;
+        `packed` then holds the words it decodes to, which the players send.
     """
 
     name: str
@@ -120,6 +123,7 @@ class StreamAsset:
     levels_volts: np.ndarray | None = None
     setup: Any = None
     lossless: LosslessStream | None = None
+    adpcm: AdpcmStream | None = None
 
     @functools.cached_property
     def max_step(self) -> int:

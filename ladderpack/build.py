@@ -489,6 +489,7 @@ def _render(spec: AssetSpec) -> _Rendered:
     else:
         asset = stream_tone(spec.source, name=spec.name, tone=parts[1], options=parts[0])
     files = bundle_files(asset)
+    comp = asset.lossless if asset.lossless is not None else asset.adpcm
     entry = {
         "name": spec.name,
         "kind": spec.kind,
@@ -498,8 +499,8 @@ def _render(spec: AssetSpec) -> _Rendered:
         "samples": asset.sample_count,
         "words": asset.word_count,
         # flash taken: a compressed stream's compressed form, which has no words array
-        "bytes": asset.byte_count if asset.lossless is None else asset.lossless.nbytes,
-        "data": f"{spec.name}_words" if asset.lossless is None else None,
+        "bytes": asset.byte_count if comp is None else comp.nbytes,
+        "data": f"{spec.name}_words" if comp is None else None,
     }
     return files, entry
 

@@ -101,6 +101,11 @@ class LosslessStream:
         return 4 * (int(self.words.size) + int(self.block_words.size))
 
     @property
+    def blocks(self) -> int:
+        """Blocks it holds."""
+        return int(self.block_words.size)
+
+    @property
     def max_block_words(self) -> int:
         """Words of the longest block (what a decoder that reads block by block holds)."""
         ends = np.append(self.block_words[1:], self.words.size).astype(np.int64)
@@ -377,6 +382,11 @@ class AdpcmStream:
     block_samples: int
     headers: np.ndarray
     nibbles: np.ndarray
+
+    @property
+    def blocks(self) -> int:
+        """Blocks it holds."""
+        return int(self.headers.size)
 
     @property
     def packed(self) -> np.ndarray:

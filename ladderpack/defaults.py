@@ -75,7 +75,7 @@ PIN_ORDERS = ("msb-high", "msb-low")
 PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
 #: How a stream may be stored (ladderpack.compress): as packed words, or compressed
 #: without loss and decoded on the chip.
-COMPRESS_CHOICES = ("none", "lossless")
+COMPRESS_CHOICES = ("none", "lossless", "adpcm")
 
 #: OUT shift directions.
 SHIFTS = ("right", "left")

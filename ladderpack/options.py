@@ -630,9 +630,10 @@ class StreamOptions(_Model):
     crossfade_ms: float = _opt(0.0, "Loops: crossfade of the end onto the start.", unit="ms", lo=0)
     compress: str = _opt(
         "none",
-        "Store the stream compressed and decode it on the chip: lossless keeps every code "
-        "(prediction and Rice codes; the C player decodes it into two RAM buffers from a "
-        "DMA interrupt, about 90 clocks a sample).",
+        "Store the stream compressed and decode it on the chip (the C players into two RAM "
+        "buffers from a DMA interrupt): lossless keeps every code (ladder; prediction and "
+        "Rice codes), adpcm keeps 4 bits a sample (IMA ADPCM; 16-bit mono I2S; lossy, its "
+        "SINAD is reported).",
         choices=COMPRESS_CHOICES,
         group="compress",
     )

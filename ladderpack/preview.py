@@ -117,12 +117,23 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
 
 
 def _decompressed(words: np.ndarray, comp: Any, model: Any, bin_path: str) -> np.ndarray:
-    """The words of a compressed stream's ``.bin`` (``--compress lossless``), decoded."""
+    """The words of a compressed stream's ``.bin`` (``--compress lossless`` or ``adpcm``)."""
     from ladderpack.compress import decode_lossless, lossless_from_bytes
     from ladderpack.pack import pack
     from ladderpack.quantize import Codes
 
     try:
+        if comp.get("kind") == "adpcm":  # 16-bit mono I2S: the sample in both halves
+            from ladderpack.compress import adpcm_from_bytes, decode_adpcm
+
+            d = decode_adpcm(
+                adpcm_from_bytes(
+                    words.tobytes(),
+                    samples=int(comp["samples"]),
+                    block_samples=int(comp["block_samples"]),
+                )
+            )
+            return (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
         if comp.get("kind") != "lossless":
             raise OptionError(f"unknown compression {comp.get('kind')!r}", field="compression")
         layout = model.layout

@@ -32,7 +32,7 @@ from ladderpack.asset import StreamAsset
 from ladderpack.audio import Signal, check_signal, sha256_file
 from ladderpack.budget import Budget, TargetProfile, check_budget, stream_budget
 from ladderpack.clock import RATED_SYS_CLOCK_HZ, pll_settings
-from ladderpack.compress import LosslessStream
+from ladderpack.compress import AdpcmStream, LosslessStream
 from ladderpack.defaults import STAGES, default_band_hz, default_ntf_max_db
 from ladderpack.emit.names import asset_identifier
 from ladderpack.errors import OptionError
@@ -754,7 +754,9 @@ def finish(
     opts, part = plan.options, plan.part
     assert part is not None
     lossless = _compressed(done.packed, opts)
-    stored = done.packed.words.size if lossless is None else lossless.nbytes // 4
+    adpcm, packed, sinad = _adpcm(done.packed, opts)
+    comp = lossless if lossless is not None else adpcm
+    stored = packed.words.size if comp is None else -(-comp.nbytes // 4)
     total = stored + sum(p.words.size for p in (done.intro, done.outro) if p is not None)
     budget = stream_budget(
         total,
@@ -829,12 +831,12 @@ def finish(
         stats["warnings"] = warnings
     if done.tone:
         stats["tone"] = done.tone
-    if lossless is not None:
-        stats["compression"] = _compression_stats(lossless, done.packed, budget)
+    if comp is not None:
+        stats["compression"] = _compression_stats(comp, packed, budget, sinad)
     asset = StreamAsset(
         plan.name,
-        done.codes,
-        done.packed,
+        done.codes if adpcm is None else None,
+        packed,
         plan.clock,
         plan.program,
         plan.sm,
@@ -848,6 +850,7 @@ def finish(
         levels_volts=None if plan.levels is None else plan.levels.volts,
         setup=part.setup,
         lossless=lossless,
+        adpcm=adpcm,
     )
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step
@@ -873,23 +876,57 @@ def _compressed(packed: Packed, opts: StreamOptions) -> LosslessStream | None:
     return encode_lossless(slots, packed.layout.bits, block_samples=block_words * spw)
 
 
-def _compression_stats(lossless: LosslessStream, packed: Packed, budget: Budget) -> dict[str, Any]:
-    """Sizes, the ratio and the longest stream that fits, compressed at this ratio."""
+def _adpcm(packed: Packed, opts: StreamOptions) -> tuple[AdpcmStream | None, Packed, float]:
+    """The stream coded for ``--compress adpcm``, and what it decodes to.
+
+    16-bit mono I2S: the sample is in both halves of a word. Returns the coded stream,
+    the words it decodes to (what the players send: they replace the packed words), and
+    the SINAD of those against the uncompressed samples, dB.
+    """
+    if getattr(opts, "compress", "none") != "adpcm":
+        return None, packed, math.inf
+    import dataclasses
+
+    from ladderpack.compress import decode_adpcm, encode_adpcm, sinad_db
+
+    w = packed.words.astype(np.int64)
+    x = ((w >> 16) ^ 0x8000) - 0x8000
+    # blocks no longer than a MicroPython player's buffer (a word a sample), even, so
+    # each block's codes start on a byte
+    block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2)
+    coded = encode_adpcm(x, block_samples=block)
+    d = decode_adpcm(coded)
+    words = (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
+    return coded, dataclasses.replace(packed, words=words), sinad_db(x, d)
+
+
+def _compression_stats(
+    comp: LosslessStream | AdpcmStream, packed: Packed, budget: Budget, sinad: float
+) -> dict[str, Any]:
+    """Sizes, the ratio and the longest stream that fits, compressed at this ratio.
+
+    For ADPCM also the SINAD of the decoded samples against the uncompressed ones.
+    """
     raw = 4 * int(packed.words.size)
-    ratio = raw / lossless.nbytes if lossless.nbytes else 1.0
+    ratio = raw / comp.nbytes if comp.nbytes else 1.0
     seconds = packed.sample_count / float(budget.rate_hz)
     avail = budget.target.flash_available_bytes
-    fit = avail / lossless.nbytes * seconds if lossless.nbytes else 0.0
-    return {
-        "kind": "lossless",
-        "bytes": lossless.nbytes,
+    fit = avail / comp.nbytes * seconds if comp.nbytes else 0.0
+    lossless = isinstance(comp, LosslessStream)
+    out: dict[str, Any] = {
+        "kind": "lossless" if lossless else "adpcm",
+        "bytes": comp.nbytes,
         "raw_bytes": raw,
         "ratio": round(ratio, 4),
-        "blocks": int(lossless.block_words.size),
-        "block_samples": lossless.block_samples,
-        "samples": lossless.samples,
+        "blocks": comp.blocks,
+        "block_samples": comp.block_samples,
+        "samples": comp.samples,
         "max_duration_s": round(fit, 3),
     }
+    if not lossless:
+        out["sinad_db"] = round(sinad, 3) if math.isfinite(sinad) else None
+        out["pcm16_ratio"] = round(2 * comp.samples / comp.nbytes, 4) if comp.nbytes else 1.0
+    return out
 
 
 #: Share of half-scale the shaped noise's peak (4 sigma) may take before the summary warns

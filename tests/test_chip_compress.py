@@ -420,3 +420,99 @@ def decode_all(path):
     # 50 %): one second of samples decoded in this many microseconds (measured: 47622)
     assert int(spent_us) < 500_000, spent_us
     print(f"micropython adpcm: {int(spent_us) / 1e4:.1f} % of the CPU at 22.05 kHz")
+
+
+# -- I2S with IMA ADPCM ---------------------------------------------------------------------
+# A 16-bit mono I2S stream made with --compress adpcm: the C player decodes it into two RAM
+# buffers from the DMA interrupt, the MicroPython player block by block in viper. Every
+# frame on the lines (the I2S test's own decoder, tests/test_chip_i2s.py) is compared with
+# the host's reference decoder of the bundle's .bin (ladderpack.compress, itself checked
+# against audioop and the recommended practice in tests/test_compress.py).
+
+import test_chip_i2s  # noqa: E402
+from test_chip_i2s import CLOCK, DATA, decode_i2s, frames_of  # noqa: E402
+
+
+def adpcm_bundle(folder: Path, name: str, **opts: object) -> test_chip_i2s.Expected:
+    """Write the ADPCM I2S bundle; the frames as the reference decoder makes them."""
+    import json
+
+    from ladderpack.bundle import write_bundle
+
+    base: dict[str, object] = {
+        "output": "i2s", "freq_hz": 440.0, "seconds": 0.06, "rate_hz": 22050.0,
+        "data_pin": DATA, "bit_clock_pin": CLOCK, "level_dbfs": -1.0, "compress": "adpcm",
+    }  # fmt: skip
+    base.update(opts)
+    if "cycles" in opts:
+        base.pop("seconds")
+    write_bundle(stream_tone("sine", name=name, **base), folder)
+    side = json.loads((folder / f"{name}.json").read_text())
+    comp = side["stats"]["compression"]
+    # 4 bits a sample and a header word a block (blocks of 256 samples here: 3.86x)
+    assert comp["kind"] == "adpcm" and comp["pcm16_ratio"] > 3.8 and comp["sinad_db"] > 20
+    coded = cz.adpcm_from_bytes(
+        (folder / f"{name}.bin").read_bytes(),
+        samples=comp["samples"],
+        block_samples=comp["block_samples"],
+    )
+    d = cz.decode_adpcm(coded)
+    clk = side["clock"]
+    return test_chip_i2s.Expected(
+        name, 16, d, d, 128 * (clk["div_int"] + clk["div_frac"] / 256),
+        side["options"]["frame_format"],
+    )  # fmt: skip
+
+
+def test_i2s_adpcm_c_plays_every_frame_and_fades_on_a_stop(fw: Firmware, tmp_path: Path) -> None:
+    exp = adpcm_bundle(tmp_path, "zadp", chunk_words=256)
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zadp", [("init", 0), ("start", 0), ("wait", 0)])
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    np.testing.assert_array_equal(left, exp.left)
+    np.testing.assert_array_equal(right, exp.right)
+    test_chip_i2s.assert_period(t, exp)
+    # stopped about half way: a prefix of the frames, then a fade to silence
+    stop_at = int(exp.left.size * 0.5 * exp.period_clocks)
+    ops = [("init", 0), ("start", 0), ("delay", stop_at), ("stop", 0)]
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zadp", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, _t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    n = 0
+    while n < left.size and left[n] == exp.left[n]:
+        n += 1
+    assert 100 < n < exp.left.size - 100, n
+    fade = left[n:]
+    assert fade.size <= 64 + 1 and fade[-1] == 0 and right[-1] == 0
+    assert np.all(np.abs(fade[1:]) <= np.abs(fade[:-1]) + 1)  # never grows
+
+
+def test_i2s_adpcm_c_loop_ends_on_a_pass(fw: Firmware, tmp_path: Path) -> None:
+    exp = adpcm_bundle(tmp_path, "zadl", loop=True, cycles=30, freq_hz=2205.0)
+    frames = exp.left.size
+    ops = [("init", 0), ("start", 1), ("delay", int(2.5 * frames * 5669)), ("stop", 0)]
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zadl", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, _right, _t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    passes, rest = divmod(left.size - 1, frames)  # the outro: one silent frame
+    assert rest == 0 and passes >= 3, (left.size, frames)
+    np.testing.assert_array_equal(left[:-1], np.tile(exp.left, passes))
+    assert left[-1] == 0
+
+
+def test_i2s_adpcm_micropython_plays_every_frame(tmp_path: Path) -> None:
+    from ladderpack.bundle import bundle_files
+
+    exp = adpcm_bundle(tmp_path, "zadm", chunk_words=256)
+    made = bundle_files(stream_tone("sine", name="zadm", output="i2s", freq_hz=440.0,
+                                    seconds=0.06, rate_hz=22050.0, data_pin=DATA,
+                                    bit_clock_pin=CLOCK, level_dbfs=-1.0, compress="adpcm",
+                                    chunk_words=256))  # fmt: skip
+    files = {"zadm.py": made["zadm.py"], "zadm.bin": made["zadm.bin"]}
+    r = run_micropython(files, [{"code": "import zadm\nzadm.play()\n"}], tmp_path,
+                        watch_pins=[DATA, CLOCK, CLOCK + 1])  # fmt: skip
+    assert_ok(r)
+    left, right, t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    np.testing.assert_array_equal(left, exp.left)
+    np.testing.assert_array_equal(right, exp.right)
+    test_chip_i2s.assert_period(t, exp)

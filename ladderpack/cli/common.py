@@ -79,9 +79,17 @@ def _print_summary(summary: Mapping[str, Any], files: list[str] | None = None) -
         )
     comp = summary.get("compression")
     if comp:
+        extra = ""
+        if comp["kind"] == "adpcm":
+            sinad = comp.get("sinad_db")
+            extra = f"; {comp['pcm16_ratio']:.2f}x against 16-bit PCM" + (
+                f"; SINAD {sinad:.1f} dB against the uncompressed samples"
+                if sinad is not None
+                else ""
+            )
         click.echo(
             f"  compress {comp['kind']}: {comp['bytes']} bytes for {comp['raw_bytes']} of "
-            f"words ({comp['ratio']:.2f}x), decoded on the chip"
+            f"words ({comp['ratio']:.2f}x{extra}), decoded on the chip"
         )
     if summary.get("flash_share") is not None:
         click.echo(

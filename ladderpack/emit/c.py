@@ -258,7 +258,7 @@ def _array_lines(words: np.ndarray, digits: int, block: int = 1 << 16) -> Iterat
     per = _WORDS_PER_LINE
     if n == 0:
         return
-    dtype = {8: ">u4", 4: ">u2"}[digits]
+    dtype = {8: ">u4", 4: ">u2", 2: "u1"}[digits]
     literal = "0x" + "0" * digits + "u"
     template = np.frombuffer(("    " + ", ".join([literal] * per) + ",\n").encode(), np.uint8)
     step = len(literal) + 2
@@ -342,6 +342,27 @@ def _lossless_lines(asset: StreamAsset) -> Iterator[str]:
     yield "};"
 
 
+def _adpcm_lines(asset: StreamAsset) -> Iterator[str]:
+    """The ADPCM-coded samples: the block headers, the codes and their description."""
+    ad, n, prefix = asset.adpcm, asset.name, asset.name.upper()
+    assert ad is not None
+    yield "/* The samples as IMA ADPCM (ladderpack_adpcm.h): per block its starting predictor"
+    yield " * (low half) and step index (bits 16..22), then the codes, two a byte. */"
+    yield f"static const uint32_t {n}_adpcm_headers[{prefix}_ADPCM_BLOCK_COUNT] = {{"
+    yield from _array_lines(ad.headers, 8)
+    yield "};"
+    yield f"static const uint8_t {n}_adpcm_codes[{prefix}_ADPCM_CODE_BYTES] = {{"
+    yield from _array_lines(ad.packed, 2)
+    yield "};"
+    yield f"const lp_adpcm_stream_t {n}_adpcm = {{"
+    yield f"    {n}_adpcm_headers,"
+    yield f"    {n}_adpcm_codes,"
+    yield f"    {prefix}_ADPCM_BLOCK_COUNT,"
+    yield f"    {ad.block_samples}u,"
+    yield f"    {ad.samples}u"
+    yield "};"
+
+
 def chunked(lines: Iterable[str], chunk_chars: int = 1 << 20) -> Iterator[bytes]:
     """Lines joined with newlines, as byte chunks of about `chunk_chars`.
 
@@ -413,11 +434,21 @@ def fifo_stream_header(
     n, prefix = asset.name, asset.name.upper()
     lines = header_frame(asset, defines)
     lines += pll_lines(asset)
-    lines += [
-        "",
-        f"extern const uint32_t {n}_words[{prefix}_WORD_COUNT];",
-        f"extern const uint16_t {n}_program[{prefix}_PROGRAM_LENGTH];",
-    ]
+    if asset.adpcm is not None:
+        ad = asset.adpcm
+        lines += [
+            "",
+            "/* Stored as IMA ADPCM (--compress adpcm, ladderpack_adpcm.h): the player decodes",
+            " * the samples and sends the words they make. */",
+            '#include "ladderpack_adpcm.h"',
+            f"#define {prefix}_ADPCM_BLOCK_COUNT {ad.blocks}u /* blocks of {ad.block_samples} "
+            "samples */",
+            f"#define {prefix}_ADPCM_CODE_BYTES {int(ad.packed.size)}u /* two codes a byte */",
+            f"extern const lp_adpcm_stream_t {n}_adpcm;",
+        ]
+    else:
+        lines += ["", f"extern const uint32_t {n}_words[{prefix}_WORD_COUNT];"]
+    lines += [f"extern const uint16_t {n}_program[{prefix}_PROGRAM_LENGTH];"]
     for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
         if _count(part):
             count = f"{prefix}_{key.upper()}_WORD_COUNT"
@@ -438,10 +469,13 @@ def fifo_stream_source_lines(
     yield from _banner(asset).split("\n")
     yield f'#include "{n}.h"'
     yield ""
-    yield from words_note
-    yield f"const uint32_t {n}_words[{prefix}_WORD_COUNT] = {{"
-    yield from _array_lines(asset.packed.words, 8)
-    yield "};"
+    if asset.adpcm is not None:
+        yield from _adpcm_lines(asset)
+    else:
+        yield from words_note
+        yield f"const uint32_t {n}_words[{prefix}_WORD_COUNT] = {{"
+        yield from _array_lines(asset.packed.words, 8)
+        yield "};"
     for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
         if part is not None and _count(part):
             yield ""

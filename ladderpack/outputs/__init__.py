@@ -149,7 +149,7 @@ REGISTRY: tuple[Entry, ...] = (
         "i2s",
         "ladderpack.outputs.i2s",
         "an I2S DAC or amplifier on three GPIOs",
-        frozenset({"width", "stereo", "serial", "i2s"}),
+        frozenset({"width", "stereo", "serial", "i2s", "compress"}),
         renamed={"out_base": "data_pin", "clock_pin": "bit_clock_pin"},
         players={"ladderpack_i2s": "the I2S C player"},
     ),

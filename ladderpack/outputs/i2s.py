@@ -507,7 +507,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     n, P = asset.name, asset.name.upper()
     outro = f"{n}_outro_words" if asset.loop else "NULL"
     fields = [
-        f"{n}_words",
+        f"{n}_words" if asset.adpcm is None else "NULL",
         f"{P}_WORD_COUNT",
         outro,
         f"{P}_OUTRO_WORD_COUNT",
@@ -525,6 +525,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_LOOP",
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_GPIO_BASE",
+        f"&{n}_adpcm" if asset.adpcm is not None else "NULL",
     ]
     return init_macro("lp_i2s_stream_t", "ladderpack_i2s.h", f"{P}_I2S_INIT", fields)
 
@@ -808,7 +809,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
     words_literal = (
         ("WORDS = " + _literal(asset.packed)) if embed else "WORDS = None  # read from BIN_FILE"
     )
-    return set_clock_after(
+    text = set_clock_after(
         _TEMPLATE.format(
             registers=pio_registers_text(target_of(asset.options)),
             version=__version__,
@@ -837,6 +838,94 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         ),
         asset,
     )
+    return text if asset.adpcm is None else _with_adpcm(text, asset)
+
+
+#: An ADPCM stream's way through its ``.bin``: the block headers, then each block's codes
+#: read and decoded into the buffer that is not playing.
+_ADPCM_PLAY = """\
+    def _play_adpcm(self, loop: bool) -> None:
+        blocks, per_block, samples = ADPCM
+        heads = array.array("I", bytes(4 * blocks))
+        src = bytearray(per_block // 2)
+        cfg = array.array("i", [0, 0, 0])
+        self.prev_last = 0
+        with open(self.path, "rb") as f:
+            f.readinto(heads)
+            base = 4 * blocks
+
+            def block(b: int, buf: "array.array[int]") -> int:
+                n = min(per_block, samples - b * per_block)
+                f.seek(base + b * (per_block // 2))
+                f.readinto(memoryview(src)[: (n + 1) // 2])
+                h = heads[b]
+                cfg[0] = n
+                cfg[1] = (h & 0xFFFF) - ((h & 0x8000) << 1)
+                cfg[2] = h >> 16
+                return _adpcm_block(src, buf, cfg)
+
+            which, b = 0, 1
+            n = block(0, self.bufs[0])  # decoded before the machine runs
+            self._send(self.bufs[0], n)
+            self._go()
+            while True:
+                wrap = b == blocks
+                if wrap:
+                    if not (loop and self.running):
+                        break
+                    b = 0  # a loop ends only on a pass boundary
+                which ^= 1
+                buf = self.bufs[which]
+                n = block(b, buf)  # the next block while this one plays
+                b += 1
+                if wrap:
+                    self.sent = -self.cur_n
+                if not self.running and not LOOP:
+                    self._fade_out()  # a stream stops at once, fading out
+                    return
+                self.prev_last = self.cur[self.cur_n - 1]
+                self._send(buf, n)
+
+"""
+
+
+def _with_adpcm(text: str, asset: StreamAsset) -> str:
+    """The module of an ADPCM stream.
+
+    Its description, the decoder, the player's way through the coded ``.bin``, and the
+    words of a fade taken from the buffers.
+    """
+    from ladderpack.emit.micropython import ADPCM_DECODER
+
+    ad = asset.adpcm
+    assert ad is not None
+    desc = (
+        f"# Stored as IMA ADPCM (--compress adpcm): the .bin holds {ad.blocks} block headers, "
+        "then the codes\n# two a byte; each block decodes on its own into frames.\n"
+        f"ADPCM = ({ad.blocks}, {ad.block_samples}, {ad.samples})  # blocks, samples a block, "
+        "samples\n"
+    )
+    pairs = [
+        ("FADE_FRAMES = ", desc + "FADE_FRAMES = "),
+        ("import array\n", "import array\nimport micropython\n"),
+        ("\nclass Player", ADPCM_DECODER + "\n\nclass Player"),
+        (
+            "    def _play_file(self, loop: bool) -> None:\n",
+            _ADPCM_PLAY + "    def _play_file(self, loop: bool) -> None:\n"
+            "        if ADPCM is not None:\n            self._play_adpcm(loop)\n"
+            "            return\n",
+        ),
+        (
+            "    def _word(self, k: int) -> int:\n",
+            "    def _word(self, k: int) -> int:\n"
+            "        if ADPCM is not None:  # the words are in the buffers, not the file\n"
+            "            return self.cur[k - self.sent] if k >= self.sent else self.prev_last\n",
+        ),
+    ]
+    for old, new in pairs:
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    return text
 
 
 def set_clock_after(text: str, asset: StreamAsset) -> str:
@@ -892,6 +981,17 @@ class I2sOutput:
                 f"{pins[2]} (word select), but the target has GPIO 0..{count - 1}"
                 + get_target(opts.target).more_pins_hint(max(pins)),
                 field="bit_clock_pin" if pins[2] >= count else "data_pin",
+            )
+        if opts.compress == "lossless":
+            raise OptionError(
+                "I2S streams are not stored losslessly compressed yet: use --compress adpcm "
+                "(16-bit mono) or none",
+                field="compress",
+            )
+        if opts.compress == "adpcm" and (opts.bits != 16 or opts.stereo):
+            raise OptionError(
+                "IMA ADPCM codes 16-bit samples of one channel: use --bits 16 --mono",
+                field="compress",
             )
         self.gpio_base(opts)
 
@@ -993,12 +1093,12 @@ class I2sOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the I2S player."""
-        n = asset.name
-        return {
-            f"{n}.bin": binary.render_chunks(asset.packed),
+        n, ad = asset.name, asset.adpcm
+        return {  # an ADPCM stream's .bin is its coded form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if ad is None else ad.to_bytes(),
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": render_source_chunks(asset),
-            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            f"{n}.py": render_micropython(asset, embed=embed and ad is None).encode(),
             f"{n}.pio": render_pio(asset).encode(),
             **templates.player("ladderpack_i2s"),
         }

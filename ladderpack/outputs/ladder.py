@@ -100,6 +100,12 @@ class LadderOutput:
                 "writes at most 30 here (two 15-bit ladders)",
                 field="bits",
             )
+        if opts.compress == "adpcm":
+            raise OptionError(
+                "a ladder's codes are dithered, shaped and corrected on the host, which "
+                "ADPCM's loss would undo: use --compress lossless (every code kept)",
+                field="compress",
+            )
         if opts.compress != "none" and opts.stereo:
             raise OptionError(
                 "two ladders are not compressed yet (their codes interleave); "

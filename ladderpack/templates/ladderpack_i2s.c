@@ -6,6 +6,7 @@
 #include "hardware/clocks.h"
 #include "hardware/dma.h"
 #include "hardware/pio.h"
+#include "hardware/sync.h"
 
 #define LP_I2S_IDLE     0u
 #define LP_I2S_PLAYING  1u
@@ -19,25 +20,18 @@ static uint32_t lp_i2s_scale(uint32_t slot, int32_t w, uint32_t bits) {
     return (uint32_t)(int32_t)(v / 32768) & keep;
 }
 
-/* Fill p->fade with the frames that complete frame `frame` (words of it already sent:
- * `done`) and then fade both channels from it to silence. Returns the word count. */
-static __noinline uint32_t lp_i2s_build_fade(lp_i2s_player_t *p, uint32_t frame, uint32_t done) {
+/* Fill p->fade with the frames that fade both channels from slot values `left` and
+ * `right` to silence, after `right` alone if `half` (the FIFO holds half a frame).
+ * Returns the word count. */
+static __noinline uint32_t lp_i2s_fade_from(lp_i2s_player_t *p, uint32_t left, uint32_t right,
+                                            bool half) {
     const lp_i2s_stream_t *s = p->stream;
     uint32_t wpf = s->words_per_frame;
-    uint32_t left;
-    uint32_t right;
     uint32_t n = 0u;
     uint32_t k;
 
-    if (s->bits == 16u) {
-        left = s->words[frame] & 0xFFFF0000u;
-        right = s->words[frame] << 16;
-    } else {
-        left = s->words[frame * 2u];
-        right = s->words[frame * 2u + 1u];
-        if (done == 1u) {
-            p->fade[n++] = right; /* finish the frame the FIFO holds half of */
-        }
+    if (half) {
+        p->fade[n++] = right; /* finish the frame the FIFO holds half of */
     }
     for (k = 1u; k <= LP_I2S_FADE_FRAMES; ++k) {
         int32_t w = (int32_t)lp_common_cosine_q15[k];
@@ -53,6 +47,15 @@ static __noinline uint32_t lp_i2s_build_fade(lp_i2s_player_t *p, uint32_t frame,
     return n;
 }
 
+/* The fade from frame `frame` of the stream's words (words of it already sent: `done`). */
+static uint32_t lp_i2s_build_fade(lp_i2s_player_t *p, uint32_t frame, uint32_t done) {
+    const lp_i2s_stream_t *s = p->stream;
+    if (s->bits == 16u) {
+        return lp_i2s_fade_from(p, s->words[frame] & 0xFFFF0000u, s->words[frame] << 16, false);
+    }
+    return lp_i2s_fade_from(p, s->words[frame * 2u], s->words[frame * 2u + 1u], done == 1u);
+}
+
 static void lp_i2s_feed(lp_i2s_player_t *p, int ch, const uint32_t *words, uint32_t count,
                    int chain, bool now) {
     lp_common_feed(p->pio, p->sm, ch, words, count, chain, now);
@@ -63,6 +66,7 @@ static uint32_t lp_i2s_channel_mask(const lp_i2s_player_t *p) {
     if (p->data_ch >= 0) m |= 1u << (uint)p->data_ch;
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
     if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    if (p->ring_ch >= 0) m |= 1u << (uint)p->ring_ch;
     return m;
 }
 
@@ -75,7 +79,57 @@ static void lp_i2s_release(lp_i2s_player_t *p) {
     if (p->data_ch >= 0) dma_channel_unclaim((uint)p->data_ch);
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
-    p->data_ch = p->tail_ch = p->ctrl_ch = -1;
+    if (p->ring_ch >= 0) dma_channel_unclaim((uint)p->ring_ch);
+    p->data_ch = p->tail_ch = p->ctrl_ch = p->ring_ch = -1;
+}
+
+/* -- ADPCM streams: two RAM buffers (lp_common_ring_t) ------------------------------ */
+
+/* The ring's fill: decode the next samples into frames (the mono sample in both slots).
+ * A fill ends at the end of the samples (a loop's pass). */
+static uint32_t lp_i2s_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_i2s_player_t *p = (lp_i2s_player_t *)r->owner;
+    const lp_i2s_stream_t *s = p->stream;
+    int16_t v[16];
+    uint32_t n = 0u;
+    if (r->at_end) {
+        if (!p->looping) {
+            return 0u; /* the end */
+        }
+        lp_adpcm_start(&p->dec, s->adpcm, 0u); /* the next pass */
+        r->at_end = false;
+    }
+    while (n < max) {
+        uint32_t want = max - n < 16u ? max - n : 16u;
+        uint32_t got = lp_adpcm_decode(&p->dec, v, want);
+        uint32_t k;
+        if (got == 0u) {
+            break;
+        }
+        for (k = 0u; k < got; ++k) {
+            uint32_t u = (uint32_t)(uint16_t)v[k];
+            words[n++] = (u << 16) | u;
+        }
+    }
+    r->at_end = p->dec.block + 1u >= s->adpcm->block_count && p->dec.done == p->dec.in_block;
+    return n;
+}
+
+/* Fill both buffers and chain their channels to each other (a loop's outro after the
+ * last). */
+static __noinline void lp_i2s_setup_ring(lp_i2s_player_t *p) {
+    const lp_i2s_stream_t *s = p->stream;
+    lp_common_ring_t *r = &p->ring;
+    lp_adpcm_start(&p->dec, s->adpcm, 0u);
+    r->ch[0] = p->data_ch;
+    r->ch[1] = p->ring_ch;
+    r->end_ch = s->loop ? p->tail_ch : -1;
+    r->buf[0] = p->ring_buf[0];
+    r->buf[1] = p->ring_buf[1];
+    r->size = LP_I2S_RING_WORDS;
+    r->fill = lp_i2s_fill;
+    r->owner = p;
+    lp_common_ring_start(r, p->pio, p->sm, 0u);
 }
 
 int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {
@@ -84,7 +138,8 @@ int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {
     int offset;
 
     p->stream = NULL;
-    p->data_ch = p->tail_ch = p->ctrl_ch = -1;
+    p->data_ch = p->tail_ch = p->ctrl_ch = p->ring_ch = -1;
+    p->ring.owner = NULL;
     p->state = LP_I2S_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_I2S_ERR_CLOCK;
@@ -101,10 +156,13 @@ int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->loop) {
+    if (s->adpcm != NULL) {
+        p->ring_ch = dma_claim_unused_channel(false);
+    } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)) {
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->adpcm == NULL && p->ctrl_ch < 0)
+        || (s->adpcm != NULL && p->ring_ch < 0)) {
         lp_i2s_release(p);
         return LP_I2S_ERR_NO_DMA;
     }
@@ -171,6 +229,12 @@ int lp_i2s_start(lp_i2s_player_t *p, bool loop) {
     if (s->loop) {
         lp_i2s_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     }
+    if (s->adpcm != NULL) {
+        lp_i2s_setup_ring(p);
+        p->state = LP_I2S_PLAYING;
+        lp_i2s_run_from(p, p->data_ch);
+        return LP_I2S_OK;
+    }
     if (p->looping) {
         /* The control channel writes the start address into the data channel's
          * read-address trigger register each time the data channel finishes. */
@@ -224,6 +288,23 @@ int lp_i2s_request_stop(lp_i2s_player_t *p) {
         return LP_I2S_OK;
     }
     p->state = LP_I2S_STOPPING;
+    if (s->adpcm != NULL) {
+        uint32_t last;
+        if (s->loop) { /* end on a pass boundary */
+            uint32_t irq = save_and_disable_interrupts();
+            p->looping = false;
+            lp_common_ring_end_pass(&p->ring);
+            restore_interrupts(irq);
+            return LP_I2S_OK;
+        }
+        dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
+        lp_i2s_abort_all(p);
+        last = lp_common_ring_last_sent(&p->ring);
+        lp_common_ring_irq(&p->ring, false);
+        n = lp_i2s_fade_from(p, last & 0xFFFF0000u, last << 16, false);
+        lp_i2s_feed(p, p->tail_ch, p->fade, n, p->tail_ch, true);
+        return LP_I2S_OK;
+    }
     if (s->loop) {
         /* End on a pass boundary: re-point the data channel's chain to the outro. */
         if (p->looping) {
@@ -259,6 +340,9 @@ void lp_i2s_deinit(lp_i2s_player_t *p) {
     }
     lp_i2s_stop(p);
     lp_i2s_abort_all(p);
+    if (p->ring_ch >= 0 && p->ring.owner == p) {
+        lp_common_ring_irq(&p->ring, false);
+    }
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_i2s_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);

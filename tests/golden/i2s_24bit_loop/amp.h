@@ -60,7 +60,8 @@ extern const uint32_t amp_outro_words[AMP_OUTRO_WORD_COUNT];
     AMP_WORDS_PER_FRAME, \
     AMP_LOOP, \
     AMP_SYS_CLOCK_HZ, \
-    AMP_GPIO_BASE \
+    AMP_GPIO_BASE, \
+    NULL \
 }
 
 #endif /* LADDERPACK_AMP_H */
