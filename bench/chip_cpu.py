@@ -91,6 +91,12 @@ def cases() -> list[Case]:
             {"bits": 8, "rate_hz": RATE_HZ, "stereo": True, "out_base": 0},
         ),
         Case("I2S, stream", "i2s", {"rate_hz": RATE_HZ, "data_pin": 2, "bit_clock_pin": 3}),
+        Case(
+            "I2S, ADPCM spoken demo clip",
+            "i2s",
+            {"rate_hz": RATE_HZ, "data_pin": 2, "bit_clock_pin": 3, "compress": "adpcm"},
+            clip="frost_warning.flac",
+        ),
         Case("PWM, stream", "pwm", {"rate_hz": RATE_HZ, "pwm_pin": 2}),
         Case(
             "I2C DAC, stream",
@@ -254,6 +260,17 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
             "I2S, file stream",
             "mpi",
             Case("", "i2s", {"rate_hz": RATE_HZ, "data_pin": 2, "bit_clock_pin": 3}),
+            False,
+        ),
+        (
+            "I2S, ADPCM spoken demo clip",
+            "mpa",
+            Case(
+                "",
+                "i2s",
+                {"rate_hz": RATE_HZ, "data_pin": 2, "bit_clock_pin": 3, "compress": "adpcm"},
+                clip="frost_warning.flac",
+            ),
             False,
         ),
         (

@@ -84,6 +84,24 @@ SCENARIOS: dict[str, list[list[str]]] = {
             "lossless",
         ],
     ],
+    "i2s_adpcm": [
+        [
+            "tone",
+            "sine",
+            "-o",
+            ".",
+            "--name",
+            "zamp",
+            "--output",
+            "i2s",
+            "--rate-hz",
+            "16000",
+            "--seconds",
+            "0.1",
+            "--compress",
+            "adpcm",
+        ],
+    ],
     "tone_12bit_loop": [
         [
             "tone",
