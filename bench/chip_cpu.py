@@ -113,7 +113,9 @@ def _asset(case: Case, name: str, seconds: float) -> Any:  # a StreamAsset
     if case.clip is not None:
         from ladderpack.stream import stream_clip
 
-        return stream_clip(str(ROOT / "demo_audio" / case.clip), name=name, **opts)
+        return stream_clip(
+            str(ROOT / "demo_audio" / case.clip), name=name, output=case.output, **opts
+        )
     if case.loop:
         opts["cycles"] = 20
     else:
@@ -184,10 +186,6 @@ def c_row(fw: Firmware, work: Path, case: Case, seconds: float) -> str:
         f"| C | {case.label} | {share:.3f} % | {start_clk} | "
         f"{stop_clk if stop_clk is not None else '-'} | {ram} B |"
     )
-
-
-#: Between cases: the last player dropped (its program stays in its PIO block).
-_NEXT = "p = None\n"
 
 
 #: A module on the board's filesystem: a DMA channel whose polls add up their waiting.
@@ -284,12 +282,11 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
             False,
         ),
     ]
-    files: dict[str, bytes] = {"cpu_timed.py": MP_TIMED.encode()}
-    steps: list[dict[str, object]] = []
-    for k, (_label, name, case, embed) in enumerate(specs):
+    rows = []
+    for label, name, case, embed in specs:  # a fresh board each: PIO program space is small
         asset = _asset(case, name, seconds)
         made = bundle_files(asset, embed_words_max=10**7 if embed else 0)
-        files[f"{name}.py"] = made[f"{name}.py"]
+        files = {"cpu_timed.py": MP_TIMED.encode(), f"{name}.py": made[f"{name}.py"]}
         if not embed:
             files[f"{name}.bin"] = made[f"{name}.bin"]
         loop_code = (
@@ -299,29 +296,25 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
             if case.loop
             else ""
         )
-        steps.append(
-            {
-                "code": (
-                    "import time, gc\nfrom cpu_timed import Timed\n" if k == 0 else "p = None\n"
-                )
-                + f"import {name}\ngc.collect()\nm0 = gc.mem_free()\n"
-                # the I2C writer's program on the second PIO block: the first is full
-                + f"p = {name}.Player({'sm_id=4' if case.output == 'i2c-dac' else ''})\n"
-                + "gc.collect()\nram = m0 - gc.mem_free()\np.dma = Timed(p.dma)\n"
-                + loop_code
-                + f"t0 = time.ticks_us()\np.play({'loop=True' if case.loop else ''})\n"
-                + "T = time.ticks_diff(time.ticks_us(), t0)\n"
-                + "print('RESULT', T, p.dma.wait, ram)\np.close()\n"
-            }
+        code = (
+            "import time, gc\nfrom cpu_timed import Timed\n"
+            f"import {name}\ngc.collect()\nm0 = gc.mem_free()\np = {name}.Player()\n"
+            "gc.collect()\nram = m0 - gc.mem_free()\np.dma = Timed(p.dma)\n"
+            + loop_code
+            + f"t0 = time.ticks_us()\np.play({'loop=True' if case.loop else ''})\n"
+            "T = time.ticks_diff(time.ticks_us(), t0)\n"
+            "print('RESULT', T, p.dma.wait, ram)\np.close()\n"
         )
-    r = run_micropython(
-        files, steps, work, max_cycles=int(SYS_HZ * (len(specs) * (seconds + 1) + 8)), i2c=BUS
-    )
-    found = re.findall(r"RESULT (\d+) (\d+) (-?\d+)", r.output())
-    if len(found) != len(specs):
-        raise SystemExit("MicroPython run failed:\n" + r.output()[-3000:])
-    rows = []
-    for (label, *_rest), (t, w, ram) in zip(specs, found, strict=True):
+        play_s = asset.duration_s if case.clip else seconds
+        folder = work / name
+        folder.mkdir()
+        r = run_micropython(
+            files, [{"code": code}], folder, max_cycles=int(SYS_HZ * (play_s + 6)), i2c=BUS
+        )
+        found = re.findall(r"RESULT (\d+) (\d+) (-?\d+)", r.output())
+        if len(found) != 1:
+            raise SystemExit(f"MicroPython run of {label} failed:\n" + r.output()[-3000:])
+        t, w, ram = found[0]
         share = 100.0 * (int(t) - int(w)) / int(t)
         rows.append(f"| MicroPython | {label} | {share:.1f} % | - | - | {ram} B |")
     return rows
