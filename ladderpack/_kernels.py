@@ -18,6 +18,8 @@ import numpy as np
 
 __all__ = [
     "PLAIN_MAX_SAMPLES",
+    "adpcm_trellis_py",
+    "adpcm_trellis_ref",
     "compiled",
     "kernel",
     "levels_quantize_py",
@@ -300,14 +302,14 @@ def levels_quantize_py(
 _COMPILED: dict[str, Callable[..., Any]] = {}
 
 
-def kernel(name: str, samples: int) -> Callable[..., Any]:
-    """The kernel called `name` for a block of `samples`: compiled, or for the interpreter.
+def kernel(name: str, samples: int, plain_max: int = PLAIN_MAX_SAMPLES) -> Callable[..., Any]:
+    """The kernel called `name` for a job of `samples`: compiled, or for the interpreter.
 
-    The interpreter version (``name + "_py"``) serves blocks of at most
-    :data:`PLAIN_MAX_SAMPLES` while numba is not yet loaded; all versions give the
-    same bits (tested), so the choice is only about time.
+    The interpreter version (``name + "_py"``) serves jobs of at most `plain_max`
+    samples (default :data:`PLAIN_MAX_SAMPLES`) while numba is not yet loaded; all
+    versions give the same bits (tested), so the choice is only about time.
     """
-    if name in _COMPILED or samples > PLAIN_MAX_SAMPLES:
+    if name in _COMPILED or samples > plain_max:
         return compiled(name)
     return cast("Callable[..., Any]", globals()[name + "_py"])
 
@@ -326,3 +328,200 @@ def compiled(name: str) -> Callable[..., Any]:
         else:
             _COMPILED[name] = numba.njit(cache=True, nogil=True)(ref)
     return _COMPILED[name]
+
+
+# -- IMA ADPCM: the encoder's trellis search (ladderpack.compress) ---------------------
+#
+# The step and index tables are the compress module's (IMA 1992); they are passed in, so
+# this module stays free of imports. Paths that reach the same (predictor, index) state
+# are merged keeping the smaller squared error (the first met on a tie), then the `width`
+# best are kept in a stable order by error: every version gives the same codes.
+
+
+def adpcm_trellis_py(
+    x: np.ndarray, pred0: int, index0: int, width: int, steps: np.ndarray, out: np.ndarray
+) -> None:
+    """The trellis search on Python lists and a dict (short blocks; the reference's twin)."""
+    table = [int(v) for v in steps]
+    adjust = (-1, -1, -1, -1, 2, 4, 6, 8)
+    paths: list[tuple[int, int, int, int]] = [(0, int(pred0), int(index0), -1)]
+    trail: list[tuple[int, int]] = []
+    for target in (int(v) for v in x):
+        seen: dict[tuple[int, int], tuple[int, int, int, int, int]] = {}
+        for err, pred, index, back in paths:
+            g = _greedy(pred, index, target, table)
+            for code in (g, g ^ 8, (g & 8) | max(0, (g & 7) - 1), (g & 8) | min(7, (g & 7) + 1)):
+                step = table[index]
+                diff = step >> 3
+                if code & 4:
+                    diff += step
+                if code & 2:
+                    diff += step >> 1
+                if code & 1:
+                    diff += step >> 2
+                p = pred - diff if code & 8 else pred + diff
+                p = -32768 if p < -32768 else 32767 if p > 32767 else p
+                i = index + adjust[code & 7]
+                i = 0 if i < 0 else 88 if i > 88 else i
+                e = err + (p - target) * (p - target)
+                old = seen.get((p, i))
+                if old is None or e < old[0]:
+                    seen[(p, i)] = (e, p, i, back, code)
+        paths = []
+        for e, p, i, back, code in sorted(seen.values(), key=lambda t: t[0])[:width]:
+            trail.append((code, back))
+            paths.append((e, p, i, len(trail) - 1))
+    at, k = (paths[0][3] if paths else -1), len(x) - 1
+    while at >= 0:
+        code, at = trail[at]
+        out[k] = code
+        k -= 1
+
+
+def _greedy(pred: int, index: int, target: int, table: list[int]) -> int:
+    step = table[index]
+    diff = target - pred
+    code = 8 if diff < 0 else 0
+    diff = abs(diff)
+    if diff >= step:
+        code |= 4
+        diff -= step
+    step >>= 1
+    if diff >= step:
+        code |= 2
+        diff -= step
+    step >>= 1
+    if diff >= step:
+        code |= 1
+    return code
+
+
+def adpcm_trellis_ref(
+    x: np.ndarray, pred0: int, index0: int, width: int, steps: np.ndarray, out: np.ndarray
+) -> None:
+    """The trellis search on fixed arrays (numba compiles this one; plain numpy too).
+
+    Parameters
+    ----------
+    x : numpy.ndarray
+        int64 target samples of a block (after its first sample).
+    pred0, index0 : int
+        The decoder's predictor and step index before them.
+    width : int
+        Paths kept per sample.
+    steps : numpy.ndarray
+        int64, the 89 IMA step sizes.
+    out : numpy.ndarray
+        uint8, receives one code per sample.
+    """
+    n = x.shape[0]
+    cap = 4 * width
+    p_err = np.zeros(width, np.int64)
+    p_pred = np.zeros(width, np.int64)
+    p_index = np.zeros(width, np.int64)
+    p_back = np.zeros(width, np.int64)
+    c_err = np.zeros(cap, np.int64)
+    c_pred = np.zeros(cap, np.int64)
+    c_index = np.zeros(cap, np.int64)
+    c_back = np.zeros(cap, np.int64)
+    c_code = np.zeros(cap, np.int64)
+    order = np.zeros(cap, np.int64)
+    trail_code = np.zeros(max(1, n * width), np.int64)
+    trail_back = np.zeros(max(1, n * width), np.int64)
+    p_pred[0] = pred0
+    p_index[0] = index0
+    p_back[0] = -1
+    alive = 1
+    kept_steps = 0
+    for t in range(n):
+        target = x[t]
+        nc = 0
+        for j in range(alive):
+            pred = p_pred[j]
+            index = p_index[j]
+            step = steps[index]
+            diff = target - pred
+            g = 0
+            if diff < 0:
+                g = 8
+                diff = -diff
+            s = step
+            if diff >= s:
+                g |= 4
+                diff -= s
+            s >>= 1
+            if diff >= s:
+                g |= 2
+                diff -= s
+            s >>= 1
+            if diff >= s:
+                g |= 1
+            for ci in range(4):
+                if ci == 0:
+                    code = g
+                elif ci == 1:
+                    code = g ^ 8
+                elif ci == 2:
+                    m = (g & 7) - 1
+                    code = (g & 8) | (m if m > 0 else 0)
+                else:
+                    m = (g & 7) + 1
+                    code = (g & 8) | (m if m < 7 else 7)
+                d = step >> 3
+                if code & 4:
+                    d += step
+                if code & 2:
+                    d += step >> 1
+                if code & 1:
+                    d += step >> 2
+                p = pred - d if code & 8 else pred + d
+                if p < -32768:
+                    p = -32768
+                elif p > 32767:
+                    p = 32767
+                m = code & 7
+                i = index - 1 if m < 4 else index + 2 * (m - 3)
+                if i < 0:
+                    i = 0
+                elif i > 88:
+                    i = 88
+                e = p_err[j] + (p - target) * (p - target)
+                found = -1
+                for q in range(nc):
+                    if c_pred[q] == p and c_index[q] == i:
+                        found = q
+                        break
+                if found < 0:
+                    c_err[nc] = e
+                    c_pred[nc] = p
+                    c_index[nc] = i
+                    c_back[nc] = p_back[j]
+                    c_code[nc] = code
+                    nc += 1
+                elif e < c_err[found]:
+                    c_err[found] = e
+                    c_back[found] = p_back[j]
+                    c_code[found] = code
+        for q in range(nc):  # a stable insertion sort of the candidates by error
+            order[q] = q
+            r = q
+            while r > 0 and c_err[order[r - 1]] > c_err[q]:
+                order[r] = order[r - 1]
+                r -= 1
+            order[r] = q
+        alive = nc if nc < width else width
+        for r in range(alive):
+            q = order[r]
+            trail_code[kept_steps] = c_code[q]
+            trail_back[kept_steps] = c_back[q]
+            p_err[r] = c_err[q]
+            p_pred[r] = c_pred[q]
+            p_index[r] = c_index[q]
+            p_back[r] = kept_steps
+            kept_steps += 1
+    at = p_back[0] if n else -1
+    k = n - 1
+    while at >= 0:
+        out[k] = trail_code[at]
+        at = trail_back[at]
+        k -= 1

@@ -31,8 +31,10 @@ Multimedia Association, "Recommended Practices for Enhancing Digital Audio Compa
 in Multimedia Systems", rev. 3.00, 1992: the 89-entry step table and the index
 adjustments). The encoder searches: a trellis over the predictor states keeps the best
 few paths (by squared error) and chooses each code knowing the next ones, instead of
-the greedy choice sample by sample. Blocks of :data:`ADPCM_BLOCK_SAMPLES` restart from
-a stored predictor and step index, so loops and seeks work as for lossless.
+the greedy choice sample by sample (``_kernels.adpcm_trellis_*``: compiled by numba for
+long streams, in plain Python for short ones, the same codes). Blocks of
+:data:`ADPCM_BLOCK_SAMPLES` restart from a stored predictor and step index, so loops and
+seeks work as for lossless.
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ladderpack._kernels import kernel
 from ladderpack.errors import OptionError
 
 __all__ = [
@@ -354,8 +357,17 @@ IMA_STEPS = (
     5894, 6484, 7132, 7845, 8630, 9493, 10442, 11487, 12635, 13899, 15289, 16818, 18500,
     20350, 22385, 24623, 27086, 29794, 32767,
 )  # fmt: skip
+#: The step sizes as the search kernels take them.
+_STEPS64 = np.array(IMA_STEPS, dtype=np.int64)
+
 #: Step-index change by the code's three magnitude bits (IMA 1992).
 IMA_INDEX_ADJUST = (-1, -1, -1, -1, 2, 4, 6, 8)
+
+#: Streams up to this many samples are searched by the interpreter version of the
+#: trellis (17 us a sample at width 8) rather than numba's (0.6 us a sample, after half a
+#: second to load a cached kernel, about two to compile one): measured on the 2-core
+#: development machine, the crossing is near 30 000 samples with a warm kernel cache.
+ADPCM_PLAIN_MAX_SAMPLES = 30_000
 
 #: Samples an ADPCM block holds; each block starts from a stored predictor and index.
 ADPCM_BLOCK_SAMPLES = 1024
@@ -476,40 +488,6 @@ def _start_index(x: np.ndarray) -> int:
     return 88
 
 
-def _trellis_block(x: list[int], pred0: int, index0: int, width: int) -> list[int]:
-    """Codes for one block by a trellis search keeping the `width` best paths.
-
-    Paths that reach the same (predictor, index) state are merged, keeping the smaller
-    squared error; ties keep the path met first, so the result does not depend on the
-    machine.
-    """
-    # a path: (error so far, predictor, index, back-pointer into `steps`)
-    paths: list[tuple[int, int, int, int]] = [(0, pred0, index0, -1)]
-    steps: list[tuple[int, int]] = []  # (code, back-pointer) of every kept path step
-    for target in x:
-        seen: dict[tuple[int, int], tuple[int, int, int, int, int]] = {}
-        for err, pred, index, back in paths:
-            g = _greedy_code(pred, index, target)
-            # the greedy code, its other sign, and its neighbours in magnitude
-            for code in (g, g ^ 8, (g & 8) | max(0, (g & 7) - 1), (g & 8) | min(7, (g & 7) + 1)):
-                p, i = _ima_step(pred, index, code)
-                e = err + (p - target) ** 2
-                old = seen.get((p, i))
-                if old is None or e < old[0]:
-                    seen[(p, i)] = (e, p, i, back, code)
-        kept = sorted(seen.values(), key=lambda t: t[0])[:width]
-        paths = []
-        for e, p, i, back, code in kept:
-            steps.append((code, back))
-            paths.append((e, p, i, len(steps) - 1))
-    codes: list[int] = []
-    at = paths[0][3]
-    while at >= 0:
-        code, at = steps[at]
-        codes.append(code)
-    return codes[::-1]
-
-
 def encode_adpcm(
     samples: np.ndarray,
     *,
@@ -551,7 +529,10 @@ def encode_adpcm(
                 pred, index = _ima_step(pred, index, c)
                 got.append(c)
         else:
-            got = _trellis_block(body, pred, index, search_width)
+            found = np.zeros(len(body), dtype=np.uint8)
+            search = kernel("adpcm_trellis", int(x.size), ADPCM_PLAIN_MAX_SAMPLES)
+            search(np.array(body, dtype=np.int64), pred, index, search_width, _STEPS64, found)
+            got = found.tolist()
         codes.append(0)  # the block's first sample is its header's predictor
         codes += got
     return AdpcmStream(

@@ -310,3 +310,24 @@ def test_the_micropython_adpcm_decoder_gives_the_reference_samples() -> None:
         got = [((w >> 16) ^ 0x8000) - 0x8000 for w in dst]
         assert got == want[1000 * b : 1000 * b + n].tolist()
         assert all((w >> 16) == (w & 0xFFFF) for w in dst)  # the sample in both halves
+
+
+@pytest.mark.parametrize("width", [2, 5, 8])
+def test_the_trellis_kernels_give_the_same_codes(width: int) -> None:
+    # the numba-compiled search, its array reference run by the interpreter, and the
+    # dict-and-list version: the same codes (ties kept in the same order), any signal
+    from ladderpack import _kernels
+
+    for seed in range(4):
+        x = voice(700, seed=seed)
+        if seed == 3:
+            x[::7] = 32767  # clipping and big jumps
+        steps = np.array(cz.IMA_STEPS, dtype=np.int64)
+        outs = []
+        for fn in (_kernels.adpcm_trellis_py, _kernels.adpcm_trellis_ref,
+                   _kernels.compiled("adpcm_trellis")):  # fmt: skip
+            out = np.zeros(x.size - 1, np.uint8)
+            fn(x[1:].astype(np.int64), int(x[0]), 20, width, steps, out)
+            outs.append(out)
+        np.testing.assert_array_equal(outs[0], outs[1])
+        np.testing.assert_array_equal(outs[0], outs[2])
