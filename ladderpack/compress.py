@@ -90,6 +90,9 @@ class LosslessStream:
         The bit stream, uint32 (each word's bits MSB first).
     block_words : numpy.ndarray
         Word index where each block starts, uint32.
+    channels : int
+        Channels interleaved in the codes (1, or 2 for two ladders: left, right, ...);
+        each code is predicted from the codes of its own channel.
     """
 
     bits: int
@@ -97,6 +100,7 @@ class LosslessStream:
     block_samples: int
     words: np.ndarray
     block_words: np.ndarray
+    channels: int = 1
 
     @property
     def nbytes(self) -> int:
@@ -120,7 +124,7 @@ class LosslessStream:
 
 
 def lossless_from_bytes(
-    data: bytes, *, bits: int, samples: int, block_samples: int, blocks: int
+    data: bytes, *, bits: int, samples: int, block_samples: int, blocks: int, channels: int = 1
 ) -> LosslessStream:
     """Read :meth:`LosslessStream.to_bytes` back (the sidecar gives the numbers).
 
@@ -139,20 +143,23 @@ def lossless_from_bytes(
     if blocks and (index[0] != 0 or np.any(np.diff(index.astype(np.int64)) <= 0)
                    or int(index[-1]) >= max(1, stream.size)):  # fmt: skip
         raise OptionError("the block index is out of order", field="compression")
-    return LosslessStream(bits, samples, block_samples, stream, index)
+    return LosslessStream(bits, samples, block_samples, stream, index, channels)
 
 
 def _zigzag(e: np.ndarray) -> np.ndarray:
     return np.where(e >= 0, 2 * e, -2 * e - 1)
 
 
-def _residuals(x: np.ndarray, order: int) -> np.ndarray:
-    """Prediction residuals of one block from its ``order``-th code on (int64)."""
+def _residuals(x: np.ndarray, order: int, c: int = 1) -> np.ndarray:
+    """Prediction residuals of one block from its ``order x c``-th code on (int64).
+
+    Each code is predicted from the codes `c` and `2c` before it (its own channel's).
+    """
     if order == 0:
         return x.copy()
     if order == 1:
-        return x[1:] - x[:-1]
-    return x[2:] - 2 * x[1:-1] + x[:-2]
+        return x[c:] - x[:-c]
+    return x[2 * c :] - 2 * x[c:-c] + x[: -2 * c]
 
 
 def _rice_bits(u: np.ndarray, bits: int) -> np.ndarray:
@@ -163,28 +170,29 @@ def _rice_bits(u: np.ndarray, bits: int) -> np.ndarray:
     return coded.sum(axis=0)
 
 
-def _choose(x: np.ndarray, bits: int) -> tuple[int, int, np.ndarray]:
+def _choose(x: np.ndarray, bits: int, c: int = 1) -> tuple[int, int, np.ndarray]:
     """(order, k, zigzag residuals) with the fewest bits for one block."""
     best: tuple[int, int, int, np.ndarray] | None = None
-    for order in range(min(2, x.size - 1) + 1 if x.size else 1):
-        u = _zigzag(_residuals(x, order))
+    top = min(2, (x.size - 1) // c) if x.size else 0
+    for order in range(top + 1):
+        u = _zigzag(_residuals(x, order, c))
         costs = _rice_bits(u, bits) if u.size else np.zeros(MAX_K + 1, dtype=np.int64)
         k = int(np.argmin(costs))  # the first of equal costs: the smallest k
-        total = int(costs[k]) + order * bits
+        total = int(costs[k]) + order * c * bits
         if best is None or total < best[0]:
             best = (total, order, k, u)
     assert best is not None
     return best[1], best[2], best[3]
 
 
-def _fields(x: np.ndarray, bits: int) -> tuple[list[np.ndarray], list[np.ndarray]]:
+def _fields(x: np.ndarray, bits: int, c: int = 1) -> tuple[list[np.ndarray], list[np.ndarray]]:
     """(values, widths) of one block's fields, in stream order."""
-    order, k, u = _choose(x, bits)
+    order, k, u = _choose(x, bits, c)
     values = [np.array([order << 4 | k], dtype=np.uint64)]
     widths = [np.array([6], dtype=np.int64)]
     if order:
-        values.append(x[:order].astype(np.uint64))
-        widths.append(np.full(order, bits, dtype=np.int64))
+        values.append(x[: order * c].astype(np.uint64))
+        widths.append(np.full(order * c, bits, dtype=np.int64))
     q = u >> k
     esc = q >= ESCAPE_Q
     # a plain residual: q ones, a zero, then k bits (one field of q + 1 + k <= 31 bits);
@@ -205,7 +213,7 @@ def _fields(x: np.ndarray, bits: int) -> tuple[list[np.ndarray], list[np.ndarray
 
 
 def encode_lossless(
-    codes: np.ndarray, bits: int, *, block_samples: int = BLOCK_SAMPLES
+    codes: np.ndarray, bits: int, *, block_samples: int = BLOCK_SAMPLES, channels: int = 1
 ) -> LosslessStream:
     """Compress a code stream without loss.
 
@@ -217,7 +225,10 @@ def encode_lossless(
     bits : int
         Code width N, 1..16.
     block_samples : int
-        Codes a block holds (each is decoded on its own).
+        Codes a block holds (each is decoded on its own); a multiple of `channels`.
+    channels : int
+        1, or 2 for two channels interleaved (left, right, left, ...): each code is
+        predicted from its own channel's.
 
     Returns
     -------
@@ -236,15 +247,19 @@ def encode_lossless(
         raise OptionError("expected one row of codes", field="codes")
     if x.size and (int(x.min()) < 0 or int(x.max()) >= 1 << bits):
         raise OptionError(f"codes must lie in 0..{(1 << bits) - 1}", field="codes")
-    if block_samples < 3:
-        raise OptionError(f"blocks need at least 3 codes, got {block_samples}", field="block")
+    if channels not in (1, 2) or x.size % channels:
+        raise OptionError(f"expected 1 or 2 whole channels, got {channels}", field="channels")
+    if block_samples < 3 or block_samples % channels:
+        raise OptionError(
+            f"blocks need at least 3 codes, whole frames, got {block_samples}", field="block"
+        )
     vals: list[np.ndarray] = []
     wids: list[np.ndarray] = []
     starts: list[int] = []
     pos = 0
     for b in range(0, x.size, block_samples):
         starts.append(pos // 32)
-        v, w = _fields(x[b : b + block_samples], bits)
+        v, w = _fields(x[b : b + block_samples], bits, channels)
         n = int(sum(int(a.sum()) for a in w))
         pad = -(pos + n) % 32
         vals += [*v, np.zeros(1, dtype=np.uint64)]
@@ -256,7 +271,7 @@ def encode_lossless(
         pos // 32,
     )
     return LosslessStream(
-        bits, int(x.size), block_samples, words, np.array(starts, dtype=np.uint32)
+        bits, int(x.size), block_samples, words, np.array(starts, dtype=np.uint32), channels
     )
 
 
@@ -320,7 +335,7 @@ def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarr
         order, k = r.read(2), r.read(4)
         hist: list[int] = []
         for i in range(n):
-            if i < order:
+            if i < order * stream.channels:
                 x = r.read(stream.bits)
             else:
                 q = 0
@@ -329,12 +344,13 @@ def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarr
                 esc = q == ESCAPE_Q
                 u = r.read(stream.bits + ESCAPE_EXTRA_BITS) if esc else (q << k) | r.read(k)
                 e = u >> 1 if u % 2 == 0 else -((u + 1) >> 1)
+                c = stream.channels
                 if order == 0:
                     pred = 0
                 elif order == 1:
-                    pred = hist[-1]
+                    pred = hist[-c]
                 else:
-                    pred = 2 * hist[-1] - hist[-2]
+                    pred = 2 * hist[-c] - hist[-2 * c]
                 x = pred + e
             if not 0 <= x < 1 << stream.bits:
                 raise OptionError(

@@ -137,14 +137,19 @@ def _decompressed(words: np.ndarray, comp: Any, model: Any, bin_path: str) -> np
         if comp.get("kind") != "lossless":
             raise OptionError(f"unknown compression {comp.get('kind')!r}", field="compression")
         layout = model.layout
+        channels = int(comp.get("channels", 1))
         stream = lossless_from_bytes(
             words.tobytes(),
-            bits=int(layout.bits),
+            bits=int(layout.bits) // channels,
             samples=int(comp["samples"]),
             block_samples=int(comp["block_samples"]),
             blocks=int(comp["blocks"]),
+            channels=channels,
         )
-        codes = decode_lossless(stream).astype(np.uint16)
+        codes = decode_lossless(stream)
+        if channels == 2:  # left and right alternate: the frames left | right << N
+            codes = codes[0::2] | (codes[1::2] << stream.bits)
+        codes = codes.astype(np.uint32 if int(layout.bits) > 16 else np.uint16)
     except (KeyError, TypeError, ValueError, OptionError) as exc:
         raise LadderpackError(f"not a compressed stream the sidecar describes ({exc})",
                               file=bin_path) from None  # fmt: skip

@@ -866,14 +866,19 @@ def _compressed(packed: Packed, opts: StreamOptions) -> LosslessStream | None:
     if getattr(opts, "compress", "none") != "lossless":
         return None
     from ladderpack.compress import encode_lossless
-    from ladderpack.pack import unpack
+    from ladderpack.pack import StereoLadderLayout, unpack
 
-    slots = unpack(packed.words, packed.layout).codes
+    slots = unpack(packed.words, packed.layout).codes.astype(np.int64)
     # blocks of whole words, no longer than a MicroPython player's buffer, so a block
     # decodes on its own into words the state machine takes
     spw = packed.layout.samples_per_word
     block_words = max(1, min(1024 // spw, int(opts.chunk_words)))
-    return encode_lossless(slots, packed.layout.bits, block_samples=block_words * spw)
+    lay = packed.layout
+    if isinstance(lay, StereoLadderLayout):  # frames left | right << N: the two alternate
+        n = lay.channel_bits
+        pairs = np.column_stack([slots & ((1 << n) - 1), slots >> n]).ravel()
+        return encode_lossless(pairs, n, block_samples=2 * block_words * spw, channels=2)
+    return encode_lossless(slots, lay.bits, block_samples=block_words * spw)
 
 
 def _adpcm(packed: Packed, opts: StreamOptions) -> tuple[AdpcmStream | None, Packed, float]:
@@ -923,6 +928,8 @@ def _compression_stats(
         "samples": comp.samples,
         "max_duration_s": round(fit, 3),
     }
+    if isinstance(comp, LosslessStream):
+        out["channels"] = comp.channels
     if not lossless:
         out["sinad_db"] = round(sinad, 3) if math.isfinite(sinad) else None
         out["pcm16_ratio"] = round(2 * comp.samples / comp.nbytes, 4) if comp.nbytes else 1.0

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import re
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -50,7 +51,8 @@ static const uint32_t words[] = {{{_c_list(s.words, "0x{:08X}u")}}};
 static const uint32_t block_words[] = {{{_c_list(s.block_words, "{}u")}}};
 static const uint16_t want[] = {{{_c_list(want, "{}u")}}};
 static const lp_lossless_stream_t stream = {{
-    words, block_words, {s.block_words.size}u, {s.block_samples}u, {s.samples}u, {s.bits}u}};
+    words, block_words, {s.block_words.size}u, {s.block_samples}u, {s.samples}u, {s.bits}u,
+    {s.channels}u}};
 static uint16_t buf[{CHUNK}];
 
 static void report(uint32_t op, uint32_t index, uint32_t rc) {{
@@ -86,8 +88,10 @@ int main(void) {{
 """
 
 
-def decode_on_chip(fw: Firmware, folder: Path, codes: np.ndarray, bits: int, first_block: int):
-    s = cz.encode_lossless(codes, bits)
+def decode_on_chip(
+    fw: Firmware, folder: Path, codes: np.ndarray, bits: int, first_block: int, channels: int = 1
+):
+    s = cz.encode_lossless(codes, bits, channels=channels)
     bundle = folder / "bundle"
     bundle.mkdir(exist_ok=True)
     for name, data in templates.decoder("ladderpack_lossless").items():
@@ -121,7 +125,7 @@ def test_the_spoken_clip_decodes_to_every_code(fw: Firmware, tmp_path: Path) -> 
     print(f"lossless speech: {codes.size / s.nbytes:.2f}x, {per_code:.1f} clocks/code")
 
 
-@pytest.mark.parametrize("kind", ["sine12", "noise16", "spike8"])
+@pytest.mark.parametrize("kind", ["sine12", "noise16", "spike8", "stereo10"])
 def test_other_streams_from_a_later_block(fw: Firmware, tmp_path: Path, kind: str) -> None:
     rng = np.random.default_rng(7)
     n = 5000
@@ -131,11 +135,17 @@ def test_other_streams_from_a_later_block(fw: Firmware, tmp_path: Path, kind: st
         codes = np.clip(np.round(x + 3 * rng.standard_normal(n)), 0, 4095).astype(np.int64)
     elif kind == "noise16":
         bits, codes = 16, rng.integers(0, 65536, n)
-    else:
+    elif kind == "spike8":
         bits, codes = 8, np.full(n, 100, dtype=np.int64)
         codes[::700] = 255  # spikes in silence: escaped residuals
+    else:  # two channels interleaved, each predicted from its own
+        bits, t = 10, np.arange(n // 2) / 22050
+        left = 512 + 400 * np.sin(2 * np.pi * 300 * t)
+        right = 512 - 300 * np.sin(2 * np.pi * 1100 * t)
+        codes = np.round(np.column_stack([left, right]).ravel()).astype(np.int64)
+    channels = 2 if kind == "stereo10" else 1
     for first in (0, 3):
-        _s, total, bad, _clocks = decode_on_chip(fw, tmp_path, codes, bits, first)
+        _s, total, bad, _clocks = decode_on_chip(fw, tmp_path, codes, bits, first, channels)
         assert (total, bad) == (n - first * cz.BLOCK_SAMPLES, 0), (kind, first)
 
 
@@ -516,3 +526,51 @@ def test_i2s_adpcm_micropython_plays_every_frame(tmp_path: Path) -> None:
     np.testing.assert_array_equal(left, exp.left)
     np.testing.assert_array_equal(right, exp.right)
     test_chip_i2s.assert_period(t, exp)
+
+
+# -- two ladders, compressed ----------------------------------------------------------------
+# Left and right codes alternate in the compressed stream, each predicted from its own
+# channel; the players decode pairs back into frames. Expected codes from an uncompressed
+# twin (tests/test_chip_stereo.py's own decoder of its .bin).
+
+import test_chip_stereo  # noqa: E402
+
+
+def stereo_pair(folder: Path, name: str, **opts: object) -> tuple[Any, dict[str, bytes]]:
+    twin = folder / "uncompressed"
+    twin.mkdir(exist_ok=True)
+    two, _plain = test_chip_stereo.make(twin, name, **{**opts, "compress": "none"})
+    _two, files = test_chip_stereo.make(folder, name, **{**opts, "compress": "lossless"})
+    return two, files
+
+
+@pytest.mark.parametrize(
+    ("bits", "opts"),
+    [
+        (8, {"out_base": 8}),
+        (6, {"out_base": 2, "pin_order": "msb-low", "invert": True, "shift": "left"}),
+    ],
+)
+def test_compressed_stereo_c_plays_both_ladders(
+    fw: Firmware, tmp_path: Path, bits: int, opts: dict[str, object]
+) -> None:
+    two, _files = stereo_pair(tmp_path, "zduet", bits=bits, **opts)
+    ops = [("init", 0), ("start", 0), ("wait", 0)]
+    image = fw.make(tmp_path, [], [], app=test_chip_stereo.app("zduet", ops))
+    r = run(image, fw.mailbox())
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, _t = test_chip_stereo.played(r, two)
+    n = two.left.size
+    np.testing.assert_array_equal(left[:n], two.left)
+    np.testing.assert_array_equal(right[:n], two.right)
+
+
+def test_compressed_stereo_micropython_plays_both_ladders(tmp_path: Path) -> None:
+    two, files = stereo_pair(tmp_path, "zduet", bits=8, out_base=8, chunk_words=32)
+    board = {"zduet.py": files["zduet.py"], "zduet.bin": files["zduet.bin"]}
+    r = run_micropython(board, [{"code": "import zduet\nzduet.play()\n"}], tmp_path)
+    assert_ok(r)
+    left, right, _t = test_chip_stereo.played(r, two)
+    n = two.left.size
+    np.testing.assert_array_equal(left[:n], two.left)
+    np.testing.assert_array_equal(right[:n], two.right)

@@ -235,7 +235,8 @@ def test_the_micropython_decoder_gives_the_stream_words(bits: int, layout: str) 
         n = min(ll.block_samples, ll.samples - b * ll.block_samples)
         inv = (1 << bits) - 1 if lay.invert else 0
         cfg = array.array(
-            "i", [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv]
+            "i",
+            [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv, 1],
         )
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == asset.packed.words.tolist()
@@ -331,3 +332,19 @@ def test_the_trellis_kernels_give_the_same_codes(width: int) -> None:
             outs.append(out)
         np.testing.assert_array_equal(outs[0], outs[1])
         np.testing.assert_array_equal(outs[0], outs[2])
+
+
+def test_two_channels_are_predicted_each_from_its_own() -> None:
+    t = np.arange(4000) / 22050
+    left = np.round(512 + 400 * np.sin(2 * np.pi * 300 * t)).astype(np.int64)
+    right = np.round(512 - 300 * np.sin(2 * np.pi * 1100 * t)).astype(np.int64)
+    x = np.column_stack([left, right]).ravel()
+    two = cz.encode_lossless(x, 10, channels=2)
+    one = cz.encode_lossless(x, 10)
+    np.testing.assert_array_equal(cz.decode_lossless(two), x)
+    for b in range(two.blocks):
+        np.testing.assert_array_equal(cz.decode_lossless(two, first_block=b), x[1024 * b :])
+    assert two.nbytes < 0.7 * one.nbytes  # interleaved, the neighbours are the other channel
+    back = cz.lossless_from_bytes(two.to_bytes(), bits=10, samples=x.size, block_samples=1024,
+                                  blocks=two.blocks, channels=2)  # fmt: skip
+    np.testing.assert_array_equal(cz.decode_lossless(back), x)

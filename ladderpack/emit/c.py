@@ -338,7 +338,8 @@ def _lossless_lines(asset: StreamAsset) -> Iterator[str]:
     yield f"    {prefix}_LOSSLESS_BLOCK_COUNT,"
     yield f"    {ll.block_samples}u,"
     yield f"    {ll.samples}u, /* codes: every slot of {prefix}_WORD_COUNT words */"
-    yield f"    {ll.bits}u"
+    yield f"    {ll.bits}u,"
+    yield f"    {ll.channels}u /* channels */"
     yield "};"
 
 

@@ -434,8 +434,8 @@ def _with_lossless(text: str, asset: StreamAsset) -> str:
         f"# Stored compressed (--compress lossless): the .bin holds {int(ll.block_words.size)} "
         "block offsets, then\n# the bit stream; each block decodes on its own into FIFO words.\n"
         f"LOSSLESS = ({int(ll.block_words.size)}, {ll.block_samples}, {ll.samples}, "
-        f"{int(ll.words.size)}, {ll.max_block_words})  # blocks, codes a block, codes, "
-        "stream words, longest block\n"
+        f"{int(ll.words.size)}, {ll.max_block_words}, {ll.bits}, {ll.channels})"
+        "  # blocks, codes a\n# block, codes, stream words, longest block, bits a code, channels\n"
     )
     anchor = "INTRO = "
     text = text.replace(anchor, desc + anchor, 1)
@@ -730,8 +730,6 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         registers=pio_registers_text(target_of(asset.options)),
         cos_q15=", ".join(str(v) for v in cosine_q15()),
     )
-    if asset.lossless is not None:
-        text = _with_lossless(text, asset)
     if isinstance(lay, StereoLadderLayout):
         n, base = lay.channel_bits, asset.state_machine.out_base
         end = "least" if lay.msb_high else "most"
@@ -744,6 +742,8 @@ def render(asset: StreamAsset, *, embed: bool = False) -> str:
         start = text.index("# Wiring:")
         text = text[:start] + wiring + text[text.index("\n", start) :]
         text = _stereo_module(text)
+    if asset.lossless is not None:  # after the stereo functions replaced the mono ones
+        text = _with_lossless(text, asset)
     return text + set_clock_text(asset)
 
 
@@ -757,8 +757,10 @@ LOSSLESS_DECODER = """\
 
 @micropython.viper
 def _lossless_block(src, dst, cfg) -> int:
-    # cfg: codes in the block, bits, samples per word, shift right, pin order reversed,
-    # inversion mask; src: the block's bit stream; dst: the words. Returns the words.
+    # cfg: codes in the block, bits a code, samples per word, shift right, pin order
+    # reversed, inversion mask, channels (2: left and right alternate, a sample is the
+    # frame left | right << bits); src: the block's bit stream; dst: the words. Returns
+    # the words.
     s = ptr32(src)
     d = ptr32(dst)
     c = ptr32(cfg)
@@ -768,18 +770,24 @@ def _lossless_block(src, dst, cfg) -> int:
     right = c[3]
     rev = c[4]
     inv = c[5]
+    two = c[6] - 1
+    width = bits << two
     head = (s[0] >> 26) & 63
     order = head >> 4
     k = head & 15
     pos = 6
     h1 = 0
     h2 = 0
+    g1 = 0
+    g2 = 0
+    left = 0
     i = 0
     slot = 0
     word = 0
     nw = 0
     while i < n:
-        if i < order:
+        ch = i & two
+        if i < (order << two):
             nb = bits
             v = 0
         else:
@@ -806,7 +814,7 @@ def _lossless_block(src, dst, cfg) -> int:
                 hi = s[wi] & ((1 << (32 - o)) - 1)
                 v |= (hi << m) | ((s[wi + 1] >> (32 - m)) & ((1 << m) - 1))
             pos += nb
-        if i < order:
+        if i < (order << two):
             x = v
         else:
             e = v >> 1
@@ -814,12 +822,16 @@ def _lossless_block(src, dst, cfg) -> int:
                 e = 0 - e - 1
             if order == 0:
                 x = e
-            elif order == 1:
-                x = h1 + e
+            elif ch == 0:
+                x = h1 + e if order == 1 else h1 + h1 - h2 + e
             else:
-                x = h1 + h1 - h2 + e
-        h2 = h1
-        h1 = x
+                x = g1 + e if order == 1 else g1 + g1 - g2 + e
+        if ch == 0:
+            h2 = h1
+            h1 = x
+        else:
+            g2 = g1
+            g1 = x
         p = x
         if rev:
             r = 0
@@ -829,17 +841,22 @@ def _lossless_block(src, dst, cfg) -> int:
                 b += 1
             p = r
         p = p ^ inv
+        i += 1
+        if two and ch == 0:
+            left = p  # the frame's left half: its right half comes next
+            continue
+        if two:
+            p = left | (p << bits)
         if right:
-            word |= p << (slot * bits)
+            word |= p << (slot * width)
         else:
-            word |= p << (32 - (slot + 1) * bits)
+            word |= p << (32 - (slot + 1) * width)
         slot += 1
         if slot == spw:
             d[nw] = word
             nw += 1
             word = 0
             slot = 0
-        i += 1
     return nw
 """
 
@@ -907,11 +924,11 @@ def _adpcm_block(src, dst, cfg) -> int:
 #: bit stream read and decoded into the buffer that is not playing.
 LOSSLESS_PLAY = """\
     def _play_lossless(self, loop: bool) -> None:
-        blocks, per_block, samples, _stream_words, longest = LOSSLESS
+        blocks, per_block, samples, _stream_words, longest, bits, channels = LOSSLESS
         index = array.array("I", bytes(4 * (blocks + 1)))
         src = array.array("I", bytes(4 * (longest + 1)))
-        cfg = array.array("i", [0, BITS, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
-                                ((1 << BITS) - 1) if INVERTED else 0])
+        cfg = array.array("i", [0, bits, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
+                                ((1 << bits) - 1) if INVERTED else 0, channels])
         with open(self.path, "rb") as f:
             f.readinto(memoryview(index)[:blocks])
             index[blocks] = LOSSLESS[3]

@@ -57,6 +57,42 @@ static uint32_t lp_stereo_code_of(const lp_stereo_stream_t *s, uint32_t pins) {
 }
 """
 
+_FILL = """\
+/* The ring's fill: decode the next codes, left and right alternating, into frames
+ * (left | right << N) and pack them. A fill ends at the end of the codes (a loop's pass);
+ * the next fill of a loop that goes on starts the next pass. */
+static uint32_t lp_stereo_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_stereo_player_t *p = (lp_stereo_player_t *)r->owner;
+    const lp_stereo_stream_t *s = p->stream;
+    uint32_t spw = s->samples_per_word;
+    uint32_t half = s->bits / 2u;
+    uint32_t n = 0u;
+    uint16_t codes[64];
+    if (r->at_end) {
+        if (!p->looping) {
+            return 0u; /* the end */
+        }
+        lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+        r->at_end = false;
+    }
+    while (n < max) {
+        uint32_t got = lp_lossless_decode(&p->dec, codes, 2u * spw);
+        uint32_t word = 0u;
+        uint32_t k;
+        if (got == 0u) {
+            break;
+        }
+        for (k = 0u; 2u * k + 1u < got; ++k) {
+            uint32_t frame = (uint32_t)codes[2u * k] | ((uint32_t)codes[2u * k + 1u] << half);
+            word |= lp_stereo_pins_of(s, frame) << lp_stereo_slot_shift(s, k);
+        }
+        words[n++] = word;
+    }
+    r->at_end = p->dec.block + 1u >= s->lossless->block_count && p->dec.done == p->dec.in_block;
+    return n;
+}
+"""
+
 _BUILD_RAMP = """\
 /* One ladder's code at step i of n of a raised cosine from `from` to `to`, no further
  * than `step` from `prev`. */
@@ -216,6 +252,7 @@ def render_source() -> str:
     end = text.index("/* Bit position of sample slot k")
     text = text[:start] + _PINS_OF + "\n" + text[end:]
     text = _replace_function(text, "lp_stereo_build_ramp", _BUILD_RAMP)
+    text = _replace_function(text, "lp_stereo_fill", _FILL)
     old = "int lp_stereo_hold_code(lp_stereo_player_t *p, uint16_t code) {"
     assert old in text
     return text.replace(old, old.replace("uint16_t code", "uint32_t code"))

@@ -106,12 +106,6 @@ class LadderOutput:
                 "ADPCM's loss would undo: use --compress lossless (every code kept)",
                 field="compress",
             )
-        if opts.compress != "none" and opts.stereo:
-            raise OptionError(
-                "two ladders are not compressed yet (their codes interleave); "
-                "use --compress none for --stereo",
-                field="compress",
-            )
         self.gpio_base(opts)
 
     def gpio_base(self, opts: StreamOptions) -> int:

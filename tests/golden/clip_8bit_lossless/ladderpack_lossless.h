@@ -2,9 +2,11 @@
  *
  * A stream is blocks of codes, each starting on a 32-bit word and decoded on its own:
  * a 2-bit predictor order (0, 1 or 2), a 4-bit Rice parameter k, the first `order` codes
- * verbatim, then per code the zigzag residual u: q = u >> k one bits, a zero, the k low
- * bits of u; or, from q = 16 on, 16 one bits and u in N + 3 bits. Bits run MSB first
- * through each word. Plain C99 for a Cortex-M0+ (no division, no 64-bit arithmetic).
+ * of each channel verbatim, then per code the zigzag residual u: q = u >> k one bits, a
+ * zero, the k low bits of u; or, from q = 16 on, 16 one bits and u in N + 3 bits. With
+ * two channels the codes alternate (left, right, ...) and each is predicted from its own
+ * channel's. Bits run MSB first through each word. Plain C99 for a Cortex-M0+ (no
+ * division, no 64-bit arithmetic).
  *
  * Usage:
  *     lp_lossless_t d;
@@ -24,6 +26,7 @@ typedef struct lp_lossless_stream {
     uint32_t block_samples; /* codes in every block but the last */
     uint32_t samples;       /* codes in all */
     uint8_t bits;           /* code width N, 1..16 */
+    uint8_t channels;       /* 1, or 2 interleaved (left, right, ...) */
 } lp_lossless_stream_t;
 
 /* A decoder's place in a stream. */
@@ -36,7 +39,7 @@ typedef struct lp_lossless {
     uint32_t in_block;    /* codes of this block still to come */
     uint32_t done;        /* codes of this block already given */
     uint32_t order, k;
-    int32_t h1, h2; /* the last two codes */
+    int32_t h1[2], h2[2]; /* the last two codes of each channel */
 } lp_lossless_t;
 
 static inline uint32_t lp_lossless_bits(lp_lossless_t *d, uint32_t n) {
@@ -80,8 +83,8 @@ static inline void lp_lossless_block(lp_lossless_t *d, uint32_t block) {
 static inline void lp_lossless_start(lp_lossless_t *d, const lp_lossless_stream_t *s,
                                      uint32_t block) {
     d->s = s;
-    d->h1 = 0;
-    d->h2 = 0;
+    d->h1[0] = d->h1[1] = 0;
+    d->h2[0] = d->h2[1] = 0;
     lp_lossless_block(d, block);
 }
 
@@ -89,15 +92,18 @@ static inline void lp_lossless_start(lp_lossless_t *d, const lp_lossless_stream_
 static inline uint32_t lp_lossless_decode(lp_lossless_t *d, uint16_t *out, uint32_t n) {
     uint32_t got = 0u;
     const uint32_t bits = d->s->bits;
+    const uint32_t two = d->s->channels == 2u ? 1u : 0u;
     while (got < n) {
         int32_t x;
+        uint32_t c;
         if (d->done == d->in_block) {
             if (d->block + 1u >= d->s->block_count) {
                 break;
             }
             lp_lossless_block(d, d->block + 1u);
         }
-        if (d->done < d->order) {
+        c = d->done & two; /* the channel of this code */
+        if (d->done < (d->order << two)) {
             x = (int32_t)lp_lossless_bits(d, bits);
         } else {
             uint32_t q = 0u, u;
@@ -128,13 +134,13 @@ static inline uint32_t lp_lossless_decode(lp_lossless_t *d, uint16_t *out, uint3
             if (d->order == 0u) {
                 x = e;
             } else if (d->order == 1u) {
-                x = d->h1 + e;
+                x = d->h1[c] + e;
             } else {
-                x = 2 * d->h1 - d->h2 + e;
+                x = 2 * d->h1[c] - d->h2[c] + e;
             }
         }
-        d->h2 = d->h1;
-        d->h1 = x;
+        d->h2[c] = d->h1[c];
+        d->h1[c] = x;
         out[got++] = (uint16_t)x;
         d->done++;
     }

@@ -477,7 +477,8 @@ const lp_lossless_stream_t zchime_lossless = {
     ZCHIME_LOSSLESS_BLOCK_COUNT,
     1024u,
     18400u, /* codes: every slot of ZCHIME_WORD_COUNT words */
-    8u
+    8u,
+    1u /* channels */
 };
 
 /* State-machine program (autopull):

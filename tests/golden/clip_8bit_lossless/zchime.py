@@ -47,7 +47,8 @@ CHUNK_WORDS = 1024
 WORDS = None  # read from BIN_FILE in chunks
 # Stored compressed (--compress lossless): the .bin holds 18 block offsets, then
 # the bit stream; each block decodes on its own into FIFO words.
-LOSSLESS = (18, 1024, 18400, 3665, 244)  # blocks, codes a block, codes, stream words, longest block
+LOSSLESS = (18, 1024, 18400, 3665, 244, 8, 1)  # blocks, codes a
+# block, codes, stream words, longest block, bits a code, channels
 INTRO = None
 OUTRO = None
 # Level of every code (volts) of the LevelSet the stream was made with, for hold_volts()
@@ -185,8 +186,10 @@ def _ramp_words(start: int, end: int) -> "array.array[int]":
 
 @micropython.viper
 def _lossless_block(src, dst, cfg) -> int:
-    # cfg: codes in the block, bits, samples per word, shift right, pin order reversed,
-    # inversion mask; src: the block's bit stream; dst: the words. Returns the words.
+    # cfg: codes in the block, bits a code, samples per word, shift right, pin order
+    # reversed, inversion mask, channels (2: left and right alternate, a sample is the
+    # frame left | right << bits); src: the block's bit stream; dst: the words. Returns
+    # the words.
     s = ptr32(src)
     d = ptr32(dst)
     c = ptr32(cfg)
@@ -196,18 +199,24 @@ def _lossless_block(src, dst, cfg) -> int:
     right = c[3]
     rev = c[4]
     inv = c[5]
+    two = c[6] - 1
+    width = bits << two
     head = (s[0] >> 26) & 63
     order = head >> 4
     k = head & 15
     pos = 6
     h1 = 0
     h2 = 0
+    g1 = 0
+    g2 = 0
+    left = 0
     i = 0
     slot = 0
     word = 0
     nw = 0
     while i < n:
-        if i < order:
+        ch = i & two
+        if i < (order << two):
             nb = bits
             v = 0
         else:
@@ -234,7 +243,7 @@ def _lossless_block(src, dst, cfg) -> int:
                 hi = s[wi] & ((1 << (32 - o)) - 1)
                 v |= (hi << m) | ((s[wi + 1] >> (32 - m)) & ((1 << m) - 1))
             pos += nb
-        if i < order:
+        if i < (order << two):
             x = v
         else:
             e = v >> 1
@@ -242,12 +251,16 @@ def _lossless_block(src, dst, cfg) -> int:
                 e = 0 - e - 1
             if order == 0:
                 x = e
-            elif order == 1:
-                x = h1 + e
+            elif ch == 0:
+                x = h1 + e if order == 1 else h1 + h1 - h2 + e
             else:
-                x = h1 + h1 - h2 + e
-        h2 = h1
-        h1 = x
+                x = g1 + e if order == 1 else g1 + g1 - g2 + e
+        if ch == 0:
+            h2 = h1
+            h1 = x
+        else:
+            g2 = g1
+            g1 = x
         p = x
         if rev:
             r = 0
@@ -257,17 +270,22 @@ def _lossless_block(src, dst, cfg) -> int:
                 b += 1
             p = r
         p = p ^ inv
+        i += 1
+        if two and ch == 0:
+            left = p  # the frame's left half: its right half comes next
+            continue
+        if two:
+            p = left | (p << bits)
         if right:
-            word |= p << (slot * bits)
+            word |= p << (slot * width)
         else:
-            word |= p << (32 - (slot + 1) * bits)
+            word |= p << (32 - (slot + 1) * width)
         slot += 1
         if slot == spw:
             d[nw] = word
             nw += 1
             word = 0
             slot = 0
-        i += 1
     return nw
 
 
@@ -434,11 +452,11 @@ class Player:
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
 
     def _play_lossless(self, loop: bool) -> None:
-        blocks, per_block, samples, _stream_words, longest = LOSSLESS
+        blocks, per_block, samples, _stream_words, longest, bits, channels = LOSSLESS
         index = array.array("I", bytes(4 * (blocks + 1)))
         src = array.array("I", bytes(4 * (longest + 1)))
-        cfg = array.array("i", [0, BITS, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
-                                ((1 << BITS) - 1) if INVERTED else 0])
+        cfg = array.array("i", [0, bits, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
+                                ((1 << bits) - 1) if INVERTED else 0, channels])
         with open(self.path, "rb") as f:
             f.readinto(memoryview(index)[:blocks])
             index[blocks] = LOSSLESS[3]
