@@ -360,3 +360,28 @@ def test_a_compressed_asset_counts_its_compressed_bytes(project: Path, tmp_path:
                  "-I", str(gen), str(gen / src)],
                 check=True, capture_output=True,
             )  # fmt: skip
+
+
+def test_an_adpcm_asset_in_a_manifest(tmp_path: Path) -> None:
+    # an I2S asset stored as IMA ADPCM: its index row counts the coded bytes, has no words
+    # array, and the index and sources compile together (gcc, Debian)
+    (tmp_path / "ladderpack.toml").write_text(
+        '[project]\nout_dir = "gen"\n\n[[asset]]\nname = "amp"\ntone = "sine"\n'
+        'seconds = 0.2\noutput = "i2s"\ncompress = "adpcm"\n'
+    )
+    built, _ = _build(tmp_path)
+    assert built == ["amp"]
+    gen = tmp_path / "gen"
+    ns: dict[str, object] = {}
+    exec((gen / "assets.py").read_text(), ns)
+    (row,) = ns["ASSETS"]  # type: ignore[misc]
+    assert row[7] == (gen / "amp.bin").stat().st_size < row[6] * 4 // 7
+    assert "amp_words" not in (gen / "assets.c").read_text()
+    gcc = shutil.which("gcc")
+    if gcc:
+        for src in ("assets.c", "amp.c"):
+            subprocess.run(
+                [gcc, "-std=c11", "-Wall", "-Wextra", "-Werror", "-fsyntax-only",
+                 "-I", str(gen), str(gen / src)],
+                check=True, capture_output=True,
+            )  # fmt: skip
