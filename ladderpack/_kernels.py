@@ -21,6 +21,8 @@ __all__ = [
     "adpcm_trellis_py",
     "adpcm_trellis_ref",
     "compiled",
+    "ima_greedy",
+    "ima_step",
     "kernel",
     "levels_quantize_py",
     "levels_quantize_ref",
@@ -343,26 +345,14 @@ def adpcm_trellis_py(
 ) -> None:
     """The trellis search on Python lists and a dict (short blocks; the reference's twin)."""
     table = [int(v) for v in steps]
-    adjust = (-1, -1, -1, -1, 2, 4, 6, 8)
     paths: list[tuple[int, int, int, int]] = [(0, int(pred0), int(index0), -1)]
     trail: list[tuple[int, int]] = []
     for target in (int(v) for v in x):
         seen: dict[tuple[int, int], tuple[int, int, int, int, int]] = {}
         for err, pred, index, back in paths:
-            g = _greedy(pred, index, target, table)
+            g = ima_greedy(pred, index, target, table)
             for code in (g, g ^ 8, (g & 8) | max(0, (g & 7) - 1), (g & 8) | min(7, (g & 7) + 1)):
-                step = table[index]
-                diff = step >> 3
-                if code & 4:
-                    diff += step
-                if code & 2:
-                    diff += step >> 1
-                if code & 1:
-                    diff += step >> 2
-                p = pred - diff if code & 8 else pred + diff
-                p = -32768 if p < -32768 else 32767 if p > 32767 else p
-                i = index + adjust[code & 7]
-                i = 0 if i < 0 else 88 if i > 88 else i
+                p, i = ima_step(pred, index, code, table)
                 e = err + (p - target) * (p - target)
                 old = seen.get((p, i))
                 if old is None or e < old[0]:
@@ -378,7 +368,24 @@ def adpcm_trellis_py(
         k -= 1
 
 
-def _greedy(pred: int, index: int, target: int, table: list[int]) -> int:
+def ima_step(pred: int, index: int, code: int, table: list[int]) -> tuple[int, int]:
+    """One IMA ADPCM decoding step (IMA 1992): the new (predictor, step index)."""
+    step = table[index]
+    diff = step >> 3
+    if code & 4:
+        diff += step
+    if code & 2:
+        diff += step >> 1
+    if code & 1:
+        diff += step >> 2
+    pred = pred - diff if code & 8 else pred + diff
+    pred = -32768 if pred < -32768 else 32767 if pred > 32767 else pred
+    index += (-1, -1, -1, -1, 2, 4, 6, 8)[code & 7]
+    return pred, 0 if index < 0 else 88 if index > 88 else index
+
+
+def ima_greedy(pred: int, index: int, target: int, table: list[int]) -> int:
+    """The recommended practice's encoder: the code closest to `target`, bit by bit."""
     step = table[index]
     diff = target - pred
     code = 8 if diff < 0 else 0

@@ -44,7 +44,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ladderpack._kernels import kernel
+from ladderpack._kernels import ima_greedy, ima_step, kernel
 from ladderpack.errors import OptionError
 
 __all__ = [
@@ -375,6 +375,7 @@ IMA_STEPS = (
 )  # fmt: skip
 #: The step sizes as the search kernels take them.
 _STEPS64 = np.array(IMA_STEPS, dtype=np.int64)
+_STEP_LIST = list(IMA_STEPS)
 
 #: Step-index change by the code's three magnitude bits (IMA 1992).
 IMA_INDEX_ADJUST = (-1, -1, -1, -1, 2, 4, 6, 8)
@@ -461,38 +462,12 @@ def adpcm_from_bytes(data: bytes, *, samples: int, block_samples: int) -> AdpcmS
 
 def _ima_step(pred: int, index: int, code: int) -> tuple[int, int]:
     """One IMA decoding step: the new (predictor, index)."""
-    step = IMA_STEPS[index]
-    diff = step >> 3
-    if code & 4:
-        diff += step
-    if code & 2:
-        diff += step >> 1
-    if code & 1:
-        diff += step >> 2
-    pred = pred - diff if code & 8 else pred + diff
-    pred = -32768 if pred < -32768 else 32767 if pred > 32767 else pred
-    index += IMA_INDEX_ADJUST[code & 7]
-    index = 0 if index < 0 else 88 if index > 88 else index
-    return pred, index
+    return ima_step(pred, index, code, _STEP_LIST)
 
 
 def _greedy_code(pred: int, index: int, target: int) -> int:
     """The IMA encoder's own choice of code (the recommended practice's quantiser)."""
-    step = IMA_STEPS[index]
-    diff = target - pred
-    code = 8 if diff < 0 else 0
-    diff = abs(diff)
-    if diff >= step:
-        code |= 4
-        diff -= step
-    step >>= 1
-    if diff >= step:
-        code |= 2
-        diff -= step
-    step >>= 1
-    if diff >= step:
-        code |= 1
-    return code
+    return ima_greedy(pred, index, target, _STEP_LIST)
 
 
 def _start_index(x: np.ndarray) -> int:
