@@ -753,9 +753,9 @@ def finish(
     """
     opts, part = plan.options, plan.part
     assert part is not None
-    lossless = _compressed(done.packed, opts)
-    adpcm, packed, sinad = _adpcm(done.packed, opts)
-    comp = lossless if lossless is not None else adpcm
+    form = plan.output.compress(done.packed, opts)  # the output's own: ``--compress``
+    lossless, adpcm, packed, sinad = form.lossless, form.adpcm, form.packed, form.sinad_db
+    comp = form.stored
     stored = packed.words.size if comp is None else -(-comp.nbytes // 4)
     total = stored + sum(p.words.size for p in (done.intro, done.outro) if p is not None)
     budget = stream_budget(
@@ -855,54 +855,6 @@ def finish(
     if done.max_step is not None:  # known from processing: fill the asset's cache
         asset.__dict__["max_step"] = done.max_step
     return asset
-
-
-def _compressed(packed: Packed, opts: StreamOptions) -> LosslessStream | None:
-    """The codes of every slot of `packed`, compressed, for ``--compress lossless``.
-
-    Every slot (the last word's padding too), so a player that decodes them and packs
-    them again gets the stream's words exactly.
-    """
-    if getattr(opts, "compress", "none") != "lossless":
-        return None
-    from ladderpack.compress import encode_lossless
-    from ladderpack.pack import StereoLadderLayout, unpack
-
-    slots = unpack(packed.words, packed.layout).codes.astype(np.int64)
-    # blocks of whole words, no longer than a MicroPython player's buffer, so a block
-    # decodes on its own into words the state machine takes
-    spw = packed.layout.samples_per_word
-    block_words = max(1, min(1024 // spw, int(opts.chunk_words)))
-    lay = packed.layout
-    if isinstance(lay, StereoLadderLayout):  # frames left | right << N: the two alternate
-        n = lay.channel_bits
-        pairs = np.column_stack([slots & ((1 << n) - 1), slots >> n]).ravel()
-        return encode_lossless(pairs, n, block_samples=2 * block_words * spw, channels=2)
-    return encode_lossless(slots, lay.bits, block_samples=block_words * spw)
-
-
-def _adpcm(packed: Packed, opts: StreamOptions) -> tuple[AdpcmStream | None, Packed, float]:
-    """The stream coded for ``--compress adpcm``, and what it decodes to.
-
-    16-bit mono I2S: the sample is in both halves of a word. Returns the coded stream,
-    the words it decodes to (what the players send: they replace the packed words), and
-    the SINAD of those against the uncompressed samples, dB.
-    """
-    if getattr(opts, "compress", "none") != "adpcm":
-        return None, packed, math.inf
-    import dataclasses
-
-    from ladderpack.compress import decode_adpcm, encode_adpcm, sinad_db
-
-    w = packed.words.astype(np.int64)
-    x = ((w >> 16) ^ 0x8000) - 0x8000
-    # blocks no longer than a MicroPython player's buffer (a word a sample), even, so
-    # each block's codes start on a byte
-    block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2)
-    coded = encode_adpcm(x, block_samples=block)
-    d = decode_adpcm(coded)
-    words = (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
-    return coded, dataclasses.replace(packed, words=words), sinad_db(x, d)
 
 
 def _compression_stats(

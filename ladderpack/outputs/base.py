@@ -28,12 +28,23 @@ if TYPE_CHECKING:  # pragma: no cover - types only (the module stays light to im
     import numpy as np
 
     from ladderpack.asset import StreamAsset
+    from ladderpack.compress import AdpcmStream, LosslessStream
     from ladderpack.emit import Content
     from ladderpack.options import StreamOptions, WaveTableSpec
+    from ladderpack.pack import Packed
     from ladderpack.pio import Program, StateMachineConfig
     from ladderpack.quantize import CodeScale
 
-__all__ = ["ClockReport", "Output", "OutputPlan", "PreviewModel", "SummaryLines", "WaveTable"]
+__all__ = [
+    "ClockReport",
+    "Compressed",
+    "Output",
+    "OutputPlan",
+    "PreviewModel",
+    "SummaryLines",
+    "WaveTable",
+    "uncompressed",
+]
 
 
 @dataclass(frozen=True)
@@ -189,6 +200,38 @@ class ClockReport:
     lines: list[str]
 
 
+@dataclass(frozen=True)
+class Compressed:
+    """A stream as the output stores it (``--compress``).
+
+    Attributes
+    ----------
+    lossless : LosslessStream or None
+        The codes of every slot, compressed without loss.
+    adpcm : AdpcmStream or None
+        The samples as IMA ADPCM.
+    packed : Packed
+        The words the players send: the stream's own, or what a lossy form decodes to.
+    sinad_db : float
+        A lossy form's SINAD against the uncompressed samples, dB (inf when lossless).
+    """
+
+    lossless: LosslessStream | None
+    adpcm: AdpcmStream | None
+    packed: Packed
+    sinad_db: float = float("inf")
+
+    @property
+    def stored(self) -> LosslessStream | AdpcmStream | None:
+        """The form the bundle stores, if compressed."""
+        return self.lossless if self.lossless is not None else self.adpcm
+
+
+def uncompressed(packed: Packed) -> Compressed:
+    """The stream stored as its words (an output that takes no ``compress`` option)."""
+    return Compressed(None, None, packed)
+
+
 class Output(Protocol):
     """One output system: the object each module of :mod:`ladderpack.outputs` registers."""
 
@@ -218,6 +261,9 @@ class Output(Protocol):
 
     def variant(self, plan: OutputPlan) -> str:
         """The program variant shown in the summary and recorded in the stats."""
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """The stream in the form ``--compress`` asks for (:func:`uncompressed` for none)."""
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """The output's own keys of :meth:`StreamAsset.summary`."""

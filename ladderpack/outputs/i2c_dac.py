@@ -57,13 +57,16 @@ from ladderpack.errors import OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
     ClockReport,
+    Compressed,
     OutputPlan,
     PreviewModel,
     SummaryLines,
     WaveTable,
     cycles_divider,
     state_machine_blocks,
+    uncompressed,
 )
+from ladderpack.pack import Packed
 from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
 from ladderpack.targets import get_target, target_of
 
@@ -1260,6 +1263,10 @@ class I2cDacOutput:
         """The writer program's variant."""
         assert plan.program is not None
         return plan.program.variant
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """Stored as its words (this output takes no ``compress`` option)."""
+        return uncompressed(packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """The DAC's address and command, the bus and the pins."""

@@ -49,13 +49,16 @@ from ladderpack.errors import OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
     ClockReport,
+    Compressed,
     OutputPlan,
     PreviewModel,
     SummaryLines,
     WaveTable,
     cycles_divider,
     state_machine_blocks,
+    uncompressed,
 )
+from ladderpack.pack import Packed
 from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
 from ladderpack.targets import get_target, target_of
 from ladderpack.waves import wavetable
@@ -1056,6 +1059,28 @@ class I2sOutput:
         """The I2S program's variant."""
         assert plan.program is not None
         return plan.program.variant
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """``--compress adpcm`` (16-bit mono): the samples coded as IMA ADPCM.
+
+        With the words they decode to (the sample in both halves), which the players send
+        instead of the stream's, and their SINAD against the uncompressed samples. Blocks
+        no longer than a MicroPython player's buffer (a word a sample), even, so each
+        block's codes start on a byte.
+        """
+        if opts.compress != "adpcm":
+            return uncompressed(packed)
+        import dataclasses
+
+        from ladderpack.compress import decode_adpcm, encode_adpcm, sinad_db
+
+        w = packed.words.astype(np.int64)
+        x = ((w >> 16) ^ 0x8000) - 0x8000
+        block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2)
+        coded = encode_adpcm(x, block_samples=block)
+        d = decode_adpcm(coded)
+        words = (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
+        return Compressed(None, coded, dataclasses.replace(packed, words=words), sinad_db(x, d))
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """Stereo or mono, and the frame and pins."""

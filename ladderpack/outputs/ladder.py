@@ -16,12 +16,14 @@ from typing import TYPE_CHECKING, Any
 from ladderpack.errors import OptionError
 from ladderpack.outputs.base import (
     ClockReport,
+    Compressed,
     OutputPlan,
     PreviewModel,
     SummaryLines,
     WaveTable,
     cycles_divider,
     state_machine_blocks,
+    uncompressed,
 )
 from ladderpack.targets import get_target
 
@@ -31,6 +33,7 @@ if TYPE_CHECKING:  # pragma: no cover - types only
     from ladderpack.asset import StreamAsset
     from ladderpack.emit import Content
     from ladderpack.options import StreamOptions, WaveTableSpec
+    from ladderpack.pack import Packed
 
 # The stages, the emitters and numpy are imported where they are used: the option model
 # asks this object its checks for every option object a build makes, and a no-op build
@@ -192,6 +195,33 @@ class LadderOutput:
         """The program's variant (autopull, pull, loop)."""
         assert plan.program is not None
         return plan.program.variant
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """``--compress lossless``: the codes of every slot, compressed.
+
+        The last word's padding too, so the players' packing gives the words exactly; two
+        ladders' codes alternate, left and right. Blocks of whole words, no longer than a
+        MicroPython player's buffer, so a block decodes on its own into words the state
+        machine takes.
+        """
+        if opts.compress != "lossless":
+            return uncompressed(packed)
+        import numpy as np
+
+        from ladderpack.compress import encode_lossless
+        from ladderpack.pack import StereoLadderLayout, unpack
+
+        lay = packed.layout
+        slots = unpack(packed.words, lay).codes.astype(np.int64)
+        spw = lay.samples_per_word
+        block_words = max(1, min(1024 // spw, int(opts.chunk_words)))
+        if isinstance(lay, StereoLadderLayout):  # frames left | right << N
+            n = lay.channel_bits
+            pairs = np.column_stack([slots & ((1 << n) - 1), slots >> n]).ravel()
+            coded = encode_lossless(pairs, n, block_samples=2 * block_words * spw, channels=2)
+        else:
+            coded = encode_lossless(slots, lay.bits, block_samples=block_words * spw)
+        return Compressed(coded, None, packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """``stereo`` for two ladders."""

@@ -45,11 +45,13 @@ from ladderpack.errors import ClockError, OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
     ClockReport,
+    Compressed,
     OutputPlan,
     PreviewModel,
     SummaryLines,
     WaveTable,
     jitter_text,
+    uncompressed,
 )
 from ladderpack.pack import Packed, WordLayout, unpack
 from ladderpack.quantize import CodeScale, predicted_full_scale_sine
@@ -1022,6 +1024,10 @@ class PwmOutput:
         """``pwm-wrap`` or ``pwm-timer``: what paces the DMA."""
         setup: PwmSetup = plan.setup
         return f"pwm-{setup.plan.pacing}"
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """Stored as its words (this output takes no ``compress`` option)."""
+        return uncompressed(packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """Stereo or mono, and the slice's carrier, levels, pacing and pin."""

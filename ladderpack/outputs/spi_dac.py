@@ -63,14 +63,16 @@ from ladderpack.errors import OptionError
 from ladderpack.options import StreamOptions, WaveTableSpec
 from ladderpack.outputs.base import (
     ClockReport,
+    Compressed,
     OutputPlan,
     PreviewModel,
     SummaryLines,
     WaveTable,
     cycles_divider,
     state_machine_blocks,
+    uncompressed,
 )
-from ladderpack.pack import WordLayout, unpack
+from ladderpack.pack import Packed, WordLayout, unpack
 from ladderpack.pio import Instruction, Program, SideSet, StateMachineConfig, wrap_execctrl
 from ladderpack.targets import get_target, target_of
 
@@ -978,6 +980,10 @@ class SpiDacOutput:
         """The writer program's variant (``spi-dac`` or ``spi-dac-latch``)."""
         assert plan.program is not None
         return plan.program.variant
+
+    def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
+        """Stored as its words (this output takes no ``compress`` option)."""
+        return uncompressed(packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """Stereo or mono, SCK, the frame's bits and the pins."""
