@@ -125,6 +125,11 @@ class StreamAsset:
     lossless: LosslessStream | None = None
     adpcm: AdpcmStream | None = None
 
+    @property
+    def compressed(self) -> LosslessStream | AdpcmStream | None:
+        """The form the bundle stores when the stream is compressed (else None)."""
+        return self.lossless if self.lossless is not None else self.adpcm
+
     @functools.cached_property
     def max_step(self) -> int:
         """Largest step between consecutive codes the pins see (:func:`largest_step`).

@@ -489,7 +489,7 @@ def _render(spec: AssetSpec) -> _Rendered:
     else:
         asset = stream_tone(spec.source, name=spec.name, tone=parts[1], options=parts[0])
     files = bundle_files(asset)
-    comp = asset.lossless if asset.lossless is not None else asset.adpcm
+    comp = asset.compressed
     entry = {
         "name": spec.name,
         "kind": spec.kind,

@@ -60,6 +60,7 @@ __all__ = [
     "encode_adpcm",
     "encode_lossless",
     "lossless_from_bytes",
+    "mono_frames",
     "sinad_db",
 ]
 
@@ -547,6 +548,20 @@ def decode_adpcm(stream: AdpcmStream) -> np.ndarray:
             pred, index = _ima_step(pred, index, code)
             out.append(pred)
     return np.array(out, dtype=np.int64)
+
+
+def mono_frames(samples: np.ndarray) -> np.ndarray:
+    """Signed 16-bit samples as the words of mono 16-bit I2S frames (uint32).
+
+    Each sample in both halves, as the players send a decoded ADPCM stream.
+
+    Examples
+    --------
+    >>> [hex(w) for w in mono_frames(np.array([1, -2]))]
+    ['0x10001', '0xfffefffe']
+    """
+    s = np.asarray(samples, dtype=np.int64) & 0xFFFF
+    return ((s << 16) | s).astype(np.uint32)
 
 
 def sinad_db(reference: np.ndarray, decoded: np.ndarray) -> float:

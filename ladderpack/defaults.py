@@ -73,8 +73,8 @@ PIN_ORDERS = ("msb-high", "msb-low")
 
 #: Ladder program choices ("auto": loop program for loops when it fits, else autopull).
 PROGRAM_CHOICES = ("auto", "autopull", "pull", "loop")
-#: How a stream may be stored (ladderpack.compress): as packed words, or compressed
-#: without loss and decoded on the chip.
+#: How a stream may be stored (ladderpack.compress): as packed words, compressed without
+#: loss, or as IMA ADPCM; the players decode a compressed stream on the chip.
 COMPRESS_CHOICES = ("none", "lossless", "adpcm")
 
 #: OUT shift directions.

@@ -124,16 +124,14 @@ def _decompressed(words: np.ndarray, comp: Any, model: Any, bin_path: str) -> np
 
     try:
         if comp.get("kind") == "adpcm":  # 16-bit mono I2S: the sample in both halves
-            from ladderpack.compress import adpcm_from_bytes, decode_adpcm
+            from ladderpack.compress import adpcm_from_bytes, decode_adpcm, mono_frames
 
-            d = decode_adpcm(
-                adpcm_from_bytes(
-                    words.tobytes(),
-                    samples=int(comp["samples"]),
-                    block_samples=int(comp["block_samples"]),
-                )
+            coded = adpcm_from_bytes(
+                words.tobytes(),
+                samples=int(comp["samples"]),
+                block_samples=int(comp["block_samples"]),
             )
-            return (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
+            return mono_frames(decode_adpcm(coded))
         if comp.get("kind") != "lossless":
             raise OptionError(f"unknown compression {comp.get('kind')!r}", field="compression")
         layout = model.layout

@@ -354,7 +354,7 @@ def plan_stream(
         player_chunk_words=opts.chunk_words,
         embedded=words <= opts.embed_words_max,
     )
-    if getattr(opts, "compress", "none") == "none":
+    if opts.compress == "none":
         # a compressed stream's size is known once it is made: finish() checks it
         check_budget(budget)
     blk = frames if block_frames is None else min(block_frames, frames)
@@ -869,9 +869,8 @@ def _compression_stats(
     seconds = packed.sample_count / float(budget.rate_hz)
     avail = budget.target.flash_available_bytes
     fit = avail / comp.nbytes * seconds if comp.nbytes else 0.0
-    lossless = isinstance(comp, LosslessStream)
     out: dict[str, Any] = {
-        "kind": "lossless" if lossless else "adpcm",
+        "kind": "lossless" if isinstance(comp, LosslessStream) else "adpcm",
         "bytes": comp.nbytes,
         "raw_bytes": raw,
         "ratio": round(ratio, 4),
@@ -882,7 +881,7 @@ def _compression_stats(
     }
     if isinstance(comp, LosslessStream):
         out["channels"] = comp.channels
-    if not lossless:
+    else:
         out["sinad_db"] = round(sinad, 3) if math.isfinite(sinad) else None
         out["pcm16_ratio"] = round(2 * comp.samples / comp.nbytes, 4) if comp.nbytes else 1.0
     return out
@@ -1003,8 +1002,8 @@ def stream_signal(
     --------
     >>> import numpy as np
     >>> sig = Signal(np.sin(np.arange(4800) * 0.1), 48000.0)
-    >>> stream_signal(sig, name="beep", bits=8, rate_hz=16000).sample_count
-    4200
+    >>> stream_signal(sig, name="beep", bits=8, rate_hz=16000).sample_count  # 50 ms ramps
+    3200
     """
     opts = _options(options, overrides)
     if not isinstance(sig, Signal):

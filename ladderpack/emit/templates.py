@@ -64,14 +64,13 @@ COMMON_NAME = "ladderpack_common.h"
 def player(stem: str) -> dict[str, bytes]:
     """The files of the C player `stem` (registered in ``emit.names.PLAYER_FILES``).
 
-    Its header and source from their templates, and the players' shared header.
+    Its header and source from their templates, the players' shared header, and the
+    decoder headers it includes (:func:`included_decoders`).
 
     Examples
     --------
     >>> sorted(player("ladderpack_i2s"))
-    ['ladderpack_common.h', 'ladderpack_i2s.c', 'ladderpack_i2s.h']
-
-    and the decoder headers it includes (:func:`included_decoders`).
+    ['ladderpack_adpcm.h', 'ladderpack_common.h', 'ladderpack_i2s.c', 'ladderpack_i2s.h']
     """
     from ladderpack._version import __version__
     from ladderpack.emit.names import player_files

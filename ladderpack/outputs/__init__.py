@@ -18,7 +18,7 @@ Adding an output: write ``ladderpack/outputs/<name>.py`` with its ``OUTPUT`` obj
 Examples
 --------
 >>> names()
-('ladder', 'i2s', 'pwm', 'i2c-dac')
+('ladder', 'i2s', 'pwm', 'i2c-dac', 'spi-dac')
 >>> get_output("i2s").name
 'i2s'
 """

@@ -1072,14 +1072,14 @@ class I2sOutput:
             return uncompressed(packed)
         import dataclasses
 
-        from ladderpack.compress import decode_adpcm, encode_adpcm, sinad_db
+        from ladderpack.compress import decode_adpcm, encode_adpcm, mono_frames, sinad_db
 
         w = packed.words.astype(np.int64)
         x = ((w >> 16) ^ 0x8000) - 0x8000
         block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2)
         coded = encode_adpcm(x, block_samples=block)
         d = decode_adpcm(coded)
-        words = (((d & 0xFFFF) << 16) | (d & 0xFFFF)).astype(np.uint32)
+        words = mono_frames(d)
         return Compressed(None, coded, dataclasses.replace(packed, words=words), sinad_db(x, d))
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
