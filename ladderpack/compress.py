@@ -40,7 +40,9 @@ seeks work as for lossless.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -57,6 +59,7 @@ __all__ = [
     "adpcm_from_bytes",
     "decode_adpcm",
     "decode_lossless",
+    "decode_stored",
     "encode_adpcm",
     "encode_lossless",
     "lossless_from_bytes",
@@ -395,32 +398,41 @@ ADPCM_BLOCK_SAMPLES = 1024
 class AdpcmStream:
     """An IMA ADPCM stream of 16-bit samples, in blocks.
 
+    Two channels are coded each on its own (its own predictor and step index) and
+    interleaved sample by sample, so a frame's two codes share a byte (left in the low
+    nibble).
+
     Attributes
     ----------
     samples : int
-        Samples it holds.
+        Samples it holds (all channels: a stereo stream holds two a frame).
     block_samples : int
-        Samples a block holds (all but the last).
+        Samples a block holds (all but the last; all channels, whole frames).
     headers : numpy.ndarray
-        Per block, uint32: the predictor at the block's start (signed 16 bits, low half)
-        and the step index (bits 16..22).
+        Per block and channel (block 0 left, block 0 right, block 1 left, ...), uint32:
+        the predictor at the block's start (signed 16 bits, low half) and the step index
+        (bits 16..22).
     nibbles : numpy.ndarray
-        The 4-bit codes, uint8, one a sample.
+        The 4-bit codes, uint8, one a sample; a block's first frame is its headers'
+        predictors, its codes 0.
+    channels : int
+        1, or 2 interleaved (left, right, ...).
     """
 
     samples: int
     block_samples: int
     headers: np.ndarray
     nibbles: np.ndarray
+    channels: int = 1
 
     @property
     def blocks(self) -> int:
         """Blocks it holds."""
-        return int(self.headers.size)
+        return int(self.headers.size) // self.channels
 
     @property
     def packed(self) -> np.ndarray:
-        """The codes two a byte, the first sample in the low nibble (uint8)."""
+        """The codes two a byte, the earlier sample in the low nibble (uint8)."""
         n = self.nibbles
         if n.size % 2:
             n = np.concatenate([n, np.zeros(1, np.uint8)])
@@ -436,7 +448,9 @@ class AdpcmStream:
         return self.headers.astype("<u4").tobytes() + self.packed.tobytes()
 
 
-def adpcm_from_bytes(data: bytes, *, samples: int, block_samples: int) -> AdpcmStream:
+def adpcm_from_bytes(
+    data: bytes, *, samples: int, block_samples: int, channels: int = 1
+) -> AdpcmStream:
     """Read :meth:`AdpcmStream.to_bytes` back (the sidecar gives the numbers).
 
     Raises
@@ -444,21 +458,33 @@ def adpcm_from_bytes(data: bytes, *, samples: int, block_samples: int) -> AdpcmS
     OptionError
         When the data is not that long, or a header's step index is out of range.
     """
-    blocks = -(-samples // block_samples) if samples else 0
-    need = 4 * blocks + (samples + 1) // 2
-    if samples < 0 or block_samples < 2 or len(data) != need:
+    if (
+        channels not in (1, 2)
+        or block_samples < 2
+        or block_samples % channels
+        or samples % channels
+    ):
         raise OptionError(
-            f"expected {blocks} block headers and {(samples + 1) // 2} bytes of codes "
-            f"({need} bytes), got {len(data)}",
+            f"expected 1 or 2 channels in blocks of whole frames, got "
+            f"{channels} channel(s), {samples} samples in blocks of {block_samples}",
             field="compression",
         )
-    headers = np.frombuffer(data[: 4 * blocks], dtype="<u4").astype(np.uint32)
+    blocks = -(-samples // block_samples) if samples else 0
+    need = 4 * blocks * channels + (samples + 1) // 2
+    if samples < 0 or len(data) != need:
+        raise OptionError(
+            f"expected {blocks * channels} block headers and {(samples + 1) // 2} bytes of "
+            f"codes ({need} bytes), got {len(data)}",
+            field="compression",
+        )
+    heads = 4 * blocks * channels
+    headers = np.frombuffer(data[:heads], dtype="<u4").astype(np.uint32)
     if np.any((headers >> 16) > 88):
         raise OptionError("a block header's step index is above 88", field="compression")
-    raw = np.frombuffer(data[4 * blocks :], dtype=np.uint8)
+    raw = np.frombuffer(data[heads:], dtype=np.uint8)
     nibbles = np.empty(2 * raw.size, dtype=np.uint8)
     nibbles[0::2], nibbles[1::2] = raw & 15, raw >> 4
-    return AdpcmStream(samples, block_samples, headers, nibbles[:samples])
+    return AdpcmStream(samples, block_samples, headers, nibbles[:samples], channels)
 
 
 def _ima_step(pred: int, index: int, code: int) -> tuple[int, int]:
@@ -485,69 +511,138 @@ def encode_adpcm(
     *,
     block_samples: int = ADPCM_BLOCK_SAMPLES,
     search_width: int = 8,
+    channels: int = 1,
 ) -> AdpcmStream:
     """Encode 16-bit samples as IMA ADPCM, searching for the codes.
 
     Parameters
     ----------
     samples : numpy.ndarray
-        Signed 16-bit sample values (one channel).
+        Signed 16-bit sample values: one channel, or two interleaved (left, right, ...).
     block_samples : int
-        Samples a block holds.
+        Samples a block holds (all channels, whole frames).
     search_width : int
         Paths the trellis keeps per sample; 1 gives the recommended practice's greedy
         encoder.
+    channels : {1, 2}
+        Channels interleaved in `samples`; each is coded on its own.
 
     Returns
     -------
     AdpcmStream
+
+    Examples
+    --------
+    >>> s = encode_adpcm(np.array([0, 100, 200, 300, -5, 5, -5, 5]), block_samples=4,
+    ...                  channels=2)
+    >>> s.blocks, s.headers.size, s.nbytes
+    (2, 4, 20)
     """
     x = np.asarray(samples, dtype=np.int64)
     if x.ndim != 1 or (x.size and (int(x.min()) < -32768 or int(x.max()) > 32767)):
         raise OptionError("expected one row of signed 16-bit samples", field="samples")
     if search_width < 1:
         raise OptionError(f"search_width must be >= 1, got {search_width}", field="search")
+    if channels not in (1, 2) or x.size % channels:
+        raise OptionError(
+            f"expected 1 or 2 channels of whole frames, got {channels} for {x.size} samples",
+            field="channels",
+        )
+    if block_samples < 2 or block_samples % channels:
+        raise OptionError(
+            f"a block holds 2 or more samples, whole frames, got {block_samples}", field="block"
+        )
     headers: list[int] = []
-    codes: list[int] = []
+    codes = np.zeros(x.size, dtype=np.uint8)
+    search = kernel("adpcm_trellis", int(x.size), ADPCM_PLAIN_MAX_SAMPLES)
     for b in range(0, x.size, block_samples):
-        blk = x[b : b + block_samples]
-        pred, index = int(blk[0]), _start_index(blk)
-        headers.append((pred & 0xFFFF) | index << 16)
-        body = [int(v) for v in blk[1:]]
-        if search_width == 1:
-            got = []
-            for t in body:
-                c = _greedy_code(pred, index, t)
-                pred, index = _ima_step(pred, index, c)
-                got.append(c)
-        else:
-            found = np.zeros(len(body), dtype=np.uint8)
-            search = kernel("adpcm_trellis", int(x.size), ADPCM_PLAIN_MAX_SAMPLES)
-            search(np.array(body, dtype=np.int64), pred, index, search_width, _STEPS64, found)
-            got = found.tolist()
-        codes.append(0)  # the block's first sample is its header's predictor
-        codes += got
+        for c in range(channels):
+            blk = x[b + c : b + block_samples : channels]
+            pred, index = int(blk[0]), _start_index(blk)
+            headers.append((pred & 0xFFFF) | index << 16)
+            body = blk[1:]
+            if search_width == 1:
+                got = []
+                for t in body.tolist():
+                    g = _greedy_code(pred, index, t)
+                    pred, index = _ima_step(pred, index, g)
+                    got.append(g)
+                found = np.array(got, dtype=np.uint8)
+            else:
+                found = np.zeros(body.size, dtype=np.uint8)
+                search(np.ascontiguousarray(body), pred, index, search_width, _STEPS64, found)
+            # the block's first frame is its headers' predictors (codes 0)
+            codes[b + c + channels : b + block_samples : channels] = found
     return AdpcmStream(
-        int(x.size),
-        block_samples,
-        np.array(headers, dtype=np.uint32),
-        np.array(codes, dtype=np.uint8),
+        int(x.size), block_samples, np.array(headers, dtype=np.uint32), codes, channels
     )
 
 
 def decode_adpcm(stream: AdpcmStream) -> np.ndarray:
-    """Decode an :class:`AdpcmStream` to signed 16-bit samples (int64), the reference."""
-    out: list[int] = []
-    for b, h in enumerate(stream.headers.tolist()):
-        pred = (h & 0xFFFF) - ((h & 0x8000) << 1)
-        index = (h >> 16) & 0x7F
+    """Decode an :class:`AdpcmStream` to signed 16-bit samples (int64), the reference.
+
+    Two channels come back interleaved, as they were coded.
+    """
+    ch = stream.channels
+    out = np.zeros(stream.samples, dtype=np.int64)
+    heads = stream.headers.tolist()
+    for b in range(stream.blocks):
         lo = b * stream.block_samples
-        n = min(stream.block_samples, stream.samples - lo)
-        out.append(pred)
-        for code in stream.nibbles[lo + 1 : lo + n].tolist():
-            pred, index = _ima_step(pred, index, code)
-            out.append(pred)
-    return np.array(out, dtype=np.int64)
+        hi = min(stream.samples, lo + stream.block_samples)
+        for c in range(ch):
+            h = heads[b * ch + c]
+            pred = (h & 0xFFFF) - ((h & 0x8000) << 1)
+            index = (h >> 16) & 0x7F
+            got = [pred]
+            for code in stream.nibbles[lo + c + ch : hi : ch].tolist():
+                pred, index = _ima_step(pred, index, code)
+                got.append(pred)
+            out[lo + c : hi : ch] = got
+    return out
+
+
+def decode_stored(data: bytes, compression: Mapping[str, Any], *, bits: int) -> np.ndarray:
+    """Decode a compressed ``.bin`` as its sidecar's ``stats.compression`` describes it.
+
+    Parameters
+    ----------
+    data : bytes
+        The file's bytes.
+    compression : mapping
+        The sidecar's ``stats.compression`` (``kind``, ``samples``, ``block_samples``,
+        ``blocks``, ``channels``, and for lossless ``bits``).
+    bits : int
+        Code width when the record does not give it (bundles made before it did).
+
+    Returns
+    -------
+    numpy.ndarray
+        int64: a lossless stream's codes, an ADPCM stream's signed 16-bit samples; two
+        channels interleaved (left, right, ...).
+
+    Raises
+    ------
+    OptionError
+        For an unknown kind, or data that is not the stream described.
+    """
+    kind = compression.get("kind")
+    channels = int(compression.get("channels", 1))
+    samples, block = int(compression["samples"]), int(compression["block_samples"])
+    if kind == "adpcm":
+        return decode_adpcm(
+            adpcm_from_bytes(data, samples=samples, block_samples=block, channels=channels)
+        )
+    if kind != "lossless":
+        raise OptionError(f"unknown compression {kind!r}", field="compression")
+    stream = lossless_from_bytes(
+        data,
+        bits=int(compression.get("bits", bits)),
+        samples=samples,
+        block_samples=block,
+        blocks=int(compression["blocks"]),
+        channels=channels,
+    )
+    return decode_lossless(stream)
 
 
 def mono_frames(samples: np.ndarray) -> np.ndarray:

@@ -101,12 +101,26 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
 
     check_regular_file(bin_path, what="bundle .bin file")
     try:
-        words = np.fromfile(bin_path, dtype="<u4")
+        with open(bin_path, "rb") as f:
+            data = f.read()
     except OSError:
         raise LadderpackError("the bundle's .bin file is unreadable", file=bin_path) from None
     comp = (side.get("stats") or {}).get("compression")
     if comp:
-        words = _decompressed(words, comp, model, bin_path)
+        if model.stored is None:
+            raise LadderpackError(
+                f"the sidecar says the stream is compressed, which a {output} bundle is not",
+                file=sidecar_path,
+                field="stats.compression",
+            )
+        try:
+            words = model.stored(data, comp)
+        except (KeyError, TypeError, ValueError, OptionError) as exc:
+            raise LadderpackError(
+                f"not a compressed stream the sidecar describes ({exc})", file=bin_path
+            ) from None
+    else:
+        words = np.frombuffer(data[: len(data) // 4 * 4], dtype="<u4")
     if words.size < model.layout.words_for(count):
         raise LadderpackError(
             f"holds {words.size} words but the sidecar says {model.layout.words_for(count)}",
@@ -114,44 +128,6 @@ def _read_bundle(sidecar_path: str, channel: int = 0) -> _Bundle:
         )
     codes = model.decode(words, count, channel)
     return _Bundle(side, np.asarray(codes, dtype=np.int64), output, model)
-
-
-def _decompressed(words: np.ndarray, comp: Any, model: Any, bin_path: str) -> np.ndarray:
-    """The words of a compressed stream's ``.bin`` (``--compress lossless`` or ``adpcm``)."""
-    from ladderpack.compress import decode_lossless, lossless_from_bytes
-    from ladderpack.pack import pack
-    from ladderpack.quantize import Codes
-
-    try:
-        if comp.get("kind") == "adpcm":  # 16-bit mono I2S: the sample in both halves
-            from ladderpack.compress import adpcm_from_bytes, decode_adpcm, mono_frames
-
-            coded = adpcm_from_bytes(
-                words.tobytes(),
-                samples=int(comp["samples"]),
-                block_samples=int(comp["block_samples"]),
-            )
-            return mono_frames(decode_adpcm(coded))
-        if comp.get("kind") != "lossless":
-            raise OptionError(f"unknown compression {comp.get('kind')!r}", field="compression")
-        layout = model.layout
-        channels = int(comp.get("channels", 1))
-        stream = lossless_from_bytes(
-            words.tobytes(),
-            bits=int(layout.bits) // channels,
-            samples=int(comp["samples"]),
-            block_samples=int(comp["block_samples"]),
-            blocks=int(comp["blocks"]),
-            channels=channels,
-        )
-        codes = decode_lossless(stream)
-        if channels == 2:  # left and right alternate: the frames left | right << N
-            codes = codes[0::2] | (codes[1::2] << stream.bits)
-        codes = codes.astype(np.uint32 if int(layout.bits) > 16 else np.uint16)
-    except (KeyError, TypeError, ValueError, OptionError) as exc:
-        raise LadderpackError(f"not a compressed stream the sidecar describes ({exc})",
-                              file=bin_path) from None  # fmt: skip
-    return pack(Codes(codes, int(layout.bits)), layout).words
 
 
 def analog_output(

@@ -879,8 +879,9 @@ def _compression_stats(
         "samples": comp.samples,
         "max_duration_s": round(fit, 3),
     }
+    out["channels"] = comp.channels
     if isinstance(comp, LosslessStream):
-        out["channels"] = comp.channels
+        out["bits"] = comp.bits
     else:
         out["sinad_db"] = round(sinad, 3) if math.isfinite(sinad) else None
         out["pcm16_ratio"] = round(2 * comp.samples / comp.nbytes, 4) if comp.nbytes else 1.0

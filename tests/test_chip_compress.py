@@ -162,7 +162,7 @@ static const uint32_t headers[] = {{{_c_list(s.headers, "0x{:08X}u")}}};
 static const uint8_t codes[] = {{{_c_list(s.packed, "0x{:02X}u")}}};
 static const int16_t want[] = {{{_c_list(tail, "{}")}}};
 static const lp_adpcm_stream_t stream = {{
-    headers, codes, {s.headers.size}u, {s.block_samples}u, {s.samples}u}};
+    headers, codes, {s.blocks}u, {s.block_samples}u, {s.samples}u, {s.channels}u}};
 static int16_t buf[{CHUNK}];
 
 static void report(uint32_t op, uint32_t index, uint32_t rc) {{
@@ -198,17 +198,25 @@ int main(void) {{
 """
 
 
-def test_adpcm_decodes_on_the_chip_as_the_references_do(fw: Firmware, tmp_path: Path) -> None:
+@pytest.mark.parametrize("channels", [1, 2])
+def test_adpcm_decodes_on_the_chip_as_the_references_do(
+    fw: Firmware, tmp_path: Path, channels: int
+) -> None:
     from test_compress import ima_decode, voice
 
     x = voice(12000)
-    s = cz.encode_adpcm(x, block_samples=1000)
+    if channels == 2:  # two voices interleaved, each coded on its own
+        x = np.column_stack([x[:6000], voice(6000, seed=9) // 2]).ravel()
+    s = cz.encode_adpcm(x, block_samples=1000, channels=channels)
     want = cz.decode_adpcm(s)
-    # the recommended practice's decoder, written in test_compress.py, agrees block by block
-    for b, h in enumerate(s.headers.tolist()):
-        pred, index = (h & 0xFFFF) - ((h & 0x8000) << 1), h >> 16
-        nib = s.nibbles[1000 * b + 1 : 1000 * (b + 1)].tolist()
-        assert ima_decode(nib, pred, index) == want[1000 * b + 1 : 1000 * (b + 1)].tolist()
+    # the recommended practice's decoder, written in test_compress.py, agrees block by
+    # block and channel by channel
+    for b in range(s.blocks):
+        for c in range(channels):
+            h = int(s.headers[b * channels + c])
+            pred, index = (h & 0xFFFF) - ((h & 0x8000) << 1), h >> 16
+            at = slice(1000 * b + channels + c, 1000 * (b + 1), channels)
+            assert ima_decode(s.nibbles[at].tolist(), pred, index) == want[at].tolist()
     bundle = tmp_path / "bundle"
     bundle.mkdir()
     for name, data in templates.decoder("ladderpack_adpcm").items():
@@ -220,8 +228,8 @@ def test_adpcm_decodes_on_the_chip_as_the_references_do(fw: Firmware, tmp_path: 
         ev = {v >> 24: (v >> 8) & 0xFFFF for _c, v, _p in r.events}
         assert (ev[3] | ev[4] << 16, ev[5]) == (x.size - 1000 * first, 0)
         per_sample = (r.event_busy[1] - r.event_busy[0]) / (x.size - 1000 * first)
-        assert per_sample < 567  # under 10 % of 125 MHz at 22.05 kHz (measured: 89)
-        print(f"adpcm: {per_sample:.1f} clocks/sample")
+        assert per_sample < 567  # under 10 % of 125 MHz at 22.05 kHz (measured: 89, 94)
+        print(f"adpcm, {channels} channel(s): {per_sample:.1f} clocks/sample")
 
 
 # -- the ladder's players with compressed streams ------------------------------------------
@@ -402,7 +410,7 @@ def decode_all(path):
         f.readinto(heads)
         src = bytearray({bs // 2})
         dst = array.array("I", bytes({4 * bs}))
-        cfg = array.array("i", [0, 0, 0])
+        cfg = array.array("i", [0, 0, 0, 1, 0, 0])
         spent = 0
         for b in range(blocks):
             n = min({bs}, {s.samples} - b * {bs})
@@ -520,6 +528,121 @@ def test_i2s_adpcm_micropython_plays_every_frame(tmp_path: Path) -> None:
                                     chunk_words=256))  # fmt: skip
     files = {"zadm.py": made["zadm.py"], "zadm.bin": made["zadm.bin"]}
     r = run_micropython(files, [{"code": "import zadm\nzadm.play()\n"}], tmp_path,
+                        watch_pins=[DATA, CLOCK, CLOCK + 1])  # fmt: skip
+    assert_ok(r)
+    left, right, t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    np.testing.assert_array_equal(left, exp.left)
+    np.testing.assert_array_equal(right, exp.right)
+    test_chip_i2s.assert_period(t, exp)
+
+
+# -- I2S: stereo ADPCM and lossless ---------------------------------------------------------
+# Stereo ADPCM codes each channel on its own; lossless keeps every frame's codes (a mono
+# frame's once, a stereo frame's left and right alternating). Expected frames: for ADPCM
+# the host's reference decoder of the bundle's .bin, for lossless the .bin of the same
+# stream made uncompressed (tests/test_chip_i2s.py's own reading of it).
+
+
+def i2s_stored(
+    folder: Path, name: str, compress: str, stereo: bool, **opts: object
+) -> tuple[test_chip_i2s.Expected, dict[str, bytes]]:
+    """Write the compressed I2S bundle; what should come out, and the bundle's files."""
+    import json
+
+    from ladderpack.audio import Signal
+    from ladderpack.bundle import bundle_files
+    from ladderpack.stream import stream_signal
+
+    t = np.arange(1600) / 22050.0
+    left = 0.8 * np.sin(2 * np.pi * 440 * t)
+    x = np.stack([left, -0.5 * np.sin(2 * np.pi * 1500 * t)], 1) if stereo else left
+    base: dict[str, object] = {
+        "output": "i2s", "stereo": stereo, "bits": 16, "data_pin": DATA,
+        "bit_clock_pin": CLOCK, "chunk_words": 256, **opts,
+    }  # fmt: skip
+
+    def make(where: Path, how: str) -> dict[str, bytes]:
+        where.mkdir(exist_ok=True)
+        files = bundle_files(stream_signal(Signal(x, 22050.0), name=name, compress=how, **base),
+                             embed_words_max=0)  # fmt: skip
+        for fname, data in files.items():
+            (where / fname).write_bytes(data)
+        return files
+
+    files = make(folder, compress)
+    side = json.loads((folder / f"{name}.json").read_text())
+    comp = side["stats"]["compression"]
+    assert comp["kind"] == compress and comp["channels"] == (2 if stereo else 1)
+    if compress == "lossless":
+        make(folder / "plain", "none")
+        exp = test_chip_i2s.Expected.load(folder / "plain", name)
+        assert comp["ratio"] > (1.2 if stereo else 2.4), comp  # a loud 16-bit tone: 1.25x, 2.5x
+        return exp, files
+    assert comp["pcm16_ratio"] > 3.8 and comp["sinad_db"] > 20, comp
+    d = cz.decode_stored((folder / f"{name}.bin").read_bytes(), comp, bits=16)
+    clk = side["clock"]
+    left_d, right_d = (d[0::2], d[1::2]) if stereo else (d, d)
+    return test_chip_i2s.Expected(
+        name, 16, left_d, right_d, 128 * (clk["div_int"] + clk["div_frac"] / 256),
+        side["options"]["frame_format"],
+    ), files  # fmt: skip
+
+
+STORED_CASES = [("adpcm", True), ("lossless", False), ("lossless", True)]
+
+
+@pytest.mark.parametrize(("compress", "stereo"), STORED_CASES)
+def test_i2s_stored_c_plays_every_frame(
+    fw: Firmware, tmp_path: Path, compress: str, stereo: bool
+) -> None:
+    exp, _files = i2s_stored(tmp_path, "zst", compress, stereo)
+    assert not stereo or not np.array_equal(exp.left, exp.right)
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zst", [("init", 0), ("start", 0), ("wait", 0)])
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    np.testing.assert_array_equal(left, exp.left)
+    np.testing.assert_array_equal(right, exp.right)
+    test_chip_i2s.assert_period(t, exp)
+
+
+def test_i2s_lossless_stereo_c_stop_fades_both_channels(fw: Firmware, tmp_path: Path) -> None:
+    exp, _files = i2s_stored(tmp_path, "zsf", "lossless", True)
+    stop_at = int(exp.left.size * 0.5 * exp.period_clocks)
+    ops = [("init", 0), ("start", 0), ("delay", stop_at), ("stop", 0)]
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zsf", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, _t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    n = 0
+    while n < left.size and left[n] == exp.left[n] and right[n] == exp.right[n]:
+        n += 1
+    assert 100 < n < exp.left.size - 100, n
+    for fade in (left[n:], right[n:]):
+        assert fade.size <= 64 + 1 and fade[-1] == 0
+        assert np.all(np.abs(fade[1:]) <= np.abs(fade[:-1]) + 1)  # never grows
+
+
+def test_i2s_stereo_adpcm_c_loop_ends_on_a_pass(fw: Firmware, tmp_path: Path) -> None:
+    exp, _files = i2s_stored(tmp_path, "zsl", "adpcm", True, loop=True)
+    frames = exp.left.size
+    stop_at = int(2.5 * frames * exp.period_clocks)
+    ops = [("init", 0), ("start", 1), ("delay", stop_at), ("stop", 0)]
+    r = test_chip_i2s.build_and_run(fw, tmp_path, "zsl", ops)
+    assert r.ended and all(rc == 0 for rc in r.results()), r.results()
+    left, right, _t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)
+    passes, rest = divmod(left.size - 1, frames)  # the outro: one silent frame
+    assert rest == 0 and passes >= 3, (left.size, frames)
+    np.testing.assert_array_equal(left[:-1], np.tile(exp.left, passes))
+    np.testing.assert_array_equal(right[:-1], np.tile(exp.right, passes))
+    assert left[-1] == 0 and right[-1] == 0
+
+
+@pytest.mark.parametrize(("compress", "stereo"), STORED_CASES)
+def test_i2s_stored_micropython_plays_every_frame(
+    tmp_path: Path, compress: str, stereo: bool
+) -> None:
+    exp, made = i2s_stored(tmp_path, "zsm", compress, stereo)
+    files = {"zsm.py": made["zsm.py"], "zsm.bin": made["zsm.bin"]}
+    r = run_micropython(files, [{"code": "import zsm\nzsm.play()\n"}], tmp_path,
                         watch_pins=[DATA, CLOCK, CLOCK + 1])  # fmt: skip
     assert_ok(r)
     left, right, t = frames_of(*decode_i2s(r.changes, exp.frame_format), 16)

@@ -236,7 +236,7 @@ def test_the_micropython_decoder_gives_the_stream_words(bits: int, layout: str) 
         inv = (1 << bits) - 1 if lay.invert else 0
         cfg = array.array(
             "i",
-            [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv, 1],
+            [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv, 1, 0],
         )
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == asset.packed.words.tolist()
@@ -307,10 +307,99 @@ def test_the_micropython_adpcm_decoder_gives_the_reference_samples() -> None:
         n = min(1000, s.samples - 1000 * b)
         src = bytes(packed[500 * b : 500 * b + (n + 1) // 2])
         dst = array.array("I", bytes(4 * n))
-        assert decode(src, dst, array.array("i", [n, pred, index])) == n  # type: ignore[operator]
+        cfg = array.array("i", [n, pred, index, 1, 0, 0])
+        assert decode(src, dst, cfg) == n  # type: ignore[operator]
         got = [((w >> 16) ^ 0x8000) - 0x8000 for w in dst]
         assert got == want[1000 * b : 1000 * b + n].tolist()
         assert all((w >> 16) == (w & 0xFFFF) for w in dst)  # the sample in both halves
+
+
+def test_stereo_adpcm_codes_each_channel_on_its_own() -> None:
+    # two channels interleaved: each channel's codes and headers are those of the channel
+    # coded alone (half the block), and each decodes by CPython's audioop (IMA ADPCM)
+    left, right = voice(3000, seed=1), voice(3000, seed=2) // 3
+    x = np.column_stack([left, right]).ravel()
+    s = cz.encode_adpcm(x, block_samples=1000, channels=2)
+    assert s.channels == 2 and s.blocks == 6 and s.headers.size == 12
+    d = cz.decode_adpcm(s)
+    for c, mono in enumerate((left, right)):
+        alone = cz.encode_adpcm(mono, block_samples=500)
+        assert s.headers[c::2].tolist() == alone.headers.tolist()
+        assert s.nibbles[c::2].tolist() == alone.nibbles.tolist()
+        np.testing.assert_array_equal(d[c::2], cz.decode_adpcm(alone))
+        for b, h in enumerate(alone.headers.tolist()):
+            pred, index = (h & 0xFFFF) - ((h & 0x8000) << 1), h >> 16
+            nib = s.nibbles[1000 * b + 2 + c : 1000 * (b + 1) : 2].tolist()
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", DeprecationWarning)
+                lin, _state = audioop.adpcm2lin(_hi_first(nib), 2, (pred, index))
+            theirs = np.frombuffer(lin, "<i2")[: len(nib)].astype(np.int64)
+            np.testing.assert_array_equal(d[1000 * b + 2 + c : 1000 * (b + 1) : 2], theirs)
+    # a frame's two codes share a byte, left in the low nibble; the file form reads back
+    assert s.packed[1] == s.nibbles[2] | s.nibbles[3] << 4
+    back = cz.adpcm_from_bytes(s.to_bytes(), samples=6000, block_samples=1000, channels=2)
+    np.testing.assert_array_equal(cz.decode_adpcm(back), d)
+    assert s.nbytes == x.size // 2 + 4 * 12  # 4 bits a sample, a header a block and channel
+
+
+def test_the_micropython_stereo_adpcm_decoder_gives_the_reference_frames() -> None:
+    import array
+    import types
+
+    from ladderpack.emit.micropython import ADPCM_DECODER
+
+    space: dict[str, object] = {
+        "array": array,
+        "micropython": types.SimpleNamespace(viper=lambda f: f),
+        "ptr8": lambda a: a,
+        "ptr16": lambda a: a,
+        "ptr32": _Words,
+    }
+    exec(ADPCM_DECODER, space)  # our own generated source
+    decode = space["_adpcm_block"]
+    x = np.column_stack([voice(2100, seed=4), -voice(2100, seed=5)]).ravel()
+    s = cz.encode_adpcm(x, block_samples=1000, channels=2)
+    want = cz.decode_adpcm(s)
+    packed, heads = s.packed, s.headers.tolist()
+    for b in range(s.blocks):
+        n = min(1000, s.samples - 1000 * b)
+        src = bytes(packed[500 * b : 500 * b + n // 2])
+        dst = array.array("I", bytes(4 * (n // 2)))
+        cfg = array.array("i", [n, 0, 0, 2, 0, 0])
+        for c in range(2):
+            h = heads[2 * b + c]
+            cfg[1 + 3 * c], cfg[2 + 3 * c] = (h & 0xFFFF) - ((h & 0x8000) << 1), h >> 16
+        assert decode(src, dst, cfg) == n // 2  # type: ignore[operator]
+        got = (
+            [((w >> 16) ^ 0x8000) - 0x8000 for w in dst],
+            [((w & 0xFFFF) ^ 0x8000) - 0x8000 for w in dst],
+        )
+        assert got[0] == want[1000 * b : 1000 * b + n : 2].tolist()
+        assert got[1] == want[1000 * b + 1 : 1000 * b + n : 2].tolist()
+
+
+@pytest.mark.parametrize("stereo", [False, True])
+def test_the_micropython_decoder_gives_i2s_frames(stereo: bool) -> None:
+    # the lossless decoder's I2S mode: a word a frame, two's complement, left in the top
+    # half (a mono code in both), as the I2S layout packs them
+    import array
+
+    from ladderpack.outputs.i2s import I2sLayout
+
+    lay = I2sLayout(16, stereo=stereo)
+    ch = 2 if stereo else 1
+    codes = np.concatenate([sine_codes(1500 * ch, 16), np.array([0, 65535] * ch)])
+    s = cz.encode_lossless(codes, 16, block_samples=256 * ch, channels=ch)
+    decode = _viper_decoder()
+    ends = [*s.block_words.tolist()[1:], s.words.size]
+    got: list[int] = []
+    for b, start in enumerate(s.block_words.tolist()):
+        src = array.array("I", [int(w) for w in s.words[start : ends[b]]] + [0])
+        dst = array.array("I", bytes(4 * 256))
+        n = min(s.block_samples, s.samples - b * s.block_samples)
+        cfg = array.array("i", [n, 16, 1, 0, 0, 0x8000, ch, 1])
+        got += dst[: decode(src, dst, cfg)].tolist()
+    assert got == lay.pack_codes(codes).tolist()
 
 
 @pytest.mark.parametrize("width", [2, 5, 8])
@@ -348,3 +437,48 @@ def test_two_channels_are_predicted_each_from_its_own() -> None:
     back = cz.lossless_from_bytes(two.to_bytes(), bits=10, samples=x.size, block_samples=1024,
                                   blocks=two.blocks, channels=2)  # fmt: skip
     np.testing.assert_array_equal(cz.decode_lossless(back), x)
+
+
+# -- preview reads a compressed bundle ------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("output", "compress", "stereo"),
+    [
+        ("ladder", "lossless", False),
+        ("ladder", "lossless", True),
+        ("i2s", "lossless", False),
+        ("i2s", "lossless", True),
+        ("i2s", "adpcm", False),
+        ("i2s", "adpcm", True),
+    ],
+)
+def test_preview_reads_what_the_players_send(
+    tmp_path: Path, output: str, compress: str, stereo: bool
+) -> None:
+    # each channel's codes, as preview decodes the compressed .bin: for lossless those of
+    # the same stream's uncompressed .bin (unpacked by the layout), for ADPCM those the
+    # words the players send decode to (the host reference decoder's samples)
+    from ladderpack.audio import Signal
+    from ladderpack.bundle import write_bundle
+    from ladderpack.preview import _read_bundle
+    from ladderpack.stream import stream_signal
+
+    t = np.arange(3000) / 22050.0
+    x = np.stack([0.7 * np.sin(2 * np.pi * 300 * t), 0.4 * np.sin(2 * np.pi * 900 * t)], 1)
+    opts: dict[str, Any] = {"output": output, "stereo": stereo}
+    if output == "ladder":
+        opts["bits"] = 6 if stereo else 10
+    sig = Signal(x if stereo else x[:, 0], 22050.0)
+    for how, where in ((compress, tmp_path / "c"), ("none", tmp_path / "u")):
+        write_bundle(stream_signal(sig, name="zp", compress=how, **opts), where)
+    packed = stream_signal(sig, name="zp", compress=compress, **opts).packed
+    for ch in range(2 if stereo else 1):
+        got = _read_bundle(str(tmp_path / "c" / "zp.json"), ch)
+        plain = _read_bundle(str(tmp_path / "u" / "zp.json"), ch)
+        if compress == "lossless":
+            np.testing.assert_array_equal(got.codes, plain.codes)
+        else:
+            want = got.model.decode(packed.words, packed.sample_count, ch)
+            np.testing.assert_array_equal(got.codes, want)
+            assert 0 < np.max(np.abs(got.codes.astype(np.int64) - plain.codes)) < 2000

@@ -194,20 +194,10 @@ def render_header(asset: StreamAsset) -> str:
     guard = f"LADDERPACK_{prefix}_H"
     lines = header_frame(asset, _defines(asset))
     lines += pll_lines(asset)
-    if asset.lossless is not None:
-        ll = asset.lossless
-        lines += [
-            "",
-            "/* Stored compressed (--compress lossless, ladderpack_lossless.h): the player",
-            " * decodes the codes of every word and packs them again. */",
-            '#include "ladderpack_lossless.h"',
-            f"#define {prefix}_LOSSLESS_WORD_COUNT {int(ll.words.size)}u /* bit-stream words */",
-            f"#define {prefix}_LOSSLESS_BLOCK_COUNT {int(ll.block_words.size)}u "
-            f"/* blocks of {ll.block_samples} codes */",
-            f"extern const lp_lossless_stream_t {asset.name}_lossless;",
-        ]
-    else:
-        lines += ["", f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];"]
+    lines += compressed_header_lines(asset) or [
+        "",
+        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
+    ]
     lines += [f"extern const uint16_t {asset.name}_program[{prefix}_PROGRAM_LENGTH];"]
     for part in ("intro", "outro"):
         if _count(getattr(asset, part)):
@@ -287,8 +277,8 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
     yield from _banner(asset).split("\n")  # its last element is the blank line after it
     yield f'#include "{asset.name}.h"'
     yield ""
-    if asset.lossless is not None:
-        yield from _lossless_lines(asset)
+    if asset.compressed is not None:
+        yield from compressed_source_lines(asset)
     else:
         yield "/* Packed samples in FIFO order; const, so they stay in flash, and"
         yield " * uint32_t, so they are word-aligned for DMA. */"
@@ -320,6 +310,47 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
         yield "};"
 
 
+def compressed_header_lines(asset: StreamAsset) -> list[str]:
+    """A compressed stream's header lines: the decoder's include, its sizes, its extern.
+
+    Empty for a stream stored as words.
+    """
+    n, prefix = asset.name, asset.name.upper()
+    if asset.lossless is not None:
+        ll = asset.lossless
+        return [
+            "",
+            "/* Stored compressed (--compress lossless, ladderpack_lossless.h): the player",
+            " * decodes the codes of every word and packs them again. */",
+            '#include "ladderpack_lossless.h"',
+            f"#define {prefix}_LOSSLESS_WORD_COUNT {int(ll.words.size)}u /* bit-stream words */",
+            f"#define {prefix}_LOSSLESS_BLOCK_COUNT {int(ll.block_words.size)}u "
+            f"/* blocks of {ll.block_samples} codes */",
+            f"extern const lp_lossless_stream_t {n}_lossless;",
+        ]
+    if asset.adpcm is not None:
+        ad = asset.adpcm
+        return [
+            "",
+            "/* Stored as IMA ADPCM (--compress adpcm, ladderpack_adpcm.h): the player decodes",
+            " * the samples and sends the words they make. */",
+            '#include "ladderpack_adpcm.h"',
+            f"#define {prefix}_ADPCM_BLOCK_COUNT {ad.blocks}u /* blocks of {ad.block_samples} "
+            "samples */",
+            f"#define {prefix}_ADPCM_CODE_BYTES {int(ad.packed.size)}u /* two codes a byte */",
+            f"extern const lp_adpcm_stream_t {n}_adpcm;",
+        ]
+    return []
+
+
+def compressed_source_lines(asset: StreamAsset) -> Iterator[str]:
+    """A compressed stream's source lines (the stored form and its description)."""
+    if asset.lossless is not None:
+        yield from _lossless_lines(asset)
+    elif asset.adpcm is not None:
+        yield from _adpcm_lines(asset)
+
+
 def _lossless_lines(asset: StreamAsset) -> Iterator[str]:
     """The compressed codes: the bit stream, the block index and their description."""
     ll, n, prefix = asset.lossless, asset.name, asset.name.upper()
@@ -347,9 +378,10 @@ def _adpcm_lines(asset: StreamAsset) -> Iterator[str]:
     """The ADPCM-coded samples: the block headers, the codes and their description."""
     ad, n, prefix = asset.adpcm, asset.name, asset.name.upper()
     assert ad is not None
-    yield "/* The samples as IMA ADPCM (ladderpack_adpcm.h): per block its starting predictor"
+    yield "/* The samples as IMA ADPCM (ladderpack_adpcm.h): per block (and channel) its predictor"
     yield " * (low half) and step index (bits 16..22), then the codes, two a byte. */"
-    yield f"static const uint32_t {n}_adpcm_headers[{prefix}_ADPCM_BLOCK_COUNT] = {{"
+    count = f"{prefix}_ADPCM_BLOCK_COUNT" + (" * 2u" if ad.channels == 2 else "")
+    yield f"static const uint32_t {n}_adpcm_headers[{count}] = {{"
     yield from _array_lines(ad.headers, 8)
     yield "};"
     yield f"static const uint8_t {n}_adpcm_codes[{prefix}_ADPCM_CODE_BYTES] = {{"
@@ -360,7 +392,8 @@ def _adpcm_lines(asset: StreamAsset) -> Iterator[str]:
     yield f"    {n}_adpcm_codes,"
     yield f"    {prefix}_ADPCM_BLOCK_COUNT,"
     yield f"    {ad.block_samples}u,"
-    yield f"    {ad.samples}u"
+    yield f"    {ad.samples}u,"
+    yield f"    {ad.channels}u /* channels */"
     yield "};"
 
 
@@ -435,20 +468,10 @@ def fifo_stream_header(
     n, prefix = asset.name, asset.name.upper()
     lines = header_frame(asset, defines)
     lines += pll_lines(asset)
-    if asset.adpcm is not None:
-        ad = asset.adpcm
-        lines += [
-            "",
-            "/* Stored as IMA ADPCM (--compress adpcm, ladderpack_adpcm.h): the player decodes",
-            " * the samples and sends the words they make. */",
-            '#include "ladderpack_adpcm.h"',
-            f"#define {prefix}_ADPCM_BLOCK_COUNT {ad.blocks}u /* blocks of {ad.block_samples} "
-            "samples */",
-            f"#define {prefix}_ADPCM_CODE_BYTES {int(ad.packed.size)}u /* two codes a byte */",
-            f"extern const lp_adpcm_stream_t {n}_adpcm;",
-        ]
-    else:
-        lines += ["", f"extern const uint32_t {n}_words[{prefix}_WORD_COUNT];"]
+    lines += compressed_header_lines(asset) or [
+        "",
+        f"extern const uint32_t {n}_words[{prefix}_WORD_COUNT];",
+    ]
     lines += [f"extern const uint16_t {n}_program[{prefix}_PROGRAM_LENGTH];"]
     for part, key in ((asset.intro, "intro"), (asset.outro, "outro")):
         if _count(part):
@@ -470,8 +493,8 @@ def fifo_stream_source_lines(
     yield from _banner(asset).split("\n")
     yield f'#include "{n}.h"'
     yield ""
-    if asset.adpcm is not None:
-        yield from _adpcm_lines(asset)
+    if asset.compressed is not None:
+        yield from compressed_source_lines(asset)
     else:
         yield from words_note
         yield f"const uint32_t {n}_words[{prefix}_WORD_COUNT] = {{"

@@ -759,7 +759,8 @@ LOSSLESS_DECODER = """\
 def _lossless_block(src, dst, cfg) -> int:
     # cfg: codes in the block, bits a code, samples per word, shift right, pin order
     # reversed, inversion mask, channels (2: left and right alternate, a sample is the
-    # frame left | right << bits); src: the block's bit stream; dst: the words. Returns
+    # frame left | right << bits), I2S frames (1: a word a frame, left << 16 | right, a
+    # mono code in both halves); src: the block's bit stream; dst: the words. Returns
     # the words.
     s = ptr32(src)
     d = ptr32(dst)
@@ -771,6 +772,7 @@ def _lossless_block(src, dst, cfg) -> int:
     rev = c[4]
     inv = c[5]
     two = c[6] - 1
+    i2s = c[7]
     width = bits << two
     head = (s[0] >> 26) & 63
     order = head >> 4
@@ -842,6 +844,17 @@ def _lossless_block(src, dst, cfg) -> int:
             p = r
         p = p ^ inv
         i += 1
+        if i2s:
+            if two:
+                if ch == 0:
+                    left = p
+                    continue
+                p = (left << 16) | p
+            else:
+                p = (p << 16) | p
+            d[nw] = p
+            nw += 1
+            continue
         if two and ch == 0:
             left = p  # the frame's left half: its right half comes next
             continue
@@ -861,9 +874,9 @@ def _lossless_block(src, dst, cfg) -> int:
 """
 
 #: The IMA ADPCM block decoder (ladderpack.compress; IMA 1992) in viper: one block's
-#: codes (two a byte, the earlier in the low nibble) into words holding the sample in
-#: both 16-bit halves (a mono I2S frame). Plain Python too, with the pointer casts as
-#: views (the tests run it on the host against the reference decoder).
+#: codes (two a byte, the earlier in the low nibble) into 16-bit I2S frames (a mono
+#: sample in both halves; two channels left << 16 | right). Plain Python too, with the
+#: pointer casts as views (the tests run it on the host against the reference decoder).
 ADPCM_DECODER = """\
 
 _IMA_STEPS = array.array("H", [
@@ -877,46 +890,70 @@ _IMA_STEPS = array.array("H", [
 
 @micropython.viper
 def _adpcm_block(src, dst, cfg) -> int:
-    # cfg: samples in the block, its predictor, its step index; returns the words
+    # cfg: samples in the block (all channels), then per channel its predictor and step
+    # index at the block's start: left's in cfg[1], cfg[2], right's in cfg[4], cfg[5];
+    # cfg[3] the channels (2: left and right alternate, a frame a word, left << 16 |
+    # right). Returns the words.
     s = ptr8(src)
     d = ptr32(dst)
     c = ptr32(cfg)
     st = ptr16(_IMA_STEPS)
     n = c[0]
-    pred = c[1]
-    index = c[2]
-    d[0] = (pred << 16) | (pred & 0xFFFF)
-    i = 1
+    two = c[3] - 1
+    pl = c[1]
+    il = c[2]
+    pr = c[4]
+    ir = c[5]
+    i = 0
+    nw = 0
     while i < n:
-        code = (s[i >> 1] >> ((i & 1) << 2)) & 15
-        step = st[index]
-        diff = step >> 3
-        if code & 4:
-            diff += step
-        if code & 2:
-            diff += step >> 1
-        if code & 1:
-            diff += step >> 2
-        if code & 8:
-            pred -= diff
+        ch = i & two
+        if ch:
+            pred = pr
+            index = ir
         else:
-            pred += diff
-        if pred > 32767:
-            pred = 32767
-        elif pred < -32768:
-            pred = -32768
-        m = code & 7
-        if m < 4:
-            index -= 1
-        else:
-            index += (m - 3) << 1
-        if index < 0:
-            index = 0
-        elif index > 88:
-            index = 88
-        d[i] = (pred << 16) | (pred & 0xFFFF)
+            pred = pl
+            index = il
+        if i > two:  # the block's first frame is its headers' predictors
+            code = (s[i >> 1] >> ((i & 1) << 2)) & 15
+            step = st[index]
+            diff = step >> 3
+            if code & 4:
+                diff += step
+            if code & 2:
+                diff += step >> 1
+            if code & 1:
+                diff += step >> 2
+            if code & 8:
+                pred -= diff
+            else:
+                pred += diff
+            if pred > 32767:
+                pred = 32767
+            elif pred < -32768:
+                pred = -32768
+            m = code & 7
+            if m < 4:
+                index -= 1
+            else:
+                index += (m - 3) << 1
+            if index < 0:
+                index = 0
+            elif index > 88:
+                index = 88
         i += 1
-    return n
+        if ch:
+            pr = pred
+            ir = index
+            d[nw] = (pl << 16) | (pred & 0xFFFF)
+            nw += 1
+            continue
+        pl = pred
+        il = index
+        if two == 0:
+            d[nw] = (pred << 16) | (pred & 0xFFFF)
+            nw += 1
+    return nw
 """
 
 
@@ -928,7 +965,7 @@ LOSSLESS_PLAY = """\
         index = array.array("I", bytes(4 * (blocks + 1)))
         src = array.array("I", bytes(4 * (longest + 1)))
         cfg = array.array("i", [0, bits, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
-                                ((1 << bits) - 1) if INVERTED else 0, channels])
+                                ((1 << bits) - 1) if INVERTED else 0, channels, 0])
         with open(self.path, "rb") as f:
             f.readinto(memoryview(index)[:blocks])
             index[blocks] = LOSSLESS[3]

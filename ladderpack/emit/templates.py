@@ -69,8 +69,8 @@ def player(stem: str) -> dict[str, bytes]:
 
     Examples
     --------
-    >>> sorted(player("ladderpack_i2s"))
-    ['ladderpack_adpcm.h', 'ladderpack_common.h', 'ladderpack_i2s.c', 'ladderpack_i2s.h']
+    >>> sorted(player("ladderpack_i2s"))[2:]
+    ['ladderpack_i2s.c', 'ladderpack_i2s.h', 'ladderpack_lossless.h']
     """
     from ladderpack._version import __version__
     from ladderpack.emit.names import player_files

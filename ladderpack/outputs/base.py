@@ -148,6 +148,10 @@ class PreviewModel:
         Whether the codes drive a ladder (a LevelSet may give the real levels).
     decode : callable
         ``(words, sample_count, channel) -> codes`` of that channel.
+    stored : callable or None
+        ``(data, compression) -> words``: the words a compressed ``.bin`` (its bytes)
+        decodes to, given the sidecar's ``stats.compression``; None for an output that
+        stores only words.
     """
 
     layout: Any
@@ -157,6 +161,7 @@ class PreviewModel:
     half: float
     ladder: bool
     decode: Callable[[np.ndarray, int, int], np.ndarray]
+    stored: Callable[[bytes, Mapping[str, Any]], np.ndarray] | None = None
 
 
 @dataclass(frozen=True)

@@ -510,7 +510,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     n, P = asset.name, asset.name.upper()
     outro = f"{n}_outro_words" if asset.loop else "NULL"
     fields = [
-        f"{n}_words" if asset.adpcm is None else "NULL",
+        f"{n}_words" if asset.compressed is None else "NULL",
         f"{P}_WORD_COUNT",
         outro,
         f"{P}_OUTRO_WORD_COUNT",
@@ -529,6 +529,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_GPIO_BASE",
         f"&{n}_adpcm" if asset.adpcm is not None else "NULL",
+        f"&{n}_lossless" if asset.lossless is not None else "NULL",
     ]
     return init_macro("lp_i2s_stream_t", "ladderpack_i2s.h", f"{P}_I2S_INIT", fields)
 
@@ -841,32 +842,16 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         ),
         asset,
     )
-    return text if asset.adpcm is None else _with_adpcm(text, asset)
+    return text if asset.compressed is None else _with_stored(text, asset)
 
 
-#: An ADPCM stream's way through its ``.bin``: the block headers, then each block's codes
-#: read and decoded into the buffer that is not playing.
-_ADPCM_PLAY = """\
-    def _play_adpcm(self, loop: bool) -> None:
-        blocks, per_block, samples = ADPCM
-        heads = array.array("I", bytes(4 * blocks))
-        src = bytearray(per_block // 2)
-        cfg = array.array("i", [0, 0, 0])
+#: A compressed stream's way through its ``.bin``: the reader (`_ADPCM_READER` or
+#: `_LOSSLESS_READER`) gives a block's frames, decoded into the buffer that is not playing.
+_STORED_PLAY = """\
+    def _play_stored(self, loop: bool) -> None:
         self.prev_last = 0
         with open(self.path, "rb") as f:
-            f.readinto(heads)
-            base = 4 * blocks
-
-            def block(b: int, buf: "array.array[int]") -> int:
-                n = min(per_block, samples - b * per_block)
-                f.seek(base + b * (per_block // 2))
-                f.readinto(memoryview(src)[: (n + 1) // 2])
-                h = heads[b]
-                cfg[0] = n
-                cfg[1] = (h & 0xFFFF) - ((h & 0x8000) << 1)
-                cfg[2] = h >> 16
-                return _adpcm_block(src, buf, cfg)
-
+            block, blocks = self._reader(f)
             which, b = 0, 1
             n = block(0, self.bufs[0])  # decoded before the machine runs
             self._send(self.bufs[0], n)
@@ -891,38 +876,96 @@ _ADPCM_PLAY = """\
 
 """
 
+#: An ADPCM ``.bin``: the block headers (a word per block and channel), then the codes.
+_ADPCM_READER = """\
+    def _reader(self, f):
+        blocks, per_block, samples, channels = STORED
+        heads = array.array("I", bytes(4 * blocks * channels))
+        src = bytearray(per_block // 2)
+        cfg = array.array("i", [0, 0, 0, channels, 0, 0])
+        f.readinto(heads)
+        base = 4 * blocks * channels
 
-def _with_adpcm(text: str, asset: StreamAsset) -> str:
-    """The module of an ADPCM stream.
+        def block(b: int, buf: "array.array[int]") -> int:
+            n = min(per_block, samples - b * per_block)
+            f.seek(base + b * (per_block // 2))
+            f.readinto(memoryview(src)[: (n + 1) // 2])
+            cfg[0] = n
+            for c in range(channels):
+                h = heads[b * channels + c]
+                cfg[1 + 3 * c] = (h & 0xFFFF) - ((h & 0x8000) << 1)
+                cfg[2 + 3 * c] = h >> 16
+            return _adpcm_block(src, buf, cfg)
 
-    Its description, the decoder, the player's way through the coded ``.bin``, and the
+        return block, blocks
+
+"""
+
+#: A lossless ``.bin``: the block index (a word a block), then the bit stream.
+_LOSSLESS_READER = """\
+    def _reader(self, f):
+        blocks, per_block, samples, stream_words, longest, channels = STORED
+        index = array.array("I", bytes(4 * (blocks + 1)))
+        src = array.array("I", bytes(4 * (longest + 1)))
+        cfg = array.array("i", [0, 16, 1, 0, 0, 0x8000, channels, 1])
+        f.readinto(memoryview(index)[:blocks])
+        index[blocks] = stream_words
+        base = 4 * blocks
+
+        def block(b: int, buf: "array.array[int]") -> int:
+            f.seek(base + 4 * index[b])
+            f.readinto(memoryview(src)[: index[b + 1] - index[b]])
+            cfg[0] = min(per_block, samples - b * per_block)
+            return _lossless_block(src, buf, cfg)
+
+        return block, blocks
+
+"""
+
+
+def _with_stored(text: str, asset: StreamAsset) -> str:
+    """The module of a compressed stream (ADPCM or lossless).
+
+    Its description, the decoder, the player's way through the stored ``.bin``, and the
     words of a fade taken from the buffers.
     """
-    from ladderpack.emit.micropython import ADPCM_DECODER
+    from ladderpack.emit.micropython import ADPCM_DECODER, LOSSLESS_DECODER
 
-    ad = asset.adpcm
-    assert ad is not None
-    desc = (
-        f"# Stored as IMA ADPCM (--compress adpcm): the .bin holds {ad.blocks} block headers, "
-        "then the codes\n# two a byte; each block decodes on its own into frames.\n"
-        f"ADPCM = ({ad.blocks}, {ad.block_samples}, {ad.samples})  # blocks, samples a block, "
-        "samples\n"
-    )
+    ad, ll = asset.adpcm, asset.lossless
+    if ad is not None:
+        desc = (
+            f"# Stored as IMA ADPCM (--compress adpcm): the .bin holds {ad.blocks * ad.channels} "
+            "block headers, then\n# the codes two a byte; each block decodes on its own into "
+            "frames.\n"
+            f"STORED = ({ad.blocks}, {ad.block_samples}, {ad.samples}, {ad.channels})  "
+            "# blocks, samples a block,\n# samples, channels\n"
+        )
+        decoder, reader = ADPCM_DECODER, _ADPCM_READER
+    else:
+        assert ll is not None
+        desc = (
+            f"# Stored compressed (--compress lossless): the .bin holds {ll.blocks} block "
+            "offsets, then the\n# bit stream; each block decodes on its own into frames.\n"
+            f"STORED = ({ll.blocks}, {ll.block_samples}, {ll.samples}, {int(ll.words.size)}, "
+            f"{ll.max_block_words}, {ll.channels})  # blocks, codes a\n# block, codes, stream "
+            "words, longest block, channels\n"
+        )
+        decoder, reader = LOSSLESS_DECODER, _LOSSLESS_READER
     pairs = [
         ("FADE_FRAMES = ", desc + "FADE_FRAMES = "),
         ("import array\n", "import array\nimport micropython\n"),
-        ("\nclass Player", ADPCM_DECODER + "\n\nclass Player"),
+        ("\nclass Player", decoder + "\n\nclass Player"),
         (
             "    def _play_file(self, loop: bool) -> None:\n",
-            _ADPCM_PLAY + "    def _play_file(self, loop: bool) -> None:\n"
-            "        if ADPCM is not None:\n            self._play_adpcm(loop)\n"
-            "            return\n",
+            _STORED_PLAY + reader + "    def _play_file(self, loop: bool) -> None:\n"
+            "        self._play_stored(loop)  # the .bin is stored compressed\n"
+            "        return\n",
         ),
         (
             "    def _word(self, k: int) -> int:\n",
             "    def _word(self, k: int) -> int:\n"
-            "        if ADPCM is not None:  # the words are in the buffers, not the file\n"
-            "            return self.cur[k - self.sent] if k >= self.sent else self.prev_last\n",
+            "        # the words are in the buffers, not the file\n"
+            "        return self.cur[k - self.sent] if k >= self.sent else self.prev_last\n",
         ),
     ]
     for old, new in pairs:
@@ -985,15 +1028,15 @@ class I2sOutput:
                 + get_target(opts.target).more_pins_hint(max(pins)),
                 field="bit_clock_pin" if pins[2] >= count else "data_pin",
             )
-        if opts.compress == "lossless":
+        if opts.compress == "adpcm" and opts.bits != 16:
             raise OptionError(
-                "I2S streams are not stored losslessly compressed yet: use --compress adpcm "
-                "(16-bit mono) or none",
+                f"IMA ADPCM codes 16-bit samples, got --bits {opts.bits}: use --bits 16",
                 field="compress",
             )
-        if opts.compress == "adpcm" and (opts.bits != 16 or opts.stereo):
+        if opts.compress == "lossless" and opts.bits != 16:
             raise OptionError(
-                "IMA ADPCM codes 16-bit samples of one channel: use --bits 16 --mono",
+                f"I2S streams are stored losslessly compressed with 16-bit samples, got "
+                f"--bits {opts.bits}: use --bits 16, or --compress none",
                 field="compress",
             )
         self.gpio_base(opts)
@@ -1061,25 +1104,34 @@ class I2sOutput:
         return plan.program.variant
 
     def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
-        """``--compress adpcm`` (16-bit mono): the samples coded as IMA ADPCM.
+        """``--compress lossless`` or ``adpcm`` (16-bit samples, mono or stereo).
 
-        With the words they decode to (the sample in both halves), which the players send
-        instead of the stream's, and their SINAD against the uncompressed samples. Blocks
-        no longer than a MicroPython player's buffer (a word a sample), even, so each
-        block's codes start on a byte.
+        Lossless keeps the frames' codes (a mono frame's once; a stereo frame's left and
+        right alternating, each predicted from its own channel). ADPCM codes the samples,
+        each channel on its own, and gives the words they decode to, which the players
+        send instead of the stream's, with their SINAD against the uncompressed samples.
+        Blocks hold no more frames than a MicroPython player's buffer (a word a frame),
+        an even count, so each block's codes start on a byte.
         """
-        if opts.compress != "adpcm":
+        if opts.compress not in ("lossless", "adpcm"):
             return uncompressed(packed)
         import dataclasses
 
-        from ladderpack.compress import decode_adpcm, encode_adpcm, mono_frames, sinad_db
+        from ladderpack.compress import decode_adpcm, encode_adpcm, encode_lossless, sinad_db
 
-        w = packed.words.astype(np.int64)
-        x = ((w >> 16) ^ 0x8000) - 0x8000
-        block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2)
-        coded = encode_adpcm(x, block_samples=block)
+        lay = packed.layout
+        assert isinstance(lay, I2sLayout) and lay.bits == 16
+        ch = lay.channels
+        frames = lay.unpack_words(packed.words)  # offset codes, (frames, 2)
+        codes = (frames if lay.stereo else frames[:, :1]).ravel()
+        block = max(2, min(1024, int(opts.chunk_words)) // 2 * 2) * ch
+        if opts.compress == "lossless":
+            return Compressed(encode_lossless(codes, 16, block_samples=block, channels=ch),
+                              None, packed)  # fmt: skip
+        x = codes - lay.mid_code
+        coded = encode_adpcm(x, block_samples=block, channels=ch)
         d = decode_adpcm(coded)
-        words = mono_frames(d)
+        words = lay.pack_codes(d + lay.mid_code)
         return Compressed(None, coded, dataclasses.replace(packed, words=words), sinad_db(x, d))
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
@@ -1118,12 +1170,12 @@ class I2sOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the I2S player."""
-        n, ad = asset.name, asset.adpcm
-        return {  # an ADPCM stream's .bin is its coded form, read block by block
-            f"{n}.bin": binary.render_chunks(asset.packed) if ad is None else ad.to_bytes(),
+        n, stored = asset.name, asset.compressed
+        return {  # a compressed stream's .bin is its stored form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if stored is None else stored.to_bytes(),
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": render_source_chunks(asset),
-            f"{n}.py": render_micropython(asset, embed=embed and ad is None).encode(),
+            f"{n}.py": render_micropython(asset, embed=embed and stored is None).encode(),
             f"{n}.pio": render_pio(asset).encode(),
             **templates.player("ladderpack_i2s"),
         }
@@ -1139,8 +1191,14 @@ class I2sOutput:
         def decode(words: np.ndarray, count: int, channel: int) -> np.ndarray:
             return np.asarray(lay.unpack_words(words[: lay.words_for(count)])[:count, channel])
 
+        def stored(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+            from ladderpack.compress import decode_stored
+
+            got = decode_stored(data, comp, bits=bits)  # ADPCM: signed samples
+            return lay.pack_codes(got + (lay.mid_code if comp.get("kind") == "adpcm" else 0))
+
         return PreviewModel(
-            lay, bits, 2 if stereo else 1, 1 << bits, (1 << bits) / 2, False, decode
+            lay, bits, 2 if stereo else 1, 1 << bits, (1 << bits) / 2, False, decode, stored
         )
 
     def wave_table(self, spec: WaveTableSpec) -> WaveTable:

@@ -291,8 +291,26 @@ class LadderOutput:
                 return np.asarray(lay.channels_of(codes)[:, channel])
             return np.asarray(codes)
 
+        def stored(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+            from ladderpack.compress import decode_stored
+            from ladderpack.pack import pack
+            from ladderpack.quantize import Codes
+
+            codes = decode_stored(data, comp, bits=code_bits)
+            if stereo:  # left and right alternate: the frames left | right << N
+                codes = codes[0::2] | (codes[1::2] << code_bits)
+            codes = codes.astype(np.uint32 if bits > 16 else np.uint16)
+            return pack(Codes(codes, bits), lay).words
+
         return PreviewModel(
-            lay, code_bits, 2 if stereo else 1, 1 << code_bits, (1 << code_bits) / 2, True, decode
+            lay,
+            code_bits,
+            2 if stereo else 1,
+            1 << code_bits,
+            (1 << code_bits) / 2,
+            True,
+            decode,
+            stored,
         )
 
     def wave_table(self, spec: WaveTableSpec) -> WaveTable:

@@ -83,35 +83,75 @@ static void lp_i2s_release(lp_i2s_player_t *p) {
     p->data_ch = p->tail_ch = p->ctrl_ch = p->ring_ch = -1;
 }
 
-/* -- ADPCM streams: two RAM buffers (lp_common_ring_t) ------------------------------ */
+/* -- compressed streams: two RAM buffers (lp_common_ring_t) ------------------------- */
 
-/* The ring's fill: decode the next samples into frames (the mono sample in both slots).
+static bool lp_i2s_compressed(const lp_i2s_stream_t *s) {
+    return s->adpcm != NULL || s->lossless != NULL;
+}
+
+/* Start the stream's decoder at its first block. */
+static void lp_i2s_decode_start(lp_i2s_player_t *p) {
+    const lp_i2s_stream_t *s = p->stream;
+    if (s->adpcm != NULL) {
+        lp_adpcm_start(&p->dec.adpcm, s->adpcm, 0u);
+    } else {
+        lp_lossless_start(&p->dec.lossless, s->lossless, 0u);
+    }
+}
+
+/* Up to `max` (even) 16-bit slot values, two's complement: a mono stream's samples or a
+ * stereo one's, left and right alternating. */
+static uint32_t lp_i2s_decode(lp_i2s_player_t *p, uint16_t *v, uint32_t max) {
+    uint32_t got, k;
+    if (p->stream->adpcm != NULL) {
+        return lp_adpcm_decode(&p->dec.adpcm, (int16_t *)v, max);
+    }
+    got = lp_lossless_decode(&p->dec.lossless, v, max);
+    for (k = 0u; k < got; ++k) {
+        v[k] ^= 0x8000u; /* offset binary -> two's complement */
+    }
+    return got;
+}
+
+/* The ring's fill: decode the next samples into frames (a mono sample in both slots).
  * A fill ends at the end of the samples (a loop's pass). */
 static uint32_t lp_i2s_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
     lp_i2s_player_t *p = (lp_i2s_player_t *)r->owner;
     const lp_i2s_stream_t *s = p->stream;
-    int16_t v[16];
+    const bool two = (s->adpcm != NULL ? s->adpcm->channels : s->lossless->channels) == 2u;
+    uint16_t v[16];
     uint32_t n = 0u;
     if (r->at_end) {
         if (!p->looping) {
             return 0u; /* the end */
         }
-        lp_adpcm_start(&p->dec, s->adpcm, 0u); /* the next pass */
+        lp_i2s_decode_start(p); /* the next pass */
         r->at_end = false;
     }
     while (n < max) {
-        uint32_t want = max - n < 16u ? max - n : 16u;
-        uint32_t got = lp_adpcm_decode(&p->dec, v, want);
+        uint32_t want = max - n < 8u ? max - n : 8u; /* frames */
+        uint32_t got = lp_i2s_decode(p, v, two ? 2u * want : want);
         uint32_t k;
         if (got == 0u) {
             break;
         }
-        for (k = 0u; k < got; ++k) {
-            uint32_t u = (uint32_t)(uint16_t)v[k];
-            words[n++] = (u << 16) | u;
+        if (two) {
+            for (k = 0u; k + 1u < got; k += 2u) {
+                words[n++] = ((uint32_t)v[k] << 16) | v[k + 1u];
+            }
+        } else {
+            for (k = 0u; k < got; ++k) {
+                words[n++] = ((uint32_t)v[k] << 16) | v[k];
+            }
         }
     }
-    r->at_end = p->dec.block + 1u >= s->adpcm->block_count && p->dec.done == p->dec.in_block;
+    if (s->adpcm != NULL) {
+        r->at_end = p->dec.adpcm.block + 1u >= s->adpcm->block_count
+                    && p->dec.adpcm.done == p->dec.adpcm.in_block;
+    } else {
+        r->at_end = p->dec.lossless.block + 1u >= s->lossless->block_count
+                    && p->dec.lossless.done == p->dec.lossless.in_block;
+    }
     return n;
 }
 
@@ -120,7 +160,7 @@ static uint32_t lp_i2s_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) 
 static __noinline void lp_i2s_setup_ring(lp_i2s_player_t *p) {
     const lp_i2s_stream_t *s = p->stream;
     lp_common_ring_t *r = &p->ring;
-    lp_adpcm_start(&p->dec, s->adpcm, 0u);
+    lp_i2s_decode_start(p);
     r->ch[0] = p->data_ch;
     r->ch[1] = p->ring_ch;
     r->end_ch = s->loop ? p->tail_ch : -1;
@@ -156,13 +196,13 @@ int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->adpcm != NULL) {
+    if (lp_i2s_compressed(s)) {
         p->ring_ch = dma_claim_unused_channel(false);
     } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->adpcm == NULL && p->ctrl_ch < 0)
-        || (s->adpcm != NULL && p->ring_ch < 0)) {
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && !lp_i2s_compressed(s) && p->ctrl_ch < 0)
+        || (lp_i2s_compressed(s) && p->ring_ch < 0)) {
         lp_i2s_release(p);
         return LP_I2S_ERR_NO_DMA;
     }
@@ -229,7 +269,7 @@ int lp_i2s_start(lp_i2s_player_t *p, bool loop) {
     if (s->loop) {
         lp_i2s_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     }
-    if (s->adpcm != NULL) {
+    if (lp_i2s_compressed(s)) {
         lp_i2s_setup_ring(p);
         p->state = LP_I2S_PLAYING;
         lp_i2s_run_from(p, p->data_ch);
@@ -288,7 +328,7 @@ int lp_i2s_request_stop(lp_i2s_player_t *p) {
         return LP_I2S_OK;
     }
     p->state = LP_I2S_STOPPING;
-    if (s->adpcm != NULL) {
+    if (lp_i2s_compressed(s)) {
         uint32_t last;
         if (s->loop) { /* end on a pass boundary */
             uint32_t irq = save_and_disable_interrupts();

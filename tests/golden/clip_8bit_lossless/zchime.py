@@ -188,7 +188,8 @@ def _ramp_words(start: int, end: int) -> "array.array[int]":
 def _lossless_block(src, dst, cfg) -> int:
     # cfg: codes in the block, bits a code, samples per word, shift right, pin order
     # reversed, inversion mask, channels (2: left and right alternate, a sample is the
-    # frame left | right << bits); src: the block's bit stream; dst: the words. Returns
+    # frame left | right << bits), I2S frames (1: a word a frame, left << 16 | right, a
+    # mono code in both halves); src: the block's bit stream; dst: the words. Returns
     # the words.
     s = ptr32(src)
     d = ptr32(dst)
@@ -200,6 +201,7 @@ def _lossless_block(src, dst, cfg) -> int:
     rev = c[4]
     inv = c[5]
     two = c[6] - 1
+    i2s = c[7]
     width = bits << two
     head = (s[0] >> 26) & 63
     order = head >> 4
@@ -271,6 +273,17 @@ def _lossless_block(src, dst, cfg) -> int:
             p = r
         p = p ^ inv
         i += 1
+        if i2s:
+            if two:
+                if ch == 0:
+                    left = p
+                    continue
+                p = (left << 16) | p
+            else:
+                p = (p << 16) | p
+            d[nw] = p
+            nw += 1
+            continue
         if two and ch == 0:
             left = p  # the frame's left half: its right half comes next
             continue
@@ -456,7 +469,7 @@ class Player:
         index = array.array("I", bytes(4 * (blocks + 1)))
         src = array.array("I", bytes(4 * (longest + 1)))
         cfg = array.array("i", [0, bits, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
-                                ((1 << bits) - 1) if INVERTED else 0, channels])
+                                ((1 << bits) - 1) if INVERTED else 0, channels, 0])
         with open(self.path, "rb") as f:
             f.readinto(memoryview(index)[:blocks])
             index[blocks] = LOSSLESS[3]

@@ -61,6 +61,7 @@ extern const uint32_t amp_outro_words[AMP_OUTRO_WORD_COUNT];
     AMP_LOOP, \
     AMP_SYS_CLOCK_HZ, \
     AMP_GPIO_BASE, \
+    NULL, \
     NULL \
 }
 

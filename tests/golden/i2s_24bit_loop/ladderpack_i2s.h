@@ -27,12 +27,13 @@
 
 #include "ladderpack_adpcm.h"
 #include "ladderpack_common.h"
+#include "ladderpack_lossless.h"
 
 /* Frames of the fade made at run time when a stream is stopped early. */
 #define LP_I2S_FADE_FRAMES 64u
 
-/* Words in each of the two RAM buffers an IMA ADPCM stream (--compress adpcm) is decoded
- * into, refilled from the DMA_IRQ_0 interrupt (a shared handler) while the other plays;
+/* Words in each of the two RAM buffers a compressed stream (--compress adpcm or lossless)
+ * is decoded into, refilled from the DMA_IRQ_0 interrupt (a shared handler) while the other plays;
  * define it before including this header (in every file that does) to change it. */
 #ifndef LP_I2S_RING_WORDS
 #define LP_I2S_RING_WORDS 64u
@@ -69,6 +70,7 @@ typedef struct lp_i2s_stream {
     uint32_t sys_clock_hz;       /* system clock the divider was planned for */
     uint8_t gpio_base;           /* PIO GPIO base the pins need: 0, or 16 for GPIO 32+ */
     const lp_adpcm_stream_t *adpcm; /* an ADPCM stream's samples (words is NULL), or NULL */
+    const lp_lossless_stream_t *lossless; /* a lossless stream's codes (words NULL), or NULL */
 } lp_i2s_stream_t;
 
 /* A player. It must stay valid (static or global) from lp_i2s_start until lp_i2s_busy
@@ -87,15 +89,18 @@ typedef struct lp_i2s_player {
     pio_program_t program;
     const uint32_t *loop_start;  /* read by the control channel */
     uint32_t fade[2u * LP_I2S_FADE_FRAMES + 2u];
-    /* an ADPCM stream: the decoder and the two buffers data_ch and ring_ch play */
+    /* a compressed stream: the decoder and the two buffers data_ch and ring_ch play */
     int ring_ch;
-    lp_adpcm_t dec;
+    union {
+        lp_adpcm_t adpcm;
+        lp_lossless_t lossless;
+    } dec;
     struct lp_common_ring ring;
     uint32_t ring_buf[2][LP_I2S_RING_WORDS];
 } lp_i2s_player_t;
 
-/* Claim a state machine and the DMA channels (two, three for a loop, one more for an
- * ADPCM stream, which also takes DMA_IRQ_0 with a shared handler), load the program
+/* Claim a state machine and the DMA channels (two, three for a loop; three for a
+ * compressed stream, which also takes DMA_IRQ_0 with a shared handler), load the program
  * and drive the three pins low. Returns LP_I2S_OK or LP_I2S_ERR_*; on an error nothing
  * stays claimed. clk_sys must be the stream's SYS_CLOCK_HZ (else LP_I2S_ERR_CLOCK: the
  * frame rate would be wrong). */

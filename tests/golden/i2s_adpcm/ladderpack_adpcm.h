@@ -5,13 +5,16 @@
  * the step index moved by the code's magnitude bits. A stream is blocks that each start
  * from a stored predictor and step index (a header word: the predictor as a signed 16-bit
  * value in the low half, the index in bits 16..22) and whose first sample is that
- * predictor; the codes are two a byte, the earlier sample in the low nibble. Plain C99 for
- * a Cortex-M0+ (no division, no 64-bit arithmetic).
+ * predictor; the codes are two a byte, the earlier sample in the low nibble. Two channels
+ * are coded each on its own and interleaved (left, right, ...): a header word per block
+ * and channel, a frame's two codes in one byte. Plain C99 for a Cortex-M0+ (no division,
+ * no 64-bit arithmetic).
  *
  * Usage:
  *     lp_adpcm_t d;
  *     lp_adpcm_start(&d, &stream, 0);         // from block 0 (any block will do)
  *     n = lp_adpcm_decode(&d, samples, 256);  // up to 256 samples; 0 at the end
+ *                                             // (two channels: whole frames, L then R)
  */
 #ifndef LADDERPACK_ADPCM_H
 #define LADDERPACK_ADPCM_H
@@ -20,11 +23,12 @@
 
 /* A compressed stream as the generated source describes it. */
 typedef struct lp_adpcm_stream {
-    const uint32_t *headers; /* per block: predictor (low half), step index (bits 16..22) */
+    const uint32_t *headers; /* per block and channel: predictor (low half), index (16..22) */
     const uint8_t *codes;    /* two codes a byte, the earlier in the low nibble */
     uint32_t block_count;
-    uint32_t block_samples; /* samples in every block but the last (even) */
-    uint32_t samples;       /* samples in all */
+    uint32_t block_samples; /* samples in every block but the last (all channels) */
+    uint32_t samples;       /* samples in all (all channels) */
+    uint8_t channels;       /* 1, or 2 interleaved (left, right, ...) */
 } lp_adpcm_stream_t;
 
 /* A decoder's place in a stream. */
@@ -33,8 +37,8 @@ typedef struct lp_adpcm {
     uint32_t block;    /* the block being decoded */
     uint32_t done;     /* samples of it already given */
     uint32_t in_block; /* samples it holds */
-    int32_t pred;
-    uint32_t index;
+    int32_t pred[2];   /* per channel */
+    uint32_t index[2];
 } lp_adpcm_t;
 
 static const uint16_t lp_adpcm_steps[89] = {
@@ -50,11 +54,14 @@ static const int8_t lp_adpcm_index_adjust[8] = {-1, -1, -1, -1, 2, 4, 6, 8};
 
 static inline void lp_adpcm_block(lp_adpcm_t *d, uint32_t block) {
     const lp_adpcm_stream_t *s = d->s;
-    uint32_t h = s->headers[block];
+    uint32_t c;
     d->block = block;
     d->done = 0u;
-    d->pred = (int32_t)(int16_t)(uint16_t)(h & 0xFFFFu);
-    d->index = (h >> 16) & 0x7Fu;
+    for (c = 0u; c < s->channels; ++c) {
+        uint32_t h = s->headers[block * s->channels + c];
+        d->pred[c] = (int32_t)(int16_t)(uint16_t)(h & 0xFFFFu);
+        d->index[c] = (h >> 16) & 0x7Fu;
+    }
     d->in_block = block + 1u < s->block_count ? s->block_samples
                                              : s->samples - block * s->block_samples;
 }
@@ -68,8 +75,9 @@ static inline void lp_adpcm_start(lp_adpcm_t *d, const lp_adpcm_stream_t *s, uin
 /* Decode up to `n` samples into `out`; returns how many (0: the stream has ended). */
 static inline uint32_t lp_adpcm_decode(lp_adpcm_t *d, int16_t *out, uint32_t n) {
     uint32_t got = 0u;
+    const uint32_t two = d->s->channels == 2u ? 1u : 0u;
     while (got < n) {
-        uint32_t at, code, step, diff;
+        uint32_t at, code, step, diff, c;
         int32_t pred;
         int32_t index;
         if (d->done == d->in_block) {
@@ -78,26 +86,27 @@ static inline uint32_t lp_adpcm_decode(lp_adpcm_t *d, int16_t *out, uint32_t n) 
             }
             lp_adpcm_block(d, d->block + 1u);
         }
-        if (d->done == 0u) { /* a block's first sample is its header's predictor */
-            out[got++] = (int16_t)d->pred;
-            d->done = 1u;
+        c = d->done & two; /* the channel of this sample */
+        if (d->done <= two) { /* a block's first frame is its headers' predictors */
+            out[got++] = (int16_t)d->pred[c];
+            d->done++;
             continue;
         }
         at = d->block * d->s->block_samples + d->done;
         code = (uint32_t)(d->s->codes[at >> 1] >> ((at & 1u) * 4u)) & 15u;
-        step = lp_adpcm_steps[d->index];
+        step = lp_adpcm_steps[d->index[c]];
         diff = step >> 3;
         if (code & 4u) diff += step;
         if (code & 2u) diff += step >> 1;
         if (code & 1u) diff += step >> 2;
-        pred = (code & 8u) ? d->pred - (int32_t)diff : d->pred + (int32_t)diff;
+        pred = (code & 8u) ? d->pred[c] - (int32_t)diff : d->pred[c] + (int32_t)diff;
         if (pred > 32767) pred = 32767;
         if (pred < -32768) pred = -32768;
-        index = (int32_t)d->index + lp_adpcm_index_adjust[code & 7u];
+        index = (int32_t)d->index[c] + lp_adpcm_index_adjust[code & 7u];
         if (index < 0) index = 0;
         if (index > 88) index = 88;
-        d->pred = pred;
-        d->index = (uint32_t)index;
+        d->pred[c] = pred;
+        d->index[c] = (uint32_t)index;
         out[got++] = (int16_t)pred;
         d->done++;
     }

@@ -3,7 +3,7 @@
 
 #include "zamp.h"
 
-/* The samples as IMA ADPCM (ladderpack_adpcm.h): per block its starting predictor
+/* The samples as IMA ADPCM (ladderpack_adpcm.h): per block (and channel) its predictor
  * (low half) and step index (bits 16..22), then the codes, two a byte. */
 static const uint32_t zamp_adpcm_headers[ZAMP_ADPCM_BLOCK_COUNT] = {
     0x00460000u, 0x0046FFFFu
@@ -116,7 +116,8 @@ const lp_adpcm_stream_t zamp_adpcm = {
     zamp_adpcm_codes,
     ZAMP_ADPCM_BLOCK_COUNT,
     1024u,
-    1601u
+    1601u,
+    1u /* channels */
 };
 
 /* State-machine program (i2s-standard; side-set: bit clock, word select):

@@ -65,7 +65,8 @@ extern const uint16_t zamp_program[ZAMP_PROGRAM_LENGTH];
     ZAMP_LOOP, \
     ZAMP_SYS_CLOCK_HZ, \
     ZAMP_GPIO_BASE, \
-    &zamp_adpcm \
+    &zamp_adpcm, \
+    NULL \
 }
 
 #endif /* LADDERPACK_ZAMP_H */

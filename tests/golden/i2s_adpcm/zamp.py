@@ -41,9 +41,10 @@ BIN_FILE = 'zamp.bin'
 CHUNK_WORDS = 1024
 WORDS = None  # read from BIN_FILE
 OUTRO = None
-# Stored as IMA ADPCM (--compress adpcm): the .bin holds 2 block headers, then the codes
-# two a byte; each block decodes on its own into frames.
-ADPCM = (2, 1024, 1601)  # blocks, samples a block, samples
+# Stored as IMA ADPCM (--compress adpcm): the .bin holds 2 block headers, then
+# the codes two a byte; each block decodes on its own into frames.
+STORED = (2, 1024, 1601, 1)  # blocks, samples a block,
+# samples, channels
 FADE_FRAMES = 64  # a stream stopped early fades out over this many frames
 
 # RP2040 registers (vendor SDK hardware/regs: addressmap.h, pio.h, dreq.h):
@@ -129,46 +130,70 @@ _IMA_STEPS = array.array("H", [
 
 @micropython.viper
 def _adpcm_block(src, dst, cfg) -> int:
-    # cfg: samples in the block, its predictor, its step index; returns the words
+    # cfg: samples in the block (all channels), then per channel its predictor and step
+    # index at the block's start: left's in cfg[1], cfg[2], right's in cfg[4], cfg[5];
+    # cfg[3] the channels (2: left and right alternate, a frame a word, left << 16 |
+    # right). Returns the words.
     s = ptr8(src)
     d = ptr32(dst)
     c = ptr32(cfg)
     st = ptr16(_IMA_STEPS)
     n = c[0]
-    pred = c[1]
-    index = c[2]
-    d[0] = (pred << 16) | (pred & 0xFFFF)
-    i = 1
+    two = c[3] - 1
+    pl = c[1]
+    il = c[2]
+    pr = c[4]
+    ir = c[5]
+    i = 0
+    nw = 0
     while i < n:
-        code = (s[i >> 1] >> ((i & 1) << 2)) & 15
-        step = st[index]
-        diff = step >> 3
-        if code & 4:
-            diff += step
-        if code & 2:
-            diff += step >> 1
-        if code & 1:
-            diff += step >> 2
-        if code & 8:
-            pred -= diff
+        ch = i & two
+        if ch:
+            pred = pr
+            index = ir
         else:
-            pred += diff
-        if pred > 32767:
-            pred = 32767
-        elif pred < -32768:
-            pred = -32768
-        m = code & 7
-        if m < 4:
-            index -= 1
-        else:
-            index += (m - 3) << 1
-        if index < 0:
-            index = 0
-        elif index > 88:
-            index = 88
-        d[i] = (pred << 16) | (pred & 0xFFFF)
+            pred = pl
+            index = il
+        if i > two:  # the block's first frame is its headers' predictors
+            code = (s[i >> 1] >> ((i & 1) << 2)) & 15
+            step = st[index]
+            diff = step >> 3
+            if code & 4:
+                diff += step
+            if code & 2:
+                diff += step >> 1
+            if code & 1:
+                diff += step >> 2
+            if code & 8:
+                pred -= diff
+            else:
+                pred += diff
+            if pred > 32767:
+                pred = 32767
+            elif pred < -32768:
+                pred = -32768
+            m = code & 7
+            if m < 4:
+                index -= 1
+            else:
+                index += (m - 3) << 1
+            if index < 0:
+                index = 0
+            elif index > 88:
+                index = 88
         i += 1
-    return n
+        if ch:
+            pr = pred
+            ir = index
+            d[nw] = (pl << 16) | (pred & 0xFFFF)
+            nw += 1
+            continue
+        pl = pred
+        il = index
+        if two == 0:
+            d[nw] = (pred << 16) | (pred & 0xFFFF)
+            nw += 1
+    return nw
 
 
 class Player:
@@ -253,8 +278,8 @@ class Player:
             pass
 
     def _word(self, k: int) -> int:
-        if ADPCM is not None:  # the words are in the buffers, not the file
-            return self.cur[k - self.sent] if k >= self.sent else self.prev_last
+        # the words are in the buffers, not the file
+        return self.cur[k - self.sent] if k >= self.sent else self.prev_last
         if WORDS is not None:
             return WORDS[k]
         with open(self.path, "rb") as f:
@@ -303,26 +328,10 @@ class Player:
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
             self.sent = 0
 
-    def _play_adpcm(self, loop: bool) -> None:
-        blocks, per_block, samples = ADPCM
-        heads = array.array("I", bytes(4 * blocks))
-        src = bytearray(per_block // 2)
-        cfg = array.array("i", [0, 0, 0])
+    def _play_stored(self, loop: bool) -> None:
         self.prev_last = 0
         with open(self.path, "rb") as f:
-            f.readinto(heads)
-            base = 4 * blocks
-
-            def block(b: int, buf: "array.array[int]") -> int:
-                n = min(per_block, samples - b * per_block)
-                f.seek(base + b * (per_block // 2))
-                f.readinto(memoryview(src)[: (n + 1) // 2])
-                h = heads[b]
-                cfg[0] = n
-                cfg[1] = (h & 0xFFFF) - ((h & 0x8000) << 1)
-                cfg[2] = h >> 16
-                return _adpcm_block(src, buf, cfg)
-
+            block, blocks = self._reader(f)
             which, b = 0, 1
             n = block(0, self.bufs[0])  # decoded before the machine runs
             self._send(self.bufs[0], n)
@@ -345,10 +354,30 @@ class Player:
                 self.prev_last = self.cur[self.cur_n - 1]
                 self._send(buf, n)
 
+    def _reader(self, f):
+        blocks, per_block, samples, channels = STORED
+        heads = array.array("I", bytes(4 * blocks * channels))
+        src = bytearray(per_block // 2)
+        cfg = array.array("i", [0, 0, 0, channels, 0, 0])
+        f.readinto(heads)
+        base = 4 * blocks * channels
+
+        def block(b: int, buf: "array.array[int]") -> int:
+            n = min(per_block, samples - b * per_block)
+            f.seek(base + b * (per_block // 2))
+            f.readinto(memoryview(src)[: (n + 1) // 2])
+            cfg[0] = n
+            for c in range(channels):
+                h = heads[b * channels + c]
+                cfg[1 + 3 * c] = (h & 0xFFFF) - ((h & 0x8000) << 1)
+                cfg[2 + 3 * c] = h >> 16
+            return _adpcm_block(src, buf, cfg)
+
+        return block, blocks
+
     def _play_file(self, loop: bool) -> None:
-        if ADPCM is not None:
-            self._play_adpcm(loop)
-            return
+        self._play_stored(loop)  # the .bin is stored compressed
+        return
         with open(self.path, "rb") as f:
             which = 0
             n = f.readinto(self.bufs[0]) // 4  # read before the machine runs
