@@ -301,9 +301,19 @@ def make(folder: Path, name: str, **opts: object) -> Bundle:
         "seconds": 0.02,
         "ramp_ms": 2.0,
     }
-    asset = stream_tone(str(opts.pop("kind", "sine")), name=name, **{**base, **opts})
-    write_bundle(asset, folder)
-    return Bundle(folder, name)
+    kind = str(opts.pop("kind", "sine"))
+    write_bundle(stream_tone(kind, name=name, **{**base, **opts}), folder)
+    if opts.get("compress", "none") == "none":
+        return Bundle(folder, name)
+    # a compressed stream (--compress lossless): what the same stream made uncompressed says
+    plain = folder / "plain"
+    plain.mkdir(exist_ok=True)
+    write_bundle(stream_tone(kind, name=name, **{**base, **opts, "compress": "none"}), plain)
+    return Bundle(plain, name)
+
+
+#: The C and MicroPython scenarios run on the stream as words and compressed (issue 31).
+COMPRESS = pytest.mark.parametrize("compress", ["none", "lossless"])
 
 
 def c_app(name: str, ops: list[tuple[str, int]], tail: str = "") -> str:
@@ -331,9 +341,14 @@ def assert_on_ticks(tx: list[tuple[int, list[int], list[int]]], period: int) -> 
     assert all(a == [0] * len(b) for _s, b, a in tx)  # every byte acknowledged
 
 
-@pytest.mark.parametrize("command", ["fast", "register"])
-def test_player_writes_every_update_on_its_tick(fw: Firmware, tmp_path: Path, command: str) -> None:
-    b = make(tmp_path, "level", dac_command=command)
+@pytest.mark.parametrize(
+    ("command", "compress"), [("fast", "none"), ("register", "none"), ("fast", "lossless"),
+                              ("register", "lossless")]
+)  # fmt: skip
+def test_player_writes_every_update_on_its_tick(
+    fw: Firmware, tmp_path: Path, command: str, compress: str
+) -> None:
+    b = make(tmp_path, "level", dac_command=command, compress=compress)
     nack = "    report(11u, 0u, lp_i2c_nack_seen(&player) ? 1 : 0);\n"
     r = bus_run(fw, tmp_path, "level", [("init", 0), ("start", 0), ("wait", 0)], tail=nack)
     assert r.ended and r.results()[:2] == [0, 0]
@@ -344,8 +359,11 @@ def test_player_writes_every_update_on_its_tick(fw: Firmware, tmp_path: Path, co
     assert b.codes[0] == b.idle and b.codes[-1] == b.idle  # from and back to idle
 
 
-def test_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "cut", seconds=0.05, ramp_ms=0.0, kind="dc", dc_value=0.9)
+@COMPRESS
+def test_player_stop_ramps_down_from_the_code_it_was_on(
+    fw: Firmware, tmp_path: Path, compress: str
+) -> None:
+    b = make(tmp_path, "cut", seconds=0.05, ramp_ms=0.0, kind="dc", dc_value=0.9, compress=compress)
     period = b.period
     r = bus_run(
         fw,
@@ -366,8 +384,9 @@ def test_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path: 
     assert all(x >= y for x, y in zip([codes[n - 1], *ramp], ramp, strict=False))
 
 
-def test_player_loop_and_hold_code(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "wobble", loop=True, seconds=0.004)
+@COMPRESS
+def test_player_loop_and_hold_code(fw: Firmware, tmp_path: Path, compress: str) -> None:
+    b = make(tmp_path, "wobble", loop=True, seconds=0.004, compress=compress)
     period = len(b.updates) * b.period
     tail = (
         "    rc = lp_i2c_hold_code(&player, 1234u); report(12u, 0u, rc);\n"
@@ -437,14 +456,24 @@ def board(
     files = bundle_files(asset, embed_words_max=100_000 if embed else 0)
     for fname, data in files.items():
         (folder / fname).write_bytes(data)
-    keep = [f"{name}.py"] + ([] if embed else [f"{name}.bin"])
-    return {k: files[k] for k in keep}, Bundle(folder, name)
+    keep = [f"{name}.py"] + ([] if embed and asset.compressed is None else [f"{name}.bin"])
+    if asset.compressed is None:
+        return {k: files[k] for k in keep}, Bundle(folder, name)
+    plain = folder / "plain"  # what the same stream made uncompressed says
+    plain.mkdir()
+    for fname, data in bundle_files(stream_tone(
+        kind, name=name, output="i2c-dac", sda_pin=SDA, scl_pin=SCL, rate_hz=4000.0,
+        **{**opts, "compress": "none"},
+    )).items():  # fmt: skip
+        (plain / fname).write_bytes(data)
+    return {k: files[k] for k in keep}, Bundle(plain, name)
 
 
-def test_micropython_writes_every_update(tmp_path: Path) -> None:
+@COMPRESS
+def test_micropython_writes_every_update(tmp_path: Path, compress: str) -> None:
     files, b = board(
         tmp_path, "sine", "hum", embed=False, freq_hz=250.0, seconds=0.02, ramp_ms=2.0,
-        chunk_words=64,
+        chunk_words=64, compress=compress,
     )  # fmt: skip
     steps = [
         {"code": "import hum\np = hum.Player()\np.play()\nprint('nack', p.nack_seen())\n"},
@@ -459,8 +488,10 @@ def test_micropython_writes_every_update(tmp_path: Path) -> None:
     assert_on_ticks(tx[:-1], b.period)
 
 
-def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
-    files, b = board(tmp_path, "dc", "hold", embed=True, dc_value=0.8, seconds=0.1, ramp_ms=0.0)
+@COMPRESS
+def test_micropython_ctrl_c_ramps_down(tmp_path: Path, compress: str) -> None:
+    files, b = board(tmp_path, "dc", "hold", embed=True, dc_value=0.8, seconds=0.1, ramp_ms=0.0,
+                     compress=compress, chunk_words=128)  # fmt: skip
     steps = [
         {"code": "import hold\np = hold.Player()\n"},
         {"code": "p.play()\n", "interrupt_after": 5_000_000},  # 40 ms in
@@ -482,10 +513,13 @@ def test_micropython_ctrl_c_ramps_down(tmp_path: Path) -> None:
     assert tx[n][0] - tx[n - 1][0] >= b.period
 
 
-def test_micropython_loop_runs_until_ctrl_c_and_ends_on_its_outro(tmp_path: Path) -> None:
+@COMPRESS
+def test_micropython_loop_runs_until_ctrl_c_and_ends_on_its_outro(
+    tmp_path: Path, compress: str
+) -> None:
     files, b = board(
         tmp_path, "sine", "wave", embed=True, freq_hz=500.0, seconds=0.004, ramp_ms=1.0,
-        loop=True,
+        loop=True, compress=compress,
     )  # fmt: skip
     one_pass = len(b.updates) * b.period
     steps = [

@@ -190,9 +190,20 @@ BASE: dict[str, object] = {
 
 
 def make(folder: Path, name: str, **opts: object) -> Bundle:
-    asset = stream_tone(str(opts.pop("kind", "sine")), name=name, **{**BASE, **opts})
-    write_bundle(asset, folder)
-    return Bundle(folder, name)
+    """Write the bundle; what should come out. A compressed stream's (--compress lossless)
+    is read from the same stream made uncompressed, in ``folder/plain``."""
+    kind = str(opts.pop("kind", "sine"))
+    write_bundle(stream_tone(kind, name=name, **{**BASE, **opts}), folder)
+    if opts.get("compress", "none") == "none":
+        return Bundle(folder, name)
+    plain = folder / "plain"
+    plain.mkdir(exist_ok=True)
+    write_bundle(stream_tone(kind, name=name, **{**BASE, **opts, "compress": "none"}), plain)
+    return Bundle(plain, name)
+
+
+#: Every C and MicroPython scenario runs on the stream as words and compressed (issue 31).
+COMPRESS = pytest.mark.parametrize("compress", ["none", "lossless"])
 
 
 def c_app(name: str, ops: list[tuple[str, int]], tail: str = "") -> str:
@@ -218,8 +229,11 @@ def assert_on_ticks(times: list[int], period: int) -> None:
     assert np.all(d == period), np.unique(d)
 
 
-def test_c_player_writes_every_frame_on_its_tick(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "tone")
+@COMPRESS
+def test_c_player_writes_every_frame_on_its_tick(
+    fw: Firmware, tmp_path: Path, compress: str
+) -> None:
+    b = make(tmp_path, "tone", compress=compress)
     r = wire_run(fw, tmp_path, "tone", [("init", 0), ("start", 0), ("wait", 0)])
     assert r.ended and r.results()[:2] == [0, 0]
     w = decode(r.changes)
@@ -233,8 +247,12 @@ def test_c_player_writes_every_frame_on_its_tick(fw: Firmware, tmp_path: Path) -
     assert not w.latches
 
 
-def test_c_player_stereo_latches_both_channels_together(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "duo", stereo=True, latch=True, dac_gain=2, vref_buffer=True, freq_hz=700.0)
+@COMPRESS
+def test_c_player_stereo_latches_both_channels_together(
+    fw: Firmware, tmp_path: Path, compress: str
+) -> None:
+    b = make(tmp_path, "duo", stereo=True, latch=True, dac_gain=2, vref_buffer=True, freq_hz=700.0,
+             compress=compress)  # fmt: skip
     r = wire_run(fw, tmp_path, "duo", [("init", 0), ("start", 0), ("wait", 0)])
     assert r.ended and r.results()[:2] == [0, 0]
     w = decode(r.changes)
@@ -251,8 +269,11 @@ def test_c_player_stereo_latches_both_channels_together(fw: Firmware, tmp_path: 
     assert_timing_met(w, latch=True)
 
 
-def test_c_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "cut", seconds=0.05, ramp_ms=0.0, kind="dc", dc_value=0.9)
+@COMPRESS
+def test_c_player_stop_ramps_down_from_the_code_it_was_on(
+    fw: Firmware, tmp_path: Path, compress: str
+) -> None:
+    b = make(tmp_path, "cut", seconds=0.05, ramp_ms=0.0, kind="dc", dc_value=0.9, compress=compress)
     period = b.period
     r = wire_run(fw, tmp_path, "cut", [("init", 0), ("start", 0), ("delay", 200 * period),
                                        ("stop", 0)])  # fmt: skip
@@ -269,8 +290,9 @@ def test_c_player_stop_ramps_down_from_the_code_it_was_on(fw: Firmware, tmp_path
     assert all(x >= y for x, y in zip([codes[n - 1], *ramp], ramp, strict=False))
 
 
-def test_c_player_loop_then_a_held_level(fw: Firmware, tmp_path: Path) -> None:
-    b = make(tmp_path, "wobble", loop=True, seconds=0.004)
+@COMPRESS
+def test_c_player_loop_then_a_held_level(fw: Firmware, tmp_path: Path, compress: str) -> None:
+    b = make(tmp_path, "wobble", loop=True, seconds=0.004, compress=compress)
     intro, outro = b.part("intro"), b.part("outro")
     tail = (
         "    rc = lp_spi_hold_code(&player, 1234u); report(12u, 0u, rc);\n"
@@ -305,18 +327,26 @@ def test_player_builds_for_rp2350(fw2350: Firmware, tmp_path: Path) -> None:
 
 
 def board(folder: Path, name: str, *, embed: bool, **opts: object) -> tuple[dict, Bundle]:
-    """A MicroPython board's files (the module, and the .bin unless embedded)."""
-    asset = stream_tone(str(opts.pop("kind", "sine")), name=name, **{**BASE, **opts})
+    """A MicroPython board's files (the module, and the .bin unless embedded: a compressed
+    stream's always), and what should come out (see :func:`make`)."""
+    kind = str(opts.pop("kind", "sine"))
+    asset = stream_tone(kind, name=name, **{**BASE, **opts})
     files = bundle_files(asset, embed_words_max=100_000 if embed else 0)
     for fname, data in files.items():
         (folder / fname).write_bytes(data)
-    keep = [f"{name}.py"] + ([] if embed else [f"{name}.bin"])
-    return {k: files[k] for k in keep}, Bundle(folder, name)
+    keep = [f"{name}.py"] + ([] if embed and asset.compressed is None else [f"{name}.bin"])
+    expected = folder / "expected"
+    expected.mkdir()
+    return {k: files[k] for k in keep}, make(expected, name, kind=kind, **opts)
 
 
-@pytest.mark.parametrize("embed", [True, False], ids=["embedded", "file"])
-def test_micropython_writes_every_frame(tmp_path: Path, embed: bool) -> None:
-    files, b = board(tmp_path, "hum", embed=embed, chunk_words=64)
+@pytest.mark.parametrize(
+    ("embed", "compress"),
+    [(True, "none"), (False, "none"), (False, "lossless")],
+    ids=["embedded", "file", "compressed"],
+)
+def test_micropython_writes_every_frame(tmp_path: Path, embed: bool, compress: str) -> None:
+    files, b = board(tmp_path, "hum", embed=embed, chunk_words=64, compress=compress)
     steps = [{"code": "import hum\np = hum.Player()\np.play()\np.hold_code(3000)\n"}]
     r = run_micropython(files, steps, tmp_path, watch_pins=WATCH)
     assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
@@ -328,10 +358,11 @@ def test_micropython_writes_every_frame(tmp_path: Path, embed: bool) -> None:
     assert_timing_met(w, latch=False)
 
 
-def test_micropython_stereo_ctrl_c_ramps_both_channels_down(tmp_path: Path) -> None:
+@COMPRESS
+def test_micropython_stereo_ctrl_c_ramps_both_channels_down(tmp_path: Path, compress: str) -> None:
     files, b = board(
         tmp_path, "drone", embed=True, stereo=True, latch=True, kind="dc", dc_value=0.7,
-        seconds=0.1, ramp_ms=0.0,
+        seconds=0.1, ramp_ms=0.0, compress=compress, chunk_words=256,
     )  # fmt: skip
     steps = [
         {"code": "import drone\np = drone.Player()\n"},

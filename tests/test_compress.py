@@ -451,6 +451,9 @@ def test_two_channels_are_predicted_each_from_its_own() -> None:
         ("i2s", "lossless", True),
         ("i2s", "adpcm", False),
         ("i2s", "adpcm", True),
+        ("spi-dac", "lossless", False),
+        ("spi-dac", "lossless", True),
+        ("i2c-dac", "lossless", False),
     ],
 )
 def test_preview_reads_what_the_players_send(
@@ -467,6 +470,8 @@ def test_preview_reads_what_the_players_send(
     t = np.arange(3000) / 22050.0
     x = np.stack([0.7 * np.sin(2 * np.pi * 300 * t), 0.4 * np.sin(2 * np.pi * 900 * t)], 1)
     opts: dict[str, Any] = {"output": output, "stereo": stereo}
+    if output == "i2c-dac":
+        opts = {"output": output, "rate_hz": 8000.0}
     if output == "ladder":
         opts["bits"] = 6 if stereo else 10
     sig = Signal(x if stereo else x[:, 0], 22050.0)
@@ -482,3 +487,66 @@ def test_preview_reads_what_the_players_send(
             want = got.model.decode(packed.words, packed.sample_count, ch)
             np.testing.assert_array_equal(got.codes, want)
             assert 0 < np.max(np.abs(got.codes.astype(np.int64) - plain.codes)) < 2000
+
+
+# -- the SPI and I2C DACs' lossless streams: the MicroPython decoder and packer ------------
+
+
+@pytest.mark.parametrize("stereo", [False, True])
+def test_the_micropython_decoder_gives_spi_dac_words(stereo: bool) -> None:
+    # form 2: every code in its own 12-bit slot, shift left (bits 31:20, then 19:8), each
+    # channel predicted from its own: the words the SPI DAC's layouts pack
+    import array
+
+    from ladderpack.outputs.spi_dac import SpiDacStereoLayout, _mono_layout
+    from ladderpack.pack import pack
+    from ladderpack.quantize import Codes
+
+    ch = 2 if stereo else 1
+    codes = np.concatenate([sine_codes(1200, 12), np.array([0, 4095] * 2)])
+    if stereo:
+        want = SpiDacStereoLayout().pack_codes(codes)
+    else:
+        want = pack(Codes(codes.astype(np.uint16), 12), _mono_layout()).words
+    s = cz.encode_lossless(codes, 12, block_samples=256, channels=ch)
+    decode = _viper_decoder()
+    ends = [*s.block_words.tolist()[1:], s.words.size]
+    got: list[int] = []
+    for b, start in enumerate(s.block_words.tolist()):
+        src = array.array("I", [int(w) for w in s.words[start : ends[b]]] + [0])
+        dst = array.array("I", bytes(4 * 256))
+        n = min(s.block_samples, s.samples - b * s.block_samples)
+        cfg = array.array("i", [n, 12, 2, 0, 0, 0, ch, 2])
+        got += dst[: decode(src, dst, cfg)].tolist()
+    assert got == want.tolist()
+
+
+@pytest.mark.parametrize(("command", "power_down"), [("fast", 0), ("fast", 2), ("register", 0),
+                                                      ("register", 3)])  # fmt: skip
+def test_the_micropython_i2c_packer_gives_the_writer_words(command: str, power_down: int) -> None:
+    # the decoder's form 3 (a code a word), then the packer: every 12-bit code's update
+    # as writer_words makes it (the MCP4725 command bytes, see ladderpack.outputs.i2c_dac)
+    import array
+    import types
+
+    from ladderpack.outputs.i2c_dac import I2C_PACK, I2cDacFormat, pack_cfg, writer_words
+
+    space: dict[str, object] = {
+        "micropython": types.SimpleNamespace(viper=lambda f: f),
+        "ptr32": _Words,
+    }
+    exec(I2C_PACK, space)  # our own generated source
+    fmt = I2cDacFormat(0x61, command, power_down=power_down)
+    codes = np.arange(4096)
+    cfg = array.array("i", pack_cfg(fmt))
+    cfg[0] = codes.size
+    dst = array.array("I", bytes(4 * 4 * codes.size))
+    src = array.array("I", codes.tolist())
+    n = space["_i2c_pack"](src, dst, cfg)  # type: ignore[operator]
+    assert dst[:n].tolist() == writer_words(fmt, codes).tolist()
+    # and the decoder's form 3 gives the codes themselves
+    s = cz.encode_lossless(codes, 12, block_samples=4096)
+    out = array.array("I", bytes(4 * 4096))
+    src = array.array("I", [int(w) for w in s.words] + [0])
+    got = _viper_decoder()(src, out, array.array("i", [4096, 12, 1, 0, 0, 0, 1, 3]))
+    assert out[:got].tolist() == codes.tolist()

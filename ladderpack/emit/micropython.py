@@ -759,9 +759,10 @@ LOSSLESS_DECODER = """\
 def _lossless_block(src, dst, cfg) -> int:
     # cfg: codes in the block, bits a code, samples per word, shift right, pin order
     # reversed, inversion mask, channels (2: left and right alternate, a sample is the
-    # frame left | right << bits), I2S frames (1: a word a frame, left << 16 | right, a
-    # mono code in both halves); src: the block's bit stream; dst: the words. Returns
-    # the words.
+    # frame left | right << bits), the words' form (0: that frame or code in each slot;
+    # 1: I2S frames, a word a frame, left << 16 | right, a mono code in both halves; 2:
+    # every code in its own slot; 3: a code a word); src: the block's bit stream; dst:
+    # the words. Returns the words.
     s = ptr32(src)
     d = ptr32(dst)
     c = ptr32(cfg)
@@ -772,8 +773,9 @@ def _lossless_block(src, dst, cfg) -> int:
     rev = c[4]
     inv = c[5]
     two = c[6] - 1
-    i2s = c[7]
-    width = bits << two
+    form = c[7]
+    pair = two if form == 0 else 0  # two channels' codes make one slot's frame
+    width = bits << pair
     head = (s[0] >> 26) & 63
     order = head >> 4
     k = head & 15
@@ -844,21 +846,22 @@ def _lossless_block(src, dst, cfg) -> int:
             p = r
         p = p ^ inv
         i += 1
-        if i2s:
-            if two:
-                if ch == 0:
-                    left = p
-                    continue
-                p = (left << 16) | p
-            else:
-                p = (p << 16) | p
+        if form == 1 or form == 3:
+            if form == 1:
+                if two:
+                    if ch == 0:
+                        left = p
+                        continue
+                    p = (left << 16) | p
+                else:
+                    p = (p << 16) | p
             d[nw] = p
             nw += 1
             continue
-        if two and ch == 0:
+        if pair and ch == 0:
             left = p  # the frame's left half: its right half comes next
             continue
-        if two:
+        if pair:
             p = left | (p << bits)
         if right:
             word |= p << (slot * width)
@@ -999,6 +1002,196 @@ LOSSLESS_PLAY = """\
                 self._send(buf, n)
 
 """
+
+
+# -- compressed streams of the FIFO-fed players (I2S, SPI and I2C DACs) -----------------
+
+#: A compressed stream's way through its ``.bin``: the reader (``_ADPCM_READER`` or
+#: ``_LOSSLESS_READER``) gives a block's words, decoded into the buffer not playing.
+_STORED_PLAY = """\
+    def _open_stored(self) -> None:
+        self.f = open(self.path, "rb")
+        self.block, self.blocks = self._reader(self.f)
+        self.n0 = self.block(0, self.bufs[0])  # decoded before the machine runs
+
+    def _close_stored(self) -> None:
+        if getattr(self, "f", None) is not None:
+            self.f.close()
+        self.f = None
+
+    def _play_stored(self, loop: bool) -> None:
+        self.prev = array.array("I", [0])
+        if getattr(self, "f", None) is None:
+            self._open_stored()
+        block, blocks = self.block, self.blocks
+        try:
+            which, b = 0, 1
+            self._send(self.bufs[0], self.n0)
+            self._go()
+            while True:
+                wrap = b == blocks
+                if wrap:
+                    if not (loop and self.running):
+                        break
+                    b = 0  # a loop ends only on a pass boundary
+                which ^= 1
+                buf = self.bufs[which]
+                n = block(b, buf)  # the next block while this one plays
+                b += 1
+                if wrap:
+                    self.sent = -self.cur_n
+                if not self.running and not LOOP:
+                    {stop_line}
+                    return
+                self.prev = self.cur[max(0, self.cur_n - 4) : self.cur_n]
+                self._send(buf, n)
+        finally:
+            self._close_stored()
+
+"""
+
+#: An ADPCM ``.bin``: the block headers (a word per block and channel), then the codes.
+_ADPCM_READER = """\
+    def _reader(self, f):
+        blocks, per_block, samples, channels = STORED
+        heads = array.array("I", bytes(4 * blocks * channels))
+        src = bytearray(per_block // 2)
+        cfg = array.array("i", [0, 0, 0, channels, 0, 0])
+        f.readinto(heads)
+        base = 4 * blocks * channels
+
+        def block(b: int, buf: "array.array[int]") -> int:
+            n = min(per_block, samples - b * per_block)
+            f.seek(base + b * (per_block // 2))
+            f.readinto(memoryview(src)[: (n + 1) // 2])
+            cfg[0] = n
+            for c in range(channels):
+                h = heads[b * channels + c]
+                cfg[1 + 3 * c] = (h & 0xFFFF) - ((h & 0x8000) << 1)
+                cfg[2 + 3 * c] = h >> 16
+            return _adpcm_block(src, buf, cfg)
+
+        return block, blocks
+
+"""
+
+#: A lossless ``.bin``: the block index (a word a block), then the bit stream.
+_LOSSLESS_READER = """\
+    def _reader(self, f):
+        blocks, per_block, samples, stream_words, longest, channels = STORED
+        index = array.array("I", bytes(4 * (blocks + 1)))
+        src = array.array("I", bytes(4 * (longest + 1)))
+        cfg = array.array("i", {cfg})
+        f.readinto(memoryview(index)[:blocks])
+        index[blocks] = stream_words
+        base = 4 * blocks{scratch}
+
+        def block(b: int, buf: "array.array[int]") -> int:
+            f.seek(base + 4 * index[b])
+            f.readinto(memoryview(src)[: index[b + 1] - index[b]])
+            cfg[0] = min(per_block, samples - b * per_block)
+            {decode}
+
+        return block, blocks
+
+"""
+
+
+def with_stored(
+    text: str,
+    asset: StreamAsset,
+    *,
+    stop_line: str,
+    lossless_cfg: str,
+    word_method: str = "_word",
+    pack: tuple[str, str, str] | None = None,
+) -> str:
+    """The module of a FIFO-fed player's compressed stream (ADPCM or lossless).
+
+    Its description, the decoder, the player's way through the stored ``.bin`` (in place
+    of reading words from it), and the words before the playing buffer for a stop.
+
+    Parameters
+    ----------
+    text : str
+        The module of the stream as words.
+    asset : StreamAsset
+        The stream (its ``adpcm`` or ``lossless`` form).
+    stop_line : str
+        The statement that ends a stream at once when ``stop()`` was called.
+    lossless_cfg : str
+        The lossless decoder's ``cfg`` list (``_lossless_block``), ``channels`` in scope.
+    word_method : str
+        The player's method that gives the word sent at an index (it reads them from the
+        buffers instead of the file).
+    pack : (str, str, str), optional
+        A step after the lossless decoder: its function's text, the scratch array's
+        allocation and the two lines that decode into it and pack into ``buf``.
+    """
+    ad, ll = asset.adpcm, asset.lossless
+    if ad is not None:
+        desc = (
+            f"# Stored as IMA ADPCM (--compress adpcm): the .bin holds {ad.blocks * ad.channels} "
+            "block headers, then\n# the codes two a byte; each block decodes on its own into "
+            "frames.\n"
+            f"STORED = ({ad.blocks}, {ad.block_samples}, {ad.samples}, {ad.channels})  "
+            "# blocks, samples a block,\n# samples, channels\n"
+        )
+        decoder, reader = ADPCM_DECODER, _ADPCM_READER
+    else:
+        assert ll is not None
+        desc = (
+            f"# Stored compressed (--compress lossless): the .bin holds {ll.blocks} block "
+            "offsets, then the\n# bit stream; each block decodes on its own into words.\n"
+            f"STORED = ({ll.blocks}, {ll.block_samples}, {ll.samples}, {int(ll.words.size)}, "
+            f"{ll.max_block_words}, {ll.channels})  # blocks, codes a\n# block, codes, stream "
+            "words, longest block, channels\n"
+        )
+        decode = "return _lossless_block(src, buf, cfg)"
+        scratch = ""
+        decoder = LOSSLESS_DECODER
+        if pack is not None:
+            decoder += pack[0]
+            scratch = "\n        " + pack[1]
+            decode = pack[2]
+        reader = (
+            _LOSSLESS_READER.replace("{cfg}", lossless_cfg)
+            .replace("{scratch}", scratch)
+            .replace("{decode}", decode)
+        )
+    method = f"    def {word_method}(self, k: int) -> int:\n"
+    pairs = [
+        ("\nclass Player", "\n" + desc + decoder + "\n\nclass Player"),
+        ("import array\n", "import array\nimport micropython\n"),
+        (
+            "    def _play_file(self, loop: bool) -> None:\n",
+            _STORED_PLAY.replace("{stop_line}", stop_line)
+            + reader
+            + "    def _play_file(self, loop: bool) -> None:\n"
+            "        self._play_stored(loop)  # the .bin is stored compressed\n"
+            "        return\n",
+        ),
+        (
+            method,
+            method + "        # the words are in the buffers (the file is compressed)\n"
+            "        return self.cur[k - self.sent] if k >= self.sent "
+            "else self.prev[k - self.sent]\n",
+        ),
+    ]
+    intro = "            if INTRO is not None:\n                self._send(INTRO, len(INTRO))\n"
+    if intro in text:  # the first block is decoded before an intro plays
+        pairs += [
+            (intro, "            self._open_stored()  # block 0, before the intro\n" + intro),
+            (
+                "        finally:\n            self.running = False\n",
+                "        finally:\n            self._close_stored()\n"
+                "            self.running = False\n",
+            ),
+        ]
+    for old, new in pairs:
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    return text
 
 
 #: ``jmp`` conditions in MicroPython's rp2.asm_pio notation.

@@ -165,7 +165,7 @@ REGISTRY: tuple[Entry, ...] = (
         "i2c-dac",
         "ladderpack.outputs.i2c_dac",
         "a 12-bit I2C DAC, one bus write per sample, on two GPIOs",
-        frozenset({"width", "level", "i2c"}),
+        frozenset({"width", "level", "i2c", "compress"}),
         wave_tables=False,
         renamed={"out_base": "sda_pin", "clock_pin": "scl_pin"},
         players={"ladderpack_i2c": "the I2C DAC C player"},
@@ -175,7 +175,7 @@ REGISTRY: tuple[Entry, ...] = (
         "ladderpack.outputs.spi_dac",
         "a 12-bit SPI DAC (channel A, or A and B for stereo) written each sample, on three "
         "GPIOs (four with a latch)",
-        frozenset({"width", "level", "stereo", "serial"}),
+        frozenset({"width", "level", "stereo", "serial", "compress"}),
         wave_tables=False,
         players={"ladderpack_spi": "the SPI DAC C player"},
         options=(

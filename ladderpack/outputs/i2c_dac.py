@@ -51,6 +51,7 @@ from ladderpack.emit.micropython import (
     play_method,
     queue_methods,
     set_clock_text,
+    with_stored,
 )
 from ladderpack.emit.names import comment_safe
 from ladderpack.errors import OptionError
@@ -710,7 +711,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     intro = f"{n}_intro_words" if _count(asset.intro) else "NULL"
     outro = f"{n}_outro_words" if _count(asset.outro) else "NULL"
     fields = [
-        f"{n}_words",
+        f"{n}_words" if asset.compressed is None else "NULL",
         f"{P}_WORD_COUNT",
         intro,
         f"{P}_INTRO_WORD_COUNT",
@@ -732,6 +733,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_LOOP",
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_GPIO_BASE",
+        f"&{n}_lossless" if asset.lossless is not None else "NULL",
     ]
     return init_macro("lp_i2c_stream_t", "ladderpack_i2c.h", f"{P}_I2C_INIT", fields)
 
@@ -1040,7 +1042,76 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         queue=queue_methods("update"),
         play=play_method("update"),
     )
+    if asset.compressed is not None:
+        fmt = _layout(asset).fmt
+        text = with_stored(
+            text,
+            asset,
+            stop_line="self._ramp_down()  # a stream stops at once, ramping down",
+            lossless_cfg="[0, 12, 1, 0, 0, 0, 1, 3]",  # a code a word, then packed
+            pack=(
+                I2C_PACK,
+                f'codes = array.array("I", bytes(4 * per_block))\n'
+                f'        pcfg = array.array("i", {pack_cfg(fmt)})',
+                "pcfg[0] = _lossless_block(src, codes, cfg)\n"
+                "            return _i2c_pack(codes, buf, pcfg)",
+            ),
+        )
     return text + set_clock_text(asset)
+
+
+#: The MicroPython player's packer of a compressed stream (viper): decoded codes into the
+#: words of their updates, as :func:`writer_words` makes them (``cfg`` from
+#: :func:`pack_cfg`). Plain Python too, with the pointer casts as views (the tests run it
+#: on the host against :func:`writer_words`).
+I2C_PACK = """\
+
+@micropython.viper
+def _i2c_pack(src, dst, cfg) -> int:
+    # cfg: codes, bytes an update, then per byte its constant bits and a shift (the byte
+    # is constant | (code << 4) >> shift, 8 bits); a word a byte, inverted in bits 31:24,
+    # bit 23 on an update's last byte. Returns the words.
+    s = ptr32(src)
+    d = ptr32(dst)
+    c = ptr32(cfg)
+    n = c[0]
+    per = c[1]
+    i = 0
+    w = 0
+    while i < n:
+        code = s[i] << 4
+        k = 0
+        while k < per:
+            b = (c[2 + 2 * k] | (code >> c[3 + 2 * k])) & 0xFF
+            word = (b ^ 0xFF) << 24
+            if k == per - 1:
+                word |= 0x800000
+            d[w] = word
+            w += 1
+            k += 1
+        i += 1
+    return w
+"""
+
+
+def pack_cfg(fmt: I2cDacFormat) -> list[int]:
+    """The configuration of :data:`I2C_PACK` for updates in format `fmt`.
+
+    Per byte its constant bits and the shift of ``code << 4`` that gives its code bits
+    (31: none), from the command's bytes (see the module's text).
+
+    Examples
+    --------
+    >>> pack_cfg(I2cDacFormat(0x60, "fast"))
+    [0, 3, 192, 31, 0, 12, 0, 4]
+    """
+    pd = fmt.power_down
+    rows = [(fmt.address_byte, 31)]
+    if fmt.command == "fast":
+        rows += [(pd << 4, 12), (0, 4)]
+    else:
+        rows += [(0x40 | pd << 1, 31), (0, 8), (0, 0)]
+    return [0, len(rows), *(v for row in rows for v in row)]
 
 
 # -- update tables -------------------------------------------------------------
@@ -1166,6 +1237,12 @@ class I2cDacOutput:
                 f"must be one of {', '.join(I2C_DAC_COMMANDS)}, got {opts.dac_command!r}",
                 field="dac_command",
             )
+        if opts.compress == "adpcm":
+            raise OptionError(
+                "IMA ADPCM codes 16-bit samples: a 12-bit I2C DAC stream takes --compress "
+                "lossless (every code kept) or none",
+                field="compress",
+            )
         a = opts.dac_address
         if isinstance(a, bool) or not isinstance(a, int) or not 0x08 <= a <= 0x77:
             raise OptionError(
@@ -1265,8 +1342,20 @@ class I2cDacOutput:
         return plan.program.variant
 
     def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
-        """Stored as its words (this output takes no ``compress`` option)."""
-        return uncompressed(packed)
+        """``--compress lossless``: the code of every update.
+
+        The players rebuild each update's bus bytes. Blocks of whole updates, no longer
+        than a MicroPython player's buffer.
+        """
+        if opts.compress != "lossless":
+            return uncompressed(packed)
+        from ladderpack.compress import encode_lossless
+
+        lay = packed.layout
+        assert isinstance(lay, I2cDacLayout)
+        codes = lay.unpack_words(packed.words)[:, 0]
+        block = max(1, min(1024, int(opts.chunk_words) // lay.words_per_update))
+        return Compressed(encode_lossless(codes, lay.bits, block_samples=block), None, packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """The DAC's address and command, the bus and the pins."""
@@ -1302,12 +1391,12 @@ class I2cDacOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the I2C player."""
-        n = asset.name
-        return {
-            f"{n}.bin": binary.render_chunks(asset.packed),
+        n, stored = asset.name, asset.compressed
+        return {  # a compressed stream's .bin is its stored form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if stored is None else stored.to_bytes(),
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": render_source_chunks(asset),
-            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            f"{n}.py": render_micropython(asset, embed=embed and stored is None).encode(),
             f"{n}.pio": render_pio(asset).encode(),
             **templates.player("ladderpack_i2c"),
         }
@@ -1320,7 +1409,12 @@ class I2cDacOutput:
         def decode(words: np.ndarray, count: int, channel: int) -> np.ndarray:
             return np.asarray(lay.unpack_words(words[: lay.words_for(count)])[:count, channel])
 
-        return PreviewModel(lay, 12, 1, 4096, 4095 / 2, False, decode)
+        def stored(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+            from ladderpack.compress import decode_stored
+
+            return lay.pack_codes(decode_stored(data, comp, bits=12))
+
+        return PreviewModel(lay, 12, 1, 4096, 4095 / 2, False, decode, stored)
 
     def clock_report(
         self, rate_hz: float, opts: StreamOptions, settings: Mapping[str, Any]

@@ -43,6 +43,7 @@ from ladderpack.emit.micropython import (
     mp_program_body,
     pio_registers_text,
     set_clock_text,
+    with_stored,
 )
 from ladderpack.emit.names import comment_safe
 from ladderpack.errors import OptionError
@@ -842,136 +843,14 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         ),
         asset,
     )
-    return text if asset.compressed is None else _with_stored(text, asset)
-
-
-#: A compressed stream's way through its ``.bin``: the reader (`_ADPCM_READER` or
-#: `_LOSSLESS_READER`) gives a block's frames, decoded into the buffer that is not playing.
-_STORED_PLAY = """\
-    def _play_stored(self, loop: bool) -> None:
-        self.prev_last = 0
-        with open(self.path, "rb") as f:
-            block, blocks = self._reader(f)
-            which, b = 0, 1
-            n = block(0, self.bufs[0])  # decoded before the machine runs
-            self._send(self.bufs[0], n)
-            self._go()
-            while True:
-                wrap = b == blocks
-                if wrap:
-                    if not (loop and self.running):
-                        break
-                    b = 0  # a loop ends only on a pass boundary
-                which ^= 1
-                buf = self.bufs[which]
-                n = block(b, buf)  # the next block while this one plays
-                b += 1
-                if wrap:
-                    self.sent = -self.cur_n
-                if not self.running and not LOOP:
-                    self._fade_out()  # a stream stops at once, fading out
-                    return
-                self.prev_last = self.cur[self.cur_n - 1]
-                self._send(buf, n)
-
-"""
-
-#: An ADPCM ``.bin``: the block headers (a word per block and channel), then the codes.
-_ADPCM_READER = """\
-    def _reader(self, f):
-        blocks, per_block, samples, channels = STORED
-        heads = array.array("I", bytes(4 * blocks * channels))
-        src = bytearray(per_block // 2)
-        cfg = array.array("i", [0, 0, 0, channels, 0, 0])
-        f.readinto(heads)
-        base = 4 * blocks * channels
-
-        def block(b: int, buf: "array.array[int]") -> int:
-            n = min(per_block, samples - b * per_block)
-            f.seek(base + b * (per_block // 2))
-            f.readinto(memoryview(src)[: (n + 1) // 2])
-            cfg[0] = n
-            for c in range(channels):
-                h = heads[b * channels + c]
-                cfg[1 + 3 * c] = (h & 0xFFFF) - ((h & 0x8000) << 1)
-                cfg[2 + 3 * c] = h >> 16
-            return _adpcm_block(src, buf, cfg)
-
-        return block, blocks
-
-"""
-
-#: A lossless ``.bin``: the block index (a word a block), then the bit stream.
-_LOSSLESS_READER = """\
-    def _reader(self, f):
-        blocks, per_block, samples, stream_words, longest, channels = STORED
-        index = array.array("I", bytes(4 * (blocks + 1)))
-        src = array.array("I", bytes(4 * (longest + 1)))
-        cfg = array.array("i", [0, 16, 1, 0, 0, 0x8000, channels, 1])
-        f.readinto(memoryview(index)[:blocks])
-        index[blocks] = stream_words
-        base = 4 * blocks
-
-        def block(b: int, buf: "array.array[int]") -> int:
-            f.seek(base + 4 * index[b])
-            f.readinto(memoryview(src)[: index[b + 1] - index[b]])
-            cfg[0] = min(per_block, samples - b * per_block)
-            return _lossless_block(src, buf, cfg)
-
-        return block, blocks
-
-"""
-
-
-def _with_stored(text: str, asset: StreamAsset) -> str:
-    """The module of a compressed stream (ADPCM or lossless).
-
-    Its description, the decoder, the player's way through the stored ``.bin``, and the
-    words of a fade taken from the buffers.
-    """
-    from ladderpack.emit.micropython import ADPCM_DECODER, LOSSLESS_DECODER
-
-    ad, ll = asset.adpcm, asset.lossless
-    if ad is not None:
-        desc = (
-            f"# Stored as IMA ADPCM (--compress adpcm): the .bin holds {ad.blocks * ad.channels} "
-            "block headers, then\n# the codes two a byte; each block decodes on its own into "
-            "frames.\n"
-            f"STORED = ({ad.blocks}, {ad.block_samples}, {ad.samples}, {ad.channels})  "
-            "# blocks, samples a block,\n# samples, channels\n"
-        )
-        decoder, reader = ADPCM_DECODER, _ADPCM_READER
-    else:
-        assert ll is not None
-        desc = (
-            f"# Stored compressed (--compress lossless): the .bin holds {ll.blocks} block "
-            "offsets, then the\n# bit stream; each block decodes on its own into frames.\n"
-            f"STORED = ({ll.blocks}, {ll.block_samples}, {ll.samples}, {int(ll.words.size)}, "
-            f"{ll.max_block_words}, {ll.channels})  # blocks, codes a\n# block, codes, stream "
-            "words, longest block, channels\n"
-        )
-        decoder, reader = LOSSLESS_DECODER, _LOSSLESS_READER
-    pairs = [
-        ("FADE_FRAMES = ", desc + "FADE_FRAMES = "),
-        ("import array\n", "import array\nimport micropython\n"),
-        ("\nclass Player", decoder + "\n\nclass Player"),
-        (
-            "    def _play_file(self, loop: bool) -> None:\n",
-            _STORED_PLAY + reader + "    def _play_file(self, loop: bool) -> None:\n"
-            "        self._play_stored(loop)  # the .bin is stored compressed\n"
-            "        return\n",
-        ),
-        (
-            "    def _word(self, k: int) -> int:\n",
-            "    def _word(self, k: int) -> int:\n"
-            "        # the words are in the buffers, not the file\n"
-            "        return self.cur[k - self.sent] if k >= self.sent else self.prev_last\n",
-        ),
-    ]
-    for old, new in pairs:
-        assert old in text, old
-        text = text.replace(old, new, 1)
-    return text
+    if asset.compressed is None:
+        return text
+    return with_stored(
+        text,
+        asset,
+        stop_line="self._fade_out()  # a stream stops at once, fading out",
+        lossless_cfg="[0, 16, 1, 0, 0, 0x8000, channels, 1]",  # I2S frames, two's complement
+    )
 
 
 def set_clock_after(text: str, asset: StreamAsset) -> str:

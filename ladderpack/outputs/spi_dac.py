@@ -57,6 +57,7 @@ from ladderpack.emit.micropython import (
     play_method,
     queue_methods,
     set_clock_text,
+    with_stored,
 )
 from ladderpack.emit.names import comment_safe, player_files
 from ladderpack.errors import OptionError
@@ -551,7 +552,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     intro = f"{n}_intro_words" if _count(asset.intro) else "NULL"
     outro = f"{n}_outro_words" if _count(asset.outro) else "NULL"
     fields = [
-        f"{n}_words",
+        f"{n}_words" if asset.compressed is None else "NULL",
         f"{P}_WORD_COUNT",
         intro,
         f"{P}_INTRO_WORD_COUNT",
@@ -571,6 +572,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_LOOP",
         f"{P}_SYS_CLOCK_HZ",
         f"{P}_GPIO_BASE",
+        f"&{n}_lossless" if asset.lossless is not None else "NULL",
     ]
     return init_macro("lp_spi_stream_t", HEADER_NAME, f"{P}_SPI_INIT", fields)
 
@@ -835,6 +837,14 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         queue=queue_methods("sample"),
         play=play_method("sample"),
     )
+    if asset.compressed is not None:
+        text = with_stored(
+            text,
+            asset,
+            stop_line="self._ramp_down()  # a stream stops at once, ramping down",
+            lossless_cfg="[0, 12, 2, 0, 0, 0, channels, 2]",  # a code a slot, shift left
+            word_method="_word_at",
+        )
     return text + set_clock_text(asset)
 
 
@@ -879,6 +889,12 @@ class SpiDacOutput:
         if opts.idle_code > 4095:
             raise OptionError(
                 f"must be 0..4095 for 12 bits, got {opts.idle_code}", field="idle_code"
+            )
+        if opts.compress == "adpcm":
+            raise OptionError(
+                "IMA ADPCM codes 16-bit samples: a 12-bit SPI DAC stream takes --compress "
+                "lossless (every code kept) or none",
+                field="compress",
             )
         o: Any = opts
         if o.dac_gain not in (1, 2):
@@ -982,8 +998,30 @@ class SpiDacOutput:
         return plan.program.variant
 
     def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
-        """Stored as its words (this output takes no ``compress`` option)."""
-        return uncompressed(packed)
+        """``--compress lossless``: the codes of every slot (A and B alternate in stereo).
+
+        Each channel's codes are predicted from its own; the padding slot of a mono
+        stream's last word too, so the players' packing gives the words exactly. Blocks
+        of whole words, no longer than a MicroPython player's buffer.
+        """
+        if opts.compress != "lossless":
+            return uncompressed(packed)
+        from ladderpack.compress import encode_lossless
+
+        lay = packed.layout
+        stereo = isinstance(lay, SpiDacStereoLayout)
+        if isinstance(lay, SpiDacStereoLayout):
+            codes = lay.unpack_words(packed.words).ravel()
+        else:
+            codes = unpack(packed.words, lay).codes
+        block = CODES_PER_WORD * max(1, min(512, int(opts.chunk_words)))
+        coded = encode_lossless(
+            np.asarray(codes, dtype=np.int64),
+            BITS,
+            block_samples=block,
+            channels=2 if stereo else 1,
+        )
+        return Compressed(coded, None, packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """Stereo or mono, SCK, the frame's bits and the pins."""
@@ -1027,12 +1065,12 @@ class SpiDacOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, PIO source, the SPI player."""
-        n = asset.name
-        return {
-            f"{n}.bin": binary.render_chunks(asset.packed),
+        n, stored = asset.name, asset.compressed
+        return {  # a compressed stream's .bin is its stored form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if stored is None else stored.to_bytes(),
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": chunked(source_lines(asset)),
-            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            f"{n}.py": render_micropython(asset, embed=embed and stored is None).encode(),
             f"{n}.pio": render_pio(asset).encode(),
             **templates.player("ladderpack_spi"),
         }
@@ -1045,13 +1083,26 @@ class SpiDacOutput:
             def decode2(words: np.ndarray, count: int, channel: int) -> np.ndarray:
                 return np.asarray(frames.unpack_words(words[:count])[:, channel])
 
-            return PreviewModel(frames, BITS, 2, 4096, 4095 / 2, False, decode2)
+            def stored2(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+                from ladderpack.compress import decode_stored
+
+                return frames.pack_codes(decode_stored(data, comp, bits=BITS))
+
+            return PreviewModel(frames, BITS, 2, 4096, 4095 / 2, False, decode2, stored2)
         lay = _mono_layout()
 
         def decode(words: np.ndarray, count: int, channel: int) -> np.ndarray:
             return np.asarray(unpack(words, lay, count).codes)
 
-        return PreviewModel(lay, BITS, 1, 4096, 4095 / 2, False, decode)
+        def stored(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+            from ladderpack.compress import decode_stored
+            from ladderpack.pack import pack
+            from ladderpack.quantize import Codes
+
+            codes = decode_stored(data, comp, bits=BITS).astype(np.uint16)
+            return pack(Codes(codes, BITS), lay).words
+
+        return PreviewModel(lay, BITS, 1, 4096, 4095 / 2, False, decode, stored)
 
     def wave_table(self, spec: WaveTableSpec) -> WaveTable:
         """Not offered: stream a tone (``tone --output spi-dac --loop``) instead."""

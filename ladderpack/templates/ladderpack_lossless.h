@@ -16,6 +16,7 @@
 #ifndef LADDERPACK_LOSSLESS_H
 #define LADDERPACK_LOSSLESS_H
 
+#include <stdbool.h>
 #include <stdint.h>
 
 /* A compressed stream as the generated source describes it. */
@@ -86,6 +87,11 @@ static inline void lp_lossless_start(lp_lossless_t *d, const lp_lossless_stream_
     d->h1[0] = d->h1[1] = 0;
     d->h2[0] = d->h2[1] = 0;
     lp_lossless_block(d, block);
+}
+
+/* True when the stream's last code has been given. */
+static inline bool lp_lossless_ended(const lp_lossless_t *d) {
+    return d->block + 1u >= d->s->block_count && d->done == d->in_block;
 }
 
 /* Decode up to `n` codes into `out`; returns how many (0: the stream has ended). */

@@ -7,6 +7,7 @@
 #include "hardware/dma.h"
 #include "hardware/gpio.h"
 #include "hardware/pio.h"
+#include "hardware/sync.h"
 
 #define LP_SPI_IDLE     0u
 #define LP_SPI_PLAYING  1u
@@ -29,6 +30,7 @@ static uint32_t lp_spi_channel_mask(const lp_spi_player_t *p) {
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
     if (p->intro_ch >= 0) m |= 1u << (uint)p->intro_ch;
     if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    if (p->ring_ch >= 0) m |= 1u << (uint)p->ring_ch;
     return m;
 }
 
@@ -42,7 +44,85 @@ static void lp_spi_release(lp_spi_player_t *p) {
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
     if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    if (p->ring_ch >= 0) dma_channel_unclaim((uint)p->ring_ch);
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+}
+
+/* -- compressed streams: two RAM buffers (lp_common_ring_t) ------------------------- */
+
+/* The ring's fill: decode the next codes, two a word. A fill ends at the end of the codes
+ * (a loop's pass); the next fill of a loop that goes on starts the next pass. */
+static uint32_t lp_spi_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_spi_player_t *p = (lp_spi_player_t *)r->owner;
+    const lp_spi_stream_t *s = p->stream;
+    uint16_t c[2];
+    uint32_t n = 0u;
+    if (r->at_end) {
+        if (!p->looping) {
+            return 0u; /* the end */
+        }
+        lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+        r->at_end = false;
+    }
+    while (n < max && lp_lossless_decode(&p->dec, c, 2u) == 2u) {
+        words[n++] = lp_spi_word(c[0], c[1]);
+    }
+    r->at_end = lp_lossless_ended(&p->dec);
+    return n;
+}
+
+/* Fill both buffers and chain their channels to each other (a loop's outro after the
+ * last, its intro before the first). Returns the first channel. */
+static __noinline int lp_spi_setup_ring(lp_spi_player_t *p) {
+    const lp_spi_stream_t *s = p->stream;
+    lp_common_ring_t *r = &p->ring;
+    uint32_t idle = lp_spi_word(s->idle_code, s->idle_code);
+    lp_lossless_start(&p->dec, s->lossless, 0u);
+    r->ch[0] = p->data_ch;
+    r->ch[1] = p->ring_ch;
+    r->end_ch = s->outro != NULL ? p->tail_ch : -1;
+    r->buf[0] = p->ring_buf[0];
+    r->buf[1] = p->ring_buf[1];
+    r->size = LP_SPI_RING_WORDS;
+    r->fill = lp_spi_fill;
+    r->owner = p;
+    lp_common_ring_start(r, p->pio, p->sm, &idle, 1u);
+    if (s->loop && s->intro != NULL) {
+        lp_spi_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+        return p->intro_ch;
+    }
+    return p->data_ch;
+}
+
+/* The ramp made at run time from the codes of `last`, the last word sent, to the idle
+ * code (the last word's second code, or both channels' codes). Returns its word count. */
+static uint32_t lp_spi_build_ramp(lp_spi_player_t *p, uint32_t last) {
+    const lp_spi_stream_t *s = p->stream;
+    uint32_t from[2];
+    uint32_t code[2];
+    uint32_t n = 0u;
+    uint32_t k;
+    uint32_t c;
+    from[0] = (last >> 20) & 0xFFFu;
+    from[1] = (last >> 8) & 0xFFFu;
+    if (s->channels == 1u) {
+        from[0] = from[1];
+    }
+    for (k = 1u; k <= LP_SPI_RAMP_SAMPLES; ++k) {
+        for (c = 0u; c < 2u; ++c) {
+            int32_t d = (int32_t)from[c] - (int32_t)s->idle_code;
+            code[c] = (uint32_t)((int32_t)s->idle_code
+                                 + (int32_t)(((int64_t)d * lp_common_cosine_q15[k]) / 32768));
+        }
+        if (s->channels == 2u) {
+            p->ramp[n++] = lp_spi_word(code[0], code[1]);
+        } else if (k % 2u == 0u) {
+            p->ramp[n - 1u] |= lp_spi_word(0u, code[0]);
+        } else {
+            p->ramp[n++] = lp_spi_word(code[0], 0u);
+        }
+    }
+    return n;
 }
 
 /* Restart the machine at the program's start with empty FIFOs and Y = the pad count,
@@ -72,7 +152,8 @@ int lp_spi_init(lp_spi_player_t *p, const lp_spi_stream_t *s, PIO pio) {
     int offset;
 
     p->stream = NULL;
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+    p->ring.owner = NULL;
     p->state = LP_SPI_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_SPI_ERR_CLOCK;
@@ -89,13 +170,16 @@ int lp_spi_init(lp_spi_player_t *p, const lp_spi_stream_t *s, PIO pio) {
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->loop) {
+    if (s->lossless != NULL) {
+        p->ring_ch = dma_claim_unused_channel(false);
+    } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
-        if (s->intro != NULL) {
-            p->intro_ch = dma_claim_unused_channel(false);
-        }
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
+    if (s->loop && s->intro != NULL) {
+        p->intro_ch = dma_claim_unused_channel(false);
+    }
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->lossless == NULL && p->ctrl_ch < 0)
+        || (s->lossless != NULL && p->ring_ch < 0)
         || (s->loop && s->intro != NULL && p->intro_ch < 0)) {
         lp_spi_release(p);
         return LP_SPI_ERR_NO_DMA;
@@ -157,6 +241,12 @@ int lp_spi_start(lp_spi_player_t *p, bool loop) {
     if (s->outro != NULL) {
         lp_spi_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     }
+    if (s->lossless != NULL) {
+        first = lp_spi_setup_ring(p);
+        p->state = LP_SPI_PLAYING;
+        lp_spi_run_from(p, first);
+        return LP_SPI_OK;
+    }
     if (p->looping) {
         /* The control channel writes the start address into the data channel's
          * read-address trigger register each time the data channel finishes. */
@@ -208,11 +298,6 @@ int lp_spi_request_stop(lp_spi_player_t *p) {
     const lp_spi_stream_t *s = p->stream;
     uint32_t sent;
     uint32_t last;
-    uint32_t from[2];
-    uint32_t code[2];
-    uint32_t n = 0u;
-    uint32_t k;
-    uint32_t c;
 
     if (s == NULL) {
         return LP_SPI_ERR_STATE;
@@ -221,6 +306,14 @@ int lp_spi_request_stop(lp_spi_player_t *p) {
         return LP_SPI_OK;
     }
     p->state = LP_SPI_STOPPING;
+    if (s->loop && s->lossless != NULL) {
+        /* End on a pass boundary: the refills stop at the end of this pass. */
+        uint32_t irq = save_and_disable_interrupts();
+        p->looping = false;
+        lp_common_ring_end_pass(&p->ring);
+        restore_interrupts(irq);
+        return LP_SPI_OK;
+    }
     if (s->loop) {
         /* End on a pass boundary: re-point the data channel's chain to the outro. */
         if (p->looping) {
@@ -232,33 +325,21 @@ int lp_spi_request_stop(lp_spi_player_t *p) {
         return LP_SPI_OK;
     }
     /* A stream: stop feeding; the words already in the FIFO play on, then the ramp down
-     * from their last codes (the last word's second code, or both channels' codes). */
-    lp_spi_abort_all(p);
-    sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
-    if (sent == 0u || sent >= s->word_count) {
-        return LP_SPI_OK; /* nothing sent yet, or the stream's own ramp is on its way */
-    }
-    last = s->words[sent - 1u];
-    from[0] = (last >> 20) & 0xFFFu;
-    from[1] = (last >> 8) & 0xFFFu;
-    if (s->channels == 1u) {
-        from[0] = from[1];
-    }
-    for (k = 1u; k <= LP_SPI_RAMP_SAMPLES; ++k) {
-        for (c = 0u; c < 2u; ++c) {
-            int32_t d = (int32_t)from[c] - (int32_t)s->idle_code;
-            code[c] = (uint32_t)((int32_t)s->idle_code
-                                 + (int32_t)(((int64_t)d * lp_common_cosine_q15[k]) / 32768));
+     * from their last codes. */
+    if (s->lossless != NULL) {
+        dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
+        lp_spi_abort_all(p);
+        last = lp_common_ring_last_sent(&p->ring);
+        lp_common_ring_irq(&p->ring, false);
+    } else {
+        lp_spi_abort_all(p);
+        sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
+        if (sent == 0u || sent >= s->word_count) {
+            return LP_SPI_OK; /* nothing sent yet, or the stream's own ramp is on its way */
         }
-        if (s->channels == 2u) {
-            p->ramp[n++] = lp_spi_word(code[0], code[1]);
-        } else if (k % 2u == 0u) {
-            p->ramp[n - 1u] |= lp_spi_word(0u, code[0]);
-        } else {
-            p->ramp[n++] = lp_spi_word(code[0], 0u);
-        }
+        last = s->words[sent - 1u];
     }
-    lp_spi_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
+    lp_spi_feed(p, p->tail_ch, p->ramp, lp_spi_build_ramp(p, last), p->tail_ch, true);
     return LP_SPI_OK;
 }
 
@@ -276,6 +357,9 @@ void lp_spi_deinit(lp_spi_player_t *p) {
     }
     lp_spi_stop(p);
     lp_spi_abort_all(p);
+    if (p->ring_ch >= 0 && p->ring.owner == p) {
+        lp_common_ring_irq(&p->ring, false);
+    }
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_spi_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);

@@ -31,8 +31,18 @@
 
 #include "hardware/pio.h"
 
+#include "ladderpack_common.h"
+#include "ladderpack_lossless.h"
+
 /* Samples of the ramp made at run time when a stream is stopped early. */
 #define LP_SPI_RAMP_SAMPLES 64u
+
+/* Words in each of the two RAM buffers a compressed stream (--compress lossless) is
+ * decoded into, refilled from the DMA_IRQ_0 interrupt (a shared handler) while the other
+ * plays; define it before including this header (in every file that does) to change it. */
+#ifndef LP_SPI_RING_WORDS
+#define LP_SPI_RING_WORDS 64u
+#endif
 
 /* Results: 0 or one of these (lp_spi_strerror gives the text). */
 #define LP_SPI_OK                0
@@ -67,6 +77,7 @@ typedef struct lp_spi_stream {
     bool loop;                   /* the stream is a loop */
     uint32_t sys_clock_hz;       /* system clock the divider was planned for */
     uint8_t gpio_base;           /* PIO GPIO base the pins need: 0, or 16 for GPIO 32+ */
+    const lp_lossless_stream_t *lossless; /* a compressed stream's codes (words NULL), or NULL */
 } lp_spi_stream_t;
 
 /* A player. It must stay valid (static or global) from lp_spi_start until lp_spi_busy
@@ -86,9 +97,16 @@ typedef struct lp_spi_player {
     pio_program_t program;
     const uint32_t *loop_start;  /* read by the control channel */
     uint32_t ramp[LP_SPI_RAMP_SAMPLES];
+    /* a compressed stream: the decoder and the two buffers data_ch and ring_ch play */
+    int ring_ch;
+    lp_lossless_t dec;
+    struct lp_common_ring ring;
+    uint32_t ring_buf[2][LP_SPI_RING_WORDS];
 } lp_spi_player_t;
 
-/* Claim a state machine and the DMA channels (two; four for a loop with an intro), load
+/* Claim a state machine and the DMA channels (two; four for a loop with an intro; a
+ * compressed stream takes a third instead of a loop's control channel, and DMA_IRQ_0
+ * with a shared handler), load
  * the program, set the lines idle (CS and LDAC high, SCK low) and start the state
  * machine, which waits at its first pull. Returns LP_SPI_OK or LP_SPI_ERR_*; on an error
  * nothing stays claimed. clk_sys must be the stream's SYS_CLOCK_HZ (else

@@ -188,9 +188,10 @@ def _ramp_words(start: int, end: int) -> "array.array[int]":
 def _lossless_block(src, dst, cfg) -> int:
     # cfg: codes in the block, bits a code, samples per word, shift right, pin order
     # reversed, inversion mask, channels (2: left and right alternate, a sample is the
-    # frame left | right << bits), I2S frames (1: a word a frame, left << 16 | right, a
-    # mono code in both halves); src: the block's bit stream; dst: the words. Returns
-    # the words.
+    # frame left | right << bits), the words' form (0: that frame or code in each slot;
+    # 1: I2S frames, a word a frame, left << 16 | right, a mono code in both halves; 2:
+    # every code in its own slot; 3: a code a word); src: the block's bit stream; dst:
+    # the words. Returns the words.
     s = ptr32(src)
     d = ptr32(dst)
     c = ptr32(cfg)
@@ -201,8 +202,9 @@ def _lossless_block(src, dst, cfg) -> int:
     rev = c[4]
     inv = c[5]
     two = c[6] - 1
-    i2s = c[7]
-    width = bits << two
+    form = c[7]
+    pair = two if form == 0 else 0  # two channels' codes make one slot's frame
+    width = bits << pair
     head = (s[0] >> 26) & 63
     order = head >> 4
     k = head & 15
@@ -273,21 +275,22 @@ def _lossless_block(src, dst, cfg) -> int:
             p = r
         p = p ^ inv
         i += 1
-        if i2s:
-            if two:
-                if ch == 0:
-                    left = p
-                    continue
-                p = (left << 16) | p
-            else:
-                p = (p << 16) | p
+        if form == 1 or form == 3:
+            if form == 1:
+                if two:
+                    if ch == 0:
+                        left = p
+                        continue
+                    p = (left << 16) | p
+                else:
+                    p = (p << 16) | p
             d[nw] = p
             nw += 1
             continue
-        if two and ch == 0:
+        if pair and ch == 0:
             left = p  # the frame's left half: its right half comes next
             continue
-        if two:
+        if pair:
             p = left | (p << bits)
         if right:
             word |= p << (slot * width)

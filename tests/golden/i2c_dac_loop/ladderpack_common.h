@@ -84,6 +84,9 @@ static inline bool lp_common_gpio_base(PIO pio, uint base) {
  * nothing follows chains to `end_ch` (a tail channel, or -1 for none). Each player's
  * source file keeps its own table of rings by channel and its own handler. */
 typedef struct lp_common_ring lp_common_ring_t;
+
+/* Words sent before the current buffer that a ring keeps (a whole I2C DAC update). */
+#define LP_COMMON_RING_TAIL 4u
 typedef uint32_t (*lp_common_fill_t)(lp_common_ring_t *r, uint32_t *words, uint32_t max);
 
 struct lp_common_ring {
@@ -95,7 +98,7 @@ struct lp_common_ring {
     uint8_t cur;              /* the buffer playing (or next to play) */
     bool done;                /* the last buffer is queued */
     bool at_end;              /* set by fill: its words end the stream or the pass */
-    uint32_t tail_word;       /* the last word played before the current buffer */
+    uint32_t tail[LP_COMMON_RING_TAIL]; /* the last words played before the current buffer */
     lp_common_fill_t fill;
     void *owner;              /* the player */
 };
@@ -110,12 +113,29 @@ static inline void lp_common_set_chain(int ch, int to) {
     dma_hw->ch[ch].al1_ctrl = ctrl;
 }
 
-/* Buffer `which` has played: remember its last word, fill it again and re-arm its channel
+/* `tail` after the `n` words `w` were played (the last LP_COMMON_RING_TAIL words). */
+static inline void lp_common_ring_keep(uint32_t *tail, const uint32_t *w, uint32_t n) {
+    uint32_t k;
+    if (n >= LP_COMMON_RING_TAIL) {
+        for (k = 0u; k < LP_COMMON_RING_TAIL; ++k) {
+            tail[k] = w[n - LP_COMMON_RING_TAIL + k];
+        }
+        return;
+    }
+    for (k = 0u; k + n < LP_COMMON_RING_TAIL; ++k) {
+        tail[k] = tail[k + n];
+    }
+    for (k = 0u; k < n; ++k) {
+        tail[LP_COMMON_RING_TAIL - n + k] = w[k];
+    }
+}
+
+/* Buffer `which` has played: keep its last words, fill it again and re-arm its channel
  * (the other is playing); with nothing left, the other buffer is the last. */
 static inline void lp_common_ring_refill(lp_common_ring_t *r, uint32_t which) {
     int ch = r->ch[which];
     uint32_t n;
-    r->tail_word = r->buf[which][r->count[which] - 1u];
+    lp_common_ring_keep(r->tail, r->buf[which], r->count[which]);
     r->cur = (uint8_t)(which ^ 1u);
     if (r->done) {
         return;
@@ -165,15 +185,20 @@ static inline void lp_common_ring_irq(lp_common_ring_t *r, bool on) {
     }
 }
 
-/* Fill both buffers (the tail word before them: `before`), configure the two channels
- * to feed state machine `sm` of `pio`, each chained to the other, and turn the interrupt
- * on. Nothing starts: buffer 0's channel is the first to trigger. */
-static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm, uint32_t before) {
-    uint32_t n0, n1;
+/* Fill both buffers (the `before_count` words `before` count as played before them: the
+ * idle word, or a whole idle update), configure the two channels to feed state machine
+ * `sm` of `pio`, each chained to the other, and turn the interrupt on. Nothing starts:
+ * buffer 0's channel is the first to trigger. */
+static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm,
+                                        const uint32_t *before, uint32_t before_count) {
+    uint32_t n0, n1, k;
     r->done = false;
     r->at_end = false;
     r->cur = 0u;
-    r->tail_word = before;
+    for (k = 0u; k < LP_COMMON_RING_TAIL; ++k) {
+        r->tail[k] = before[0];
+    }
+    lp_common_ring_keep(r->tail, before, before_count);
     n0 = r->count[0] = r->fill(r, r->buf[0], r->size);
     n1 = r->count[1] = r->fill(r, r->buf[1], r->size);
     if (n1 == 0u) {
@@ -187,22 +212,35 @@ static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm, u
     lp_common_ring_irq(r, true);
 }
 
-/* After the channels were aborted (interrupt off first): the last word sent to the FIFO. */
-static inline uint32_t lp_common_ring_last_sent(const lp_common_ring_t *r) {
+/* After the channels were aborted (interrupt off first): where the feed stopped. Returns
+ * the buffer it stopped in and sets `sent` to the words of it sent to the FIFO and
+ * `before` to the LP_COMMON_RING_TAIL words sent before that buffer (oldest first). */
+static inline const uint32_t *lp_common_ring_where(const lp_common_ring_t *r, uint32_t *sent,
+                                                   uint32_t before[LP_COMMON_RING_TAIL]) {
     uint32_t x = r->cur;
-    uint32_t prev = r->tail_word;
-    uint32_t sent;
+    uint32_t k;
     int ch = r->ch[x];
+    for (k = 0u; k < LP_COMMON_RING_TAIL; ++k) {
+        before[k] = r->tail[k];
+    }
     if (dma_hw->ints0 & (1u << (uint)ch)) { /* it has played; its refill never ran */
-        prev = r->buf[x][r->count[x] - 1u];
+        lp_common_ring_keep(before, r->buf[x], r->count[x]);
         x ^= 1u;
         ch = r->ch[x];
     }
-    sent = (uint32_t)(dma_hw->ch[ch].read_addr - (uint32_t)(uintptr_t)r->buf[x]) / 4u;
-    if (sent > r->count[x]) {
-        sent = r->count[x];
+    *sent = (uint32_t)(dma_hw->ch[ch].read_addr - (uint32_t)(uintptr_t)r->buf[x]) / 4u;
+    if (*sent > r->count[x]) {
+        *sent = r->count[x];
     }
-    return sent ? r->buf[x][sent - 1u] : prev;
+    return r->buf[x];
+}
+
+/* After the channels were aborted (interrupt off first): the last word sent to the FIFO. */
+static inline uint32_t lp_common_ring_last_sent(const lp_common_ring_t *r) {
+    uint32_t before[LP_COMMON_RING_TAIL];
+    uint32_t sent;
+    const uint32_t *buf = lp_common_ring_where(r, &sent, before);
+    return sent ? buf[sent - 1u] : before[LP_COMMON_RING_TAIL - 1u];
 }
 
 /* A loop asked to stop: if the buffer queued next ends the pass, it is the last one (else

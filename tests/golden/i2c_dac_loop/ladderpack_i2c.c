@@ -7,6 +7,7 @@
 #include "hardware/dma.h"
 #include "hardware/gpio.h"
 #include "hardware/pio.h"
+#include "hardware/sync.h"
 
 #define LP_I2C_IDLE     0u
 #define LP_I2C_PLAYING  1u
@@ -56,6 +57,7 @@ static uint32_t lp_i2c_channel_mask(const lp_i2c_player_t *p) {
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
     if (p->intro_ch >= 0) m |= 1u << (uint)p->intro_ch;
     if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    if (p->ring_ch >= 0) m |= 1u << (uint)p->ring_ch;
     return m;
 }
 
@@ -69,7 +71,74 @@ static void lp_i2c_release(lp_i2c_player_t *p) {
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
     if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    if (p->ring_ch >= 0) dma_channel_unclaim((uint)p->ring_ch);
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+}
+
+/* -- compressed streams: two RAM buffers (lp_common_ring_t) ------------------------- */
+
+/* The ring's fill: decode the next codes into whole updates. A fill ends at the end of
+ * the codes (a loop's pass); the next fill of a loop that goes on starts the next pass. */
+static uint32_t lp_i2c_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_i2c_player_t *p = (lp_i2c_player_t *)r->owner;
+    const lp_i2c_stream_t *s = p->stream;
+    uint16_t code;
+    uint32_t n = 0u;
+    if (r->at_end) {
+        if (!p->looping) {
+            return 0u; /* the end */
+        }
+        lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+        r->at_end = false;
+    }
+    while (n + s->words_per_update <= max && lp_lossless_decode(&p->dec, &code, 1u) == 1u) {
+        n += lp_i2c_update(s, code, &words[n]);
+    }
+    r->at_end = lp_lossless_ended(&p->dec);
+    return n;
+}
+
+/* Fill both buffers and chain their channels to each other (a loop's outro after the
+ * last, its intro before the first). Returns the first channel. */
+static __noinline int lp_i2c_setup_ring(lp_i2c_player_t *p) {
+    const lp_i2c_stream_t *s = p->stream;
+    lp_common_ring_t *r = &p->ring;
+    uint32_t idle[4];
+    uint32_t n = lp_i2c_update(s, s->idle_code, idle);
+    lp_lossless_start(&p->dec, s->lossless, 0u);
+    r->ch[0] = p->data_ch;
+    r->ch[1] = p->ring_ch;
+    r->end_ch = s->outro != NULL ? p->tail_ch : -1;
+    r->buf[0] = p->ring_buf[0];
+    r->buf[1] = p->ring_buf[1];
+    r->size = LP_I2C_RING_WORDS;
+    r->fill = lp_i2c_fill;
+    r->owner = p;
+    lp_common_ring_start(r, p->pio, p->sm, idle, n);
+    if (s->loop && s->intro != NULL) {
+        lp_i2c_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+        return p->intro_ch;
+    }
+    return p->data_ch;
+}
+
+/* The ramp made at run time after the words `rest` (the end of the update under way) from
+ * `code` down to the idle code. Returns its word count. */
+static uint32_t lp_i2c_build_ramp(lp_i2c_player_t *p, const uint32_t *rest, uint32_t rest_count,
+                                  uint32_t code) {
+    const lp_i2c_stream_t *s = p->stream;
+    uint32_t n = 0u;
+    uint32_t k;
+    for (k = 0u; k < rest_count; ++k) {
+        p->ramp[n++] = rest[k];
+    }
+    for (k = 1u; k <= LP_I2C_RAMP_UPDATES; ++k) {
+        int32_t d = (int32_t)code - (int32_t)s->idle_code;
+        int32_t c = (int32_t)s->idle_code
+                    + (int32_t)(((int64_t)d * lp_common_cosine_q15[k]) / 32768);
+        n += lp_i2c_update(s, (uint32_t)c, &p->ramp[n]);
+    }
+    return n;
 }
 
 /* Restart the machine at the program's start with empty FIFOs and Y = the pad count,
@@ -100,7 +169,8 @@ int lp_i2c_init(lp_i2c_player_t *p, const lp_i2c_stream_t *s, PIO pio) {
     int offset;
 
     p->stream = NULL;
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = -1;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = -1;
+    p->ring.owner = NULL;
     p->state = LP_I2C_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_I2C_ERR_CLOCK;
@@ -117,13 +187,16 @@ int lp_i2c_init(lp_i2c_player_t *p, const lp_i2c_stream_t *s, PIO pio) {
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->loop) {
+    if (s->lossless != NULL) {
+        p->ring_ch = dma_claim_unused_channel(false);
+    } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
-        if (s->intro != NULL) {
-            p->intro_ch = dma_claim_unused_channel(false);
-        }
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
+    if (s->loop && s->intro != NULL) {
+        p->intro_ch = dma_claim_unused_channel(false);
+    }
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->lossless == NULL && p->ctrl_ch < 0)
+        || (s->lossless != NULL && p->ring_ch < 0)
         || (s->loop && s->intro != NULL && p->intro_ch < 0)) {
         lp_i2c_release(p);
         return LP_I2C_ERR_NO_DMA;
@@ -183,6 +256,12 @@ int lp_i2c_start(lp_i2c_player_t *p, bool loop) {
     if (s->outro != NULL) {
         lp_i2c_feed(p, p->tail_ch, s->outro, s->outro_count, p->tail_ch, false);
     }
+    if (s->lossless != NULL) {
+        first = lp_i2c_setup_ring(p);
+        p->state = LP_I2C_PLAYING;
+        lp_i2c_run_from(p, first);
+        return LP_I2C_OK;
+    }
     if (p->looping) {
         /* The control channel writes the start address into the data channel's
          * read-address trigger register each time the data channel finishes. */
@@ -236,8 +315,7 @@ int lp_i2c_request_stop(lp_i2c_player_t *p) {
     uint32_t sent;
     uint32_t first;
     uint32_t code;
-    uint32_t n = 0u;
-    uint32_t k;
+    uint32_t n;
 
     if (s == NULL) {
         return LP_I2C_ERR_STATE;
@@ -246,6 +324,14 @@ int lp_i2c_request_stop(lp_i2c_player_t *p) {
         return LP_I2C_OK;
     }
     p->state = LP_I2C_STOPPING;
+    if (s->loop && s->lossless != NULL) {
+        /* End on a pass boundary: the refills stop at the end of this pass. */
+        uint32_t irq = save_and_disable_interrupts();
+        p->looping = false;
+        lp_common_ring_end_pass(&p->ring);
+        restore_interrupts(irq);
+        return LP_I2C_OK;
+    }
     if (s->loop) {
         /* End on a pass boundary: re-point the data channel's chain to the outro. */
         if (p->looping) {
@@ -257,23 +343,35 @@ int lp_i2c_request_stop(lp_i2c_player_t *p) {
         return LP_I2C_OK;
     }
     /* A stream: stop feeding, finish the update under way, ramp down from its code. */
-    lp_i2c_abort_all(p);
     per = s->words_per_update;
+    if (s->lossless != NULL) {
+        /* buffers hold whole updates: the update under way is in the buffer the feed
+         * stopped in, or (none of it sent) the last one before it */
+        uint32_t before[LP_COMMON_RING_TAIL];
+        const uint32_t *buf;
+        dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
+        lp_i2c_abort_all(p);
+        buf = lp_common_ring_where(&p->ring, &sent, before);
+        lp_common_ring_irq(&p->ring, false);
+        if (sent == 0u) {
+            code = lp_i2c_code_of(s, &before[LP_COMMON_RING_TAIL - per]);
+            n = lp_i2c_build_ramp(p, NULL, 0u, code);
+        } else {
+            first = ((sent - 1u) / per) * per;
+            code = lp_i2c_code_of(s, &buf[first]);
+            n = lp_i2c_build_ramp(p, &buf[sent], first + per - sent, code);
+        }
+        lp_i2c_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
+        return LP_I2C_OK;
+    }
+    lp_i2c_abort_all(p);
     sent = (uint32_t)(dma_hw->ch[p->data_ch].read_addr - (uint32_t)(uintptr_t)s->words) / 4u;
     if (sent == 0u || sent >= s->word_count) {
         return LP_I2C_OK; /* nothing sent yet, or the stream's own ramp is on its way */
     }
     first = ((sent - 1u) / per) * per;
-    for (k = sent; k < first + per; ++k) {
-        p->ramp[n++] = s->words[k];
-    }
     code = lp_i2c_code_of(s, &s->words[first]);
-    for (k = 1u; k <= LP_I2C_RAMP_UPDATES; ++k) {
-        int32_t d = (int32_t)code - (int32_t)s->idle_code;
-        int32_t c = (int32_t)s->idle_code
-                    + (int32_t)(((int64_t)d * lp_common_cosine_q15[k]) / 32768);
-        n += lp_i2c_update(s, (uint32_t)c, &p->ramp[n]);
-    }
+    n = lp_i2c_build_ramp(p, &s->words[sent], first + per - sent, code);
     lp_i2c_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
     return LP_I2C_OK;
 }
@@ -292,6 +390,9 @@ void lp_i2c_deinit(lp_i2c_player_t *p) {
     }
     lp_i2c_stop(p);
     lp_i2c_abort_all(p);
+    if (p->ring_ch >= 0 && p->ring.owner == p) {
+        lp_common_ring_irq(&p->ring, false);
+    }
     pio_sm_set_enabled(p->pio, p->sm, false);
     lp_i2c_release(p);
     pio_remove_program(p->pio, &p->program, p->offset);

@@ -68,7 +68,8 @@ extern const uint32_t sensor_check_outro_words[SENSOR_CHECK_OUTRO_WORD_COUNT];
     SENSOR_CHECK_IDLE_CODE, \
     SENSOR_CHECK_LOOP, \
     SENSOR_CHECK_SYS_CLOCK_HZ, \
-    SENSOR_CHECK_GPIO_BASE \
+    SENSOR_CHECK_GPIO_BASE, \
+    NULL \
 }
 
 #endif /* LADDERPACK_SENSOR_CHECK_H */

@@ -12,6 +12,8 @@
 #define LP_I2S_PLAYING  1u
 #define LP_I2S_STOPPING 2u
 
+static const uint32_t lp_i2s_silence = 0u; /* a silent 16-bit frame */
+
 /* A slot value (the sample in the top `bits` of an int32) scaled by w / 32768, with the
  * bits below the sample cleared. */
 static uint32_t lp_i2s_scale(uint32_t slot, int32_t w, uint32_t bits) {
@@ -149,8 +151,7 @@ static uint32_t lp_i2s_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) 
         r->at_end = p->dec.adpcm.block + 1u >= s->adpcm->block_count
                     && p->dec.adpcm.done == p->dec.adpcm.in_block;
     } else {
-        r->at_end = p->dec.lossless.block + 1u >= s->lossless->block_count
-                    && p->dec.lossless.done == p->dec.lossless.in_block;
+        r->at_end = lp_lossless_ended(&p->dec.lossless);
     }
     return n;
 }
@@ -169,7 +170,7 @@ static __noinline void lp_i2s_setup_ring(lp_i2s_player_t *p) {
     r->size = LP_I2S_RING_WORDS;
     r->fill = lp_i2s_fill;
     r->owner = p;
-    lp_common_ring_start(r, p->pio, p->sm, 0u);
+    lp_common_ring_start(r, p->pio, p->sm, &lp_i2s_silence, 1u);
 }
 
 int lp_i2s_init(lp_i2s_player_t *p, const lp_i2s_stream_t *s, PIO pio) {

@@ -41,10 +41,6 @@ BIN_FILE = 'zamp.bin'
 CHUNK_WORDS = 1024
 WORDS = None  # read from BIN_FILE
 OUTRO = None
-# Stored as IMA ADPCM (--compress adpcm): the .bin holds 2 block headers, then
-# the codes two a byte; each block decodes on its own into frames.
-STORED = (2, 1024, 1601, 1)  # blocks, samples a block,
-# samples, channels
 FADE_FRAMES = 64  # a stream stopped early fades out over this many frames
 
 # RP2040 registers (vendor SDK hardware/regs: addressmap.h, pio.h, dreq.h):
@@ -118,6 +114,11 @@ def _fade(left: int, right: int) -> "array.array[int]":
             out.append(vr)
     return out
 
+
+# Stored as IMA ADPCM (--compress adpcm): the .bin holds 2 block headers, then
+# the codes two a byte; each block decodes on its own into frames.
+STORED = (2, 1024, 1601, 1)  # blocks, samples a block,
+# samples, channels
 
 _IMA_STEPS = array.array("H", [
     7, 8, 9, 10, 11, 12, 13, 14, 16, 17, 19, 21, 23, 25, 28, 31, 34, 37, 41, 45, 50, 55,
@@ -278,8 +279,8 @@ class Player:
             pass
 
     def _word(self, k: int) -> int:
-        # the words are in the buffers, not the file
-        return self.cur[k - self.sent] if k >= self.sent else self.prev_last
+        # the words are in the buffers (the file is compressed)
+        return self.cur[k - self.sent] if k >= self.sent else self.prev[k - self.sent]
         if WORDS is not None:
             return WORDS[k]
         with open(self.path, "rb") as f:
@@ -328,13 +329,24 @@ class Player:
             self._send(words, WORD_COUNT)  # a loop ends only on a pass boundary
             self.sent = 0
 
+    def _open_stored(self) -> None:
+        self.f = open(self.path, "rb")
+        self.block, self.blocks = self._reader(self.f)
+        self.n0 = self.block(0, self.bufs[0])  # decoded before the machine runs
+
+    def _close_stored(self) -> None:
+        if getattr(self, "f", None) is not None:
+            self.f.close()
+        self.f = None
+
     def _play_stored(self, loop: bool) -> None:
-        self.prev_last = 0
-        with open(self.path, "rb") as f:
-            block, blocks = self._reader(f)
+        self.prev = array.array("I", [0])
+        if getattr(self, "f", None) is None:
+            self._open_stored()
+        block, blocks = self.block, self.blocks
+        try:
             which, b = 0, 1
-            n = block(0, self.bufs[0])  # decoded before the machine runs
-            self._send(self.bufs[0], n)
+            self._send(self.bufs[0], self.n0)
             self._go()
             while True:
                 wrap = b == blocks
@@ -351,8 +363,10 @@ class Player:
                 if not self.running and not LOOP:
                     self._fade_out()  # a stream stops at once, fading out
                     return
-                self.prev_last = self.cur[self.cur_n - 1]
+                self.prev = self.cur[max(0, self.cur_n - 4) : self.cur_n]
                 self._send(buf, n)
+        finally:
+            self._close_stored()
 
     def _reader(self, f):
         blocks, per_block, samples, channels = STORED

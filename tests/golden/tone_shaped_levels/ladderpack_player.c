@@ -210,7 +210,7 @@ static uint32_t lp_ladder_fill(lp_common_ring_t *r, uint32_t *words, uint32_t ma
         }
         words[n++] = word;
     }
-    r->at_end = p->dec.block + 1u >= s->lossless->block_count && p->dec.done == p->dec.in_block;
+    r->at_end = lp_lossless_ended(&p->dec);
     return n;
 }
 
@@ -232,7 +232,7 @@ static __noinline int lp_ladder_setup_ring(lp_ladder_player_t *p) {
     r->owner = p;
     lp_ladder_feed(p, p->tail_ch, s->outro != NULL ? s->outro : p->ramp,
                    s->outro != NULL ? s->outro_count : 1u, p->tail_ch, false);
-    lp_common_ring_start(r, p->pio, p->sm, s->idle_word);
+    lp_common_ring_start(r, p->pio, p->sm, &s->idle_word, 1u);
     if (s->intro == NULL) {
         return p->data_ch;
     }
