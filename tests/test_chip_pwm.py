@@ -15,6 +15,7 @@ period with the plan in system clocks.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from dataclasses import dataclass
 from pathlib import Path
@@ -141,22 +142,39 @@ def make(folder: Path, name: str, **opts: object) -> tuple[Expected, dict[str, b
     )
     for fname, data in files.items():
         (folder / fname).write_bytes(data)
-    return Expected.load(folder, name), files
+    if base.get("compress", "none") == "none":
+        return Expected.load(folder, name), files
+    # a compressed stream (--compress lossless): what the same stream uncompressed says
+    plain = folder / "plain"
+    plain.mkdir()
+    for fname, data in bundle_files(
+        stream_tone("sine", name=name, **{**base, "compress": "none"})
+    ).items():
+        (plain / fname).write_bytes(data)
+    return Expected.load(plain, name), files
 
 
 @pytest.mark.parametrize(
-    ("rate_hz", "min_carrier_hz", "pin"),
+    ("rate_hz", "min_carrier_hz", "pin", "compress"),
     [
-        (22050.0, None, 5),  # four periods a sample, paced by a DMA timer; channel B
-        (44100.0, 44100.0, 8),  # one period a sample, paced by the slice's wrap; channel A
+        (22050.0, None, 5, "none"),  # four periods a sample, paced by a DMA timer; channel B
+        (44100.0, 44100.0, 8, "none"),  # one period a sample, paced by the slice's wrap; A
+        (22050.0, None, 5, "lossless"),  # the same, decoded on the chip (issue 31)
+        (44100.0, 44100.0, 8, "lossless"),
     ],
 )
 def test_c_player_every_period_holds_its_sample(
-    fw: Firmware, tmp_path: Path, rate_hz: float, min_carrier_hz: float | None, pin: int
+    fw: Firmware,
+    tmp_path: Path,
+    rate_hz: float,
+    min_carrier_hz: float | None,
+    pin: int,
+    compress: str,
 ) -> None:
     exp, _files = make(
-        tmp_path, "chirp", rate_hz=rate_hz, min_carrier_hz=min_carrier_hz, pwm_pin=pin
-    )
+        tmp_path, "chirp", rate_hz=rate_hz, min_carrier_hz=min_carrier_hz, pwm_pin=pin,
+        compress=compress,
+    )  # fmt: skip
     image = fw.make(tmp_path, [], [], app=app("chirp", [("init", 0), ("start", 0), ("wait", 0)]))
     r = run(image, fw.mailbox(), extra={"pwm_slices": [exp.slice]})
     assert r.ended and all(rc == 0 for rc in r.results()), r.results()
@@ -168,15 +186,24 @@ def test_c_player_every_period_holds_its_sample(
 
 
 @pytest.mark.parametrize(
-    ("op", "idle_code"), [("stop", 0), ("request_stop", 0), ("request_stop", 200)]
+    ("op", "idle_code", "compress"),
+    [
+        ("stop", 0, "none"),
+        ("request_stop", 0, "none"),
+        ("request_stop", 200, "none"),
+        ("stop", 0, "lossless"),
+        ("request_stop", 200, "lossless"),
+    ],
 )
 def test_c_player_stop_ramps_every_period_to_idle(
-    fw: Firmware, tmp_path: Path, op: str, idle_code: int
+    fw: Firmware, tmp_path: Path, op: str, idle_code: int, compress: str
 ) -> None:
     # A stop cuts the stream short and ramps to the idle code, every period within the
     # stream's largest step. A mono stream's DMA moves 16-bit transfers: the ramp made at
     # run time must hold one value a halfword, or every other period plays 0 (issue 26).
-    exp, _files = make(tmp_path, "hum", seconds=0.02, freq_hz=440.0, idle_code=idle_code)
+    exp, _files = make(
+        tmp_path, "hum", seconds=0.02, freq_hz=440.0, idle_code=idle_code, compress=compress
+    )
     per_sample = exp.period_clocks * exp.periods_per_sample
     ops = [("init", 0), ("start", 0), ("delay", int(150 * per_sample)), (op, 0)]
     ops += [("wait", 0)] if op == "request_stop" else []
@@ -198,8 +225,11 @@ def test_c_player_stop_ramps_every_period_to_idle(
         assert played.min() > 0  # no zero halves between the ramp's values
 
 
-def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path: Path) -> None:
-    exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0)
+@pytest.mark.parametrize("compress", ["none", "lossless"])
+def test_c_player_loop_and_rp2350_build(
+    fw: Firmware, fw2350: Firmware, tmp_path: Path, compress: str
+) -> None:
+    exp, _files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0, compress=compress)
     per_pass = exp.codes.size * exp.period_clocks * exp.periods_per_sample
     # then a DC level on demand (a compare value held at once), and one out of range
     top1 = int(json.loads((tmp_path / "drone.json").read_text())["clock"]["top"]) + 1
@@ -227,12 +257,19 @@ def test_c_player_loop_and_rp2350_build(fw: Firmware, fw2350: Firmware, tmp_path
 
 
 @pytest.mark.parametrize(
-    ("rate_hz", "embed"), [(22050.0, False), (11025.0, False), (16000.0, True)]
+    ("rate_hz", "embed", "compress"),
+    [
+        (22050.0, False, "none"),
+        (11025.0, False, "none"),
+        (16000.0, True, "none"),
+        (22050.0, False, "lossless"),
+    ],
 )
 def test_micropython_every_period_holds_its_sample(
-    tmp_path: Path, rate_hz: float, embed: bool
+    tmp_path: Path, rate_hz: float, embed: bool, compress: str
 ) -> None:
-    exp, files = make(tmp_path, "ping", rate_hz=rate_hz, seconds=0.01, chunk_words=64, embed=embed)
+    exp, files = make(tmp_path, "ping", rate_hz=rate_hz, seconds=0.01, chunk_words=64, embed=embed,
+                      compress=compress)  # fmt: skip
     board = {"ping.py": files["ping.py"], "ping.bin": files["ping.bin"]}
     code = "import ping\np = ping.Player()\np.play()\np.hold_code(77)\n"
     r = run_micropython(board, [{"code": code}], tmp_path, pwm_slices=[exp.slice])
@@ -246,8 +283,11 @@ def test_micropython_every_period_holds_its_sample(
     assert_periods(times, exp)
 
 
-def test_micropython_interrupt_ramps_down_and_a_loop_ends_on_its_outro(tmp_path: Path) -> None:
-    exp, files = make(tmp_path, "buzz", seconds=0.05, chunk_words=64)
+@pytest.mark.parametrize("compress", ["none", "lossless"])
+def test_micropython_interrupt_ramps_down_and_a_loop_ends_on_its_outro(
+    tmp_path: Path, compress: str
+) -> None:
+    exp, files = make(tmp_path, "buzz", seconds=0.05, chunk_words=64, compress=compress)
     board = {"buzz.py": files["buzz.py"], "buzz.bin": files["buzz.bin"]}
     steps = [
         {"code": "import buzz\np = buzz.Player()\n"},
@@ -268,20 +308,26 @@ def test_micropython_interrupt_ramps_down_and_a_loop_ends_on_its_outro(tmp_path:
     assert np.abs(np.diff(played)).max() <= step
 
 
-def test_stereo_uses_both_channels_of_the_slice(fw: Firmware, tmp_path: Path) -> None:
+@pytest.mark.parametrize("compress", ["none", "lossless"])
+def test_stereo_uses_both_channels_of_the_slice(
+    fw: Firmware, tmp_path: Path, compress: str
+) -> None:
     from ladderpack.audio import Signal
     from ladderpack.bundle import write_bundle
     from ladderpack.stream import stream_signal
 
     t = np.arange(2000) / 48000.0
     x = np.stack([0.8 * np.sin(2 * np.pi * 440 * t), -0.5 * np.sin(2 * np.pi * 1500 * t)], 1)
-    asset = stream_signal(
-        Signal(x, 48000.0), name="duet", output="pwm", stereo=True, pwm_pin=6, ramp_ms=0.5
-    )
-    write_bundle(asset, tmp_path)
+
+    def asset(how: str) -> object:
+        return stream_signal(Signal(x, 48000.0), name="duet", output="pwm", stereo=True,
+                             pwm_pin=6, ramp_ms=0.5, compress=how)  # fmt: skip
+
+    write_bundle(asset(compress), tmp_path)
+    write_bundle(asset("none"), tmp_path / "plain")  # the values, as words
     side = json.loads((tmp_path / "duet.json").read_text())
     clk = side["clock"]
-    words = np.frombuffer((tmp_path / "duet.bin").read_bytes(), "<u4").astype(np.int64)
+    words = np.frombuffer((tmp_path / "plain" / "duet.bin").read_bytes(), "<u4").astype(np.int64)
     a_codes, b_codes = words & 0xFFFF, words >> 16  # channel A in bits 15:0, B in 31:16
     assert not np.array_equal(a_codes, b_codes)
     image = fw.make(tmp_path, [], [], app=app("duet", [("init", 0), ("start", 0), ("wait", 0)]))
@@ -294,7 +340,8 @@ def test_stereo_uses_both_channels_of_the_slice(fw: Firmware, tmp_path: Path) ->
         assert np.all(values[start + want.size * k :] == side["stream"]["idle_code"])
 
 
-def test_micropython_stereo(tmp_path: Path) -> None:
+@pytest.mark.parametrize("compress", ["none", "lossless"])
+def test_micropython_stereo(tmp_path: Path, compress: str) -> None:
     from ladderpack.audio import Signal
     from ladderpack.stream import stream_signal
 
@@ -309,10 +356,12 @@ def test_micropython_stereo(tmp_path: Path) -> None:
         ramp_ms=0.5,
         rate_hz=16000.0,
         chunk_words=64,
+        compress=compress,
     )
     files = bundle_files(asset, embed_words_max=0)
     side = json.loads(files["duet.json"])
-    words = np.frombuffer(files["duet.bin"], "<u4").astype(np.int64)
+    plain = bundle_files(dataclasses.replace(asset, lossless=None), embed_words_max=0)
+    words = np.frombuffer(plain["duet.bin"], "<u4").astype(np.int64)  # the values, as words
     board = {"duet.py": files["duet.py"], "duet.bin": files["duet.bin"]}
     r = run_micropython(board, [{"code": "import duet\nduet.play()\n"}], tmp_path, pwm_slices=[3])
     assert r.ended and "Traceback" not in r.output(), r.output()[-2000:]
@@ -323,8 +372,10 @@ def test_micropython_stereo(tmp_path: Path) -> None:
         assert np.all(values[start + want.size * k :] == side["stream"]["idle_code"])
 
 
-def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path) -> None:
-    exp, files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0, embed=True)
+@pytest.mark.parametrize("compress", ["none", "lossless"])
+def test_micropython_loop_repeats_until_ctrl_c(tmp_path: Path, compress: str) -> None:
+    exp, files = make(tmp_path, "drone", loop=True, cycles=10, freq_hz=2205.0, embed=True,
+                      compress=compress)  # fmt: skip
     board = {"drone.py": files["drone.py"], "drone.bin": files["drone.bin"]}
     k = exp.periods_per_sample
     per_pass = exp.codes.size * exp.period_clocks * k

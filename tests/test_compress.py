@@ -236,7 +236,17 @@ def test_the_micropython_decoder_gives_the_stream_words(bits: int, layout: str) 
         inv = (1 << bits) - 1 if lay.invert else 0
         cfg = array.array(
             "i",
-            [n, bits, lay.samples_per_word, int(lay.shift_right), int(not lay.msb_high), inv, 1, 0],
+            [
+                n,
+                bits,
+                lay.samples_per_word,
+                int(lay.shift_right),
+                int(not lay.msb_high),
+                inv,
+                1,
+                0,
+                bits,
+            ],
         )
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == asset.packed.words.tolist()
@@ -397,7 +407,7 @@ def test_the_micropython_decoder_gives_i2s_frames(stereo: bool) -> None:
         src = array.array("I", [int(w) for w in s.words[start : ends[b]]] + [0])
         dst = array.array("I", bytes(4 * 256))
         n = min(s.block_samples, s.samples - b * s.block_samples)
-        cfg = array.array("i", [n, 16, 1, 0, 0, 0x8000, ch, 1])
+        cfg = array.array("i", [n, 16, 1, 0, 0, 0x8000, ch, 1, 16])
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == lay.pack_codes(codes).tolist()
 
@@ -454,6 +464,8 @@ def test_two_channels_are_predicted_each_from_its_own() -> None:
         ("spi-dac", "lossless", False),
         ("spi-dac", "lossless", True),
         ("i2c-dac", "lossless", False),
+        ("pwm", "lossless", False),
+        ("pwm", "lossless", True),
     ],
 )
 def test_preview_reads_what_the_players_send(
@@ -516,7 +528,7 @@ def test_the_micropython_decoder_gives_spi_dac_words(stereo: bool) -> None:
         src = array.array("I", [int(w) for w in s.words[start : ends[b]]] + [0])
         dst = array.array("I", bytes(4 * 256))
         n = min(s.block_samples, s.samples - b * s.block_samples)
-        cfg = array.array("i", [n, 12, 2, 0, 0, 0, ch, 2])
+        cfg = array.array("i", [n, 12, 2, 0, 0, 0, ch, 2, 12])
         got += dst[: decode(src, dst, cfg)].tolist()
     assert got == want.tolist()
 
@@ -548,5 +560,5 @@ def test_the_micropython_i2c_packer_gives_the_writer_words(command: str, power_d
     s = cz.encode_lossless(codes, 12, block_samples=4096)
     out = array.array("I", bytes(4 * 4096))
     src = array.array("I", [int(w) for w in s.words] + [0])
-    got = _viper_decoder()(src, out, array.array("i", [4096, 12, 1, 0, 0, 0, 1, 3]))
+    got = _viper_decoder()(src, out, array.array("i", [4096, 12, 1, 0, 0, 0, 1, 3, 12]))
     assert out[:got].tolist() == codes.tolist()

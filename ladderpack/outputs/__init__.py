@@ -157,7 +157,7 @@ REGISTRY: tuple[Entry, ...] = (
         "pwm",
         "ladderpack.outputs.pwm",
         "a PWM slice on one GPIO, through an RC filter",
-        frozenset({"level", "stereo", "pwm"}),
+        frozenset({"level", "stereo", "pwm", "compress"}),
         renamed={"out_base": "pwm_pin"},
         players={"ladderpack_pwm": "the PWM C player"},
     ),

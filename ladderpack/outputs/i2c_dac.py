@@ -1048,7 +1048,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
             text,
             asset,
             stop_line="self._ramp_down()  # a stream stops at once, ramping down",
-            lossless_cfg="[0, 12, 1, 0, 0, 0, 1, 3]",  # a code a word, then packed
+            lossless_cfg="[0, 12, 1, 0, 0, 0, 1, 3, 12]",  # a code a word, then packed
             pack=(
                 I2C_PACK,
                 f'codes = array.array("I", bytes(4 * per_block))\n'

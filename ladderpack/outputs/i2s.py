@@ -849,7 +849,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         text,
         asset,
         stop_line="self._fade_out()  # a stream stops at once, fading out",
-        lossless_cfg="[0, 16, 1, 0, 0, 0x8000, channels, 1]",  # I2S frames, two's complement
+        lossless_cfg="[0, 16, 1, 0, 0, 0x8000, channels, 1, 16]",  # I2S frames, two's complement
     )
 
 

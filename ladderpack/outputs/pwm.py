@@ -38,7 +38,16 @@ from ladderpack._version import __version__
 from ladderpack.asset import StreamAsset
 from ladderpack.defaults import DEFAULT_SYS_CLOCK_HZ, default_band_hz
 from ladderpack.emit import Content, binary, templates
-from ladderpack.emit.c import _array_lines, _banner, chunked, header_frame, init_macro, pll_lines
+from ladderpack.emit.c import (
+    _array_lines,
+    _banner,
+    chunked,
+    compressed_header_lines,
+    compressed_source_lines,
+    header_frame,
+    init_macro,
+    pll_lines,
+)
 from ladderpack.emit.micropython import _literal, sdk_constants, set_clock_text
 from ladderpack.emit.names import comment_safe
 from ladderpack.errors import ClockError, OptionError
@@ -557,7 +566,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
     intro = f"{n}_intro_words" if _words(asset.intro) else "NULL"
     outro = f"{n}_outro_words" if _words(asset.outro) else "NULL"
     fields = [
-        f"{n}_words",
+        f"{n}_words" if asset.compressed is None else "NULL",
         f"{P}_TRANSFER_COUNT",
         intro,
         f"{P}_INTRO_TRANSFER_COUNT",
@@ -575,6 +584,7 @@ def _init_macro(asset: StreamAsset) -> list[str]:
         f"{P}_LOOP",
         f"{P}_IDLE_CODE",
         f"{P}_MAX_STEP",
+        f"&{n}_lossless" if asset.lossless is not None else "NULL",
     ]
     return init_macro("lp_pwm_stream_t", "ladderpack_pwm.h", f"{P}_PWM_INIT", fields)
 
@@ -585,7 +595,10 @@ def render_header(asset: StreamAsset) -> str:
     guard = f"LADDERPACK_{prefix}_H"
     lines = header_frame(asset, _defines(asset))
     lines += pll_lines(asset)
-    lines += ["", f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];"]
+    lines += compressed_header_lines(asset) or [
+        "",
+        f"extern const uint32_t {asset.name}_words[{prefix}_WORD_COUNT];",
+    ]
     for part in ("intro", "outro"):
         if _words(getattr(asset, part)):
             lines.append(
@@ -608,11 +621,14 @@ def source_lines(asset: StreamAsset) -> Iterator[str]:
     yield from _banner(asset).split("\n")
     yield f'#include "{asset.name}.h"'
     yield ""
-    yield f"/* Compare values in playing order, {order};"
-    yield " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */"
-    yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
-    yield from _array_lines(asset.packed.words, 8)
-    yield "};"
+    if asset.compressed is not None:
+        yield from compressed_source_lines(asset)
+    else:
+        yield f"/* Compare values in playing order, {order};"
+        yield " * const, so they stay in flash, and uint32_t, so they are word-aligned for DMA. */"
+        yield f"const uint32_t {asset.name}_words[{prefix}_WORD_COUNT] = {{"
+        yield from _array_lines(asset.packed.words, 8)
+        yield "};"
     for part in ("intro", "outro"):
         packed = getattr(asset, part)
         if _words(packed):
@@ -932,7 +948,93 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
         outro=_literal(asset.outro),
         outro_transfers=_transfers(asset, asset.outro),
     )
+    if asset.lossless is not None:
+        text = _with_stored(text, asset)
     return text + set_clock_text(asset)
+
+
+#: A compressed stream's passes: block by block, each decoded into a buffer no channel is
+#: reading (the buffers alternate across passes too).
+_STORED_PARTS = """\
+    def _stored_parts(self) -> "Iterator[tuple[array.array[int], int, bool]]":
+        \"\"\"A pass of a compressed stream, block by block, each decoded into a buffer no
+        channel is reading.\"\"\"
+        blocks, per_block, samples, stream_words, longest, bits, channels = STORED
+        index = array.array("I", bytes(4 * (blocks + 1)))
+        src = array.array("I", bytes(4 * (longest + 1)))
+        # a value a slot (mono: two a word, the first low; stereo: A | B << 16)
+        cfg = array.array("i", [0, bits, 1 if STEREO else 2, 1, 0, 0, channels, 0, 16])
+        with open(self.path, "rb") as f:
+            f.readinto(memoryview(index)[:blocks])
+            index[blocks] = stream_words
+            for b in range(blocks):
+                buf = self.bufs[self.which]  # the buffer after the last one, across passes
+                self._free(buf)
+                f.seek(4 * (blocks + index[b]))
+                f.readinto(memoryview(src)[: index[b + 1] - index[b]])
+                n = min(per_block, samples - b * per_block)
+                cfg[0] = n
+                words = _lossless_block(src, buf, cfg)
+                yield buf, (words if STEREO else n), False
+                self.which ^= 1
+
+"""
+
+#: Where the passes come from when the stream is stored compressed: the first block is
+#: decoded before the intro plays.
+_STORED_LOOP = (
+    """\
+        if INTRO is not None:
+            yield INTRO, INTRO_TRANSFERS, False
+        first = True
+        while first or (loop and self.running):
+            first = False
+""",
+    """\
+        self.which = 0
+        stored = self._stored_parts()
+        head = next(stored)  # decoded before the intro plays
+        if INTRO is not None:
+            yield INTRO, INTRO_TRANSFERS, False
+        first = True
+        while first or (loop and self.running):
+            if not first:
+                stored = self._stored_parts()
+                head = next(stored)
+            first = False
+            yield head  # the .bin is stored compressed: decoded block by block
+            yield from stored
+            continue
+""",
+)
+
+
+def _with_stored(text: str, asset: StreamAsset) -> str:
+    """The module of a compressed stream: its numbers, the decoder, the passes' source."""
+    from ladderpack.emit.micropython import LOSSLESS_DECODER
+
+    ll = asset.lossless
+    assert ll is not None
+    desc = (
+        f"# Stored compressed (--compress lossless): the .bin holds {ll.blocks} block offsets, "
+        "then the bit\n# stream; each block decodes on its own into transfers.\n"
+        f"STORED = ({ll.blocks}, {ll.block_samples}, {ll.samples}, {int(ll.words.size)}, "
+        f"{ll.max_block_words}, {ll.bits}, {ll.channels})  # blocks, values a block,\n# values, "
+        "stream words, longest block, bits a value, channels\n"
+    )
+    pairs = [
+        ("import array\n", "import array\nimport micropython\n"),
+        ("\nclass Player", "\n" + desc + LOSSLESS_DECODER + "\n\nclass Player"),
+        _STORED_LOOP,
+        (
+            "    def play(self, loop: bool = LOOP) -> None:\n",
+            _STORED_PARTS + "    def play(self, loop: bool = LOOP) -> None:\n",
+        ),
+    ]
+    for old, new in pairs:
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    return text
 
 
 # -- the registered object -------------------------------------------------------------
@@ -952,6 +1054,12 @@ class PwmOutput:
 
     def check_options(self, opts: StreamOptions) -> None:
         """A stereo stream on a slice's channel A (an even GPIO); the pins on the target."""
+        if opts.compress == "adpcm":
+            raise OptionError(
+                "IMA ADPCM codes 16-bit samples: a PWM stream's compare values take "
+                "--compress lossless (every value kept) or none",
+                field="compress",
+            )
         if opts.stereo and opts.pwm_pin % 2:
             raise OptionError(
                 f"a stereo PWM stream uses both channels of a slice: give its channel A "
@@ -1026,8 +1134,37 @@ class PwmOutput:
         return f"pwm-{setup.plan.pacing}"
 
     def compress(self, packed: Packed, opts: StreamOptions) -> Compressed:
-        """Stored as its words (this output takes no ``compress`` option)."""
-        return uncompressed(packed)
+        """``--compress lossless``: every compare value the DMA writes (A and B alternate).
+
+        The code width is that of the largest value (at most 16 bits: TOP + 1 = 65536
+        is refused); a mono stream's padding slot is left out (the DMA never writes it).
+        Blocks no longer than a MicroPython player's buffer.
+
+        Raises
+        ------
+        OptionError
+            When a value needs 17 bits.
+        """
+        if opts.compress != "lossless":
+            return uncompressed(packed)
+        from ladderpack.compress import encode_lossless
+
+        lay = packed.layout
+        if isinstance(lay, PwmStereoLayout):
+            values, ch, per = lay.unpack_words(packed.words).ravel(), 2, 1
+        else:
+            values, ch, per = unpack(packed.words, lay, packed.sample_count).codes, 1, 2
+        values = np.asarray(values, dtype=np.int64)
+        bits = max(1, int(values.max(initial=0)).bit_length())
+        if bits > 16:
+            raise OptionError(
+                "compare values up to 65536 (TOP 65535) need 17 bits; the lossless codec "
+                "takes 16: use --bits 15 or fewer, or --compress none",
+                field="compress",
+            )
+        block = ch * per * max(1, min(512, int(opts.chunk_words)))
+        coded = encode_lossless(values, bits, block_samples=block, channels=ch)
+        return Compressed(coded, None, packed)
 
     def summary(self, asset: StreamAsset) -> dict[str, Any]:
         """Stereo or mono, and the slice's carrier, levels, pacing and pin."""
@@ -1071,12 +1208,12 @@ class PwmOutput:
 
     def files(self, asset: StreamAsset, *, embed: bool) -> dict[str, Content]:
         """Words, C header and source, MicroPython module, the PWM player."""
-        n = asset.name
-        return {
-            f"{n}.bin": binary.render_chunks(asset.packed),
+        n, stored = asset.name, asset.compressed
+        return {  # a compressed stream's .bin is its stored form, read block by block
+            f"{n}.bin": binary.render_chunks(asset.packed) if stored is None else stored.to_bytes(),
             f"{n}.h": render_header(asset).encode(),
             f"{n}.c": render_source_chunks(asset),
-            f"{n}.py": render_micropython(asset, embed=embed).encode(),
+            f"{n}.py": render_micropython(asset, embed=embed and stored is None).encode(),
             **templates.player("ladderpack_pwm"),
         }
 
@@ -1091,13 +1228,26 @@ class PwmOutput:
                 got = frames.unpack_words(words[: frames.words_for(count)])
                 return np.asarray(got[:count, channel])
 
-            return PreviewModel(frames, 16, 2, levels, half, False, decode2)
+            def stored2(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+                from ladderpack.compress import decode_stored
+
+                return frames.pack_codes(decode_stored(data, comp, bits=16))
+
+            return PreviewModel(frames, 16, 2, levels, half, False, decode2, stored2)
         mono = WordLayout(16, shift_right=True, per_word=2)
 
         def decode1(words: np.ndarray, count: int, channel: int) -> np.ndarray:
             return np.asarray(unpack(words, mono, count).codes)
 
-        return PreviewModel(mono, 16, 1, levels, half, False, decode1)
+        def stored1(data: bytes, comp: Mapping[str, Any]) -> np.ndarray:
+            from ladderpack.compress import decode_stored
+            from ladderpack.pack import pack
+            from ladderpack.quantize import Codes
+
+            values = decode_stored(data, comp, bits=16).astype(np.uint16)
+            return pack(Codes(values, 16), mono).words
+
+        return PreviewModel(mono, 16, 1, levels, half, False, decode1, stored1)
 
     def wave_table(self, spec: WaveTableSpec) -> WaveTable:
         """Compare values 0..TOP + 1 of the slice the rate plans."""

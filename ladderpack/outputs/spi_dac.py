@@ -842,7 +842,7 @@ def render_micropython(asset: StreamAsset, *, embed: bool = False) -> str:
             text,
             asset,
             stop_line="self._ramp_down()  # a stream stops at once, ramping down",
-            lossless_cfg="[0, 12, 2, 0, 0, 0, channels, 2]",  # a code a slot, shift left
+            lossless_cfg="[0, 12, 2, 0, 0, 0, channels, 2, 12]",  # a code a slot, shift left
             word_method="_word_at",
         )
     return text + set_clock_text(asset)

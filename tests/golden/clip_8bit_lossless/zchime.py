@@ -190,8 +190,9 @@ def _lossless_block(src, dst, cfg) -> int:
     # reversed, inversion mask, channels (2: left and right alternate, a sample is the
     # frame left | right << bits), the words' form (0: that frame or code in each slot;
     # 1: I2S frames, a word a frame, left << 16 | right, a mono code in both halves; 2:
-    # every code in its own slot; 3: a code a word); src: the block's bit stream; dst:
-    # the words. Returns the words.
+    # every code in its own slot; 3: a code a word), the bits of a code's slot (its
+    # width, or 16 for a PWM compare value); src: the block's bit stream; dst: the
+    # words. Returns the words.
     s = ptr32(src)
     d = ptr32(dst)
     c = ptr32(cfg)
@@ -204,7 +205,8 @@ def _lossless_block(src, dst, cfg) -> int:
     two = c[6] - 1
     form = c[7]
     pair = two if form == 0 else 0  # two channels' codes make one slot's frame
-    width = bits << pair
+    sw = c[8]
+    width = sw << pair
     head = (s[0] >> 26) & 63
     order = head >> 4
     k = head & 15
@@ -291,7 +293,7 @@ def _lossless_block(src, dst, cfg) -> int:
             left = p  # the frame's left half: its right half comes next
             continue
         if pair:
-            p = left | (p << bits)
+            p = left | (p << sw)
         if right:
             word |= p << (slot * width)
         else:
@@ -302,6 +304,9 @@ def _lossless_block(src, dst, cfg) -> int:
             nw += 1
             word = 0
             slot = 0
+    if slot:  # a last word not filled (a PWM stream's odd count of values)
+        d[nw] = word
+        nw += 1
     return nw
 
 
@@ -472,7 +477,7 @@ class Player:
         index = array.array("I", bytes(4 * (blocks + 1)))
         src = array.array("I", bytes(4 * (longest + 1)))
         cfg = array.array("i", [0, bits, SPW, int(SHIFT_RIGHT), int(not MSB_HIGH),
-                                ((1 << bits) - 1) if INVERTED else 0, channels, 0])
+                                ((1 << bits) - 1) if INVERTED else 0, channels, 0, bits])
         with open(self.path, "rb") as f:
             f.readinto(memoryview(index)[:blocks])
             index[blocks] = LOSSLESS[3]

@@ -58,7 +58,8 @@ extern const uint32_t buzzer_outro_words[BUZZER_OUTRO_WORD_COUNT];
     BUZZER_SYS_CLOCK_HZ, \
     BUZZER_LOOP, \
     BUZZER_IDLE_CODE, \
-    BUZZER_MAX_STEP \
+    BUZZER_MAX_STEP, \
+    NULL \
 }
 
 #endif /* LADDERPACK_BUZZER_H */

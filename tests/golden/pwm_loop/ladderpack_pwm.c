@@ -7,6 +7,7 @@
 #include "hardware/dma.h"
 #include "hardware/gpio.h"
 #include "hardware/pwm.h"
+#include "hardware/sync.h"
 
 #define LP_PWM_IDLE     0u
 #define LP_PWM_PLAYING  1u
@@ -99,12 +100,18 @@ static void lp_pwm_feed(lp_pwm_player_t *p, int ch, const uint32_t *src, uint32_
     dma_channel_configure((uint)ch, &c, &pwm_hw->slice[p->slice].cc, src, count, now);
 }
 
+static void lp_pwm_ring_arm(lp_common_ring_t *r, int ch, const uint32_t *buf, uint32_t count,
+                            int chain) {
+    lp_pwm_feed((lp_pwm_player_t *)r->owner, ch, buf, count, chain, false);
+}
+
 static uint32_t lp_pwm_channel_mask(const lp_pwm_player_t *p) {
     uint32_t m = 0u;
     if (p->data_ch >= 0) m |= 1u << (uint)p->data_ch;
     if (p->tail_ch >= 0) m |= 1u << (uint)p->tail_ch;
     if (p->intro_ch >= 0) m |= 1u << (uint)p->intro_ch;
     if (p->ctrl_ch >= 0) m |= 1u << (uint)p->ctrl_ch;
+    if (p->ring_ch >= 0) m |= 1u << (uint)p->ring_ch;
     return m;
 }
 
@@ -118,15 +125,76 @@ static void lp_pwm_release(lp_pwm_player_t *p) {
     if (p->tail_ch >= 0) dma_channel_unclaim((uint)p->tail_ch);
     if (p->intro_ch >= 0) dma_channel_unclaim((uint)p->intro_ch);
     if (p->ctrl_ch >= 0) dma_channel_unclaim((uint)p->ctrl_ch);
+    if (p->ring_ch >= 0) dma_channel_unclaim((uint)p->ring_ch);
     if (p->timer >= 0) dma_timer_unclaim((uint)p->timer);
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->timer = -1;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = p->timer = -1;
+}
+
+/* -- compressed streams: two RAM buffers (lp_common_ring_t) ------------------------- */
+
+/* The ring's fill: decode the next values into transfers (mono: two values a word, the
+ * first in the low half; stereo: A | B << 16). A fill ends at the end of the values (a
+ * loop's pass); the next fill of a loop that goes on starts the next pass. */
+static uint32_t lp_pwm_fill(lp_common_ring_t *r, uint32_t *words, uint32_t max) {
+    lp_pwm_player_t *p = (lp_pwm_player_t *)r->owner;
+    const lp_pwm_stream_t *s = p->stream;
+    uint16_t c[2];
+    uint32_t n = 0u;
+    uint32_t got;
+    if (r->at_end) {
+        if (!p->looping) {
+            return 0u; /* the end */
+        }
+        lp_lossless_start(&p->dec, s->lossless, 0u); /* the next pass */
+        r->at_end = false;
+    }
+    while (n < max) {
+        got = lp_lossless_decode(&p->dec, c, 2u);
+        if (got == 0u) {
+            break;
+        }
+        if (s->stereo) {
+            words[n++] = (uint32_t)c[0] | ((uint32_t)c[1] << 16);
+        } else {
+            words[n >> 1] = (uint32_t)c[0] | (got == 2u ? (uint32_t)c[1] << 16 : 0u);
+            n += got;
+        }
+    }
+    r->at_end = lp_lossless_ended(&p->dec);
+    return n;
+}
+
+/* Fill both buffers and chain their channels to each other (the tail after the last, a
+ * loop's intro before the first). Returns the first channel. */
+static __noinline int lp_pwm_setup_ring(lp_pwm_player_t *p) {
+    const lp_pwm_stream_t *s = p->stream;
+    lp_common_ring_t *r = &p->ring;
+    uint32_t idle = lp_pwm_value(s, s->idle_code, s->idle_code);
+    lp_lossless_start(&p->dec, s->lossless, 0u);
+    r->ch[0] = p->data_ch;
+    r->ch[1] = p->ring_ch;
+    r->end_ch = p->tail_ch;
+    r->buf[0] = p->ring_buf[0];
+    r->buf[1] = p->ring_buf[1];
+    r->size = s->stereo ? LP_PWM_RING_WORDS : 2u * LP_PWM_RING_WORDS; /* transfers */
+    r->halfwords = !s->stereo;
+    r->fill = lp_pwm_fill;
+    r->arm = lp_pwm_ring_arm;
+    r->owner = p;
+    lp_common_ring_begin(r, &idle, 1u);
+    if (s->intro != NULL) {
+        lp_pwm_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);
+        return p->intro_ch;
+    }
+    return p->data_ch;
 }
 
 int lp_pwm_init(lp_pwm_player_t *p, const lp_pwm_stream_t *s) {
     pwm_config c;
 
     p->stream = NULL;
-    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->timer = -1;
+    p->data_ch = p->tail_ch = p->intro_ch = p->ctrl_ch = p->ring_ch = p->timer = -1;
+    p->ring.owner = NULL;
     p->state = LP_PWM_IDLE;
     if (clock_get_hz(clk_sys) != s->sys_clock_hz) {
         return LP_PWM_ERR_CLOCK;
@@ -136,16 +204,19 @@ int lp_pwm_init(lp_pwm_player_t *p, const lp_pwm_stream_t *s) {
     }
     p->data_ch = dma_claim_unused_channel(false);
     p->tail_ch = dma_claim_unused_channel(false);
-    if (s->loop) {
+    if (s->lossless != NULL) {
+        p->ring_ch = dma_claim_unused_channel(false);
+    } else if (s->loop) {
         p->ctrl_ch = dma_claim_unused_channel(false);
-        if (s->intro != NULL) {
-            p->intro_ch = dma_claim_unused_channel(false);
-        }
+    }
+    if (s->loop && s->intro != NULL) {
+        p->intro_ch = dma_claim_unused_channel(false);
     }
     if (s->periods_per_sample > 1u) {
         p->timer = dma_claim_unused_timer(false);
     }
-    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && p->ctrl_ch < 0)
+    if (p->data_ch < 0 || p->tail_ch < 0 || (s->loop && s->lossless == NULL && p->ctrl_ch < 0)
+        || (s->lossless != NULL && p->ring_ch < 0)
         || (s->loop && s->intro != NULL && p->intro_ch < 0)
         || (s->periods_per_sample > 1u && p->timer < 0)) {
         lp_pwm_release(p);
@@ -190,6 +261,12 @@ int lp_pwm_start(lp_pwm_player_t *p, bool loop) {
     } else {
         lp_pwm_feed(p, p->tail_ch, p->ramp, 1u, p->tail_ch, false);
     }
+    if (s->lossless != NULL) {
+        first = lp_pwm_setup_ring(p);
+        p->state = LP_PWM_PLAYING;
+        dma_channel_start((uint)first);
+        return LP_PWM_OK;
+    }
     if (p->looping) {
         /* The control channel re-arms the data channel each time it finishes. */
         dma_channel_config cc = dma_channel_get_default_config((uint)p->ctrl_ch);
@@ -218,6 +295,9 @@ bool lp_pwm_busy(lp_pwm_player_t *p) {
     if (p->stream == NULL || p->state == LP_PWM_IDLE) {
         return false;
     }
+    if (p->stream->lossless != NULL && !p->ring.done) {
+        return true; /* buffers still to come (a chain passes through no-one busy) */
+    }
     mask = lp_pwm_channel_mask(p);
     for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
         if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
@@ -240,6 +320,14 @@ int lp_pwm_request_stop(lp_pwm_player_t *p) {
         return LP_PWM_OK;
     }
     p->state = LP_PWM_STOPPING;
+    if (s->loop && s->lossless != NULL) {
+        /* End on a pass boundary: the refills stop at the end of this pass. */
+        uint32_t irq = save_and_disable_interrupts();
+        p->looping = false;
+        lp_common_ring_end_pass(&p->ring);
+        restore_interrupts(irq);
+        return LP_PWM_OK;
+    }
     if (s->loop) {
         if (p->looping) { /* end on a pass boundary: chain the data channel to the outro */
             uint32_t ctrl = dma_hw->ch[p->data_ch].al1_ctrl;
@@ -250,7 +338,14 @@ int lp_pwm_request_stop(lp_pwm_player_t *p) {
         return LP_PWM_OK;
     }
     /* A stream: stop feeding and ramp down at once from the value last written. */
+    if (s->lossless != NULL) {
+        dma_hw->inte0 &= ~((1u << (uint)p->data_ch) | (1u << (uint)p->ring_ch));
+    }
     lp_pwm_abort_all(p);
+    if (s->lossless != NULL) {
+        lp_common_ring_irq(&p->ring, false);
+        p->ring.done = true; /* no buffer to come: busy follows the ramp's channel */
+    }
     cc = pwm_hw->slice[p->slice].cc;
     n = lp_pwm_build_ramp(p, cc & 0xFFFFu, s->stereo ? cc >> 16 : cc & 0xFFFFu);
     lp_pwm_feed(p, p->tail_ch, p->ramp, n, p->tail_ch, true);
@@ -271,6 +366,9 @@ void lp_pwm_deinit(lp_pwm_player_t *p) {
     }
     lp_pwm_stop(p);
     lp_pwm_abort_all(p);
+    if (p->ring_ch >= 0 && p->ring.owner == p) {
+        lp_common_ring_irq(&p->ring, false);
+    }
     lp_pwm_release(p);
     p->stream = NULL;
 }

@@ -31,10 +31,21 @@
 #include <stddef.h>
 #include <stdint.h>
 
+#include "ladderpack_common.h"
+#include "ladderpack_lossless.h"
+
 /* Transfers of RAM per player for ramps made at run time (a stop). A ramp that needs
  * more is made steeper. */
 #ifndef LP_PWM_RAMP_WORDS
 #define LP_PWM_RAMP_WORDS 128u
+#endif
+
+/* Words in each of the two RAM buffers a compressed stream (--compress lossless) is
+ * decoded into (two values a word mono, a frame a word stereo), refilled from the
+ * DMA_IRQ_0 interrupt (a shared handler) while the other plays; define it before
+ * including this header (in every file that does) to change it. */
+#ifndef LP_PWM_RING_WORDS
+#define LP_PWM_RING_WORDS 64u
 #endif
 
 /* Results: 0 or one of these (lp_pwm_strerror gives the text). */
@@ -66,6 +77,7 @@ typedef struct lp_pwm_stream {
     bool loop;                   /* the stream is a loop */
     uint16_t idle_code;          /* compare value before and after the stream */
     uint16_t max_step;           /* largest step between consecutive values */
+    const lp_lossless_stream_t *lossless; /* a compressed stream's values (words NULL), or NULL */
 } lp_pwm_stream_t;
 
 /* A player. It must stay valid (static or global) from lp_pwm_start until lp_pwm_busy
@@ -82,9 +94,16 @@ typedef struct lp_pwm_player {
     bool looping;
     const uint32_t *loop_start;  /* read by the control channel */
     uint32_t ramp[LP_PWM_RAMP_WORDS];
+    /* a compressed stream: the decoder and the two buffers data_ch and ring_ch play */
+    int ring_ch;
+    lp_lossless_t dec;
+    struct lp_common_ring ring;
+    uint32_t ring_buf[2][LP_PWM_RING_WORDS];
 } lp_pwm_player_t;
 
-/* Claim the DMA channels (two, four for a loop) and, for more than one PWM period per
+/* Claim the DMA channels (two, four for a loop; a compressed stream takes a third in
+ * place of a loop's control channel, and DMA_IRQ_0 with a shared handler) and, for more
+ * than one PWM period per
  * sample, a pacing timer; set the slice up and put the idle code on the pin(s). Returns
  * LP_PWM_OK or LP_PWM_ERR_*; on an error nothing stays claimed. The system clock must be
  * the stream's SYS_CLOCK_HZ (else LP_PWM_ERR_CLOCK: the pitch would be wrong). */

@@ -88,6 +88,10 @@ typedef struct lp_common_ring lp_common_ring_t;
 /* Words sent before the current buffer that a ring keeps (a whole I2C DAC update). */
 #define LP_COMMON_RING_TAIL 4u
 typedef uint32_t (*lp_common_fill_t)(lp_common_ring_t *r, uint32_t *words, uint32_t max);
+/* Configure channel `ch` to play `count` transfers of `buf`, chained to `chain`, not
+ * started (a state machine's FIFO, or a player's own destination and pacing). */
+typedef void (*lp_common_arm_t)(lp_common_ring_t *r, int ch, const uint32_t *buf,
+                                uint32_t count, int chain);
 
 struct lp_common_ring {
     int ch[2];                /* the channels of buffer 0 and buffer 1 */
@@ -99,8 +103,12 @@ struct lp_common_ring {
     bool done;                /* the last buffer is queued */
     bool at_end;              /* set by fill: its words end the stream or the pass */
     uint32_t tail[LP_COMMON_RING_TAIL]; /* the last words played before the current buffer */
-    lp_common_fill_t fill;
+    bool halfwords;           /* 16-bit transfers: counts are halfwords, no tail is kept */
+    lp_common_fill_t fill;    /* counts in transfers */
+    lp_common_arm_t arm;
     void *owner;              /* the player */
+    PIO pio;                  /* the state machine lp_common_ring_start feeds */
+    uint sm;
 };
 
 static lp_common_ring_t *lp_common_rings[NUM_DMA_CHANNELS] __attribute__((unused));
@@ -135,7 +143,9 @@ static inline void lp_common_ring_keep(uint32_t *tail, const uint32_t *w, uint32
 static inline void lp_common_ring_refill(lp_common_ring_t *r, uint32_t which) {
     int ch = r->ch[which];
     uint32_t n;
-    lp_common_ring_keep(r->tail, r->buf[which], r->count[which]);
+    if (!r->halfwords) {
+        lp_common_ring_keep(r->tail, r->buf[which], r->count[which]);
+    }
     r->cur = (uint8_t)(which ^ 1u);
     if (r->done) {
         return;
@@ -186,11 +196,11 @@ static inline void lp_common_ring_irq(lp_common_ring_t *r, bool on) {
 }
 
 /* Fill both buffers (the `before_count` words `before` count as played before them: the
- * idle word, or a whole idle update), configure the two channels to feed state machine
- * `sm` of `pio`, each chained to the other, and turn the interrupt on. Nothing starts:
- * buffer 0's channel is the first to trigger. */
-static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm,
-                                        const uint32_t *before, uint32_t before_count) {
+ * idle word, or a whole idle update), arm the two channels with r->arm, each chained to
+ * the other, and turn the interrupt on. Nothing starts: buffer 0's channel is the first
+ * to trigger. */
+static inline void lp_common_ring_begin(lp_common_ring_t *r, const uint32_t *before,
+                                        uint32_t before_count) {
     uint32_t n0, n1, k;
     r->done = false;
     r->at_end = false;
@@ -203,13 +213,27 @@ static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm,
     n1 = r->count[1] = r->fill(r, r->buf[1], r->size);
     if (n1 == 0u) {
         r->done = true;
-        lp_common_feed(pio, sm, r->ch[0], r->buf[0], n0, r->end_ch >= 0 ? r->end_ch : r->ch[0],
-                       false);
+        r->arm(r, r->ch[0], r->buf[0], n0, r->end_ch >= 0 ? r->end_ch : r->ch[0]);
     } else {
-        lp_common_feed(pio, sm, r->ch[0], r->buf[0], n0, r->ch[1], false);
-        lp_common_feed(pio, sm, r->ch[1], r->buf[1], n1, r->ch[0], false);
+        r->arm(r, r->ch[0], r->buf[0], n0, r->ch[1]);
+        r->arm(r, r->ch[1], r->buf[1], n1, r->ch[0]);
     }
     lp_common_ring_irq(r, true);
+}
+
+static inline void lp_common_ring_arm_fifo(lp_common_ring_t *r, int ch, const uint32_t *buf,
+                                           uint32_t count, int chain) {
+    lp_common_feed(r->pio, r->sm, ch, buf, count, chain, false);
+}
+
+/* lp_common_ring_begin for a ring that feeds state machine `sm` of `pio`. */
+static inline void lp_common_ring_start(lp_common_ring_t *r, PIO pio, uint sm,
+                                        const uint32_t *before, uint32_t before_count) {
+    r->pio = pio;
+    r->sm = sm;
+    r->halfwords = false;
+    r->arm = lp_common_ring_arm_fifo;
+    lp_common_ring_begin(r, before, before_count);
 }
 
 /* After the channels were aborted (interrupt off first): where the feed stopped. Returns
