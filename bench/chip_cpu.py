@@ -55,6 +55,7 @@ RATE_HZ = 22050.0
 #: An I2C DAC at 400 kHz updates at most about 9 kHz (three bytes and a start a sample).
 I2C_RATE_HZ = 8000.0
 VERBOSE = False
+MATCH = ""  # --match
 BUS = {"sda": 4, "scl": 5, "address": 0x60, "ack": 1}
 
 
@@ -66,6 +67,7 @@ class Case:
     loop: bool = False
     extra: dict[str, object] | None = None
     clip: str | None = None  # a demo clip instead of a tone (its whole length plays)
+    clip_s: float | None = None  # only this much of the clip, from 0.5 s in (slow outputs)
 
 
 def cases() -> list[Case]:
@@ -105,11 +107,63 @@ def cases() -> list[Case]:
             extra={"i2c": BUS},
         ),
         Case("SPI DAC, stream", "spi-dac", {"rate_hz": 16000.0, "data_pin": 2, "bit_clock_pin": 3}),
+        *compressed_cases(),
+    ]
+
+
+def compressed_cases() -> list[Case]:
+    """The compressed streams of every output but the ladder's.
+
+    The spoken demo clip, or half a second of it where the emulator is slow (PWM: about
+    1.4 M clocks a second of host time) or a tone pair for stereo.
+    """
+    i2s = {"rate_hz": RATE_HZ, "data_pin": 2, "bit_clock_pin": 3}
+    spi = {"rate_hz": 16000.0, "data_pin": 2, "bit_clock_pin": 3, "compress": "lossless"}
+    i2c = {"rate_hz": I2C_RATE_HZ, "sda_pin": BUS["sda"], "scl_pin": BUS["scl"]}
+    clip = "frost_warning.flac"
+    return [
+        Case("I2S, lossless spoken demo clip", "i2s", {**i2s, "compress": "lossless"}, clip=clip),
+        Case(
+            "I2S stereo, lossless tone pair",
+            "i2s",
+            {**i2s, "compress": "lossless", "stereo": True},
+        ),
+        Case("I2S stereo, ADPCM tone pair", "i2s", {**i2s, "compress": "adpcm", "stereo": True}),
+        Case(
+            "PWM, lossless, 0.5 s of the spoken clip",
+            "pwm",
+            {"rate_hz": RATE_HZ, "pwm_pin": 2, "compress": "lossless"},
+            clip=clip,
+            clip_s=0.5,
+        ),
+        Case(
+            "SPI DAC, lossless, 0.5 s of the spoken clip (16 kHz)",
+            "spi-dac",
+            spi,
+            clip=clip,
+            clip_s=0.5,
+        ),
+        Case(
+            "I2C DAC, lossless, 0.5 s of the spoken clip (8 kHz)",
+            "i2c-dac",
+            {**i2c, "compress": "lossless"},
+            extra={"i2c": BUS},
+            clip=clip,
+            clip_s=0.5,
+        ),
     ]
 
 
 def _asset(case: Case, name: str, seconds: float) -> Any:  # a StreamAsset
     opts = dict(case.options)
+    if case.clip is not None and case.clip_s is not None:
+        from ladderpack.audio import Signal, load_clip
+        from ladderpack.stream import stream_signal
+
+        sig = load_clip(str(ROOT / "demo_audio" / case.clip))
+        a, b = int(0.5 * sig.rate_hz), int((0.5 + case.clip_s) * sig.rate_hz)
+        part = Signal(sig.samples[a:b], sig.rate_hz)
+        return stream_signal(part, name=name, output=case.output, **opts)
     if case.clip is not None:
         from ladderpack.stream import stream_clip
 
@@ -145,7 +199,7 @@ def c_row(fw: Firmware, work: Path, case: Case, seconds: float) -> str:
     folder = work / name
     asset = _asset(case, name, seconds)
     write_bundle(asset, folder)
-    stereo = bool(case.options.get("stereo"))
+    stereo = bool(case.options.get("stereo")) and case.output == "ladder"  # its own player
     fn = "lp_stereo" if stereo else f"lp_{short}"
     stems = list(entry.players)
     header = f"{stems[1] if stereo else stems[0]}.h"
@@ -165,7 +219,10 @@ def c_row(fw: Firmware, work: Path, case: Case, seconds: float) -> str:
         init_args="&player, &stream" if case.output == "pwm" else "&player, &stream, pio0",
     )
     image = fw.make(folder, [], [], app=app)
-    r = run(image, fw.mailbox(), max_cycles=int(SYS_HZ * (play_us / 1e6 + 2)), extra=case.extra)
+    extra = dict(case.extra or {})
+    if case.output == "pwm":  # the emulator paces PWM DMA only for the slices it watches
+        extra["pwm_slices"] = [int(asset.stats["pwm"]["slice"])]
+    r = run(image, fw.mailbox(), max_cycles=int(SYS_HZ * (play_us / 1e6 + 2)), extra=extra)
     if not r.ended:
         raise SystemExit(f"{case.label}: the firmware did not finish")
     bad = [rc for rc in r.results() if rc != 0]
@@ -282,8 +339,13 @@ def mp_rows(work: Path, seconds: float) -> list[str]:
             False,
         ),
     ]
+    for k, case in enumerate(compressed_cases()):
+        if case.output != "pwm":  # (see above)
+            specs.append((case.label, f"mpk{k}", case, False))
     rows = []
     for label, name, case, embed in specs:  # a fresh board each: PIO program space is small
+        if MATCH and MATCH not in label:
+            continue
         asset = _asset(case, name, seconds)
         made = bundle_files(asset, embed_words_max=10**7 if embed else 0)
         files = {"cpu_timed.py": MP_TIMED.encode(), f"{name}.py": made[f"{name}.py"]}
@@ -324,7 +386,10 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--seconds", type=float, default=0.25, help="audio per case, s")
     ap.add_argument("--only", choices=["c", "micropython"], help="one kind of player")
+    ap.add_argument("--match", default="", help="only the streams whose label has this text")
     args = ap.parse_args()
+    global MATCH
+    MATCH = args.match
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
         print(
@@ -338,7 +403,8 @@ def main() -> None:
             idle = c_baseline(fw, work, args.seconds)
             print(f"| C | no player, the same sleep (its own wake-ups) | {idle:.3f} % | | | |")
             for case in cases():
-                print(c_row(fw, work, case, args.seconds), flush=True)
+                if not MATCH or MATCH in case.label:
+                    print(c_row(fw, work, case, args.seconds), flush=True)
         if args.only != "c":
             mp = work / "mp"
             mp.mkdir()

@@ -26,6 +26,8 @@ __all__ = [
     "kernel",
     "levels_quantize_py",
     "levels_quantize_ref",
+    "lossless_decode_py",
+    "lossless_decode_ref",
     "shape_quantize_py",
     "shape_quantize_ref",
 ]
@@ -532,3 +534,119 @@ def adpcm_trellis_ref(
         out[k] = trail_code[at]
         at = trail_back[at]
         k -= 1
+
+
+# -- lossless decoding (ladderpack.compress) ---------------------------------------------
+#
+# The format is compress.py's: per block a 2-bit order and a 4-bit Rice parameter, the
+# first `order` codes of each channel verbatim, then per code the zigzag residual's
+# quotient in unary (16 ones: an escape, the value in bits + 3 bits), a zero and k low
+# bits; bits MSB first through 32-bit words, every block starting on a word. These
+# versions read whole fields at once; compress.decode_lossless reads bit by bit (the
+# specification's twin) and the tests hold all three to the same codes and the same
+# refusals.
+
+#: Quotients from this value on are escaped (compress.ESCAPE_Q).
+_ESCAPE_Q = 16
+#: Extra width of an escaped value (compress.ESCAPE_EXTRA_BITS).
+_ESCAPE_EXTRA = 3
+
+
+def lossless_decode_ref(
+    words: np.ndarray,
+    block_words: np.ndarray,
+    bits: int,
+    samples: int,
+    block_samples: int,
+    channels: int,
+    first_block: int,
+    out: np.ndarray,
+) -> int:
+    """Decode a lossless stream's codes from `first_block` on into `out` (int64).
+
+    Returns 0, or the block number plus one where the stream is damaged (it ends inside
+    the block, or a code falls outside 0 .. 2**bits - 1); `out` then holds the codes
+    before it.
+    """
+    nwords = len(words)
+    nblocks = len(block_words)
+    limit = (1 << bits) - 1
+    at = 0
+    for b in range(first_block, nblocks):
+        pos = int(block_words[b]) * 32
+        end = nwords * 32
+        n = min(block_samples, samples - b * block_samples)
+        if pos + 6 > end:
+            return b + 1
+        head = 0
+        for _ in range(6):
+            head = (head << 1) | ((int(words[pos >> 5]) >> (31 - (pos & 31))) & 1)
+            pos += 1
+        order = head >> 4
+        k = head & 15
+        h1 = [0, 0]
+        h2 = [0, 0]
+        for i in range(n):
+            c = i % channels
+            if i < order * channels:
+                if pos + bits > end:
+                    return b + 1
+                x = 0
+                for _ in range(bits):
+                    x = (x << 1) | ((int(words[pos >> 5]) >> (31 - (pos & 31))) & 1)
+                    pos += 1
+            else:
+                q = 0
+                while q < _ESCAPE_Q:
+                    if pos >= end:
+                        return b + 1
+                    bit = (int(words[pos >> 5]) >> (31 - (pos & 31))) & 1
+                    pos += 1
+                    if bit == 0:
+                        break
+                    q += 1
+                width = bits + _ESCAPE_EXTRA if q == _ESCAPE_Q else k
+                if pos + width > end:
+                    return b + 1
+                v = 0
+                for _ in range(width):
+                    v = (v << 1) | ((int(words[pos >> 5]) >> (31 - (pos & 31))) & 1)
+                    pos += 1
+                u = v if q == _ESCAPE_Q else (q << k) | v
+                e = u >> 1 if u % 2 == 0 else -((u + 1) >> 1)
+                if order == 0:
+                    x = e
+                elif order == 1:
+                    x = h1[c] + e
+                else:
+                    x = 2 * h1[c] - h2[c] + e
+            if x < 0 or x > limit:
+                return b + 1
+            h2[c] = h1[c]
+            h1[c] = x
+            out[at] = x
+            at += 1
+    return 0
+
+
+def lossless_decode_py(
+    words: np.ndarray,
+    block_words: np.ndarray,
+    bits: int,
+    samples: int,
+    block_samples: int,
+    channels: int,
+    first_block: int,
+    out: np.ndarray,
+) -> int:
+    """:func:`lossless_decode_ref` on a Python list of the words (short streams)."""
+    return lossless_decode_ref(
+        cast("np.ndarray", words.tolist()),
+        block_words,
+        bits,
+        samples,
+        block_samples,
+        channels,
+        first_block,
+        out,
+    )

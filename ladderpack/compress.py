@@ -59,6 +59,7 @@ __all__ = [
     "adpcm_from_bytes",
     "decode_adpcm",
     "decode_lossless",
+    "decode_lossless_reference",
     "decode_stored",
     "encode_adpcm",
     "encode_lossless",
@@ -312,8 +313,58 @@ class _Bits:
         return v
 
 
+#: Streams up to this many codes are decoded by the interpreter version of the kernel
+#: (about 2 us a code); longer ones by numba's (a few ns a code, after half a second to
+#: load a cached kernel), as ``preview`` of a long stream would otherwise take minutes.
+LOSSLESS_PLAIN_MAX_SAMPLES = 200_000
+
+
 def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarray:
-    """Decode a :class:`LosslessStream` (the reference decoder, plain Python).
+    """Decode a :class:`LosslessStream`.
+
+    The fast decoder (``_kernels.lossless_decode_*``, numba for long streams), held to
+    :func:`decode_lossless_reference` by the tests.
+
+    Parameters
+    ----------
+    stream : LosslessStream
+    first_block : int
+        Start at this block (blocks decode on their own).
+
+    Returns
+    -------
+    numpy.ndarray
+        The codes from that block to the end, int64.
+
+    Raises
+    ------
+    OptionError
+        For a damaged stream: it ends inside a block, or gives a code outside the width.
+    """
+    n = max(0, stream.samples - first_block * stream.block_samples)
+    out = np.zeros(n, dtype=np.int64)
+    decode = kernel("lossless_decode", n, LOSSLESS_PLAIN_MAX_SAMPLES)
+    bad = decode(
+        np.ascontiguousarray(stream.words, dtype=np.uint32),
+        np.ascontiguousarray(stream.block_words, dtype=np.uint32),
+        int(stream.bits),
+        int(stream.samples),
+        int(stream.block_samples),
+        int(stream.channels),
+        int(first_block),
+        out,
+    )
+    if bad:
+        raise OptionError(
+            f"block {bad - 1} is damaged: the bit stream ends inside it, or it decodes to a "
+            f"code outside 0..{(1 << stream.bits) - 1}",
+            field="compression",
+        )
+    return out
+
+
+def decode_lossless_reference(stream: LosslessStream, *, first_block: int = 0) -> np.ndarray:
+    """Decode a :class:`LosslessStream` bit by bit, as the format reads (plain Python).
 
     Parameters
     ----------

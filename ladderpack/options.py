@@ -631,9 +631,9 @@ class StreamOptions(_Model):
     compress: str = _opt(
         "none",
         "Store the stream compressed and decode it on the chip (the C players into two RAM "
-        "buffers from a DMA interrupt): lossless keeps every code (ladder; prediction and "
-        "Rice codes), adpcm keeps 4 bits a sample (IMA ADPCM; 16-bit mono I2S; lossy, its "
-        "SINAD is reported).",
+        "buffers from a DMA interrupt): lossless keeps every code (prediction and Rice "
+        "codes; every output, I2S at 16 bits), adpcm keeps 4 bits a sample (IMA ADPCM; "
+        "16-bit I2S, mono or stereo; lossy, its SINAD is reported).",
         choices=COMPRESS_CHOICES,
         group="compress",
     )

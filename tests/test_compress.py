@@ -562,3 +562,65 @@ def test_the_micropython_i2c_packer_gives_the_writer_words(command: str, power_d
     src = array.array("I", [int(w) for w in s.words] + [0])
     got = _viper_decoder()(src, out, array.array("i", [4096, 12, 1, 0, 0, 0, 1, 3, 12]))
     assert out[:got].tolist() == codes.tolist()
+
+
+# -- the fast decoder against the bit-by-bit reference ------------------------------------
+
+
+def _decoders() -> list[Any]:
+    from ladderpack import _kernels
+
+    return [_kernels.lossless_decode_py, _kernels.lossless_decode_ref,
+            _kernels.compiled("lossless_decode")]  # fmt: skip
+
+
+def _run(fn: Any, s: cz.LosslessStream, first: int = 0) -> tuple[int, list[int]]:
+    out = np.zeros(max(0, s.samples - first * s.block_samples), np.int64)
+    bad = fn(s.words, s.block_words, s.bits, s.samples, s.block_samples, s.channels, first, out)
+    return int(bad), out.tolist()
+
+
+@pytest.mark.parametrize("bits", [1, 5, 8, 12, 16])
+@pytest.mark.parametrize("channels", [1, 2])
+def test_every_lossless_decoder_gives_the_references_codes(bits: int, channels: int) -> None:
+    # the interpreter and numba versions of the fast decoder (whole fields at once) and
+    # the reference that reads the format bit by bit: the same codes, from any block
+    rng = np.random.default_rng(bits * 10 + channels)
+    noise = rng.integers(0, 1 << bits, 300 * channels)
+    x = np.concatenate([sine_codes(2000 * channels, bits), noise, np.zeros(200 * channels, int)])
+    x[::97] = (1 << bits) - 1  # escapes
+    s = cz.encode_lossless(x, bits, block_samples=256 * channels, channels=channels)
+    for first in (0, 3):
+        want = cz.decode_lossless_reference(s, first_block=first).tolist()
+        for fn in _decoders():
+            assert _run(fn, s, first) == (0, want)
+
+
+def test_every_lossless_decoder_refuses_the_same_damage() -> None:
+    # random damage: where the reference refuses, the fast decoders name a block and
+    # give the same codes before it; where it decodes, they give its codes
+    x = sine_codes(3000, 8)
+    s = cz.encode_lossless(x, 8)
+    rng = np.random.default_rng(11)
+    refused = 0
+    for _ in range(40):
+        noisy = s.words.copy()
+        noisy[rng.integers(0, noisy.size)] ^= np.uint32(1 << int(rng.integers(0, 32)))
+        d = cz.LosslessStream(8, s.samples, s.block_samples, noisy, s.block_words)
+        try:
+            want = cz.decode_lossless_reference(d).tolist()
+        except cz.OptionError:  # the reference's refusal
+            want = None
+        for fn in _decoders():
+            bad, got = _run(fn, d)
+            if want is None:
+                assert bad > 0
+            else:
+                assert (bad, got) == (0, want)
+        refused += want is None
+    assert refused > 0
+    cut = cz.LosslessStream(8, s.samples, s.block_samples, s.words[:-40], s.block_words)
+    from ladderpack.errors import OptionError
+
+    with pytest.raises(OptionError, match="block 2 is damaged"):
+        cz.decode_lossless(cut)
