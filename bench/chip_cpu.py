@@ -1,6 +1,6 @@
 """The chip's side of performance: CPU time and RAM of each player, on the emulated chip.
 
-Run:  python bench/chip_cpu.py [--seconds 0.25] [--only c|micropython]
+Run:  python bench/chip_cpu.py [--seconds 0.25] [--only c|micropython] [--match TEXT]
 
 Needs what the firmware tests need (``tests/chip/harness.py``: the pico-sdk by
 ``PICO_SDK_PATH``, arm-none-eabi-gcc, CMake, Node.js with rp2040js, the MicroPython

@@ -222,14 +222,8 @@ static __noinline int lp_ladder_setup_ring(lp_ladder_player_t *p) {
     lp_common_ring_t *r = &p->ring;
     bool closing = s->loop || s->program_kind == LP_LADDER_PROGRAM_LOOP;
     lp_lossless_start(&p->dec, s->lossless, 0u);
-    r->ch[0] = p->data_ch;
-    r->ch[1] = p->ring_ch;
-    r->end_ch = closing ? p->tail_ch : -1;
-    r->buf[0] = p->ring_buf[0];
-    r->buf[1] = p->ring_buf[1];
-    r->size = LP_LADDER_RING_WORDS;
-    r->fill = lp_ladder_fill;
-    r->owner = p;
+    lp_common_ring_init(r, p->data_ch, p->ring_ch, closing ? p->tail_ch : -1,
+                        p->ring_buf[0], p->ring_buf[1], LP_LADDER_RING_WORDS, lp_ladder_fill, p);
     lp_ladder_feed(p, p->tail_ch, s->outro != NULL ? s->outro : p->ramp,
                    s->outro != NULL ? s->outro_count : 1u, p->tail_ch, false);
     lp_common_ring_start(r, p->pio, p->sm, &s->idle_word, 1u);

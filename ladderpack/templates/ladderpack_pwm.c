@@ -171,16 +171,11 @@ static __noinline int lp_pwm_setup_ring(lp_pwm_player_t *p) {
     lp_common_ring_t *r = &p->ring;
     uint32_t idle = lp_pwm_value(s, s->idle_code, s->idle_code);
     lp_lossless_start(&p->dec, s->lossless, 0u);
-    r->ch[0] = p->data_ch;
-    r->ch[1] = p->ring_ch;
-    r->end_ch = p->tail_ch;
-    r->buf[0] = p->ring_buf[0];
-    r->buf[1] = p->ring_buf[1];
-    r->size = s->stereo ? LP_PWM_RING_WORDS : 2u * LP_PWM_RING_WORDS; /* transfers */
+    lp_common_ring_init(r, p->data_ch, p->ring_ch, p->tail_ch, p->ring_buf[0], p->ring_buf[1],
+                        s->stereo ? LP_PWM_RING_WORDS : 2u * LP_PWM_RING_WORDS, /* transfers */
+                        lp_pwm_fill, p);
     r->halfwords = !s->stereo;
-    r->fill = lp_pwm_fill;
     r->arm = lp_pwm_ring_arm;
-    r->owner = p;
     lp_common_ring_begin(r, &idle, 1u);
     if (s->intro != NULL) {
         lp_pwm_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);

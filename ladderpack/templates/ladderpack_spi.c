@@ -78,14 +78,8 @@ static __noinline int lp_spi_setup_ring(lp_spi_player_t *p) {
     lp_common_ring_t *r = &p->ring;
     uint32_t idle = lp_spi_word(s->idle_code, s->idle_code);
     lp_lossless_start(&p->dec, s->lossless, 0u);
-    r->ch[0] = p->data_ch;
-    r->ch[1] = p->ring_ch;
-    r->end_ch = s->outro != NULL ? p->tail_ch : -1;
-    r->buf[0] = p->ring_buf[0];
-    r->buf[1] = p->ring_buf[1];
-    r->size = LP_SPI_RING_WORDS;
-    r->fill = lp_spi_fill;
-    r->owner = p;
+    lp_common_ring_init(r, p->data_ch, p->ring_ch, s->outro != NULL ? p->tail_ch : -1,
+                        p->ring_buf[0], p->ring_buf[1], LP_SPI_RING_WORDS, lp_spi_fill, p);
     lp_common_ring_start(r, p->pio, p->sm, &idle, 1u);
     if (s->loop && s->intro != NULL) {
         lp_spi_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);

@@ -106,14 +106,8 @@ static __noinline int lp_i2c_setup_ring(lp_i2c_player_t *p) {
     uint32_t idle[4];
     uint32_t n = lp_i2c_update(s, s->idle_code, idle);
     lp_lossless_start(&p->dec, s->lossless, 0u);
-    r->ch[0] = p->data_ch;
-    r->ch[1] = p->ring_ch;
-    r->end_ch = s->outro != NULL ? p->tail_ch : -1;
-    r->buf[0] = p->ring_buf[0];
-    r->buf[1] = p->ring_buf[1];
-    r->size = LP_I2C_RING_WORDS;
-    r->fill = lp_i2c_fill;
-    r->owner = p;
+    lp_common_ring_init(r, p->data_ch, p->ring_ch, s->outro != NULL ? p->tail_ch : -1,
+                        p->ring_buf[0], p->ring_buf[1], LP_I2C_RING_WORDS, lp_i2c_fill, p);
     lp_common_ring_start(r, p->pio, p->sm, idle, n);
     if (s->loop && s->intro != NULL) {
         lp_i2c_feed(p, p->intro_ch, s->intro, s->intro_count, p->data_ch, false);

@@ -162,14 +162,8 @@ static __noinline void lp_i2s_setup_ring(lp_i2s_player_t *p) {
     const lp_i2s_stream_t *s = p->stream;
     lp_common_ring_t *r = &p->ring;
     lp_i2s_decode_start(p);
-    r->ch[0] = p->data_ch;
-    r->ch[1] = p->ring_ch;
-    r->end_ch = s->loop ? p->tail_ch : -1;
-    r->buf[0] = p->ring_buf[0];
-    r->buf[1] = p->ring_buf[1];
-    r->size = LP_I2S_RING_WORDS;
-    r->fill = lp_i2s_fill;
-    r->owner = p;
+    lp_common_ring_init(r, p->data_ch, p->ring_ch, s->loop ? p->tail_ch : -1,
+                        p->ring_buf[0], p->ring_buf[1], LP_I2S_RING_WORDS, lp_i2s_fill, p);
     lp_common_ring_start(r, p->pio, p->sm, &lp_i2s_silence, 1u);
 }
 

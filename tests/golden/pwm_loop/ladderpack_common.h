@@ -195,6 +195,21 @@ static inline void lp_common_ring_irq(lp_common_ring_t *r, bool on) {
     }
 }
 
+/* Name the ring's channels (buffer 0's, buffer 1's, the one after the last buffer or -1),
+ * its two buffers of `size` transfers, the player's fill and the player. */
+static inline void lp_common_ring_init(lp_common_ring_t *r, int ch0, int ch1, int end_ch,
+                                       uint32_t *buf0, uint32_t *buf1, uint32_t size,
+                                       lp_common_fill_t fill, void *owner) {
+    r->ch[0] = ch0;
+    r->ch[1] = ch1;
+    r->end_ch = end_ch;
+    r->buf[0] = buf0;
+    r->buf[1] = buf1;
+    r->size = size;
+    r->fill = fill;
+    r->owner = owner;
+}
+
 /* Fill both buffers (the `before_count` words `before` count as played before them: the
  * idle word, or a whole idle update), arm the two channels with r->arm, each chained to
  * the other, and turn the interrupt on. Nothing starts: buffer 0's channel is the first
