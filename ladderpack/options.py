@@ -765,6 +765,28 @@ class StreamOptions(_Model):
         out = _recorded(self, super().to_dict())
         return outputs.get_output(self.output).recorded_options(self, out)
 
+    def replaced(self, **changes: Any) -> StreamOptions:
+        """These options with `changes`, checked again.
+
+        The options of groups the output does not take, which the model fills in for it
+        (a PWM stream's ``bits``), start again from their defaults, so they do not read
+        as given (``dataclasses.replace`` would refuse them).
+
+        Examples
+        --------
+        >>> o = StreamOptions(output="pwm").replaced(dither="none")
+        >>> o.dither, o.bits
+        ('none', 16)
+        """
+        out = outputs.REGISTRY_BY_NAME.get(changes.get("output", self.output))
+        reset = {
+            f.name: f.default
+            for f, info, _hint in option_fields(type(self))
+            if out is not None and info.group and not _takes(out, info.group)
+            and f.name not in changes
+        }  # fmt: skip
+        return dataclasses.replace(self, **{**reset, **changes})
+
     def check_for_tone(self) -> None:
         """Refuse the clip-only options (a tone is synthesised at its own level)."""
         why = {

@@ -962,9 +962,7 @@ def _options(options: StreamOptions | None, overrides: dict[str, Any]) -> Stream
     if options is None:
         return StreamOptions(**overrides)
     if overrides:
-        import dataclasses
-
-        return dataclasses.replace(options, **overrides)
+        return options.replaced(**overrides)
     return options
 
 
@@ -1178,9 +1176,7 @@ def stream_tone(
     opts = _options(options, {k: v for k, v in overrides.items() if k not in tone_keys})
     opts.check_for_tone()
     if spec.kind in EXACT_KINDS:
-        import dataclasses
-
-        opts = dataclasses.replace(opts, dither="none", shaping="none")
+        opts = opts.replaced(dither="none", shaping="none")
     synth = ToneSynth(spec, bits=opts.bits, loop=opts.loop, seed=opts.seed)
     plan = plan_stream(opts, name=name or spec.kind, rate_in_hz=None, frames=synth.samples_for)
     done = process(plan, synth, progress=progress)

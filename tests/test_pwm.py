@@ -343,3 +343,18 @@ def test_preview_of_every_output_meets_its_prediction(tmp_path, opts) -> None:
             assert abs(r["sinad_db"] - (predicted - 1.0)) < 1.5, (r["sinad_db"], predicted)
         else:
             assert r["sinad_db"] > 120
+
+
+def test_exact_tones_and_options_with_overrides_work_for_pwm() -> None:
+    # a DC or staircase tone turns dither and shaping off by changing the options again,
+    # and options given with overrides are changed the same way: the model fills in a
+    # PWM stream's bits, which must not then read as given (they did: "--bits: applies
+    # to outputs ..."). The values: each code of a staircase, as asked (exact kinds).
+    from ladderpack.options import StreamOptions
+    from ladderpack.stream import stream_tone
+
+    a = stream_tone("dc", name="z", output="pwm", seconds=0.01, rate_hz=22050.0, ramp_ms=0.0)
+    assert a.options["dither"] == "none" and a.options["shaping"] == "none"
+    opts = StreamOptions(output="pwm", rate_hz=22050.0)
+    b = stream_tone("sine", name="z", options=opts, seconds=0.01, freq_hz=1000.0)
+    assert b.options["output"] == "pwm" and b.sample_count > 0

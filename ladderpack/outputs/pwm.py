@@ -1158,8 +1158,9 @@ class PwmOutput:
         bits = max(1, int(values.max(initial=0)).bit_length())
         if bits > 16:
             raise OptionError(
-                "compare values up to 65536 (TOP 65535) need 17 bits; the lossless codec "
-                "takes 16: use --bits 15 or fewer, or --compress none",
+                "compare values up to 65536 (TOP 65535, a carrier at or below "
+                "f_sys / 65536) need 17 bits; the lossless codec takes 16: raise "
+                "--min-carrier-hz (a smaller TOP), or use --compress none",
                 field="compress",
             )
         block = ch * per * max(1, min(512, int(opts.chunk_words)))
