@@ -286,17 +286,24 @@ int lp_pwm_start(lp_pwm_player_t *p, bool loop) {
 bool lp_pwm_busy(lp_pwm_player_t *p) {
     uint32_t mask;
     uint ch;
+    uint pass;
 
     if (p->stream == NULL || p->state == LP_PWM_IDLE) {
         return false;
     }
     if (p->stream->lossless != NULL && !p->ring.done) {
-        return true; /* buffers still to come (a chain passes through no-one busy) */
+        return true; /* buffers still to come */
     }
+    /* A slice has no FIFO to show that values are still on their way, so the channels
+     * tell. Twice: a channel read as idle may have been started by a chain from one read
+     * after it (a loop's control channel re-arming the data channel, a ring's buffers),
+     * which the second pass sees busy. */
     mask = lp_pwm_channel_mask(p);
-    for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
-        if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
-            return true;
+    for (pass = 0u; pass < 2u; ++pass) {
+        for (ch = 0u; ch < NUM_DMA_CHANNELS; ++ch) {
+            if ((mask & (1u << ch)) && dma_channel_is_busy(ch)) {
+                return true;
+            }
         }
     }
     p->state = LP_PWM_IDLE;
