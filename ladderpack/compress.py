@@ -364,23 +364,10 @@ def decode_lossless(stream: LosslessStream, *, first_block: int = 0) -> np.ndarr
 
 
 def decode_lossless_reference(stream: LosslessStream, *, first_block: int = 0) -> np.ndarray:
-    """Decode a :class:`LosslessStream` bit by bit, as the format reads (plain Python).
+    """:func:`decode_lossless` bit by bit, as the format reads (plain Python): the reference.
 
-    Parameters
-    ----------
-    stream : LosslessStream
-    first_block : int
-        Start at this block (blocks decode on their own).
-
-    Returns
-    -------
-    numpy.ndarray
-        The codes from that block to the end, int64.
-
-    Raises
-    ------
-    OptionError
-        For a damaged stream: it ends inside a block, or gives a code outside the width.
+    The same arguments, codes and refusals (its messages say more: where the stream ends,
+    the code out of range).
     """
     out: list[int] = []
     nb = int(stream.block_words.size)

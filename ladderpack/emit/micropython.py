@@ -423,6 +423,33 @@ def play(sm_id: int = 0, loop: bool = LOOP) -> None:
 LEVELS_EMBED_MAX_BITS = 10
 
 
+def replace_method(text: str, name: str, new: str) -> str:
+    r"""`text` (a module) with method `name` of its class replaced by `new` (whole lines).
+
+    The method runs from its ``def`` line to the next line indented no deeper than the
+    ``def`` (its trailing blank lines stay).
+
+    Examples
+    --------
+    >>> src = "class A:\n    def f(self):\n        return 1\n\n    def g(self):\n        pass\n"
+    >>> print(replace_method(src, "f", "    def f(self):\n        return 2\n"), end="")
+    class A:
+        def f(self):
+            return 2
+    <BLANKLINE>
+        def g(self):
+            pass
+    """
+    start = text.index(f"    def {name}(")
+    lines = text[start:].splitlines(keepends=True)
+    n = 1
+    while n < len(lines) and (not lines[n].strip() or lines[n].startswith("        ")):
+        n += 1
+    while n > 1 and not lines[n - 1].strip():
+        n -= 1
+    return text[:start] + new + "".join(lines[n:])
+
+
 def _with_lossless(text: str, asset: StreamAsset) -> str:
     """The module of a compressed stream.
 
@@ -439,13 +466,11 @@ def _with_lossless(text: str, asset: StreamAsset) -> str:
     )
     anchor = "INTRO = "
     text = text.replace(anchor, desc + anchor, 1)
-    old = "    def _play_file(self, loop: bool) -> None:\n"
-    assert old in text
-    text = text.replace(
-        old,
-        LOSSLESS_PLAY + old + "        if LOSSLESS is not None:\n"
-        "            self._play_lossless(loop)\n            return\n",
-        1,
+    text = replace_method(
+        text,
+        "_play_file",
+        LOSSLESS_PLAY + "    def _play_file(self, loop: bool) -> None:\n"
+        "        self._play_lossless(loop)  # the .bin is stored compressed\n",
     )
     text = text.replace("import array\n", "import array\nimport micropython\n", 1)
     anchor = "\nclass Player"
@@ -1164,24 +1189,25 @@ def with_stored(
             .replace("{scratch}", scratch)
             .replace("{decode}", decode)
         )
-    method = f"    def {word_method}(self, k: int) -> int:\n"
+    text = replace_method(
+        text,
+        "_play_file",
+        _STORED_PLAY.replace("{stop_line}", stop_line)
+        + reader
+        + "    def _play_file(self, loop: bool) -> None:\n"
+        "        self._play_stored(loop)  # the .bin is stored compressed\n",
+    )
+    text = replace_method(
+        text,
+        word_method,
+        f"    def {word_method}(self, k: int) -> int:\n"
+        "        # the words are in the buffers (the file is compressed)\n"
+        "        return self.cur[k - self.sent] if k >= self.sent "
+        "else self.prev[k - self.sent]\n",
+    )
     pairs = [
         ("\nclass Player", "\n" + desc + decoder + "\n\nclass Player"),
         ("import array\n", "import array\nimport micropython\n"),
-        (
-            "    def _play_file(self, loop: bool) -> None:\n",
-            _STORED_PLAY.replace("{stop_line}", stop_line)
-            + reader
-            + "    def _play_file(self, loop: bool) -> None:\n"
-            "        self._play_stored(loop)  # the .bin is stored compressed\n"
-            "        return\n",
-        ),
-        (
-            method,
-            method + "        # the words are in the buffers (the file is compressed)\n"
-            "        return self.cur[k - self.sent] if k >= self.sent "
-            "else self.prev[k - self.sent]\n",
-        ),
     ]
     intro = "            if INTRO is not None:\n                self._send(INTRO, len(INTRO))\n"
     if intro in text:  # the first block is decoded before an intro plays

@@ -980,17 +980,12 @@ _STORED_PARTS = """\
 
 """
 
-#: Where the passes come from when the stream is stored compressed: the first block is
-#: decoded before the intro plays.
-_STORED_LOOP = (
-    """\
-        if INTRO is not None:
-            yield INTRO, INTRO_TRANSFERS, False
-        first = True
-        while first or (loop and self.running):
-            first = False
-""",
-    """\
+#: The parts of a compressed stream's playback: as the words' (``_parts``), each pass
+#: decoded block by block, the first block before the intro plays.
+_STORED_PARTS_METHOD = """\
+    def _parts(self, loop: bool) -> "Iterator[tuple[array.array[int], int, bool]]":
+        \"\"\"(buffer, transfers, last) in playing order: intro, the stream's blocks (once,
+        or pass after pass until stop() for a loop), outro, a closing idle value.\"\"\"
         self.which = 0
         stored = self._stored_parts()
         head = next(stored)  # decoded before the intro plays
@@ -1002,16 +997,18 @@ _STORED_LOOP = (
                 stored = self._stored_parts()
                 head = next(stored)
             first = False
-            yield head  # the .bin is stored compressed: decoded block by block
+            yield head
             yield from stored
-            continue
-""",
-)
+        if OUTRO is not None:
+            yield OUTRO, OUTRO_TRANSFERS, False
+        # written once the last value has been latched, so the end is on the idle code
+        yield array.array("I", [_value(IDLE_CODE, IDLE_CODE)]), 1, True
+"""
 
 
 def _with_stored(text: str, asset: StreamAsset) -> str:
     """The module of a compressed stream: its numbers, the decoder, the passes' source."""
-    from ladderpack.emit.micropython import LOSSLESS_DECODER
+    from ladderpack.emit.micropython import LOSSLESS_DECODER, replace_method
 
     ll = asset.lossless
     assert ll is not None
@@ -1022,14 +1019,10 @@ def _with_stored(text: str, asset: StreamAsset) -> str:
         f"{ll.max_block_words}, {ll.bits}, {ll.channels})  # blocks, values a block,\n# values, "
         "stream words, longest block, bits a value, channels\n"
     )
+    text = replace_method(text, "_parts", _STORED_PARTS + _STORED_PARTS_METHOD)
     pairs = [
         ("import array\n", "import array\nimport micropython\n"),
         ("\nclass Player", "\n" + desc + LOSSLESS_DECODER + "\n\nclass Player"),
-        _STORED_LOOP,
-        (
-            "    def play(self, loop: bool = LOOP) -> None:\n",
-            _STORED_PARTS + "    def play(self, loop: bool = LOOP) -> None:\n",
-        ),
     ]
     for old, new in pairs:
         assert old in text, old

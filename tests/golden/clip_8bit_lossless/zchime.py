@@ -511,30 +511,7 @@ class Player:
                 self._send(buf, n)
 
     def _play_file(self, loop: bool) -> None:
-        if LOSSLESS is not None:
-            self._play_lossless(loop)
-            return
-        with open(self.path, "rb") as f:
-            which = 0
-            n = f.readinto(self.bufs[0]) // 4  # read before the machine runs
-            self._intro()
-            self._send(self.bufs[0], n)
-            if INTRO is None:
-                self._go()
-            while True:
-                which ^= 1
-                buf = self.bufs[which]
-                n = f.readinto(buf) // 4  # read the next chunk while this one plays
-                if n == 0:
-                    if not (loop and self.running):
-                        break
-                    f.seek(0)  # a loop ends only on a pass boundary
-                    n = f.readinto(buf) // 4
-                if not self.running and not LOOP:
-                    self._abort_to(IDLE_CODE)  # a stream stops at once, ramping down
-                    return
-                self.prev_word = self.cur[self.cur_n - 1]
-                self._send(buf, n)
+        self._play_lossless(loop)  # the .bin is stored compressed
 
     def hold_code(self, code: int) -> None:
         """Put `code` on the pins and hold it (the ladder as a DC source), ramping from

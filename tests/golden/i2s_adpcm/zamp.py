@@ -281,12 +281,6 @@ class Player:
     def _word(self, k: int) -> int:
         # the words are in the buffers (the file is compressed)
         return self.cur[k - self.sent] if k >= self.sent else self.prev[k - self.sent]
-        if WORDS is not None:
-            return WORDS[k]
-        with open(self.path, "rb") as f:
-            f.seek(4 * k)
-            b = f.read(4)
-        return b[0] | b[1] << 8 | b[2] << 16 | b[3] << 24
 
     def play(self, loop: bool = LOOP) -> None:
         """Play once, or repeat (loop=True) until stop() is called; blocks until the
@@ -391,26 +385,6 @@ class Player:
 
     def _play_file(self, loop: bool) -> None:
         self._play_stored(loop)  # the .bin is stored compressed
-        return
-        with open(self.path, "rb") as f:
-            which = 0
-            n = f.readinto(self.bufs[0]) // 4  # read before the machine runs
-            self._send(self.bufs[0], n)
-            self._go()
-            while True:
-                which ^= 1
-                buf = self.bufs[which]
-                n = f.readinto(buf) // 4  # read the next chunk while this one plays
-                if n == 0:
-                    if not (loop and self.running):
-                        break
-                    f.seek(0)  # a loop ends only on a pass boundary
-                    n = f.readinto(buf) // 4
-                    self.sent = -self.cur_n
-                if not self.running and not LOOP:
-                    self._fade_out()  # a stream stops at once, fading out
-                    return
-                self._send(buf, n)
 
     def close(self) -> None:
         """Release the DMA channel and the state machine."""
